@@ -1,0 +1,142 @@
+//! The one error type of the physics core.
+//!
+//! Every variant says what is wrong with which input and how to put it right,
+//! because these messages reach operators through the CLI and the config
+//! checker unchanged. The model never panics on input; anything it cannot
+//! compute comes back as one of these.
+
+use thiserror::Error;
+
+/// Something the model was asked to work with is not physically meaningful.
+#[derive(Debug, Clone, PartialEq, Error)]
+pub enum ModelError {
+    #[error("{what} is {value}, which is not a number; give a finite value")]
+    NotFinite { what: &'static str, value: f64 },
+
+    #[error("{what} must be greater than zero (got {value} {unit}); give a positive value")]
+    NotPositive {
+        what: &'static str,
+        value: f64,
+        unit: &'static str,
+    },
+
+    #[error(
+        "{what} must not be negative (got {value} {unit}); measure it from the tank's lowest point"
+    )]
+    Negative {
+        what: &'static str,
+        value: f64,
+        unit: &'static str,
+    },
+
+    #[error(
+        "{what} is {value} {unit}, outside the plausible range {min} to {max} {unit}; check the value and its unit"
+    )]
+    OutOfRange {
+        what: &'static str,
+        value: f64,
+        min: f64,
+        max: f64,
+        unit: &'static str,
+    },
+
+    #[error(
+        "discharge coefficient {0} is outside (0, 1]; use 0.61 for a sharp-edged hole or 1.0 for the conservative figure"
+    )]
+    DischargeCoefficient(f64),
+
+    #[error(
+        "the hole is at {hole_m} m but the tank is only {top_m} m tall; give the hole height above the tank bottom"
+    )]
+    HoleAboveTank { hole_m: f64, top_m: f64 },
+
+    #[error(
+        "the level {level_m} m is above the top of the tank ({top_m} m); check the level sensor's scaling"
+    )]
+    LevelAboveTank { level_m: f64, top_m: f64 },
+
+    #[error(
+        "the volume {volume_m3} m³ is more than the tank holds ({capacity_m3} m³); check the volume and the geometry"
+    )]
+    VolumeAboveCapacity { volume_m3: f64, capacity_m3: f64 },
+
+    #[error(
+        "a calibration table needs at least two points (got {0}); list (level, volume) pairs from the tank's strapping table"
+    )]
+    TableTooShort(usize),
+
+    #[error(
+        "the calibration table must start at level 0 m (it starts at {0} m); add the volume at the bottom as the first point"
+    )]
+    TableStart(f64),
+
+    #[error(
+        "the calibration table is not increasing at point {index}: {what} goes from {previous} to {next}; \
+         levels and volumes must both rise strictly from one point to the next"
+    )]
+    TableNotIncreasing {
+        index: usize,
+        what: &'static str,
+        previous: f64,
+        next: f64,
+    },
+
+    #[error(
+        "the heat capacity ratio must be greater than 1 (got {0}); air is 1.40, methane 1.31, propane 1.13"
+    )]
+    HeatCapacityRatio(f64),
+
+    #[error(
+        "samples must come in time order, but one at {next_ms} ms follows one at {previous_ms} ms; sort the readings by time"
+    )]
+    SamplesOutOfOrder { previous_ms: i64, next_ms: i64 },
+}
+
+pub type ModelResult<T> = Result<T, ModelError>;
+
+/// Checks that a value is a finite number.
+pub(crate) fn finite(what: &'static str, value: f64) -> ModelResult<f64> {
+    if value.is_finite() {
+        Ok(value)
+    } else {
+        Err(ModelError::NotFinite { what, value })
+    }
+}
+
+/// Checks that a value is a finite number greater than zero.
+pub(crate) fn positive(what: &'static str, value: f64, unit: &'static str) -> ModelResult<f64> {
+    if finite(what, value)? > 0.0 {
+        Ok(value)
+    } else {
+        Err(ModelError::NotPositive { what, value, unit })
+    }
+}
+
+/// Checks that a value is a finite number, zero or more.
+pub(crate) fn non_negative(what: &'static str, value: f64, unit: &'static str) -> ModelResult<f64> {
+    if finite(what, value)? >= 0.0 {
+        Ok(value)
+    } else {
+        Err(ModelError::Negative { what, value, unit })
+    }
+}
+
+/// Checks that a value is a finite number within `[min, max]`.
+pub(crate) fn within(
+    what: &'static str,
+    value: f64,
+    (min, max): (f64, f64),
+    unit: &'static str,
+) -> ModelResult<f64> {
+    if (min..=max).contains(&finite(what, value)?) {
+        Ok(value)
+    } else {
+        Err(ModelError::OutOfRange {
+            what,
+            value,
+            min,
+            max,
+            unit,
+        })
+    }
+}
