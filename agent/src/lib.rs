@@ -5,13 +5,18 @@
 //!
 //! * [`model`]: the physics (orifice flow, tank geometry, draining forecast,
 //!   the running total). Pure, clock-free and deterministic.
+//! * [`config`]: the site config file, validated into SI values.
+//! * [`acquire`]: Modbus polling, one task per device, read-only.
 //! * [`report`]: formatting figures for people, with units and the cautions.
-//! * [`demo`]: the invented demo site and what `leaktally demo` prints.
+//! * [`commands`]: what each subcommand does.
 //! * [`cli`]: the command line.
 //!
 //! Estimates for emergency planning, not measurements.
 
+pub mod acquire;
 pub mod cli;
-pub mod demo;
+pub mod commands;
+pub mod config;
 pub mod model;
 pub mod report;
+pub mod shutdown;

@@ -1,10 +1,19 @@
-//! The `leaktally` binary: parse the command line, run, turn the outcome
-//! into an exit code. The work itself lives in the library.
+//! The `leaktally` binary: parse the command line, set up logging, run,
+//! turn the outcome into an exit code. The work itself lives in the library.
 
 use std::process::ExitCode;
 
 fn main() -> ExitCode {
     let cli = <leaktally::cli::Cli as clap::Parser>::parse();
+    // Logs go to standard error, so that standard output stays clean for
+    // reports and JSON. RUST_LOG adjusts the level (default: info).
+    tracing_subscriber::fmt()
+        .with_writer(std::io::stderr)
+        .with_env_filter(
+            tracing_subscriber::EnvFilter::try_from_default_env()
+                .unwrap_or_else(|_| tracing_subscriber::EnvFilter::new("info")),
+        )
+        .init();
     match leaktally::cli::run(cli) {
         Ok(()) => ExitCode::SUCCESS,
         Err(err) => {

@@ -1,0 +1,49 @@
+//! Acquisition: reading tank values from Modbus TCP devices.
+//!
+//! * [`decode`]: the register vocabulary and how values are encoded.
+//! * [`plan`]: coalescing a device's values into as few reads as possible.
+//! * [`link`]: the read-only Modbus client with timeouts and reconnects.
+//! * [`poller`]: one task per device, producing flagged samples.
+//! * [`sample`]: what acquisition hands on.
+//!
+//! Architecture invariant: only this module knows register addresses and
+//! talks Modbus, and it only ever reads (see [`link`]).
+
+pub mod decode;
+pub mod link;
+pub mod plan;
+pub mod poller;
+pub mod sample;
+
+use crate::config::Config;
+use sample::TankSample;
+use std::sync::Arc;
+use tokio::sync::mpsc;
+use tokio_util::sync::CancellationToken;
+use tokio_util::task::TaskTracker;
+
+/// Batches the channel holds before pollers wait: a few cycles of every
+/// device, enough to ride out a slow database commit.
+const CHANNEL_BATCHES: usize = 64;
+
+/// Starts one poller task per device on `tasks` and returns the stream of
+/// sample batches. The stream ends once every poller has stopped (cancel
+/// `cancel` to stop them).
+pub fn start(
+    config: Arc<Config>,
+    cancel: &CancellationToken,
+    tasks: &TaskTracker,
+) -> mpsc::Receiver<Vec<TankSample>> {
+    let (tx, rx) = mpsc::channel(CHANNEL_BATCHES);
+    for device in 0..config.devices.len() {
+        if config.tanks.iter().any(|t| t.device == device) {
+            tasks.spawn(poller::poll_device(
+                Arc::clone(&config),
+                device,
+                tx.clone(),
+                cancel.clone(),
+            ));
+        }
+    }
+    rx
+}

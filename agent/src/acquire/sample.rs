@@ -1,0 +1,88 @@
+//! What acquisition produces: timestamped readings with a quality flag.
+//!
+//! A reading that is not good keeps its flag and has no value, so nothing
+//! downstream can use a bad number by accident.
+
+use serde::Serialize;
+
+/// Why a reading can or cannot be used.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, Serialize)]
+#[serde(rename_all = "snake_case")]
+pub enum Quality {
+    /// Read and decoded, in range, changing as a live sensor does.
+    Good,
+    /// No answer: the link is down, the device timed out, or a previous
+    /// request on this cycle failed.
+    CommunicationLost,
+    /// The device answered with a Modbus exception, or with data of the
+    /// wrong size.
+    DeviceError,
+    /// Decoded, but outside the sensor's configured range.
+    OutOfRange,
+    /// Decoded, but not changed at all for longer than the sensor's
+    /// `stuck_after_s`.
+    Stuck,
+    /// A float register held NaN or infinity.
+    NotANumber,
+}
+
+impl Quality {
+    pub fn name(self) -> &'static str {
+        match self {
+            Quality::Good => "good",
+            Quality::CommunicationLost => "communication lost",
+            Quality::DeviceError => "device error",
+            Quality::OutOfRange => "out of range",
+            Quality::Stuck => "stuck",
+            Quality::NotANumber => "not a number",
+        }
+    }
+}
+
+/// One sensor value in SI units, or the reason there is none.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
+pub struct Reading {
+    /// Present only when the quality is good.
+    pub value: Option<f64>,
+    pub quality: Quality,
+}
+
+impl Reading {
+    pub fn good(value: f64) -> Self {
+        Self {
+            value: Some(value),
+            quality: Quality::Good,
+        }
+    }
+
+    pub fn bad(quality: Quality) -> Self {
+        Self {
+            value: None,
+            quality,
+        }
+    }
+
+    pub fn is_good(&self) -> bool {
+        self.quality == Quality::Good
+    }
+}
+
+/// Everything read for one tank in one poll cycle.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct TankSample {
+    /// Index into the config's tanks.
+    #[serde(skip)]
+    pub tank: usize,
+    pub tank_id: String,
+    /// UTC, milliseconds since the Unix epoch: when the cycle's reads began.
+    pub at_ms: i64,
+    /// Liquid level above the tank bottom, m.
+    pub level: Reading,
+    /// Pressure as the transmitter reports it, Pa (gauge or absolute as
+    /// configured); absent when no transmitter is mapped.
+    pub pressure: Option<Reading>,
+    /// Net transfer flow into the tank, m³/s; absent when not mapped.
+    pub transfer: Option<Reading>,
+    /// The leak flag; absent when not mapped, `None` inside when unreadable.
+    pub leak_flag: Option<Option<bool>>,
+}

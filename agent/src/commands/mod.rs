@@ -1,0 +1,5 @@
+//! The subcommands, one module each. `cli` parses; these do the work.
+
+pub mod check;
+pub mod demo;
+pub mod poll;

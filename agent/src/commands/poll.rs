@@ -1,0 +1,69 @@
+//! `leaktally poll`: read the configured devices and print every sample.
+//!
+//! A commissioning and diagnosis tool: it runs the same acquisition as the
+//! daemon, without the store or any leak tracking, and writes one JSON
+//! document per tank per cycle to standard output. A summary of how many
+//! readings were good goes to standard error at the end.
+
+use crate::acquire;
+use crate::acquire::sample::Quality;
+use std::collections::BTreeMap;
+use std::io::Write as _;
+use std::path::Path;
+use std::sync::Arc;
+use std::time::Duration;
+use tokio_util::sync::CancellationToken;
+use tokio_util::task::TaskTracker;
+
+/// Polls until `seconds` have passed (forever if `None`) or `stop` resolves.
+pub async fn run(
+    path: &Path,
+    seconds: Option<f64>,
+    stop: impl Future<Output = ()>,
+) -> anyhow::Result<()> {
+    let config = Arc::new(crate::config::load(path)?);
+    let cancel = CancellationToken::new();
+    let tasks = TaskTracker::new();
+    let mut samples = acquire::start(Arc::clone(&config), &cancel, &tasks);
+    tasks.close();
+
+    let deadline = async {
+        match seconds {
+            Some(s) => tokio::time::sleep(Duration::from_secs_f64(s.max(0.0))).await,
+            None => std::future::pending().await,
+        }
+    };
+    tokio::pin!(deadline, stop);
+    let mut counts: BTreeMap<&'static str, u64> = BTreeMap::new();
+    let mut stdout = std::io::stdout().lock();
+    loop {
+        tokio::select! {
+            _ = &mut deadline => break,
+            _ = &mut stop => break,
+            batch = samples.recv() => {
+                let Some(batch) = batch else { break };
+                for sample in &batch {
+                    let qualities = std::iter::once(sample.level.quality)
+                        .chain(sample.pressure.map(|r| r.quality))
+                        .chain(sample.transfer.map(|r| r.quality));
+                    for q in qualities {
+                        *counts.entry(q.name()).or_default() += 1;
+                    }
+                    serde_json::to_writer(&mut stdout, sample)?;
+                    writeln!(stdout)?;
+                }
+                stdout.flush()?;
+            }
+        }
+    }
+    cancel.cancel();
+    tasks.wait().await;
+    let total: u64 = counts.values().sum();
+    let good = counts.get(Quality::Good.name()).copied().unwrap_or(0);
+    let detail: Vec<String> = counts.iter().map(|(k, v)| format!("{k} {v}")).collect();
+    eprintln!(
+        "poll: {total} readings, {good} good ({})",
+        detail.join(", ")
+    );
+    Ok(())
+}
