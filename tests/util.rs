@@ -65,3 +65,38 @@ impl Drop for WorstError {
         );
     }
 }
+
+/// The path of one of the workspace's binaries (`leaktally`,
+/// `leaktally-sim`), built on first use.
+///
+/// Cargo sets `CARGO_BIN_EXE_*` only for a package's own binaries, and these
+/// tests live in the root package, so the first call runs `cargo build` for
+/// both binaries (a no-op when they are fresh) with the cargo that runs the
+/// tests, and later calls reuse the result.
+pub fn binary(name: &str) -> PathBuf {
+    static BUILT: std::sync::OnceLock<Result<PathBuf, String>> = std::sync::OnceLock::new();
+    let dir = BUILT.get_or_init(|| {
+        // The test executable sits in target/<profile>/deps/.
+        let exe = std::env::current_exe().map_err(|e| e.to_string())?;
+        let profile_dir = exe
+            .parent()
+            .and_then(|deps| deps.parent())
+            .ok_or("cannot locate the target folder")?
+            .to_owned();
+        let cargo = std::env::var("CARGO").unwrap_or_else(|_| "cargo".into());
+        let mut build = std::process::Command::new(cargo);
+        build.current_dir(repo_root()).args(["build", "--quiet", "-p", "leaktally", "-p", "leaktally-sim", "--bins"]);
+        if profile_dir.file_name().is_some_and(|p| p == "release") {
+            build.arg("--release");
+        }
+        let status = build.status().map_err(|e| format!("running cargo build: {e}"))?;
+        if !status.success() {
+            return Err(format!("cargo build of the binaries failed ({status})"));
+        }
+        Ok(profile_dir)
+    });
+    match dir {
+        Ok(dir) => dir.join(name),
+        Err(e) => panic!("{e}"),
+    }
+}

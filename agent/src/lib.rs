@@ -20,3 +20,4 @@ pub mod config;
 pub mod model;
 pub mod report;
 pub mod shutdown;
+pub mod track;

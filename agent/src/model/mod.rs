@@ -10,11 +10,13 @@
 //! * [`vessel`]: a tank with its contents; pressure readings; which phase flows.
 //! * [`forecast`]: the draining forecast (when the flow stops, totals at horizons).
 //! * [`tally`]: the running total over timestamped samples, with its Cd band.
+//! * [`integral`]: the trapezoid rule as a running accumulator.
 //! * [`quadrature`]: adaptive Gauss–Kronrod integration, used by the forecast.
 
 pub mod error;
 pub mod forecast;
 pub mod geometry;
+pub mod integral;
 pub mod orifice;
 pub mod quadrature;
 pub mod tally;
@@ -24,6 +26,7 @@ pub mod vessel;
 pub use error::{ModelError, ModelResult};
 pub use forecast::{Forecast, HorizonPoint, forecast_liquid};
 pub use geometry::{Geometry, Heads};
+pub use integral::Trapezoid;
 pub use orifice::{
     DischargeCoefficient, GasProperties, GasRegime, Hole, gas_mass_rate, liquid_mass_rate,
 };

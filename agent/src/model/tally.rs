@@ -13,7 +13,8 @@
 //! Left out on purpose: sample quality, gaps and the inventory balance. The
 //! tracker decides what a usable sample is; the tally only integrates.
 
-use super::error::{ModelError, ModelResult};
+use super::error::ModelResult;
+use super::integral::Trapezoid;
 use super::orifice::{DischargeCoefficient, Hole};
 use super::units::{Mass, MassRate};
 use super::vessel::{Outflow, Phase, TankState, Vessel};
@@ -43,10 +44,8 @@ pub struct ReleaseTally {
     vessel: Vessel,
     hole: Hole,
     cd: DischargeCoefficient,
-    /// Time (ms) and rate at Cd = 1 (kg/s) of the latest sample.
-    last: Option<(i64, f64)>,
-    /// Integral of the rate at Cd = 1 since the first sample (kg).
-    released_at_unit_cd: f64,
+    /// The rate at Cd = 1 (kg/s) integrated since the first sample (kg).
+    at_unit_cd: Trapezoid,
 }
 
 impl ReleaseTally {
@@ -56,8 +55,7 @@ impl ReleaseTally {
             vessel,
             hole,
             cd,
-            last: None,
-            released_at_unit_cd: 0.0,
+            at_unit_cd: Trapezoid::new(),
         })
     }
 
@@ -86,19 +84,9 @@ impl ReleaseTally {
             .vessel
             .outflow(state, &self.hole, DischargeCoefficient::CONSERVATIVE);
         let rate = unit.rate.si();
-        if let Some((previous_ms, previous_rate)) = self.last {
-            if at_ms < previous_ms {
-                return Err(ModelError::SamplesOutOfOrder {
-                    previous_ms,
-                    next_ms: at_ms,
-                });
-            }
-            let dt = (at_ms - previous_ms) as f64 / 1000.0;
-            self.released_at_unit_cd += 0.5 * (previous_rate + rate) * dt;
-        }
-        self.last = Some((at_ms, rate));
+        let released = self.at_unit_cd.push(at_ms, rate)?;
         Ok(TallyFigures {
-            released: self.scale(self.released_at_unit_cd, Mass::kilograms),
+            released: self.scale(released, Mass::kilograms),
             rate: self.scale(rate, MassRate::kg_per_second),
             phase: unit.phase,
         })
@@ -106,9 +94,9 @@ impl ReleaseTally {
 
     /// The figures so far, without a new sample.
     pub fn figures(&self) -> TallyFigures {
-        let rate = self.last.map_or(0.0, |(_, r)| r);
+        let rate = self.at_unit_cd.last().map_or(0.0, |(_, r)| r);
         TallyFigures {
-            released: self.scale(self.released_at_unit_cd, Mass::kilograms),
+            released: self.scale(self.at_unit_cd.total(), Mass::kilograms),
             rate: self.scale(rate, MassRate::kg_per_second),
             phase: Phase::None,
         }
