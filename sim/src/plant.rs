@@ -1,0 +1,480 @@
+//! The simulated plant: every tank's physics, the event script, and what the
+//! sensors show, on one clock counted in physics steps.
+//!
+//! Time here is an integer number of steps, never the wall clock: the caller
+//! says "advance to step n" and the plant applies the events due on the way,
+//! integrates each tank, and hands back a truth row per tank every 100 ms of
+//! simulated time. An event at `at_s` takes effect at the first step
+//! boundary at or after it. Sensor readings are built from the true state
+//! with noise keyed by the step, so they repeat exactly from run to run.
+//!
+//! Left out: sockets, the clock, files and logging (the `run` loop in
+//! `lib.rs` does those), and the physics itself (`physics`).
+
+use crate::noise::Noise;
+use crate::physics::{self, Hole};
+use crate::registers::{self, RegisterImage};
+use crate::scenario::{Event, EventKind, Fault, Scenario, SensorRole};
+use leaktally::config::{Config, Tank as SiteTank};
+use leaktally::model::PressureTap;
+
+/// Simulated time between truth rows, ms.
+pub const TRUTH_PERIOD_MS: u64 = 100;
+
+/// One tank's true state at one moment: a row of the truth file.
+#[derive(Debug, Clone, PartialEq)]
+pub struct TruthRow {
+    pub time_s: f64,
+    /// Index into the site's tanks.
+    pub tank: usize,
+    pub level_m: f64,
+    pub headspace_pa: f64,
+    pub rate_kg_s: f64,
+    pub released_kg: f64,
+    pub transfer_m3_s: f64,
+    pub leak_open: bool,
+}
+
+/// An event as it was applied, for the log.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Applied {
+    pub time_s: f64,
+    pub event: Event,
+}
+
+struct PlantTank {
+    physics: physics::Tank,
+    level_noise_m: f64,
+    pressure_noise_pa: f64,
+    faults: [Fault; 3],
+    flag: bool,
+}
+
+/// The whole plant.
+pub struct Plant {
+    site: Config,
+    step_ms: u64,
+    steps: u64,
+    next_row: u64,
+    tanks: Vec<PlantTank>,
+    /// The script with each event's step, in order; `next_event` is the
+    /// first not yet applied.
+    events: Vec<(u64, Event)>,
+    next_event: usize,
+    /// Per device: the step until which its link is down.
+    link_down_until: Vec<u64>,
+    noise: Noise,
+}
+
+impl Plant {
+    pub fn new(scenario: &Scenario) -> Self {
+        let tanks = scenario
+            .site
+            .tanks
+            .iter()
+            .zip(&scenario.tanks)
+            .map(|(site, setup)| PlantTank {
+                physics: physics::Tank::new(
+                    site.vessel.geometry().clone(),
+                    site.vessel.density().si(),
+                    setup.initial_level_m,
+                    setup.headspace_pa,
+                ),
+                level_noise_m: setup.level_noise_m,
+                pressure_noise_pa: setup.pressure_noise_pa,
+                faults: [Fault::None; 3],
+                flag: false,
+            })
+            .collect();
+        let step_ms = scenario.step_ms.max(1);
+        let events = scenario
+            .events
+            .iter()
+            .map(|e| (step_of(e.at_s, step_ms), e.clone()))
+            .collect();
+        Self {
+            site: scenario.site.clone(),
+            step_ms,
+            steps: 0,
+            next_row: 0,
+            tanks,
+            events,
+            next_event: 0,
+            link_down_until: vec![0; scenario.site.devices.len()],
+            noise: Noise::new(scenario.seed),
+        }
+    }
+
+    pub fn site(&self) -> &Config {
+        &self.site
+    }
+
+    /// Steps taken so far.
+    pub fn steps(&self) -> u64 {
+        self.steps
+    }
+
+    pub fn step_ms(&self) -> u64 {
+        self.step_ms
+    }
+
+    /// Simulated seconds since the start.
+    pub fn time_s(&self) -> f64 {
+        self.time_of(self.steps)
+    }
+
+    fn time_of(&self, steps: u64) -> f64 {
+        (steps * self.step_ms) as f64 / 1000.0
+    }
+
+    /// The true physics of a tank, for tests and the truth file.
+    pub fn tank(&self, tank: usize) -> Option<&physics::Tank> {
+        self.tanks.get(tank).map(|t| &t.physics)
+    }
+
+    /// Advances to step `target` (no-op if already there), appending the
+    /// truth rows and applied events met on the way.
+    pub fn advance_to(
+        &mut self,
+        target: u64,
+        rows: &mut Vec<TruthRow>,
+        applied: &mut Vec<Applied>,
+    ) {
+        let dt = self.step_ms as f64 / 1000.0;
+        while self.steps < target {
+            self.settle(rows, applied);
+            for t in &mut self.tanks {
+                t.physics.step(dt);
+            }
+            self.steps += 1;
+        }
+        self.settle(rows, applied);
+    }
+
+    /// Applies the events due at the present step and emits the truth rows
+    /// if a row falls here. Calling it twice at one step does nothing more.
+    fn settle(&mut self, rows: &mut Vec<TruthRow>, applied: &mut Vec<Applied>) {
+        while let Some((at, event)) = self.events.get(self.next_event) {
+            if *at > self.steps {
+                break;
+            }
+            let event = event.clone();
+            self.next_event += 1;
+            self.apply(&event);
+            applied.push(Applied {
+                time_s: self.time_s(),
+                event,
+            });
+        }
+        if self.steps >= self.next_row {
+            let time_s = self.time_s();
+            for (index, t) in self.tanks.iter().enumerate() {
+                let p = &t.physics;
+                rows.push(TruthRow {
+                    time_s,
+                    tank: index,
+                    level_m: p.level_m(),
+                    headspace_pa: p.headspace_pa(),
+                    rate_kg_s: p.leak_rate(),
+                    released_kg: p.released_kg(),
+                    transfer_m3_s: p.transfer_m3_s(),
+                    leak_open: p.hole().is_some(),
+                });
+            }
+            self.next_row = self.steps + TRUTH_PERIOD_MS / self.step_ms;
+        }
+    }
+
+    fn apply(&mut self, event: &Event) {
+        match event.kind {
+            EventKind::LeakOpens { tank, hole } => {
+                if let Some(t) = self.tanks.get_mut(tank) {
+                    t.physics.set_hole(Some(Hole {
+                        diameter_m: hole.diameter_m,
+                        height_m: hole.height_m,
+                        cd: hole.cd,
+                    }));
+                }
+            }
+            EventKind::LeakCloses { tank } => {
+                if let Some(t) = self.tanks.get_mut(tank) {
+                    t.physics.set_hole(None);
+                }
+            }
+            EventKind::TransferStarts { tank, flow_m3_s } => {
+                if let Some(t) = self.tanks.get_mut(tank) {
+                    t.physics.set_transfer(flow_m3_s);
+                }
+            }
+            EventKind::TransferStops { tank } => {
+                if let Some(t) = self.tanks.get_mut(tank) {
+                    t.physics.set_transfer(0.0);
+                }
+            }
+            EventKind::SensorFault {
+                tank,
+                sensor,
+                fault,
+            } => {
+                if let Some(t) = self.tanks.get_mut(tank) {
+                    t.faults[sensor.index()] = fault;
+                }
+            }
+            EventKind::LinkDrops { device, duration_s } => {
+                let until = self.steps + (duration_s * 1000.0 / self.step_ms as f64).ceil() as u64;
+                if let Some(d) = self.link_down_until.get_mut(device) {
+                    // Overlapping drops extend, never shorten, the outage.
+                    *d = (*d).max(until);
+                }
+            }
+            EventKind::Flag { tank, raised } => {
+                if let Some(t) = self.tanks.get_mut(tank) {
+                    t.flag = raised;
+                }
+            }
+        }
+    }
+
+    /// Whether each device's link is down now, index-aligned with the
+    /// site's devices.
+    pub fn links_down(&self) -> Vec<bool> {
+        self.link_down_until
+            .iter()
+            .map(|&until| self.steps < until)
+            .collect()
+    }
+
+    /// Writes what every sensor shows now into the image. A stuck sensor's
+    /// registers are left alone, so they keep the words they last had.
+    pub fn write_registers(&self, image: &mut RegisterImage) {
+        for (index, (site, t)) in self.site.tanks.iter().zip(&self.tanks).enumerate() {
+            for role in SensorRole::ALL {
+                let Some(sensor) = sensor_of(site, role) else {
+                    continue;
+                };
+                let words = match t.faults[role.index()] {
+                    Fault::Stuck => continue,
+                    Fault::Garbage => registers::garbage(sensor),
+                    Fault::None => registers::encode(sensor, self.reading(index, site, t, role)),
+                };
+                image.set_words(site.device, sensor.register, sensor.address, &words);
+            }
+            if let Some(flag) = site.leak_flag {
+                image.set_bit(site.device, flag.kind, flag.address, t.flag);
+            }
+        }
+    }
+
+    /// What a healthy sensor reads now, SI, noise included.
+    fn reading(&self, index: usize, site: &SiteTank, t: &PlantTank, role: SensorRole) -> f64 {
+        // One noise stream per (tank, sensor).
+        let stream = (index as u64) << 8 | role.index() as u64;
+        let p = &t.physics;
+        match role {
+            SensorRole::Level => {
+                p.level_m() + self.noise.gaussian(t.level_noise_m, stream, self.steps)
+            }
+            SensorRole::Transfer => p.transfer_m3_s(),
+            SensorRole::Pressure => {
+                let Some(ps) = &site.pressure else {
+                    return 0.0;
+                };
+                // A submerged transmitter also carries the liquid column above
+                // its tap; a headspace one sees the vapour space only.
+                let column = match ps.tap {
+                    PressureTap::Headspace => 0.0,
+                    PressureTap::Submerged { elevation } => {
+                        p.density()
+                            * physics::STANDARD_GRAVITY
+                            * (p.level_m() - elevation.si()).max(0.0)
+                    }
+                };
+                let gauge = p.headspace_pa()
+                    + column
+                    + self.noise.gaussian(t.pressure_noise_pa, stream, self.steps);
+                if ps.absolute {
+                    gauge + self.site.ambient.si()
+                } else {
+                    gauge
+                }
+            }
+        }
+    }
+}
+
+fn sensor_of(tank: &SiteTank, role: SensorRole) -> Option<&leaktally::config::Sensor> {
+    match role {
+        SensorRole::Level => Some(&tank.level),
+        SensorRole::Pressure => tank.pressure.as_ref().map(|p| &p.sensor),
+        SensorRole::Transfer => tank.transfer.as_ref(),
+    }
+}
+
+/// The first step at or after `at_s`. The small allowance keeps a time
+/// such as 0.3 s, which is a hair above 300 ms in binary, on its step.
+fn step_of(at_s: f64, step_ms: u64) -> u64 {
+    (at_s * 1000.0 / step_ms as f64 - 1e-6).ceil().max(0.0) as u64
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::scenario;
+    use leaktally::acquire::decode::RegisterKind;
+    use std::path::Path;
+
+    fn scenario_with(events: &str) -> Scenario {
+        let text = format!(
+            r#"
+site = "../../config/demo.toml"
+seed = 7
+[[tank]]
+id = "FF-T12"
+initial_level_m = 4.2
+[[tank]]
+id = "FF-T14"
+initial_level_m = 1.6
+headspace_kpa = 15.0
+[[tank]]
+id = "FF-T20"
+initial_level_m = 5.1
+{events}"#
+        );
+        let path = Path::new(env!("CARGO_MANIFEST_DIR")).join("scenarios/test.toml");
+        scenario::parse(&text, &path).unwrap_or_else(|e| panic!("{e}"))
+    }
+
+    fn registers(
+        plant: &Plant,
+        device: usize,
+        kind: RegisterKind,
+        address: u16,
+        count: u16,
+    ) -> Vec<u16> {
+        let mut image = RegisterImage::new(plant.site());
+        plant.write_registers(&mut image);
+        image.read_registers(device, kind, address, count).unwrap()
+    }
+
+    #[test]
+    fn events_land_on_their_step_and_rows_every_100_ms() {
+        let mut plant = Plant::new(&scenario_with(
+            r#"
+[[event]]
+at_s = 0.3
+action = "leak_opens"
+tank = "FF-T12"
+diameter_mm = 40
+height_m = 0.3
+[[event]]
+at_s = 0.25
+action = "link_drops"
+device = "rtu-west"
+duration_s = 0.5
+"#,
+        ));
+        let (mut rows, mut applied) = (Vec::new(), Vec::new());
+        plant.advance_to(50, &mut rows, &mut applied);
+        let times: Vec<f64> = applied.iter().map(|a| a.time_s).collect();
+        assert_eq!(times, [0.25, 0.3]);
+        // Rows at 0.0, 0.1, ... 0.5 s for three tanks.
+        assert_eq!(rows.len(), 18);
+        let t12: Vec<&TruthRow> = rows.iter().filter(|r| r.tank == 0).collect();
+        assert!(!t12[2].leak_open && t12[3].leak_open && t12[3].released_kg == 0.0);
+        assert!(t12[4].released_kg > 0.0 && t12[4].level_m < 4.2);
+        assert_eq!(plant.links_down(), [false, true]);
+        plant.advance_to(75, &mut rows, &mut applied);
+        assert_eq!(plant.links_down(), [false, false]);
+        // Advancing to where it already is adds nothing.
+        let n = rows.len();
+        plant.advance_to(75, &mut rows, &mut applied);
+        assert_eq!(rows.len(), n);
+    }
+
+    #[test]
+    fn sensors_show_the_true_state_and_their_faults() {
+        let mut plant = Plant::new(&scenario_with(
+            r#"
+[[event]]
+at_s = 0.0
+action = "transfer_starts"
+tank = "FF-T12"
+flow_m3_h = 36.0
+[[event]]
+at_s = 1.0
+action = "sensor_sticks"
+tank = "FF-T12"
+sensor = "level"
+[[event]]
+at_s = 1.0
+action = "sensor_garbage"
+tank = "FF-T14"
+sensor = "pressure"
+[[event]]
+at_s = 1.0
+action = "raise_flag"
+tank = "FF-T12"
+"#,
+        ));
+        let (mut rows, mut applied) = (Vec::new(), Vec::new());
+        plant.advance_to(1, &mut rows, &mut applied);
+        // FF-T12 level: 4.2 m is 17440 counts; the transfer 36 m³/h is 3600 counts.
+        let before = registers(&plant, 0, RegisterKind::Input, 0, 2);
+        assert_eq!(before, [17_440, 3600]);
+        // FF-T14: f32 gauge kPa in holding 12..13, low word first: 15 kPa.
+        let words = registers(&plant, 0, RegisterKind::Holding, 12, 2);
+        let kpa = f64::from(f32::from_bits(
+            u32::from(words[1]) << 16 | u32::from(words[0]),
+        ));
+        assert!((kpa - 15.0).abs() < 1e-6, "{kpa}");
+        // FF-T20: absolute kPa at a tap 0.2 m up under 4.9 m of gasoil.
+        let t20 = registers(&plant, 1, RegisterKind::Holding, 2, 1)[0];
+        let expected_kpa = (101_325.0 + 860.0 * physics::STANDARD_GRAVITY * 4.9) / 1000.0;
+        let got_kpa = plant.site().tanks[2]
+            .pressure
+            .as_ref()
+            .unwrap()
+            .sensor
+            .to_si(f64::from(t20))
+            / 1000.0;
+        assert!(
+            (got_kpa - expected_kpa).abs() < 250.0 / 65_535.0,
+            "{got_kpa} vs {expected_kpa}"
+        );
+
+        let mut image = RegisterImage::new(plant.site());
+        plant.write_registers(&mut image);
+        plant.advance_to(300, &mut rows, &mut applied);
+        plant.write_registers(&mut image);
+        // 36 m³/h into 7.07 m² raised the level 1.4 mm/s, but the register is stuck.
+        assert!(plant.tank(0).unwrap().level_m() > 4.2 + 0.004);
+        assert_eq!(
+            image.read_registers(0, RegisterKind::Input, 0, 1).unwrap(),
+            [17_440]
+        );
+        let words = image
+            .read_registers(0, RegisterKind::Holding, 12, 2)
+            .unwrap();
+        assert!(f32::from_bits(u32::from(words[1]) << 16 | u32::from(words[0])).is_nan());
+        assert_eq!(
+            image
+                .read_bits(0, leaktally::acquire::decode::BitKind::Coil, 0, 1)
+                .unwrap(),
+            [true]
+        );
+    }
+
+    #[test]
+    fn noise_repeats_with_the_seed_and_the_step() {
+        let mut s = scenario_with("");
+        s.tanks[0].level_noise_m = 0.01;
+        let read = |steps: u64| {
+            let mut plant = Plant::new(&s);
+            plant.advance_to(steps, &mut Vec::new(), &mut Vec::new());
+            registers(&plant, 0, RegisterKind::Input, 0, 1)[0]
+        };
+        assert_eq!(read(17), read(17));
+        let spread: std::collections::HashSet<u16> = (0..20).map(read).collect();
+        assert!(spread.len() > 5, "{spread:?}");
+    }
+}

@@ -1,0 +1,931 @@
+//! The scenario file: which site to serve, how each tank starts, and the
+//! scripted events (a leak opening, pump transfers, sensor faults, dropped
+//! links, the leak flag).
+//!
+//! As in the agent's config, a raw serde layer mirrors the TOML and a
+//! validation pass turns it into a [`Scenario`] in SI units, naming
+//! file:line:column for every problem and reporting all problems at once.
+//! The site itself (devices, tanks, registers) is the agent's own config,
+//! loaded with `leaktally::config::load`, so the simulator and the agent
+//! cannot disagree on a register address.
+//!
+//! Left out: anything that runs the scenario (see `plant`) and any physics
+//! beyond what validation needs (the tank height, for the hole and level
+//! checks).
+
+use leaktally::config::{self, Config, ConfigError, Problem, line_col};
+use leaktally::model::Length;
+use serde::Deserialize;
+use std::collections::HashMap;
+use std::fmt;
+use std::ops::Range;
+use std::path::{Path, PathBuf};
+use toml::Spanned;
+
+/// A validated scenario.
+#[derive(Debug, Clone)]
+pub struct Scenario {
+    /// Where it was read from.
+    pub path: PathBuf,
+    /// The agent config whose devices and registers the simulator serves.
+    pub site: Config,
+    /// The physics time step, ms; it divides 100 so truth rows fall on steps.
+    pub step_ms: u64,
+    /// Seed of the sensor noise.
+    pub seed: u64,
+    /// How each tank starts, index-aligned with `site.tanks`.
+    pub tanks: Vec<TankSetup>,
+    /// The script, sorted by time (stable, so same-time events keep their
+    /// file order).
+    pub events: Vec<Event>,
+}
+
+/// A tank's starting state and sensor noise.
+#[derive(Debug, Clone, PartialEq)]
+pub struct TankSetup {
+    pub initial_level_m: f64,
+    /// Headspace gauge pressure, Pa, held constant for the whole run.
+    pub headspace_pa: f64,
+    /// Standard deviation of the noise on the level reading, m.
+    pub level_noise_m: f64,
+    /// Standard deviation of the noise on the pressure reading, Pa.
+    pub pressure_noise_pa: f64,
+}
+
+/// One scripted event.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Event {
+    /// Seconds after the simulator starts.
+    pub at_s: f64,
+    pub kind: EventKind,
+}
+
+/// What happens. Tanks and devices are indices into the site config.
+#[derive(Debug, Clone, PartialEq)]
+pub enum EventKind {
+    /// A hole opens; a second one on the same tank replaces the first (a
+    /// hole that grows), since the simulator models one hole per tank.
+    LeakOpens {
+        tank: usize,
+        hole: HoleSpec,
+    },
+    LeakCloses {
+        tank: usize,
+    },
+    /// Net flow into the tank, m³/s (negative out).
+    TransferStarts {
+        tank: usize,
+        flow_m3_s: f64,
+    },
+    TransferStops {
+        tank: usize,
+    },
+    SensorFault {
+        tank: usize,
+        sensor: SensorRole,
+        fault: Fault,
+    },
+    /// Requests for the device get no reply for this long.
+    LinkDrops {
+        device: usize,
+        duration_s: f64,
+    },
+    /// Sets (true) or clears the tank's leak flag bit.
+    Flag {
+        tank: usize,
+        raised: bool,
+    },
+}
+
+/// A hole as the scenario gives it, in SI.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct HoleSpec {
+    pub diameter_m: f64,
+    /// Height of the hole above the tank bottom.
+    pub height_m: f64,
+    pub cd: f64,
+}
+
+/// Which of a tank's sensors a fault event means.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum SensorRole {
+    Level,
+    Pressure,
+    Transfer,
+}
+
+impl SensorRole {
+    pub const ALL: [SensorRole; 3] = [
+        SensorRole::Level,
+        SensorRole::Pressure,
+        SensorRole::Transfer,
+    ];
+
+    pub fn name(self) -> &'static str {
+        match self {
+            SensorRole::Level => "level",
+            SensorRole::Pressure => "pressure",
+            SensorRole::Transfer => "transfer",
+        }
+    }
+
+    /// Position in per-tank arrays.
+    pub fn index(self) -> usize {
+        self as usize
+    }
+}
+
+/// What a sensor's registers show.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+pub enum Fault {
+    /// The live value.
+    #[default]
+    None,
+    /// Frozen at the words they held when the fault began.
+    Stuck,
+    /// NaN for f32, the type's largest value for integers.
+    Garbage,
+}
+
+/// The default discharge coefficient: a sharp-edged hole (common practice).
+pub const DEFAULT_CD: f64 = 0.61;
+const DEFAULT_STEP_MS: i64 = 10;
+const DEFAULT_SEED: u64 = 1;
+
+/// A scenario that could not be read or is not valid.
+#[derive(Debug)]
+pub enum ScenarioError {
+    Read {
+        path: PathBuf,
+        source: std::io::Error,
+    },
+    /// The site config it names does not load; `at` locates the `site` key.
+    Site {
+        at: Problem,
+        source: ConfigError,
+    },
+    Invalid {
+        problems: Vec<Problem>,
+    },
+}
+
+impl fmt::Display for ScenarioError {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        match self {
+            ScenarioError::Read { path, source } => {
+                write!(
+                    f,
+                    "cannot read the scenario file {}: {source}",
+                    path.display()
+                )
+            }
+            ScenarioError::Site { at, source } => write!(f, "{at}\n{source}"),
+            ScenarioError::Invalid { problems } => {
+                for (i, p) in problems.iter().enumerate() {
+                    if i > 0 {
+                        writeln!(f)?;
+                    }
+                    write!(f, "{p}")?;
+                }
+                Ok(())
+            }
+        }
+    }
+}
+
+impl std::error::Error for ScenarioError {}
+
+mod raw {
+    use super::SensorRole;
+    use serde::Deserialize;
+    use toml::Spanned;
+
+    #[derive(Debug, Deserialize)]
+    #[serde(deny_unknown_fields)]
+    pub struct RawScenario {
+        pub site: Spanned<String>,
+        pub step_ms: Option<Spanned<i64>>,
+        pub seed: Option<u64>,
+        #[serde(default, rename = "tank")]
+        pub tanks: Vec<RawTank>,
+        #[serde(default, rename = "event")]
+        pub events: Vec<RawEvent>,
+    }
+
+    #[derive(Debug, Deserialize)]
+    #[serde(deny_unknown_fields)]
+    pub struct RawTank {
+        pub id: Spanned<String>,
+        pub initial_level_m: Spanned<f64>,
+        pub headspace_kpa: Option<Spanned<f64>>,
+        pub level_noise_m: Option<Spanned<f64>>,
+        pub pressure_noise_pa: Option<Spanned<f64>>,
+    }
+
+    /// One `[[event]]`. Every action shares this flat type, and validation
+    /// checks which keys an action takes: serde's tagged enums buffer their
+    /// content, which would lose the spans that make the messages useful.
+    #[derive(Debug, Deserialize)]
+    #[serde(deny_unknown_fields)]
+    pub struct RawEvent {
+        pub at_s: Spanned<f64>,
+        pub action: Spanned<Action>,
+        pub tank: Option<Spanned<String>>,
+        pub device: Option<Spanned<String>>,
+        pub sensor: Option<Spanned<SensorRole>>,
+        pub diameter_mm: Option<Spanned<f64>>,
+        pub height_m: Option<Spanned<f64>>,
+        pub cd: Option<Spanned<f64>>,
+        pub flow_m3_h: Option<Spanned<f64>>,
+        pub duration_s: Option<Spanned<f64>>,
+    }
+
+    #[derive(Debug, Clone, Copy, PartialEq, Eq, Deserialize)]
+    #[serde(rename_all = "snake_case")]
+    pub enum Action {
+        LeakOpens,
+        LeakCloses,
+        TransferStarts,
+        TransferStops,
+        SensorSticks,
+        SensorGarbage,
+        SensorRecovers,
+        LinkDrops,
+        RaiseFlag,
+        LowerFlag,
+    }
+
+    impl Action {
+        pub fn name(self) -> &'static str {
+            match self {
+                Action::LeakOpens => "leak_opens",
+                Action::LeakCloses => "leak_closes",
+                Action::TransferStarts => "transfer_starts",
+                Action::TransferStops => "transfer_stops",
+                Action::SensorSticks => "sensor_sticks",
+                Action::SensorGarbage => "sensor_garbage",
+                Action::SensorRecovers => "sensor_recovers",
+                Action::LinkDrops => "link_drops",
+                Action::RaiseFlag => "raise_flag",
+                Action::LowerFlag => "lower_flag",
+            }
+        }
+
+        /// The keys besides `at_s` and `action` that the action requires,
+        /// and those it also accepts.
+        pub fn keys(self) -> (&'static [&'static str], &'static [&'static str]) {
+            match self {
+                Action::LeakOpens => (&["tank", "diameter_mm", "height_m"], &["cd"]),
+                Action::TransferStarts => (&["tank", "flow_m3_h"], &[]),
+                Action::SensorSticks | Action::SensorGarbage | Action::SensorRecovers => {
+                    (&["tank", "sensor"], &[])
+                }
+                Action::LinkDrops => (&["device", "duration_s"], &[]),
+                Action::LeakCloses
+                | Action::TransferStops
+                | Action::RaiseFlag
+                | Action::LowerFlag => (&["tank"], &[]),
+            }
+        }
+    }
+}
+
+use raw::{Action, RawEvent, RawScenario, RawTank};
+
+/// Reads and validates a scenario file, and the site config it names.
+pub fn load(path: &Path) -> Result<Scenario, ScenarioError> {
+    let text = std::fs::read_to_string(path).map_err(|source| ScenarioError::Read {
+        path: path.to_owned(),
+        source,
+    })?;
+    parse(&text, path)
+}
+
+/// Validates scenario text; `path` names it in messages and anchors the
+/// relative `site` path.
+pub fn parse(text: &str, path: &Path) -> Result<Scenario, ScenarioError> {
+    let file = path.display().to_string();
+    let locate = |span: Range<usize>, message: String| {
+        let (line, column) = line_col(text, span.start);
+        Problem {
+            file: file.clone(),
+            line,
+            column,
+            message,
+        }
+    };
+    let raw: RawScenario = toml::from_str(text).map_err(|e| ScenarioError::Invalid {
+        problems: vec![locate(e.span().unwrap_or(0..0), hint(e.message()))],
+    })?;
+
+    // The site path is relative to the scenario file, so a scenario and its
+    // site can move together and the simulator runs from any directory.
+    let base = path.parent().unwrap_or_else(|| Path::new(""));
+    let site_path = base.join(raw.site.get_ref());
+    let site = config::load(&site_path).map_err(|source| ScenarioError::Site {
+        at: locate(
+            raw.site.span(),
+            format!("the site config \"{}\" does not load:", raw.site.get_ref()),
+        ),
+        source,
+    })?;
+
+    let mut checker = Checker {
+        problems: Vec::new(),
+        site: &site,
+    };
+    let (step_ms, tanks, events) = checker.scenario(&raw);
+    if checker.problems.is_empty() {
+        Ok(Scenario {
+            path: path.to_owned(),
+            step_ms,
+            seed: raw.seed.unwrap_or(DEFAULT_SEED),
+            tanks,
+            events,
+            site,
+        })
+    } else {
+        Err(ScenarioError::Invalid {
+            problems: checker
+                .problems
+                .into_iter()
+                .map(|(span, msg)| locate(span, msg))
+                .collect(),
+        })
+    }
+}
+
+/// Adds a way out to the TOML parser's messages where it gives none.
+fn hint(message: &str) -> String {
+    let message = message.trim_end();
+    if message.starts_with("unknown field") {
+        format!("{message}; check the spelling against sim/scenarios/demo.toml")
+    } else if message.starts_with("unknown variant") {
+        format!("{message}; use one of the listed values")
+    } else {
+        message.to_owned()
+    }
+}
+
+struct Checker<'a> {
+    problems: Vec<(Range<usize>, String)>,
+    site: &'a Config,
+}
+
+impl Checker<'_> {
+    fn problem(&mut self, span: Range<usize>, message: impl Into<String>) {
+        self.problems.push((span, message.into()));
+    }
+
+    fn scenario(&mut self, raw: &RawScenario) -> (u64, Vec<TankSetup>, Vec<Event>) {
+        let step_ms = match &raw.step_ms {
+            None => DEFAULT_STEP_MS,
+            Some(s) => {
+                let v = *s.get_ref();
+                if !(1..=100).contains(&v) || 100 % v != 0 {
+                    self.problem(
+                        s.span(),
+                        format!(
+                            "step_ms = {v} must divide 100 (1, 2, 4, 5, 10, 20, 25, 50 or 100), so the 100 ms truth rows fall on steps; 10 suits most scenarios"
+                        ),
+                    );
+                    DEFAULT_STEP_MS
+                } else {
+                    v
+                }
+            }
+        };
+        self.unique_unit_ids(raw.site.span());
+        let tanks = self.tanks(&raw.tanks, raw.site.span());
+        let mut events: Vec<Event> = raw.events.iter().filter_map(|e| self.event(e)).collect();
+        events.sort_by(|a, b| a.at_s.total_cmp(&b.at_s));
+        (step_ms as u64, tanks, events)
+    }
+
+    /// The simulator serves every device on one listener and tells them
+    /// apart by unit id alone, so two devices may not share one.
+    fn unique_unit_ids(&mut self, site_span: Range<usize>) {
+        let mut seen: HashMap<u8, &str> = HashMap::new();
+        for d in &self.site.devices {
+            if let Some(first) = seen.insert(d.unit_id, &d.id) {
+                let message = format!(
+                    "devices \"{first}\" and \"{}\" of the site both have unit_id {}; the simulator serves all devices on one listener and routes requests by unit id, so give each device its own unit_id",
+                    d.id, d.unit_id
+                );
+                self.problem(site_span.clone(), message);
+            }
+        }
+    }
+
+    fn tank_index(&mut self, id: &Spanned<String>) -> Option<usize> {
+        let found = self.site.tanks.iter().position(|t| t.id == *id.get_ref());
+        if found.is_none() {
+            let known: Vec<&str> = self.site.tanks.iter().map(|t| t.id.as_str()).collect();
+            self.problem(
+                id.span(),
+                format!(
+                    "tank \"{}\" is not in the site config; use one of: {}",
+                    id.get_ref(),
+                    known.join(", ")
+                ),
+            );
+        }
+        found
+    }
+
+    fn tanks(&mut self, raw: &[RawTank], site_span: Range<usize>) -> Vec<TankSetup> {
+        let mut setups: Vec<Option<TankSetup>> = vec![None; self.site.tanks.len()];
+        for t in raw {
+            let Some(index) = self.tank_index(&t.id) else {
+                continue;
+            };
+            if setups[index].is_some() {
+                self.problem(
+                    t.id.span(),
+                    format!(
+                        "tank \"{}\" has two [[tank]] entries; keep one",
+                        t.id.get_ref()
+                    ),
+                );
+                continue;
+            }
+            setups[index] = self.tank(t, index);
+        }
+        let mut out = Vec::with_capacity(setups.len());
+        for (index, setup) in setups.into_iter().enumerate() {
+            match setup {
+                Some(s) => out.push(s),
+                None => {
+                    // Only complain about a missing entry when the tank was not
+                    // listed at all; a listed tank already has its own message.
+                    let id = &self.site.tanks[index].id;
+                    if !raw.iter().any(|t| t.id.get_ref() == id) {
+                        let message = format!(
+                            "tank \"{id}\" of the site has no [[tank]] entry; add one with id = \"{id}\" and its initial_level_m"
+                        );
+                        self.problem(site_span.clone(), message);
+                    }
+                }
+            }
+        }
+        out
+    }
+
+    fn tank(&mut self, t: &RawTank, index: usize) -> Option<TankSetup> {
+        let tank = &self.site.tanks[index];
+        let ctx = format!("tank \"{}\"", tank.id);
+        let top = tank.vessel.geometry().height().si();
+        let level = *t.initial_level_m.get_ref();
+        let mut ok = true;
+        if !(level.is_finite() && (0.0..=top).contains(&level)) {
+            self.problem(
+                t.initial_level_m.span(),
+                format!("{ctx}: initial_level_m = {level} is outside the tank; give a level from 0 to {top} m"),
+            );
+            ok = false;
+        }
+        let ambient = self.site.ambient.si();
+        let headspace_pa = match &t.headspace_kpa {
+            None => tank.assumed_headspace.si(),
+            Some(kpa) => {
+                let pa = *kpa.get_ref() * 1000.0;
+                if !pa.is_finite() || pa.abs() > 1e7 || pa + ambient <= 0.0 {
+                    self.problem(
+                        kpa.span(),
+                        format!(
+                            "{ctx}: headspace_kpa = {} is not a possible gauge pressure; give kPa above ambient, above -{} (0 for an open vent)",
+                            kpa.get_ref(),
+                            ambient / 1000.0
+                        ),
+                    );
+                    ok = false;
+                }
+                pa
+            }
+        };
+        let mut noise = |value: &Option<Spanned<f64>>, key: &str| match value {
+            None => 0.0,
+            Some(v) if v.get_ref().is_finite() && *v.get_ref() >= 0.0 => *v.get_ref(),
+            Some(v) => {
+                self.problem(
+                    v.span(),
+                    format!(
+                        "{ctx}: {key} = {} must be a standard deviation, zero or more",
+                        v.get_ref()
+                    ),
+                );
+                ok = false;
+                0.0
+            }
+        };
+        let level_noise_m = noise(&t.level_noise_m, "level_noise_m");
+        let pressure_noise_pa = noise(&t.pressure_noise_pa, "pressure_noise_pa");
+        if let (Some(p), None) = (&t.pressure_noise_pa, &tank.pressure) {
+            self.problem(
+                p.span(),
+                format!("{ctx}: pressure_noise_pa needs a pressure sensor, and the site maps none for this tank; remove it"),
+            );
+            ok = false;
+        }
+        ok.then_some(TankSetup {
+            initial_level_m: level,
+            headspace_pa,
+            level_noise_m,
+            pressure_noise_pa,
+        })
+    }
+
+    fn event(&mut self, e: &RawEvent) -> Option<Event> {
+        let action = *e.action.get_ref();
+        let name = action.name();
+        let (required, optional) = action.keys();
+        let present: [(&str, Option<Range<usize>>); 8] = [
+            ("tank", e.tank.as_ref().map(Spanned::span)),
+            ("device", e.device.as_ref().map(Spanned::span)),
+            ("sensor", e.sensor.as_ref().map(Spanned::span)),
+            ("diameter_mm", e.diameter_mm.as_ref().map(Spanned::span)),
+            ("height_m", e.height_m.as_ref().map(Spanned::span)),
+            ("cd", e.cd.as_ref().map(Spanned::span)),
+            ("flow_m3_h", e.flow_m3_h.as_ref().map(Spanned::span)),
+            ("duration_s", e.duration_s.as_ref().map(Spanned::span)),
+        ];
+        let mut ok = true;
+        for (key, span) in &present {
+            match span {
+                Some(span) if !required.contains(key) && !optional.contains(key) => {
+                    let takes: Vec<&str> = required.iter().chain(optional).copied().collect();
+                    self.problem(
+                        span.clone(),
+                        format!(
+                            "{key} does not apply to action \"{name}\", which takes: {}; remove it",
+                            takes.join(", ")
+                        ),
+                    );
+                    ok = false;
+                }
+                None if required.contains(key) => {
+                    self.problem(
+                        e.action.span(),
+                        format!("action \"{name}\" needs {key}; add it to this [[event]]"),
+                    );
+                    ok = false;
+                }
+                _ => {}
+            }
+        }
+        let at_s = *e.at_s.get_ref();
+        if !(at_s.is_finite() && at_s >= 0.0) {
+            self.problem(
+                e.at_s.span(),
+                format!("at_s = {at_s} must be zero or more seconds after the simulator starts"),
+            );
+            ok = false;
+        }
+        if !ok {
+            return None;
+        }
+
+        // The keys are known to be there from here on.
+        let tank = match &e.tank {
+            Some(t) => Some(self.tank_index(t)?),
+            None => None,
+        };
+        let kind = match action {
+            Action::LeakOpens => {
+                let tank = tank?;
+                EventKind::LeakOpens {
+                    tank,
+                    hole: self.hole(e, tank)?,
+                }
+            }
+            Action::LeakCloses => EventKind::LeakCloses { tank: tank? },
+            Action::TransferStarts => {
+                let flow = e.flow_m3_h.as_ref()?;
+                if !flow.get_ref().is_finite() {
+                    self.problem(
+                        flow.span(),
+                        "flow_m3_h must be a finite number of m³/h, positive into the tank",
+                    );
+                    return None;
+                }
+                EventKind::TransferStarts {
+                    tank: tank?,
+                    flow_m3_s: *flow.get_ref() / 3600.0,
+                }
+            }
+            Action::TransferStops => EventKind::TransferStops { tank: tank? },
+            Action::SensorSticks | Action::SensorGarbage | Action::SensorRecovers => {
+                let tank = tank?;
+                let sensor = e.sensor.as_ref()?;
+                let t = &self.site.tanks[tank];
+                let mapped = match sensor.get_ref() {
+                    SensorRole::Level => true,
+                    SensorRole::Pressure => t.pressure.is_some(),
+                    SensorRole::Transfer => t.transfer.is_some(),
+                };
+                if !mapped {
+                    self.problem(
+                        sensor.span(),
+                        format!(
+                            "tank \"{}\" has no {} sensor in the site config; pick one it has",
+                            t.id,
+                            sensor.get_ref().name()
+                        ),
+                    );
+                    return None;
+                }
+                let fault = match action {
+                    Action::SensorSticks => Fault::Stuck,
+                    Action::SensorGarbage => Fault::Garbage,
+                    _ => Fault::None,
+                };
+                EventKind::SensorFault {
+                    tank,
+                    sensor: *sensor.get_ref(),
+                    fault,
+                }
+            }
+            Action::LinkDrops => {
+                let device = e.device.as_ref()?;
+                let duration = e.duration_s.as_ref()?;
+                let index = self
+                    .site
+                    .devices
+                    .iter()
+                    .position(|d| d.id == *device.get_ref());
+                if index.is_none() {
+                    let known: Vec<&str> =
+                        self.site.devices.iter().map(|d| d.id.as_str()).collect();
+                    self.problem(
+                        device.span(),
+                        format!(
+                            "device \"{}\" is not in the site config; use one of: {}",
+                            device.get_ref(),
+                            known.join(", ")
+                        ),
+                    );
+                }
+                let d = *duration.get_ref();
+                if !(d.is_finite() && d > 0.0) {
+                    self.problem(
+                        duration.span(),
+                        format!("duration_s = {d} must be a positive number of seconds"),
+                    );
+                    return None;
+                }
+                EventKind::LinkDrops {
+                    device: index?,
+                    duration_s: d,
+                }
+            }
+            Action::RaiseFlag | Action::LowerFlag => {
+                let tank = tank?;
+                if self.site.tanks[tank].leak_flag.is_none() {
+                    let span = e.tank.as_ref().map_or(0..0, Spanned::span);
+                    self.problem(
+                        span,
+                        format!(
+                            "tank \"{}\" has no leak_flag in the site config, so there is no bit to {}; map one or remove this event",
+                            self.site.tanks[tank].id,
+                            if action == Action::RaiseFlag { "raise" } else { "lower" }
+                        ),
+                    );
+                    return None;
+                }
+                EventKind::Flag {
+                    tank,
+                    raised: action == Action::RaiseFlag,
+                }
+            }
+        };
+        Some(Event { at_s, kind })
+    }
+
+    fn hole(&mut self, e: &RawEvent, tank: usize) -> Option<HoleSpec> {
+        let t = &self.site.tanks[tank];
+        let top = t.vessel.geometry().height().si();
+        let (diameter, height) = (e.diameter_mm.as_ref()?, e.height_m.as_ref()?);
+        let mut ok = true;
+        let d = *diameter.get_ref();
+        if !(d.is_finite() && d > 0.0) {
+            self.problem(
+                diameter.span(),
+                format!("diameter_mm = {d} must be a positive number of mm"),
+            );
+            ok = false;
+        }
+        let z = *height.get_ref();
+        if !z.is_finite() || z < 0.0 {
+            self.problem(
+                height.span(),
+                format!(
+                    "height_m = {z} must be the hole's height above the tank bottom, 0 to {top} m"
+                ),
+            );
+            ok = false;
+        } else if z > top {
+            self.problem(
+                height.span(),
+                format!(
+                    "height_m = {z} puts the hole above the top of tank \"{}\" ({top} m); give its height above the tank bottom, 0 to {top} m",
+                    t.id
+                ),
+            );
+            ok = false;
+        }
+        let cd = match &e.cd {
+            None => DEFAULT_CD,
+            Some(cd) => {
+                let v = *cd.get_ref();
+                if !(v > 0.0 && v <= 1.0) {
+                    self.problem(
+                        cd.span(),
+                        format!("cd = {v} is outside (0, 1]; about 0.61 suits a sharp-edged hole, 1.0 a smooth nozzle"),
+                    );
+                    ok = false;
+                }
+                v
+            }
+        };
+        ok.then_some(HoleSpec {
+            diameter_m: Length::millimetres(d).si(),
+            height_m: z,
+            cd,
+        })
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn demo_dir() -> PathBuf {
+        Path::new(env!("CARGO_MANIFEST_DIR")).join("scenarios")
+    }
+
+    /// Parses `text` as if it were a file in sim/scenarios/, so that
+    /// `site = "../../config/demo.toml"` resolves.
+    fn parse_here(text: &str) -> Result<Scenario, ScenarioError> {
+        parse(text, &demo_dir().join("test.toml"))
+    }
+
+    const TANKS: &str = r#"
+site = "../../config/demo.toml"
+[[tank]]
+id = "FF-T12"
+initial_level_m = 4.2
+[[tank]]
+id = "FF-T14"
+initial_level_m = 1.6
+headspace_kpa = 15.0
+pressure_noise_pa = 30.0
+[[tank]]
+id = "FF-T20"
+initial_level_m = 5.1
+"#;
+
+    fn messages(text: &str) -> String {
+        match parse_here(text) {
+            Ok(_) => panic!("expected an error"),
+            Err(e) => e.to_string(),
+        }
+    }
+
+    #[test]
+    fn the_demo_scenario_loads_and_events_are_sorted() {
+        let s = load(&demo_dir().join("demo.toml")).unwrap_or_else(|e| panic!("{e}"));
+        assert_eq!(s.tanks.len(), 3);
+        assert_eq!(s.tanks[1].headspace_pa, 15_000.0);
+        assert!(s.events.windows(2).all(|w| w[0].at_s <= w[1].at_s));
+        assert!(matches!(
+            s.events[0].kind,
+            EventKind::LeakOpens { tank: 0, .. }
+        ));
+
+        let text = format!(
+            "{TANKS}
+[[event]]
+at_s = 9.0
+action = \"leak_closes\"
+tank = \"FF-T12\"
+[[event]]
+at_s = 2
+action = \"leak_opens\"
+tank = \"FF-T12\"
+diameter_mm = 25
+height_m = 0.3
+"
+        );
+        let s = parse_here(&text).unwrap_or_else(|e| panic!("{e}"));
+        assert_eq!(s.events[0].at_s, 2.0);
+        let EventKind::LeakOpens { hole, .. } = s.events[0].kind else {
+            panic!("{:?}", s.events[0]);
+        };
+        assert_eq!((hole.diameter_m, hole.cd), (0.025, DEFAULT_CD));
+    }
+
+    #[test]
+    fn an_unknown_tank_is_named_with_its_place_and_the_known_ids() {
+        let text = TANKS.replace("id = \"FF-T20\"", "id = \"FF-T99\"");
+        let msg = messages(&text);
+        assert!(
+            msg.contains("test.toml:12:6: tank \"FF-T99\" is not in the site config; use one of: FF-T12, FF-T14, FF-T20"),
+            "{msg}"
+        );
+        // The site tank left without an entry is named too.
+        assert!(
+            msg.contains("tank \"FF-T20\" of the site has no [[tank]] entry"),
+            "{msg}"
+        );
+    }
+
+    #[test]
+    fn a_hole_above_the_tank_is_refused_with_the_tank_height() {
+        let text = format!(
+            "{TANKS}
+[[event]]
+at_s = 1.0
+action = \"leak_opens\"
+tank = \"FF-T12\"
+diameter_mm = 40.0
+height_m = 6.0
+cd = 1.2
+"
+        );
+        let msg = messages(&text);
+        assert!(
+            msg.contains(
+                "test.toml:20:12: height_m = 6 puts the hole above the top of tank \"FF-T12\" (5 m)"
+            ),
+            "{msg}"
+        );
+        assert!(
+            msg.contains("test.toml:21:6: cd = 1.2 is outside (0, 1]"),
+            "{msg}"
+        );
+    }
+
+    #[test]
+    fn other_mistakes_get_clear_messages() {
+        let cases: &[(&str, &str)] = &[
+            (
+                "[[event]]\nat_s = -1.0\naction = \"leak_closes\"\ntank = \"FF-T12\"\n",
+                "at_s = -1 must be zero or more seconds",
+            ),
+            (
+                "[[event]]\nat_s = 1.0\naction = \"leak_opens\"\ntank = \"FF-T12\"\nheight_m = 0.3\n",
+                "action \"leak_opens\" needs diameter_mm",
+            ),
+            (
+                "[[event]]\nat_s = 1.0\naction = \"transfer_stops\"\ntank = \"FF-T12\"\nflow_m3_h = 3.0\n",
+                "flow_m3_h does not apply to action \"transfer_stops\", which takes: tank; remove it",
+            ),
+            (
+                "[[event]]\nat_s = 1.0\naction = \"sensor_sticks\"\ntank = \"FF-T12\"\nsensor = \"pressure\"\n",
+                "tank \"FF-T12\" has no pressure sensor in the site config",
+            ),
+            (
+                "[[event]]\nat_s = 1.0\naction = \"link_drops\"\ndevice = \"rtu-north\"\nduration_s = 8\n",
+                "device \"rtu-north\" is not in the site config; use one of: rtu-east, rtu-west",
+            ),
+            (
+                "[[event]]\nat_s = 1.0\naction = \"raise_flag\"\ntank = \"FF-T20\"\n",
+                "tank \"FF-T20\" has no leak_flag in the site config",
+            ),
+            (
+                "[[event]]\nat_s = 1.0\naction = \"leak_bursts\"\n",
+                "unknown variant `leak_bursts`",
+            ),
+        ];
+        for (event, expected) in cases {
+            let msg = messages(&format!("{TANKS}{event}"));
+            assert!(msg.contains(expected), "{event}\n=> {msg}");
+            assert!(
+                msg.starts_with(&demo_dir().join("test.toml").display().to_string()),
+                "{msg}"
+            );
+        }
+        let msg = messages(&TANKS.replace("initial_level_m = 4.2", "initial_level_m = 5.5"));
+        assert!(
+            msg.contains("initial_level_m = 5.5 is outside the tank; give a level from 0 to 5 m"),
+            "{msg}"
+        );
+        let msg = messages(&TANKS.replace(
+            "site = \"../../config/demo.toml\"",
+            "site = \"nowhere.toml\"\nstep_ms = 3",
+        ));
+        assert!(
+            msg.contains("test.toml:2:8: the site config \"nowhere.toml\" does not load"),
+            "{msg}"
+        );
+        let msg = messages(&TANKS.replace(
+            "site = \"../../config/demo.toml\"",
+            "site = \"../../config/demo.toml\"\nstep_ms = 3",
+        ));
+        assert!(
+            msg.contains("test.toml:3:11: step_ms = 3 must divide 100"),
+            "{msg}"
+        );
+    }
+}

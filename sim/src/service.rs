@@ -1,0 +1,180 @@
+//! The Modbus TCP service: one listener for every device of the site,
+//! requests routed by unit id, read function codes only, and a count of
+//! every request by function code.
+//!
+//! It answers FC01, FC02, FC03 and FC04 from the shared register image. Every
+//! other function code, and every write above all, gets IllegalFunction and
+//! is counted, so a test can prove the agent never writes to the control
+//! system. A unit id that no device has gets GatewayTargetDevice, the answer
+//! of a gateway with nothing behind that id. While a device's link is down
+//! its requests get no reply at all and the client times out, as when an
+//! RTU's radio or serial link behind a gateway fails.
+//!
+//! Left out: the physics and the clock (they update the shared image from
+//! outside), Modbus RTU, and per-connection state: every connection sees the
+//! same image.
+
+use crate::registers::{ReadError, RegisterImage};
+use leaktally::acquire::decode::{BitKind, RegisterKind};
+use std::collections::{BTreeMap, HashMap};
+use std::future::{Future, Ready, ready};
+use std::io;
+use std::net::SocketAddr;
+use std::sync::atomic::{AtomicU64, Ordering};
+use std::sync::{Arc, Mutex, PoisonError};
+use tokio::net::TcpListener;
+use tokio_modbus::prelude::*;
+use tokio_modbus::server::Terminated;
+use tokio_modbus::server::tcp::{Server, accept_tcp_connection};
+
+/// Function codes that change a device's state: write single and multiple
+/// coils and registers, mask write, and read/write multiple registers.
+pub const WRITE_CODES: [u8; 6] = [0x05, 0x06, 0x0F, 0x10, 0x16, 0x17];
+
+/// What the physics side publishes and the service reads. A std mutex is
+/// enough: it is held for a copy in or out, never across an await.
+#[derive(Debug)]
+pub struct Shared {
+    pub image: RegisterImage,
+    /// Per device: no replies while true.
+    pub link_down: Vec<bool>,
+}
+
+/// Requests seen, by function code, across all connections.
+#[derive(Debug)]
+pub struct RequestCounts {
+    by_code: [AtomicU64; 256],
+}
+
+impl Default for RequestCounts {
+    fn default() -> Self {
+        Self {
+            by_code: std::array::from_fn(|_| AtomicU64::new(0)),
+        }
+    }
+}
+
+impl RequestCounts {
+    pub fn record(&self, code: u8) {
+        // Relaxed: each counter stands alone, and readers only want totals.
+        self.by_code[usize::from(code)].fetch_add(1, Ordering::Relaxed);
+    }
+
+    pub fn get(&self, code: u8) -> u64 {
+        self.by_code[usize::from(code)].load(Ordering::Relaxed)
+    }
+
+    /// The codes seen at least once, with their counts.
+    pub fn snapshot(&self) -> BTreeMap<u8, u64> {
+        (0..=255u8)
+            .map(|c| (c, self.get(c)))
+            .filter(|&(_, n)| n > 0)
+            .collect()
+    }
+
+    /// Requests with a write function code.
+    pub fn writes(&self) -> u64 {
+        WRITE_CODES.iter().map(|&c| self.get(c)).sum()
+    }
+
+    /// One line for the log: `requests by function code: {"3": 120, ...}`;
+    /// the part after the colon is JSON, keyed by the decimal code, so a
+    /// test can parse it.
+    pub fn summary_line(&self) -> String {
+        let fields: Vec<String> = self
+            .snapshot()
+            .iter()
+            .map(|(c, n)| format!("\"{c}\": {n}"))
+            .collect();
+        format!("requests by function code: {{{}}}", fields.join(", "))
+    }
+}
+
+/// The service one connection gets. Cloning shares everything.
+#[derive(Clone)]
+pub struct SimService {
+    shared: Arc<Mutex<Shared>>,
+    counts: Arc<RequestCounts>,
+    /// Unit id to device index.
+    units: Arc<HashMap<u8, usize>>,
+}
+
+impl SimService {
+    pub fn new(
+        shared: Arc<Mutex<Shared>>,
+        counts: Arc<RequestCounts>,
+        units: HashMap<u8, usize>,
+    ) -> Self {
+        Self {
+            shared,
+            counts,
+            units: Arc::new(units),
+        }
+    }
+
+    fn handle(&self, req: SlaveRequest<'static>) -> Result<Option<Response>, ExceptionCode> {
+        let SlaveRequest { slave, request } = req;
+        self.counts.record(request.function_code().value());
+        let Some(&device) = self.units.get(&slave) else {
+            return Err(ExceptionCode::GatewayTargetDevice);
+        };
+        // A poisoned lock means the physics task panicked mid-update; the
+        // image is still whole words, so serving it beats going silent.
+        let shared = self.shared.lock().unwrap_or_else(PoisonError::into_inner);
+        if shared.link_down.get(device).copied().unwrap_or(false) {
+            return Ok(None);
+        }
+        let image = &shared.image;
+        let response = match request {
+            Request::ReadCoils(a, n) => image
+                .read_bits(device, BitKind::Coil, a, n)
+                .map(Response::ReadCoils),
+            Request::ReadDiscreteInputs(a, n) => image
+                .read_bits(device, BitKind::DiscreteInput, a, n)
+                .map(Response::ReadDiscreteInputs),
+            Request::ReadHoldingRegisters(a, n) => image
+                .read_registers(device, RegisterKind::Holding, a, n)
+                .map(Response::ReadHoldingRegisters),
+            Request::ReadInputRegisters(a, n) => image
+                .read_registers(device, RegisterKind::Input, a, n)
+                .map(Response::ReadInputRegisters),
+            _ => return Err(ExceptionCode::IllegalFunction),
+        };
+        response.map(Some).map_err(|e| match e {
+            ReadError::IllegalDataValue => ExceptionCode::IllegalDataValue,
+            ReadError::IllegalDataAddress => ExceptionCode::IllegalDataAddress,
+        })
+    }
+}
+
+impl tokio_modbus::server::Service for SimService {
+    type Request = SlaveRequest<'static>;
+    // None sends nothing: how a dropped link looks to the client.
+    type Response = Option<Response>;
+    type Exception = ExceptionCode;
+    type Future = Ready<Result<Option<Response>, ExceptionCode>>;
+
+    fn call(&self, req: Self::Request) -> Self::Future {
+        ready(self.handle(req))
+    }
+}
+
+/// Serves until `shutdown` completes; open connections close with it.
+pub async fn serve(
+    listener: TcpListener,
+    service: SimService,
+    shutdown: impl Future<Output = ()> + Send + Sync + 'static,
+) -> io::Result<Terminated> {
+    let server = Server::new(listener);
+    let new_service = move |_peer: SocketAddr| Ok(Some(service.clone()));
+    let on_connected = move |stream, peer| {
+        let new_service = new_service.clone();
+        async move { accept_tcp_connection(stream, peer, new_service) }
+    };
+    // A client that sends garbage or hangs up only loses its own connection.
+    let on_process_error =
+        |err: io::Error| tracing::debug!("connection closed with an error: {err}");
+    server
+        .serve_until(&on_connected, on_process_error, shutdown)
+        .await
+}
