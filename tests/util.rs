@@ -85,11 +85,21 @@ pub fn binary(name: &str) -> PathBuf {
             .to_owned();
         let cargo = std::env::var("CARGO").unwrap_or_else(|_| "cargo".into());
         let mut build = std::process::Command::new(cargo);
-        build.current_dir(repo_root()).args(["build", "--quiet", "-p", "leaktally", "-p", "leaktally-sim", "--bins"]);
+        build.current_dir(repo_root()).args([
+            "build",
+            "--quiet",
+            "-p",
+            "leaktally",
+            "-p",
+            "leaktally-sim",
+            "--bins",
+        ]);
         if profile_dir.file_name().is_some_and(|p| p == "release") {
             build.arg("--release");
         }
-        let status = build.status().map_err(|e| format!("running cargo build: {e}"))?;
+        let status = build
+            .status()
+            .map_err(|e| format!("running cargo build: {e}"))?;
         if !status.success() {
             return Err(format!("cargo build of the binaries failed ({status})"));
         }
