@@ -36,6 +36,101 @@ pub enum Command {
         #[arg(long)]
         seconds: Option<f64>,
     },
+    /// Run the agent: poll, track open leak events, log to the database.
+    Run {
+        /// The site config (TOML).
+        #[arg(long, short)]
+        config: PathBuf,
+        #[arg(long, default_value = DEFAULT_DB)]
+        db: PathBuf,
+    },
+    /// Flag, revise, annotate or close a leak event (the daemon applies it).
+    #[command(subcommand)]
+    Leak(LeakCommand),
+    /// Show the running totals of the open events (or of one event).
+    Status {
+        /// One event's id; all open events if absent.
+        event: Option<i64>,
+        /// Print the JSON document for machines instead of the table.
+        #[arg(long)]
+        json: bool,
+        #[arg(long, default_value = DEFAULT_DB)]
+        db: PathBuf,
+    },
+}
+
+/// The database file when `--db` is not given.
+pub const DEFAULT_DB: &str = "leaktally.db";
+
+#[derive(Debug, Subcommand)]
+pub enum LeakCommand {
+    /// Open a leak event on a tank.
+    Open {
+        /// The tank's id (tag) in the config.
+        #[arg(long)]
+        tank: String,
+        #[command(flatten)]
+        hole: HoleArgs,
+        /// When the leak began: a time today (13:42), a UTC time
+        /// (2026-12-01T13:42:00Z) or how long ago (90s, 5m, 1h30m).
+        /// The total is computed from then, from the logged history.
+        #[arg(long)]
+        since: Option<String>,
+        /// A note for the audit trail.
+        #[arg(long)]
+        note: Option<String>,
+        #[arg(long, default_value = DEFAULT_DB)]
+        db: PathBuf,
+    },
+    /// Recompute an event from its start with new parameters (logged).
+    Revise {
+        /// The event's id.
+        event: i64,
+        #[command(flatten)]
+        hole: HoleArgs,
+        /// Forget the hole diameter and go back to the fitted hole.
+        #[arg(long, conflicts_with = "hole_diameter")]
+        unknown_diameter: bool,
+        /// Liquid density, kg/m³, if the config's is wrong for this event.
+        #[arg(long)]
+        density: Option<f64>,
+        #[arg(long)]
+        note: Option<String>,
+        #[arg(long, default_value = DEFAULT_DB)]
+        db: PathBuf,
+    },
+    /// Add a note to an event's audit trail.
+    Note {
+        event: i64,
+        text: String,
+        #[arg(long, default_value = DEFAULT_DB)]
+        db: PathBuf,
+    },
+    /// Close an event once the leak is isolated; its total no longer changes.
+    Close {
+        event: i64,
+        #[arg(long)]
+        note: Option<String>,
+        #[arg(long, default_value = DEFAULT_DB)]
+        db: PathBuf,
+    },
+}
+
+/// What is known of the hole.
+#[derive(Debug, Clone, clap::Args)]
+pub struct HoleArgs {
+    /// Hole diameter in mm, if known; without it the hole is fitted to the
+    /// level drop.
+    #[arg(long, value_name = "MM")]
+    pub hole_diameter: Option<f64>,
+    /// Height of the hole above the tank bottom, m (default: the bottom, the
+    /// conservative choice).
+    #[arg(long, value_name = "M")]
+    pub hole_height: Option<f64>,
+    /// Discharge coefficient, in (0, 1] (default 1.0, conservative; the
+    /// band runs from 0.61 to 1.0).
+    #[arg(long)]
+    pub cd: Option<f64>,
 }
 
 /// Runs one parsed command.
@@ -55,6 +150,24 @@ pub fn run(cli: Cli) -> anyhow::Result<()> {
             seconds,
             crate::shutdown::signalled(),
         )),
+        Command::Run { config, db } => {
+            let config = crate::config::load(&config)?;
+            runtime()?.block_on(crate::daemon::run(
+                config,
+                &db,
+                crate::shutdown::signalled(),
+            ))
+        }
+        Command::Leak(leak) => commands::leak::run(leak),
+        Command::Status { event, json, db } => {
+            let doc = commands::status::document(&db, event)?;
+            if json {
+                println!("{}", serde_json::to_string_pretty(&doc)?);
+            } else {
+                print!("{}", commands::status::human(&doc));
+            }
+            Ok(())
+        }
     }
 }
 

@@ -1,6 +1,7 @@
 //! The `leaktally` binary: parse the command line, set up logging, run,
 //! turn the outcome into an exit code. The work itself lives in the library.
 
+use std::io::IsTerminal;
 use std::process::ExitCode;
 
 fn main() -> ExitCode {
@@ -9,6 +10,7 @@ fn main() -> ExitCode {
     // reports and JSON. RUST_LOG adjusts the level (default: info).
     tracing_subscriber::fmt()
         .with_writer(std::io::stderr)
+        .with_ansi(std::io::stderr().is_terminal())
         .with_env_filter(
             tracing_subscriber::EnvFilter::try_from_default_env()
                 .unwrap_or_else(|_| tracing_subscriber::EnvFilter::new("info")),

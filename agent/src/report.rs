@@ -61,6 +61,14 @@ pub fn duration(t: TimeSpan) -> String {
     }
 }
 
+/// A UTC time as people read it: `2026-12-01 13:42:07 UTC`.
+pub fn utc(at_ms: i64) -> String {
+    match jiff::Timestamp::from_millisecond(at_ms) {
+        Ok(t) => t.strftime("%Y-%m-%d %H:%M:%S UTC").to_string(),
+        Err(_) => format!("{at_ms} ms"),
+    }
+}
+
 /// Three significant figures, without exponent notation for everyday sizes.
 pub fn significant(x: f64) -> String {
     if x == 0.0 || !x.is_finite() {

@@ -2,4 +2,6 @@
 
 pub mod check;
 pub mod demo;
+pub mod leak;
 pub mod poll;
+pub mod status;

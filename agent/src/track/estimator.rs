@@ -136,6 +136,8 @@ pub struct Estimate {
     pub fit_status: String,
     pub level_m: f64,
     pub headspace_pa: f64,
+    /// The liquid density the figures use, kg/m³ (for volumes).
+    pub density_kg_m3: f64,
     /// "liquid", "vapour" or "none".
     pub phase: String,
     /// Liquid between the present level and the hole, kg.
@@ -555,6 +557,7 @@ impl Estimator {
             fit_status,
             level_m: state.level.si(),
             headspace_pa: state.headspace.si(),
+            density_kg_m3: self.vessel.density().si(),
             phase: match unit.phase {
                 Phase::Liquid => "liquid",
                 Phase::Vapour(_) => "vapour",

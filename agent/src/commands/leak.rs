@@ -1,0 +1,283 @@
+//! `leaktally leak open|revise|note|close`: operator actions.
+//!
+//! The CLI does not change anything itself. It writes the request as an
+//! action row (one transaction, durable once committed), then waits for the
+//! daemon to pick it up and acknowledge it, and prints what the daemon did.
+//! If no daemon has beaten its heartbeat recently, it says so and writes
+//! nothing: a request nobody acts on would only mislead.
+
+use crate::cli::{HoleArgs, LeakCommand};
+use crate::model::DischargeCoefficient;
+use crate::report;
+use crate::store::{self, StoreError};
+use crate::track::tracker::Request;
+use anyhow::{Context, bail};
+use std::path::Path;
+use std::time::{Duration, Instant};
+
+/// A heartbeat older than this means no daemon is running.
+const DAEMON_SILENT_AFTER_MS: i64 = 5_000;
+/// How long to wait for the daemon's acknowledgement.
+const ACK_WAIT: Duration = Duration::from_secs(20);
+
+/// Runs one `leak` subcommand.
+pub fn run(command: LeakCommand) -> anyhow::Result<()> {
+    let now = store::now_ms();
+    let (db, request) = match command {
+        LeakCommand::Open {
+            tank,
+            hole,
+            since,
+            note,
+            db,
+        } => {
+            if hole.hole_height.is_none() {
+                eprintln!(
+                    "warning: no --hole-height given; assuming the hole is at the tank bottom, which releases the most (the conservative choice)"
+                );
+            }
+            if hole.cd.is_none() {
+                eprintln!(
+                    "note: no --cd given; using 1.0 (conservative), with the band from 0.61 to 1.0"
+                );
+            }
+            let since_ms = since.as_deref().map(|s| parse_since(s, now)).transpose()?;
+            let request = Request::Open {
+                tank,
+                hole_diameter_m: hole.diameter_m()?,
+                hole_height_m: hole.height_m()?,
+                cd: hole.cd_checked()?,
+                since_ms,
+                note,
+            };
+            (db, request)
+        }
+        LeakCommand::Revise {
+            event,
+            hole,
+            unknown_diameter,
+            density,
+            note,
+            db,
+        } => {
+            if let Some(d) = density
+                && !(d.is_finite() && d > 0.0)
+            {
+                bail!("--density {d} must be a positive number of kg/m³");
+            }
+            let request = Request::Revise {
+                event,
+                hole_diameter_m: hole.diameter_m()?,
+                unknown_diameter,
+                hole_height_m: hole.height_m()?,
+                cd: hole.cd_checked()?,
+                density_kg_m3: density,
+                note,
+            };
+            (db, request)
+        }
+        LeakCommand::Note { event, text, db } => (db, Request::Note { event, text }),
+        LeakCommand::Close { event, note, db } => (db, Request::Close { event, note }),
+    };
+    let outcome = send(&db, &request)?;
+    println!("{outcome}");
+    Ok(())
+}
+
+impl HoleArgs {
+    fn diameter_m(&self) -> anyhow::Result<Option<f64>> {
+        match self.hole_diameter {
+            Some(mm) if !(mm.is_finite() && mm > 0.0) => {
+                bail!("--hole-diameter {mm} must be a positive number of millimetres")
+            }
+            Some(mm) if mm > 5000.0 => bail!(
+                "--hole-diameter {mm} mm is over 5 m; the option takes millimetres (25 for a one-inch hole)"
+            ),
+            other => Ok(other.map(|mm| mm / 1000.0)),
+        }
+    }
+
+    fn height_m(&self) -> anyhow::Result<Option<f64>> {
+        match self.hole_height {
+            Some(h) if !(h.is_finite() && h >= 0.0) => {
+                bail!(
+                    "--hole-height {h} must be the height above the tank bottom in metres, 0 or more"
+                )
+            }
+            other => Ok(other),
+        }
+    }
+
+    fn cd_checked(&self) -> anyhow::Result<Option<f64>> {
+        match self.cd {
+            Some(cd) => Ok(Some(DischargeCoefficient::new(cd)?.get())),
+            None => Ok(None),
+        }
+    }
+}
+
+/// Sends a request to the daemon and waits for its acknowledgement; returns
+/// the daemon's account of what it did.
+pub fn send(db: &Path, request: &Request) -> anyhow::Result<String> {
+    if !db.exists() {
+        bail!(
+            "the database {} does not exist, so no daemon is running on it; start one with `leaktally run --config FILE --db {}`",
+            db.display(),
+            db.display()
+        );
+    }
+    let conn = store::open_read_write(db).with_context(|| format!("opening {}", db.display()))?;
+    match store::heartbeat(&conn)? {
+        Some(h)
+            if h.stopped_at_ms.is_none()
+                && store::now_ms() - h.beat_at_ms <= DAEMON_SILENT_AFTER_MS => {}
+        Some(h) => bail!(
+            "no leaktally daemon is running on {} (last seen {}); start it with `leaktally run --config {} --db {}`; nothing was changed",
+            db.display(),
+            report::utc(h.beat_at_ms),
+            h.config,
+            db.display()
+        ),
+        None => bail!(
+            "no leaktally daemon has ever run on {}; start it with `leaktally run --config FILE --db {}`; nothing was changed",
+            db.display(),
+            db.display()
+        ),
+    }
+    let value = serde_json::to_value(request)?;
+    let id = store::request_action(&conn, request.kind(), request.event(), &value, &who())?;
+    let started = Instant::now();
+    loop {
+        std::thread::sleep(Duration::from_millis(100));
+        let action = store::action(&conn, id)?
+            .ok_or_else(|| StoreError::Corrupt(format!("action {id} vanished")))?;
+        match action.state.as_str() {
+            "done" => return Ok(action.outcome.unwrap_or_default()),
+            "refused" => bail!("the daemon refused: {}", action.outcome.unwrap_or_default()),
+            _ if started.elapsed() > ACK_WAIT => bail!(
+                "the daemon has not acknowledged action {id} within {} s; it is recorded and will be applied when the daemon gets to it; check `leaktally status`",
+                ACK_WAIT.as_secs()
+            ),
+            _ => {}
+        }
+    }
+}
+
+/// The operating-system user and host, for the audit trail.
+pub fn who() -> (String, String) {
+    let user = std::env::var("USER")
+        .or_else(|_| std::env::var("LOGNAME"))
+        .ok()
+        .or_else(user_from_uid)
+        .unwrap_or_else(|| "unknown".into());
+    let host = std::fs::read_to_string("/proc/sys/kernel/hostname")
+        .map(|h| h.trim().to_owned())
+        .or_else(|_| std::env::var("HOSTNAME"))
+        .unwrap_or_else(|_| "unknown".into());
+    (user, host)
+}
+
+/// The login name of this process's real uid, from /proc and /etc/passwd,
+/// for sessions (services, sudo, cron) that set no USER.
+fn user_from_uid() -> Option<String> {
+    let status = std::fs::read_to_string("/proc/self/status").ok()?;
+    let uid = status
+        .lines()
+        .find_map(|l| l.strip_prefix("Uid:"))?
+        .split_whitespace()
+        .next()?
+        .to_owned();
+    let passwd = std::fs::read_to_string("/etc/passwd").ok()?;
+    passwd.lines().find_map(|line| {
+        let mut fields = line.split(':');
+        let name = fields.next()?;
+        (fields.nth(1)? == uid).then(|| name.to_owned())
+    })
+}
+
+/// Parses `--since`: an RFC 3339 time (`2026-12-01T13:42:00Z`), a local
+/// time of day today (`13:42` or `13:42:30`; yesterday if that is still to
+/// come), or a duration ago (`90s`, `5m`, `1h30m`).
+pub fn parse_since(text: &str, now_ms: i64) -> anyhow::Result<i64> {
+    let text = text.trim();
+    if let Some(ago) = parse_duration(text) {
+        return Ok(now_ms - ago.as_millis() as i64);
+    }
+    if let Ok(t) = text.parse::<jiff::Timestamp>() {
+        return Ok(t.as_millisecond());
+    }
+    if let Ok(time) = text.parse::<jiff::civil::Time>() {
+        let now = jiff::Timestamp::from_millisecond(now_ms)?
+            .to_zoned_datetime(jiff::tz::TimeZone::system());
+        let mut at = now
+            .date()
+            .to_datetime(time)
+            .to_zoned_datetime(now.time_zone().clone())?;
+        if at.timestamp() > now.timestamp() {
+            at = at.yesterday()?;
+        }
+        return Ok(at.timestamp().as_millisecond());
+    }
+    bail!(
+        "--since {text:?} is not a time or a duration; write a time today like 13:42, a UTC time like 2026-12-01T13:42:00Z, or how long ago like 90s, 5m or 1h30m"
+    )
+}
+
+/// `90s`, `5m`, `1h30m`, `2h`: a duration from number-and-unit parts.
+fn parse_duration(text: &str) -> Option<Duration> {
+    let mut total = 0.0;
+    let mut number = String::new();
+    let mut any = false;
+    let mut chars = text.chars().peekable();
+    while let Some(c) = chars.next() {
+        if c.is_ascii_digit() || c == '.' {
+            number.push(c);
+            continue;
+        }
+        let mut unit = c.to_string();
+        while let Some(&n) = chars.peek() {
+            if n.is_ascii_alphabetic() {
+                unit.push(n);
+                chars.next();
+            } else {
+                break;
+            }
+        }
+        let value: f64 = number.parse().ok()?;
+        number.clear();
+        let seconds = match unit.as_str() {
+            "s" | "sec" => 1.0,
+            "m" | "min" => 60.0,
+            "h" | "hr" => 3600.0,
+            _ => return None,
+        };
+        total += value * seconds;
+        any = true;
+    }
+    (any && number.is_empty() && total.is_finite() && total >= 0.0)
+        .then(|| Duration::from_secs_f64(total))
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn since_accepts_durations_and_times() {
+        let now = jiff::Timestamp::from_second(1_780_000_000)
+            .unwrap()
+            .as_millisecond();
+        assert_eq!(parse_since("90s", now).unwrap(), now - 90_000);
+        assert_eq!(parse_since("1h30m", now).unwrap(), now - 5_400_000);
+        assert_eq!(
+            parse_since("2026-05-28T20:00:00Z", now).unwrap(),
+            1_779_998_400_000
+        );
+        let today = parse_since("00:00", now).unwrap();
+        assert!(today <= now && now - today < 86_400_000);
+        for bad in ["soon", "5 parsecs", "12:99", "-5m", ""] {
+            let err = parse_since(bad, now).unwrap_err().to_string();
+            assert!(err.contains("is not a time or a duration"), "{bad}: {err}");
+        }
+    }
+}

@@ -1,0 +1,471 @@
+//! The tracker: open events, operator actions, and what goes to the store.
+//!
+//! It owns one [`Estimator`] per open event. Every batch of samples from
+//! acquisition is fed to the estimators of its tanks, and the samples and
+//! the estimates they produced are committed in one transaction, so the two
+//! can never disagree after a crash. Operator actions arrive as rows in the
+//! store; the tracker applies them in order and records the outcome.
+//!
+//! On start it resumes every open event by replaying the event's stored
+//! samples through a fresh estimator: the estimator is deterministic, so
+//! this rebuilds exactly the state before the restart, with no double
+//! counting, and the gap while the agent was down is bridged by the forecast
+//! at the next sample.
+
+use crate::acquire::sample::TankSample;
+use crate::config::Config;
+use crate::store::{self, EventRow, Store, StoreError, StoreResult};
+use crate::track::estimator::{Estimate, Estimator, LeakParams};
+use serde::{Deserialize, Serialize};
+use std::collections::HashMap;
+use std::sync::Arc;
+use tracing::{info, warn};
+
+/// What an operator may ask for, as stored in an action row.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(tag = "kind", rename_all = "snake_case", deny_unknown_fields)]
+pub enum Request {
+    Open {
+        tank: String,
+        hole_diameter_m: Option<f64>,
+        hole_height_m: Option<f64>,
+        cd: Option<f64>,
+        /// Back-dated start, UTC ms; now if absent.
+        since_ms: Option<i64>,
+        note: Option<String>,
+    },
+    Revise {
+        event: i64,
+        hole_diameter_m: Option<f64>,
+        /// Forget the hole diameter (back to the fitted hole).
+        #[serde(default)]
+        unknown_diameter: bool,
+        hole_height_m: Option<f64>,
+        cd: Option<f64>,
+        density_kg_m3: Option<f64>,
+        note: Option<String>,
+    },
+    Note {
+        event: i64,
+        text: String,
+    },
+    Close {
+        event: i64,
+        note: Option<String>,
+    },
+}
+
+impl Request {
+    pub fn kind(&self) -> &'static str {
+        match self {
+            Request::Open { .. } => "open",
+            Request::Revise { .. } => "revise",
+            Request::Note { .. } => "note",
+            Request::Close { .. } => "close",
+        }
+    }
+
+    pub fn event(&self) -> Option<i64> {
+        match self {
+            Request::Open { .. } => None,
+            Request::Revise { event, .. }
+            | Request::Note { event, .. }
+            | Request::Close { event, .. } => Some(*event),
+        }
+    }
+}
+
+/// Samples and estimates that belong in one transaction.
+#[derive(Debug, Default)]
+struct Write {
+    samples: Vec<TankSample>,
+    /// (event, revision, estimates).
+    estimates: Vec<(i64, i64, Vec<Estimate>)>,
+}
+
+struct OpenEvent {
+    row: EventRow,
+    estimator: Estimator,
+}
+
+/// The tracker of every open event of a site.
+pub struct Tracker {
+    config: Arc<Config>,
+    store: Arc<Store>,
+    open: HashMap<i64, OpenEvent>,
+    /// Last leak-flag state per tank index, for rising edges.
+    flags: HashMap<usize, bool>,
+    /// Writes that failed (database locked, disk full), retried first next
+    /// time: nothing acquired is dropped while the process lives.
+    backlog: Vec<Write>,
+}
+
+impl Tracker {
+    /// Resumes the open events stored in the database.
+    pub async fn resume(config: Arc<Config>, store: Arc<Store>) -> StoreResult<Self> {
+        let mut tracker = Self {
+            config,
+            store,
+            open: HashMap::new(),
+            flags: HashMap::new(),
+            backlog: Vec::new(),
+        };
+        let events = tracker.store.call(|c| store::events(c, true)).await?;
+        for row in events {
+            match tracker.rebuild(&row).await {
+                Ok((estimator, replayed)) => {
+                    info!(event = row.id, tank = %row.tank, "resumed open event ({} samples replayed)", replayed.len());
+                    tracker.open.insert(row.id, OpenEvent { row, estimator });
+                }
+                Err(e) => warn!(event = row.id, "cannot resume event: {e}"),
+            }
+        }
+        Ok(tracker)
+    }
+
+    /// How many events are open.
+    pub fn open_events(&self) -> usize {
+        self.open.len()
+    }
+
+    /// Builds an estimator for an event and replays its stored samples.
+    async fn rebuild(&self, row: &EventRow) -> StoreResult<(Estimator, Vec<Estimate>)> {
+        let (tank_index, tank) = self
+            .config
+            .tanks
+            .iter()
+            .enumerate()
+            .find(|(_, t)| t.id == row.tank)
+            .ok_or_else(|| {
+                StoreError::Refused(format!("tank {} is not in the config", row.tank))
+            })?;
+        let interval = self.config.devices[tank.device].poll_interval.as_millis() as i64;
+        let mut estimator = Estimator::new(tank, row.params, row.start_ms, interval)
+            .map_err(|e| StoreError::Refused(e.to_string()))?;
+        let (tag, from) = (row.tank.clone(), row.start_ms);
+        let end = row.closed_at_ms.unwrap_or(i64::MAX);
+        let samples = self
+            .store
+            .call(move |c| store::samples_between(c, &tag, from, end))
+            .await?;
+        let estimates = samples
+            .into_iter()
+            .filter_map(|mut s| {
+                s.tank = tank_index;
+                estimator.push(&s)
+            })
+            .collect();
+        Ok((estimator, estimates))
+    }
+
+    /// Feeds one poll cycle's samples to the open events and commits both.
+    pub async fn on_batch(&mut self, batch: Vec<TankSample>) {
+        self.open_on_flags(&batch).await;
+        let mut write = Write::default();
+        for event in self.open.values_mut() {
+            let estimates: Vec<Estimate> = batch
+                .iter()
+                .filter(|s| s.tank_id == event.row.tank)
+                .filter_map(|s| event.estimator.push(s))
+                .collect();
+            if !estimates.is_empty() {
+                write
+                    .estimates
+                    .push((event.row.id, event.row.revision, estimates));
+            }
+        }
+        write.samples = batch;
+        self.backlog.push(write);
+        self.flush().await;
+    }
+
+    /// Commits the backlog, oldest first, one transaction per write.
+    async fn flush(&mut self) {
+        while let Some(write) = self.backlog.first() {
+            let samples = write.samples.clone();
+            let estimates = write.estimates.clone();
+            let result = self
+                .store
+                .call(move |c| {
+                    let tx = c.transaction()?;
+                    store::insert_samples(&tx, &samples)?;
+                    for (event, revision, e) in &estimates {
+                        store::insert_estimates(&tx, *event, *revision, e)?;
+                    }
+                    tx.commit()?;
+                    Ok(())
+                })
+                .await;
+            match result {
+                Ok(()) => {
+                    self.backlog.remove(0);
+                }
+                Err(e) => {
+                    warn!(
+                        "cannot store {} poll cycle(s) yet, will retry: {e}",
+                        self.backlog.len()
+                    );
+                    return;
+                }
+            }
+        }
+    }
+
+    /// Opens an event on each tank whose leak flag has just risen.
+    async fn open_on_flags(&mut self, batch: &[TankSample]) {
+        for sample in batch {
+            let Some(Some(flag)) = sample.leak_flag else {
+                continue;
+            };
+            let was = self.flags.insert(sample.tank, flag);
+            if was != Some(false) || !flag {
+                continue;
+            }
+            if self.open.values().any(|e| e.row.tank == sample.tank_id) {
+                continue;
+            }
+            let params = LeakParams {
+                hole_diameter_m: None,
+                hole_height_m: 0.0,
+                cd: 1.0,
+                density_kg_m3: None,
+            };
+            match self
+                .open_event(
+                    &sample.tank_id,
+                    sample.at_ms,
+                    sample.at_ms,
+                    "leak flag",
+                    params,
+                )
+                .await
+            {
+                Ok(id) => {
+                    info!(event = id, tank = %sample.tank_id, "leak flag raised: opened event")
+                }
+                Err(e) => {
+                    warn!(tank = %sample.tank_id, "leak flag raised but no event opened: {e}")
+                }
+            }
+        }
+    }
+
+    /// Creates an event, builds its estimator from the stored history since
+    /// `start_ms`, and logs the estimates of that history.
+    async fn open_event(
+        &mut self,
+        tank: &str,
+        opened_at_ms: i64,
+        start_ms: i64,
+        source: &'static str,
+        params: LeakParams,
+    ) -> StoreResult<i64> {
+        let t = self
+            .config
+            .tanks
+            .iter()
+            .find(|t| t.id == tank)
+            .ok_or_else(|| StoreError::Refused(format!("there is no tank {tank} in the config")))?;
+        Estimator::new(t, params, start_ms, 1000)
+            .map_err(|e| StoreError::Refused(e.to_string()))?;
+        let tag = tank.to_owned();
+        let id = self
+            .store
+            .call(move |c| store::create_event(c, &tag, opened_at_ms, start_ms, source, &params))
+            .await?;
+        let row = self
+            .store
+            .call(move |c| store::event(c, id))
+            .await?
+            .ok_or_else(|| StoreError::Corrupt("the new event vanished".into()))?;
+        let (estimator, estimates) = self.rebuild(&row).await?;
+        let revision = row.revision;
+        self.store
+            .call(move |c| store::insert_estimates(c, id, revision, &estimates))
+            .await?;
+        self.open.insert(id, OpenEvent { row, estimator });
+        Ok(id)
+    }
+
+    /// Applies every pending operator action.
+    pub async fn on_actions(&mut self) -> StoreResult<()> {
+        // Make sure every acquired sample is stored before an action reads
+        // the history (back-dating, revisions).
+        self.flush().await;
+        let pending = self.store.call(|c| store::pending_actions(c)).await?;
+        for action in pending {
+            let outcome = match serde_json::from_value::<Request>(action.request.clone()) {
+                Ok(request) => self.apply(request).await,
+                Err(e) => Err(StoreError::Refused(format!(
+                    "the request is not understood: {e}"
+                ))),
+            };
+            let (event, done, text) = match outcome {
+                Ok((event, text)) => (event, true, text),
+                Err(StoreError::Refused(why)) => (action.event, false, why),
+                Err(e) => (action.event, false, format!("failed: {e}")),
+            };
+            if done {
+                info!(action = action.id, user = %action.os_user, "{}: {text}", action.kind);
+            } else {
+                warn!(action = action.id, user = %action.os_user, "{} refused: {text}", action.kind);
+            }
+            let id = action.id;
+            self.store
+                .call(move |c| store::finish_action(c, id, event, done, &text))
+                .await?;
+        }
+        Ok(())
+    }
+
+    /// Applies one request; returns the event it concerns and what changed.
+    async fn apply(&mut self, request: Request) -> StoreResult<(Option<i64>, String)> {
+        let now = store::now_ms();
+        match request {
+            Request::Open {
+                tank,
+                hole_diameter_m,
+                hole_height_m,
+                cd,
+                since_ms,
+                note: _,
+            } => {
+                if let Some(e) = self.open.values().find(|e| e.row.tank == tank) {
+                    return Err(StoreError::Refused(format!(
+                        "tank {tank} already has open event {}; revise or close it first",
+                        e.row.id
+                    )));
+                }
+                let start = since_ms.unwrap_or(now);
+                if start > now + 1000 {
+                    return Err(StoreError::Refused(
+                        "the leak cannot start in the future; check --since".into(),
+                    ));
+                }
+                let params = LeakParams {
+                    hole_diameter_m,
+                    hole_height_m: hole_height_m.unwrap_or(0.0),
+                    cd: cd.unwrap_or(1.0),
+                    density_kg_m3: None,
+                };
+                let id = self
+                    .open_event(&tank, now, start, "operator", params)
+                    .await?;
+                let used = self.open[&id].estimator.last_sample_ms().map_or(0, |_| 1);
+                Ok((
+                    Some(id),
+                    format!(
+                        "opened event {id} on {tank} from {}{}; {}",
+                        crate::report::utc(start),
+                        if since_ms.is_some() {
+                            " (back-dated)"
+                        } else {
+                            ""
+                        },
+                        describe_params(&params)
+                    ) + if used == 0 {
+                        "; no stored sample yet"
+                    } else {
+                        ""
+                    },
+                ))
+            }
+            Request::Revise {
+                event,
+                hole_diameter_m,
+                unknown_diameter,
+                hole_height_m,
+                cd,
+                density_kg_m3,
+                note: _,
+            } => {
+                let open = self.open.get(&event).ok_or_else(|| not_open(event))?;
+                let before = open.row.params;
+                let mut params = before;
+                if unknown_diameter {
+                    params.hole_diameter_m = None;
+                }
+                if hole_diameter_m.is_some() {
+                    params.hole_diameter_m = hole_diameter_m;
+                }
+                if let Some(h) = hole_height_m {
+                    params.hole_height_m = h;
+                }
+                if let Some(c) = cd {
+                    params.cd = c;
+                }
+                if density_kg_m3.is_some() {
+                    params.density_kg_m3 = density_kg_m3;
+                }
+                let tank = self
+                    .config
+                    .tanks
+                    .iter()
+                    .find(|t| t.id == open.row.tank)
+                    .ok_or_else(|| not_open(event))?;
+                Estimator::new(tank, params, open.row.start_ms, 1000)
+                    .map_err(|e| StoreError::Refused(e.to_string()))?;
+                let revision = self
+                    .store
+                    .call(move |c| store::revise_event(c, event, &params))
+                    .await?;
+                let row = self
+                    .store
+                    .call(move |c| store::event(c, event))
+                    .await?
+                    .ok_or_else(|| not_open(event))?;
+                let (estimator, estimates) = self.rebuild(&row).await?;
+                let count = estimates.len();
+                self.store
+                    .call(move |c| store::insert_estimates(c, event, revision, &estimates))
+                    .await?;
+                self.open.insert(event, OpenEvent { row, estimator });
+                Ok((
+                    Some(event),
+                    format!(
+                        "revision {revision} of event {event}: {} -> {}; recomputed {count} estimates from the start",
+                        describe_params(&before),
+                        describe_params(&params)
+                    ),
+                ))
+            }
+            Request::Note { event, text } => {
+                let exists = self.store.call(move |c| store::event(c, event)).await?;
+                if exists.is_none() {
+                    return Err(StoreError::Refused(format!("there is no event {event}")));
+                }
+                Ok((Some(event), format!("note on event {event}: {text}")))
+            }
+            Request::Close { event, note: _ } => {
+                if self.open.remove(&event).is_none() {
+                    return Err(not_open(event));
+                }
+                self.store
+                    .call(move |c| store::close_event(c, event, now))
+                    .await?;
+                Ok((
+                    Some(event),
+                    format!("closed event {event} at {}", crate::report::utc(now)),
+                ))
+            }
+        }
+    }
+}
+
+fn not_open(event: i64) -> StoreError {
+    StoreError::Refused(format!(
+        "event {event} is not open; `leaktally status` lists the open events"
+    ))
+}
+
+/// The parameters in words, for the audit trail.
+pub fn describe_params(p: &LeakParams) -> String {
+    let hole = match p.hole_diameter_m {
+        Some(d) => format!("hole {:.1} mm", d * 1000.0),
+        None => "hole size unknown (fitted)".to_owned(),
+    };
+    let density = p
+        .density_kg_m3
+        .map_or(String::new(), |d| format!(", density {d} kg/m³"));
+    format!("{hole} at {:.2} m, Cd {}{density}", p.hole_height_m, p.cd)
+}
