@@ -3,11 +3,13 @@
 //! * `references`: the physics against outside sources (analytic solutions,
 //!   the Python package `fluids`, scipy quadrature), fixtures in tests/fixtures.
 //! * `properties`: invariants over random inputs (proptest).
+//! * `acquisition`: the simulator and `leaktally poll` as real processes.
 //! * `interop`: the agent and the simulator against pymodbus, an independent
 //!   Modbus implementation.
 //! * `python_env`: the pinned Python environment those tests use.
 //! * `util`: shared helpers.
 
+mod acquisition;
 mod interop;
 mod properties;
 mod python_env;

@@ -1,7 +1,13 @@
 //! Helpers shared by the test modules.
 
 use serde::de::DeserializeOwned;
-use std::path::PathBuf;
+use std::fs::{self, File};
+use std::io::{BufRead, BufReader};
+use std::path::{Path, PathBuf};
+use std::process::{Child, Command, ExitStatus, Stdio};
+use std::sync::atomic::{AtomicU32, Ordering};
+use std::sync::mpsc::{Receiver, RecvTimeoutError, channel};
+use std::time::{Duration, Instant};
 
 /// The repository's root folder (the root package's manifest directory).
 pub fn repo_root() -> PathBuf {
@@ -109,4 +115,272 @@ pub fn binary(name: &str) -> PathBuf {
         Ok(dir) => dir.join(name),
         Err(e) => panic!("{e}"),
     }
+}
+
+/// How long a server may take to print its `listening on` line.
+pub const STARTUP: Duration = Duration::from_secs(10);
+/// Longest any one command may run before the test gives up on it.
+pub const COMMAND_LIMIT: Duration = Duration::from_secs(15);
+
+/// A fresh folder under the system temp dir, removed when dropped.
+pub struct Scratch(pub PathBuf);
+
+impl Scratch {
+    pub fn new(label: &str) -> Self {
+        static NEXT: AtomicU32 = AtomicU32::new(0);
+        let nanos = std::time::SystemTime::now()
+            .duration_since(std::time::UNIX_EPOCH)
+            .map_or(0, |d| d.subsec_nanos());
+        let dir = std::env::temp_dir().join(format!(
+            "leaktally-test-{label}-{}-{}-{nanos}",
+            std::process::id(),
+            NEXT.fetch_add(1, Ordering::Relaxed)
+        ));
+        fs::create_dir_all(&dir).unwrap_or_else(|e| panic!("creating {}: {e}", dir.display()));
+        Self(dir)
+    }
+
+    pub fn path(&self, name: &str) -> PathBuf {
+        self.0.join(name)
+    }
+
+    pub fn write(&self, name: &str, text: &str) -> PathBuf {
+        let path = self.path(name);
+        fs::write(&path, text).unwrap_or_else(|e| panic!("writing {}: {e}", path.display()));
+        path
+    }
+}
+
+impl Drop for Scratch {
+    fn drop(&mut self) {
+        let _ = fs::remove_dir_all(&self.0);
+    }
+}
+
+/// A long-running child (a server), killed when dropped. Its stdout lines
+/// arrive on a channel from a thread that keeps draining the pipe, so the
+/// child never blocks on a full pipe; its stderr goes to a file.
+pub struct Server {
+    pub name: &'static str,
+    pub child: Child,
+    pub lines: Receiver<String>,
+    pub stderr: PathBuf,
+}
+
+impl Server {
+    pub fn start(name: &'static str, command: &mut Command, stderr: PathBuf) -> Self {
+        let err = File::create(&stderr).expect("creating the server's stderr file");
+        let mut child = command
+            .stdin(Stdio::null())
+            .stdout(Stdio::piped())
+            .stderr(err)
+            .spawn()
+            .unwrap_or_else(|e| panic!("starting {name}: {e}"));
+        let stdout = child.stdout.take().expect("piped stdout");
+        let (tx, lines) = channel();
+        std::thread::spawn(move || {
+            for line in BufReader::new(stdout).lines().map_while(Result::ok) {
+                if tx.send(line).is_err() {
+                    break;
+                }
+            }
+        });
+        Self {
+            name,
+            child,
+            lines,
+            stderr,
+        }
+    }
+
+    /// Waits for the `listening on HOST:PORT` line and returns HOST:PORT.
+    pub fn address(&mut self) -> String {
+        let deadline = Instant::now() + STARTUP;
+        loop {
+            let left = deadline.saturating_duration_since(Instant::now());
+            match self.lines.recv_timeout(left) {
+                Ok(line) => {
+                    if let Some(address) = line.strip_prefix("listening on ") {
+                        return address.trim().to_owned();
+                    }
+                }
+                Err(RecvTimeoutError::Timeout) => panic!(
+                    "{} printed no `listening on` line within {STARTUP:?}; its stderr:\n{}",
+                    self.name,
+                    self.stderr()
+                ),
+                Err(RecvTimeoutError::Disconnected) => panic!(
+                    "{} exited before it listened ({:?}); its stderr:\n{}",
+                    self.name,
+                    self.child.try_wait(),
+                    self.stderr()
+                ),
+            }
+        }
+    }
+
+    pub fn stderr(&self) -> String {
+        fs::read_to_string(&self.stderr).unwrap_or_default()
+    }
+}
+
+impl Drop for Server {
+    fn drop(&mut self) {
+        let _ = self.child.kill();
+        let _ = self.child.wait();
+    }
+}
+
+/// What a finished command printed.
+pub struct Finished {
+    pub status: ExitStatus,
+    pub stdout: String,
+    pub stderr: String,
+}
+
+/// Runs a command to completion with its output in files (so nothing can
+/// block on a pipe), killing it after `COMMAND_LIMIT`.
+pub fn run(name: &str, command: &mut Command, scratch: &Scratch) -> Finished {
+    let out_path = scratch.path(&format!("{name}.stdout"));
+    let err_path = scratch.path(&format!("{name}.stderr"));
+    let mut child = command
+        .stdin(Stdio::null())
+        .stdout(File::create(&out_path).expect("creating a stdout file"))
+        .stderr(File::create(&err_path).expect("creating a stderr file"))
+        .spawn()
+        .unwrap_or_else(|e| panic!("starting {name}: {e}"));
+    let deadline = Instant::now() + COMMAND_LIMIT;
+    let status = loop {
+        match child.try_wait().expect("waiting for a child") {
+            Some(status) => break status,
+            None if Instant::now() >= deadline => {
+                let _ = child.kill();
+                let _ = child.wait();
+                panic!(
+                    "{name} still ran after {COMMAND_LIMIT:?}; its stderr:\n{}",
+                    fs::read_to_string(&err_path).unwrap_or_default()
+                );
+            }
+            None => std::thread::sleep(Duration::from_millis(20)),
+        }
+    };
+    Finished {
+        status,
+        stdout: fs::read_to_string(&out_path).unwrap_or_default(),
+        stderr: fs::read_to_string(&err_path).unwrap_or_default(),
+    }
+}
+
+/// A TOML literal string holding a path (no escapes inside single quotes).
+pub fn toml_path(path: &Path) -> String {
+    let text = path.display().to_string();
+    assert!(!text.contains('\''), "a path with a quote: {text}");
+    format!("'{text}'")
+}
+
+/// The simulator's ground truth (its --truth CSV), by tank.
+pub struct Truth {
+    rows: std::collections::HashMap<String, Vec<TruthRow>>,
+}
+
+/// One truth row: UTC ms, level (m), headspace gauge (Pa), rate (kg/s),
+/// released since the start (kg).
+#[derive(Debug, Clone, Copy)]
+pub struct TruthRow {
+    pub at_ms: i64,
+    pub level_m: f64,
+    pub headspace_pa: f64,
+    pub rate_kg_s: f64,
+    pub released_kg: f64,
+}
+
+impl Truth {
+    pub fn load(path: &Path) -> Self {
+        let text =
+            fs::read_to_string(path).unwrap_or_else(|e| panic!("reading {}: {e}", path.display()));
+        let mut lines = text.lines();
+        let header: Vec<&str> = lines.next().expect("a header").split(',').collect();
+        let col = |name: &str| {
+            header
+                .iter()
+                .position(|h| *h == name)
+                .unwrap_or_else(|| panic!("no {name} column"))
+        };
+        let (utc, tank, level, headspace, rate, released) = (
+            col("utc"),
+            col("tank"),
+            col("level_m"),
+            col("headspace_pa"),
+            col("rate_kg_s"),
+            col("released_kg"),
+        );
+        let mut rows: std::collections::HashMap<String, Vec<TruthRow>> = Default::default();
+        for line in lines {
+            let f: Vec<&str> = line.split(',').collect();
+            if f.len() < header.len() {
+                continue; // a row being written as we read
+            }
+            let num = |i: usize| f[i].parse::<f64>().unwrap_or(f64::NAN);
+            let at: jiff::Timestamp = f[utc]
+                .parse()
+                .unwrap_or_else(|e| panic!("truth time {:?}: {e}", f[utc]));
+            rows.entry(f[tank].to_owned()).or_default().push(TruthRow {
+                at_ms: at.as_millisecond(),
+                level_m: num(level),
+                headspace_pa: num(headspace),
+                rate_kg_s: num(rate),
+                released_kg: num(released),
+            });
+        }
+        Self { rows }
+    }
+
+    /// The truth of a tank at a UTC time, interpolated between rows.
+    pub fn at(&self, tank: &str, at_ms: i64) -> TruthRow {
+        let rows = &self.rows[tank];
+        let i = rows.partition_point(|r| r.at_ms <= at_ms);
+        assert!(
+            i > 0 && i < rows.len(),
+            "time {at_ms} is outside the truth of {tank}"
+        );
+        let (a, b) = (rows[i - 1], rows[i]);
+        let w = (at_ms - a.at_ms) as f64 / (b.at_ms - a.at_ms) as f64;
+        let lerp = |x: f64, y: f64| x + (y - x) * w;
+        TruthRow {
+            at_ms,
+            level_m: lerp(a.level_m, b.level_m),
+            headspace_pa: lerp(a.headspace_pa, b.headspace_pa),
+            rate_kg_s: lerp(a.rate_kg_s, b.rate_kg_s),
+            released_kg: lerp(a.released_kg, b.released_kg),
+        }
+    }
+}
+
+/// The demo site config with its devices pointed at `address`.
+pub fn demo_site(address: &str) -> String {
+    let text = fs::read_to_string(repo_root().join("config/demo.toml")).expect("config/demo.toml");
+    text.replace("127.0.0.1:15020", address)
+}
+
+/// Starts the simulator on a free loopback port for `scenario`, writing its
+/// truth to the scratch folder; returns it with its address.
+pub fn start_sim(scratch: &Scratch, scenario: &Path, listen: &str) -> (Server, String) {
+    let mut sim = Server::start(
+        "leaktally-sim",
+        Command::new(binary("leaktally-sim"))
+            .arg("--scenario")
+            .arg(scenario)
+            .arg("--listen")
+            .arg(listen)
+            .arg("--truth")
+            .arg(scratch.path("truth.csv")),
+        scratch.path(&format!("sim-{}.stderr", listen.replace([':', '.'], "_"))),
+    );
+    let address = sim.address();
+    (sim, address)
+}
+
+/// The current UTC time in milliseconds.
+pub fn now_ms() -> i64 {
+    jiff::Timestamp::now().as_millisecond()
 }
