@@ -7,6 +7,8 @@
 //! * `interop`: the agent and the simulator against pymodbus, an independent
 //!   Modbus implementation.
 //! * `python_env`: the pinned Python environment those tests use.
+//! * `tracking`: the simulator, the daemon and the operator CLI as real
+//!   processes, against the simulator's ground truth.
 //! * `util`: shared helpers.
 
 mod acquisition;
@@ -14,4 +16,5 @@ mod interop;
 mod properties;
 mod python_env;
 mod references;
+mod tracking;
 mod util;

@@ -241,6 +241,11 @@ pub struct Finished {
 /// Runs a command to completion with its output in files (so nothing can
 /// block on a pipe), killing it after `COMMAND_LIMIT`.
 pub fn run(name: &str, command: &mut Command, scratch: &Scratch) -> Finished {
+    run_for(name, command, scratch, COMMAND_LIMIT)
+}
+
+/// Like [`run`], with a time limit of its own.
+pub fn run_for(name: &str, command: &mut Command, scratch: &Scratch, limit: Duration) -> Finished {
     let out_path = scratch.path(&format!("{name}.stdout"));
     let err_path = scratch.path(&format!("{name}.stderr"));
     let mut child = command
@@ -249,7 +254,7 @@ pub fn run(name: &str, command: &mut Command, scratch: &Scratch) -> Finished {
         .stderr(File::create(&err_path).expect("creating a stderr file"))
         .spawn()
         .unwrap_or_else(|e| panic!("starting {name}: {e}"));
-    let deadline = Instant::now() + COMMAND_LIMIT;
+    let deadline = Instant::now() + limit;
     let status = loop {
         match child.try_wait().expect("waiting for a child") {
             Some(status) => break status,
@@ -257,7 +262,7 @@ pub fn run(name: &str, command: &mut Command, scratch: &Scratch) -> Finished {
                 let _ = child.kill();
                 let _ = child.wait();
                 panic!(
-                    "{name} still ran after {COMMAND_LIMIT:?}; its stderr:\n{}",
+                    "{name} still ran after {limit:?}; its stderr:\n{}",
                     fs::read_to_string(&err_path).unwrap_or_default()
                 );
             }
@@ -292,6 +297,7 @@ pub struct TruthRow {
     pub headspace_pa: f64,
     pub rate_kg_s: f64,
     pub released_kg: f64,
+    pub leak_open: bool,
 }
 
 impl Truth {
@@ -306,13 +312,14 @@ impl Truth {
                 .position(|h| *h == name)
                 .unwrap_or_else(|| panic!("no {name} column"))
         };
-        let (utc, tank, level, headspace, rate, released) = (
+        let (utc, tank, level, headspace, rate, released, open) = (
             col("utc"),
             col("tank"),
             col("level_m"),
             col("headspace_pa"),
             col("rate_kg_s"),
             col("released_kg"),
+            col("leak_open"),
         );
         let mut rows: std::collections::HashMap<String, Vec<TruthRow>> = Default::default();
         for line in lines {
@@ -330,6 +337,7 @@ impl Truth {
                 headspace_pa: num(headspace),
                 rate_kg_s: num(rate),
                 released_kg: num(released),
+                leak_open: f[open] == "true",
             });
         }
         Self { rows }
@@ -352,7 +360,19 @@ impl Truth {
             headspace_pa: lerp(a.headspace_pa, b.headspace_pa),
             rate_kg_s: lerp(a.rate_kg_s, b.rate_kg_s),
             released_kg: lerp(a.released_kg, b.released_kg),
+            leak_open: b.leak_open,
         }
+    }
+
+    /// When the tank's leak opened (the last row before the first open one,
+    /// to within the truth's 100 ms rows), UTC ms.
+    pub fn leak_opened_at(&self, tank: &str) -> i64 {
+        let rows = &self.rows[tank];
+        let i = rows
+            .iter()
+            .position(|r| r.leak_open)
+            .unwrap_or_else(|| panic!("{tank} never leaks"));
+        rows[i.saturating_sub(1)].at_ms
     }
 }
 

@@ -16,8 +16,38 @@ pub struct Cli {
 
 #[derive(Debug, Subcommand)]
 pub enum Command {
-    /// Show what leaktally computes, on an invented demo tank.
-    Demo,
+    /// Run the simulator and the agent on an invented site, flag a leak and
+    /// show the running totals live (about a minute; Ctrl-C stops it).
+    Demo {
+        /// How long to track the leak after flagging it, seconds.
+        #[arg(long, default_value_t = 60)]
+        seconds: u64,
+    },
+    /// Pre-planning figures for a tank and hole sizes that have not happened.
+    Whatif {
+        /// The tank's id (tag) in the config.
+        #[arg(long)]
+        tank: String,
+        /// The site config (TOML).
+        #[arg(long, short, default_value = "leaktally.toml")]
+        config: PathBuf,
+        /// Hole diameters in mm, comma-separated (default: 6.35,25.4,101.6,
+        /// the small, medium and large holes of risk-based inspection).
+        #[arg(long, value_name = "MM[,MM...]")]
+        hole_diameter: Option<String>,
+        /// Height of the hole above the tank bottom, m (default: the bottom).
+        #[arg(long, value_name = "M", default_value_t = 0.0)]
+        hole_height: f64,
+        /// Liquid level, m (default: 90 % of the tank's height).
+        #[arg(long, value_name = "M")]
+        level: Option<f64>,
+        /// Discharge coefficient, in (0, 1] (default 1.0, conservative).
+        #[arg(long, default_value_t = 1.0)]
+        cd: f64,
+        /// Print JSON instead of the table.
+        #[arg(long)]
+        json: bool,
+    },
     /// Validate a config file and show the tanks, registers and reads.
     Check {
         /// The site config (TOML).
@@ -136,8 +166,45 @@ pub struct HoleArgs {
 /// Runs one parsed command.
 pub fn run(cli: Cli) -> anyhow::Result<()> {
     match cli.command {
-        Command::Demo => {
-            print!("{}", commands::demo::run()?);
+        Command::Demo { seconds } => commands::demo::run(seconds),
+        Command::Whatif {
+            tank,
+            config,
+            hole_diameter,
+            hole_height,
+            level,
+            cd,
+            json,
+        } => {
+            let config = crate::config::load(&config)?;
+            let Some(t) = config.tanks.iter().find(|t| t.id == tank) else {
+                let known: Vec<&str> = config.tanks.iter().map(|t| t.id.as_str()).collect();
+                anyhow::bail!(
+                    "there is no tank {tank:?} in {}; the tanks are: {}",
+                    config.path.display(),
+                    known.join(", ")
+                );
+            };
+            let holes = match hole_diameter {
+                Some(text) => commands::whatif::parse_holes(&text)?,
+                None => commands::whatif::REPRESENTATIVE_HOLES_MM.to_vec(),
+            };
+            let level = level.map_or(
+                commands::whatif::default_level(t),
+                crate::model::Length::metres,
+            );
+            let study = commands::whatif::study(
+                t,
+                level,
+                crate::model::Length::metres(hole_height),
+                crate::model::DischargeCoefficient::new(cd)?,
+                &holes,
+            )?;
+            if json {
+                println!("{}", serde_json::to_string_pretty(&study)?);
+            } else {
+                print!("{}", commands::whatif::human(&study));
+            }
             Ok(())
         }
         Command::Check { config, offline } => {

@@ -7,7 +7,21 @@ use std::process::ExitCode;
 fn main() -> ExitCode {
     let cli = <leaktally::cli::Cli as clap::Parser>::parse();
     // Logs go to standard error, so that standard output stays clean for
-    // reports and JSON. RUST_LOG adjusts the level (default: info).
+    // reports and JSON. RUST_LOG adjusts the level (default: info). The demo
+    // keeps the screen for its narration and logs to a file of its own.
+    if !matches!(cli.command, leaktally::cli::Command::Demo { .. }) {
+        init_logging();
+    }
+    match leaktally::cli::run(cli) {
+        Ok(()) => ExitCode::SUCCESS,
+        Err(err) => {
+            eprintln!("error: {err:#}");
+            ExitCode::FAILURE
+        }
+    }
+}
+
+fn init_logging() {
     tracing_subscriber::fmt()
         .with_writer(std::io::stderr)
         .with_ansi(std::io::stderr().is_terminal())
@@ -16,11 +30,4 @@ fn main() -> ExitCode {
                 .unwrap_or_else(|_| tracing_subscriber::EnvFilter::new("info")),
         )
         .init();
-    match leaktally::cli::run(cli) {
-        Ok(()) => ExitCode::SUCCESS,
-        Err(err) => {
-            eprintln!("error: {err:#}");
-            ExitCode::FAILURE
-        }
-    }
 }

@@ -1,145 +1,329 @@
-//! The invented demo site, and what `leaktally demo` shows with it.
+//! `leaktally demo`: the whole loop on an invented site, in about a minute.
 //!
-//! Fennick Flats is a fictional fuel depot; tank FF-T12 and every figure
-//! about it are made up for the demo. The demo runs the physics core on that
-//! tank for three hole sizes and prints what a pre-planning engineer would
-//! want to see. (Once the agent can poll, the demo drives the simulator
-//! instead; see the README.)
+//! It starts the simulator (`leaktally-sim`, found next to this binary) with
+//! the demo scenario and the agent daemon in a temporary folder, flags the
+//! leak as an operator would, shows the running total live, then closes the
+//! event and prints the summary beside the simulator's ground truth and a
+//! what-if table. Ctrl-C stops everything cleanly.
+//!
+//! Fennick Flats is a fictional fuel depot; its tanks, sizes and the leak
+//! are made up for the demo.
 
-use crate::model::{
-    AbsolutePressure, Density, DischargeCoefficient, Geometry, Hole, Length, Mass, ModelResult,
-    Pressure, TankState, TimeSpan, Vessel, forecast::time_to_release, forecast_liquid,
-};
+use crate::commands::{leak, status, whatif};
+use crate::model::{DischargeCoefficient, Length, Mass, MassRate, TimeSpan};
 use crate::report;
-use std::fmt::Write as _;
+use crate::store;
+use crate::track::tracker::Request;
+use anyhow::{Context, bail};
+use std::io::{BufRead, BufReader, IsTerminal, Write};
+use std::path::{Path, PathBuf};
+use std::process::{Child, Command, Stdio};
+use std::time::Duration;
+use tokio_util::sync::CancellationToken;
 
-/// The demo tank: an upright diesel tank, 6 m across and 8 m tall.
-pub fn demo_vessel() -> ModelResult<Vessel> {
-    Vessel::new(
-        Geometry::vertical_cylinder(Length::metres(6.0), Length::metres(8.0))?,
-        Density::kg_per_cubic_metre(840.0),
-        AbsolutePressure::STANDARD_ATMOSPHERE,
-        None,
+/// The demo site and scenario, built in so the demo runs from anywhere.
+const SITE: &str = include_str!("../../../config/demo.toml");
+const SCENARIO: &str = include_str!("../../../sim/scenarios/demo.toml");
+
+/// When the scenario's leak opens, in seconds of simulator time.
+const LEAK_OPENS_S: f64 = 10.0;
+/// When the operator flags it.
+const FLAGGED_AT_S: f64 = 14.0;
+
+/// The simulator child, killed when dropped.
+struct Simulator(Child);
+
+impl Drop for Simulator {
+    fn drop(&mut self) {
+        let _ = self.0.kill();
+        let _ = self.0.wait();
+    }
+}
+
+/// A temporary folder, removed when dropped.
+struct Folder(PathBuf);
+
+impl Drop for Folder {
+    fn drop(&mut self) {
+        let _ = std::fs::remove_dir_all(&self.0);
+    }
+}
+
+/// Runs the demo; the leak is tracked for `seconds` after it is flagged.
+pub fn run(seconds: u64) -> anyhow::Result<()> {
+    let folder =
+        Folder(std::env::temp_dir().join(format!("leaktally-demo-{}", std::process::id())));
+    std::fs::create_dir_all(&folder.0)
+        .with_context(|| format!("creating {}", folder.0.display()))?;
+    let dir = folder.0.clone();
+    let scenario = SCENARIO.replace("site = \"../../config/demo.toml\"", "site = \"site.toml\"");
+    std::fs::write(dir.join("scenario.toml"), scenario)?;
+    std::fs::write(dir.join("site.toml"), SITE)?;
+
+    println!("leaktally demo: Fennick Flats depot (an invented site), tank FF-T12, diesel.");
+    println!(
+        "The simulator plays the plant. At {LEAK_OPENS_S:.0} s a hole opens low on the tank; the agent is not told its size."
+    );
+    let (sim, address, sim_started_ms) = start_simulator(&dir)?;
+    std::fs::write(
+        dir.join("site.toml"),
+        SITE.replace("127.0.0.1:15020", &address),
+    )?;
+    let config = crate::config::load(&dir.join("site.toml"))?;
+    init_logging(&dir.join("agent.log"))?;
+
+    let runtime = tokio::runtime::Builder::new_multi_thread()
+        .worker_threads(2)
+        .enable_all()
+        .build()?;
+    let outcome = runtime.block_on(async {
+        let stop = CancellationToken::new();
+        let on_signal = stop.clone();
+        tokio::spawn(async move {
+            crate::shutdown::signalled().await;
+            on_signal.cancel();
+        });
+        let db = dir.join("leaktally.db");
+        let daemon = {
+            let (db, stop) = (db.clone(), stop.clone());
+            tokio::spawn(
+                async move { crate::daemon::run(config, &db, stop.cancelled_owned()).await },
+            )
+        };
+        let result = narrate(&dir, &db, sim_started_ms, seconds, &stop).await;
+        stop.cancel();
+        let stopped = daemon.await;
+        result.and(stopped.map_err(anyhow::Error::from).and_then(|r| r))
+    });
+    drop(sim);
+    match outcome {
+        Err(e) if e.to_string() == STOPPED => {
+            println!("\nStopped. The simulator and the agent have shut down.");
+            Ok(())
+        }
+        other => other,
+    }
+}
+
+/// The marker error for Ctrl-C.
+const STOPPED: &str = "stopped by the user";
+
+fn start_simulator(dir: &Path) -> anyhow::Result<(Simulator, String, i64)> {
+    let exe = std::env::current_exe()?;
+    let sim_path = exe.with_file_name("leaktally-sim");
+    if !sim_path.exists() {
+        bail!(
+            "the simulator {} is not there; build both binaries with `cargo build --workspace` and run target/debug/leaktally demo",
+            sim_path.display()
+        );
+    }
+    let mut child = Command::new(&sim_path)
+        .arg("--scenario")
+        .arg(dir.join("scenario.toml"))
+        .arg("--listen")
+        .arg("127.0.0.1:0")
+        .arg("--truth")
+        .arg(dir.join("truth.csv"))
+        .stdin(Stdio::null())
+        .stdout(Stdio::piped())
+        .stderr(std::fs::File::create(dir.join("simulator.log"))?)
+        .spawn()
+        .with_context(|| format!("starting {}", sim_path.display()))?;
+    let started = store::now_ms();
+    let stdout = child.stdout.take().context("the simulator's output")?;
+    let sim = Simulator(child);
+    let mut line = String::new();
+    BufReader::new(stdout).read_line(&mut line)?;
+    let address = line
+        .trim()
+        .strip_prefix("listening on ")
+        .with_context(|| {
+            format!(
+                "the simulator did not start; see {}",
+                dir.join("simulator.log").display()
+            )
+        })?
+        .to_owned();
+    Ok((sim, address, started))
+}
+
+fn init_logging(path: &Path) -> anyhow::Result<()> {
+    let file = std::fs::File::create(path)?;
+    let _ = tracing_subscriber::fmt()
+        .with_writer(std::sync::Mutex::new(file))
+        .with_ansi(false)
+        .try_init();
+    Ok(())
+}
+
+async fn sleep_or_stop(d: Duration, stop: &CancellationToken) -> anyhow::Result<()> {
+    tokio::select! {
+        _ = tokio::time::sleep(d) => Ok(()),
+        _ = stop.cancelled() => bail!(STOPPED),
+    }
+}
+
+async fn until_sim_time(
+    sim_started_ms: i64,
+    seconds: f64,
+    stop: &CancellationToken,
+) -> anyhow::Result<()> {
+    let wait = sim_started_ms + (seconds * 1000.0) as i64 - store::now_ms();
+    sleep_or_stop(Duration::from_millis(wait.max(0) as u64), stop).await
+}
+
+async fn narrate(
+    dir: &Path,
+    db: &Path,
+    sim_started_ms: i64,
+    seconds: u64,
+    stop: &CancellationToken,
+) -> anyhow::Result<()> {
+    until_sim_time(sim_started_ms, FLAGGED_AT_S, stop).await?;
+    let since = sim_started_ms + (LEAK_OPENS_S * 1000.0) as i64;
+    let since_text = jiff::Timestamp::from_millisecond(since)?.to_string();
+    println!(
+        "\nAt {FLAGGED_AT_S:.0} s the operator sees the level falling and flags the leak, back-dated to when it began:"
+    );
+    println!(
+        "  $ leaktally leak open --tank FF-T12 --hole-height 0.3 --cd 0.61 --since {since_text}"
+    );
+    let request = Request::Open {
+        tank: "FF-T12".into(),
+        hole_diameter_m: None,
+        hole_height_m: Some(0.3),
+        cd: Some(0.61),
+        since_ms: Some(since),
+        note: Some("demo: level falling, hole not yet seen".into()),
+    };
+    let db_owned = db.to_owned();
+    let reply = tokio::task::spawn_blocking(move || leak::send(&db_owned, &request)).await??;
+    println!("  {reply}");
+    let event: i64 = reply
+        .split_whitespace()
+        .nth(2)
+        .and_then(|w| w.parse().ok())
+        .context("the daemon's reply names no event")?;
+    println!(
+        "\nRunning totals (a responder sees the same with `leaktally status --db {}`):",
+        db.display()
+    );
+    let terminal = std::io::stdout().is_terminal();
+    for second in 1..=seconds {
+        sleep_or_stop(Duration::from_secs(1), stop).await?;
+        let doc = status::document(db, Some(event))?;
+        let line = progress_line(second, &doc);
+        if terminal {
+            print!("\r\x1b[2K{line}");
+            std::io::stdout().flush()?;
+        } else if second % 10 == 0 || second == seconds {
+            println!("{line}");
+        }
+    }
+    if terminal {
+        println!();
+    }
+
+    println!("\nThe leak is isolated; the operator closes the event:");
+    println!("  $ leaktally leak close {event}");
+    let db_owned = db.to_owned();
+    let reply = tokio::task::spawn_blocking(move || {
+        leak::send(
+            &db_owned,
+            &Request::Close {
+                event,
+                note: Some("demo: isolated".into()),
+            },
+        )
+    })
+    .await??;
+    println!("  {reply}\n");
+    let doc = status::document(db, Some(event))?;
+    print!("{}", status::human(&doc));
+    compare_with_truth(dir, &doc);
+    print_what_if(dir, &doc)?;
+    Ok(())
+}
+
+fn progress_line(second: u64, doc: &status::StatusDocument) -> String {
+    let Some(est) = doc.events.first().and_then(|e| e.estimate.as_ref()) else {
+        return format!("+{second:>3} s  waiting for the first sample");
+    };
+    let kg = |x: f64| report::mass(Mass::kilograms(x));
+    let hole = match est.fitted_diameter_m {
+        Some(d) => format!("fitted hole {:.1} mm", d * 1000.0),
+        None => "hole: not enough data yet".to_owned(),
+    };
+    let stops = est.forecast.map_or(String::new(), |f| {
+        format!(
+            " | stops in {}",
+            report::duration(TimeSpan::seconds(f.stops_after_s))
+        )
+    });
+    format!(
+        "+{second:>3} s | released {} ({} to {}) | rate {} | {} | {hole}{stops}",
+        kg(est.released_best_kg),
+        kg(est.released_low_kg),
+        kg(est.released_high_kg),
+        report::rate(MassRate::kg_per_second(est.rate_best_kg_s)),
+        est.method.name()
     )
 }
 
-/// Representative hole sizes for pre-planning: small, medium and large
-/// release holes of 1/4 in, 1 in and 4 in, as used in risk-based inspection
-/// practice (from memory; the fourth, a full rupture, is left out because
-/// the orifice equation does not describe it).
-pub const REPRESENTATIVE_HOLES_MM: [f64; 3] = [6.35, 25.4, 101.6];
-
-/// The demo's reportable quantity for diesel at the invented site.
-pub const DEMO_REPORTABLE_KG: f64 = 1000.0;
-
-/// Runs the demo calculation and returns the text it prints.
-pub fn run() -> ModelResult<String> {
-    let vessel = demo_vessel()?;
-    let start = TankState {
-        level: Length::metres(6.5),
-        headspace: Pressure::ZERO,
+/// The simulator's truth at the moment of the last estimate.
+fn compare_with_truth(dir: &Path, doc: &status::StatusDocument) {
+    let Some(est) = doc.events.first().and_then(|e| e.estimate.as_ref()) else {
+        return;
     };
-    let hole_height = Length::metres(0.4);
-    let density = vessel.density();
-    let mut out = String::new();
-    let _ = writeln!(
-        out,
-        "leaktally demo: what-if for tank FF-T12, Fennick Flats depot (invented)"
-    );
-    let _ = writeln!(
-        out,
-        "  upright cylinder 6 m x 8 m, diesel at {density:.0}, level {:.2}, open vent, hole {:.2} above the bottom",
-        start.level, hole_height
-    );
-    let _ = writeln!(
-        out,
-        "  liquid above the hole: {}",
-        report::mass(vessel.liquid_above(
-            start.level,
-            &Hole::new(Length::millimetres(1.0), hole_height)?
-        ))
-    );
-    let _ = writeln!(
-        out,
-        "  reportable quantity (demo value): {}",
-        report::mass(Mass::kilograms(DEMO_REPORTABLE_KG))
-    );
-    let horizons = [TimeSpan::minutes(15.0), TimeSpan::hours(1.0)];
-    for mm in REPRESENTATIVE_HOLES_MM {
-        let hole = Hole::new(Length::millimetres(mm), hole_height)?;
-        let _ = writeln!(out, "\n  hole {mm} mm (Cd 1.0, band from Cd 0.61):");
-        let at = |cd| forecast_liquid(&vessel, &hole, cd, &start, &horizons);
-        let (high, low) = (
-            at(DischargeCoefficient::CONSERVATIVE)?,
-            at(DischargeCoefficient::SHARP_EDGED)?,
-        );
-        let initial = vessel
-            .outflow(&start, &hole, DischargeCoefficient::CONSERVATIVE)
-            .rate;
-        let initial_low = vessel
-            .outflow(&start, &hole, DischargeCoefficient::SHARP_EDGED)
-            .rate;
-        let _ = writeln!(
-            out,
-            "    initial rate         {} (band {} to {})",
-            report::rate(initial),
-            report::rate(initial_low),
-            report::rate(initial)
-        );
-        let _ = writeln!(
-            out,
-            "    flow stops after     {} (Cd 0.61: {})",
-            report::duration(high.stops_after),
-            report::duration(low.stops_after)
-        );
-        let _ = writeln!(
-            out,
-            "    released by then     {} ({})",
-            report::mass(high.released_by_stop),
-            report::volumes(high.released_by_stop, density)
-        );
-        for (h, l) in high.horizons.iter().zip(&low.horizons) {
-            let _ = writeln!(
-                out,
-                "    released by +{:<8} {} (band {} to {})",
-                report::duration(h.after),
-                report::mass(h.released),
-                report::mass(l.released),
-                report::mass(h.released)
-            );
+    // The truth file is flushed every simulated second.
+    std::thread::sleep(Duration::from_millis(1200));
+    let Ok(text) = std::fs::read_to_string(dir.join("truth.csv")) else {
+        return;
+    };
+    let mut best: Option<(i64, f64)> = None;
+    for line in text.lines().skip(1) {
+        let f: Vec<&str> = line.split(',').collect();
+        if f.len() < 7 || f[2] != "FF-T12" {
+            continue;
         }
-        let reportable = Mass::kilograms(DEMO_REPORTABLE_KG);
-        let crossing = time_to_release(
-            &vessel,
-            &hole,
-            DischargeCoefficient::CONSERVATIVE,
-            &start,
-            reportable,
-        )?;
-        let _ = writeln!(
-            out,
-            "    reportable quantity  {}",
-            crossing.map_or("not reached".to_owned(), |t| format!(
-                "reached after {}",
-                report::duration(t)
-            ))
+        let (Ok(at), Ok(released)) = (f[1].parse::<jiff::Timestamp>(), f[6].parse::<f64>()) else {
+            continue;
+        };
+        let at = at.as_millisecond();
+        if at <= est.at_ms {
+            best = Some((at, released));
+        }
+    }
+    if let Some((_, truth)) = best.filter(|(_, t)| *t > 0.0) {
+        println!(
+            "The simulator's ground truth at the last sample: {} released; the estimate is {:+.1} % from it.",
+            report::mass(Mass::kilograms(truth)),
+            100.0 * (est.released_best_kg - truth) / truth
         );
     }
-    let _ = writeln!(
-        out,
-        "\nThe forecast assumes the headspace stays vented, no pumping and a hole that does not grow."
-    );
-    let _ = writeln!(out, "{}", report::CAUTION);
-    Ok(out)
 }
 
-#[cfg(test)]
-mod tests {
-    #[test]
-    fn the_demo_computes_every_hole_and_carries_the_caution() {
-        let text = super::run().unwrap();
-        assert_eq!(text.matches("flow stops after").count(), 3, "{text}");
-        assert!(text.contains("CAUTION"));
-        assert!(!text.contains("NaN") && !text.contains("inf"), "{text}");
-    }
+/// What an engineer would look at next: the same tank with other holes.
+fn print_what_if(dir: &Path, doc: &status::StatusDocument) -> anyhow::Result<()> {
+    let config = crate::config::load(&dir.join("site.toml"))?;
+    let tank = config
+        .tanks
+        .iter()
+        .find(|t| t.id == "FF-T12")
+        .context("FF-T12 in the demo site")?;
+    let level = doc
+        .events
+        .first()
+        .and_then(|e| e.estimate.as_ref())
+        .map_or(whatif::default_level(tank), |e| Length::metres(e.level_m));
+    println!("\nPre-planning view of the same tank at its present level (leaktally whatif):\n");
+    let study = whatif::study(
+        tank,
+        level,
+        Length::metres(0.3),
+        DischargeCoefficient::SHARP_EDGED,
+        &whatif::REPRESENTATIVE_HOLES_MM,
+    )?;
+    print!("{}", whatif::human(&study));
+    Ok(())
 }

@@ -5,3 +5,4 @@ pub mod demo;
 pub mod leak;
 pub mod poll;
 pub mod status;
+pub mod whatif;

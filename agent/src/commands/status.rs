@@ -139,10 +139,14 @@ pub fn human(doc: &StatusDocument) -> String {
         let _ = writeln!(out, "No open leak events.");
     }
     for e in &doc.events {
+        let span = match e.closed_at_ms {
+            Some(closed) => format!("closed; leaked from {} to {}", e.start, report::utc(closed)),
+            None => format!("open since {}", e.start),
+        };
         let _ = writeln!(
             out,
-            "\nEvent {}  tank {}  {} since {} (flagged by {}, revision {})",
-            e.event, e.tank, e.state, e.start, e.source, e.revision
+            "\nEvent {}  tank {}  {span} (flagged by {}, revision {})",
+            e.event, e.tank, e.source, e.revision
         );
         let _ = writeln!(out, "  parameters   {}", e.params_text);
         let Some(est) = &e.estimate else {
