@@ -480,3 +480,51 @@ fn forecast_matches_scipy_quadrature_of_the_draining_ode() {
         }
     }
 }
+
+/// `leaktally whatif` against the analytic Torricelli solution for a
+/// vertical cylinder (as above): the time until the flow stops, and the mass
+/// released by +15 min and +1 h, at the chosen Cd and at the band's top.
+#[test]
+fn whatif_figures_match_the_torricelli_solution() {
+    use leaktally::commands::whatif;
+    let config =
+        leaktally::config::load(&crate::util::repo_root().join("config/demo.toml")).unwrap();
+    let tank = config.tanks.iter().find(|t| t.id == "FF-T12").unwrap(); // upright, 3 m across, diesel 840 kg/m³
+    let (d_tank, z, h0, rho) = (3.0, 0.3, 4.5, 840.0);
+    let study = whatif::study(
+        tank,
+        m(h0),
+        m(z),
+        DischargeCoefficient::SHARP_EDGED,
+        &[25.0, 50.0, 101.6],
+    )
+    .unwrap();
+    let mut worst = WorstError::new("what-if vs Torricelli");
+    for h in &study.holes {
+        for (cd, stops, in_15, in_60) in [
+            (0.61, h.stops_after_s, h.in_15_min_kg[1], h.in_1_h_kg[1]),
+            (
+                1.0,
+                h.stops_after_high_cd_s,
+                h.in_15_min_kg[2],
+                h.in_1_h_kg[2],
+            ),
+        ] {
+            let ratio = cd
+                * (h.hole_diameter_mm / 1000.0 / d_tank).powi(2)
+                * (STANDARD_GRAVITY / 2.0).sqrt();
+            let t_stop = (h0 - z).sqrt() / ratio;
+            let released = |t: f64| {
+                let level = z + ((h0 - z).sqrt() - ratio * t.min(t_stop)).powi(2);
+                rho * PI * d_tank * d_tank / 4.0 * (h0 - level)
+            };
+            let label = || format!("{} mm, Cd {cd}", h.hole_diameter_mm);
+            assert!(
+                worst.record(stops, t_stop, label) < 1e-4,
+                "time to stop {stops} vs {t_stop}"
+            );
+            assert!(worst.record(in_15, released(900.0), label) < 1e-4, "15 min");
+            assert!(worst.record(in_60, released(3600.0), label) < 1e-4, "1 h");
+        }
+    }
+}

@@ -7,8 +7,11 @@
 //! * `interop`: the agent and the simulator against pymodbus, an independent
 //!   Modbus implementation.
 //! * `python_env`: the pinned Python environment those tests use.
+//! * `replay`: replays of a logged event and of a readings file.
 //! * `tracking`: the simulator, the daemon and the operator CLI as real
 //!   processes, against the simulator's ground truth.
+//! * `web`: the daemon's responder page in headless chromium against
+//!   `status --json`, and its metrics through prometheus-client.
 //! * `util`: shared helpers.
 
 mod acquisition;
@@ -16,5 +19,7 @@ mod interop;
 mod properties;
 mod python_env;
 mod references;
+mod replay;
 mod tracking;
 mod util;
+mod web;

@@ -12,7 +12,7 @@ use std::process::Command;
 use std::time::{Duration, Instant};
 
 /// Every tank of the demo site leaking from 1 s into the run.
-fn scenario(scratch: &Scratch) -> PathBuf {
+pub(crate) fn scenario(scratch: &Scratch) -> PathBuf {
     let site = scratch.write("sim-site.toml", &demo_site("127.0.0.1:1"));
     scratch.write(
         "scenario.toml",
@@ -61,16 +61,17 @@ cd = 0.61
     )
 }
 
-struct Plant {
-    scratch: Scratch,
+/// The simulator and a database for a daemon, in a scratch folder.
+pub(crate) struct Plant {
+    pub(crate) scratch: Scratch,
     _sim: Server,
-    site: PathBuf,
-    db: PathBuf,
-    started_ms: i64,
+    pub(crate) site: PathBuf,
+    pub(crate) db: PathBuf,
+    pub(crate) started_ms: i64,
 }
 
 impl Plant {
-    fn start(label: &str) -> Self {
+    pub(crate) fn start(label: &str) -> Self {
         let scratch = Scratch::new(label);
         let started_ms = now_ms();
         let (sim, address) = start_sim(&scratch, &scenario(&scratch), "127.0.0.1:0");
@@ -85,7 +86,7 @@ impl Plant {
         }
     }
 
-    fn daemon(&self, name: &str) -> Server {
+    pub(crate) fn daemon(&self, name: &str) -> Server {
         let daemon = Server::start(
             "leaktally run",
             Command::new(binary("leaktally"))
@@ -111,13 +112,13 @@ impl Plant {
         panic!("the daemon did not start; its stderr:\n{}", daemon.stderr());
     }
 
-    fn cli(&self, args: &[&str]) -> Finished {
+    pub(crate) fn cli(&self, args: &[&str]) -> Finished {
         let mut cmd = Command::new(binary("leaktally"));
         cmd.args(args).arg("--db").arg(&self.db);
         run("leaktally", &mut cmd, &self.scratch)
     }
 
-    fn ok(&self, args: &[&str]) -> String {
+    pub(crate) fn ok(&self, args: &[&str]) -> String {
         let done = self.cli(args);
         assert!(
             done.status.success(),
@@ -128,7 +129,7 @@ impl Plant {
         done.stdout
     }
 
-    fn status(&self, event: Option<i64>) -> Value {
+    pub(crate) fn status(&self, event: Option<i64>) -> Value {
         let mut args = vec!["status", "--json"];
         let id = event.map(|e| e.to_string());
         if let Some(id) = &id {
@@ -139,19 +140,19 @@ impl Plant {
 
     /// The truth so far. The simulator flushes it every simulated second,
     /// so wait a little for it to cover the latest estimate.
-    fn truth(&self) -> Truth {
+    pub(crate) fn truth(&self) -> Truth {
         std::thread::sleep(Duration::from_millis(1500));
         Truth::load(&self.scratch.path("truth.csv"))
     }
 
     /// `--since` for the moment the simulator opened the tank's leak, so
     /// the event and the truth start together.
-    fn leak_start(&self, tank: &str) -> String {
+    pub(crate) fn leak_start(&self, tank: &str) -> String {
         let at = self.truth().leak_opened_at(tank);
         jiff::Timestamp::from_millisecond(at).unwrap().to_string()
     }
 
-    fn wait_until(&self, seconds_into_run: f64) {
+    pub(crate) fn wait_until(&self, seconds_into_run: f64) {
         let at = self.started_ms + (seconds_into_run * 1000.0) as i64;
         let left = at - now_ms();
         if left > 0 {
@@ -161,7 +162,7 @@ impl Plant {
 }
 
 /// The event id in `leak open`'s reply ("opened event 3 on ...").
-fn event_id(reply: &str) -> i64 {
+pub(crate) fn event_id(reply: &str) -> i64 {
     reply
         .split_whitespace()
         .skip_while(|w| *w != "event")
@@ -170,14 +171,14 @@ fn event_id(reply: &str) -> i64 {
         .unwrap_or_else(|| panic!("no event id in {reply:?}"))
 }
 
-fn event_of(status: &Value, id: i64) -> &Value {
+pub(crate) fn event_of(status: &Value, id: i64) -> &Value {
     status["events"]
         .as_array()
         .and_then(|events| events.iter().find(|e| e["event"] == id))
         .unwrap_or_else(|| panic!("event {id} not in {status}"))
 }
 
-fn rel(got: f64, expected: f64) -> f64 {
+pub(crate) fn rel(got: f64, expected: f64) -> f64 {
     (got - expected).abs() / expected.abs()
 }
 

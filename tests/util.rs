@@ -347,6 +347,9 @@ impl Truth {
     pub fn at(&self, tank: &str, at_ms: i64) -> TruthRow {
         let rows = &self.rows[tank];
         let i = rows.partition_point(|r| r.at_ms <= at_ms);
+        if i > 0 && rows[i - 1].at_ms == at_ms {
+            return rows[i - 1];
+        }
         assert!(
             i > 0 && i < rows.len(),
             "time {at_ms} is outside the truth of {tank}"
@@ -403,4 +406,125 @@ pub fn start_sim(scratch: &Scratch, scenario: &Path, listen: &str) -> (Server, S
 /// The current UTC time in milliseconds.
 pub fn now_ms() -> i64 {
     jiff::Timestamp::now().as_millisecond()
+}
+
+/// A loopback port that was free a moment ago: bound on port 0 and closed
+/// again, for a server that must be told its port in a config file.
+pub fn free_port() -> u16 {
+    let listener = std::net::TcpListener::bind("127.0.0.1:0").expect("binding 127.0.0.1:0");
+    listener.local_addr().expect("a local address").port()
+}
+
+/// A site config with its `[web]` section listening on `listen` instead.
+pub fn with_web(site: &str, listen: &str) -> String {
+    let (before, after) = site
+        .split_once("[web]\n")
+        .expect("the site config has a [web] section");
+    let rest = after
+        .split_once('\n')
+        .filter(|(first, _)| first.starts_with("listen = "))
+        .map_or(after, |(_, rest)| rest);
+    format!("{before}[web]\nlisten = \"{listen}\"\n{rest}")
+}
+
+/// Starts `leaktally run` and waits until its heartbeat is in the database.
+pub fn start_daemon(scratch: &Scratch, name: &str, site: &Path, db: &Path) -> Server {
+    let mut daemon = Server::start(
+        "leaktally run",
+        Command::new(binary("leaktally"))
+            .arg("run")
+            .arg("--config")
+            .arg(site)
+            .arg("--db")
+            .arg(db),
+        scratch.path(&format!("{name}.stderr")),
+    );
+    let deadline = Instant::now() + STARTUP;
+    while Instant::now() < deadline {
+        let alive = leaktally::store::open_read_only(db)
+            .ok()
+            .and_then(|c| leaktally::store::heartbeat(&c).ok().flatten())
+            .is_some_and(|h| h.stopped_at_ms.is_none() && now_ms() - h.beat_at_ms < 3000);
+        if alive {
+            return daemon;
+        }
+        if let Ok(Some(status)) = daemon.child.try_wait() {
+            panic!(
+                "the daemon exited ({status}) before it started; its stderr:\n{}",
+                daemon.stderr()
+            );
+        }
+        std::thread::sleep(Duration::from_millis(100));
+    }
+    panic!("the daemon did not start; its stderr:\n{}", daemon.stderr());
+}
+
+/// An HTTP answer: status, headers (names in lower case) and body.
+#[derive(Debug)]
+pub struct HttpReply {
+    pub status: u16,
+    pub headers: Vec<(String, String)>,
+    pub body: String,
+}
+
+impl HttpReply {
+    pub fn header(&self, name: &str) -> Option<&str> {
+        self.headers
+            .iter()
+            .find(|(n, _)| n == name)
+            .map(|(_, v)| v.as_str())
+    }
+}
+
+/// One HTTP/1.1 request to a server on this machine, with
+/// `Connection: close`; enough of a client for the tests' few requests
+/// (known lengths and chunked bodies).
+pub fn http(address: &str, method: &str, path: &str) -> std::io::Result<HttpReply> {
+    use std::io::{Read, Write};
+    let mut stream = std::net::TcpStream::connect(address)?;
+    stream.set_read_timeout(Some(COMMAND_LIMIT))?;
+    write!(
+        stream,
+        "{method} {path} HTTP/1.1\r\nHost: {address}\r\nConnection: close\r\nContent-Length: 0\r\n\r\n"
+    )?;
+    let mut raw = Vec::new();
+    stream.read_to_end(&mut raw)?;
+    let text = String::from_utf8_lossy(&raw).into_owned();
+    let bad = |what: &str| std::io::Error::new(std::io::ErrorKind::InvalidData, what.to_owned());
+    let (head, body) = text
+        .split_once("\r\n\r\n")
+        .ok_or_else(|| bad("no header end"))?;
+    let mut lines = head.split("\r\n");
+    let status = lines
+        .next()
+        .and_then(|l| l.split_whitespace().nth(1))
+        .and_then(|s| s.parse().ok())
+        .ok_or_else(|| bad("no status line"))?;
+    let headers: Vec<(String, String)> = lines
+        .filter_map(|l| l.split_once(':'))
+        .map(|(n, v)| (n.trim().to_ascii_lowercase(), v.trim().to_owned()))
+        .collect();
+    let chunked = headers
+        .iter()
+        .any(|(n, v)| n == "transfer-encoding" && v.contains("chunked"));
+    let body = if chunked {
+        let mut out = String::new();
+        let mut rest = body;
+        while let Some((size, after)) = rest.split_once("\r\n") {
+            let size = usize::from_str_radix(size.trim(), 16).map_err(|_| bad("chunk size"))?;
+            if size == 0 {
+                break;
+            }
+            out.push_str(after.get(..size).ok_or_else(|| bad("short chunk"))?);
+            rest = after.get(size + 2..).unwrap_or("");
+        }
+        out
+    } else {
+        body.to_owned()
+    };
+    Ok(HttpReply {
+        status,
+        headers,
+        body,
+    })
 }

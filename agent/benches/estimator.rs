@@ -1,12 +1,15 @@
 //! Benchmarks of the estimator's hot paths: one sample through the running
-//! tally, and a draining forecast to flow stop. Run with
+//! tally and through the event estimator, a draining forecast to flow stop,
+//! and a replay of a day of 1 Hz samples. Run with
 //! `cargo bench -p leaktally --bench estimator`.
 
 use criterion::{Criterion, criterion_group, criterion_main};
+use leaktally::acquire::sample::{Reading, TankSample};
 use leaktally::model::{
     AbsolutePressure, Density, DischargeCoefficient, Geometry, Heads, Hole, Length, Pressure,
     ReleaseTally, TankState, TimeSpan, Vessel, forecast_liquid,
 };
+use leaktally::track::estimator::{Estimator, LeakParams};
 use std::hint::black_box;
 
 fn vessel(geometry: Geometry) -> Vessel {
@@ -73,5 +76,80 @@ fn forecast_to_stop(c: &mut Criterion) {
     }
 }
 
-criterion_group!(benches, tally_step, forecast_to_stop);
+/// A day of 1 Hz samples of tank FF-T12 (demo site) draining through a small
+/// hole, with a level that wanders by a few tenths of a millimetre.
+fn day_of_samples() -> (leaktally::config::Tank, Vec<TankSample>) {
+    let config = leaktally::config::load(
+        &std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("../config/demo.toml"),
+    )
+    .expect("the demo config");
+    let tank = config.tanks[0].clone();
+    let samples = (0..86_400i64)
+        .map(|s| {
+            let level = 4.2 - 3.0e-5 * s as f64 + ((s * 7919) % 13) as f64 * 5e-5;
+            TankSample {
+                tank: 0,
+                tank_id: tank.id.clone(),
+                at_ms: s * 1000,
+                level: Reading::good(level),
+                pressure: None,
+                transfer: Some(Reading::good(0.0)),
+                leak_flag: None,
+            }
+        })
+        .collect();
+    (tank, samples)
+}
+
+fn params() -> LeakParams {
+    LeakParams {
+        hole_diameter_m: None,
+        hole_height_m: 0.3,
+        cd: 0.61,
+        density_kg_m3: None,
+    }
+}
+
+fn estimator_step(c: &mut Criterion) {
+    let (tank, samples) = day_of_samples();
+    let mut estimator = Estimator::new(&tank, params(), 0, 1000).unwrap();
+    let mut i = 0usize;
+    c.bench_function("estimator_push_one_sample", |b| {
+        b.iter(|| {
+            // Walk through the day, then start a fresh event (rarely).
+            if i == samples.len() {
+                estimator = Estimator::new(&tank, params(), 0, 1000).unwrap();
+                i = 0;
+            }
+            let e = estimator.push(black_box(&samples[i]));
+            i += 1;
+            black_box(e)
+        })
+    });
+}
+
+fn replay_day(c: &mut Criterion) {
+    let (tank, samples) = day_of_samples();
+    let mut group = c.benchmark_group("replay");
+    group.sample_size(20);
+    group.bench_function("replay_24h_of_1hz_samples", |b| {
+        b.iter(|| {
+            let mut estimator = Estimator::new(&tank, params(), 0, 1000).unwrap();
+            let mut last = None;
+            for s in &samples {
+                last = estimator.push(s).or(last);
+            }
+            black_box(last)
+        })
+    });
+    group.finish();
+}
+
+criterion_group!(
+    benches,
+    tally_step,
+    estimator_step,
+    forecast_to_stop,
+    replay_day
+);
 criterion_main!(benches);

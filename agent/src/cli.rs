@@ -23,6 +23,49 @@ pub enum Command {
         #[arg(long, default_value_t = 60)]
         seconds: u64,
     },
+    /// Run a logged event (or a historian's readings) through the estimator
+    /// again, with changed parameters if asked; export CSV, SVG or JSON.
+    Replay {
+        /// The event's id (leave out with --readings).
+        #[arg(required_unless_present = "readings")]
+        event: Option<i64>,
+        /// A CSV of timestamped readings instead of a logged event (see the
+        /// README for the columns); needs --tank and --config.
+        #[arg(long, requires_all = ["tank", "config"], conflicts_with = "event")]
+        readings: Option<PathBuf>,
+        /// The tank the readings are from.
+        #[arg(long)]
+        tank: Option<String>,
+        /// The site config (default for an event: the one its daemon ran with).
+        #[arg(long, short)]
+        config: Option<PathBuf>,
+        #[command(flatten)]
+        hole: HoleArgs,
+        /// Forget the logged hole diameter and fit the hole instead.
+        #[arg(long, conflicts_with = "hole_diameter")]
+        unknown_diameter: bool,
+        /// Liquid density, kg/m³.
+        #[arg(long)]
+        density: Option<f64>,
+        /// Start the replay here instead of at the event's start (a time, a
+        /// UTC time, or how long ago, as for `leak open --since`).
+        #[arg(long)]
+        from: Option<String>,
+        /// End the replay here.
+        #[arg(long)]
+        to: Option<String>,
+        /// Write the time series to this CSV file.
+        #[arg(long, value_name = "FILE")]
+        csv: Option<PathBuf>,
+        /// Write a chart of rate and cumulative release to this SVG file.
+        #[arg(long, value_name = "FILE.svg")]
+        plot: Option<PathBuf>,
+        /// Print the summary as JSON.
+        #[arg(long)]
+        json: bool,
+        #[arg(long, default_value = DEFAULT_DB)]
+        db: PathBuf,
+    },
     /// Pre-planning figures for a tank and hole sizes that have not happened.
     Whatif {
         /// The tank's id (tag) in the config.
@@ -226,6 +269,56 @@ pub fn run(cli: Cli) -> anyhow::Result<()> {
             ))
         }
         Command::Leak(leak) => commands::leak::run(leak),
+        Command::Replay {
+            event,
+            readings,
+            tank,
+            config,
+            hole,
+            unknown_diameter,
+            density,
+            from,
+            to,
+            csv,
+            plot,
+            json,
+            db,
+        } => {
+            let now = crate::store::now_ms();
+            let when =
+                |t: Option<String>| t.map(|t| commands::leak::parse_since(&t, now)).transpose();
+            let overrides = commands::replay::Overrides {
+                hole_diameter_m: hole.diameter_m()?,
+                unknown_diameter,
+                hole_height_m: hole.height_m()?,
+                cd: hole.cd_checked()?,
+                density_kg_m3: density,
+                from_ms: when(from)?,
+                to_ms: when(to)?,
+            };
+            if let Some(p) = &plot
+                && p.extension().is_none_or(|e| e != "svg")
+            {
+                anyhow::bail!(
+                    "--plot {}: the chart is written as SVG; give a file name ending in .svg",
+                    p.display()
+                );
+            }
+            let source = match (event, readings) {
+                (_, Some(file)) => commands::replay::Source::Readings {
+                    file,
+                    tank: tank.unwrap_or_default(),
+                    config: config.unwrap_or_default(),
+                },
+                (Some(event), None) => commands::replay::Source::Event { db, event, config },
+                (None, None) => {
+                    anyhow::bail!("give an event id, or --readings FILE with --tank and --config")
+                }
+            };
+            let outputs = commands::replay::Outputs { csv, plot, json };
+            print!("{}", commands::replay::run(source, &overrides, &outputs)?);
+            Ok(())
+        }
         Command::Status { event, json, db } => {
             let doc = commands::status::document(&db, event)?;
             if json {

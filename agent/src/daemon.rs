@@ -1,15 +1,18 @@
-//! `leaktally run`: the daemon. Acquisition, tracking and the store, until
-//! SIGINT or SIGTERM.
+//! `leaktally run`: the daemon. Acquisition, tracking, the store and, when
+//! the config has a `[web]` section, the read-only web page, until SIGINT or
+//! SIGTERM.
 //!
 //! Shape (after mini-redis): `run` takes its stop signal as a future, one
-//! cancellation token fans out to the pollers, and shutdown goes in order:
-//! stop polling, feed the last batches to the tracker, commit, mark the
-//! daemon stopped, close the database.
+//! cancellation token fans out to the pollers and the web server, and
+//! shutdown goes in order: stop polling and serving, feed the last batches
+//! to the tracker, commit, mark the daemon stopped, close the database.
 
 use crate::acquire;
+use crate::acquire::stats::Stats;
 use crate::config::Config;
 use crate::store::{self, Retention, Store};
 use crate::track::tracker::Tracker;
+use crate::web;
 use std::path::Path;
 use std::sync::Arc;
 use std::time::Duration;
@@ -29,6 +32,12 @@ const TRIM_EVERY: Duration = Duration::from_secs(60);
 /// Runs the daemon until `stop` resolves.
 pub async fn run(config: Config, db: &Path, stop: impl Future<Output = ()>) -> anyhow::Result<()> {
     let config = Arc::new(config);
+    // Bound first: a port in use is a startup error, before the heartbeat
+    // says a daemon runs.
+    let listener = match &config.web {
+        Some(w) => Some(web::bind(w, &config.path).await?),
+        None => None,
+    };
     let store = Arc::new(Store::open(db)?);
     let started = store::now_ms();
     let pid = std::process::id();
@@ -51,7 +60,22 @@ pub async fn run(config: Config, db: &Path, stop: impl Future<Output = ()>) -> a
 
     let cancel = CancellationToken::new();
     let tasks = TaskTracker::new();
-    let mut samples = acquire::start(Arc::clone(&config), &cancel, &tasks);
+    // The pollers count into `stats`; the web server only reads it.
+    let stats = Arc::new(Stats::new(&config));
+    let mut samples =
+        acquire::start_with_stats(Arc::clone(&config), Arc::clone(&stats), &cancel, &tasks);
+    if let Some(listener) = listener {
+        // The server reads the database through read-only connections of
+        // its own, never through `store`, so it holds no handle that would
+        // keep the writer open at shutdown.
+        let shared = Arc::new(web::Shared::new(
+            db.to_owned(),
+            Arc::clone(&config),
+            stats,
+            started,
+        ));
+        tasks.spawn(web::serve(listener, shared, cancel.clone()));
+    }
     tasks.close();
 
     let mut actions = tokio::time::interval(ACTION_CHECK);

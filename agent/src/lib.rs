@@ -8,6 +8,7 @@
 //! * [`config`]: the site config file, validated into SI values.
 //! * [`acquire`]: Modbus polling, one task per device, read-only.
 //! * [`report`]: formatting figures for people, with units and the cautions.
+//! * [`web`]: the daemon's read-only responder page, JSON and metrics.
 //! * [`commands`]: what each subcommand does.
 //! * [`cli`]: the command line.
 //!
@@ -19,7 +20,10 @@ pub mod commands;
 pub mod config;
 pub mod daemon;
 pub mod model;
+pub mod plot;
+pub mod readings;
 pub mod report;
 pub mod shutdown;
 pub mod store;
 pub mod track;
+pub mod web;

@@ -5,6 +5,7 @@
 //! * [`link`]: the read-only Modbus client with timeouts and reconnects.
 //! * [`poller`]: one task per device, producing flagged samples.
 //! * [`sample`]: what acquisition hands on.
+//! * [`stats`]: poll counters and latest readings, for the metrics page.
 //!
 //! Architecture invariant: only this module knows register addresses and
 //! talks Modbus, and it only ever reads (see [`link`]).
@@ -14,9 +15,11 @@ pub mod link;
 pub mod plan;
 pub mod poller;
 pub mod sample;
+pub mod stats;
 
 use crate::config::Config;
 use sample::TankSample;
+use stats::Stats;
 use std::sync::Arc;
 use tokio::sync::mpsc;
 use tokio_util::sync::CancellationToken;
@@ -34,6 +37,19 @@ pub fn start(
     cancel: &CancellationToken,
     tasks: &TaskTracker,
 ) -> mpsc::Receiver<Vec<TankSample>> {
+    let stats = Arc::new(Stats::new(&config));
+    start_with_stats(config, stats, cancel, tasks)
+}
+
+/// Like [`start`], with the pollers counting into `stats` (made by
+/// [`Stats::new`] from the same config), which the daemon shares with its
+/// metrics page.
+pub fn start_with_stats(
+    config: Arc<Config>,
+    stats: Arc<Stats>,
+    cancel: &CancellationToken,
+    tasks: &TaskTracker,
+) -> mpsc::Receiver<Vec<TankSample>> {
     let (tx, rx) = mpsc::channel(CHANNEL_BATCHES);
     for device in 0..config.devices.len() {
         if config.tanks.iter().any(|t| t.device == device) {
@@ -41,6 +57,7 @@ pub fn start(
                 Arc::clone(&config),
                 device,
                 tx.clone(),
+                Arc::clone(&stats),
                 cancel.clone(),
             ));
         }

@@ -12,6 +12,7 @@
 use crate::acquire::link::{Link, LinkError, Words};
 use crate::acquire::plan::{Read, plan_reads};
 use crate::acquire::sample::{Quality, Reading, TankSample};
+use crate::acquire::stats::{Outcome, Stats};
 use crate::config::{Config, Role, Sensor};
 use std::collections::HashMap;
 use std::hash::{BuildHasher, Hasher};
@@ -42,10 +43,14 @@ enum Raw {
 /// consumer falls behind, this task waits, and its next ticks are delayed
 /// rather than queued (`MissedTickBehavior::Delay`), so memory stays flat
 /// and the timestamps stay true.
+///
+/// Every cycle is counted in `stats` (successes, failures, duration, the
+/// latest good readings) before its batch is sent.
 pub async fn poll_device(
     config: Arc<Config>,
     device: usize,
     out: mpsc::Sender<Vec<TankSample>>,
+    stats: Arc<Stats>,
     cancel: CancellationToken,
 ) {
     let mut poller = DevicePoller::new(config, device);
@@ -58,10 +63,16 @@ pub async fn poll_device(
         }
         // Reads are idempotent, so abandoning a cycle half-way on shutdown
         // loses nothing.
-        let batch = tokio::select! {
+        let began = Instant::now();
+        let (batch, outcome) = tokio::select! {
             _ = cancel.cancelled() => break,
-            batch = poller.cycle() => batch,
+            cycle = poller.cycle() => cycle,
         };
+        let at_ms = batch
+            .first()
+            .map_or_else(|| jiff::Timestamp::now().as_millisecond(), |s| s.at_ms);
+        stats.record_cycle(device, outcome, began.elapsed(), at_ms);
+        stats.record_samples(&batch);
         if out.send(batch).await.is_err() {
             break;
         }
@@ -112,14 +123,15 @@ impl DevicePoller {
         self.config.devices[self.device].poll_interval
     }
 
-    /// One poll cycle: the samples of every tank on this device.
-    async fn cycle(&mut self) -> Vec<TankSample> {
+    /// One poll cycle: the samples of every tank on this device, and how
+    /// the exchange went.
+    async fn cycle(&mut self) -> (Vec<TankSample>, Outcome) {
         let at_ms = jiff::Timestamp::now().as_millisecond();
-        let raw = self.read_all().await;
-        self.samples(&raw, at_ms)
+        let (raw, outcome) = self.read_all().await;
+        (self.samples(&raw, at_ms), outcome)
     }
 
-    async fn read_all(&mut self) -> HashMap<(usize, Role), Raw> {
+    async fn read_all(&mut self) -> (HashMap<(usize, Role), Raw>, Outcome) {
         let mut raw = HashMap::new();
         let lost = |raw: &mut HashMap<(usize, Role), Raw>, reads: &[Read]| {
             for read in reads {
@@ -131,7 +143,7 @@ impl DevicePoller {
         if !self.link.is_connected() {
             if Instant::now() < self.next_attempt {
                 lost(&mut raw, &self.plan);
-                return raw;
+                return (raw, Outcome::Failed { attempted: false });
             }
             match self.link.connect().await {
                 Ok(()) => {
@@ -143,10 +155,11 @@ impl DevicePoller {
                 Err(e) => {
                     self.link_failed(&e);
                     lost(&mut raw, &self.plan);
-                    return raw;
+                    return (raw, Outcome::Failed { attempted: true });
                 }
             }
         }
+        let mut outcome = Outcome::Answered;
         let plan = self.plan.clone();
         for (i, read) in plan.iter().enumerate() {
             match self.link.read(read).await {
@@ -162,21 +175,24 @@ impl DevicePoller {
                     for &key in &read.values {
                         raw.insert(key, Raw::Failed(Quality::DeviceError));
                     }
+                    outcome = Outcome::Failed { attempted: true };
                 }
                 Err(e) if !e.needs_reconnect() => {
                     debug!(device = %self.device_id(), start = read.start, "read refused: {e}");
                     for &key in &read.values {
                         raw.insert(key, Raw::Failed(Quality::DeviceError));
                     }
+                    outcome = Outcome::Failed { attempted: true };
                 }
                 Err(e) => {
                     self.link_failed(&e);
                     lost(&mut raw, &plan[i..]);
+                    outcome = Outcome::Failed { attempted: true };
                     break;
                 }
             }
         }
-        raw
+        (raw, outcome)
     }
 
     fn link_failed(&mut self, e: &LinkError) {

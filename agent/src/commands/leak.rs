@@ -85,7 +85,7 @@ pub fn run(command: LeakCommand) -> anyhow::Result<()> {
 }
 
 impl HoleArgs {
-    fn diameter_m(&self) -> anyhow::Result<Option<f64>> {
+    pub fn diameter_m(&self) -> anyhow::Result<Option<f64>> {
         match self.hole_diameter {
             Some(mm) if !(mm.is_finite() && mm > 0.0) => {
                 bail!("--hole-diameter {mm} must be a positive number of millimetres")
@@ -97,7 +97,7 @@ impl HoleArgs {
         }
     }
 
-    fn height_m(&self) -> anyhow::Result<Option<f64>> {
+    pub fn height_m(&self) -> anyhow::Result<Option<f64>> {
         match self.hole_height {
             Some(h) if !(h.is_finite() && h >= 0.0) => {
                 bail!(
@@ -108,7 +108,7 @@ impl HoleArgs {
         }
     }
 
-    fn cd_checked(&self) -> anyhow::Result<Option<f64>> {
+    pub fn cd_checked(&self) -> anyhow::Result<Option<f64>> {
         match self.cd {
             Some(cd) => Ok(Some(DischargeCoefficient::new(cd)?.get())),
             None => Ok(None),

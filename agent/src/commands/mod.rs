@@ -4,5 +4,6 @@ pub mod check;
 pub mod demo;
 pub mod leak;
 pub mod poll;
+pub mod replay;
 pub mod status;
 pub mod whatif;

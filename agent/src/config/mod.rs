@@ -8,8 +8,8 @@
 //! are reported at once so a config can be fixed in one pass.
 //!
 //! Left out: anything that needs the network (`leaktally check` probes the
-//! devices separately) and the defaults of the store and the web page, which
-//! belong to later parts.
+//! devices separately; the daemon binds the web page's address when it
+//! starts) and the defaults of the store.
 
 mod raw;
 pub mod units;
@@ -22,6 +22,7 @@ use crate::model::{
 use raw::{RawConfig, RawGeometry, RawHeads, RawPressureReference, RawSensor, RawTank};
 use std::collections::{BTreeMap, HashMap};
 use std::fmt;
+use std::net::SocketAddr;
 use std::ops::Range;
 use std::path::{Path, PathBuf};
 use std::time::Duration;
@@ -37,7 +38,30 @@ pub struct Config {
     pub ambient: AbsolutePressure,
     pub devices: Vec<Device>,
     pub tanks: Vec<Tank>,
+    /// The read-only web page, when the config has a `[web]` section.
+    pub web: Option<Web>,
 }
+
+/// Where the daemon serves the read-only web page, the JSON and the metrics.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct Web {
+    pub listen: SocketAddr,
+    /// Whether `listen` may be an address that other machines can reach.
+    /// Validation refuses such an address without it, so a page with no
+    /// login is never exposed by a typo.
+    pub allow_remote: bool,
+}
+
+impl Web {
+    /// Whether other machines can reach the page (anything but loopback;
+    /// 0.0.0.0 and [::] listen on every interface).
+    pub fn is_remote(&self) -> bool {
+        !self.listen.ip().is_loopback()
+    }
+}
+
+/// The web page's address when `[web]` gives none: loopback only.
+pub const DEFAULT_WEB_LISTEN: &str = "127.0.0.1:8470";
 
 /// A Modbus TCP server to poll.
 #[derive(Debug, Clone, PartialEq)]
@@ -366,13 +390,61 @@ impl Checker {
                 "the config defines no tanks; add a [[tank]] table (see config/reference.toml)",
             );
         }
+        let web = raw.web.map(|w| self.web(w));
         Config {
             path: path.to_owned(),
             site_name: raw.site.name,
             ambient,
             devices,
             tanks,
+            web,
         }
+    }
+
+    fn web(&mut self, w: raw::RawWeb) -> Web {
+        let default: SocketAddr = DEFAULT_WEB_LISTEN.parse().expect("a valid default");
+        let Some(listen) = w.listen else {
+            return Web {
+                listen: default,
+                allow_remote: w.allow_remote,
+            };
+        };
+        let text = listen.get_ref().trim();
+        let parsed = text
+            .parse::<SocketAddr>()
+            .ok()
+            // "localhost" is the one name worth accepting: it is what people
+            // type, and it cannot mean anything but loopback.
+            .or_else(|| {
+                let port = text.strip_prefix("localhost:")?.parse::<u16>().ok()?;
+                Some(SocketAddr::from(([127, 0, 0, 1], port)))
+            });
+        let Some(addr) = parsed else {
+            self.problem(
+                listen.span(),
+                format!(
+                    "web listen = \"{text}\" is not an IP address and port; write it like \"{DEFAULT_WEB_LISTEN}\" (this machine only) or \"0.0.0.0:8470\" (every interface, with allow_remote = true)"
+                ),
+            );
+            return Web {
+                listen: default,
+                allow_remote: w.allow_remote,
+            };
+        };
+        let web = Web {
+            listen: addr,
+            allow_remote: w.allow_remote,
+        };
+        if web.is_remote() && !web.allow_remote {
+            self.problem(
+                listen.span(),
+                format!(
+                    "web listen = \"{text}\" can be reached from other machines, and the page has no login; \
+                     add allow_remote = true to [web] if that is intended, or listen on \"{DEFAULT_WEB_LISTEN}\""
+                ),
+            );
+        }
+        web
     }
 
     fn device(&mut self, d: &raw::RawDevice) -> Option<Device> {
@@ -1013,6 +1085,62 @@ level = { register = "input", address = 0, type = "u16", raw = [4000, 20000], ra
             );
         }
         assert!(parse(BASE, Path::new("site.toml")).is_ok());
+    }
+
+    /// The `[web]` section: absent means no server, present means loopback
+    /// unless told otherwise, and a reachable address needs the opt-in.
+    #[test]
+    fn the_web_section_defaults_to_loopback_and_remote_needs_an_opt_in() {
+        let with = |web: &str| parse(&format!("{BASE}{web}"), Path::new("site.toml"));
+        assert_eq!(parse(BASE, Path::new("site.toml")).unwrap().web, None);
+        let default = with("[web]\n").unwrap().web.unwrap();
+        assert_eq!(default.listen.to_string(), DEFAULT_WEB_LISTEN);
+        assert!(!default.is_remote());
+        let local = with("[web]\nlisten = \"localhost:9000\"\n").unwrap().web;
+        assert_eq!(local.unwrap().listen.to_string(), "127.0.0.1:9000");
+        let v6 = with("[web]\nlisten = \"[::1]:0\"\n").unwrap().web.unwrap();
+        assert!(!v6.is_remote());
+        let remote = with("[web]\nlisten = \"0.0.0.0:8470\"\nallow_remote = true\n")
+            .unwrap()
+            .web
+            .unwrap();
+        assert!(remote.is_remote() && remote.allow_remote);
+        // The shipped configs enable the page on loopback only.
+        for file in ["config/demo.toml", "config/reference.toml"] {
+            let web = load(&repo_file(file)).unwrap().web;
+            assert!(web.is_some_and(|w| !w.is_remote()), "{file}");
+        }
+
+        // (section text, expected "line:column: text"); BASE is 11 lines.
+        let cases: &[(&str, &str)] = &[
+            (
+                "[web]\nlisten = \"0.0.0.0:8470\"\n",
+                "13:10: web listen = \"0.0.0.0:8470\" can be reached from other machines, and the page has no login; add allow_remote = true to [web]",
+            ),
+            (
+                "[web]\nlisten = \"192.0.2.7:8470\"\nallow_remote = false\n",
+                "13:10: web listen = \"192.0.2.7:8470\" can be reached from other machines",
+            ),
+            (
+                "[web]\nlisten = \"responders:8470\"\n",
+                "13:10: web listen = \"responders:8470\" is not an IP address and port; write it like \"127.0.0.1:8470\"",
+            ),
+            (
+                "[web]\nlisten = \"127.0.0.1\"\n",
+                "13:10: web listen = \"127.0.0.1\" is not an IP address and port",
+            ),
+            (
+                "[web]\nlisten = \"127.0.0.1:8470\"\nport = 8470\n",
+                "14:1: unknown field `port`, expected `listen` or `allow_remote`; check the spelling against config/reference.toml",
+            ),
+        ];
+        for (web, expected) in cases {
+            let err = with(web).expect_err(expected).to_string();
+            assert!(
+                err.starts_with(&format!("site.toml:{expected}")),
+                "got:\n{err}\nexpected:\n{expected}"
+            );
+        }
     }
 
     #[test]

@@ -17,6 +17,18 @@ pub struct RawConfig {
     pub devices: Vec<RawDevice>,
     #[serde(default, rename = "tank")]
     pub tanks: Vec<RawTank>,
+    /// The read-only web page; no server unless the section is there.
+    pub web: Option<RawWeb>,
+}
+
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct RawWeb {
+    /// IP address and port to listen on; loopback by default.
+    pub listen: Option<Spanned<String>>,
+    /// The explicit opt-in for an address other machines can reach.
+    #[serde(default)]
+    pub allow_remote: bool,
 }
 
 #[derive(Debug, Deserialize)]

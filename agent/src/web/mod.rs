@@ -1,0 +1,446 @@
+//! The responder view: a read-only HTTP server inside the daemon.
+//!
+//! Routes (GET and HEAD only; every other method gets 405 with an `Allow`
+//! header, on every path, so nothing can be changed over HTTP):
+//!
+//! * `/`: the page for people, every open event ([`page`]).
+//! * `/api/status`: the `leaktally status --json` document, open events.
+//! * `/api/events/{id}`: the same document for one event, open or closed.
+//! * `/api/events/{id}/series`: the cumulative release for the chart,
+//!   thinned to at most [`chart::MAX_POINTS`] points ([`chart`]).
+//! * `/metrics`: Prometheus text format ([`metrics`]).
+//! * `/assets/...`: the page's style sheet, refresh script and icon.
+//!
+//! Threads: handlers never touch the daemon's writer connection. Each
+//! request opens a short-lived read-only connection on the blocking pool
+//! (`spawn_blocking`), which WAL lets run beside the writer; a semaphore
+//! bounds how many run at once.
+//!
+//! Left out: authentication and TLS. The page only reads, and it listens on
+//! loopback unless the config opts in to a reachable address
+//! (`allow_remote`); put a reverse proxy in front to publish it further.
+
+pub mod chart;
+pub mod metrics;
+pub mod page;
+
+use crate::acquire::stats::Stats;
+use crate::commands::status;
+use crate::config::{Config, Web};
+use crate::store::{self, StoreError};
+use axum::Router;
+use axum::body::Body;
+use axum::extract::{Path as UrlPath, Request, State};
+use axum::http::{HeaderValue, Method, StatusCode, header};
+use axum::middleware::{self, Next};
+use axum::response::{IntoResponse, Response};
+use axum::routing::get;
+use serde::Serialize;
+use std::path::PathBuf;
+use std::sync::Arc;
+use std::time::Duration;
+use tokio::net::TcpListener;
+use tokio::sync::Semaphore;
+use tokio_util::sync::CancellationToken;
+use tracing::{info, warn};
+
+/// Database reads that may run at once. Each holds a blocking-pool thread
+/// and a SQLite connection for a few milliseconds; four keep a page, a
+/// scrape and a couple of API clients moving on a 2-core box, and a flood
+/// of requests queues here instead of filling the blocking pool.
+const CONCURRENT_READS: usize = 4;
+/// How long a request waits for a read slot before it gets 503.
+const READ_QUEUE: Duration = Duration::from_secs(5);
+/// How long open connections get to finish once the daemon stops.
+const SHUTDOWN_GRACE: Duration = Duration::from_secs(2);
+
+/// The methods the server answers.
+const ALLOW: &str = "GET, HEAD";
+
+/// Content type of the Prometheus text exposition format.
+pub const METRICS_CONTENT_TYPE: &str = "text/plain; version=0.0.4; charset=utf-8";
+
+/// The page's content security policy: no inline script or style, nothing
+/// from elsewhere, no frames, no forms. Text is escaped anyway; this is the
+/// second line.
+const PAGE_POLICY: &str = "default-src 'none'; script-src 'self'; style-src 'self'; img-src 'self'; \
+connect-src 'self'; base-uri 'none'; form-action 'none'; frame-ancestors 'none'";
+
+const STYLE: &str = include_str!("assets/leaktally.css");
+const SCRIPT: &str = include_str!("assets/refresh.js");
+const ICON: &str = include_str!("assets/icon.svg");
+
+/// What every handler shares.
+pub struct Shared {
+    pub db: PathBuf,
+    pub config: Arc<Config>,
+    pub stats: Arc<Stats>,
+    /// When the daemon started, UTC ms (for the metrics).
+    pub started_ms: i64,
+    /// Bounds the database reads in flight; see [`CONCURRENT_READS`].
+    readers: Semaphore,
+}
+
+impl Shared {
+    pub fn new(db: PathBuf, config: Arc<Config>, stats: Arc<Stats>, started_ms: i64) -> Self {
+        Self {
+            db,
+            config,
+            stats,
+            started_ms,
+            readers: Semaphore::new(CONCURRENT_READS),
+        }
+    }
+}
+
+/// Binds the configured address; the daemon calls this before anything
+/// else, so a port in use stops it at startup with a clear error.
+pub async fn bind(web: &Web, config_path: &std::path::Path) -> anyhow::Result<TcpListener> {
+    let listener = TcpListener::bind(web.listen).await.map_err(|e| {
+        anyhow::anyhow!(
+            "cannot serve the web page on {}: {e}; choose another [web] listen address in {} \
+             (or stop whatever uses that port), or remove the [web] section",
+            web.listen,
+            config_path.display()
+        )
+    })?;
+    let bound = listener.local_addr()?;
+    if web.is_remote() {
+        warn!(
+            "the web page listens on {bound}, which other machines can reach (allow_remote = true); \
+             it is read-only but has no login, so keep it on a trusted network"
+        );
+    }
+    info!("web page on http://{bound}/ (JSON at /api/status, metrics at /metrics)");
+    Ok(listener)
+}
+
+/// Serves until `cancel` fires, then lets open connections finish for a
+/// moment and returns.
+pub async fn serve(listener: TcpListener, shared: Arc<Shared>, cancel: CancellationToken) {
+    let stop = cancel.clone();
+    let server = axum::serve(listener, router(shared))
+        .with_graceful_shutdown(async move { stop.cancelled().await });
+    // Graceful shutdown waits for every connection; a browser that keeps
+    // one open must not hold up the daemon's own shutdown for long.
+    let grace = async {
+        cancel.cancelled().await;
+        tokio::time::sleep(SHUTDOWN_GRACE).await;
+    };
+    tokio::select! {
+        result = server.into_future() => {
+            if let Err(e) = result {
+                warn!("the web server stopped: {e}");
+            }
+        }
+        () = grace => warn!("web connections still open after {SHUTDOWN_GRACE:?}; closing them"),
+    }
+}
+
+/// The routes, with the read-only guard around all of them.
+pub fn router(shared: Arc<Shared>) -> Router {
+    Router::new()
+        .route("/", get(index))
+        .route("/api/status", get(api_status))
+        .route("/api/events/{id}", get(api_event))
+        .route("/api/events/{id}/series", get(api_series))
+        .route("/metrics", get(metrics_text))
+        .route("/assets/leaktally.css", get(style))
+        .route("/assets/refresh.js", get(script))
+        .route("/assets/icon.svg", get(icon))
+        .fallback(not_found)
+        .with_state(shared)
+        .layer(middleware::from_fn(read_only))
+}
+
+/// Refuses every method but GET and HEAD, before routing, and adds the
+/// headers every answer carries.
+async fn read_only(request: Request, next: Next) -> Response {
+    let mut response = if request.method() == Method::GET || request.method() == Method::HEAD {
+        next.run(request).await
+    } else {
+        let mut r = text(
+            StatusCode::METHOD_NOT_ALLOWED,
+            format!(
+                "{} is not allowed: this server is read-only and answers {ALLOW} only\n",
+                request.method()
+            ),
+        );
+        r.headers_mut()
+            .insert(header::ALLOW, HeaderValue::from_static(ALLOW));
+        r
+    };
+    let headers = response.headers_mut();
+    headers.insert(
+        header::X_CONTENT_TYPE_OPTIONS,
+        HeaderValue::from_static("nosniff"),
+    );
+    headers.insert(
+        header::REFERRER_POLICY,
+        HeaderValue::from_static("no-referrer"),
+    );
+    headers
+        .entry(header::CACHE_CONTROL)
+        .or_insert(HeaderValue::from_static("no-store"));
+    response
+}
+
+/// Why a request could not be answered.
+#[derive(Debug)]
+enum Failure {
+    NotFound(String),
+    Unavailable(String),
+}
+
+impl From<StoreError> for Failure {
+    fn from(e: StoreError) -> Self {
+        Failure::Unavailable(e.to_string())
+    }
+}
+
+impl From<anyhow::Error> for Failure {
+    fn from(e: anyhow::Error) -> Self {
+        Failure::Unavailable(format!("{e:#}"))
+    }
+}
+
+impl Failure {
+    fn status(&self) -> StatusCode {
+        match self {
+            Failure::NotFound(_) => StatusCode::NOT_FOUND,
+            Failure::Unavailable(_) => StatusCode::SERVICE_UNAVAILABLE,
+        }
+    }
+
+    fn message(&self) -> &str {
+        match self {
+            Failure::NotFound(m) | Failure::Unavailable(m) => m,
+        }
+    }
+
+    fn log(&self) {
+        if let Failure::Unavailable(m) = self {
+            warn!("web: {m}");
+        }
+    }
+
+    fn as_text(&self) -> Response {
+        self.log();
+        text(self.status(), format!("{}\n", self.message()))
+    }
+
+    fn as_json(&self) -> Response {
+        self.log();
+        #[derive(Serialize)]
+        struct Error<'a> {
+            error: &'a str,
+        }
+        json(
+            self.status(),
+            &Error {
+                error: self.message(),
+            },
+        )
+    }
+}
+
+/// Runs a blocking database read on the blocking pool, within the read
+/// bound.
+async fn read<T, F>(shared: &Arc<Shared>, f: F) -> Result<T, Failure>
+where
+    T: Send + 'static,
+    F: FnOnce(&Shared) -> Result<T, Failure> + Send + 'static,
+{
+    let _permit = tokio::time::timeout(READ_QUEUE, shared.readers.acquire())
+        .await
+        .map_err(|_| Failure::Unavailable("the server is busy; try again in a moment".into()))?
+        .map_err(|_| Failure::Unavailable("the server is stopping".into()))?;
+    let shared = Arc::clone(shared);
+    tokio::task::spawn_blocking(move || f(&shared))
+        .await
+        .map_err(|e| Failure::Unavailable(format!("a database read failed: {e}")))?
+}
+
+fn text(status: StatusCode, body: String) -> Response {
+    (
+        status,
+        [(header::CONTENT_TYPE, "text/plain; charset=utf-8")],
+        body,
+    )
+        .into_response()
+}
+
+fn json<T: Serialize>(status: StatusCode, value: &T) -> Response {
+    match serde_json::to_string_pretty(value) {
+        Ok(mut body) => {
+            body.push('\n');
+            (status, [(header::CONTENT_TYPE, "application/json")], body).into_response()
+        }
+        Err(e) => text(
+            StatusCode::INTERNAL_SERVER_ERROR,
+            format!("cannot write JSON: {e}\n"),
+        ),
+    }
+}
+
+/// An event id from the path; anything but a number names no event.
+fn event_id(id: &str) -> Result<i64, Failure> {
+    id.parse()
+        .map_err(|_| Failure::NotFound(format!("there is no event {id:?}; ids are numbers")))
+}
+
+/// The event row, or 404.
+fn find_event(conn: &rusqlite::Connection, id: i64) -> Result<store::EventRow, Failure> {
+    store::event(conn, id)?.ok_or_else(|| {
+        Failure::NotFound(format!(
+            "there is no event {id}; /api/status lists the open events"
+        ))
+    })
+}
+
+async fn index(State(shared): State<Arc<Shared>>) -> Response {
+    match read(&shared, page_data).await {
+        Ok(data) => (
+            StatusCode::OK,
+            [
+                (header::CONTENT_TYPE, "text/html; charset=utf-8"),
+                (header::CONTENT_SECURITY_POLICY, PAGE_POLICY),
+            ],
+            page::render(&data),
+        )
+            .into_response(),
+        Err(f) => f.as_text(),
+    }
+}
+
+/// Everything the page shows, read in one go.
+fn page_data(shared: &Shared) -> Result<page::PageData, Failure> {
+    let doc = status::document(&shared.db, None)?;
+    let conn = store::open_read_only(&shared.db)?;
+    let mut events = Vec::with_capacity(doc.events.len());
+    for e in &doc.events {
+        let series = chart::thin(
+            chart::points(&store::estimates_of(&conn, e.event, e.revision)?),
+            chart::MAX_POINTS,
+        );
+        let notes = page::notes(&store::actions_of(&conn, e.event)?);
+        let tank = shared.config.tanks.iter().find(|t| t.id == e.tank);
+        events.push(page::EventExtras {
+            series,
+            notes,
+            description: tank.map(|t| t.description.clone()).unwrap_or_default(),
+            substance: tank.map(|t| t.substance.clone()).unwrap_or_default(),
+        });
+    }
+    let stale_after_ms = shared
+        .config
+        .devices
+        .iter()
+        .map(|d| d.poll_interval.as_millis() as i64)
+        .max()
+        .unwrap_or(1000)
+        .saturating_mul(5)
+        .max(10_000);
+    Ok(page::PageData {
+        site: shared.config.site_name.clone(),
+        doc,
+        events,
+        stale_after_ms,
+    })
+}
+
+async fn api_status(State(shared): State<Arc<Shared>>) -> Response {
+    match read(&shared, |s| Ok(status::document(&s.db, None)?)).await {
+        Ok(doc) => json(StatusCode::OK, &doc),
+        Err(f) => f.as_json(),
+    }
+}
+
+async fn api_event(State(shared): State<Arc<Shared>>, UrlPath(id): UrlPath<String>) -> Response {
+    let found = read(&shared, move |s| {
+        let id = event_id(&id)?;
+        find_event(&store::open_read_only(&s.db)?, id)?;
+        Ok(status::document(&s.db, Some(id))?)
+    })
+    .await;
+    match found {
+        Ok(doc) => json(StatusCode::OK, &doc),
+        Err(f) => f.as_json(),
+    }
+}
+
+async fn api_series(State(shared): State<Arc<Shared>>, UrlPath(id): UrlPath<String>) -> Response {
+    let found = read(&shared, move |s| {
+        let id = event_id(&id)?;
+        let conn = store::open_read_only(&s.db)?;
+        let row = find_event(&conn, id)?;
+        let all = chart::points(&store::estimates_of(&conn, id, row.revision)?);
+        Ok(chart::Series::new(&row, all))
+    })
+    .await;
+    match found {
+        Ok(series) => json(StatusCode::OK, &series),
+        Err(f) => f.as_json(),
+    }
+}
+
+async fn metrics_text(State(shared): State<Arc<Shared>>) -> Response {
+    let doc = read(&shared, |s| Ok(status::document(&s.db, None)?)).await;
+    match doc {
+        Ok(doc) => {
+            let body = metrics::render(&metrics::Inputs {
+                config: &shared.config,
+                devices: &shared.stats.devices(),
+                tanks: &shared.stats.tanks(),
+                doc: &doc,
+                started_ms: shared.started_ms,
+            });
+            (
+                StatusCode::OK,
+                [(header::CONTENT_TYPE, METRICS_CONTENT_TYPE)],
+                body,
+            )
+                .into_response()
+        }
+        Err(f) => f.as_text(),
+    }
+}
+
+async fn style() -> Response {
+    asset("text/css; charset=utf-8", STYLE)
+}
+
+async fn script() -> Response {
+    asset("text/javascript; charset=utf-8", SCRIPT)
+}
+
+async fn icon() -> Response {
+    asset("image/svg+xml", ICON)
+}
+
+/// A file built into the binary: it changes only with the binary, so a
+/// browser may keep it for a few minutes.
+fn asset(content_type: &'static str, body: &'static str) -> Response {
+    (
+        StatusCode::OK,
+        [
+            (header::CONTENT_TYPE, content_type),
+            (header::CACHE_CONTROL, "max-age=300"),
+        ],
+        Body::from(body),
+    )
+        .into_response()
+}
+
+async fn not_found(request: Request) -> Response {
+    text(
+        StatusCode::NOT_FOUND,
+        format!(
+            "nothing at {}; try / (the page), /api/status, /api/events/ID, /api/events/ID/series or /metrics\n",
+            request.uri().path()
+        ),
+    )
+}
+
+#[cfg(test)]
+mod tests;

@@ -1,0 +1,272 @@
+//! Router tests: the routes, methods, content types and escaping, against a
+//! real SQLite file with an event whose tank id and notes are hostile.
+
+use super::*;
+use crate::acquire::sample::{Reading, TankSample};
+use crate::track::estimator::{Estimator, LeakParams};
+use axum::http::Request as HttpRequest;
+use std::sync::atomic::{AtomicU32, Ordering};
+use tower::ServiceExt;
+
+/// A tank id and description that would break the page if not escaped.
+const HOSTILE_ID: &str = r#"T<1>&"x""#;
+const HOSTILE_NOTE: &str = "<script>alert('note')</script>";
+
+const SITE: &str = r#"[site]
+name = "Test <site> & co"
+[[device]]
+id = "d\"1"
+address = "127.0.0.1:1502"
+[[tank]]
+id = "T<1>&\"x\""
+description = "<b>bold</b> tank"
+device = "d\"1"
+geometry = { shape = "vertical_cylinder", diameter_m = 3.0, height_m = 5.0 }
+substance = { name = "diesel", density_kg_m3 = 840.0, reportable_kg = [50.0, 5000.0] }
+level = { register = "input", address = 0, type = "u16", raw = [4000, 20000], range = [0.0, 5.0], unit = "m" }
+"#;
+
+/// A database folder removed when dropped.
+struct Scratch(PathBuf);
+
+impl Drop for Scratch {
+    fn drop(&mut self) {
+        let _ = std::fs::remove_dir_all(&self.0);
+    }
+}
+
+/// A site, a database with one open event of 120 estimates, and the router.
+fn fixture() -> (Scratch, Router, i64) {
+    static NEXT: AtomicU32 = AtomicU32::new(0);
+    let dir = std::env::temp_dir().join(format!(
+        "leaktally-web-{}-{}",
+        std::process::id(),
+        NEXT.fetch_add(1, Ordering::Relaxed)
+    ));
+    std::fs::create_dir_all(&dir).unwrap();
+    let scratch = Scratch(dir.clone());
+    let config = Arc::new(crate::config::parse(SITE, std::path::Path::new("site.toml")).unwrap());
+    let db = dir.join("leaktally.db");
+    let conn = store::open_read_write(&db).unwrap();
+    store::register_tanks(&conn, [HOSTILE_ID]).unwrap();
+    let now = store::now_ms();
+    let start = now - 130_000;
+    let params = LeakParams {
+        hole_diameter_m: Some(0.04),
+        hole_height_m: 0.3,
+        cd: 0.61,
+        density_kg_m3: None,
+    };
+    let id = store::create_event(&conn, HOSTILE_ID, start, start, "operator", &params).unwrap();
+    let mut estimator = Estimator::new(&config.tanks[0], params, start, 1000).unwrap();
+    let estimates: Vec<_> = (0..120)
+        .filter_map(|i| {
+            estimator.push(&TankSample {
+                tank: 0,
+                tank_id: HOSTILE_ID.into(),
+                at_ms: start + 1000 * i,
+                level: Reading::good(4.2 - 0.0008 * i as f64),
+                pressure: None,
+                transfer: None,
+                leak_flag: None,
+            })
+        })
+        .collect();
+    assert_eq!(estimates.len(), 120);
+    store::insert_estimates(&conn, id, 1, &estimates).unwrap();
+    let who = ("op".to_owned(), "cr1".to_owned());
+    let note = store::request_action(
+        &conn,
+        "note",
+        Some(id),
+        &serde_json::json!({"kind": "note", "event": id, "text": HOSTILE_NOTE}),
+        &who,
+    )
+    .unwrap();
+    store::finish_action(&conn, note, Some(id), true, "noted").unwrap();
+    store::beat(&conn, 1, now, "site.toml").unwrap();
+    drop(conn);
+    let stats = Arc::new(Stats::new(&config));
+    let shared = Arc::new(Shared::new(db, config, stats, now));
+    (scratch, router(shared), id)
+}
+
+async fn call(router: &Router, method: &str, uri: &str) -> (StatusCode, HeaderMap, String) {
+    let response = router
+        .clone()
+        .oneshot(
+            HttpRequest::builder()
+                .method(method)
+                .uri(uri)
+                .body(Body::empty())
+                .unwrap(),
+        )
+        .await
+        .unwrap();
+    let status = response.status();
+    let headers = response.headers().clone();
+    let body = axum::body::to_bytes(response.into_body(), 1 << 24)
+        .await
+        .unwrap();
+    (status, headers, String::from_utf8(body.to_vec()).unwrap())
+}
+
+use axum::http::HeaderMap;
+
+fn content_type(headers: &HeaderMap) -> &str {
+    headers
+        .get(header::CONTENT_TYPE)
+        .and_then(|v| v.to_str().ok())
+        .unwrap_or("")
+}
+
+#[tokio::test]
+async fn every_method_but_get_and_head_is_refused_on_every_path() {
+    let (_scratch, router, id) = fixture();
+    let series = format!("/api/events/{id}/series");
+    for method in ["POST", "PUT", "DELETE", "PATCH", "OPTIONS", "TRACE"] {
+        for path in [
+            "/",
+            "/api/status",
+            series.as_str(),
+            "/metrics",
+            "/no/such/page",
+        ] {
+            let (status, headers, body) = call(&router, method, path).await;
+            assert_eq!(status, StatusCode::METHOD_NOT_ALLOWED, "{method} {path}");
+            assert_eq!(headers.get(header::ALLOW).unwrap(), "GET, HEAD");
+            assert!(body.contains("read-only"), "{body}");
+        }
+    }
+    let (status, _, body) = call(&router, "HEAD", "/").await;
+    assert_eq!(status, StatusCode::OK);
+    assert!(body.is_empty(), "HEAD has no body");
+}
+
+#[tokio::test]
+async fn unknown_paths_and_events_are_404() {
+    let (_scratch, router, _) = fixture();
+    for path in ["/nope", "/api", "/api/events", "/index.html"] {
+        let (status, headers, _) = call(&router, "GET", path).await;
+        assert_eq!(status, StatusCode::NOT_FOUND, "{path}");
+        assert!(content_type(&headers).starts_with("text/plain"));
+    }
+    for path in [
+        "/api/events/999",
+        "/api/events/abc",
+        "/api/events/999/series",
+    ] {
+        let (status, headers, body) = call(&router, "GET", path).await;
+        assert_eq!(status, StatusCode::NOT_FOUND, "{path}");
+        assert_eq!(content_type(&headers), "application/json");
+        let error: serde_json::Value = serde_json::from_str(&body).unwrap();
+        assert!(
+            error["error"].as_str().unwrap().contains("no event"),
+            "{body}"
+        );
+    }
+}
+
+#[tokio::test]
+async fn the_page_escapes_every_text_from_the_site_and_the_operators() {
+    let (_scratch, router, id) = fixture();
+    let (status, headers, page) = call(&router, "GET", "/").await;
+    assert_eq!(status, StatusCode::OK);
+    assert_eq!(content_type(&headers), "text/html; charset=utf-8");
+    let policy = headers.get(header::CONTENT_SECURITY_POLICY).unwrap();
+    assert!(policy.to_str().unwrap().contains("script-src 'self'"));
+    assert_eq!(headers.get(header::CACHE_CONTROL).unwrap(), "no-store");
+    assert_eq!(
+        headers.get(header::X_CONTENT_TYPE_OPTIONS).unwrap(),
+        "nosniff"
+    );
+
+    for raw in [HOSTILE_ID, HOSTILE_NOTE, "<b>bold</b>", "<site>"] {
+        assert!(!page.contains(raw), "{raw} unescaped");
+    }
+    assert!(page.contains("T&lt;1&gt;&amp;&quot;x&quot;"));
+    assert!(page.contains("&lt;script&gt;alert(&#39;note&#39;)&lt;/script&gt;"));
+    assert!(page.contains("&lt;b&gt;bold&lt;/b&gt; tank"));
+    // The only script is the page's own file.
+    assert_eq!(page.matches("<script").count(), 1);
+    assert!(page.contains(r#"<script src="/assets/refresh.js" defer></script>"#));
+
+    // The figures are there, marked for scripts, with the caution.
+    for field in [
+        "released-best-kg",
+        "released-low-kg",
+        "released-high-kg",
+        "released-best-m3",
+        "released-best-l",
+        "rate-best",
+        "forecast-stop-at",
+        "forecast-total-kg",
+    ] {
+        assert!(
+            page.contains(&format!(r#"data-field="{field}" data-event="{id}""#)),
+            "{field}"
+        );
+    }
+    assert!(page.contains("estimates for emergency planning, not measurements"));
+    assert!(
+        page.contains(r#"class="crossed" data-field="reportable""#),
+        "50 kg passed"
+    );
+    assert!(page.contains("<svg class=\"chart\""));
+}
+
+#[tokio::test]
+async fn the_json_is_the_status_document_and_the_series_is_thin() {
+    let (_scratch, router, id) = fixture();
+    let (status, headers, body) = call(&router, "GET", "/api/status").await;
+    assert_eq!(status, StatusCode::OK);
+    assert_eq!(content_type(&headers), "application/json");
+    let doc: serde_json::Value = serde_json::from_str(&body).unwrap();
+    assert_eq!(doc["format"], 1);
+    assert_eq!(doc["events"][0]["tank"], HOSTILE_ID);
+    assert_eq!(doc["events"][0]["event"], id);
+
+    let (status, _, body) = call(&router, "GET", &format!("/api/events/{id}")).await;
+    assert_eq!(status, StatusCode::OK);
+    let one: serde_json::Value = serde_json::from_str(&body).unwrap();
+    assert_eq!(one["events"].as_array().unwrap().len(), 1);
+    assert_eq!(
+        one["events"][0]["estimate"], doc["events"][0]["estimate"],
+        "the same document either way"
+    );
+
+    let (status, _, body) = call(&router, "GET", &format!("/api/events/{id}/series")).await;
+    assert_eq!(status, StatusCode::OK);
+    let series: serde_json::Value = serde_json::from_str(&body).unwrap();
+    let points = series["points"].as_array().unwrap();
+    assert_eq!(series["estimates"], 120);
+    assert_eq!(points.len(), 120, "under the limit: every point");
+    let last = &points[points.len() - 1];
+    assert_eq!(
+        last["best_kg"],
+        doc["events"][0]["estimate"]["released_best_kg"]
+    );
+    assert!(last["low_kg"].as_f64() <= last["best_kg"].as_f64());
+    assert!(last["high_kg"].as_f64() >= last["best_kg"].as_f64());
+}
+
+#[tokio::test]
+async fn metrics_and_assets_have_their_content_types() {
+    let (_scratch, router, id) = fixture();
+    let (status, headers, body) = call(&router, "GET", "/metrics").await;
+    assert_eq!(status, StatusCode::OK);
+    assert!(content_type(&headers).starts_with("text/plain; version=0.0.4"));
+    assert!(body.contains("\nleaktally_up 1\n"), "{body}");
+    assert!(body.contains("leaktally_poll_successes_total{device=\"d\\\"1\"} 0\n"));
+    assert!(body.contains(&format!(
+        "leaktally_event_released_kilograms{{event=\"{id}\",tank=\"T<1>&\\\"x\\\"\",estimate=\"best\"}}"
+    )));
+    assert!(body.contains("leaktally_open_events 1\n"));
+
+    let (_, headers, css) = call(&router, "GET", "/assets/leaktally.css").await;
+    assert_eq!(content_type(&headers), "text/css; charset=utf-8");
+    assert!(css.contains(".big"));
+    let (_, headers, js) = call(&router, "GET", "/assets/refresh.js").await;
+    assert_eq!(content_type(&headers), "text/javascript; charset=utf-8");
+    assert!(js.contains("fetch("));
+}
