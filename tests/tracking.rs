@@ -64,7 +64,7 @@ cd = 0.61
 /// The simulator and a database for a daemon, in a scratch folder.
 pub(crate) struct Plant {
     pub(crate) scratch: Scratch,
-    _sim: Server,
+    pub(crate) sim: Server,
     pub(crate) site: PathBuf,
     pub(crate) db: PathBuf,
     pub(crate) started_ms: i64,
@@ -79,7 +79,7 @@ impl Plant {
         let db = scratch.path("leaktally.db");
         Self {
             scratch,
-            _sim: sim,
+            sim,
             site,
             db,
             started_ms,
@@ -143,6 +143,25 @@ impl Plant {
     pub(crate) fn truth(&self) -> Truth {
         std::thread::sleep(Duration::from_millis(1500));
         Truth::load(&self.scratch.path("truth.csv"))
+    }
+
+    /// Stops the simulator with SIGTERM and returns its request counts by
+    /// function code (the line it prints on a graceful stop).
+    pub(crate) fn stop_sim(&mut self) -> std::collections::BTreeMap<String, u64> {
+        let pid = self.sim.child.id().to_string();
+        let status = Command::new("kill")
+            .args(["-TERM", &pid])
+            .status()
+            .expect("kill -TERM");
+        assert!(status.success());
+        let exit = self.sim.child.wait().expect("the simulator exits");
+        assert!(exit.success(), "the simulator's exit on SIGTERM: {exit}");
+        let stderr = self.sim.stderr();
+        let line = stderr
+            .lines()
+            .find_map(|l| l.strip_prefix("requests by function code: "))
+            .unwrap_or_else(|| panic!("no request counts in the simulator's stderr:\n{stderr}"));
+        serde_json::from_str(line).unwrap_or_else(|e| panic!("counts {line:?}: {e}"))
     }
 
     /// `--since` for the moment the simulator opened the tank's leak, so
@@ -314,7 +333,7 @@ fn live_totals_match_the_truth_for_known_fitted_and_back_dated_holes() {
 
 #[test]
 fn a_killed_daemon_resumes_with_a_continuous_total_and_no_sample_twice() {
-    let plant = Plant::start("kill");
+    let mut plant = Plant::start("kill");
     let refused = plant.cli(&["leak", "open", "--tank", "FF-T12"]);
     assert!(!refused.status.success());
     assert!(
@@ -385,6 +404,25 @@ fn a_killed_daemon_resumes_with_a_continuous_total_and_no_sample_twice() {
     let (count, duplicates) = leaktally::store::sample_count(&conn, "FF-T12").unwrap();
     assert!(count > 30, "{count} samples");
     assert_eq!(duplicates, 0, "no sample stored twice");
+
+    // The database is readable by its owner and group only.
+    use std::os::unix::fs::PermissionsExt;
+    let mode = std::fs::metadata(&plant.db).unwrap().permissions().mode();
+    assert_eq!(mode & 0o007, 0, "the database is open to others: {mode:o}");
+
+    // After two daemons, an operator's actions and a status poll, the
+    // simulator (which counts requests by function code) saw no write.
+    let counts = plant.stop_sim();
+    let writes: Vec<&String> = counts
+        .keys()
+        .filter(|code| !["1", "2", "3", "4"].contains(&code.as_str()))
+        .collect();
+    println!("requests by function code over the run: {counts:?}");
+    assert!(counts.values().sum::<u64>() > 100, "{counts:?}");
+    assert!(
+        writes.is_empty(),
+        "the agent sent function codes {writes:?}"
+    );
 }
 
 #[test]

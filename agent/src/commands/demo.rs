@@ -205,9 +205,13 @@ async fn narrate(
         .and_then(|w| w.parse().ok())
         .context("the daemon's reply names no event")?;
     println!(
-        "\nRunning totals (a responder sees the same with `leaktally status --db {}`):",
+        "\nRunning totals (a responder sees the same with `leaktally status --db {}`",
         db.display()
     );
+    match web_address(dir) {
+        Some(url) => println!("or in a browser at {url}):"),
+        None => println!("):"),
+    }
     let terminal = std::io::stdout().is_terminal();
     for second in 1..=seconds {
         sleep_or_stop(Duration::from_secs(1), stop).await?;
@@ -243,6 +247,16 @@ async fn narrate(
     compare_with_truth(dir, &doc);
     print_what_if(dir, &doc)?;
     Ok(())
+}
+
+/// The address the daemon's web page listens on, from its log.
+fn web_address(dir: &Path) -> Option<String> {
+    let log = std::fs::read_to_string(dir.join("agent.log")).ok()?;
+    let at = log.find("web page on ")?;
+    log[at + "web page on ".len()..]
+        .split_whitespace()
+        .next()
+        .map(str::to_owned)
 }
 
 fn progress_line(second: u64, doc: &status::StatusDocument) -> String {
