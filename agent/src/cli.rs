@@ -194,15 +194,15 @@ pub enum LeakCommand {
 pub struct HoleArgs {
     /// Hole diameter in mm, if known; without it the hole is fitted to the
     /// level drop.
-    #[arg(long, value_name = "MM")]
+    #[arg(long, value_name = "MM", allow_negative_numbers = true)]
     pub hole_diameter: Option<f64>,
     /// Height of the hole above the tank bottom, m (default: the bottom, the
     /// conservative choice).
-    #[arg(long, value_name = "M")]
+    #[arg(long, value_name = "M", allow_negative_numbers = true)]
     pub hole_height: Option<f64>,
     /// Discharge coefficient, in (0, 1] (default 1.0, conservative; the
     /// band runs from 0.61 to 1.0).
-    #[arg(long)]
+    #[arg(long, allow_negative_numbers = true)]
     pub cd: Option<f64>,
 }
 

@@ -87,7 +87,7 @@ pub fn render_svg(
         ))
         .map_err(plot_error)?;
         top.draw(&Text::new(
-            format!("from {} UTC; band: shaded; caution below", report::utc(t0)),
+            format!("from {}; band: shaded; caution below", report::utc(t0)),
             (20, 40),
             ("sans-serif", 14).into_font().color(&RGBColor(90, 90, 90)),
         ))

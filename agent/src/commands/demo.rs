@@ -180,7 +180,10 @@ async fn narrate(
     stop: &CancellationToken,
 ) -> anyhow::Result<()> {
     until_sim_time(sim_started_ms, FLAGGED_AT_S, stop).await?;
-    let since = sim_started_ms + (LEAK_OPENS_S * 1000.0) as i64;
+    // The simulator's clock, from its truth file, so that the back-dated
+    // start is the moment the scenario opens the hole even on a busy machine.
+    let sim_zero = simulator_zero(dir).unwrap_or(sim_started_ms);
+    let since = sim_zero + (LEAK_OPENS_S * 1000.0) as i64;
     let since_text = jiff::Timestamp::from_millisecond(since)?.to_string();
     println!(
         "\nAt {FLAGGED_AT_S:.0} s the operator sees the level falling and flags the leak, back-dated to when it began:"
@@ -247,6 +250,17 @@ async fn narrate(
     compare_with_truth(dir, &doc);
     print_what_if(dir, &doc)?;
     Ok(())
+}
+
+/// When the simulator's time was zero (UTC ms), from the first row of its
+/// truth file (`time_s` and `utc`).
+fn simulator_zero(dir: &Path) -> Option<i64> {
+    let text = std::fs::read_to_string(dir.join("truth.csv")).ok()?;
+    let row = text.lines().nth(1)?;
+    let mut fields = row.split(',');
+    let seconds: f64 = fields.next()?.parse().ok()?;
+    let utc: jiff::Timestamp = fields.next()?.parse().ok()?;
+    Some(utc.as_millisecond() - (seconds * 1000.0).round() as i64)
 }
 
 /// The address the daemon's web page listens on, from its log.

@@ -195,9 +195,10 @@ fn user_from_uid() -> Option<String> {
     })
 }
 
-/// Parses `--since`: an RFC 3339 time (`2026-12-01T13:42:00Z`), a local
-/// time of day today (`13:42` or `13:42:30`; yesterday if that is still to
-/// come), or a duration ago (`90s`, `5m`, `1h30m`).
+/// Parses `--since`: an RFC 3339 time (`2026-12-01T13:42:00Z`), a time of
+/// day today in this machine's time zone (`13:42` or `13:42:30`; yesterday
+/// only when that is less than 3 h ago, as just after midnight), or a
+/// duration ago (`90s`, `5m`, `1h30m`).
 pub fn parse_since(text: &str, now_ms: i64) -> anyhow::Result<i64> {
     let text = text.trim();
     if let Some(ago) = parse_duration(text) {
@@ -214,7 +215,16 @@ pub fn parse_since(text: &str, now_ms: i64) -> anyhow::Result<i64> {
             .to_datetime(time)
             .to_zoned_datetime(now.time_zone().clone())?;
         if at.timestamp() > now.timestamp() {
+            // Just after midnight, 23:55 means a few minutes ago, yesterday.
+            // Much further back, a time still to come today is a slip.
             at = at.yesterday()?;
+            if now_ms - at.timestamp().as_millisecond() > 3 * 3_600_000 {
+                bail!(
+                    "--since {text} is later than the time now ({}); give how long ago (like 20m) or a full time such as {}",
+                    now.strftime("%H:%M"),
+                    at.strftime("%Y-%m-%dT%H:%M:%S%:z")
+                );
+            }
         }
         return Ok(at.timestamp().as_millisecond());
     }

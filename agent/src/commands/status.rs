@@ -168,9 +168,15 @@ pub fn human(doc: &StatusDocument) -> String {
             "               {}",
             report::volumes(Mass::kilograms(est.released_best_kg), rho)
         );
+        let closed = e.closed_at_ms.is_some();
         let _ = writeln!(
             out,
-            "  rate now     {}  (band {} to {}), {} phase",
+            "  {}  {}  (band {} to {}), {} phase",
+            if closed {
+                "rate at end "
+            } else {
+                "rate now    "
+            },
             rate(est.rate_best_kg_s),
             rate(est.rate_low_kg_s),
             rate(est.rate_high_kg_s),
@@ -182,6 +188,9 @@ pub fn human(doc: &StatusDocument) -> String {
             est.method.name(),
             est.method_reason
         );
+        if let Some(warning) = &est.consistency {
+            let _ = writeln!(out, "  WARNING      {warning}");
+        }
         if let Some(inv) = est.inventory_kg {
             let _ = writeln!(out, "  inventory    {} by the level balance", kg(inv));
         }
@@ -205,6 +214,12 @@ pub fn human(doc: &StatusDocument) -> String {
             est.level_m
         );
         match &est.forecast {
+            _ if closed => {
+                let _ = writeln!(
+                    out,
+                    "  forecast     none: the event is closed (the leak was isolated)"
+                );
+            }
             Some(f) => {
                 let _ = writeln!(
                     out,

@@ -134,6 +134,15 @@ pub fn samples_between(
     Ok(out)
 }
 
+/// The time of a tank's oldest stored sample.
+pub fn first_sample_ms(conn: &Connection, tank: &str) -> StoreResult<Option<i64>> {
+    Ok(conn.query_row(
+        "SELECT MIN(s.at_ms) FROM samples s JOIN tanks t ON t.id = s.tank WHERE t.tag = ?1",
+        [tank],
+        |r| r.get(0),
+    )?)
+}
+
 /// Counts the samples of a tank, and how many share a timestamp (which the
 /// primary key forbids; tests check it anyway).
 pub fn sample_count(conn: &Connection, tank: &str) -> StoreResult<(i64, i64)> {

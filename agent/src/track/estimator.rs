@@ -40,6 +40,20 @@ pub const FIT_NOISE_MULTIPLE: f64 = 10.0;
 /// Samples needed before a fit is reported, whatever the level drop.
 pub const FIT_MIN_SAMPLES: u64 = 10;
 
+/// A level that moves more than this many times the level noise from one
+/// sample to the next is held back as a possible spike...
+pub const SPIKE_NOISE_MULTIPLE: f64 = 50.0;
+/// ...as is one that moves more than this, whatever the noise (m). No leak
+/// this tool models drops a tank's level 5 cm between two polls.
+pub const SPIKE_FLOOR_M: f64 = 0.05;
+
+/// A given hole whose Cd·A differs from the fitted one by more than this
+/// factor either way is flagged as inconsistent with the level drop.
+pub const CONSISTENCY_RATIO: f64 = 1.5;
+
+/// The window over which the inventory balance gives its own rate.
+pub const INVENTORY_RATE_WINDOW_MS: i64 = 60_000;
+
 /// What the operator (or a replay) says about the leak.
 #[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
 pub struct LeakParams {
@@ -105,8 +119,12 @@ pub struct Crossing {
 pub struct DataQuality {
     /// Samples with a good level, used.
     pub samples_used: u64,
-    /// Samples skipped because the level was not good.
+    /// Samples skipped because the level was not good, was outside the
+    /// tank, or jumped (spikes are also counted on their own below).
     pub samples_skipped: u64,
+    /// Level readings that jumped and were not confirmed by the next one.
+    #[serde(default)]
+    pub spikes_rejected: u64,
     /// Samples where a bad pressure reading was replaced by the last good one.
     pub pressure_held: u64,
     /// Samples where a bad transfer reading was replaced by the last good one.
@@ -134,6 +152,10 @@ pub struct Estimate {
     /// Effective hole diameter at the chosen Cd, once the fit is ready.
     pub fitted_diameter_m: Option<f64>,
     pub fit_status: String,
+    /// When an operator's hole size and the level drop disagree: what the
+    /// level says and what to do about it.
+    #[serde(default)]
+    pub consistency: Option<String>,
     pub level_m: f64,
     pub headspace_pa: f64,
     /// The liquid density the figures use, kg/m³ (for volumes).
@@ -219,6 +241,10 @@ pub struct Estimator {
     second_diff_sq: f64,
     second_diff_n: u64,
     previous_levels: [Option<f64>; 2],
+    /// A level that jumped from the last one used, waiting for confirmation.
+    pending_jump: Option<f64>,
+    /// Recent (time, inventory) points, for the inventory's own rate.
+    recent_inventory: std::collections::VecDeque<(i64, f64)>,
     last: Option<Last>,
     last_transfer: f64,
     last_headspace: Option<crate::model::Pressure>,
@@ -272,6 +298,8 @@ impl Estimator {
             second_diff_sq: 0.0,
             second_diff_n: 0,
             previous_levels: [None, None],
+            pending_jump: None,
+            recent_inventory: std::collections::VecDeque::new(),
             last: None,
             last_transfer: 0.0,
             last_headspace: None,
@@ -313,7 +341,18 @@ impl Estimator {
             self.quality.samples_skipped += 1;
             return None;
         };
-        let level = level.clamp(0.0, self.vessel.geometry().height().si());
+        let height = self.vessel.geometry().height().si();
+        if !(-0.01 * height..=1.01 * height).contains(&level) {
+            // A level outside the tank is a sensor or scaling fault, not data.
+            self.quality.samples_skipped += 1;
+            return None;
+        }
+        if self.is_spike(sample.at_ms, level) {
+            self.quality.spikes_rejected += 1;
+            self.quality.samples_skipped += 1;
+            return None;
+        }
+        let level = level.clamp(0.0, height);
         let state = TankState {
             level: Length::metres(level),
             headspace: self.headspace(sample, level),
@@ -362,6 +401,14 @@ impl Estimator {
         let inventory = rho * (start_volume - volume + transferred);
         self.fit.push(per_k_liquid, inventory);
         self.note_level(level);
+        self.recent_inventory.push_back((sample.at_ms, inventory));
+        while self
+            .recent_inventory
+            .front()
+            .is_some_and(|(t, _)| sample.at_ms - t > INVENTORY_RATE_WINDOW_MS)
+        {
+            self.recent_inventory.pop_front();
+        }
 
         Some(self.estimate(sample.at_ms, &state, unit, per_k, inventory, after_gap))
     }
@@ -457,6 +504,30 @@ impl Estimator {
         Some((hole, self.cd))
     }
 
+    /// Whether a level jumps too far from the last one used to be real: a
+    /// radar echo lost for one poll, a glitch in the loop. A jump is kept
+    /// back and accepted only when the next reading confirms it (a real step,
+    /// such as a gauge re-zeroed). The limit is SPIKE_NOISE_MULTIPLE times
+    /// the level noise, and never under SPIKE_FLOOR_M, per second elapsed.
+    fn is_spike(&mut self, at_ms: i64, level: f64) -> bool {
+        let Some(last) = self.last else { return false };
+        // Per second of time since the last sample: after a gap the level
+        // has had time to move.
+        let seconds = ((at_ms - last.at_ms) as f64 / 1000.0).max(1.0);
+        let limit = (SPIKE_NOISE_MULTIPLE * self.level_noise()).max(SPIKE_FLOOR_M) * seconds;
+        if (level - last.state.level.si()).abs() <= limit {
+            self.pending_jump = None;
+            return false;
+        }
+        match self.pending_jump.replace(level) {
+            Some(previous) if (previous - level).abs() <= limit => {
+                self.pending_jump = None;
+                false
+            }
+            _ => true,
+        }
+    }
+
     fn note_level(&mut self, level: f64) {
         if let [Some(a), Some(b)] = self.previous_levels {
             let d2 = level - 2.0 * b + a;
@@ -539,9 +610,9 @@ impl Estimator {
             }
             (None, None) => (
                 Method::InventoryBalance,
-                "no hole size given and not enough level drop to fit one yet; band from the level noise".into(),
+                "no hole size given and not enough level drop to fit one yet; band from the level noise; the rate is the slope of the inventory over the last minute".into(),
                 ((inventory - 2.0 * noise_mass).max(0.0), inventory.max(0.0), inventory.max(0.0) + 2.0 * noise_mass),
-                (0.0, 0.0, 0.0),
+                self.inventory_rate(),
             ),
         };
         // Ratchet: a total shown once is never lower later in this revision.
@@ -564,6 +635,22 @@ impl Estimator {
                 FIT_NOISE_MULTIPLE * self.level_noise() * 1000.0
             ),
         };
+        let consistency = match (self.params.hole_diameter_m, fit) {
+            (Some(d), Some((k, _))) => {
+                let given = cd * std::f64::consts::FRAC_PI_4 * d * d;
+                let seen = (4.0 * k / (std::f64::consts::PI * cd)).sqrt() * 1000.0;
+                let ratio = given / k;
+                (!(1.0 / CONSISTENCY_RATIO..=CONSISTENCY_RATIO).contains(&ratio)).then(|| {
+                    format!(
+                        "the level falls as through a {seen:.1} mm hole at Cd {cd}, not the {:.1} mm given; the orifice total may be {} by a factor of {:.1}; check the hole size (leak revise --hole-diameter, or --unknown-diameter to fit it)",
+                        d * 1000.0,
+                        if ratio > 1.0 { "too high" } else { "too low" },
+                        ratio.max(1.0 / ratio)
+                    )
+                })
+            }
+            _ => None,
+        };
         let remaining = self.vessel.liquid_above(state.level, &self.unit_hole).si();
         self.refresh_forecast(at_ms, state, best);
         Estimate {
@@ -579,6 +666,7 @@ impl Estimator {
             inventory_kg: Some(inventory),
             fitted_diameter_m: fit.map(|(k, _)| (4.0 * k / (std::f64::consts::PI * cd)).sqrt()),
             fit_status,
+            consistency,
             level_m: state.level.si(),
             headspace_pa: state.headspace.si(),
             density_kg_m3: self.vessel.density().si(),
@@ -593,6 +681,26 @@ impl Estimator {
             crossings: self.crossings.clone(),
             quality: self.quality,
             after_gap,
+        }
+    }
+
+    /// The inventory balance's own rate: the least-squares slope of the
+    /// inventory over the last minute, with a two-sigma band (low clamped at
+    /// zero). Noisy, but a leak in progress never shows as zero flow just
+    /// because no hole size is known yet.
+    fn inventory_rate(&self) -> (f64, f64, f64) {
+        let mut line = LineFit::default();
+        let t0 = self.recent_inventory.front().map_or(0, |(t, _)| *t);
+        for &(t, m) in &self.recent_inventory {
+            line.push((t - t0) as f64 / 1000.0, m);
+        }
+        match line.slope() {
+            Some((rate, se)) if line.n >= 5 => (
+                (rate - 2.0 * se).max(0.0),
+                rate.max(0.0),
+                (rate + 2.0 * se).max(0.0),
+            ),
+            _ => (0.0, 0.0, 0.0),
         }
     }
 
@@ -805,6 +913,80 @@ mod tests {
             "{}",
             last.released_best_kg
         );
+    }
+
+    #[test]
+    fn a_single_level_spike_is_rejected_and_a_leak_never_shows_zero_flow() {
+        let mut e = Estimator::new(&demo_tank(), params(None), 0, 1000).unwrap();
+        let mut estimates = Vec::new();
+        for s in 0..=120 {
+            // A lost radar echo for one poll: an in-range but impossible level.
+            let level = if s == 5 {
+                3.0
+            } else {
+                torricelli_level(s as f64)
+            };
+            estimates.extend(e.push(&sample(s as f64, level)));
+        }
+        let last = estimates.last().unwrap();
+        assert_eq!(last.quality.spikes_rejected, 1);
+        let exact = torricelli_released(120.0);
+        assert!(
+            (last.released_best_kg - exact).abs() / exact < 0.02,
+            "{} vs {exact}",
+            last.released_best_kg
+        );
+        assert!(
+            last.crossings[0].at_ms.is_some_and(|t| t > 30_000),
+            "no crossing from the spike"
+        );
+        // While the inventory carries the estimate, its own slope gives the
+        // rate: about the true 5.6 kg/s, not zero.
+        let early = estimates
+            .iter()
+            .find(|e| e.method == Method::InventoryBalance && e.at_ms >= 7000)
+            .unwrap();
+        let true_rate = RHO * std::f64::consts::PI * D_TANK * D_TANK / 4.0
+            * (torricelli_level(6.5) - torricelli_level(7.5));
+        assert!(
+            (early.rate_best_kg_s - true_rate).abs() / true_rate < 0.3,
+            "{} vs {true_rate}",
+            early.rate_best_kg_s
+        );
+    }
+
+    #[test]
+    fn a_level_that_moves_in_one_step_is_accepted_once_confirmed() {
+        let mut e = Estimator::new(&demo_tank(), params(Some(D_HOLE)), 0, 1000).unwrap();
+        assert!(e.push(&sample(0.0, 4.0)).is_some());
+        assert!(e.push(&sample(1.0, 3.5)).is_none(), "held back");
+        let est = e
+            .push(&sample(2.0, 3.5))
+            .expect("confirmed by the next reading");
+        assert_eq!(est.level_m, 3.5);
+        let mut outside = sample(3.0, 6.0);
+        outside.level = Reading::good(6.0);
+        assert!(
+            e.push(&outside).is_none(),
+            "a level above the tank's top is not data"
+        );
+    }
+
+    #[test]
+    fn a_given_hole_the_level_contradicts_is_flagged() {
+        let wrong = run(params(Some(0.06)), 200, 0.001, |_| false);
+        let last = wrong.last().unwrap();
+        let warning = last
+            .consistency
+            .as_deref()
+            .expect("a 60 mm hole on a 40 mm leak is flagged");
+        // (60/40)² = 2.25.
+        assert!(
+            warning.contains("a 40.0 mm hole") && warning.contains("too high by a factor of 2."),
+            "{warning}"
+        );
+        let right = run(params(Some(D_HOLE)), 200, 0.001, |_| false);
+        assert_eq!(right.last().unwrap().consistency, None);
     }
 
     #[test]

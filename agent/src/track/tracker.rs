@@ -75,6 +75,9 @@ impl Request {
     }
 }
 
+/// How far after a back-dated start the first logged sample may be.
+const HISTORY_SLACK_MS: i64 = 60_000;
+
 /// Samples and estimates that belong in one transaction.
 #[derive(Debug, Default)]
 struct Write {
@@ -250,6 +253,42 @@ impl Tracker {
         }
     }
 
+    /// Refuses a start that the logged history does not cover: the first
+    /// sample after it must come within `HISTORY_SLACK_MS`, or the total
+    /// would rest on a guess of what flowed before the record begins.
+    async fn check_history(&self, tank: &str, start: i64, now: i64) -> StoreResult<()> {
+        if now - start <= HISTORY_SLACK_MS {
+            return Ok(());
+        }
+        let tag = tank.to_owned();
+        let first = self
+            .store
+            .call(move |c| store::samples_between(c, &tag, start, start + HISTORY_SLACK_MS))
+            .await?;
+        if first.iter().any(|s| s.level.is_good()) {
+            return Ok(());
+        }
+        let tag = tank.to_owned();
+        let earliest = self
+            .store
+            .call(move |c| store::first_sample_ms(c, &tag))
+            .await?;
+        Err(StoreError::Refused(match earliest {
+            Some(at) if at > start => format!(
+                "the logged history of {tank} begins at {}, after the start asked for ({}); open it --since {} or later",
+                crate::report::utc(at),
+                crate::report::utc(start),
+                jiff::Timestamp::from_millisecond(at)
+                    .map(|t| t.to_string())
+                    .unwrap_or_default()
+            ),
+            _ => format!(
+                "there is no good level of {tank} logged within a minute after {}; choose a start the history covers",
+                crate::report::utc(start)
+            ),
+        }))
+    }
+
     /// Creates an event, builds its estimator from the stored history since
     /// `start_ms`, and logs the estimates of that history.
     async fn open_event(
@@ -342,6 +381,7 @@ impl Tracker {
                         "the leak cannot start in the future; check --since".into(),
                     ));
                 }
+                self.check_history(&tank, start, now).await?;
                 let params = LeakParams {
                     hole_diameter_m,
                     hole_height_m: hole_height_m.unwrap_or(0.0),

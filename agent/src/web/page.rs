@@ -387,7 +387,14 @@ fn event(s: &mut String, e: &EventStatus, extras: &EventExtras, now_ms: i64, sta
     }
     s.push_str("</div>\n</div>\n<div class=\"details\">\n");
 
-    // How the figure is made.
+    // How the figure is made, after any disagreement the operator must see.
+    if let Some(warning) = &est.consistency {
+        let _ = writeln!(
+            s,
+            r#"<p class="caution" data-field="consistency" data-event="{id}"><strong>Check the hole size:</strong> {}</p>"#,
+            escape(warning)
+        );
+    }
     let _ = write!(
         s,
         r#"<div class="panel basis">
