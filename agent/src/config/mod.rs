@@ -203,7 +203,7 @@ impl fmt::Display for ConfigError {
             ConfigError::Read { path, source } => {
                 write!(
                     f,
-                    "cannot read the config file {}: {source}",
+                    "cannot read the config file {}: {source}; check the path (config/reference.toml in the source tree documents the format)",
                     path.display()
                 )
             }

@@ -604,7 +604,11 @@ impl Estimator {
                 (
                     Method::FittedHole,
                     "no hole size given; the hole is fitted to the inventory loss; band from the fit's 2-sigma spread".into(),
-                    (k_low * per_k, k * per_k + self.bridged_kg, k_high * per_k + self.bridged_kg * k_high / k),
+                    (
+                        k_low * per_k + self.bridged_kg * k_low / k,
+                        k * per_k + self.bridged_kg,
+                        k_high * per_k + self.bridged_kg * k_high / k,
+                    ),
                     (k_low * unit.rate.si(), k * unit.rate.si(), k_high * unit.rate.si()),
                 )
             }
