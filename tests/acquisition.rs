@@ -9,7 +9,7 @@ use std::process::Command;
 use std::time::{Duration, Instant};
 
 /// A scenario for the demo site: FF-T12 leaking from 1 s, the others still.
-fn scenario(scratch: &Scratch, level_noise_m: f64) -> std::path::PathBuf {
+pub(crate) fn scenario(scratch: &Scratch, level_noise_m: f64) -> std::path::PathBuf {
     let site = scratch.write("sim-site.toml", &demo_site("127.0.0.1:1"));
     scratch.write(
         "scenario.toml",

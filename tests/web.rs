@@ -12,7 +12,7 @@
 use crate::python_env::{python, script, target_dir};
 use crate::util::{
     Finished, Scratch, binary, demo_site, free_port, http, run, run_for, start_daemon, start_sim,
-    toml_path, with_web,
+    with_web,
 };
 use serde_json::Value;
 use std::path::{Path, PathBuf};
@@ -86,40 +86,10 @@ fn dump_dom(scratch: &Scratch, name: &str, url: &str) -> String {
     dom
 }
 
-/// FF-T12 leaking from 1 s into the run, the other tanks steady.
+/// FF-T12 leaking from 1 s into the run, the other tanks steady, 1 mm of
+/// level noise: the acquisition tests' scenario.
 fn scenario(scratch: &Scratch) -> PathBuf {
-    let site = scratch.write("sim-site.toml", &demo_site("127.0.0.1:1"));
-    scratch.write(
-        "scenario.toml",
-        &format!(
-            r#"site = {site}
-seed = 6
-[[tank]]
-id = "FF-T12"
-initial_level_m = 4.2
-level_noise_m = 0.001
-[[tank]]
-id = "FF-T14"
-initial_level_m = 1.6
-headspace_kpa = 15.0
-level_noise_m = 0.001
-pressure_noise_pa = 30.0
-[[tank]]
-id = "FF-T20"
-initial_level_m = 5.1
-level_noise_m = 0.001
-pressure_noise_pa = 30.0
-[[event]]
-at_s = 1.0
-action = "leak_opens"
-tank = "FF-T12"
-diameter_mm = 40.0
-height_m = 0.3
-cd = 0.61
-"#,
-            site = toml_path(&site)
-        ),
-    )
+    crate::acquisition::scenario(scratch, 0.001)
 }
 
 struct Cli<'a> {
