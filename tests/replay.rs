@@ -14,18 +14,7 @@ fn replays_reproduce_the_live_figures_and_the_truth() {
     let _daemon = plant.daemon("daemon");
     plant.wait_until(3.0);
     let since = plant.leak_start("FF-T12");
-    let id = event_id(&plant.ok(&[
-        "leak",
-        "open",
-        "--tank",
-        "FF-T12",
-        "--hole-height",
-        "0.3",
-        "--cd",
-        "0.61",
-        "--since",
-        &since,
-    ]));
+    let id = event_id(&plant.open_leak("FF-T12", None, "0.3", &since));
     plant.wait_until(30.0);
     plant.ok(&["leak", "close", &id.to_string()]);
     let ev = id.to_string();

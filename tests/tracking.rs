@@ -145,6 +145,34 @@ impl Plant {
         Truth::load(&self.scratch.path("truth.csv"))
     }
 
+    /// `leak open` on `tank` with Cd 0.61 (the simulator's), the hole's
+    /// diameter (mm; none to have it fitted) and height (m), back-dated to
+    /// `since`; returns the daemon's reply.
+    pub(crate) fn open_leak(
+        &self,
+        tank: &str,
+        diameter_mm: Option<&str>,
+        height_m: &str,
+        since: &str,
+    ) -> String {
+        let mut args = vec![
+            "leak",
+            "open",
+            "--tank",
+            tank,
+            "--hole-height",
+            height_m,
+            "--cd",
+            "0.61",
+            "--since",
+            since,
+        ];
+        if let Some(d) = diameter_mm {
+            args.extend(["--hole-diameter", d]);
+        }
+        self.ok(&args)
+    }
+
     /// Stops the simulator with SIGTERM and returns its request counts by
     /// function code (the line it prints on a graceful stop).
     pub(crate) fn stop_sim(&mut self) -> std::collections::BTreeMap<String, u64> {
@@ -207,48 +235,11 @@ fn live_totals_match_the_truth_for_known_fitted_and_back_dated_holes() {
     let _daemon = plant.daemon("daemon");
     plant.wait_until(3.0);
     let since = plant.leak_start("FF-T12");
-    let known = event_id(&plant.ok(&[
-        "leak",
-        "open",
-        "--tank",
-        "FF-T12",
-        "--hole-diameter",
-        "40",
-        "--hole-height",
-        "0.3",
-        "--cd",
-        "0.61",
-        "--since",
-        &since,
-    ]));
+    let known = event_id(&plant.open_leak("FF-T12", Some("40"), "0.3", &since));
     let since = plant.leak_start("FF-T14");
-    let fitted = event_id(&plant.ok(&[
-        "leak",
-        "open",
-        "--tank",
-        "FF-T14",
-        "--hole-height",
-        "0.2",
-        "--cd",
-        "0.61",
-        "--since",
-        &since,
-    ]));
+    let fitted = event_id(&plant.open_leak("FF-T14", None, "0.2", &since));
     plant.wait_until(36.0);
-    let reply = plant.ok(&[
-        "leak",
-        "open",
-        "--tank",
-        "FF-T20",
-        "--hole-diameter",
-        "35",
-        "--hole-height",
-        "0.5",
-        "--cd",
-        "0.61",
-        "--since",
-        "30s",
-    ]);
+    let reply = plant.open_leak("FF-T20", Some("35"), "0.5", "30s");
     assert!(reply.contains("back-dated"), "{reply}");
     let back_dated = event_id(&reply);
     plant.wait_until(70.0);
@@ -347,20 +338,7 @@ fn a_killed_daemon_resumes_with_a_continuous_total_and_no_sample_twice() {
     let mut daemon = plant.daemon("daemon-1");
     plant.wait_until(3.0);
     let since = plant.leak_start("FF-T12");
-    let id = event_id(&plant.ok(&[
-        "leak",
-        "open",
-        "--tank",
-        "FF-T12",
-        "--hole-diameter",
-        "40",
-        "--hole-height",
-        "0.3",
-        "--cd",
-        "0.61",
-        "--since",
-        &since,
-    ]));
+    let id = event_id(&plant.open_leak("FF-T12", Some("40"), "0.3", &since));
     plant.wait_until(25.0);
     let before = event_of(&plant.status(Some(id)), id)["estimate"]["released_best_kg"]
         .as_f64()

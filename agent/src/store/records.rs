@@ -325,6 +325,23 @@ pub fn estimates_of(conn: &Connection, event: i64, revision: i64) -> StoreResult
     .collect()
 }
 
+/// The released totals (time, best, low, high in kg) of one event
+/// revision, in time order, from the estimate columns alone: for charts,
+/// which need neither the whole documents nor their JSON parsing.
+pub fn released_series(
+    conn: &Connection,
+    event: i64,
+    revision: i64,
+) -> StoreResult<Vec<(i64, f64, f64, f64)>> {
+    let mut stmt = conn.prepare_cached(
+        "SELECT at_ms, best_kg, low_kg, high_kg FROM estimates WHERE event = ?1 AND revision = ?2 ORDER BY at_ms",
+    )?;
+    let rows = stmt.query_map(params![event, revision], |r| {
+        Ok((r.get(0)?, r.get(1)?, r.get(2)?, r.get(3)?))
+    })?;
+    Ok(rows.collect::<Result<_, _>>()?)
+}
+
 /// An operator's request and what became of it.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct ActionRow {

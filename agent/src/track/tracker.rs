@@ -17,7 +17,7 @@ use crate::config::Config;
 use crate::store::{self, EventRow, Store, StoreError, StoreResult};
 use crate::track::estimator::{Estimate, Estimator, LeakParams};
 use serde::{Deserialize, Serialize};
-use std::collections::HashMap;
+use std::collections::{HashMap, VecDeque};
 use std::sync::Arc;
 use tracing::{info, warn};
 
@@ -100,7 +100,7 @@ pub struct Tracker {
     flags: HashMap<usize, bool>,
     /// Writes that failed (database locked, disk full), retried first next
     /// time: nothing acquired is dropped while the process lives.
-    backlog: Vec<Write>,
+    backlog: VecDeque<Arc<Write>>,
 }
 
 impl Tracker {
@@ -111,7 +111,7 @@ impl Tracker {
             store,
             open: HashMap::new(),
             flags: HashMap::new(),
-            backlog: Vec::new(),
+            backlog: VecDeque::new(),
         };
         let events = tracker.store.call(|c| store::events(c, true)).await?;
         for row in events {
@@ -178,21 +178,22 @@ impl Tracker {
             }
         }
         write.samples = batch;
-        self.backlog.push(write);
+        self.backlog.push_back(Arc::new(write));
         self.flush().await;
     }
 
     /// Commits the backlog, oldest first, one transaction per write.
     async fn flush(&mut self) {
-        while let Some(write) = self.backlog.first() {
-            let samples = write.samples.clone();
-            let estimates = write.estimates.clone();
+        while let Some(write) = self.backlog.front() {
+            // Shared, not copied: a poll cycle of a large site is thousands
+            // of samples, and it stays in the backlog until it is committed.
+            let write = Arc::clone(write);
             let result = self
                 .store
                 .call(move |c| {
                     let tx = c.transaction()?;
-                    store::insert_samples(&tx, &samples)?;
-                    for (event, revision, e) in &estimates {
+                    store::insert_samples(&tx, &write.samples)?;
+                    for (event, revision, e) in &write.estimates {
                         store::insert_estimates(&tx, *event, *revision, e)?;
                     }
                     tx.commit()?;
@@ -201,7 +202,7 @@ impl Tracker {
                 .await;
             match result {
                 Ok(()) => {
-                    self.backlog.remove(0);
+                    self.backlog.pop_front();
                 }
                 Err(e) => {
                     warn!(

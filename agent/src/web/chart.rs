@@ -11,7 +11,6 @@
 
 use crate::report;
 use crate::store::EventRow;
-use crate::track::estimator::Estimate;
 use serde::Serialize;
 use std::fmt::Write as _;
 
@@ -54,14 +53,14 @@ impl Series {
     }
 }
 
-pub fn points(estimates: &[Estimate]) -> Vec<Point> {
-    estimates
+pub fn points(series: &[(i64, f64, f64, f64)]) -> Vec<Point> {
+    series
         .iter()
-        .map(|e| Point {
-            at_ms: e.at_ms,
-            best_kg: e.released_best_kg,
-            low_kg: e.released_low_kg,
-            high_kg: e.released_high_kg,
+        .map(|&(at_ms, best_kg, low_kg, high_kg)| Point {
+            at_ms,
+            best_kg,
+            low_kg,
+            high_kg,
         })
         .collect()
 }

@@ -320,7 +320,7 @@ fn page_data(shared: &Shared) -> Result<page::PageData, Failure> {
     let mut events = Vec::with_capacity(doc.events.len());
     for e in &doc.events {
         let series = chart::thin(
-            chart::points(&store::estimates_of(&conn, e.event, e.revision)?),
+            chart::points(&store::released_series(&conn, e.event, e.revision)?),
             chart::MAX_POINTS,
         );
         let notes = page::notes(&store::actions_of(&conn, e.event)?);
@@ -374,7 +374,7 @@ async fn api_series(State(shared): State<Arc<Shared>>, UrlPath(id): UrlPath<Stri
         let id = event_id(&id)?;
         let conn = store::open_read_only(&s.db)?;
         let row = find_event(&conn, id)?;
-        let all = chart::points(&store::estimates_of(&conn, id, row.revision)?);
+        let all = chart::points(&store::released_series(&conn, id, row.revision)?);
         Ok(chart::Series::new(&row, all))
     })
     .await;
