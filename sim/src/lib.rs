@@ -142,6 +142,7 @@ impl Simulator {
         let shared = Arc::new(Mutex::new(Shared {
             image: RegisterImage::new(site),
             link_down: vec![false; site.devices.len()],
+            reply_delay: vec![std::time::Duration::ZERO; site.devices.len()],
         }));
         // Unit ids are unique: the scenario checked.
         let units: HashMap<u8, usize> = site
@@ -218,6 +219,7 @@ impl<W: Write> Driver<W> {
             let mut s = self.shared.lock().unwrap_or_else(PoisonError::into_inner);
             self.plant.write_registers(&mut s.image);
             s.link_down = self.plant.links_down();
+            s.reply_delay = self.plant.reply_delays();
         }
         // The truth file is written from here directly: a few kilobytes a
         // second through a buffer, flushed once a second, cost less than a
@@ -298,6 +300,14 @@ fn log_applied(plant: &Plant, applied: &[Applied]) {
             }
             EventKind::LinkDrops { device, duration_s } => tracing::info!(
                 "{t:.2} s: link to {} drops for {duration_s} s",
+                site.devices.get(*device).map_or("?", |d| d.id.as_str())
+            ),
+            EventKind::DeviceSlows {
+                device,
+                duration_s,
+                reply_delay_ms,
+            } => tracing::info!(
+                "{t:.2} s: {} answers {reply_delay_ms} ms late for {duration_s} s",
                 site.devices.get(*device).map_or("?", |d| d.id.as_str())
             ),
             EventKind::Flag { tank: i, raised } => tracing::info!(
@@ -408,6 +418,42 @@ mod tests {
         tokio::time::sleep(Duration::from_millis(250)).await;
         let mut east = tcp::connect_slave(addr, Slave(1)).await.unwrap();
         assert!(east.read_input_registers(0, 1).await.unwrap().is_ok());
+
+        stop.cancel();
+        handle.await.unwrap().unwrap();
+    }
+
+    #[tokio::test]
+    async fn a_slowed_device_answers_late_and_then_on_time_again() {
+        let mut s = demo();
+        s.events = vec![scenario::Event {
+            at_s: 0.0,
+            kind: EventKind::DeviceSlows {
+                device: 0,
+                duration_s: 0.5,
+                reply_delay_ms: 300,
+            },
+        }];
+        let sim = Simulator::bind(s, Some("127.0.0.1:0")).await.unwrap();
+        let addr = sim.local_addr().unwrap();
+        let stop = CancellationToken::new();
+        let handle = tokio::spawn(sim.run(None::<TruthWriter<Vec<u8>>>, stop.clone()));
+
+        let mut east = tcp::connect_slave(addr, Slave(1)).await.unwrap();
+        let began = std::time::Instant::now();
+        assert!(east.read_input_registers(0, 1).await.unwrap().is_ok());
+        let late = began.elapsed();
+        assert!(late >= Duration::from_millis(300), "{late:?}");
+        // The other device is not slowed.
+        east.set_slave(Slave(2));
+        let began = std::time::Instant::now();
+        assert!(east.read_holding_registers(0, 2).await.unwrap().is_ok());
+        assert!(began.elapsed() < Duration::from_millis(200));
+        tokio::time::sleep(Duration::from_millis(400)).await;
+        east.set_slave(Slave(1));
+        let began = std::time::Instant::now();
+        assert!(east.read_input_registers(0, 1).await.unwrap().is_ok());
+        assert!(began.elapsed() < Duration::from_millis(200));
 
         stop.cancel();
         handle.await.unwrap().unwrap();

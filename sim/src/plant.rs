@@ -17,6 +17,7 @@ use crate::registers::{self, RegisterImage};
 use crate::scenario::{Event, EventKind, Fault, Scenario, SensorRole};
 use leaktally::config::{Config, Tank as SiteTank};
 use leaktally::model::PressureTap;
+use std::time::Duration;
 
 /// Simulated time between truth rows, ms.
 pub const TRUTH_PERIOD_MS: u64 = 100;
@@ -63,6 +64,8 @@ pub struct Plant {
     next_event: usize,
     /// Per device: the step until which its link is down.
     link_down_until: Vec<u64>,
+    /// Per device: the step until which it answers late, and how late.
+    slow_until: Vec<(u64, Duration)>,
     noise: Noise,
 }
 
@@ -101,6 +104,7 @@ impl Plant {
             events,
             next_event: 0,
             link_down_until: vec![0; scenario.site.devices.len()],
+            slow_until: vec![(0, Duration::ZERO); scenario.site.devices.len()],
             noise: Noise::new(scenario.seed),
         }
     }
@@ -227,6 +231,17 @@ impl Plant {
                     *d = (*d).max(until);
                 }
             }
+            EventKind::DeviceSlows {
+                device,
+                duration_s,
+                reply_delay_ms,
+            } => {
+                let until = self.steps + (duration_s * 1000.0 / self.step_ms as f64).ceil() as u64;
+                if let Some(d) = self.slow_until.get_mut(device) {
+                    // A later slow spell replaces the earlier one.
+                    *d = (until, Duration::from_millis(reply_delay_ms));
+                }
+            }
             EventKind::Flag { tank, raised } => {
                 if let Some(t) = self.tanks.get_mut(tank) {
                     t.flag = raised;
@@ -244,6 +259,21 @@ impl Plant {
             .collect()
     }
 
+    /// How late each device answers now (zero when it is not slowed),
+    /// index-aligned with the site's devices.
+    pub fn reply_delays(&self) -> Vec<Duration> {
+        self.slow_until
+            .iter()
+            .map(|&(until, delay)| {
+                if self.steps < until {
+                    delay
+                } else {
+                    Duration::ZERO
+                }
+            })
+            .collect()
+    }
+
     /// Writes what every sensor shows now into the image. A stuck sensor's
     /// registers are left alone, so they keep the words they last had.
     pub fn write_registers(&self, image: &mut RegisterImage) {
@@ -255,6 +285,7 @@ impl Plant {
                 let words = match t.faults[role.index()] {
                     Fault::Stuck => continue,
                     Fault::Garbage => registers::garbage(sensor),
+                    Fault::Reads(value) => registers::encode(sensor, value),
                     Fault::None => registers::encode(sensor, self.reading(index, site, t, role)),
                 };
                 image.set_words(site.device, sensor.register, sensor.address, &words);
@@ -462,6 +493,48 @@ tank = "FF-T12"
                 .unwrap(),
             [true]
         );
+    }
+
+    #[test]
+    fn a_sensor_that_fails_to_a_value_shows_it_until_it_recovers() {
+        let mut plant = Plant::new(&scenario_with(
+            r#"
+[[event]]
+at_s = 0.5
+action = "sensor_reads"
+tank = "FF-T12"
+sensor = "level"
+value_si = 9.5
+[[event]]
+at_s = 1.0
+action = "sensor_recovers"
+tank = "FF-T12"
+sensor = "level"
+[[event]]
+at_s = 0.2
+action = "device_slows"
+device = "rtu-east"
+duration_s = 0.5
+reply_delay_ms = 1500
+"#,
+        ));
+        let (mut rows, mut applied) = (Vec::new(), Vec::new());
+        let level_counts = |plant: &Plant| {
+            let mut image = RegisterImage::new(plant.site());
+            plant.write_registers(&mut image);
+            image.read_registers(0, RegisterKind::Input, 0, 1).unwrap()[0]
+        };
+        plant.advance_to(60, &mut rows, &mut applied);
+        // FF-T12's level is 4000..20000 counts for 0..5 m: 9.5 m is 34400
+        // counts, past the transmitter's span.
+        assert_eq!(level_counts(&plant), 34_400);
+        assert_eq!(
+            plant.reply_delays(),
+            [Duration::from_millis(1500), Duration::ZERO]
+        );
+        plant.advance_to(100, &mut rows, &mut applied);
+        assert_eq!(level_counts(&plant), 17_440);
+        assert_eq!(plant.reply_delays(), [Duration::ZERO; 2]);
     }
 
     #[test]

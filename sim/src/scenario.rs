@@ -90,6 +90,13 @@ pub enum EventKind {
         device: usize,
         duration_s: f64,
     },
+    /// For this long, the device answers every request only after a delay
+    /// (a congested radio link or an overloaded gateway).
+    DeviceSlows {
+        device: usize,
+        duration_s: f64,
+        reply_delay_ms: u64,
+    },
     /// Sets (true) or clears the tank's leak flag bit.
     Flag {
         tank: usize,
@@ -137,7 +144,7 @@ impl SensorRole {
 }
 
 /// What a sensor's registers show.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+#[derive(Debug, Clone, Copy, PartialEq, Default)]
 pub enum Fault {
     /// The live value.
     #[default]
@@ -146,6 +153,10 @@ pub enum Fault {
     Stuck,
     /// NaN for f32, the type's largest value for integers.
     Garbage,
+    /// A fixed value, SI (m, Pa, m³/s), encoded as the sensor encodes any
+    /// reading: a transmitter that fails to a wrong value, say past its
+    /// range.
+    Reads(f64),
 }
 
 /// The default discharge coefficient: a sharp-edged hole (common practice).
@@ -239,6 +250,8 @@ mod raw {
         pub cd: Option<Spanned<f64>>,
         pub flow_m3_h: Option<Spanned<f64>>,
         pub duration_s: Option<Spanned<f64>>,
+        pub value_si: Option<Spanned<f64>>,
+        pub reply_delay_ms: Option<Spanned<u64>>,
     }
 
     #[derive(Debug, Clone, Copy, PartialEq, Eq, Deserialize)]
@@ -250,8 +263,10 @@ mod raw {
         TransferStops,
         SensorSticks,
         SensorGarbage,
+        SensorReads,
         SensorRecovers,
         LinkDrops,
+        DeviceSlows,
         RaiseFlag,
         LowerFlag,
     }
@@ -265,8 +280,10 @@ mod raw {
                 Action::TransferStops => "transfer_stops",
                 Action::SensorSticks => "sensor_sticks",
                 Action::SensorGarbage => "sensor_garbage",
+                Action::SensorReads => "sensor_reads",
                 Action::SensorRecovers => "sensor_recovers",
                 Action::LinkDrops => "link_drops",
+                Action::DeviceSlows => "device_slows",
                 Action::RaiseFlag => "raise_flag",
                 Action::LowerFlag => "lower_flag",
             }
@@ -281,7 +298,9 @@ mod raw {
                 Action::SensorSticks | Action::SensorGarbage | Action::SensorRecovers => {
                     (&["tank", "sensor"], &[])
                 }
+                Action::SensorReads => (&["tank", "sensor", "value_si"], &[]),
                 Action::LinkDrops => (&["device", "duration_s"], &[]),
+                Action::DeviceSlows => (&["device", "duration_s", "reply_delay_ms"], &[]),
                 Action::LeakCloses
                 | Action::TransferStops
                 | Action::RaiseFlag
@@ -540,7 +559,7 @@ impl Checker<'_> {
         let action = *e.action.get_ref();
         let name = action.name();
         let (required, optional) = action.keys();
-        let present: [(&str, Option<Range<usize>>); 8] = [
+        let present: [(&str, Option<Range<usize>>); 10] = [
             ("tank", e.tank.as_ref().map(Spanned::span)),
             ("device", e.device.as_ref().map(Spanned::span)),
             ("sensor", e.sensor.as_ref().map(Spanned::span)),
@@ -549,6 +568,11 @@ impl Checker<'_> {
             ("cd", e.cd.as_ref().map(Spanned::span)),
             ("flow_m3_h", e.flow_m3_h.as_ref().map(Spanned::span)),
             ("duration_s", e.duration_s.as_ref().map(Spanned::span)),
+            ("value_si", e.value_si.as_ref().map(Spanned::span)),
+            (
+                "reply_delay_ms",
+                e.reply_delay_ms.as_ref().map(Spanned::span),
+            ),
         ];
         let mut ok = true;
         for (key, span) in &present {
@@ -615,7 +639,10 @@ impl Checker<'_> {
                 }
             }
             Action::TransferStops => EventKind::TransferStops { tank: tank? },
-            Action::SensorSticks | Action::SensorGarbage | Action::SensorRecovers => {
+            Action::SensorSticks
+            | Action::SensorGarbage
+            | Action::SensorReads
+            | Action::SensorRecovers => {
                 let tank = tank?;
                 let sensor = e.sensor.as_ref()?;
                 let t = &self.site.tanks[tank];
@@ -638,6 +665,18 @@ impl Checker<'_> {
                 let fault = match action {
                     Action::SensorSticks => Fault::Stuck,
                     Action::SensorGarbage => Fault::Garbage,
+                    Action::SensorReads => {
+                        let value = e.value_si.as_ref()?;
+                        let v = *value.get_ref();
+                        if !v.is_finite() {
+                            self.problem(
+                                value.span(),
+                                "value_si must be a finite number in SI units (m, Pa, m³/s); use sensor_garbage for NaN",
+                            );
+                            return None;
+                        }
+                        Fault::Reads(v)
+                    }
                     _ => Fault::None,
                 };
                 EventKind::SensorFault {
@@ -647,36 +686,25 @@ impl Checker<'_> {
                 }
             }
             Action::LinkDrops => {
-                let device = e.device.as_ref()?;
-                let duration = e.duration_s.as_ref()?;
-                let index = self
-                    .site
-                    .devices
-                    .iter()
-                    .position(|d| d.id == *device.get_ref());
-                if index.is_none() {
-                    let known: Vec<&str> =
-                        self.site.devices.iter().map(|d| d.id.as_str()).collect();
+                let (device, duration_s) = self.outage(e)?;
+                EventKind::LinkDrops { device, duration_s }
+            }
+            Action::DeviceSlows => {
+                let outage = self.outage(e);
+                let delay = e.reply_delay_ms.as_ref()?;
+                let reply_delay_ms = *delay.get_ref();
+                if reply_delay_ms == 0 || reply_delay_ms > 60_000 {
                     self.problem(
-                        device.span(),
-                        format!(
-                            "device \"{}\" is not in the site config; use one of: {}",
-                            device.get_ref(),
-                            known.join(", ")
-                        ),
-                    );
-                }
-                let d = *duration.get_ref();
-                if !(d.is_finite() && d > 0.0) {
-                    self.problem(
-                        duration.span(),
-                        format!("duration_s = {d} must be a positive number of seconds"),
+                        delay.span(),
+                        format!("reply_delay_ms = {reply_delay_ms} must be 1 to 60000 ms"),
                     );
                     return None;
                 }
-                EventKind::LinkDrops {
-                    device: index?,
-                    duration_s: d,
+                let (device, duration_s) = outage?;
+                EventKind::DeviceSlows {
+                    device,
+                    duration_s,
+                    reply_delay_ms,
                 }
             }
             Action::RaiseFlag | Action::LowerFlag => {
@@ -700,6 +728,37 @@ impl Checker<'_> {
             }
         };
         Some(Event { at_s, kind })
+    }
+
+    /// The device and duration of a link event, checked.
+    fn outage(&mut self, e: &RawEvent) -> Option<(usize, f64)> {
+        let device = e.device.as_ref()?;
+        let duration = e.duration_s.as_ref()?;
+        let index = self
+            .site
+            .devices
+            .iter()
+            .position(|d| d.id == *device.get_ref());
+        if index.is_none() {
+            let known: Vec<&str> = self.site.devices.iter().map(|d| d.id.as_str()).collect();
+            self.problem(
+                device.span(),
+                format!(
+                    "device \"{}\" is not in the site config; use one of: {}",
+                    device.get_ref(),
+                    known.join(", ")
+                ),
+            );
+        }
+        let d = *duration.get_ref();
+        if !(d.is_finite() && d > 0.0) {
+            self.problem(
+                duration.span(),
+                format!("duration_s = {d} must be a positive number of seconds"),
+            );
+            return None;
+        }
+        Some((index?, d))
     }
 
     fn hole(&mut self, e: &RawEvent, tank: usize) -> Option<HoleSpec> {

@@ -8,7 +8,9 @@
 //! system. A unit id that no device has gets GatewayTargetDevice, the answer
 //! of a gateway with nothing behind that id. While a device's link is down
 //! its requests get no reply at all and the client times out, as when an
-//! RTU's radio or serial link behind a gateway fails.
+//! RTU's radio or serial link behind a gateway fails. While a device is
+//! slowed, each of its replies waits out the delay first (requests on one
+//! connection are answered in order, so later ones wait behind it).
 //!
 //! Left out: the physics and the clock (they update the shared image from
 //! outside), Modbus RTU, and per-connection state: every connection sees the
@@ -17,11 +19,13 @@
 use crate::registers::{ReadError, RegisterImage};
 use leaktally::acquire::decode::{BitKind, RegisterKind};
 use std::collections::{BTreeMap, HashMap};
-use std::future::{Future, Ready, ready};
+use std::future::Future;
 use std::io;
 use std::net::SocketAddr;
+use std::pin::Pin;
 use std::sync::atomic::{AtomicU64, Ordering};
 use std::sync::{Arc, Mutex, PoisonError};
+use std::time::Duration;
 use tokio::net::TcpListener;
 use tokio_modbus::prelude::*;
 use tokio_modbus::server::Terminated;
@@ -38,6 +42,8 @@ pub struct Shared {
     pub image: RegisterImage,
     /// Per device: no replies while true.
     pub link_down: Vec<bool>,
+    /// Per device: how long each reply waits before it is sent.
+    pub reply_delay: Vec<Duration>,
 }
 
 /// Requests seen, by function code, across all connections.
@@ -112,7 +118,24 @@ impl SimService {
         }
     }
 
-    fn handle(&self, req: SlaveRequest<'static>) -> Result<Option<Response>, ExceptionCode> {
+    /// The reply to a request, and how long to hold it back.
+    fn handle(
+        &self,
+        req: SlaveRequest<'static>,
+    ) -> (Result<Option<Response>, ExceptionCode>, Duration) {
+        let SlaveRequest { slave, .. } = &req;
+        let delay = self
+            .units
+            .get(slave)
+            .and_then(|&device| {
+                let shared = self.shared.lock().unwrap_or_else(PoisonError::into_inner);
+                shared.reply_delay.get(device).copied()
+            })
+            .unwrap_or(Duration::ZERO);
+        (self.answer(req), delay)
+    }
+
+    fn answer(&self, req: SlaveRequest<'static>) -> Result<Option<Response>, ExceptionCode> {
         let SlaveRequest { slave, request } = req;
         self.counts.record(request.function_code().value());
         let Some(&device) = self.units.get(&slave) else {
@@ -152,10 +175,16 @@ impl tokio_modbus::server::Service for SimService {
     // None sends nothing: how a dropped link looks to the client.
     type Response = Option<Response>;
     type Exception = ExceptionCode;
-    type Future = Ready<Result<Option<Response>, ExceptionCode>>;
+    type Future = Pin<Box<dyn Future<Output = Result<Option<Response>, ExceptionCode>> + Send>>;
 
     fn call(&self, req: Self::Request) -> Self::Future {
-        ready(self.handle(req))
+        let (reply, delay) = self.handle(req);
+        Box::pin(async move {
+            if !delay.is_zero() {
+                tokio::time::sleep(delay).await;
+            }
+            reply
+        })
     }
 }
 
