@@ -72,6 +72,7 @@ pub async fn run(config: Config, db: &Path, stop: impl Future<Output = ()>) -> a
             db.to_owned(),
             Arc::clone(&config),
             stats,
+            tracker.health(),
             started,
         ));
         tasks.spawn(web::serve(listener, shared, cancel.clone()));
@@ -95,6 +96,12 @@ pub async fn run(config: Config, db: &Path, stop: impl Future<Output = ()>) -> a
             _ = actions.tick() => {
                 if let Err(e) = tracker.on_actions().await {
                     warn!("operator actions: {e}");
+                }
+                // While commits fail the tracker paces the retries; extra
+                // writes would only stall the loop on the same lock or disk.
+                // A stale heartbeat is then what readers see, rightly.
+                if tracker.store_failing() {
+                    continue;
                 }
                 if last_beat.elapsed() >= HEARTBEAT {
                     last_beat = tokio::time::Instant::now();
@@ -122,10 +129,13 @@ pub async fn run(config: Config, db: &Path, stop: impl Future<Output = ()>) -> a
     while let Ok(batch) = samples.try_recv() {
         tracker.on_batch(batch).await;
     }
+    tracker.finish().await;
     if let Err(e) = tracker.on_actions().await {
         warn!("operator actions at shutdown: {e}");
     }
-    store.call(|c| store::mark_stopped(c)).await?;
+    if let Err(e) = store.call(|c| store::mark_stopped(c)).await {
+        warn!("cannot mark the daemon stopped: {e}");
+    }
     // The tracker holds the other handle on the store; let it go first.
     drop(tracker);
     match Arc::try_unwrap(store) {

@@ -19,8 +19,12 @@ use std::time::Duration;
 
 /// Upper bounds of the poll-cycle duration histogram, seconds. A healthy
 /// device on a LAN answers a cycle in a few milliseconds; a timed-out one
-/// takes its request timeout (500 ms by default), so the buckets span both.
-pub const CYCLE_BUCKETS_S: [f64; 10] = [0.005, 0.01, 0.025, 0.05, 0.1, 0.25, 0.5, 1.0, 2.5, 5.0];
+/// takes its request timeout (500 ms by default), so the buckets span both,
+/// finest at the low end where a LAN device's cycles fall.
+pub const CYCLE_BUCKETS_S: [f64; 16] = [
+    0.0005, 0.001, 0.0015, 0.002, 0.003, 0.005, 0.0075, 0.01, 0.025, 0.05, 0.1, 0.25, 0.5, 1.0,
+    2.5, 5.0,
+];
 
 /// No value recorded yet (a timestamp of 0 ms would be 1970).
 const NEVER: i64 = i64::MIN;

@@ -15,6 +15,7 @@
 //!
 //! Architecture invariant: only this module writes SQL.
 
+pub mod health;
 pub mod records;
 pub mod schema;
 
@@ -55,6 +56,9 @@ pub type StoreResult<T> = Result<T, StoreError>;
 
 /// How long a connection waits for another writer's lock before giving up.
 pub const BUSY_TIMEOUT: Duration = Duration::from_secs(5);
+/// The daemon's writer waits less: its loop waits with it, and a failed
+/// commit is kept and retried anyway (see `track::tracker`).
+pub const WRITER_BUSY_TIMEOUT: Duration = Duration::from_secs(1);
 
 /// Opens (creating if needed) the database for writing, applies the
 /// pragmas and migrates the schema.
@@ -132,6 +136,7 @@ impl Store {
     /// Opens the database and starts its thread.
     pub fn open(path: &Path) -> StoreResult<Self> {
         let mut conn = open_read_write(path)?;
+        conn.busy_timeout(WRITER_BUSY_TIMEOUT)?;
         // Bounded: a stalled disk makes senders wait instead of queueing
         // without limit.
         let (jobs, mut queue) = mpsc::channel::<Job>(256);

@@ -14,12 +14,15 @@
 
 use crate::acquire::sample::TankSample;
 use crate::config::Config;
+use crate::store::health::{StoreHealth, WriteFailure};
 use crate::store::{self, EventRow, Store, StoreError, StoreResult};
 use crate::track::estimator::{Estimate, Estimator, LeakParams};
 use serde::{Deserialize, Serialize};
-use std::collections::{HashMap, VecDeque};
+use std::collections::{HashMap, HashSet, VecDeque};
 use std::sync::Arc;
-use tracing::{info, warn};
+use std::time::Duration;
+use tokio::time::Instant;
+use tracing::{debug, error, info, warn};
 
 /// What an operator may ask for, as stored in an action row.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
@@ -78,8 +81,20 @@ impl Request {
 /// How far after a back-dated start the first logged sample may be.
 const HISTORY_SLACK_MS: i64 = 60_000;
 
+/// How long after a failed commit the next one is tried. Each attempt may
+/// wait out the writer's busy timeout, and the daemon's loop waits with it,
+/// so attempts are spaced to let the loop drain acquisition in between.
+const RETRY_EVERY: Duration = Duration::from_secs(2);
+/// Failed attempts between repeated warnings in the log (about a minute).
+const WARN_EVERY_ATTEMPTS: u64 = 30;
+/// Samples held in memory, while the database takes no writes, before the
+/// oldest samples of tanks with no open event are given up: about half an
+/// hour of a 1,000-tank site at 1 s, some 300 MB. Event samples and
+/// estimates are never given up.
+const MAX_HELD_SAMPLES: usize = 2_000_000;
+
 /// Samples and estimates that belong in one transaction.
-#[derive(Debug, Default)]
+#[derive(Debug, Default, Clone)]
 struct Write {
     samples: Vec<TankSample>,
     /// (event, revision, estimates).
@@ -101,6 +116,13 @@ pub struct Tracker {
     /// Writes that failed (database locked, disk full), retried first next
     /// time: nothing acquired is dropped while the process lives.
     backlog: VecDeque<Arc<Write>>,
+    /// Samples in `backlog`.
+    held_samples: usize,
+    /// Set after a failed commit: no attempt before then.
+    retry_at: Option<Instant>,
+    /// [`MAX_HELD_SAMPLES`], smaller in tests.
+    max_held_samples: usize,
+    health: Arc<StoreHealth>,
 }
 
 impl Tracker {
@@ -112,6 +134,10 @@ impl Tracker {
             open: HashMap::new(),
             flags: HashMap::new(),
             backlog: VecDeque::new(),
+            held_samples: 0,
+            retry_at: None,
+            max_held_samples: MAX_HELD_SAMPLES,
+            health: Arc::new(StoreHealth::default()),
         };
         let events = tracker.store.call(|c| store::events(c, true)).await?;
         for row in events {
@@ -129,6 +155,17 @@ impl Tracker {
     /// How many events are open.
     pub fn open_events(&self) -> usize {
         self.open.len()
+    }
+
+    /// Whether the database is taking writes, shared for the web server.
+    pub fn health(&self) -> Arc<StoreHealth> {
+        Arc::clone(&self.health)
+    }
+
+    /// True while commits fail and acquired data waits in memory; the
+    /// daemon then leaves its own housekeeping writes alone.
+    pub fn store_failing(&self) -> bool {
+        self.retry_at.is_some()
     }
 
     /// Builds an estimator for an event and replays its stored samples.
@@ -178,12 +215,33 @@ impl Tracker {
             }
         }
         write.samples = batch;
+        self.held_samples += write.samples.len();
         self.backlog.push_back(Arc::new(write));
+        if self.retry_at.is_some_and(|at| Instant::now() < at) {
+            self.bound_backlog();
+            self.health.set_held(self.backlog.len(), self.held_samples);
+            return;
+        }
         self.flush().await;
+    }
+
+    /// Commits what is held whatever the retry pacing says, and says what
+    /// is lost if the database still takes nothing (at shutdown).
+    pub async fn finish(&mut self) {
+        self.retry_at = None;
+        self.flush().await;
+        if !self.backlog.is_empty() {
+            error!(
+                "{} poll cycle(s), {} samples, could not be stored before stopping and are lost",
+                self.backlog.len(),
+                self.held_samples
+            );
+        }
     }
 
     /// Commits the backlog, oldest first, one transaction per write.
     async fn flush(&mut self) {
+        let held = self.backlog.len();
         while let Some(write) = self.backlog.front() {
             // Shared, not copied: a poll cycle of a large site is thousands
             // of samples, and it stays in the backlog until it is committed.
@@ -202,16 +260,73 @@ impl Tracker {
                 .await;
             match result {
                 Ok(()) => {
-                    self.backlog.pop_front();
+                    if let Some(w) = self.backlog.pop_front() {
+                        self.held_samples -= w.samples.len();
+                    }
                 }
                 Err(e) => {
-                    warn!(
-                        "cannot store {} poll cycle(s) yet, will retry: {e}",
-                        self.backlog.len()
-                    );
+                    self.on_write_failure(&e);
                     return;
                 }
             }
+        }
+        if self.retry_at.take().is_some() {
+            let since = self.health.snapshot().failing.map_or(0, |(ms, _)| ms);
+            info!(
+                "the database takes writes again after {:.1} s; stored {held} held poll cycle(s)",
+                (store::now_ms() - since) as f64 / 1000.0
+            );
+        }
+        self.health.record_success();
+        self.health.set_held(0, 0);
+    }
+
+    fn on_write_failure(&mut self, e: &StoreError) {
+        let why = WriteFailure::of(e);
+        let first = self.retry_at.is_none();
+        self.retry_at = Some(Instant::now() + RETRY_EVERY);
+        self.health.record_failure(store::now_ms(), why);
+        self.bound_backlog();
+        self.health.set_held(self.backlog.len(), self.held_samples);
+        let attempts = self.health.snapshot().failed_attempts;
+        let message = format!(
+            "cannot store {} poll cycle(s) ({} samples) yet: {e}; {}; holding them in memory and retrying every {} s",
+            self.backlog.len(),
+            self.held_samples,
+            why.describe(),
+            RETRY_EVERY.as_secs()
+        );
+        if first || attempts.is_multiple_of(WARN_EVERY_ATTEMPTS) {
+            warn!("{message}");
+        } else {
+            debug!("{message}");
+        }
+    }
+
+    /// Keeps the held samples under [`MAX_HELD_SAMPLES`] by giving up the
+    /// oldest samples of tanks with no open event. An open event's samples
+    /// are its evidence and stay, however long the outage.
+    fn bound_backlog(&mut self) {
+        if self.held_samples <= self.max_held_samples {
+            return;
+        }
+        let tracked: HashSet<&str> = self.open.values().map(|e| e.row.tank.as_str()).collect();
+        let mut dropped = 0;
+        for write in self.backlog.iter_mut() {
+            if self.held_samples - dropped <= self.max_held_samples {
+                break;
+            }
+            let w = Arc::make_mut(write);
+            let before = w.samples.len();
+            w.samples.retain(|s| tracked.contains(s.tank_id.as_str()));
+            dropped += before - w.samples.len();
+        }
+        if dropped > 0 {
+            self.held_samples -= dropped;
+            self.health.add_dropped(dropped);
+            error!(
+                "the database has taken no writes for long enough that {dropped} held samples of tanks with no open event were given up to bound memory; event samples are all kept"
+            );
         }
     }
 
@@ -330,8 +445,15 @@ impl Tracker {
     /// Applies every pending operator action.
     pub async fn on_actions(&mut self) -> StoreResult<()> {
         // Make sure every acquired sample is stored before an action reads
-        // the history (back-dating, revisions).
+        // the history (back-dating, revisions). Until it is, actions wait
+        // in their rows; none is refused for a locked or full disk.
+        if self.retry_at.is_some_and(|at| Instant::now() < at) {
+            return Ok(());
+        }
         self.flush().await;
+        if !self.backlog.is_empty() {
+            return Ok(());
+        }
         let pending = self.store.call(|c| store::pending_actions(c)).await?;
         for action in pending {
             let outcome = match serde_json::from_value::<Request>(action.request.clone()) {
@@ -343,6 +465,9 @@ impl Tracker {
             let (event, done, text) = match outcome {
                 Ok((event, text)) => (event, true, text),
                 Err(StoreError::Refused(why)) => (action.event, false, why),
+                // Left pending, to be applied once the database takes
+                // writes again.
+                Err(e) if WriteFailure::of(&e) != WriteFailure::Other => return Err(e),
                 Err(e) => (action.event, false, format!("failed: {e}")),
             };
             if done {
@@ -509,4 +634,109 @@ pub fn describe_params(p: &LeakParams) -> String {
         .density_kg_m3
         .map_or(String::new(), |d| format!(", density {d} kg/m³"));
     format!("{hole} at {:.2} m, Cd {}{density}", p.hole_height_m, p.cd)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::acquire::sample::Reading;
+
+    const SITE: &str = r#"[site]
+name = "Test"
+[[device]]
+id = "d1"
+address = "127.0.0.1:1502"
+[[tank]]
+id = "T1"
+device = "d1"
+geometry = { shape = "vertical_cylinder", diameter_m = 3.0, height_m = 5.0 }
+substance = { name = "diesel", density_kg_m3 = 840.0 }
+level = { register = "input", address = 0, type = "u16", raw = [4000, 20000], range = [0.0, 5.0], unit = "m" }
+[[tank]]
+id = "T2"
+device = "d1"
+geometry = { shape = "vertical_cylinder", diameter_m = 3.0, height_m = 5.0 }
+substance = { name = "diesel", density_kg_m3 = 840.0 }
+level = { register = "input", address = 1, type = "u16", raw = [4000, 20000], range = [0.0, 5.0], unit = "m" }
+"#;
+
+    fn sample(tank: usize, at_ms: i64) -> TankSample {
+        TankSample {
+            tank,
+            tank_id: format!("T{}", tank + 1),
+            at_ms,
+            level: Reading::good(4.0 - 0.001 * (at_ms % 100_000) as f64 / 1000.0),
+            pressure: None,
+            transfer: None,
+            leak_flag: None,
+        }
+    }
+
+    /// A write lock held by another connection: commits fail and are held,
+    /// the samples of the tank with no event are given up past the bound
+    /// while every event sample is kept, and all that is held is stored
+    /// once the lock goes.
+    #[tokio::test(flavor = "multi_thread")]
+    async fn held_writes_survive_a_lock_and_only_untracked_samples_are_given_up() {
+        let dir = std::env::temp_dir().join(format!("leaktally-tracker-{}", std::process::id()));
+        std::fs::create_dir_all(&dir).unwrap();
+        let db = dir.join("t.db");
+        let config =
+            Arc::new(crate::config::parse(SITE, std::path::Path::new("site.toml")).unwrap());
+        let start = store::now_ms() - 60_000;
+        {
+            let conn = store::open_read_write(&db).unwrap();
+            store::register_tanks(&conn, ["T1", "T2"]).unwrap();
+            let params = LeakParams {
+                hole_diameter_m: Some(0.02),
+                hole_height_m: 0.3,
+                cd: 0.61,
+                density_kg_m3: None,
+            };
+            store::create_event(&conn, "T1", start, start, "operator", &params).unwrap();
+        }
+        let store = Arc::new(Store::open(&db).unwrap());
+        let mut tracker = Tracker::resume(Arc::clone(&config), Arc::clone(&store))
+            .await
+            .unwrap();
+        assert_eq!(tracker.open_events(), 1);
+        tracker.max_held_samples = 10;
+
+        let holder = rusqlite::Connection::open(&db).unwrap();
+        holder.execute_batch("BEGIN IMMEDIATE").unwrap();
+        for i in 0..10 {
+            let at = start + 1000 * (i + 1);
+            tracker.on_batch(vec![sample(0, at), sample(1, at)]).await;
+        }
+        assert!(tracker.store_failing());
+        let h = tracker.health().snapshot();
+        assert_eq!(h.failing.map(|(_, why)| why), Some(WriteFailure::Locked));
+        assert_eq!(h.held_cycles, 10);
+        // 20 acquired, bound 10: the 10 oldest T2 samples are given up
+        // (the bound is checked per cycle, so it gives up what it must).
+        assert_eq!(h.held_samples + h.dropped_samples, 20);
+        assert!(h.held_samples <= 11, "{h:?}");
+        assert!(h.dropped_samples >= 9, "{h:?}");
+
+        holder.execute_batch("COMMIT").unwrap();
+        tracker.finish().await;
+        assert!(!tracker.store_failing());
+        assert_eq!(tracker.health().snapshot().failing, None);
+        let counts = store
+            .call(move |c| {
+                let n = |tag: &str| -> rusqlite::Result<i64> {
+                    c.query_row("SELECT count(*) FROM samples s JOIN tanks t ON t.id = s.tank WHERE t.tag = ?1", [tag], |r| r.get(0))
+                };
+                Ok((n("T1")?, n("T2")?))
+            })
+            .await
+            .unwrap();
+        assert_eq!(counts.0, 10, "every event sample is stored");
+        assert_eq!(counts.1 as u64, 10 - h.dropped_samples);
+        drop(tracker);
+        if let Ok(store) = Arc::try_unwrap(store) {
+            store.close();
+        }
+        let _ = std::fs::remove_dir_all(&dir);
+    }
 }

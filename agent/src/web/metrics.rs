@@ -14,6 +14,7 @@
 use crate::acquire::stats::{DeviceSnapshot, TankSnapshot};
 use crate::commands::status::StatusDocument;
 use crate::config::Config;
+use crate::store::health::HealthSnapshot;
 use std::fmt::Write as _;
 
 /// What the metrics are made of.
@@ -22,6 +23,7 @@ pub struct Inputs<'a> {
     pub devices: &'a [DeviceSnapshot],
     pub tanks: &'a [TankSnapshot],
     pub doc: &'a StatusDocument,
+    pub store: &'a HealthSnapshot,
     pub started_ms: i64,
 }
 
@@ -77,6 +79,36 @@ pub fn render(inputs: &Inputs<'_>) -> String {
         "When the daemon started, seconds since the Unix epoch.",
     )
     .value(&[], seconds(inputs.started_ms));
+
+    let store = inputs.store;
+    family(
+        &mut out,
+        "leaktally_store_writes_failing",
+        "gauge",
+        "1 while the database takes none of the daemon's writes (locked by another program, or the disk is full); acquired data then waits in memory.",
+    )
+    .value(&[], if store.failing.is_some() { 1.0 } else { 0.0 });
+    family(
+        &mut out,
+        "leaktally_store_failed_commits_total",
+        "counter",
+        "Commit attempts that failed, since the daemon started.",
+    )
+    .value(&[], store.failed_attempts as f64);
+    family(
+        &mut out,
+        "leaktally_store_held_samples",
+        "gauge",
+        "Samples acquired but not yet stored, held in memory.",
+    )
+    .value(&[], store.held_samples as f64);
+    family(
+        &mut out,
+        "leaktally_store_dropped_samples_total",
+        "counter",
+        "Held samples of tanks with no open event given up to bound memory during a long outage.",
+    )
+    .value(&[], store.dropped_samples as f64);
 
     let mut f = family(
         &mut out,

@@ -27,6 +27,7 @@ pub mod page;
 use crate::acquire::stats::Stats;
 use crate::commands::status;
 use crate::config::{Config, Web};
+use crate::store::health::StoreHealth;
 use crate::store::{self, StoreError};
 use axum::Router;
 use axum::body::Body;
@@ -75,6 +76,8 @@ pub struct Shared {
     pub db: PathBuf,
     pub config: Arc<Config>,
     pub stats: Arc<Stats>,
+    /// Whether the database takes the daemon's writes.
+    pub health: Arc<StoreHealth>,
     /// When the daemon started, UTC ms (for the metrics).
     pub started_ms: i64,
     /// Bounds the database reads in flight; see [`CONCURRENT_READS`].
@@ -82,11 +85,18 @@ pub struct Shared {
 }
 
 impl Shared {
-    pub fn new(db: PathBuf, config: Arc<Config>, stats: Arc<Stats>, started_ms: i64) -> Self {
+    pub fn new(
+        db: PathBuf,
+        config: Arc<Config>,
+        stats: Arc<Stats>,
+        health: Arc<StoreHealth>,
+        started_ms: i64,
+    ) -> Self {
         Self {
             db,
             config,
             stats,
+            health,
             started_ms,
             readers: Semaphore::new(CONCURRENT_READS),
         }
@@ -346,6 +356,7 @@ fn page_data(shared: &Shared) -> Result<page::PageData, Failure> {
         doc,
         events,
         stale_after_ms,
+        store: shared.health.snapshot(),
     })
 }
 
@@ -393,6 +404,7 @@ async fn metrics_text(State(shared): State<Arc<Shared>>) -> Response {
                 devices: &shared.stats.devices(),
                 tanks: &shared.stats.tanks(),
                 doc: &doc,
+                store: &shared.health.snapshot(),
                 started_ms: shared.started_ms,
             });
             (

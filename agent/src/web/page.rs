@@ -18,6 +18,7 @@ use crate::commands::status::{EventStatus, StatusDocument, Volumes};
 use crate::model::TimeSpan;
 use crate::report;
 use crate::store::ActionRow;
+use crate::store::health::HealthSnapshot;
 use crate::web::chart::{self, Point};
 use std::fmt::Write as _;
 
@@ -29,6 +30,8 @@ pub struct PageData {
     pub events: Vec<EventExtras>,
     /// A latest estimate older than this is flagged as not current.
     pub stale_after_ms: i64,
+    /// Whether the database takes the daemon's writes.
+    pub store: HealthSnapshot,
 }
 
 /// What the page shows beside an event's status document.
@@ -156,7 +159,30 @@ pub fn render(data: &PageData) -> String {
         at = escape(&doc.generated_at),
         caution = escape(doc.caution.strip_prefix("CAUTION: ").unwrap_or(doc.caution)),
     );
-    if !doc.daemon_running {
+    if let Some((since, why)) = data.store.failing {
+        let h = &data.store;
+        let mut text = format!(
+            "The database has taken none of the agent's writes since {}: {}. {} poll cycles ({} samples) wait in the agent's memory and will be stored when it does; the figures below stop at that time.",
+            report::utc(since),
+            why.describe(),
+            h.held_cycles,
+            h.held_samples
+        );
+        if h.dropped_samples > 0 {
+            let _ = write!(
+                text,
+                " To bound memory, {} samples of tanks with no open event were given up; every event sample is kept.",
+                h.dropped_samples
+            );
+        }
+        let _ = writeln!(
+            s,
+            r#"<p class="alarm" role="alert" data-field="store">{}</p>"#,
+            escape(&text)
+        );
+    } else if !doc.daemon_running {
+        // (While writes fail the heartbeat is stale too, but this page is
+        // served by the daemon itself, so the message above is the true one.)
         let _ = writeln!(
             s,
             r#"<p class="alarm" role="alert">The agent's daemon is not running (last seen {}); these figures are not being updated.</p>"#,

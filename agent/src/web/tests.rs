@@ -37,6 +37,12 @@ impl Drop for Scratch {
 
 /// A site, a database with one open event of 120 estimates, and the router.
 fn fixture() -> (Scratch, Router, i64) {
+    let (scratch, router, id, _) = fixture_with_health();
+    (scratch, router, id)
+}
+
+/// As [`fixture`], with the daemon's store health to set.
+fn fixture_with_health() -> (Scratch, Router, i64, Arc<StoreHealth>) {
     static NEXT: AtomicU32 = AtomicU32::new(0);
     let dir = std::env::temp_dir().join(format!(
         "leaktally-web-{}-{}",
@@ -87,8 +93,9 @@ fn fixture() -> (Scratch, Router, i64) {
     store::beat(&conn, 1, now, "site.toml").unwrap();
     drop(conn);
     let stats = Arc::new(Stats::new(&config));
-    let shared = Arc::new(Shared::new(db, config, stats, now));
-    (scratch, router(shared), id)
+    let health = Arc::new(StoreHealth::default());
+    let shared = Arc::new(Shared::new(db, config, stats, Arc::clone(&health), now));
+    (scratch, router(shared), id, health)
 }
 
 async fn call(router: &Router, method: &str, uri: &str) -> (StatusCode, HeaderMap, String) {
@@ -269,4 +276,36 @@ async fn metrics_and_assets_have_their_content_types() {
     let (_, headers, js) = call(&router, "GET", "/assets/refresh.js").await;
     assert_eq!(content_type(&headers), "text/javascript; charset=utf-8");
     assert!(js.contains("fetch("));
+}
+
+#[tokio::test]
+async fn a_database_that_takes_no_writes_is_shown_on_the_page_and_in_the_metrics() {
+    use crate::store::health::WriteFailure;
+    let (_scratch, router, _, health) = fixture_with_health();
+    let (_, _, page) = call(&router, "GET", "/").await;
+    assert!(!page.contains(r#"data-field="store""#));
+    let (_, _, metrics) = call(&router, "GET", "/metrics").await;
+    assert!(
+        metrics.contains("\nleaktally_store_writes_failing 0\n"),
+        "{metrics}"
+    );
+
+    health.record_failure(1_700_000_000_000, WriteFailure::Full);
+    health.set_held(7, 21);
+    let (_, _, page) = call(&router, "GET", "/").await;
+    assert!(page.contains(r#"data-field="store""#), "{page}");
+    assert!(page.contains("since 2023-11-14 22:13:20 UTC: the disk holding the database is full; free space on it. 7 poll cycles (21 samples) wait"), "{page}");
+    let (_, _, metrics) = call(&router, "GET", "/metrics").await;
+    assert!(
+        metrics.contains("\nleaktally_store_writes_failing 1\n"),
+        "{metrics}"
+    );
+    assert!(
+        metrics.contains("\nleaktally_store_held_samples 21\n"),
+        "{metrics}"
+    );
+    assert!(
+        metrics.contains("\nleaktally_store_failed_commits_total 1\n"),
+        "{metrics}"
+    );
 }
