@@ -8,6 +8,8 @@
 //!   Modbus implementation.
 //! * `python_env`: the pinned Python environment those tests use.
 //! * `replay`: replays of a logged event and of a readings file.
+//! * `faults`: link drops, a slow device, failed sensors, a locked
+//!   database and a full disk, end to end.
 //! * `tracking`: the simulator, the daemon and the operator CLI as real
 //!   processes, against the simulator's ground truth.
 //! * `web`: the daemon's responder page in headless chromium against
@@ -15,6 +17,7 @@
 //! * `util`: shared helpers.
 
 mod acquisition;
+mod faults;
 mod interop;
 mod properties;
 mod python_env;

@@ -11,8 +11,9 @@ use std::path::{Path, PathBuf};
 use std::process::Command;
 use std::time::{Duration, Instant};
 
-/// Every tank of the demo site leaking from 1 s into the run.
-pub(crate) fn scenario(scratch: &Scratch) -> PathBuf {
+/// Every tank of the demo site leaking from 1 s into the run, then the
+/// `[[event]]` tables in `extra`.
+pub(crate) fn scenario(scratch: &Scratch, extra: &str) -> PathBuf {
     let site = scratch.write("sim-site.toml", &demo_site("127.0.0.1:1"));
     scratch.write(
         "scenario.toml",
@@ -55,7 +56,7 @@ tank = "FF-T20"
 diameter_mm = 35.0
 height_m = 0.5
 cd = 0.61
-"#,
+{extra}"#,
             site = toml_path(&site)
         ),
     )
@@ -72,10 +73,22 @@ pub(crate) struct Plant {
 
 impl Plant {
     pub(crate) fn start(label: &str) -> Self {
+        Self::start_with(label, "", |site| site)
+    }
+
+    /// As [`Plant::start`], with more simulator events (`[[event]]`
+    /// tables) and the daemon's site config passed through `edit`.
+    pub(crate) fn start_with(
+        label: &str,
+        events: &str,
+        edit: impl FnOnce(String) -> String,
+    ) -> Self {
         let scratch = Scratch::new(label);
+        let (sim, address) = start_sim(&scratch, &scenario(&scratch, events), "127.0.0.1:0");
+        // The simulator's clock starts as it listens. Taken after the start,
+        // not before: finding the binary may wait on a build.
         let started_ms = now_ms();
-        let (sim, address) = start_sim(&scratch, &scenario(&scratch), "127.0.0.1:0");
-        let site = scratch.write("site.toml", &demo_site(&address));
+        let site = scratch.write("site.toml", &edit(demo_site(&address)));
         let db = scratch.path("leaktally.db");
         Self {
             scratch,

@@ -122,7 +122,8 @@ pub const STARTUP: Duration = Duration::from_secs(10);
 /// Longest any one command may run before the test gives up on it.
 pub const COMMAND_LIMIT: Duration = Duration::from_secs(15);
 
-/// A fresh folder under the system temp dir, removed when dropped.
+/// A fresh folder under the system temp dir, removed when dropped unless
+/// the test failed.
 pub struct Scratch(pub PathBuf);
 
 impl Scratch {
@@ -153,7 +154,12 @@ impl Scratch {
 
 impl Drop for Scratch {
     fn drop(&mut self) {
-        let _ = fs::remove_dir_all(&self.0);
+        // A failed test keeps its folder (logs, database, truth) to look at.
+        if std::thread::panicking() {
+            eprintln!("kept {} for inspection", self.0.display());
+        } else {
+            let _ = fs::remove_dir_all(&self.0);
+        }
     }
 }
 

@@ -42,7 +42,7 @@ pub enum StoreError {
     Missing(PathBuf),
     #[error(transparent)]
     Schema(#[from] schema::SchemaError),
-    #[error("database error: {0}")]
+    #[error("database error: {0}{hint}", hint = sql_hint(.0))]
     Sql(#[from] rusqlite::Error),
     #[error("stored data is not valid: {0}")]
     Corrupt(String),
@@ -53,6 +53,22 @@ pub enum StoreError {
 }
 
 pub type StoreResult<T> = Result<T, StoreError>;
+
+/// The fix for the SQLite errors a user can do something about.
+fn sql_hint(e: &rusqlite::Error) -> &'static str {
+    match e.sqlite_error_code() {
+        Some(rusqlite::ErrorCode::DiskFull) => {
+            " (the disk holding the database is full; free space on it and try again)"
+        }
+        Some(rusqlite::ErrorCode::DatabaseBusy | rusqlite::ErrorCode::DatabaseLocked) => {
+            " (another program holds the database's write lock; wait, or find and stop it)"
+        }
+        Some(rusqlite::ErrorCode::ReadOnly | rusqlite::ErrorCode::CannotOpen) => {
+            " (check that the database and its folder are writable by this user)"
+        }
+        _ => "",
+    }
+}
 
 /// How long a connection waits for another writer's lock before giving up.
 pub const BUSY_TIMEOUT: Duration = Duration::from_secs(5);
