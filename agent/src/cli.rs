@@ -2,7 +2,11 @@
 //! library. Parsing is clap's; each subcommand's work lives in `commands`.
 
 use crate::commands;
-use clap::{Parser, Subcommand};
+// Re-exported so that code outside the crate (the property tests in the root
+// package, which has no clap dependency of its own) can bring the trait into
+// scope and call `Cli::try_parse_from`.
+pub use clap::Parser;
+use clap::Subcommand;
 use std::path::PathBuf;
 
 /// Running released-quantity estimates for leaking tanks. Estimates for
@@ -84,7 +88,7 @@ pub enum Command {
         /// Liquid level, m (default: 90 % of the tank's height).
         #[arg(long, value_name = "M")]
         level: Option<f64>,
-        /// Discharge coefficient, in (0, 1] (default 1.0, conservative).
+        /// Discharge coefficient, 0.1 to 1 (default 1.0, conservative).
         #[arg(long, default_value_t = 1.0)]
         cd: f64,
         /// Print JSON instead of the table.
@@ -200,7 +204,7 @@ pub struct HoleArgs {
     /// conservative choice).
     #[arg(long, value_name = "M", allow_negative_numbers = true)]
     pub hole_height: Option<f64>,
-    /// Discharge coefficient, in (0, 1] (default 1.0, conservative; the
+    /// Discharge coefficient, 0.1 to 1 (default 1.0, conservative; the
     /// band runs from 0.61 to 1.0).
     #[arg(long, allow_negative_numbers = true)]
     pub cd: Option<f64>,
@@ -292,7 +296,7 @@ pub fn run(cli: Cli) -> anyhow::Result<()> {
                 unknown_diameter,
                 hole_height_m: hole.height_m()?,
                 cd: hole.cd_checked()?,
-                density_kg_m3: density,
+                density_kg_m3: commands::leak::check_density(density)?,
                 from_ms: when(from)?,
                 to_ms: when(to)?,
             };

@@ -328,11 +328,9 @@ pub fn flag(sensor: &Sensor, words: &[u16], stuck: bool) -> Reading {
     }
     let si = sensor.to_si(raw);
     let (lo, hi) = sensor.valid_si;
-    // A hair of slack for the scaling's round-off at the range ends.
-    let slack = 1e-9 * (hi - lo).abs();
     if !si.is_finite() {
         Reading::bad(Quality::NotANumber)
-    } else if si < lo - slack || si > hi + slack {
+    } else if !sensor.accepts(si) {
         Reading::bad(Quality::OutOfRange)
     } else if stuck {
         Reading::bad(Quality::Stuck)

@@ -60,11 +60,7 @@ pub fn run(command: LeakCommand) -> anyhow::Result<()> {
             note,
             db,
         } => {
-            if let Some(d) = density
-                && !(d.is_finite() && d > 0.0)
-            {
-                bail!("--density {d} must be a positive number of kg/m³");
-            }
+            check_density(density)?;
             let request = Request::Revise {
                 event,
                 hole_diameter_m: hole.diameter_m()?,
@@ -84,12 +80,26 @@ pub fn run(command: LeakCommand) -> anyhow::Result<()> {
     Ok(())
 }
 
+/// `--density`: a liquid's density in kg/m³ within the model's range.
+pub fn check_density(density: Option<f64>) -> anyhow::Result<Option<f64>> {
+    let (lo, hi) = crate::model::vessel::DENSITY_RANGE;
+    match density {
+        Some(d) if !(d.is_finite() && (lo..=hi).contains(&d)) => bail!(
+            "--density {d} is outside {lo} to {hi} kg/m³; give the liquid's density in kg/m³ (diesel is about 840)"
+        ),
+        other => Ok(other),
+    }
+}
+
 impl HoleArgs {
     pub fn diameter_m(&self) -> anyhow::Result<Option<f64>> {
         match self.hole_diameter {
             Some(mm) if !(mm.is_finite() && mm > 0.0) => {
                 bail!("--hole-diameter {mm} must be a positive number of millimetres")
             }
+            Some(mm) if mm < 0.1 => bail!(
+                "--hole-diameter {mm} mm is below 0.1 mm, smaller than any hole a tank leaks through; the option takes millimetres"
+            ),
             Some(mm) if mm > 5000.0 => bail!(
                 "--hole-diameter {mm} mm is over 5 m; the option takes millimetres (25 for a one-inch hole)"
             ),
@@ -202,7 +212,13 @@ fn user_from_uid() -> Option<String> {
 pub fn parse_since(text: &str, now_ms: i64) -> anyhow::Result<i64> {
     let text = text.trim();
     if let Some(ago) = parse_duration(text) {
-        return Ok(now_ms - ago.as_millis() as i64);
+        if ago > MAX_AGO {
+            bail!(
+                "--since {text} is more than {} days ago; no logged history goes back that far; give a full time such as 2026-12-01T13:42:00Z",
+                MAX_AGO.as_secs() / 86_400
+            );
+        }
+        return Ok(now_ms.saturating_sub(ago.as_millis() as i64));
     }
     if let Ok(t) = text.parse::<jiff::Timestamp>() {
         return Ok(t.as_millisecond());
@@ -232,6 +248,10 @@ pub fn parse_since(text: &str, now_ms: i64) -> anyhow::Result<i64> {
         "--since {text:?} is not a time or a duration; write a time today like 13:42, a UTC time like 2026-12-01T13:42:00Z, or how long ago like 90s, 5m or 1h30m"
     )
 }
+
+/// The furthest back a duration may go: a year is past any event's logged
+/// history (the rolling window keeps 24 h; event samples are kept).
+const MAX_AGO: Duration = Duration::from_secs(366 * 86_400);
 
 /// `90s`, `5m`, `1h30m`, `2h`: a duration from number-and-unit parts.
 fn parse_duration(text: &str) -> Option<Duration> {
@@ -264,8 +284,11 @@ fn parse_duration(text: &str) -> Option<Duration> {
         total += value * seconds;
         any = true;
     }
-    (any && number.is_empty() && total.is_finite() && total >= 0.0)
-        .then(|| Duration::from_secs_f64(total))
+    if !(any && number.is_empty()) {
+        return None;
+    }
+    // Refuses NaN, negatives and sizes past Duration's range.
+    Duration::try_from_secs_f64(total).ok()
 }
 
 #[cfg(test)]
@@ -285,7 +308,16 @@ mod tests {
         );
         let today = parse_since("00:00", now).unwrap();
         assert!(today <= now && now - today < 86_400_000);
-        for bad in ["soon", "5 parsecs", "12:99", "-5m", ""] {
+        let err = parse_since("9000h", now).unwrap_err().to_string();
+        assert!(err.contains("more than 366 days ago"), "{err}");
+        for bad in [
+            "soon",
+            "5 parsecs",
+            "12:99",
+            "-5m",
+            "",
+            "99999999999999999999s",
+        ] {
             let err = parse_since(bad, now).unwrap_err().to_string();
             assert!(err.contains("is not a time or a duration"), "{bad}: {err}");
         }

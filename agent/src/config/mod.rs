@@ -122,6 +122,15 @@ impl Sensor {
         start..start + u32::from(self.data_type.width())
     }
 
+    /// Whether an SI value is one this sensor can report: finite and inside
+    /// its valid range, with a hair of slack for the scaling's round-off at
+    /// the ends.
+    pub fn accepts(&self, si: f64) -> bool {
+        let (lo, hi) = self.valid_si;
+        let slack = 1e-9 * (hi - lo).abs();
+        si.is_finite() && si >= lo - slack && si <= hi + slack
+    }
+
     /// Raw register value to SI.
     pub fn to_si(&self, raw: f64) -> f64 {
         let (r0, r1) = self.raw_span;

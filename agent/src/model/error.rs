@@ -41,7 +41,7 @@ pub enum ModelError {
     },
 
     #[error(
-        "discharge coefficient {0} is outside (0, 1]; use 0.61 for a sharp-edged hole or 1.0 for the conservative figure"
+        "discharge coefficient {0} is outside 0.1 to 1; use 0.61 for a sharp-edged hole or 1.0 for the conservative figure"
     )]
     DischargeCoefficient(f64),
 

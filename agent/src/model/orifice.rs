@@ -11,7 +11,7 @@ use super::units::{
     Temperature,
 };
 
-/// A discharge coefficient Cd, in (0, 1].
+/// A discharge coefficient Cd, from 0.1 to 1.
 ///
 /// Cd is the ratio of the real flow to the ideal, frictionless flow through
 /// the same hole. It folds in the contraction of the jet (vena contracta) and
@@ -29,8 +29,14 @@ impl DischargeCoefficient {
     /// conservative choice when nobody has seen the hole (common practice).
     pub const CONSERVATIVE: Self = Self(1.0);
 
+    /// The lowest accepted. Real holes and nozzles lie between about 0.5
+    /// (a re-entrant mouthpiece, from memory) and 1.0; 0.1 leaves room for
+    /// a judgement call and keeps the model's figures finite, which a Cd
+    /// near zero does not (the fitted hole divides by it).
+    pub const MIN: f64 = 0.1;
+
     pub fn new(cd: f64) -> ModelResult<Self> {
-        if cd.is_finite() && cd > 0.0 && cd <= 1.0 {
+        if cd.is_finite() && (Self::MIN..=1.0).contains(&cd) {
             Ok(Self(cd))
         } else {
             Err(ModelError::DischargeCoefficient(cd))
@@ -55,6 +61,9 @@ impl Hole {
     /// circle with the same area.
     pub fn new(diameter: Length, elevation: Length) -> ModelResult<Self> {
         positive("hole diameter", diameter.si(), "m")?;
+        // Wider than any tank wall's side: a unit slip (mm for m), and the
+        // flow of such a hole is not finite in f64 past about 1e150 m.
+        within("hole diameter", diameter.si(), (0.0, 50.0), "m")?;
         non_negative("hole height", elevation.si(), "m")?;
         Ok(Self {
             diameter,
@@ -202,11 +211,12 @@ mod tests {
     use super::*;
 
     #[test]
-    fn cd_outside_zero_to_one_is_refused() {
-        for bad in [0.0, -0.5, 1.01, f64::NAN, f64::INFINITY] {
+    fn cd_outside_its_range_is_refused() {
+        for bad in [0.0, 0.05, 1e-308, -0.5, 1.01, f64::NAN, f64::INFINITY] {
             let err = DischargeCoefficient::new(bad).unwrap_err();
-            assert!(err.to_string().contains("outside (0, 1]"), "{err}");
+            assert!(err.to_string().contains("outside 0.1 to 1"), "{err}");
         }
+        assert!(DischargeCoefficient::new(DischargeCoefficient::MIN).is_ok());
         assert_eq!(
             DischargeCoefficient::new(1.0).unwrap(),
             DischargeCoefficient::CONSERVATIVE

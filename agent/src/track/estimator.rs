@@ -53,6 +53,9 @@ pub const CONSISTENCY_RATIO: f64 = 1.5;
 
 /// The window over which the inventory balance gives its own rate.
 pub const INVENTORY_RATE_WINDOW_MS: i64 = 60_000;
+/// The largest transfer believed from a file for a tank with no meter in
+/// its config, m³/s: 100 m³/s is 360,000 m³/h, past any pump or pipeline.
+pub const MAX_UNMETERED_TRANSFER_M3_S: f64 = 100.0;
 
 /// What the operator (or a replay) says about the leak.
 #[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
@@ -357,8 +360,17 @@ impl Estimator {
             level: Length::metres(level),
             headspace: self.headspace(sample, level),
         };
+        // A good reading from the poller is finite and inside its sensor's
+        // range, but one from a historian's file (replay --readings) need
+        // not be; such a value is held like a bad reading, as the range
+        // check above does for levels. A file may carry transfers for a
+        // tank whose config maps no meter: those get a bound of their own.
+        let plausible = |v: f64| match &self.tank.transfer {
+            Some(meter) => meter.accepts(v),
+            None => v.is_finite() && v.abs() <= MAX_UNMETERED_TRANSFER_M3_S,
+        };
         let transfer = match sample.transfer {
-            Some(r) if r.is_good() => r.value.unwrap_or(0.0),
+            Some(r) if r.is_good() && r.value.is_none_or(plausible) => r.value.unwrap_or(0.0),
             Some(_) => {
                 self.quality.transfer_held += 1;
                 self.last_transfer
@@ -420,9 +432,11 @@ impl Estimator {
         let Some(sensor) = &self.tank.pressure else {
             return self.tank.assumed_headspace;
         };
+        // Outside the transmitter's range: held like a bad reading (see the
+        // transfer in `push`).
         match sample
             .pressure
-            .and_then(|r| r.value.filter(|_| r.is_good()))
+            .and_then(|r| r.value.filter(|&v| r.is_good() && sensor.sensor.accepts(v)))
         {
             Some(p) => {
                 let reading = if sensor.absolute {
