@@ -641,24 +641,24 @@ mod tests {
     use super::*;
     use crate::acquire::sample::Reading;
 
-    const SITE: &str = r#"[site]
-name = "Test"
-[[device]]
-id = "d1"
-address = "127.0.0.1:1502"
-[[tank]]
-id = "T1"
+    /// A site of two upright tanks, T1 and T2, on one device.
+    fn site() -> String {
+        let mut site = String::from(
+            "[site]\nname = \"Test\"\n[[device]]\nid = \"d1\"\naddress = \"127.0.0.1:1502\"\n",
+        );
+        for (address, tag) in ["T1", "T2"].iter().enumerate() {
+            site += &format!(
+                r#"[[tank]]
+id = "{tag}"
 device = "d1"
-geometry = { shape = "vertical_cylinder", diameter_m = 3.0, height_m = 5.0 }
-substance = { name = "diesel", density_kg_m3 = 840.0 }
-level = { register = "input", address = 0, type = "u16", raw = [4000, 20000], range = [0.0, 5.0], unit = "m" }
-[[tank]]
-id = "T2"
-device = "d1"
-geometry = { shape = "vertical_cylinder", diameter_m = 3.0, height_m = 5.0 }
-substance = { name = "diesel", density_kg_m3 = 840.0 }
-level = { register = "input", address = 1, type = "u16", raw = [4000, 20000], range = [0.0, 5.0], unit = "m" }
-"#;
+geometry = {{ shape = "vertical_cylinder", diameter_m = 3.0, height_m = 5.0 }}
+substance = {{ name = "diesel", density_kg_m3 = 840.0 }}
+level = {{ register = "input", address = {address}, type = "u16", raw = [4000, 20000], range = [0.0, 5.0], unit = "m" }}
+"#
+            );
+        }
+        site
+    }
 
     fn sample(tank: usize, at_ms: i64) -> TankSample {
         TankSample {
@@ -682,7 +682,7 @@ level = { register = "input", address = 1, type = "u16", raw = [4000, 20000], ra
         std::fs::create_dir_all(&dir).unwrap();
         let db = dir.join("t.db");
         let config =
-            Arc::new(crate::config::parse(SITE, std::path::Path::new("site.toml")).unwrap());
+            Arc::new(crate::config::parse(&site(), std::path::Path::new("site.toml")).unwrap());
         let start = store::now_ms() - 60_000;
         {
             let conn = store::open_read_write(&db).unwrap();
