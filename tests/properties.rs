@@ -953,7 +953,7 @@ mod estimator {
 
     /// Leak parameters as the CLI lets them through: a known hole (usually a
     /// plausible size, sometimes up to the CLI's 5 m) or none, anywhere from
-    /// the bottom to the top, a Cd in (0, 1] (see [`cd`]), and perhaps a
+    /// the bottom to the top, a Cd from 0.1 to 1 (see [`cd`]), and perhaps a
     /// density override. The hole height is a fraction of the tank's height.
     fn params() -> impl Strategy<Value = (Option<f64>, f64, f64, Option<f64>)> {
         params_with(cd())

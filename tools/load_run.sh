@@ -16,11 +16,20 @@ tanks=${1:-1000}; devices=${2:-20}; seconds=${3:-300}; runs=${4:-1}
 bin=target/release
 [[ -x $bin/leaktally && -x $bin/leaktally-sim ]] || { echo "build first: cargo build --release --workspace" >&2; exit 1; }
 results=$(mktemp)
-trap 'rm -f "$results"' EXIT
+sim_pid=; agent_pid=; work=
+# Stops this run's processes and waits for them, so that runs never overlap;
+# also on an error or Ctrl-C part way through.
+cleanup() {
+  kill $sim_pid $agent_pid 2>/dev/null || true
+  wait $sim_pid $agent_pid 2>/dev/null || true
+  sim_pid=; agent_pid=
+  [[ -n $work ]] && rm -rf "$work"
+  work=
+}
+trap 'cleanup; rm -f "$results"' EXIT
 
 one_run() {
 work=$(mktemp -d)
-trap 'kill $sim_pid $agent_pid 2>/dev/null || true; rm -rf "$work"' RETURN
 port=$(python3 -c 'import socket; s=socket.socket(); s.bind(("127.0.0.1",0)); print(s.getsockname()[1]); s.close()')
 python3 tools/load_site.py "$work" "$tanks" "$devices" "$port"
 $bin/leaktally check --offline --config "$work/site.toml" > /dev/null
@@ -105,6 +114,7 @@ PY
 for ((run = 1; run <= runs; run++)); do
   echo "== run $run of $runs: $tanks tanks, $devices devices, $seconds s"
   one_run
+  cleanup
 done
 if (( runs > 1 )); then
   python3 - "$results" <<'PY'

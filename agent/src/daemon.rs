@@ -38,6 +38,7 @@ pub async fn run(config: Config, db: &Path, stop: impl Future<Output = ()>) -> a
         Some(w) => Some(web::bind(w, &config.path).await?),
         None => None,
     };
+    refuse_a_second_daemon(db)?;
     let store = Arc::new(Store::open(db)?);
     let started = store::now_ms();
     let pid = std::process::id();
@@ -129,7 +130,7 @@ pub async fn run(config: Config, db: &Path, stop: impl Future<Output = ()>) -> a
     while let Ok(batch) = samples.try_recv() {
         tracker.on_batch(batch).await;
     }
-    tracker.finish().await;
+    let lost = tracker.finish().await;
     if let Err(e) = tracker.on_actions().await {
         warn!("operator actions at shutdown: {e}");
     }
@@ -142,6 +143,32 @@ pub async fn run(config: Config, db: &Path, stop: impl Future<Output = ()>) -> a
         Ok(store) => store.close(),
         Err(_) => warn!("the database is still in use at shutdown"),
     }
+    if lost > 0 {
+        anyhow::bail!(
+            "stopped with {lost} acquired samples that the database did not take (locked by another program, or its disk full); see the log above"
+        );
+    }
     info!("leaktally daemon stopped");
+    Ok(())
+}
+
+/// Two daemons on one database would both poll and both write; the one
+/// that beat last may only be stalled (a locked or full database stops its
+/// heartbeat, not its process), so a live process counts.
+fn refuse_a_second_daemon(db: &Path) -> anyhow::Result<()> {
+    let Ok(conn) = store::open_read_only(db) else {
+        return Ok(()); // No database yet, or not one of ours: opening says.
+    };
+    if let Some(h) = store::heartbeat(&conn)?
+        && h.process_alive()
+        && u32::try_from(h.pid).ok() != Some(std::process::id())
+    {
+        anyhow::bail!(
+            "another leaktally daemon (pid {}, config {}) is running on {}; stop it first (or give this one its own --db)",
+            h.pid,
+            h.config,
+            db.display()
+        );
+    }
     Ok(())
 }

@@ -225,7 +225,9 @@ impl Plant {
                 }
             }
             EventKind::LinkDrops { device, duration_s } => {
-                let until = self.steps + (duration_s * 1000.0 / self.step_ms as f64).ceil() as u64;
+                let until = self
+                    .steps
+                    .saturating_add((duration_s * 1000.0 / self.step_ms as f64).ceil() as u64);
                 if let Some(d) = self.link_down_until.get_mut(device) {
                     // Overlapping drops extend, never shorten, the outage.
                     *d = (*d).max(until);
@@ -236,7 +238,9 @@ impl Plant {
                 duration_s,
                 reply_delay_ms,
             } => {
-                let until = self.steps + (duration_s * 1000.0 / self.step_ms as f64).ceil() as u64;
+                let until = self
+                    .steps
+                    .saturating_add((duration_s * 1000.0 / self.step_ms as f64).ceil() as u64);
                 if let Some(d) = self.slow_until.get_mut(device) {
                     // A later slow spell replaces the earlier one.
                     *d = (until, Duration::from_millis(reply_delay_ms));

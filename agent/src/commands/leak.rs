@@ -141,6 +141,12 @@ pub fn send(db: &Path, request: &Request) -> anyhow::Result<String> {
         Some(h)
             if h.stopped_at_ms.is_none()
                 && store::now_ms() - h.beat_at_ms <= DAEMON_SILENT_AFTER_MS => {}
+        Some(h) if h.process_alive() => bail!(
+            "the leaktally daemon on {} (pid {}) is running but has not written to it since {}: another program may hold its lock, or its disk may be full; fix that (the daemon catches up by itself) and try again; nothing was changed",
+            db.display(),
+            h.pid,
+            report::utc(h.beat_at_ms)
+        ),
         Some(h) => bail!(
             "no leaktally daemon is running on {} (last seen {}); start it with `leaktally run --config {} --db {}`; nothing was changed",
             db.display(),

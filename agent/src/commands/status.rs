@@ -24,6 +24,9 @@ pub struct StatusDocument {
     pub caution: &'static str,
     /// Whether a daemon has beaten its heartbeat in the last 5 s.
     pub daemon_running: bool,
+    /// Not beating, but its process is alive: it cannot write to the
+    /// database (locked by another program, or its disk full).
+    pub daemon_stalled: bool,
     pub daemon_last_seen: Option<String>,
     pub events: Vec<EventStatus>,
 }
@@ -111,14 +114,16 @@ pub fn document(db: &Path, event: Option<i64>) -> anyhow::Result<StatusDocument>
     }
     let now = store::now_ms();
     let heartbeat = store::heartbeat(&conn)?;
+    let running = heartbeat
+        .as_ref()
+        .is_some_and(|h| h.stopped_at_ms.is_none() && now - h.beat_at_ms <= 5_000);
     Ok(StatusDocument {
         format: 1,
         generated_at: report::utc(now),
         generated_at_ms: now,
         caution: report::CAUTION,
-        daemon_running: heartbeat
-            .as_ref()
-            .is_some_and(|h| h.stopped_at_ms.is_none() && now - h.beat_at_ms <= 5_000),
+        daemon_running: running,
+        daemon_stalled: !running && heartbeat.as_ref().is_some_and(|h| h.process_alive()),
         daemon_last_seen: heartbeat.map(|h| report::utc(h.beat_at_ms)),
         events,
     })
@@ -128,7 +133,13 @@ pub fn document(db: &Path, event: Option<i64>) -> anyhow::Result<StatusDocument>
 pub fn human(doc: &StatusDocument) -> String {
     let mut out = String::new();
     let _ = writeln!(out, "leaktally status at {}", doc.generated_at);
-    if !doc.daemon_running {
+    if doc.daemon_stalled {
+        let _ = writeln!(
+            out,
+            "WARNING: the daemon is running but has not written to the database since {}: another program may hold its lock, or its disk may be full (see the daemon's log). These figures are behind; it catches up by itself once it can write.",
+            doc.daemon_last_seen.as_deref().unwrap_or("never")
+        );
+    } else if !doc.daemon_running {
         let _ = writeln!(
             out,
             "WARNING: no daemon is running (last seen {}); these figures are not being updated.",

@@ -450,6 +450,20 @@ pub struct Heartbeat {
     pub stopped_at_ms: Option<i64>,
 }
 
+impl Heartbeat {
+    /// Whether the daemon that beat last is a live leaktally process on
+    /// this machine (read from /proc; false elsewhere). A daemon whose
+    /// database is locked or full cannot beat, but is still running, and
+    /// a second one must not be started beside it.
+    pub fn process_alive(&self) -> bool {
+        if self.stopped_at_ms.is_some() {
+            return false;
+        }
+        std::fs::read_to_string(format!("/proc/{}/comm", self.pid))
+            .is_ok_and(|comm| comm.trim_end() == "leaktally")
+    }
+}
+
 pub fn beat(conn: &Connection, pid: u32, started_at_ms: i64, config: &str) -> StoreResult<()> {
     conn.execute(
         "INSERT INTO daemon (id, pid, started_at_ms, beat_at_ms, config) VALUES (1, ?1, ?2, ?3, ?4)

@@ -85,6 +85,13 @@ const HISTORY_SLACK_MS: i64 = 60_000;
 /// wait out the writer's busy timeout, and the daemon's loop waits with it,
 /// so attempts are spaced to let the loop drain acquisition in between.
 const RETRY_EVERY: Duration = Duration::from_secs(2);
+/// Poll cycles committed in one transaction, and transactions in one
+/// flush, when catching up on held cycles.
+const CYCLES_PER_COMMIT: usize = 100;
+const COMMITS_PER_FLUSH: usize = 5;
+/// How long a stopping daemon keeps trying to store what it holds; well
+/// inside systemd's default 90 s stop timeout.
+const FINISH_WITHIN: Duration = Duration::from_secs(20);
 /// Failed attempts between repeated warnings in the log (about a minute).
 const WARN_EVERY_ATTEMPTS: u64 = 30;
 /// Samples held in memory, while the database takes no writes, before the
@@ -92,6 +99,13 @@ const WARN_EVERY_ATTEMPTS: u64 = 30;
 /// hour of a 1,000-tank site at 1 s, some 300 MB. Event samples and
 /// estimates are never given up.
 const MAX_HELD_SAMPLES: usize = 2_000_000;
+
+/// What an applied action changes in memory once its transaction commits.
+enum Change {
+    /// An event opened, or revised (its new state replaces the old).
+    Opened(Box<OpenEvent>),
+    Closed(i64),
+}
 
 /// Samples and estimates that belong in one transaction.
 #[derive(Debug, Default, Clone)]
@@ -225,60 +239,87 @@ impl Tracker {
         self.flush().await;
     }
 
-    /// Commits what is held whatever the retry pacing says, and says what
-    /// is lost if the database still takes nothing (at shutdown).
-    pub async fn finish(&mut self) {
-        self.retry_at = None;
-        self.flush().await;
-        if !self.backlog.is_empty() {
-            error!(
-                "{} poll cycle(s), {} samples, could not be stored before stopping and are lost",
-                self.backlog.len(),
-                self.held_samples
-            );
+    /// At shutdown: commits what is held, retrying for up to
+    /// [`FINISH_WITHIN`] if the database takes nothing; returns how many
+    /// samples are lost (0 when all is stored), which the log says too.
+    pub async fn finish(&mut self) -> usize {
+        let deadline = Instant::now() + FINISH_WITHIN;
+        loop {
+            self.flush().await;
+            if self.backlog.is_empty() {
+                return 0;
+            }
+            if Instant::now() >= deadline {
+                error!(
+                    "{} poll cycle(s), {} samples, could not be stored within {} s of stopping and are lost",
+                    self.backlog.len(),
+                    self.held_samples,
+                    FINISH_WITHIN.as_secs()
+                );
+                return self.held_samples;
+            }
+            if self.retry_at.is_some() {
+                tokio::time::sleep(Duration::from_millis(500)).await;
+            }
         }
     }
 
-    /// Commits the backlog, oldest first, one transaction per write.
+    /// Commits the backlog, oldest first, up to [`CYCLES_PER_COMMIT`] poll
+    /// cycles a transaction and [`COMMITS_PER_FLUSH`] transactions a call:
+    /// after a long outage the catch-up spreads over the next cycles, and
+    /// the daemon's loop keeps serving the pollers, the stop signal and the
+    /// operators meanwhile.
     async fn flush(&mut self) {
+        if self.backlog.is_empty() {
+            return;
+        }
         let held = self.backlog.len();
-        while let Some(write) = self.backlog.front() {
+        for _ in 0..COMMITS_PER_FLUSH {
             // Shared, not copied: a poll cycle of a large site is thousands
             // of samples, and it stays in the backlog until it is committed.
-            let write = Arc::clone(write);
+            let chunk: Vec<Arc<Write>> = self
+                .backlog
+                .iter()
+                .take(CYCLES_PER_COMMIT)
+                .cloned()
+                .collect();
+            if chunk.is_empty() {
+                break;
+            }
+            let committed = chunk.len();
             let result = self
                 .store
                 .call(move |c| {
                     let tx = c.transaction()?;
-                    store::insert_samples(&tx, &write.samples)?;
-                    for (event, revision, e) in &write.estimates {
-                        store::insert_estimates(&tx, *event, *revision, e)?;
+                    for write in &chunk {
+                        store::insert_samples(&tx, &write.samples)?;
+                        for (event, revision, e) in &write.estimates {
+                            store::insert_estimates(&tx, *event, *revision, e)?;
+                        }
                     }
                     tx.commit()?;
                     Ok(())
                 })
                 .await;
-            match result {
-                Ok(()) => {
-                    if let Some(w) = self.backlog.pop_front() {
-                        self.held_samples -= w.samples.len();
-                    }
-                }
-                Err(e) => {
-                    self.on_write_failure(&e);
-                    return;
+            if let Err(e) = result {
+                self.on_write_failure(&e);
+                return;
+            }
+            for _ in 0..committed {
+                if let Some(w) = self.backlog.pop_front() {
+                    self.held_samples -= w.samples.len();
                 }
             }
         }
         if self.retry_at.take().is_some() {
             let since = self.health.snapshot().failing.map_or(0, |(ms, _)| ms);
             info!(
-                "the database takes writes again after {:.1} s; stored {held} held poll cycle(s)",
+                "the database takes writes again after {:.1} s; storing {held} held poll cycle(s)",
                 (store::now_ms() - since) as f64 / 1000.0
             );
         }
         self.health.record_success();
-        self.health.set_held(0, 0);
+        self.health.set_held(self.backlog.len(), self.held_samples);
     }
 
     fn on_write_failure(&mut self, e: &StoreError) {
@@ -330,8 +371,13 @@ impl Tracker {
         }
     }
 
-    /// Opens an event on each tank whose leak flag has just risen.
+    /// Opens an event on each tank whose leak flag has just risen. While
+    /// the database takes no writes the flags are not looked at, so an edge
+    /// in that time is still an edge when writes go through again.
     async fn open_on_flags(&mut self, batch: &[TankSample]) {
+        if self.store_failing() {
+            return;
+        }
         for sample in batch {
             let Some(Some(flag)) = sample.leak_flag else {
                 continue;
@@ -349,18 +395,39 @@ impl Tracker {
                 cd: 1.0,
                 density_kg_m3: None,
             };
-            match self
-                .open_event(
-                    &sample.tank_id,
-                    sample.at_ms,
-                    sample.at_ms,
-                    "leak flag",
-                    params,
-                )
-                .await
-            {
-                Ok(id) => {
-                    info!(event = id, tank = %sample.tank_id, "leak flag raised: opened event")
+            let opened = match self.begin().await {
+                Ok(()) => {
+                    let event = self
+                        .open_event(
+                            &sample.tank_id,
+                            sample.at_ms,
+                            sample.at_ms,
+                            "leak flag",
+                            params,
+                        )
+                        .await;
+                    match event {
+                        Ok(event) => self.commit().await.map(|()| event),
+                        Err(e) => {
+                            self.rollback().await;
+                            Err(e)
+                        }
+                    }
+                }
+                Err(e) => Err(e),
+            };
+            match opened {
+                Ok(event) => {
+                    let id = event.row.id;
+                    info!(event = id, tank = %sample.tank_id, "leak flag raised: opened event");
+                    self.open.insert(id, event);
+                }
+                Err(e) if WriteFailure::of(&e) != WriteFailure::Other => {
+                    // Not seen yet: the edge is taken again once writes go
+                    // through.
+                    self.flags.insert(sample.tank, false);
+                    self.on_write_failure(&e);
+                    return;
                 }
                 Err(e) => {
                     warn!(tank = %sample.tank_id, "leak flag raised but no event opened: {e}")
@@ -408,13 +475,13 @@ impl Tracker {
     /// Creates an event, builds its estimator from the stored history since
     /// `start_ms`, and logs the estimates of that history.
     async fn open_event(
-        &mut self,
+        &self,
         tank: &str,
         opened_at_ms: i64,
         start_ms: i64,
         source: &'static str,
         params: LeakParams,
-    ) -> StoreResult<i64> {
+    ) -> StoreResult<OpenEvent> {
         let t = self
             .config
             .tanks
@@ -438,8 +505,38 @@ impl Tracker {
         self.store
             .call(move |c| store::insert_estimates(c, id, revision, &estimates))
             .await?;
-        self.open.insert(id, OpenEvent { row, estimator });
-        Ok(id)
+        Ok(OpenEvent { row, estimator })
+    }
+
+    /// Starts a write transaction on the daemon's connection. The daemon's
+    /// loop sends nothing else to the store until it ends, so every call in
+    /// between belongs to it: an action's writes commit together or not at
+    /// all, and the in-memory state changes only after the commit.
+    async fn begin(&self) -> StoreResult<()> {
+        self.store
+            .call(|c| Ok(c.execute_batch("BEGIN IMMEDIATE")?))
+            .await
+    }
+
+    async fn commit(&self) -> StoreResult<()> {
+        let committed = self.store.call(|c| Ok(c.execute_batch("COMMIT")?)).await;
+        if committed.is_err() {
+            // A failed COMMIT (busy, full) may leave the transaction open.
+            self.rollback().await;
+        }
+        committed
+    }
+
+    async fn rollback(&self) {
+        let _ = self
+            .store
+            .call(|c| {
+                if !c.is_autocommit() {
+                    c.execute_batch("ROLLBACK")?;
+                }
+                Ok(())
+            })
+            .await;
     }
 
     /// Applies every pending operator action.
@@ -456,35 +553,71 @@ impl Tracker {
         }
         let pending = self.store.call(|c| store::pending_actions(c)).await?;
         for action in pending {
+            // The action's writes and its outcome commit together; on a
+            // locked or full database nothing of it stays, in the file or
+            // in memory, and it is tried again once writes go through.
+            if let Err(e) = self.begin().await {
+                self.on_write_failure(&e);
+                return Ok(());
+            }
             let outcome = match serde_json::from_value::<Request>(action.request.clone()) {
                 Ok(request) => self.apply(request).await,
                 Err(e) => Err(StoreError::Refused(format!(
                     "the request is not understood: {e}"
                 ))),
             };
-            let (event, done, text) = match outcome {
-                Ok((event, text)) => (event, true, text),
-                Err(StoreError::Refused(why)) => (action.event, false, why),
-                // Left pending, to be applied once the database takes
-                // writes again.
-                Err(e) if WriteFailure::of(&e) != WriteFailure::Other => return Err(e),
-                Err(e) => (action.event, false, format!("failed: {e}")),
+            let (event, done, text, change) = match outcome {
+                Ok((event, text, change)) => (event, true, text, change),
+                Err(StoreError::Refused(why)) => (action.event, false, why, None),
+                Err(e) if WriteFailure::of(&e) != WriteFailure::Other => {
+                    self.rollback().await;
+                    self.on_write_failure(&e);
+                    return Ok(());
+                }
+                Err(e) => (action.event, false, format!("failed: {e}"), None),
             };
+            let id = action.id;
+            let finished = self
+                .store
+                .call(move |c| store::finish_action(c, id, event, done, &text).map(|()| text))
+                .await;
+            let committed = match finished {
+                Ok(text) => self.commit().await.map(|()| text),
+                Err(e) => {
+                    self.rollback().await;
+                    Err(e)
+                }
+            };
+            let text = match committed {
+                Ok(text) => text,
+                Err(e) if WriteFailure::of(&e) != WriteFailure::Other => {
+                    self.on_write_failure(&e);
+                    return Ok(());
+                }
+                Err(e) => return Err(e),
+            };
+            match change {
+                Some(Change::Opened(event)) => {
+                    self.open.insert(event.row.id, *event);
+                }
+                Some(Change::Closed(id)) => {
+                    self.open.remove(&id);
+                }
+                None => {}
+            }
             if done {
                 info!(action = action.id, user = %action.os_user, "{}: {text}", action.kind);
             } else {
                 warn!(action = action.id, user = %action.os_user, "{} refused: {text}", action.kind);
             }
-            let id = action.id;
-            self.store
-                .call(move |c| store::finish_action(c, id, event, done, &text))
-                .await?;
         }
         Ok(())
     }
 
-    /// Applies one request; returns the event it concerns and what changed.
-    async fn apply(&mut self, request: Request) -> StoreResult<(Option<i64>, String)> {
+    /// Applies one request inside the caller's transaction; returns the
+    /// event it concerns, what changed in words, and the change to make in
+    /// memory once the transaction commits.
+    async fn apply(&self, request: Request) -> StoreResult<(Option<i64>, String, Option<Change>)> {
         let now = store::now_ms();
         match request {
             Request::Open {
@@ -514,10 +647,11 @@ impl Tracker {
                     cd: cd.unwrap_or(1.0),
                     density_kg_m3: None,
                 };
-                let id = self
+                let event = self
                     .open_event(&tank, now, start, "operator", params)
                     .await?;
-                let used = self.open[&id].estimator.last_sample_ms().map_or(0, |_| 1);
+                let id = event.row.id;
+                let used = event.estimator.last_sample_ms().map_or(0, |_| 1);
                 Ok((
                     Some(id),
                     format!(
@@ -534,6 +668,7 @@ impl Tracker {
                     } else {
                         ""
                     },
+                    Some(Change::Opened(Box::new(event))),
                 ))
             }
             Request::Revise {
@@ -585,7 +720,6 @@ impl Tracker {
                 self.store
                     .call(move |c| store::insert_estimates(c, event, revision, &estimates))
                     .await?;
-                self.open.insert(event, OpenEvent { row, estimator });
                 Ok((
                     Some(event),
                     format!(
@@ -593,6 +727,7 @@ impl Tracker {
                         describe_params(&before),
                         describe_params(&params)
                     ),
+                    Some(Change::Opened(Box::new(OpenEvent { row, estimator }))),
                 ))
             }
             Request::Note { event, text } => {
@@ -600,10 +735,10 @@ impl Tracker {
                 if exists.is_none() {
                     return Err(StoreError::Refused(format!("there is no event {event}")));
                 }
-                Ok((Some(event), format!("note on event {event}: {text}")))
+                Ok((Some(event), format!("note on event {event}: {text}"), None))
             }
             Request::Close { event, note: _ } => {
-                if self.open.remove(&event).is_none() {
+                if !self.open.contains_key(&event) {
                     return Err(not_open(event));
                 }
                 self.store
@@ -612,6 +747,7 @@ impl Tracker {
                 Ok((
                     Some(event),
                     format!("closed event {event} at {}", crate::report::utc(now)),
+                    Some(Change::Closed(event)),
                 ))
             }
         }
@@ -733,6 +869,55 @@ level = {{ register = "input", address = {address}, type = "u16", raw = [4000, 2
             .unwrap();
         assert_eq!(counts.0, 10, "every event sample is stored");
         assert_eq!(counts.1 as u64, 10 - h.dropped_samples);
+        drop(tracker);
+        if let Ok(store) = Arc::try_unwrap(store) {
+            store.close();
+        }
+        let _ = std::fs::remove_dir_all(&dir);
+    }
+
+    /// Operator actions made while another program holds the write lock
+    /// wait, leave nothing behind, and are applied exactly once when the
+    /// lock goes: an open makes one event, a close closes it.
+    #[tokio::test(flavor = "multi_thread")]
+    async fn actions_during_a_lock_are_applied_once_afterwards() {
+        let dir = std::env::temp_dir().join(format!("leaktally-tracker-a-{}", std::process::id()));
+        std::fs::create_dir_all(&dir).unwrap();
+        let db = dir.join("t.db");
+        let config =
+            Arc::new(crate::config::parse(&site(), std::path::Path::new("site.toml")).unwrap());
+        let who = ("op".to_owned(), "cr1".to_owned());
+        let open = serde_json::json!({"kind": "open", "tank": "T2", "hole_diameter_m": 0.02,
+            "hole_height_m": 0.3, "cd": 0.61, "since_ms": null, "note": null});
+        {
+            let conn = store::open_read_write(&db).unwrap();
+            store::register_tanks(&conn, ["T1", "T2"]).unwrap();
+            store::request_action(&conn, "open", None, &open, &who).unwrap();
+        }
+        let store = Arc::new(Store::open(&db).unwrap());
+        let mut tracker = Tracker::resume(Arc::clone(&config), Arc::clone(&store))
+            .await
+            .unwrap();
+
+        let holder = rusqlite::Connection::open(&db).unwrap();
+        holder.execute_batch("BEGIN IMMEDIATE").unwrap();
+        tracker.on_actions().await.unwrap();
+        assert_eq!(tracker.open_events(), 0);
+        assert!(tracker.store_failing());
+        // Paced: a second try inside the retry interval does not touch the
+        // database at all.
+        tracker.on_actions().await.unwrap();
+        holder.execute_batch("COMMIT").unwrap();
+        tracker.retry_at = Some(Instant::now());
+        tracker.on_actions().await.unwrap();
+        tracker.on_actions().await.unwrap();
+        assert_eq!(tracker.open_events(), 1);
+        let (events, pending) = store
+            .call(|c| Ok((store::events(c, false)?, store::pending_actions(c)?)))
+            .await
+            .unwrap();
+        assert_eq!(events.len(), 1, "exactly one event: {events:?}");
+        assert!(pending.is_empty(), "{pending:?}");
         drop(tracker);
         if let Ok(store) = Arc::try_unwrap(store) {
             store.close();
