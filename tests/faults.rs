@@ -7,7 +7,7 @@
 //! sim/src/physics.rs).
 
 use crate::tracking::{Plant, event_id, event_of, rel};
-use crate::util::{Server, free_port, http, now_ms, with_web};
+use crate::util::{Server, free_port, http, now_ms, wait_for, with_web};
 use leaktally::acquire::sample::{Quality, TankSample};
 use std::path::{Path, PathBuf};
 use std::process::Command;
@@ -465,15 +465,4 @@ fn a_locked_database_and_a_full_disk_lose_nothing_and_heal_by_themselves() {
     assert!(log.contains("takes writes again"), "{log}");
     drop(daemon);
     drop(disk);
-}
-
-fn wait_for(what: &str, limit: Duration, mut ready: impl FnMut() -> bool) {
-    let deadline = Instant::now() + limit;
-    while Instant::now() < deadline {
-        if ready() {
-            return;
-        }
-        std::thread::sleep(Duration::from_millis(100));
-    }
-    panic!("{what}: not within {limit:?}");
 }

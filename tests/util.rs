@@ -534,3 +534,16 @@ pub fn http(address: &str, method: &str, path: &str) -> std::io::Result<HttpRepl
         body,
     })
 }
+
+/// Polls `ready` every 100 ms until it holds; fails the test, naming
+/// `what`, if it does not within `limit`.
+pub fn wait_for(what: &str, limit: Duration, mut ready: impl FnMut() -> bool) {
+    let deadline = Instant::now() + limit;
+    while !ready() {
+        assert!(
+            Instant::now() < deadline,
+            "gave up waiting for {what} after {limit:?}"
+        );
+        std::thread::sleep(Duration::from_millis(100));
+    }
+}

@@ -12,7 +12,7 @@
 use crate::python_env::{python, script, target_dir};
 use crate::util::{
     Finished, Scratch, binary, demo_site, free_port, http, run, run_for, start_daemon, start_sim,
-    with_web,
+    wait_for, with_web,
 };
 use serde_json::Value;
 use std::path::{Path, PathBuf};
@@ -289,14 +289,6 @@ fn family_type<'a>(metrics: &'a Value, name: &str) -> &'a str {
     metrics["families"][name]["type"]
         .as_str()
         .unwrap_or_else(|| panic!("no family {name}"))
-}
-
-fn wait_for(what: &str, limit: Duration, mut ready: impl FnMut() -> bool) {
-    let deadline = Instant::now() + limit;
-    while !ready() {
-        assert!(Instant::now() < deadline, "gave up waiting for {what}");
-        std::thread::sleep(Duration::from_millis(250));
-    }
 }
 
 #[test]
