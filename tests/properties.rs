@@ -599,8 +599,10 @@ mod command_line {
     /// What the value helpers make of a parsed command's values.
     fn check_parsed(cli: &Cli, now_ms: i64) -> Result<(), TestCaseError> {
         match &cli.command {
-            Command::Replay { hole, from, to, .. } => {
-                check_hole_args(hole)?;
+            Command::Replay {
+                changes, from, to, ..
+            } => {
+                check_hole_args(&changes.hole)?;
                 for t in [from, to].into_iter().flatten() {
                     check_since(t, now_ms)?;
                 }
@@ -615,7 +617,7 @@ mod command_line {
                     check_since(t, now_ms)?;
                 }
             }
-            Command::Leak(LeakCommand::Revise { hole, .. }) => check_hole_args(hole)?,
+            Command::Leak(LeakCommand::Revise { changes, .. }) => check_hole_args(&changes.hole)?,
             _ => {}
         }
         Ok(())

@@ -4,7 +4,8 @@
 //! sim/src/physics.rs).
 
 use crate::util::{
-    Finished, Scratch, Server, Truth, binary, demo_site, now_ms, run, start_sim, toml_path,
+    Finished, Scratch, Server, Truth, binary, demo_site, leaktally, leaktally_ok, now_ms,
+    start_sim, toml_path,
 };
 use serde_json::Value;
 use std::path::{Path, PathBuf};
@@ -126,20 +127,11 @@ impl Plant {
     }
 
     pub(crate) fn cli(&self, args: &[&str]) -> Finished {
-        let mut cmd = Command::new(binary("leaktally"));
-        cmd.args(args).arg("--db").arg(&self.db);
-        run("leaktally", &mut cmd, &self.scratch)
+        leaktally(&self.scratch, &self.db, args)
     }
 
     pub(crate) fn ok(&self, args: &[&str]) -> String {
-        let done = self.cli(args);
-        assert!(
-            done.status.success(),
-            "leaktally {args:?} failed:\n{}\n{}",
-            done.stdout,
-            done.stderr
-        );
-        done.stdout
+        leaktally_ok(&self.scratch, &self.db, args)
     }
 
     pub(crate) fn status(&self, event: Option<i64>) -> Value {

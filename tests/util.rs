@@ -535,6 +535,25 @@ pub fn http(address: &str, method: &str, path: &str) -> std::io::Result<HttpRepl
     })
 }
 
+/// Runs `leaktally ARGS --db DB` in the scratch folder.
+pub fn leaktally(scratch: &Scratch, db: &Path, args: &[&str]) -> Finished {
+    let mut cmd = Command::new(binary("leaktally"));
+    cmd.args(args).arg("--db").arg(db);
+    run("leaktally", &mut cmd, scratch)
+}
+
+/// As [`leaktally`], failing the test unless it succeeds; its stdout.
+pub fn leaktally_ok(scratch: &Scratch, db: &Path, args: &[&str]) -> String {
+    let done = leaktally(scratch, db, args);
+    assert!(
+        done.status.success(),
+        "leaktally {args:?} failed:\n{}\n{}",
+        done.stdout,
+        done.stderr
+    );
+    done.stdout
+}
+
 /// Polls `ready` every 100 ms until it holds; fails the test, naming
 /// `what`, if it does not within `limit`.
 pub fn wait_for(what: &str, limit: Duration, mut ready: impl FnMut() -> bool) {

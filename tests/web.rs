@@ -10,9 +10,10 @@
 //! page's rounding. The screenshot is kept as target/test-artifacts/web.png.
 
 use crate::python_env::{python, script, target_dir};
+use crate::tracking::event_of;
 use crate::util::{
-    Finished, Scratch, binary, demo_site, free_port, http, run, run_for, start_daemon, start_sim,
-    wait_for, with_web,
+    Finished, Scratch, demo_site, free_port, http, leaktally_ok, run, run_for, start_daemon,
+    start_sim, wait_for, with_web,
 };
 use serde_json::Value;
 use std::path::{Path, PathBuf};
@@ -99,28 +100,12 @@ struct Cli<'a> {
 
 impl Cli<'_> {
     fn ok(&self, args: &[&str]) -> String {
-        let mut cmd = Command::new(binary("leaktally"));
-        cmd.args(args).arg("--db").arg(self.db);
-        let done = run("leaktally", &mut cmd, self.scratch);
-        assert!(
-            done.status.success(),
-            "leaktally {args:?} failed:\n{}\n{}",
-            done.stdout,
-            done.stderr
-        );
-        done.stdout
+        leaktally_ok(self.scratch, self.db, args)
     }
 
     fn status(&self) -> Value {
         serde_json::from_str(&self.ok(&["status", "--json"])).expect("status --json is JSON")
     }
-}
-
-fn event_of(status: &Value, id: i64) -> &Value {
-    status["events"]
-        .as_array()
-        .and_then(|events| events.iter().find(|e| e["event"] == id))
-        .unwrap_or_else(|| panic!("event {id} not in {status}"))
 }
 
 fn num(v: &Value) -> f64 {

@@ -44,13 +44,7 @@ pub enum Command {
         #[arg(long, short)]
         config: Option<PathBuf>,
         #[command(flatten)]
-        hole: HoleArgs,
-        /// Forget the logged hole diameter and fit the hole instead.
-        #[arg(long, conflicts_with = "hole_diameter")]
-        unknown_diameter: bool,
-        /// Liquid density, kg/m³.
-        #[arg(long)]
-        density: Option<f64>,
+        changes: ParamChanges,
         /// Start the replay here instead of at the event's start (a time, a
         /// UTC time, or how long ago, as for `leak open --since`).
         #[arg(long)]
@@ -67,6 +61,7 @@ pub enum Command {
         /// Print the summary as JSON.
         #[arg(long)]
         json: bool,
+        /// The SQLite database the daemon writes.
         #[arg(long, default_value = DEFAULT_DB)]
         db: PathBuf,
     },
@@ -118,6 +113,7 @@ pub enum Command {
         /// The site config (TOML).
         #[arg(long, short)]
         config: PathBuf,
+        /// The SQLite database the daemon writes.
         #[arg(long, default_value = DEFAULT_DB)]
         db: PathBuf,
     },
@@ -131,6 +127,7 @@ pub enum Command {
         /// Print the JSON document for machines instead of the table.
         #[arg(long)]
         json: bool,
+        /// The SQLite database the daemon writes.
         #[arg(long, default_value = DEFAULT_DB)]
         db: PathBuf,
     },
@@ -156,6 +153,7 @@ pub enum LeakCommand {
         /// A note for the audit trail.
         #[arg(long)]
         note: Option<String>,
+        /// The SQLite database the daemon writes.
         #[arg(long, default_value = DEFAULT_DB)]
         db: PathBuf,
     },
@@ -164,15 +162,10 @@ pub enum LeakCommand {
         /// The event's id.
         event: i64,
         #[command(flatten)]
-        hole: HoleArgs,
-        /// Forget the hole diameter and go back to the fitted hole.
-        #[arg(long, conflicts_with = "hole_diameter")]
-        unknown_diameter: bool,
-        /// Liquid density, kg/m³, if the config's is wrong for this event.
-        #[arg(long)]
-        density: Option<f64>,
+        changes: ParamChanges,
         #[arg(long)]
         note: Option<String>,
+        /// The SQLite database the daemon writes.
         #[arg(long, default_value = DEFAULT_DB)]
         db: PathBuf,
     },
@@ -180,6 +173,7 @@ pub enum LeakCommand {
     Note {
         event: i64,
         text: String,
+        /// The SQLite database the daemon writes.
         #[arg(long, default_value = DEFAULT_DB)]
         db: PathBuf,
     },
@@ -188,6 +182,7 @@ pub enum LeakCommand {
         event: i64,
         #[arg(long)]
         note: Option<String>,
+        /// The SQLite database the daemon writes.
         #[arg(long, default_value = DEFAULT_DB)]
         db: PathBuf,
     },
@@ -208,6 +203,19 @@ pub struct HoleArgs {
     /// band runs from 0.61 to 1.0).
     #[arg(long, allow_negative_numbers = true)]
     pub cd: Option<f64>,
+}
+
+/// Changed leak parameters, for `leak revise` and `replay`.
+#[derive(Debug, Clone, clap::Args)]
+pub struct ParamChanges {
+    #[command(flatten)]
+    pub hole: HoleArgs,
+    /// Forget the hole diameter and fit the hole to the level drop instead.
+    #[arg(long, conflicts_with = "hole_diameter")]
+    pub unknown_diameter: bool,
+    /// Liquid density, kg/m³, if the config's is wrong for this event.
+    #[arg(long)]
+    pub density: Option<f64>,
 }
 
 /// Runs one parsed command.
@@ -278,9 +286,7 @@ pub fn run(cli: Cli) -> anyhow::Result<()> {
             readings,
             tank,
             config,
-            hole,
-            unknown_diameter,
-            density,
+            changes,
             from,
             to,
             csv,
@@ -291,12 +297,13 @@ pub fn run(cli: Cli) -> anyhow::Result<()> {
             let now = crate::store::now_ms();
             let when =
                 |t: Option<String>| t.map(|t| commands::leak::parse_since(&t, now)).transpose();
+            let c = changes.checked()?;
             let overrides = commands::replay::Overrides {
-                hole_diameter_m: hole.diameter_m()?,
-                unknown_diameter,
-                hole_height_m: hole.height_m()?,
-                cd: hole.cd_checked()?,
-                density_kg_m3: commands::leak::check_density(density)?,
+                hole_diameter_m: c.hole_diameter_m,
+                unknown_diameter: c.unknown_diameter,
+                hole_height_m: c.hole_height_m,
+                cd: c.cd,
+                density_kg_m3: c.density_kg_m3,
                 from_ms: when(from)?,
                 to_ms: when(to)?,
             };

@@ -19,6 +19,7 @@ pub mod cli;
 pub mod commands;
 pub mod config;
 pub mod daemon;
+pub mod logging;
 pub mod model;
 pub mod plot;
 pub mod readings;

@@ -95,85 +95,50 @@ pub fn render_svg(
         let (charts, footer) = rest.split_vertically(660);
         let (upper, lower) = charts.split_vertically(310);
 
-        let mut rate = ChartBuilder::on(&upper)
-            .margin(12)
-            .x_label_area_size(40)
-            .y_label_area_size(70)
-            .caption("Release rate", ("sans-serif", 18))
-            .build_cartesian_2d(0.0..t_end, 0.0..max_rate)
-            .map_err(plot_error)?;
-        rate.configure_mesh()
-            .x_desc("time since the event start (min)")
-            .y_desc("rate (kg/s)")
-            .draw()
-            .map_err(plot_error)?;
-        band(
-            &mut rate,
+        let minutes: &dyn Fn(&Estimate) -> f64 = &minutes;
+        panel(
+            &upper,
+            &Panel {
+                caption: "Release rate",
+                y_desc: "rate (kg/s)",
+                y_max: max_rate,
+                band: &|e| (e.rate_low_kg_s, e.rate_high_kg_s),
+                band_label: "rate band",
+                best: &|e| e.rate_best_kg_s,
+                best_label: "best estimate (kg/s)",
+            },
             estimates,
-            &minutes,
-            |e| (e.rate_low_kg_s, e.rate_high_kg_s),
-            "rate band",
+            minutes,
+            t_end,
+            &[],
         )?;
-        rate.draw_series(LineSeries::new(
-            estimates.iter().map(|e| (minutes(e), e.rate_best_kg_s)),
-            BEST.stroke_width(2),
-        ))
-        .map_err(plot_error)?
-        .label("best estimate (kg/s)")
-        .legend(|(x, y)| PathElement::new(vec![(x, y), (x + 20, y)], BEST.stroke_width(2)));
-        rate.configure_series_labels()
-            .background_style(WHITE.mix(0.8))
-            .border_style(BLACK)
-            .draw()
-            .map_err(plot_error)?;
-
-        let mut total = ChartBuilder::on(&lower)
-            .margin(12)
-            .x_label_area_size(40)
-            .y_label_area_size(70)
-            .caption("Cumulative release", ("sans-serif", 18))
-            .build_cartesian_2d(0.0..t_end, 0.0..max_total)
-            .map_err(plot_error)?;
-        total
-            .configure_mesh()
-            .x_desc("time since the event start (min)")
-            .y_desc("released (kg)")
-            .draw()
-            .map_err(plot_error)?;
-        band(
-            &mut total,
-            estimates,
-            &minutes,
-            |e| (e.released_low_kg, e.released_high_kg),
-            "released band",
-        )?;
-        total
-            .draw_series(LineSeries::new(
-                estimates.iter().map(|e| (minutes(e), e.released_best_kg)),
-                BEST.stroke_width(2),
-            ))
-            .map_err(plot_error)?
-            .label("best estimate (kg)")
-            .legend(|(x, y)| PathElement::new(vec![(x, y), (x + 20, y)], BEST.stroke_width(2)));
-        for &q in reportable_kg.iter().filter(|q| **q <= max_total) {
-            total
-                .draw_series(LineSeries::new(
-                    vec![(0.0, q), (t_end, q)],
-                    THRESHOLD.stroke_width(1),
-                ))
-                .map_err(plot_error)?
-                .label(format!(
+        let lines: Vec<(f64, String)> = reportable_kg
+            .iter()
+            .filter(|q| **q <= max_total)
+            .map(|&q| {
+                let label = format!(
                     "reportable quantity {}",
                     report::mass(crate::model::Mass::kilograms(q))
-                ))
-                .legend(|(x, y)| PathElement::new(vec![(x, y), (x + 20, y)], THRESHOLD));
-        }
-        total
-            .configure_series_labels()
-            .background_style(WHITE.mix(0.8))
-            .border_style(BLACK)
-            .draw()
-            .map_err(plot_error)?;
+                );
+                (q, label)
+            })
+            .collect();
+        panel(
+            &lower,
+            &Panel {
+                caption: "Cumulative release",
+                y_desc: "released (kg)",
+                y_max: max_total,
+                band: &|e| (e.released_low_kg, e.released_high_kg),
+                band_label: "released band",
+                best: &|e| e.released_best_kg,
+                best_label: "best estimate (kg)",
+            },
+            estimates,
+            minutes,
+            t_end,
+            &lines,
+        )?;
 
         footer
             .draw(&Text::new(
@@ -187,27 +152,82 @@ pub fn render_svg(
     Ok(svg)
 }
 
-fn band<DB: DrawingBackend>(
-    chart: &mut ChartContext<
-        '_,
-        DB,
-        Cartesian2d<plotters::coord::types::RangedCoordf64, plotters::coord::types::RangedCoordf64>,
-    >,
+/// One of the two panels: what it shows of each estimate.
+struct Panel<'a> {
+    caption: &'a str,
+    y_desc: &'a str,
+    y_max: f64,
+    band: &'a dyn Fn(&Estimate) -> (f64, f64),
+    band_label: &'a str,
+    best: &'a dyn Fn(&Estimate) -> f64,
+    best_label: &'a str,
+}
+
+/// Draws a panel: axes, the shaded low–high band, the best line, the
+/// horizontal `lines` (value, legend) and the legend.
+fn panel<DB: DrawingBackend>(
+    area: &DrawingArea<DB, plotters::coord::Shift>,
+    spec: &Panel,
     estimates: &[Estimate],
     minutes: &dyn Fn(&Estimate) -> f64,
-    range: impl Fn(&Estimate) -> (f64, f64),
-    label: &str,
+    t_end: f64,
+    lines: &[(f64, String)],
 ) -> anyhow::Result<()> {
-    let mut outline: Vec<(f64, f64)> = estimates.iter().map(|e| (minutes(e), range(e).1)).collect();
-    outline.extend(estimates.iter().rev().map(|e| (minutes(e), range(e).0)));
+    let mut chart = ChartBuilder::on(area)
+        .margin(12)
+        .x_label_area_size(40)
+        .y_label_area_size(70)
+        .caption(spec.caption, ("sans-serif", 18))
+        .build_cartesian_2d(0.0..t_end, 0.0..spec.y_max)
+        .map_err(plot_error)?;
+    chart
+        .configure_mesh()
+        .x_desc("time since the event start (min)")
+        .y_desc(spec.y_desc)
+        .draw()
+        .map_err(plot_error)?;
+    let mut outline: Vec<(f64, f64)> = estimates
+        .iter()
+        .map(|e| (minutes(e), (spec.band)(e).1))
+        .collect();
+    outline.extend(
+        estimates
+            .iter()
+            .rev()
+            .map(|e| (minutes(e), (spec.band)(e).0)),
+    );
     chart
         .draw_series(std::iter::once(Polygon::new(
             outline,
             BAND.mix(0.6).filled(),
         )))
-        .map_err(|e| anyhow::anyhow!("drawing the chart: {e}"))?
-        .label(label.to_owned())
+        .map_err(plot_error)?
+        .label(spec.band_label)
         .legend(|(x, y)| Rectangle::new([(x, y - 5), (x + 20, y + 5)], BAND.mix(0.6).filled()));
+    chart
+        .draw_series(LineSeries::new(
+            estimates.iter().map(|e| (minutes(e), (spec.best)(e))),
+            BEST.stroke_width(2),
+        ))
+        .map_err(plot_error)?
+        .label(spec.best_label)
+        .legend(|(x, y)| PathElement::new(vec![(x, y), (x + 20, y)], BEST.stroke_width(2)));
+    for (value, label) in lines {
+        chart
+            .draw_series(LineSeries::new(
+                vec![(0.0, *value), (t_end, *value)],
+                THRESHOLD.stroke_width(1),
+            ))
+            .map_err(plot_error)?
+            .label(label.as_str())
+            .legend(|(x, y)| PathElement::new(vec![(x, y), (x + 20, y)], THRESHOLD));
+    }
+    chart
+        .configure_series_labels()
+        .background_style(WHITE.mix(0.8))
+        .border_style(BLACK)
+        .draw()
+        .map_err(plot_error)?;
     Ok(())
 }
 

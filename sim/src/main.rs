@@ -4,7 +4,6 @@
 //! in-process instead.
 
 use clap::Parser;
-use std::io::IsTerminal;
 use std::path::PathBuf;
 use std::process::ExitCode;
 use tokio_util::sync::CancellationToken;
@@ -29,15 +28,7 @@ struct Cli {
 #[tokio::main]
 async fn main() -> ExitCode {
     let cli = Cli::parse();
-    tracing_subscriber::fmt()
-        .with_writer(std::io::stderr)
-        // Colour only for a person at a terminal, not in captured logs.
-        .with_ansi(std::io::stderr().is_terminal())
-        .with_env_filter(
-            tracing_subscriber::EnvFilter::try_from_default_env()
-                .unwrap_or_else(|_| tracing_subscriber::EnvFilter::new("info")),
-        )
-        .init();
+    leaktally::logging::to_stderr();
     let shutdown = CancellationToken::new();
     if let Err(e) = stop_on_signals(shutdown.clone()) {
         eprintln!("leaktally-sim: cannot watch for signals: {e}");

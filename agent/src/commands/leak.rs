@@ -6,7 +6,7 @@
 //! If no daemon has beaten its heartbeat recently, it says so and writes
 //! nothing: a request nobody acts on would only mislead.
 
-use crate::cli::{HoleArgs, LeakCommand};
+use crate::cli::{HoleArgs, LeakCommand, ParamChanges};
 use crate::model::DischargeCoefficient;
 use crate::report;
 use crate::store::{self, StoreError};
@@ -54,20 +54,18 @@ pub fn run(command: LeakCommand) -> anyhow::Result<()> {
         }
         LeakCommand::Revise {
             event,
-            hole,
-            unknown_diameter,
-            density,
+            changes,
             note,
             db,
         } => {
-            check_density(density)?;
+            let c = changes.checked()?;
             let request = Request::Revise {
                 event,
-                hole_diameter_m: hole.diameter_m()?,
-                unknown_diameter,
-                hole_height_m: hole.height_m()?,
-                cd: hole.cd_checked()?,
-                density_kg_m3: density,
+                hole_diameter_m: c.hole_diameter_m,
+                unknown_diameter: c.unknown_diameter,
+                hole_height_m: c.hole_height_m,
+                cd: c.cd,
+                density_kg_m3: c.density_kg_m3,
                 note,
             };
             (db, request)
@@ -80,8 +78,29 @@ pub fn run(command: LeakCommand) -> anyhow::Result<()> {
     Ok(())
 }
 
+/// [`ParamChanges`] with every value checked, in SI.
+pub struct CheckedChanges {
+    pub hole_diameter_m: Option<f64>,
+    pub unknown_diameter: bool,
+    pub hole_height_m: Option<f64>,
+    pub cd: Option<f64>,
+    pub density_kg_m3: Option<f64>,
+}
+
+impl ParamChanges {
+    pub fn checked(&self) -> anyhow::Result<CheckedChanges> {
+        Ok(CheckedChanges {
+            hole_diameter_m: self.hole.diameter_m()?,
+            unknown_diameter: self.unknown_diameter,
+            hole_height_m: self.hole.height_m()?,
+            cd: self.hole.cd_checked()?,
+            density_kg_m3: check_density(self.density)?,
+        })
+    }
+}
+
 /// `--density`: a liquid's density in kg/m³ within the model's range.
-pub fn check_density(density: Option<f64>) -> anyhow::Result<Option<f64>> {
+fn check_density(density: Option<f64>) -> anyhow::Result<Option<f64>> {
     let (lo, hi) = crate::model::vessel::DENSITY_RANGE;
     match density {
         Some(d) if !(d.is_finite() && (lo..=hi).contains(&d)) => bail!(

@@ -159,20 +159,18 @@ pub fn human(s: &Study) -> String {
             dur(h.stops_after_low_cd_s)
         );
         let _ = writeln!(out, "  released by then    {}", kg(h.total_at_stop_kg));
-        let _ = writeln!(
-            out,
-            "  released in 15 min  {}  (band {} to {})",
-            kg(h.in_15_min_kg[1]),
-            kg(h.in_15_min_kg[0]),
-            kg(h.in_15_min_kg[2])
-        );
-        let _ = writeln!(
-            out,
-            "  released in 1 h     {}  (band {} to {})",
-            kg(h.in_1_h_kg[1]),
-            kg(h.in_1_h_kg[0]),
-            kg(h.in_1_h_kg[2])
-        );
+        for (label, [low, best, high]) in [
+            ("released in 15 min", h.in_15_min_kg),
+            ("released in 1 h", h.in_1_h_kg),
+        ] {
+            let _ = writeln!(
+                out,
+                "  {label:<18}  {}  (band {} to {})",
+                kg(best),
+                kg(low),
+                kg(high)
+            );
+        }
         for (q, t) in &h.reportable {
             let when = t.map_or("not reached".to_owned(), |t| {
                 format!("reached after {}", dur(t))

@@ -34,6 +34,12 @@ impl WriteFailure {
         }
     }
 
+    /// Whether `error` is one that passes by itself (a lock let go, space
+    /// freed), so the write is held and tried again rather than refused.
+    pub fn passes(error: &StoreError) -> bool {
+        Self::of(error) != WriteFailure::Other
+    }
+
     /// What a reader is told, with the fix.
     pub fn describe(self) -> &'static str {
         match self {

@@ -395,34 +395,16 @@ impl Tracker {
                 cd: 1.0,
                 density_kg_m3: None,
             };
-            let opened = match self.begin().await {
-                Ok(()) => {
-                    let event = self
-                        .open_event(
-                            &sample.tank_id,
-                            sample.at_ms,
-                            sample.at_ms,
-                            "leak flag",
-                            params,
-                        )
-                        .await;
-                    match event {
-                        Ok(event) => self.commit().await.map(|()| event),
-                        Err(e) => {
-                            self.rollback().await;
-                            Err(e)
-                        }
-                    }
-                }
-                Err(e) => Err(e),
-            };
+            let opened = self
+                .open_flagged(&sample.tank_id, sample.at_ms, params)
+                .await;
             match opened {
                 Ok(event) => {
                     let id = event.row.id;
                     info!(event = id, tank = %sample.tank_id, "leak flag raised: opened event");
                     self.open.insert(id, event);
                 }
-                Err(e) if WriteFailure::of(&e) != WriteFailure::Other => {
+                Err(e) if WriteFailure::passes(&e) => {
                     // Not seen yet: the edge is taken again once writes go
                     // through.
                     self.flags.insert(sample.tank, false);
@@ -508,6 +490,26 @@ impl Tracker {
         Ok(OpenEvent { row, estimator })
     }
 
+    /// Opens an event for a raised leak flag, in a transaction of its own.
+    async fn open_flagged(
+        &self,
+        tank: &str,
+        at_ms: i64,
+        params: LeakParams,
+    ) -> StoreResult<OpenEvent> {
+        self.begin().await?;
+        match self
+            .open_event(tank, at_ms, at_ms, "leak flag", params)
+            .await
+        {
+            Ok(event) => self.commit().await.map(|()| event),
+            Err(e) => {
+                self.rollback().await;
+                Err(e)
+            }
+        }
+    }
+
     /// Starts a write transaction on the daemon's connection. The daemon's
     /// loop sends nothing else to the store until it ends, so every call in
     /// between belongs to it: an action's writes commit together or not at
@@ -569,7 +571,7 @@ impl Tracker {
             let (event, done, text, change) = match outcome {
                 Ok((event, text, change)) => (event, true, text, change),
                 Err(StoreError::Refused(why)) => (action.event, false, why, None),
-                Err(e) if WriteFailure::of(&e) != WriteFailure::Other => {
+                Err(e) if WriteFailure::passes(&e) => {
                     self.rollback().await;
                     self.on_write_failure(&e);
                     return Ok(());
@@ -590,7 +592,7 @@ impl Tracker {
             };
             let text = match committed {
                 Ok(text) => text,
-                Err(e) if WriteFailure::of(&e) != WriteFailure::Other => {
+                Err(e) if WriteFailure::passes(&e) => {
                     self.on_write_failure(&e);
                     return Ok(());
                 }
