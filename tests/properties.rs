@@ -1172,6 +1172,7 @@ mod estimator {
             level: Reading::good(4.0 - 0.001 * i as f64),
             pressure: Some(Reading::good(pressure)),
             transfer: Some(Reading::good(transfer)),
+            temperature: None,
             leak_flag: None,
         };
         let mut previous = None;
@@ -1224,6 +1225,7 @@ mod estimator {
                 },
                 pressure: s.pressure,
                 transfer: s.transfer,
+                temperature: None,
                 leak_flag: Some(Some(true)),
             });
         }
@@ -1473,6 +1475,7 @@ mod estimator {
                     level: Reading::good(site.height_m / 2.0),
                     pressure: None,
                     transfer: None,
+                    temperature: None,
                     leak_flag: None,
                 };
                 let first = e.push(&sample);

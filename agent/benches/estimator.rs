@@ -94,6 +94,7 @@ fn day_of_samples() -> (leaktally::config::Tank, Vec<TankSample>) {
                 level: Reading::good(level),
                 pressure: None,
                 transfer: Some(Reading::good(0.0)),
+                temperature: None,
                 leak_flag: None,
             }
         })

@@ -169,6 +169,7 @@ pub fn parse(input: impl std::io::Read, name: &str, tank: &str) -> anyhow::Resul
                     Reading::good,
                 )
             }),
+            temperature: None,
             leak_flag: None,
         });
     }

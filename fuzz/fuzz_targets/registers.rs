@@ -38,8 +38,14 @@ fuzz_target!(|data: &[u8]| {
         engineering_span: (e0, e1),
         unit: "m".into(),
         si_per_unit: 1.0,
+        si_offset: 0.0,
         valid_si: (e0, e1),
         stuck_after: None,
+        accuracy: leaktally::config::Uncertainty {
+            bound: 0.003,
+            relative: false,
+            stated: false,
+        },
     };
     let words: Vec<u16> = data[10..]
         .chunks(2)

@@ -47,7 +47,8 @@ struct PlantTank {
     physics: physics::Tank,
     level_noise_m: f64,
     pressure_noise_pa: f64,
-    faults: [Fault; 3],
+    temperature_k: f64,
+    faults: [Fault; 4],
     flag: bool,
 }
 
@@ -85,7 +86,8 @@ impl Plant {
                 ),
                 level_noise_m: setup.level_noise_m,
                 pressure_noise_pa: setup.pressure_noise_pa,
-                faults: [Fault::None; 3],
+                temperature_k: setup.temperature_k,
+                faults: [Fault::None; 4],
                 flag: false,
             })
             .collect();
@@ -310,6 +312,7 @@ impl Plant {
                 p.level_m() + self.noise.gaussian(t.level_noise_m, stream, self.steps)
             }
             SensorRole::Transfer => p.transfer_m3_s(),
+            SensorRole::Temperature => t.temperature_k,
             SensorRole::Pressure => {
                 let Some(ps) = &site.pressure else {
                     return 0.0;
@@ -342,6 +345,7 @@ fn sensor_of(tank: &SiteTank, role: SensorRole) -> Option<&leaktally::config::Se
         SensorRole::Level => Some(&tank.level),
         SensorRole::Pressure => tank.pressure.as_ref().map(|p| &p.sensor),
         SensorRole::Transfer => tank.transfer.as_ref(),
+        SensorRole::Temperature => tank.temperature.as_ref(),
     }
 }
 

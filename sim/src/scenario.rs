@@ -50,6 +50,8 @@ pub struct TankSetup {
     pub level_noise_m: f64,
     /// Standard deviation of the noise on the pressure reading, Pa.
     pub pressure_noise_pa: f64,
+    /// The liquid's temperature, K (what a temperature sensor shows).
+    pub temperature_k: f64,
 }
 
 /// One scripted event.
@@ -120,13 +122,15 @@ pub enum SensorRole {
     Level,
     Pressure,
     Transfer,
+    Temperature,
 }
 
 impl SensorRole {
-    pub const ALL: [SensorRole; 3] = [
+    pub const ALL: [SensorRole; 4] = [
         SensorRole::Level,
         SensorRole::Pressure,
         SensorRole::Transfer,
+        SensorRole::Temperature,
     ];
 
     pub fn name(self) -> &'static str {
@@ -134,6 +138,7 @@ impl SensorRole {
             SensorRole::Level => "level",
             SensorRole::Pressure => "pressure",
             SensorRole::Transfer => "transfer",
+            SensorRole::Temperature => "temperature",
         }
     }
 
@@ -232,6 +237,8 @@ mod raw {
         pub headspace_kpa: Option<Spanned<f64>>,
         pub level_noise_m: Option<Spanned<f64>>,
         pub pressure_noise_pa: Option<Spanned<f64>>,
+        /// The liquid's temperature, °C, held for the whole run.
+        pub temperature_c: Option<Spanned<f64>>,
     }
 
     /// One `[[event]]`. Every action shares this flat type, and validation
@@ -547,11 +554,24 @@ impl Checker<'_> {
             );
             ok = false;
         }
+        let temperature_c = match &t.temperature_c {
+            Some(c) if !(c.get_ref().is_finite() && (-60.0..=300.0).contains(c.get_ref())) => {
+                self.problem(
+                    c.span(),
+                    format!("{ctx}: temperature_c = {} is outside -60 to 300 °C; give the liquid's temperature in °C", c.get_ref()),
+                );
+                ok = false;
+                15.0
+            }
+            Some(c) => *c.get_ref(),
+            None => 15.0,
+        };
         ok.then_some(TankSetup {
             initial_level_m: level,
             headspace_pa,
             level_noise_m,
             pressure_noise_pa,
+            temperature_k: temperature_c + 273.15,
         })
     }
 
@@ -650,6 +670,7 @@ impl Checker<'_> {
                     SensorRole::Level => true,
                     SensorRole::Pressure => t.pressure.is_some(),
                     SensorRole::Transfer => t.transfer.is_some(),
+                    SensorRole::Temperature => t.temperature.is_some(),
                 };
                 if !mapped {
                     self.problem(

@@ -127,12 +127,13 @@ mod tests {
             crate::config::load(&Path::new(env!("CARGO_MANIFEST_DIR")).join("../config/demo.toml"))
                 .unwrap();
         let east = plan_reads(&c, 0, true);
-        // Input registers 0..2, holding 10..14, coil 0: three reads for five values.
+        // Input registers 0..2, holding 10..15 (FF-T14's level, pressure and
+        // temperature), coil 0: three reads for six values.
         let mut summary: Vec<(u8, u16, u16)> = east
             .iter()
             .map(|r| (r.function_code(), r.start, r.count))
             .collect();
         summary.sort();
-        assert_eq!(summary, [(1, 0, 1), (3, 10, 4), (4, 0, 2)]);
+        assert_eq!(summary, [(1, 0, 1), (3, 10, 5), (4, 0, 2)]);
     }
 }

@@ -255,6 +255,10 @@ impl DevicePoller {
                 .as_ref()
                 .map(|p| reading(Role::Pressure, &p.sensor));
             let transfer = tank.transfer.as_ref().map(|s| reading(Role::Transfer, s));
+            let temperature = tank
+                .temperature
+                .as_ref()
+                .map(|s| reading(Role::Temperature, s));
             let leak_flag = tank
                 .leak_flag
                 .map(|_| match raw.get(&(tank_index, Role::LeakFlag)) {
@@ -268,6 +272,7 @@ impl DevicePoller {
                 level,
                 pressure,
                 transfer,
+                temperature,
                 leak_flag,
             });
         }
@@ -344,6 +349,7 @@ fn sensor_of(tank: &crate::config::Tank, role: Role) -> Option<&Sensor> {
         Role::Level => Some(&tank.level),
         Role::Pressure => tank.pressure.as_ref().map(|p| &p.sensor),
         Role::Transfer => tank.transfer.as_ref(),
+        Role::Temperature => tank.temperature.as_ref(),
         Role::LeakFlag => None,
     }
 }
@@ -377,8 +383,14 @@ mod tests {
             engineering_span: (0.0, 5.0),
             unit: "m".into(),
             si_per_unit: 1.0,
+            si_offset: 0.0,
             valid_si: (0.0, 5.0),
             stuck_after: None,
+            accuracy: crate::config::Uncertainty {
+                bound: 0.003,
+                relative: false,
+                stated: false,
+            },
         }
     }
 

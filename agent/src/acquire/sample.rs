@@ -83,6 +83,9 @@ pub struct TankSample {
     pub pressure: Option<Reading>,
     /// Net transfer flow into the tank, m³/s; absent when not mapped.
     pub transfer: Option<Reading>,
+    /// The liquid's temperature, K; absent when not mapped.
+    #[serde(default)]
+    pub temperature: Option<Reading>,
     /// The leak flag; absent when not mapped, `None` inside when unreadable.
     pub leak_flag: Option<Option<bool>>,
 }

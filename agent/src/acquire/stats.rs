@@ -269,6 +269,7 @@ mod tests {
             level,
             pressure,
             transfer: None,
+            temperature: None,
             leak_flag: None,
         };
         stats.record_samples(&[sample(Reading::good(1.5), Some(Reading::good(15e3)), 10)]);

@@ -16,8 +16,8 @@ pub mod units;
 
 use crate::acquire::decode::{BitKind, DataType, RegisterKind, WordOrder};
 use crate::model::{
-    AbsolutePressure, Density, GasProperties, Geometry, Heads, Length, Mass, ModelError, MolarMass,
-    Pressure, PressureTap, Temperature, Vessel, Volume,
+    AbsolutePressure, Density, DensityModel, GasProperties, Geometry, Heads, Length, Mass,
+    ModelError, MolarMass, Pressure, PressureTap, Temperature, Vessel, Volume,
 };
 use raw::{RawConfig, RawGeometry, RawHeads, RawPressureReference, RawSensor, RawTank};
 use std::collections::{BTreeMap, HashMap};
@@ -93,8 +93,61 @@ pub struct Tank {
     pub pressure: Option<PressureSensor>,
     /// Net volume flow into the tank from pumps (negative out), m³/s.
     pub transfer: Option<Sensor>,
+    /// The liquid's temperature, K.
+    pub temperature: Option<Sensor>,
     pub leak_flag: Option<Flag>,
+    /// How the density follows the temperature (a constant without data).
+    pub density: DensityModel,
+    /// How far the density may be from the truth, as a fraction (a bound).
+    pub density_uncertainty: Uncertainty,
 }
+
+/// A bound on an error, and whether the config states it or a default
+/// stands in (which `check` says, so nobody mistakes a default for a data
+/// sheet).
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Uncertainty {
+    /// The bound: in SI units for a sensor's absolute accuracy, or a
+    /// fraction for a relative one (a flow meter's per cent of reading, a
+    /// density's per cent).
+    pub bound: f64,
+    /// Whether `bound` is a fraction of the value rather than in its units.
+    pub relative: bool,
+    /// Whether the config gives it; false for a default.
+    pub stated: bool,
+}
+
+impl Uncertainty {
+    /// The bound on the error of a value of `magnitude`, in its units.
+    pub fn of(&self, magnitude: f64) -> f64 {
+        if self.relative {
+            self.bound * magnitude.abs()
+        } else {
+            self.bound
+        }
+    }
+}
+
+/// Default density uncertainty: 1 % (common practice for a product whose
+/// density comes from its specification rather than a sample).
+pub const DEFAULT_DENSITY_UNCERTAINTY: f64 = 0.01;
+/// Default level accuracy: 0.1 % of the range, and never under 3 mm (common
+/// practice for radar and hydrostatic tank gauges).
+pub const DEFAULT_LEVEL_ACCURACY_FRACTION_OF_SPAN: f64 = 0.001;
+pub const DEFAULT_LEVEL_ACCURACY_MIN_M: f64 = 0.003;
+/// Default pressure accuracy: 0.25 % of the range, and never under 0.1 kPa
+/// (common practice for industrial transmitters, installed).
+pub const DEFAULT_PRESSURE_ACCURACY_FRACTION_OF_SPAN: f64 = 0.0025;
+pub const DEFAULT_PRESSURE_ACCURACY_MIN_PA: f64 = 100.0;
+/// Default transfer meter accuracy: 1 % of the reading (common practice).
+pub const DEFAULT_TRANSFER_ACCURACY: f64 = 0.01;
+/// The temperature a density is given at when the config does not say:
+/// 15 °C, the usual reference temperature for petroleum products (common
+/// practice).
+pub const REFERENCE_TEMPERATURE_C: f64 = 15.0;
+/// Default temperature accuracy: 0.5 °C (common practice for a resistance
+/// thermometer in a thermowell).
+pub const DEFAULT_TEMPERATURE_ACCURACY_K: f64 = 0.5;
 
 /// One numeric value in registers and how to turn it into SI.
 #[derive(Debug, Clone, PartialEq)]
@@ -108,11 +161,15 @@ pub struct Sensor {
     pub engineering_span: (f64, f64),
     /// The engineering unit as written, for display.
     pub unit: String,
-    /// Multiplier from the engineering unit to SI.
+    /// Multiplier from the engineering unit to SI...
     pub si_per_unit: f64,
+    /// ...and what to add after it (only temperatures have one).
+    pub si_offset: f64,
     /// Readings outside this range (SI) are flagged out of range.
     pub valid_si: (f64, f64),
     pub stuck_after: Option<Duration>,
+    /// How far a reading may be from the truth.
+    pub accuracy: Uncertainty,
 }
 
 impl Sensor {
@@ -135,14 +192,14 @@ impl Sensor {
     pub fn to_si(&self, raw: f64) -> f64 {
         let (r0, r1) = self.raw_span;
         let (e0, e1) = self.engineering_span;
-        (e0 + (raw - r0) * (e1 - e0) / (r1 - r0)) * self.si_per_unit
+        (e0 + (raw - r0) * (e1 - e0) / (r1 - r0)) * self.si_per_unit + self.si_offset
     }
 
     /// SI value to the raw register value (the simulator's side).
     pub fn to_raw(&self, si: f64) -> f64 {
         let (r0, r1) = self.raw_span;
         let (e0, e1) = self.engineering_span;
-        r0 + (si / self.si_per_unit - e0) * (r1 - r0) / (e1 - e0)
+        r0 + ((si - self.si_offset) / self.si_per_unit - e0) * (r1 - r0) / (e1 - e0)
     }
 
     /// The smallest step in SI that the register can show: the quantisation
@@ -602,11 +659,56 @@ impl Checker {
             .transfer
             .as_ref()
             .and_then(|s| self.sensor(s, &format!("{ctx} transfer"), Quantity::Flow, density));
-        for (name, s) in [("level", Some(&t.level)), ("transfer", t.transfer.as_ref())] {
+        let temperature = t.temperature.as_ref().and_then(|s| {
+            self.sensor(
+                s,
+                &format!("{ctx} temperature"),
+                Quantity::Temperature,
+                density,
+            )
+        });
+        for (name, s) in [
+            ("level", Some(&t.level)),
+            ("transfer", t.transfer.as_ref()),
+            ("temperature", t.temperature.as_ref()),
+        ] {
             if let Some(s) = s {
                 self.pressure_keys_only_on_pressure(s, &ctx, name);
             }
         }
+        let density_model = self.density_model(&t.substance, &ctx, density);
+        if density_model.follows_temperature() && t.temperature.is_none() {
+            let span = t
+                .substance
+                .expansion_per_c
+                .as_ref()
+                .map(|s| s.span())
+                .or_else(|| t.substance.density_table.as_ref().map(|s| s.span()))
+                .unwrap_or(0..0);
+            self.problem(
+                span,
+                format!("{ctx}: the density follows temperature, but the tank has no temperature sensor; add a temperature = {{ ... }} sensor, or remove the expansion data"),
+            );
+        }
+        let density_uncertainty = match &t.substance.density_uncertainty_pct {
+            Some(pct) if !(pct.get_ref().is_finite() && (0.0..=20.0).contains(pct.get_ref())) => {
+                self.problem(
+                    pct.span(),
+                    format!("{ctx}: density_uncertainty_pct = {} is outside 0 to 20 %; give how far the density may be from the truth, in per cent (1 for a product known from its specification)", pct.get_ref()),
+                );
+                None
+            }
+            Some(pct) => Some(Uncertainty {
+                bound: pct.get_ref() / 100.0,
+                relative: true,
+                stated: true,
+            }),
+            None => Some(Uncertainty {
+                bound: DEFAULT_DENSITY_UNCERTAINTY,
+                relative: true,
+                stated: false,
+            }),
+        };
         let spans = [
             (Role::Level, Some(t.level.address.span())),
             (
@@ -616,6 +718,10 @@ impl Checker {
             (
                 Role::Transfer,
                 t.transfer.as_ref().map(|s| s.address.span()),
+            ),
+            (
+                Role::Temperature,
+                t.temperature.as_ref().map(|s| s.address.span()),
             ),
             (
                 Role::LeakFlag,
@@ -643,8 +749,67 @@ impl Checker {
             level: level?,
             pressure,
             transfer,
+            temperature,
             leak_flag,
+            density: density_model,
+            density_uncertainty: density_uncertainty?,
         })
+    }
+
+    /// How the density follows temperature: an expansion coefficient at a
+    /// reference temperature, a table, or neither (a constant).
+    fn density_model(
+        &mut self,
+        substance: &raw::RawSubstance,
+        ctx: &str,
+        density: Density,
+    ) -> DensityModel {
+        let constant = DensityModel::Constant(density);
+        match (&substance.expansion_per_c, &substance.density_table) {
+            (Some(beta), Some(table)) => {
+                self.problem(
+                    table.span(),
+                    format!("{ctx}: give either expansion_per_c or density_table, not both"),
+                );
+                let _ = beta;
+                constant
+            }
+            (Some(beta), None) => {
+                let at = substance
+                    .reference_temperature_c
+                    .as_ref()
+                    .map_or(REFERENCE_TEMPERATURE_C, |t| *t.get_ref());
+                let model =
+                    DensityModel::expansion(density, Temperature::celsius(at), *beta.get_ref());
+                self.model(beta.span(), &format!("{ctx} expansion_per_c"), model)
+                    .unwrap_or(constant)
+            }
+            (None, Some(table)) => {
+                if let Some(t) = &substance.reference_temperature_c {
+                    self.problem(
+                        t.span(),
+                        format!("{ctx}: reference_temperature_c goes with expansion_per_c; a density_table carries its own temperatures, so remove it"),
+                    );
+                }
+                let points = table
+                    .get_ref()
+                    .iter()
+                    .map(|&(c, rho)| (Temperature::celsius(c), Density::kg_per_cubic_metre(rho)))
+                    .collect();
+                let model = DensityModel::table(points);
+                self.model(table.span(), &format!("{ctx} density_table"), model)
+                    .unwrap_or(constant)
+            }
+            (None, None) => {
+                if let Some(t) = &substance.reference_temperature_c {
+                    self.problem(
+                        t.span(),
+                        format!("{ctx}: reference_temperature_c needs expansion_per_c beside it; add the expansion coefficient or remove the key"),
+                    );
+                }
+                constant
+            }
+        }
     }
 
     fn geometry(&mut self, g: &Spanned<RawGeometry>, ctx: &str) -> Option<Geometry> {
@@ -770,7 +935,9 @@ impl Checker {
         };
         let unit = unit?;
         let si_per_unit = unit.si_factor(density);
-        let valid = (e0 * si_per_unit, e1 * si_per_unit);
+        let si_offset = unit.si_offset();
+        let valid = (e0 * si_per_unit + si_offset, e1 * si_per_unit + si_offset);
+        let accuracy = self.accuracy(s, ctx, quantity, (valid.1 - valid.0).abs())?;
         Some(Sensor {
             register: s.register,
             address: *s.address.get_ref(),
@@ -780,8 +947,10 @@ impl Checker {
             engineering_span: (e0, e1),
             unit: s.unit.get_ref().clone(),
             si_per_unit,
+            si_offset,
             valid_si: (valid.0.min(valid.1), valid.0.max(valid.1)),
             stuck_after,
+            accuracy,
         })
     }
 
@@ -829,6 +998,107 @@ impl Checker {
         })
     }
 
+    /// The sensor's accuracy: its own key (one per kind of sensor, in the
+    /// unit data sheets use), or the default for its kind.
+    fn accuracy(
+        &mut self,
+        s: &RawSensor,
+        ctx: &str,
+        quantity: Quantity,
+        span_si: f64,
+    ) -> Option<Uncertainty> {
+        // (key, its value, SI per unit of the key, relative, plausible max in the key's unit)
+        let keys = [
+            (
+                "accuracy_mm",
+                &s.accuracy_mm,
+                Quantity::Length,
+                0.001,
+                false,
+                1000.0,
+            ),
+            (
+                "accuracy_kpa",
+                &s.accuracy_kpa,
+                Quantity::Pressure,
+                1000.0,
+                false,
+                1000.0,
+            ),
+            (
+                "accuracy_pct",
+                &s.accuracy_pct,
+                Quantity::Flow,
+                0.01,
+                true,
+                50.0,
+            ),
+            (
+                "accuracy_c",
+                &s.accuracy_c,
+                Quantity::Temperature,
+                1.0,
+                false,
+                50.0,
+            ),
+        ];
+        let mut found = None;
+        let mut ok = true;
+        for (key, value, for_quantity, factor, relative, max) in keys {
+            let Some(value) = value else { continue };
+            let v = *value.get_ref();
+            if for_quantity != quantity {
+                let right = keys.iter().find(|k| k.2 == quantity).map_or("", |k| k.0);
+                self.problem(
+                    value.span(),
+                    format!("{ctx}: {key} is for a {} sensor; a {} sensor states its accuracy as {right}", for_quantity.name(), quantity.name()),
+                );
+                ok = false;
+            } else if !(v.is_finite() && v > 0.0 && v <= max) {
+                self.problem(
+                    value.span(),
+                    format!("{ctx}: {key} = {v} is outside (0, {max}]; give the accuracy from the instrument's data sheet"),
+                );
+                ok = false;
+            } else {
+                found = Some(Uncertainty {
+                    bound: v * factor,
+                    relative,
+                    stated: true,
+                });
+            }
+        }
+        if !ok {
+            return None;
+        }
+        Some(
+            found.unwrap_or(match quantity {
+                Quantity::Length => Uncertainty {
+                    bound: (DEFAULT_LEVEL_ACCURACY_FRACTION_OF_SPAN * span_si)
+                        .max(DEFAULT_LEVEL_ACCURACY_MIN_M),
+                    relative: false,
+                    stated: false,
+                },
+                Quantity::Pressure => Uncertainty {
+                    bound: (DEFAULT_PRESSURE_ACCURACY_FRACTION_OF_SPAN * span_si)
+                        .max(DEFAULT_PRESSURE_ACCURACY_MIN_PA),
+                    relative: false,
+                    stated: false,
+                },
+                Quantity::Flow => Uncertainty {
+                    bound: DEFAULT_TRANSFER_ACCURACY,
+                    relative: true,
+                    stated: false,
+                },
+                Quantity::Temperature => Uncertainty {
+                    bound: DEFAULT_TEMPERATURE_ACCURACY_K,
+                    relative: false,
+                    stated: false,
+                },
+            }),
+        )
+    }
+
     fn pressure_keys_only_on_pressure(&mut self, s: &RawSensor, ctx: &str, name: &str) {
         if let Some(r) = &s.reference {
             self.problem(
@@ -874,6 +1144,9 @@ pub fn register_map(config: &Config, device: usize) -> Vec<MappedValue<'_>> {
         if let Some(s) = &tank.transfer {
             add(Role::Transfer, s);
         }
+        if let Some(s) = &tank.temperature {
+            add(Role::Temperature, s);
+        }
         if let Some(f) = &tank.leak_flag {
             out.push(MappedValue {
                 tank: tank_index,
@@ -894,6 +1167,7 @@ pub enum Role {
     Level,
     Pressure,
     Transfer,
+    Temperature,
     LeakFlag,
 }
 
@@ -903,6 +1177,7 @@ impl Role {
             Role::Level => "level",
             Role::Pressure => "pressure",
             Role::Transfer => "transfer",
+            Role::Temperature => "temperature",
             Role::LeakFlag => "leak flag",
         }
     }

@@ -85,6 +85,8 @@ pub struct RawTank {
     pub level: RawSensor,
     pub pressure: Option<RawSensor>,
     pub transfer: Option<RawSensor>,
+    /// The liquid's temperature, for a density that follows it.
+    pub temperature: Option<RawSensor>,
     pub leak_flag: Option<RawFlag>,
 }
 
@@ -130,6 +132,16 @@ pub struct RawSubstance {
     #[serde(default)]
     pub reportable_kg: Vec<Spanned<f64>>,
     pub vapour: Option<Spanned<RawVapour>>,
+    /// How far the stated density may be from the truth, per cent.
+    pub density_uncertainty_pct: Option<Spanned<f64>>,
+    /// Volumetric expansion coefficient, 1/°C: the density then follows
+    /// the tank's temperature sensor.
+    pub expansion_per_c: Option<Spanned<f64>>,
+    /// The temperature `density_kg_m3` is given at (with `expansion_per_c`).
+    pub reference_temperature_c: Option<Spanned<f64>>,
+    /// (°C, kg/m³) points from the product's data sheet, instead of an
+    /// expansion coefficient.
+    pub density_table: Option<Spanned<Vec<(f64, f64)>>>,
 }
 
 #[derive(Debug, Deserialize)]
@@ -164,6 +176,13 @@ pub struct RawSensor {
     /// Pressure only: elevation of the tap above the tank bottom, m; absent
     /// for a transmitter in the headspace.
     pub tap_elevation_m: Option<Spanned<f64>>,
+    /// The data sheet's accuracy, one key per kind of sensor: level in mm,
+    /// pressure in kPa, transfer flow in per cent of the reading,
+    /// temperature in °C. Validation refuses a key on the wrong sensor.
+    pub accuracy_mm: Option<Spanned<f64>>,
+    pub accuracy_kpa: Option<Spanned<f64>>,
+    pub accuracy_pct: Option<Spanned<f64>>,
+    pub accuracy_c: Option<Spanned<f64>>,
 }
 
 #[derive(Debug, Clone, Copy, Deserialize, PartialEq, Eq)]

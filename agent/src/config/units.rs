@@ -14,6 +14,8 @@ pub enum Quantity {
     Pressure,
     /// Volume or mass flow, converted to m³/s.
     Flow,
+    /// Temperature, converted to kelvin.
+    Temperature,
 }
 
 impl Quantity {
@@ -22,6 +24,7 @@ impl Quantity {
             Quantity::Length => "length",
             Quantity::Pressure => "pressure",
             Quantity::Flow => "flow",
+            Quantity::Temperature => "temperature",
         }
     }
 }
@@ -39,6 +42,9 @@ enum Factor {
     Fixed(f64),
     /// Mass flow: SI volume flow = reading times this (kg/s per unit) over the density.
     PerDensity(f64),
+    /// SI value = reading times the first plus the second (temperatures,
+    /// whose scales do not share a zero).
+    Affine(f64, f64),
 }
 
 const PSI_IN_PA: f64 = 0.453_592_37 * 9.806_65 / (0.0254 * 0.0254);
@@ -74,6 +80,15 @@ const UNITS: &[(&str, Quantity, Factor)] = &[
     ("kg/s", Quantity::Flow, Factor::PerDensity(1.0)),
     ("kg/h", Quantity::Flow, Factor::PerDensity(1.0 / 3600.0)),
     ("t/h", Quantity::Flow, Factor::PerDensity(1000.0 / 3600.0)),
+    // The degree Celsius is the kelvin offset by 273.15 K, and the degree
+    // Fahrenheit is 5/9 K with 32 °F at 0 °C (both exact by definition).
+    ("degC", Quantity::Temperature, Factor::Affine(1.0, 273.15)),
+    (
+        "degF",
+        Quantity::Temperature,
+        Factor::Affine(5.0 / 9.0, 273.15 - 32.0 * 5.0 / 9.0),
+    ),
+    ("K", Quantity::Temperature, Factor::Fixed(1.0)),
 ];
 
 impl Unit {
@@ -98,11 +113,19 @@ impl Unit {
         self.quantity
     }
 
-    /// Multiplier from this unit to SI (m, Pa, m³/s).
+    /// Multiplier from this unit to SI (m, Pa, m³/s, K).
     pub fn si_factor(&self, density: Density) -> f64 {
         match self.factor {
-            Factor::Fixed(f) => f,
+            Factor::Fixed(f) | Factor::Affine(f, _) => f,
             Factor::PerDensity(f) => f / density.si(),
+        }
+    }
+
+    /// What to add after the multiplier: zero but for temperatures.
+    pub fn si_offset(&self) -> f64 {
+        match self.factor {
+            Factor::Affine(_, offset) => offset,
+            _ => 0.0,
         }
     }
 }
@@ -123,5 +146,13 @@ mod tests {
         assert!((f("bbl/h") * 3600.0 - 0.158_987_294_928).abs() < 1e-15);
         assert!(Unit::parse("furlong").is_none());
         assert_eq!(Unit::names(Quantity::Length), ["m", "cm", "mm", "ft", "in"]);
+        // 212 °F is 100 °C is 373.15 K (definitions of the scales).
+        let k = |name: &str, x: f64| {
+            let u = Unit::parse(name).unwrap();
+            x * u.si_factor(water) + u.si_offset()
+        };
+        assert!((k("degF", 212.0) - 373.15).abs() < 1e-12);
+        assert!((k("degC", 100.0) - 373.15).abs() < 1e-12);
+        assert_eq!(k("K", 300.0), 300.0);
     }
 }

@@ -87,6 +87,16 @@ pub enum ModelError {
     HeatCapacityRatio(f64),
 
     #[error(
+        "a density table needs at least two (temperature, density) points (got {0}); list them from the product's data sheet"
+    )]
+    DensityTableTooShort(usize),
+
+    #[error(
+        "the density table's temperatures must rise strictly from one point to the next (point {index} does not); sort the points by temperature"
+    )]
+    DensityTableNotRising { index: usize },
+
+    #[error(
         "samples must come in time order, but one at {next_ms} ms follows one at {previous_ms} ms; sort the readings by time"
     )]
     SamplesOutOfOrder { previous_ms: i64, next_ms: i64 },

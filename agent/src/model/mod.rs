@@ -8,11 +8,13 @@
 //! * [`geometry`]: tank shapes and calibration tables (volume, level, surface area).
 //! * [`orifice`]: the orifice equation for liquid and the ideal-gas nozzle equations.
 //! * [`vessel`]: a tank with its contents; pressure readings; which phase flows.
+//! * [`density`]: liquid density as a function of temperature.
 //! * [`forecast`]: the draining forecast (when the flow stops, totals at horizons).
 //! * [`tally`]: the running total over timestamped samples, with its Cd band.
 //! * [`integral`]: the trapezoid rule as a running accumulator.
 //! * [`quadrature`]: adaptive Gauss–Kronrod integration, used by the forecast.
 
+pub mod density;
 pub mod error;
 pub mod forecast;
 pub mod geometry;
@@ -23,6 +25,7 @@ pub mod tally;
 pub mod units;
 pub mod vessel;
 
+pub use density::DensityModel;
 pub use error::{ModelError, ModelResult};
 pub use forecast::{Forecast, HorizonPoint, forecast_liquid};
 pub use geometry::{Geometry, Heads};

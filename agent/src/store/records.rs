@@ -52,8 +52,8 @@ pub fn register_tanks<'a>(
 /// was. Returns how many were new.
 pub fn insert_samples(conn: &Connection, samples: &[TankSample]) -> StoreResult<usize> {
     let mut stmt = conn.prepare_cached(
-        "INSERT OR IGNORE INTO samples (tank, at_ms, level, level_q, pressure, pressure_q, transfer, transfer_q, flag)
-         VALUES ((SELECT id FROM tanks WHERE tag = ?1), ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9)",
+        "INSERT OR IGNORE INTO samples (tank, at_ms, level, level_q, pressure, pressure_q, transfer, transfer_q, flag, temperature, temperature_q)
+         VALUES ((SELECT id FROM tanks WHERE tag = ?1), ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11)",
     )?;
     let mut new = 0;
     for s in samples {
@@ -73,6 +73,8 @@ pub fn insert_samples(conn: &Connection, samples: &[TankSample]) -> StoreResult<
             s.transfer.as_ref().and_then(value),
             s.transfer.map(|r| quality_name(r.quality)),
             flag,
+            s.temperature.as_ref().and_then(value),
+            s.temperature.map(|r| quality_name(r.quality)),
         ])?;
     }
     Ok(new)
@@ -86,7 +88,7 @@ pub fn samples_between(
     to_ms: i64,
 ) -> StoreResult<Vec<TankSample>> {
     let mut stmt = conn.prepare_cached(
-        "SELECT s.at_ms, s.level, s.level_q, s.pressure, s.pressure_q, s.transfer, s.transfer_q, s.flag
+        "SELECT s.at_ms, s.level, s.level_q, s.pressure, s.pressure_q, s.transfer, s.transfer_q, s.flag, s.temperature, s.temperature_q
          FROM samples s JOIN tanks t ON t.id = s.tank
          WHERE t.tag = ?1 AND s.at_ms BETWEEN ?2 AND ?3 ORDER BY s.at_ms",
     )?;
@@ -100,11 +102,24 @@ pub fn samples_between(
             r.get::<_, Option<f64>>(5)?,
             r.get::<_, Option<String>>(6)?,
             r.get::<_, Option<i64>>(7)?,
+            r.get::<_, Option<f64>>(8)?,
+            r.get::<_, Option<String>>(9)?,
         ))
     })?;
     let mut out = Vec::new();
     for row in rows {
-        let (at_ms, level, level_q, pressure, pressure_q, transfer, transfer_q, flag) = row?;
+        let (
+            at_ms,
+            level,
+            level_q,
+            pressure,
+            pressure_q,
+            transfer,
+            transfer_q,
+            flag,
+            temperature,
+            temperature_q,
+        ) = row?;
         let reading = |value: Option<f64>, q: &str| -> StoreResult<Reading> {
             Ok(Reading {
                 value,
@@ -123,6 +138,10 @@ pub fn samples_between(
             transfer: transfer_q
                 .as_deref()
                 .map(|q| reading(transfer, q))
+                .transpose()?,
+            temperature: temperature_q
+                .as_deref()
+                .map(|q| reading(temperature, q))
                 .transpose()?,
             leak_flag: flag.map(|f| match f {
                 0 => Some(false),

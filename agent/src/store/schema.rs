@@ -98,6 +98,12 @@ const MIGRATIONS: &[&str] = &[
         stopped_at_ms INTEGER
     );
     "#,
+    // 2: the liquid's temperature beside each sample (K), NULL where no
+    // temperature sensor is mapped, as the other optional values.
+    r#"
+    ALTER TABLE samples ADD COLUMN temperature REAL;
+    ALTER TABLE samples ADD COLUMN temperature_q TEXT;
+    "#,
 ];
 
 /// The version this program writes.

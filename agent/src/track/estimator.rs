@@ -817,6 +817,7 @@ mod tests {
             level: Reading::good((level / step).round() * step),
             pressure: None,
             transfer: Some(Reading::good(0.0)),
+            temperature: None,
             leak_flag: Some(Some(false)),
         }
     }

@@ -806,6 +806,7 @@ level = {{ register = "input", address = {address}, type = "u16", raw = [4000, 2
             level: Reading::good(4.0 - 0.001 * (at_ms % 100_000) as f64 / 1000.0),
             pressure: None,
             transfer: None,
+            temperature: None,
             leak_flag: None,
         }
     }

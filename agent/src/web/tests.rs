@@ -74,6 +74,7 @@ fn fixture_with_health() -> (Scratch, Router, i64, Arc<StoreHealth>) {
                 level: Reading::good(4.2 - 0.0008 * i as f64),
                 pressure: None,
                 transfer: None,
+                temperature: None,
                 leak_flag: None,
             })
         })
