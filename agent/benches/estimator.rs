@@ -108,6 +108,7 @@ fn params() -> LeakParams {
         hole_height_m: 0.3,
         cd: 0.61,
         density_kg_m3: None,
+        ..LeakParams::default()
     }
 }
 

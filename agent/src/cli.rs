@@ -200,9 +200,14 @@ pub struct HoleArgs {
     #[arg(long, value_name = "M", allow_negative_numbers = true)]
     pub hole_height: Option<f64>,
     /// Discharge coefficient, 0.1 to 1 (default 1.0, conservative; the
-    /// band runs from 0.61 to 1.0).
+    /// band runs from 0.61 to 1.0 unless --cd-range says otherwise).
     #[arg(long, allow_negative_numbers = true)]
     pub cd: Option<f64>,
+    /// The range the discharge coefficient may lie in, LOW..HIGH (for
+    /// example 0.60..0.65 for a hole someone has measured); it must include
+    /// --cd. Default 0.61..1.0 (common practice).
+    #[arg(long, value_name = "LOW..HIGH")]
+    pub cd_range: Option<String>,
 }
 
 /// Changed leak parameters, for `leak revise` and `replay`.
@@ -303,6 +308,7 @@ pub fn run(cli: Cli) -> anyhow::Result<()> {
                 unknown_diameter: c.unknown_diameter,
                 hole_height_m: c.hole_height_m,
                 cd: c.cd,
+                cd_range: c.cd_range,
                 density_kg_m3: c.density_kg_m3,
                 from_ms: when(from)?,
                 to_ms: when(to)?,

@@ -47,6 +47,9 @@ struct PlantTank {
     physics: physics::Tank,
     level_noise_m: f64,
     pressure_noise_pa: f64,
+    level_bias_m: f64,
+    level_drift_m_per_h: f64,
+    pressure_bias_pa: f64,
     temperature_k: f64,
     faults: [Fault; 4],
     flag: bool,
@@ -86,6 +89,9 @@ impl Plant {
                 ),
                 level_noise_m: setup.level_noise_m,
                 pressure_noise_pa: setup.pressure_noise_pa,
+                level_bias_m: setup.level_bias_m,
+                level_drift_m_per_h: setup.level_drift_m_per_h,
+                pressure_bias_pa: setup.pressure_bias_pa,
                 temperature_k: setup.temperature_k,
                 faults: [Fault::None; 4],
                 flag: false,
@@ -309,7 +315,10 @@ impl Plant {
         let p = &t.physics;
         match role {
             SensorRole::Level => {
-                p.level_m() + self.noise.gaussian(t.level_noise_m, stream, self.steps)
+                p.level_m()
+                    + t.level_bias_m
+                    + t.level_drift_m_per_h * self.time_s() / 3600.0
+                    + self.noise.gaussian(t.level_noise_m, stream, self.steps)
             }
             SensorRole::Transfer => p.transfer_m3_s(),
             SensorRole::Temperature => t.temperature_k,
@@ -328,6 +337,7 @@ impl Plant {
                     }
                 };
                 let gauge = p.headspace_pa()
+                    + t.pressure_bias_pa
                     + column
                     + self.noise.gaussian(t.pressure_noise_pa, stream, self.steps);
                 if ps.absolute {

@@ -50,6 +50,13 @@ pub struct TankSetup {
     pub level_noise_m: f64,
     /// Standard deviation of the noise on the pressure reading, Pa.
     pub pressure_noise_pa: f64,
+    /// A level gauge's error that is not noise: a fixed offset (m) and a
+    /// drift that grows with time (m per hour), as a real gauge's zero
+    /// wanders; what the band's stated accuracy must cover.
+    pub level_bias_m: f64,
+    pub level_drift_m_per_h: f64,
+    /// A pressure transmitter's fixed offset, Pa.
+    pub pressure_bias_pa: f64,
     /// The liquid's temperature, K (what a temperature sensor shows).
     pub temperature_k: f64,
 }
@@ -237,6 +244,9 @@ mod raw {
         pub headspace_kpa: Option<Spanned<f64>>,
         pub level_noise_m: Option<Spanned<f64>>,
         pub pressure_noise_pa: Option<Spanned<f64>>,
+        pub level_bias_m: Option<Spanned<f64>>,
+        pub level_drift_m_per_h: Option<Spanned<f64>>,
+        pub pressure_bias_pa: Option<Spanned<f64>>,
         /// The liquid's temperature, °C, held for the whole run.
         pub temperature_c: Option<Spanned<f64>>,
     }
@@ -547,6 +557,25 @@ impl Checker<'_> {
         };
         let level_noise_m = noise(&t.level_noise_m, "level_noise_m");
         let pressure_noise_pa = noise(&t.pressure_noise_pa, "pressure_noise_pa");
+        // Offsets and drifts may have either sign, within sizes no working
+        // gauge reaches: 1 m of level, 0.1 m/h, 100 kPa.
+        let mut offset = |value: &Option<Spanned<f64>>, key: &str, limit: f64, unit: &str| {
+            match value {
+                None => 0.0,
+                Some(v) if v.get_ref().is_finite() && v.get_ref().abs() <= limit => *v.get_ref(),
+                Some(v) => {
+                    self.problem(
+                    v.span(),
+                    format!("{ctx}: {key} = {} is outside ±{limit} {unit}; give the gauge's error in {unit}", v.get_ref()),
+                );
+                    ok = false;
+                    0.0
+                }
+            }
+        };
+        let level_bias_m = offset(&t.level_bias_m, "level_bias_m", 1.0, "m");
+        let level_drift_m_per_h = offset(&t.level_drift_m_per_h, "level_drift_m_per_h", 0.1, "m/h");
+        let pressure_bias_pa = offset(&t.pressure_bias_pa, "pressure_bias_pa", 100_000.0, "Pa");
         if let (Some(p), None) = (&t.pressure_noise_pa, &tank.pressure) {
             self.problem(
                 p.span(),
@@ -571,6 +600,9 @@ impl Checker<'_> {
             headspace_pa,
             level_noise_m,
             pressure_noise_pa,
+            level_bias_m,
+            level_drift_m_per_h,
+            pressure_bias_pa,
             temperature_k: temperature_c + 273.15,
         })
     }

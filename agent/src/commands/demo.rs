@@ -196,6 +196,7 @@ async fn narrate(
         hole_diameter_m: None,
         hole_height_m: Some(0.3),
         cd: Some(0.61),
+        cd_range: None,
         since_ms: Some(since),
         note: Some("demo: level falling, hole not yet seen".into()),
     };
@@ -294,7 +295,7 @@ fn progress_line(second: u64, doc: &status::StatusDocument) -> String {
         kg(est.released_low_kg),
         kg(est.released_high_kg),
         report::rate(MassRate::kg_per_second(est.rate_best_kg_s)),
-        est.method.name()
+        report::estimate::method_name(est.method)
     )
 }
 

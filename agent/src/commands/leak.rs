@@ -47,6 +47,7 @@ pub fn run(command: LeakCommand) -> anyhow::Result<()> {
                 hole_diameter_m: hole.diameter_m()?,
                 hole_height_m: hole.height_m()?,
                 cd: hole.cd_checked()?,
+                cd_range: hole.cd_range_checked()?,
                 since_ms,
                 note,
             };
@@ -65,6 +66,7 @@ pub fn run(command: LeakCommand) -> anyhow::Result<()> {
                 unknown_diameter: c.unknown_diameter,
                 hole_height_m: c.hole_height_m,
                 cd: c.cd,
+                cd_range: c.cd_range,
                 density_kg_m3: c.density_kg_m3,
                 note,
             };
@@ -84,6 +86,7 @@ pub struct CheckedChanges {
     pub unknown_diameter: bool,
     pub hole_height_m: Option<f64>,
     pub cd: Option<f64>,
+    pub cd_range: Option<(f64, f64)>,
     pub density_kg_m3: Option<f64>,
 }
 
@@ -94,6 +97,7 @@ impl ParamChanges {
             unknown_diameter: self.unknown_diameter,
             hole_height_m: self.hole.height_m()?,
             cd: self.hole.cd_checked()?,
+            cd_range: self.hole.cd_range_checked()?,
             density_kg_m3: check_density(self.density)?,
         })
     }
@@ -142,6 +146,39 @@ impl HoleArgs {
             Some(cd) => Ok(Some(DischargeCoefficient::new(cd)?.get())),
             None => Ok(None),
         }
+    }
+
+    /// `--cd-range LOW..HIGH`: two Cds, low first, that include `--cd`
+    /// (or 1.0, the default Cd, when none is given).
+    pub fn cd_range_checked(&self) -> anyhow::Result<Option<(f64, f64)>> {
+        let Some(text) = &self.cd_range else {
+            return Ok(None);
+        };
+        let parsed = text.split_once("..").and_then(|(a, b)| {
+            Some((a.trim().parse::<f64>().ok()?, b.trim().parse::<f64>().ok()?))
+        });
+        let Some((low, high)) = parsed else {
+            bail!("--cd-range {text:?} is not LOW..HIGH; write it like 0.60..0.65");
+        };
+        DischargeCoefficient::new(low)?;
+        DischargeCoefficient::new(high)?;
+        if low > high {
+            bail!(
+                "--cd-range {text}: the low end is above the high end; write it low first, like 0.60..0.65"
+            );
+        }
+        let cd = self.cd.unwrap_or(1.0);
+        if !(low..=high).contains(&cd) {
+            bail!(
+                "--cd-range {text} does not include the Cd {cd}{}; give a --cd inside the range",
+                if self.cd.is_none() {
+                    " (the default, since no --cd is given)"
+                } else {
+                    ""
+                }
+            );
+        }
+        Ok(Some((low, high)))
     }
 }
 

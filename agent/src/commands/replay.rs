@@ -29,6 +29,7 @@ pub struct Overrides {
     pub unknown_diameter: bool,
     pub hole_height_m: Option<f64>,
     pub cd: Option<f64>,
+    pub cd_range: Option<(f64, f64)>,
     pub density_kg_m3: Option<f64>,
     pub from_ms: Option<i64>,
     pub to_ms: Option<i64>,
@@ -40,6 +41,7 @@ impl Overrides {
             || self.unknown_diameter
             || self.hole_height_m.is_some()
             || self.cd.is_some()
+            || self.cd_range.is_some()
             || self.density_kg_m3.is_some()
             || self.from_ms.is_some()
             || self.to_ms.is_some()
@@ -54,9 +56,14 @@ impl Overrides {
         }
         if let Some(h) = self.hole_height_m {
             p.hole_height_m = h;
+            p.hole_height_assumed = false;
         }
         if let Some(c) = self.cd {
             p.cd = c;
+            p.cd_assumed = false;
+        }
+        if self.cd_range.is_some() {
+            p.cd_range = self.cd_range;
         }
         if self.density_kg_m3.is_some() {
             p.density_kg_m3 = self.density_kg_m3;
@@ -184,7 +191,10 @@ pub fn replay(
             if to < from {
                 bail!("--to is before --from; give an end after the start");
             }
-            let samples = store::samples_between(&conn, &row.tank, from, to)?;
+            // From one gap limit before the start, so that the estimator can
+            // interpolate the level at the start as the live run did.
+            let lookback = crate::track::estimator::gap_limit_ms(interval);
+            let samples = store::samples_between(&conn, &row.tank, from - lookback, to)?;
             let estimates = run_estimator(tank, params, from, interval, &samples)?;
             let (identical, compared, matching) = if overrides.any() {
                 (None, 0, 0)
@@ -200,7 +210,9 @@ pub fn replay(
                 params,
                 params_text: describe_params(&params),
                 overrides: overrides.any(),
-                samples: samples.len(),
+                // The samples in the range, not the one before it that the
+                // start is interpolated from.
+                samples: samples.iter().filter(|s| s.at_ms >= from).count(),
                 skipped_rows: Vec::new(),
                 from: report::utc(from),
                 to: report::utc(estimates.last().map_or(from, |e| e.at_ms)),
@@ -226,14 +238,12 @@ pub fn replay(
             let samples: Vec<TankSample> = data
                 .samples
                 .into_iter()
-                .filter(|s| s.at_ms >= from && s.at_ms <= to)
+                .filter(|s| {
+                    s.at_ms >= from - crate::track::estimator::gap_limit_ms(interval)
+                        && s.at_ms <= to
+                })
                 .collect();
-            let params = overrides.apply(LeakParams {
-                hole_diameter_m: None,
-                hole_height_m: 0.0,
-                cd: 1.0,
-                density_kg_m3: None,
-            });
+            let params = overrides.apply(LeakParams::default());
             let estimates = run_estimator(t, params, from, interval, &samples)?;
             let summary = Summary {
                 event: None,
@@ -360,7 +370,7 @@ fn write_csv(path: &Path, estimates: &[Estimate], summary: &Summary) -> anyhow::
             released_low_kg: e.released_low_kg,
             released_high_kg: e.released_high_kg,
             inventory_kg: e.inventory_kg,
-            method: e.method.name(),
+            method: e.method.code(),
             samples_used: e.quality.samples_used,
             samples_skipped: e.quality.samples_skipped,
             gaps_bridged: e.quality.gaps_bridged,
@@ -431,8 +441,8 @@ pub fn human(s: &Summary) -> String {
     );
     out += &column(
         "method",
-        r.method.name().into(),
-        live.map(|l| l.method.name().into()),
+        report::estimate::method_name(r.method).into(),
+        live.map(|l| report::estimate::method_name(l.method).into()),
     );
     let hole = |e: &Estimate| {
         e.fitted_diameter_m

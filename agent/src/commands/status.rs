@@ -6,7 +6,7 @@
 //! the README and only ever added to, never renamed.
 
 use crate::model::{Density, Mass, MassRate, TimeSpan};
-use crate::report;
+use crate::report::{self, estimate as words};
 use crate::store::{self, EventRow};
 use crate::track::estimator::{Estimate, LeakParams};
 use crate::track::tracker::describe_params;
@@ -49,9 +49,82 @@ pub struct EventStatus {
     pub params_text: String,
     /// The best released total as liquid volume at the logged density.
     pub released_volume: Option<Volumes>,
+    /// How old the latest estimate's sample is, ms, and whether that is
+    /// older than the site's polling explains (an open event whose data
+    /// stopped: a link down, a gauge failed).
+    pub data_age_ms: Option<i64>,
+    pub stale: bool,
     /// The latest estimate; absent until the first usable sample.
-    pub estimate: Option<Estimate>,
+    pub estimate: Option<EstimateView>,
 }
+
+/// An estimate as reports show it: the stored numbers and codes, and the
+/// same said in words (rendered by `report::estimate`, never stored).
+#[derive(Debug, Clone, Serialize)]
+pub struct EstimateView {
+    #[serde(flatten)]
+    pub estimate: Estimate,
+    /// Why the best figure comes from where it does.
+    pub method_reason: String,
+    /// The fitted hole as an effective area, or why not yet.
+    pub fit_status: String,
+    /// The given hole's disagreement with the level drop, if any (kept
+    /// for readers of the first document format; also in `warnings_text`).
+    pub consistency: Option<String>,
+    /// The Cd the level implies at a given hole, in words.
+    pub implied_cd_text: Option<String>,
+    /// What widens the band.
+    pub band_text: String,
+    /// Every warning of `warnings`, in words, in the same order.
+    pub warnings_text: Vec<String>,
+}
+
+impl EstimateView {
+    pub fn new(estimate: Estimate, params: &LeakParams) -> Self {
+        let e = &estimate;
+        Self {
+            method_reason: words::reason_text(e, params),
+            fit_status: words::fit_text(e, params),
+            consistency: e
+                .warnings
+                .contains(crate::track::estimate::Warning::HoleInconsistent)
+                .then(|| {
+                    words::warning_text(
+                        crate::track::estimate::Warning::HoleInconsistent,
+                        e,
+                        params,
+                    )
+                }),
+            implied_cd_text: words::implied_cd_text(e, params),
+            band_text: words::band_text(e),
+            warnings_text: words::warnings_text(e, params),
+            estimate,
+        }
+    }
+}
+
+impl std::ops::Deref for EstimateView {
+    type Target = Estimate;
+    fn deref(&self) -> &Estimate {
+        &self.estimate
+    }
+}
+
+/// When an open event's data counts as stale: five poll intervals of the
+/// slowest device, and never under 10 s.
+pub fn stale_after_ms(config: &crate::config::Config) -> i64 {
+    config
+        .devices
+        .iter()
+        .map(|d| d.poll_interval.as_millis() as i64)
+        .max()
+        .unwrap_or(1000)
+        .saturating_mul(5)
+        .max(DEFAULT_STALE_AFTER_MS)
+}
+
+/// The stale limit when the site's config cannot be read.
+pub const DEFAULT_STALE_AFTER_MS: i64 = 10_000;
 
 /// A volume in the units responders use.
 #[derive(Debug, Clone, Copy, Serialize)]
@@ -75,21 +148,39 @@ impl Volumes {
     }
 }
 
-/// Builds the status document of one event, or of every open event.
+/// Builds the status document of one event, or of every open event. The
+/// stale limit comes from the config the daemon runs with, when it can be
+/// read.
 pub fn document(db: &Path, event: Option<i64>) -> anyhow::Result<StatusDocument> {
     let conn = store::open_read_only(db)?;
+    let stale_after = store::heartbeat(&conn)?
+        .and_then(|h| crate::config::load(Path::new(&h.config)).ok())
+        .map_or(DEFAULT_STALE_AFTER_MS, |c| stale_after_ms(&c));
+    document_with(&conn, db, event, stale_after)
+}
+
+/// The same, on an open connection, with a known stale limit.
+pub fn document_with(
+    conn: &rusqlite::Connection,
+    db: &Path,
+    event: Option<i64>,
+    stale_after_ms: i64,
+) -> anyhow::Result<StatusDocument> {
+    let now = store::now_ms();
     let rows: Vec<EventRow> = match event {
-        Some(id) => vec![store::event(&conn, id)?.ok_or_else(|| {
+        Some(id) => vec![store::event(conn, id)?.ok_or_else(|| {
             anyhow::anyhow!(
                 "there is no event {id} in {}; `leaktally status` lists the open events",
                 db.display()
             )
         })?],
-        None => store::events(&conn, true)?,
+        None => store::events(conn, true)?,
     };
     let mut events = Vec::new();
     for row in rows {
-        let estimate = store::latest_estimate(&conn, &row)?;
+        let estimate = store::latest_estimate(conn, &row)?;
+        let data_age_ms = estimate.as_ref().map(|e| now - e.at_ms);
+        let open = row.closed_at_ms.is_none();
         events.push(EventStatus {
             event: row.id,
             tank: row.tank.clone(),
@@ -109,11 +200,12 @@ pub fn document(db: &Path, event: Option<i64>) -> anyhow::Result<StatusDocument>
             released_volume: estimate
                 .as_ref()
                 .map(|e| Volumes::of(e.released_best_kg, e.density_kg_m3)),
-            estimate,
+            data_age_ms,
+            stale: open && data_age_ms.unwrap_or(now - row.opened_at_ms) > stale_after_ms,
+            estimate: estimate.map(|e| EstimateView::new(e, &row.params)),
         });
     }
-    let now = store::now_ms();
-    let heartbeat = store::heartbeat(&conn)?;
+    let heartbeat = store::heartbeat(conn)?;
     let running = heartbeat
         .as_ref()
         .is_some_and(|h| h.stopped_at_ms.is_none() && now - h.beat_at_ms <= 5_000);
@@ -150,121 +242,157 @@ pub fn human(doc: &StatusDocument) -> String {
         let _ = writeln!(out, "No open leak events.");
     }
     for e in &doc.events {
-        let span = match e.closed_at_ms {
-            Some(closed) => format!("closed; leaked from {} to {}", e.start, report::utc(closed)),
-            None => format!("open since {}", e.start),
-        };
-        let _ = writeln!(
-            out,
-            "\nEvent {}  tank {}  {span} (flagged by {}, revision {})",
-            e.event, e.tank, e.source, e.revision
-        );
-        let _ = writeln!(out, "  parameters   {}", e.params_text);
-        let Some(est) = &e.estimate else {
-            let _ = writeln!(out, "  no usable sample yet");
-            continue;
-        };
-        let rho = Density::kg_per_cubic_metre(est.density_kg_m3);
-        let kg = |x: f64| report::mass(Mass::kilograms(x));
-        let rate = |x: f64| report::rate(MassRate::kg_per_second(x));
-        let _ = writeln!(
-            out,
-            "  released     {}  (band {} to {})",
-            kg(est.released_best_kg),
-            kg(est.released_low_kg),
-            kg(est.released_high_kg)
-        );
-        let _ = writeln!(
-            out,
-            "               {}",
-            report::volumes(Mass::kilograms(est.released_best_kg), rho)
-        );
-        let closed = e.closed_at_ms.is_some();
-        let _ = writeln!(
-            out,
-            "  {}  {}  (band {} to {}), {} phase",
-            if closed {
-                "rate at end "
-            } else {
-                "rate now    "
-            },
-            rate(est.rate_best_kg_s),
-            rate(est.rate_low_kg_s),
-            rate(est.rate_high_kg_s),
-            est.phase
-        );
-        let _ = writeln!(
-            out,
-            "  best from    {}: {}",
-            est.method.name(),
-            est.method_reason
-        );
-        if let Some(warning) = &est.consistency {
-            let _ = writeln!(out, "  WARNING      {warning}");
-        }
-        if let Some(inv) = est.inventory_kg {
-            let _ = writeln!(out, "  inventory    {} by the level balance", kg(inv));
-        }
-        match est.fitted_diameter_m {
-            Some(d) => {
-                let _ = writeln!(
-                    out,
-                    "  fitted hole  {:.1} mm at Cd {}",
-                    d * 1000.0,
-                    e.params.cd
-                );
-            }
-            None => {
-                let _ = writeln!(out, "  fitted hole  {}", est.fit_status);
-            }
-        }
-        let _ = writeln!(
-            out,
-            "  remaining    {} above the hole (level {:.3} m)",
-            kg(est.remaining_above_hole_kg),
-            est.level_m
-        );
-        match &est.forecast {
-            _ if closed => {
-                let _ = writeln!(
-                    out,
-                    "  forecast     none: the event is closed (the leak was isolated)"
-                );
-            }
-            Some(f) => {
-                let _ = writeln!(
-                    out,
-                    "  forecast     flow stops in {} at {:.2} m; total then {}; in 15 min {}; in 1 h {}",
-                    report::duration(TimeSpan::seconds(f.stops_after_s)),
-                    f.stop_level_m,
-                    kg(f.total_at_stop_kg),
-                    kg(f.total_in_15_min_kg),
-                    kg(f.total_in_1_h_kg)
-                );
-            }
-            None => {
-                let _ = writeln!(out, "  forecast     needs a hole size or a fitted hole");
-            }
-        }
-        for c in &est.crossings {
-            let when = c.at_ms.map_or("not reached".to_owned(), |t| {
-                format!("crossed at {}", report::utc(t))
-            });
-            let _ = writeln!(out, "  reportable   {}: {when}", kg(c.quantity_kg));
-        }
-        let q = &est.quality;
-        let _ = writeln!(
-            out,
-            "  data         {} samples used, {} skipped, {} pressure held, {} gap(s) bridged ({}, longest {:.0} s)",
-            q.samples_used,
-            q.samples_skipped,
-            q.pressure_held,
-            q.gaps_bridged,
-            kg(q.bridged_kg),
-            q.longest_gap_s
-        );
-        let _ = writeln!(out, "  last sample  {}", report::utc(est.at_ms));
+        event_text(&mut out, e);
     }
     let _ = writeln!(out, "\n{}", doc.caution);
     out
+}
+
+/// One event's lines.
+fn event_text(out: &mut String, e: &EventStatus) {
+    let span = match e.closed_at_ms {
+        Some(closed) => format!("closed; leaked from {} to {}", e.start, report::utc(closed)),
+        None => format!("open since {}", e.start),
+    };
+    let _ = writeln!(
+        out,
+        "\nEvent {}  tank {}  {span} (flagged by {}, revision {})",
+        e.event, e.tank, e.source, e.revision
+    );
+    let _ = writeln!(out, "  parameters   {}", e.params_text);
+    if e.stale {
+        let _ = writeln!(
+            out,
+            "  WARNING      no new data for {}: the figures below are not current; check the link to the tank's device and its gauge",
+            e.data_age_ms
+                .map_or("any sample yet".into(), |age| report::duration(
+                    TimeSpan::seconds(age as f64 / 1000.0)
+                ))
+        );
+    }
+    let Some(est) = &e.estimate else {
+        let _ = writeln!(out, "  no usable sample yet");
+        return;
+    };
+    let rho = Density::kg_per_cubic_metre(est.density_kg_m3);
+    let kg = |x: f64| report::mass(Mass::kilograms(x));
+    let rate = |x: f64| report::rate(MassRate::kg_per_second(x));
+    let _ = writeln!(
+        out,
+        "  released     {}  (band {} to {})",
+        kg(est.released_best_kg),
+        kg(est.released_low_kg),
+        kg(est.released_high_kg)
+    );
+    let _ = writeln!(
+        out,
+        "               {}",
+        report::volumes(Mass::kilograms(est.released_best_kg), rho)
+    );
+    let _ = writeln!(out, "  band from    {}", est.band_text);
+    let closed = e.closed_at_ms.is_some();
+    let _ = writeln!(
+        out,
+        "  {}  {}  (band {} to {}), {} phase",
+        if closed {
+            "rate at end "
+        } else {
+            "rate now    "
+        },
+        rate(est.rate_best_kg_s),
+        rate(est.rate_low_kg_s),
+        rate(est.rate_high_kg_s),
+        words::phase_text(est)
+    );
+    let _ = writeln!(
+        out,
+        "  best from    {}: {}",
+        words::method_name(est.method),
+        est.method_reason
+    );
+    for warning in &est.warnings_text {
+        let _ = writeln!(out, "  WARNING      {warning}");
+    }
+    if let Some(inv) = est.inventory_kg {
+        let _ = writeln!(
+            out,
+            "  inventory    {} ± {} by the level balance",
+            kg(inv),
+            kg(est.band.inventory_kg)
+        );
+    }
+    let _ = writeln!(out, "  fitted hole  {}", est.fit_status);
+    if let Some(text) = &est.implied_cd_text {
+        let _ = writeln!(out, "  implied Cd   {text}");
+    }
+    let _ = writeln!(
+        out,
+        "  remaining    {} above the hole (level {:.3} m)",
+        kg(est.remaining_above_hole_kg),
+        est.level_m
+    );
+    match &est.forecast {
+        _ if closed => {
+            let _ = writeln!(
+                out,
+                "  forecast     none: the event is closed (the leak was isolated)"
+            );
+        }
+        Some(f) => {
+            let _ = writeln!(
+                out,
+                "  forecast     flow stops in {} at {:.2} m; total then {}; total by 15 min from now {}; by 1 h {}",
+                report::duration(TimeSpan::seconds(f.stops_after_s)),
+                f.stop_level_m,
+                kg(f.total_at_stop_kg),
+                kg(f.total_in_15_min_kg),
+                kg(f.total_in_1_h_kg)
+            );
+        }
+        None => {
+            let _ = writeln!(out, "  forecast     needs a hole size or a fitted hole");
+        }
+    }
+    for c in &est.crossings {
+        let _ = writeln!(
+            out,
+            "  reportable   {}: {}",
+            kg(c.quantity_kg),
+            crossing_text(c)
+        );
+    }
+    let q = &est.quality;
+    let _ = writeln!(
+        out,
+        "  data         {} samples used, {} skipped, {} pressure held, {} gap(s) bridged ({}, longest {:.0} s)",
+        q.samples_used,
+        q.samples_skipped,
+        q.pressure_held,
+        q.gaps_bridged,
+        kg(q.bridged_kg),
+        q.longest_gap_s
+    );
+    let _ = writeln!(out, "  last sample  {}", report::utc(est.at_ms));
+}
+
+/// A reportable quantity's crossings: when it may have been reached (the
+/// band's high end) and when the best estimate reached it.
+pub fn crossing_text(c: &crate::track::estimate::Crossing) -> String {
+    match (c.high_at_ms, c.at_ms) {
+        (_, Some(best)) => format!(
+            "reached at {} (best estimate){}",
+            report::utc(best),
+            c.high_at_ms
+                .filter(|&h| h < best)
+                .map_or(String::new(), |h| format!(
+                    "; may have been reached from {} (band's high end)",
+                    report::utc(h)
+                ))
+        ),
+        (Some(high), None) => format!(
+            "MAY HAVE BEEN REACHED from {} (band's high end); the best estimate is below it",
+            report::utc(high)
+        ),
+        (None, None) => "not reached".into(),
+    }
 }

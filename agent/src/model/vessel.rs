@@ -157,24 +157,41 @@ impl Vessel {
     /// The liquid's gauge pressure at the hole: the headspace pressure plus
     /// the column above it; zero when the surface is at or below the hole.
     pub fn liquid_driving_pressure(&self, state: &TankState, hole: &Hole) -> Pressure {
+        self.driving_pressure_at(state, hole, self.density)
+    }
+
+    fn driving_pressure_at(&self, state: &TankState, hole: &Hole, density: Density) -> Pressure {
         let column = state.level - hole.elevation();
         if column.si() <= 0.0 {
             return Pressure::ZERO;
         }
-        (state.headspace + self.density.head_pressure(column)).max(Pressure::ZERO)
+        (state.headspace + density.head_pressure(column)).max(Pressure::ZERO)
     }
 
     /// What flows out of `hole` in `state`, at discharge coefficient `cd`.
     pub fn outflow(&self, state: &TankState, hole: &Hole, cd: DischargeCoefficient) -> Outflow {
+        self.outflow_at(state, hole, cd, self.density)
+    }
+
+    /// The same at another liquid density than the vessel's own: the
+    /// density at the liquid's measured temperature. The caller keeps it
+    /// within [`DENSITY_RANGE`].
+    pub fn outflow_at(
+        &self,
+        state: &TankState,
+        hole: &Hole,
+        cd: DischargeCoefficient,
+        density: Density,
+    ) -> Outflow {
         if state.level > hole.elevation() {
-            let driving = self.liquid_driving_pressure(state, hole);
+            let driving = self.driving_pressure_at(state, hole, density);
             return Outflow {
                 phase: if driving.si() > 0.0 {
                     Phase::Liquid
                 } else {
                     Phase::None
                 },
-                rate: liquid_mass_rate(cd, hole.area(), self.density, driving),
+                rate: liquid_mass_rate(cd, hole.area(), density, driving),
                 driving,
             };
         }

@@ -196,12 +196,7 @@ fn event_from_row(r: &rusqlite::Row<'_>) -> rusqlite::Result<(EventRow, String)>
             closed_at_ms: r.get(4)?,
             source: r.get(5)?,
             revision: r.get(6)?,
-            params: LeakParams {
-                hole_diameter_m: None,
-                hole_height_m: 0.0,
-                cd: 1.0,
-                density_kg_m3: None,
-            },
+            params: LeakParams::default(),
         },
         r.get(7)?,
     ))
@@ -305,7 +300,7 @@ pub fn insert_estimates(
             e.released_low_kg,
             e.released_high_kg,
             e.rate_best_kg_s,
-            e.method.name(),
+            e.method.code(),
             json(e)?
         ])?;
         for c in &e.crossings {

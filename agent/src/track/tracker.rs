@@ -33,6 +33,9 @@ pub enum Request {
         hole_diameter_m: Option<f64>,
         hole_height_m: Option<f64>,
         cd: Option<f64>,
+        /// The Cd's range (low, high); 0.61 to 1.0 if absent.
+        #[serde(default)]
+        cd_range: Option<(f64, f64)>,
         /// Back-dated start, UTC ms; now if absent.
         since_ms: Option<i64>,
         note: Option<String>,
@@ -45,6 +48,8 @@ pub enum Request {
         unknown_diameter: bool,
         hole_height_m: Option<f64>,
         cd: Option<f64>,
+        #[serde(default)]
+        cd_range: Option<(f64, f64)>,
         density_kg_m3: Option<f64>,
         note: Option<String>,
     },
@@ -196,7 +201,9 @@ impl Tracker {
         let interval = self.config.devices[tank.device].poll_interval.as_millis() as i64;
         let mut estimator = Estimator::new(tank, row.params, row.start_ms, interval)
             .map_err(|e| StoreError::Refused(e.to_string()))?;
-        let (tag, from) = (row.tank.clone(), row.start_ms);
+        // From one gap limit before the start: the estimator interpolates
+        // the level at the start from the samples either side of it.
+        let (tag, from) = (row.tank.clone(), row.start_ms - estimator.lookback_ms());
         let end = row.closed_at_ms.unwrap_or(i64::MAX);
         let samples = self
             .store
@@ -389,12 +396,7 @@ impl Tracker {
             if self.open.values().any(|e| e.row.tank == sample.tank_id) {
                 continue;
             }
-            let params = LeakParams {
-                hole_diameter_m: None,
-                hole_height_m: 0.0,
-                cd: 1.0,
-                density_kg_m3: None,
-            };
+            let params = LeakParams::default();
             let opened = self
                 .open_flagged(&sample.tank_id, sample.at_ms, params)
                 .await;
@@ -627,6 +629,7 @@ impl Tracker {
                 hole_diameter_m,
                 hole_height_m,
                 cd,
+                cd_range,
                 since_ms,
                 note: _,
             } => {
@@ -647,7 +650,10 @@ impl Tracker {
                     hole_diameter_m,
                     hole_height_m: hole_height_m.unwrap_or(0.0),
                     cd: cd.unwrap_or(1.0),
+                    cd_range,
                     density_kg_m3: None,
+                    hole_height_assumed: hole_height_m.is_none(),
+                    cd_assumed: cd.is_none(),
                 };
                 let event = self
                     .open_event(&tank, now, start, "operator", params)
@@ -679,6 +685,7 @@ impl Tracker {
                 unknown_diameter,
                 hole_height_m,
                 cd,
+                cd_range,
                 density_kg_m3,
                 note: _,
             } => {
@@ -693,9 +700,14 @@ impl Tracker {
                 }
                 if let Some(h) = hole_height_m {
                     params.hole_height_m = h;
+                    params.hole_height_assumed = false;
                 }
                 if let Some(c) = cd {
                     params.cd = c;
+                    params.cd_assumed = false;
+                }
+                if cd_range.is_some() {
+                    params.cd_range = cd_range;
                 }
                 if density_kg_m3.is_some() {
                     params.density_kg_m3 = density_kg_m3;
@@ -771,7 +783,18 @@ pub fn describe_params(p: &LeakParams) -> String {
     let density = p
         .density_kg_m3
         .map_or(String::new(), |d| format!(", density {d} kg/m³"));
-    format!("{hole} at {:.2} m, Cd {}{density}", p.hole_height_m, p.cd)
+    let (cd_low, cd_high) = p.cd_band();
+    format!(
+        "{hole} at {:.2} m{}, Cd {}{} (range {cd_low} to {cd_high}){density}",
+        p.hole_height_m,
+        if p.hole_height_assumed {
+            " (assumed: the bottom)"
+        } else {
+            ""
+        },
+        p.cd,
+        if p.cd_assumed { " (assumed)" } else { "" },
+    )
 }
 
 #[cfg(test)]
@@ -831,6 +854,7 @@ level = {{ register = "input", address = {address}, type = "u16", raw = [4000, 2
                 hole_height_m: 0.3,
                 cd: 0.61,
                 density_kg_m3: None,
+                ..LeakParams::default()
             };
             store::create_event(&conn, "T1", start, start, "operator", &params).unwrap();
         }

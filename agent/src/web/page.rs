@@ -16,7 +16,7 @@
 
 use crate::commands::status::{EventStatus, StatusDocument, Volumes};
 use crate::model::TimeSpan;
-use crate::report;
+use crate::report::{self, estimate as words};
 use crate::store::ActionRow;
 use crate::store::health::HealthSnapshot;
 use crate::web::chart::{self, Point};
@@ -291,6 +291,7 @@ fn event(s: &mut String, e: &EventStatus, extras: &EventExtras, now_ms: i64, sta
 <p class="volume">{vm3} · {vl}</p>
 <p class="band">band {lo} – {hi}</p>
 <p class="band">{lom3} – {him3} m³ · {lol} – {hil} L</p>
+<p class="fine" data-field="band-causes" data-event="{id}">band from {causes}</p>
 <p class="fine">= {gal} US gal = {bbl} bbl at {rho} kg/m³</p>
 </div>"#,
         kg = figure("released-best-kg", id, &g(est.released_best_kg), "kg"),
@@ -305,6 +306,7 @@ fn event(s: &mut String, e: &EventStatus, extras: &EventExtras, now_ms: i64, sta
         gal = g(best.us_gallons),
         bbl = g(best.barrels),
         rho = g(rho),
+        causes = escape(&est.band_text),
     );
     let (rate, rate_unit) = rate_parts(est.rate_best_kg_s);
     let (rate_lo, rate_lo_unit) = rate_parts(est.rate_low_kg_s);
@@ -325,7 +327,7 @@ fn event(s: &mut String, e: &EventStatus, extras: &EventExtras, now_ms: i64, sta
         lmin = g(rate_m3_h * 1000.0 / 60.0),
         lo = figure_with_unit("rate-low", id, &rate_lo, rate_lo_unit),
         hi = figure_with_unit("rate-high", id, &rate_hi, rate_hi_unit),
-        phase = escape(&est.phase),
+        phase = escape(words::phase_text(est)),
         level = format_args!("{:.3}", est.level_m),
     );
     s.push_str(
@@ -390,16 +392,27 @@ fn event(s: &mut String, e: &EventStatus, extras: &EventExtras, now_ms: i64, sta
         s.push_str("<ul>\n");
         for c in &est.crossings {
             let q = chart::whole(c.quantity_kg);
-            match c.at_ms {
-                Some(at) => {
+            let high = c
+                .high_at_ms
+                .map_or(String::new(), |at| format!(r#" data-high-at-ms="{at}""#));
+            match (c.at_ms, c.high_at_ms) {
+                (Some(at), _) => {
                     let _ = writeln!(
                         s,
-                        r#"<li class="crossed" data-field="reportable" data-event="{id}" data-quantity-kg="{}" data-crossed-at-ms="{at}"><strong>{q} kg</strong> crossed at <time>{}</time></li>"#,
+                        r#"<li class="crossed" data-field="reportable" data-event="{id}" data-quantity-kg="{}" data-crossed-at-ms="{at}"{high}><strong>{q} kg</strong> {}</li>"#,
                         c.quantity_kg,
-                        escape(&report::utc(at))
+                        escape(&crate::commands::status::crossing_text(c))
                     );
                 }
-                None => {
+                (None, Some(_)) => {
+                    let _ = writeln!(
+                        s,
+                        r#"<li class="crossed" data-field="reportable" data-event="{id}" data-quantity-kg="{}"{high}><strong>{q} kg</strong> {}</li>"#,
+                        c.quantity_kg,
+                        escape(&crate::commands::status::crossing_text(c))
+                    );
+                }
+                (None, None) => {
                     let _ = writeln!(
                         s,
                         r#"<li class="pending" data-field="reportable" data-event="{id}" data-quantity-kg="{}"><strong>{q} kg</strong> not reached ({} kg to go)</li>"#,
@@ -421,6 +434,23 @@ fn event(s: &mut String, e: &EventStatus, extras: &EventExtras, now_ms: i64, sta
             escape(warning)
         );
     }
+    let others: Vec<&String> = est
+        .warnings
+        .iter()
+        .zip(&est.warnings_text)
+        .filter(|(w, _)| *w != crate::track::estimate::Warning::HoleInconsistent)
+        .map(|(_, text)| text)
+        .collect();
+    if !others.is_empty() {
+        let _ = writeln!(
+            s,
+            r#"<ul class="warnings" data-field="warnings" data-event="{id}">"#
+        );
+        for text in others {
+            let _ = writeln!(s, "<li>{}</li>", escape(text));
+        }
+        s.push_str("</ul>\n");
+    }
     let _ = write!(
         s,
         r#"<div class="panel basis">
@@ -429,20 +459,21 @@ fn event(s: &mut String, e: &EventStatus, extras: &EventExtras, now_ms: i64, sta
 <dt>Best from</dt><dd data-field="method" data-event="{id}">{method}</dd>
 <dt>Why</dt><dd>{reason}</dd>
 "#,
-        method = escape(est.method.name()),
+        method = escape(words::method_name(est.method)),
         reason = escape(&est.method_reason),
     );
     if let Some(inv) = est.inventory_kg {
         let _ = writeln!(
             s,
-            "<dt>Level balance</dt><dd>{} kg lost from the tank</dd>",
-            g(inv)
+            "<dt>Level balance</dt><dd>{} ± {} kg lost from the tank</dd>",
+            g(inv),
+            g(est.band.inventory_kg)
         );
     }
-    let hole = match est.fitted_diameter_m {
-        Some(d) => format!("{:.1} mm at Cd {}", d * 1000.0, e.params.cd),
-        None => escape(&est.fit_status),
-    };
+    let hole = escape(&est.fit_status);
+    if let Some(text) = &est.implied_cd_text {
+        let _ = writeln!(s, "<dt>Implied Cd</dt><dd>{}</dd>", escape(text));
+    }
     let _ = write!(
         s,
         r#"<dt>Fitted hole</dt><dd>{hole}</dd>

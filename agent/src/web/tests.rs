@@ -62,6 +62,7 @@ fn fixture_with_health() -> (Scratch, Router, i64, Arc<StoreHealth>) {
         hole_height_m: 0.3,
         cd: 0.61,
         density_kg_m3: None,
+        ..LeakParams::default()
     };
     let id = store::create_event(&conn, HOSTILE_ID, start, start, "operator", &params).unwrap();
     let mut estimator = Estimator::new(&config.tanks[0], params, start, 1000).unwrap();

@@ -3,6 +3,11 @@
 //!
 //! Left out: layout. Each command lays out its own table; this module only
 //! makes sure a number never appears without its unit.
+//!
+//! * [`estimate`]: the words for an estimate (reasons, the fit, the band's
+//!   causes, warnings), shared by every report.
+
+pub mod estimate;
 
 use crate::model::{Density, Mass, MassRate, TimeSpan, Volume};
 

@@ -1,0 +1,271 @@
+//! Words for an estimate: why its best figure comes from where it does,
+//! the fit, what widens the band, and every warning with its figures.
+//!
+//! The estimator stores numbers and enums; this module is the one place
+//! that turns them into sentences, so `status`, `replay`, the web page and
+//! the JSON's text fields say the same thing in the same words.
+//!
+//! Left out: layout (each report lays out its own lines).
+
+use super::{duration, mass, significant};
+use crate::model::{Mass, TimeSpan};
+use crate::track::estimate::{Estimate, Fit, LeakParams, Method, PhaseName, Reason, Warning};
+
+/// A method's name for people.
+pub fn method_name(method: Method) -> &'static str {
+    match method {
+        Method::OrificeGivenHole => "orifice model, given hole",
+        Method::FittedHole => "orifice model, fitted hole",
+        Method::InventoryBalance => "inventory balance",
+        Method::NoData => "no data yet",
+    }
+}
+
+fn kg(x: f64) -> String {
+    mass(Mass::kilograms(x))
+}
+
+fn mm(metres: f64) -> String {
+    format!("{} mm", significant(metres * 1000.0))
+}
+
+fn mm2(square_metres: f64) -> String {
+    format!("{} mm²", significant(square_metres * 1e6))
+}
+
+/// The phase, with the regime for vapour.
+pub fn phase_text(e: &Estimate) -> &'static str {
+    match (e.phase, e.choked) {
+        (PhaseName::Liquid, _) => "liquid",
+        (PhaseName::Vapour, Some(true)) => "vapour (choked)",
+        (PhaseName::Vapour, Some(false)) => "vapour (subcritical)",
+        (PhaseName::Vapour, None) => "vapour",
+        (PhaseName::None, _) => "none",
+    }
+}
+
+/// Why the best figure comes from where it does.
+pub fn reason_text(e: &Estimate, p: &LeakParams) -> String {
+    let (cd_low, cd_high) = p.cd_band();
+    let hole = p
+        .hole_diameter_m
+        .map_or("a".into(), |d| format!("a {}", mm(d)));
+    match e.reason {
+        Reason::GivenHole => format!(
+            "the operator gave {hole} hole; band from Cd {cd_low} to {cd_high} and the instruments, held to what the level allows"
+        ),
+        Reason::LevelBoundsGivenHole => format!(
+            "the operator gave {hole} hole, but the level does not fall as it would through it; the figure is held to what the level allows"
+        ),
+        Reason::FittedHole => {
+            "no hole size given; the hole is fitted to the level drop, and the band is the fit's spread and the instruments'".into()
+        }
+        Reason::LevelBoundsFittedHole => {
+            "no hole size given; the fitted model is held to what the level allows".into()
+        }
+        Reason::NotEnoughDrop => {
+            "no hole size given and not enough level drop to fit one yet; the figure is the level balance, and the rate its slope over the last minute".into()
+        }
+        Reason::NoLossSeen => {
+            "no hole size given, and no loss seen beyond the instruments' uncertainty yet; the figure is the level balance".into()
+        }
+        Reason::Vapour => format!(
+            "vapour through {} hole, from the headspace pressure; the level cannot check it",
+            if p.hole_diameter_m.is_some() { "the given" } else { "the fitted" }
+        ),
+        Reason::Unrecorded => "logged by an earlier version of leaktally, which kept no reason".into(),
+    }
+}
+
+/// The fit: the effective area Cd·A first, and diameters only at stated
+/// Cds, so that nobody takes a fitted figure for a measured hole.
+pub fn fit_text(e: &Estimate, p: &LeakParams) -> String {
+    match e.fit {
+        Fit::Ready {
+            area_m2,
+            area_low_m2,
+            area_high_m2,
+        } => {
+            let (cd_low, cd_high) = p.cd_band();
+            let diameter = |cd: f64| (4.0 * area_m2 / (std::f64::consts::PI * cd)).sqrt();
+            format!(
+                "effective area Cd·A {} ({} to {}); as a round hole, {} at Cd {cd_high} to {} at Cd {cd_low}",
+                mm2(area_m2),
+                mm2(area_low_m2),
+                mm2(area_high_m2),
+                mm(diameter(cd_high)),
+                mm(diameter(cd_low)),
+            )
+        }
+        Fit::NotYet {
+            level_drop_m,
+            needed_m,
+        } => format!(
+            "not enough data yet: the level has fallen {}, the fit needs {}",
+            mm(level_drop_m.max(0.0)),
+            mm(needed_m)
+        ),
+    }
+}
+
+/// With a given hole: the Cd the level implies, and whether it is inside
+/// the range the band spans.
+pub fn implied_cd_text(e: &Estimate, p: &LeakParams) -> Option<String> {
+    let c = e.implied_cd?;
+    let (cd_low, cd_high) = p.cd_band();
+    Some(format!(
+        "the level implies Cd {} ({} to {}) at the given hole: {} the range {cd_low} to {cd_high}",
+        significant(c.best),
+        significant(c.low),
+        significant(c.high),
+        if c.in_range { "inside" } else { "OUTSIDE" }
+    ))
+}
+
+/// What widens the band, in one line.
+pub fn band_text(e: &Estimate) -> String {
+    let b = &e.band;
+    let mut parts = Vec::new();
+    if matches!(e.method, Method::OrificeGivenHole) {
+        parts.push(format!("Cd {} to {} (a bound)", b.cd_low, b.cd_high));
+    }
+    if let Some(f) = b.fit_fraction {
+        parts.push(format!("the fit's spread ±{} %", significant(f * 100.0)));
+    }
+    let mut causes = vec![
+        format!("level accuracy {}", kg(b.level_accuracy_kg)),
+        format!("level noise {}", kg(b.level_noise_kg)),
+        format!("density {}", kg(b.density_kg)),
+    ];
+    if b.transfer_kg > 0.0 {
+        causes.push(format!("transfer meter {}", kg(b.transfer_kg)));
+    }
+    if b.temperature_kg > 0.0 {
+        causes.push(format!("temperature {}", kg(b.temperature_kg)));
+    }
+    parts.push(format!(
+        "the level balance ±{} ({}; 95 %)",
+        kg(b.inventory_kg),
+        causes.join(", ")
+    ));
+    if b.rate_fraction > 0.0 {
+        parts.push(format!(
+            "instruments ±{} % on the rate",
+            significant(b.rate_fraction * 100.0)
+        ));
+    }
+    parts.join("; ")
+}
+
+/// One warning in words, with the figures it refers to.
+pub fn warning_text(w: Warning, e: &Estimate, p: &LeakParams) -> String {
+    let q = &e.quality;
+    match w {
+        Warning::HoleInconsistent => {
+            let given = p
+                .hole_diameter_m
+                .map(|d| p.cd * std::f64::consts::FRAC_PI_4 * d * d);
+            match (e.fit.area(), given) {
+                (Some((_, fitted, _)), Some(given)) => {
+                    let ratio = given / fitted;
+                    format!(
+                        "the level falls as through an effective area Cd·A of {}, not the {} of the given hole at Cd {}: the orifice figure may be {} by a factor of {}; check the hole size (leak revise --hole-diameter, or --unknown-diameter to fit it)",
+                        mm2(fitted),
+                        mm2(given),
+                        p.cd,
+                        if ratio > 1.0 { "too high" } else { "too low" },
+                        significant(ratio.max(1.0 / ratio))
+                    )
+                }
+                _ => "the given hole does not agree with the level drop".into(),
+            }
+        }
+        Warning::LevelContradictsModel => format!(
+            "the level does not agree with the orifice model: the model gives {}, the level balance {} ± {}; the best figure follows the level (check the hole size, and that the gauge is live)",
+            e.model_kg.map_or("-".into(), kg),
+            e.inventory_kg.map_or("-".into(), kg),
+            kg(e.band.inventory_kg)
+        ),
+        Warning::NoLossSeen => format!(
+            "no loss seen yet: the level has not fallen beyond what the instruments allow (level balance {} ± {})",
+            e.inventory_kg.map_or("-".into(), kg),
+            kg(e.band.inventory_kg)
+        ),
+        Warning::BridgedGapsDominate => format!(
+            "{} of the total ({} %) was bridged across {} data gap(s) (longest {}), not measured",
+            kg(q.bridged_kg),
+            significant(100.0 * q.bridged_kg / e.released_best_kg.max(1e-9)),
+            q.gaps_bridged,
+            duration(TimeSpan::seconds(q.longest_gap_s))
+        ),
+        Warning::BridgeCutByLevel => format!(
+            "the forecast across data gaps was cut by {} to what the level on the far side allows",
+            kg(q.bridge_cut_kg)
+        ),
+        Warning::TotalRevisedDown => format!(
+            "the total was revised down {} time(s) after data gaps, by {} in all, to what the level on the far side allows",
+            q.revisions_down,
+            kg(q.revised_down_kg)
+        ),
+        Warning::PressureHeld => {
+            "the pressure reading is bad: the last good one is held".into()
+        }
+        Warning::TransferHeld => {
+            "the transfer flow reading is bad: the last good one is held".into()
+        }
+        Warning::TemperatureHeld => {
+            "the temperature reading is bad: the last good one is held".into()
+        }
+        Warning::HoleHeightAssumed => {
+            "no hole height given: the hole is taken at the tank bottom, which releases the most".into()
+        }
+        Warning::CdAssumed => "no Cd given: 1.0 is used (conservative)".into(),
+        Warning::DefaultAccuracies => {
+            "some instrument accuracies (or the density's) are defaults, not the data sheet's: see `leaktally check`; the band rests on them".into()
+        }
+        Warning::ForecastCapped => {
+            "the forecast is capped at the liquid there was above the hole (plus transfers in)".into()
+        }
+        Warning::VapourNotChecked => {
+            "vapour leaves through the hole: the level cannot check this figure".into()
+        }
+        Warning::StartBridged => {
+            "the event starts before the first logged level: that stretch is counted at the first sample's rate, not measured".into()
+        }
+    }
+}
+
+/// Every warning of an estimate, in words.
+pub fn warnings_text(e: &Estimate, p: &LeakParams) -> Vec<String> {
+    e.warnings.iter().map(|w| warning_text(w, e, p)).collect()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn a_fitted_hole_is_an_area_first_with_diameters_at_stated_cds() {
+        // Cd·A = 754 mm² is a 40 mm hole at Cd 0.6 (π/4 · 40² · 0.6 = 754).
+        let area = 0.6 * std::f64::consts::FRAC_PI_4 * 0.04 * 0.04;
+        let e = Estimate {
+            fit: Fit::Ready {
+                area_m2: area,
+                area_low_m2: 0.95 * area,
+                area_high_m2: 1.05 * area,
+            },
+            ..Estimate::blank()
+        };
+        let p = LeakParams {
+            cd_range: Some((0.6, 1.0)),
+            cd: 0.6,
+            ..LeakParams::default()
+        };
+        let text = fit_text(&e, &p);
+        assert!(text.starts_with("effective area Cd·A 754 mm²"), "{text}");
+        assert!(
+            text.contains("31.0 mm at Cd 1") && text.contains("40.0 mm at Cd 0.6"),
+            "{text}"
+        );
+    }
+}
