@@ -4,6 +4,8 @@
 //!   the Python package `fluids`, scipy quadrature), fixtures in tests/fixtures.
 //! * `properties`: invariants over random inputs (proptest).
 //! * `acquisition`: the simulator and `leaktally poll` as real processes.
+//! * `bands`: whether the band holds the truth, over seeded runs of the
+//!   simulator's plant in simulated time.
 //! * `interop`: the agent and the simulator against pymodbus, an independent
 //!   Modbus implementation.
 //! * `python_env`: the pinned Python environment those tests use.
@@ -17,6 +19,7 @@
 //! * `util`: shared helpers.
 
 mod acquisition;
+mod bands;
 mod faults;
 mod interop;
 mod properties;

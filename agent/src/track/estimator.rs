@@ -961,7 +961,9 @@ impl Estimator {
             };
             let lead_in = k_used * self.lead_in_per_unit;
             let centre = inventory + lead_in;
-            let (bound_low, bound_high) = (centre - u, (centre + u).min(cap));
+            // A release is never negative: a level band wholly below zero
+            // (the level rose: an unmetered transfer in) bounds it at zero.
+            let (bound_low, bound_high) = ((centre - u).max(0.0), (centre + u).min(cap).max(0.0));
             let split = |x: f64| (x * liquid_share, x * (1.0 - liquid_share));
             let ((l_low, v_low), (l_best, v_best), (l_high, v_high)) =
                 (split(low), split(best), split(high));
