@@ -147,7 +147,7 @@ fn simulate(scratch: &Scratch, c: &Conditions, given: bool) -> Vec<Point> {
                 tank.device,
                 tank.level.register,
                 tank.level.address,
-                u16::from(tank.level.data_type.width()),
+                tank.level.data_type.width(),
             )
             .unwrap();
         let sample = TankSample {
