@@ -258,17 +258,74 @@ pub fn render(inputs: &Inputs<'_>) -> String {
         &mut out,
         "leaktally_event_reportable_crossed",
         "gauge",
-        "1 once the best estimate has crossed the reportable quantity (kg), else 0.",
+        "1 once the best estimate (estimate=\"best\") or the band's high end (estimate=\"high\": the quantity may have been released) has crossed the reportable quantity (kg), else 0.",
     );
     for (id, tank, est) in with_estimate() {
         for c in &est.crossings {
             let q = number(c.quantity_kg);
-            let crossed = if c.at_ms.is_some() { 1.0 } else { 0.0 };
-            f.value(
-                &[("event", id), ("tank", tank), ("quantity_kg", &q)],
-                crossed,
-            );
+            for (which, at) in [("best", c.at_ms), ("high", c.high_at_ms)] {
+                f.value(
+                    &[
+                        ("event", id),
+                        ("tank", tank),
+                        ("quantity_kg", &q),
+                        ("estimate", which),
+                    ],
+                    if at.is_some() { 1.0 } else { 0.0 },
+                );
+            }
         }
+    }
+    let mut f = family(
+        &mut out,
+        "leaktally_event_reportable_crossed_timestamp_seconds",
+        "gauge",
+        "When the best estimate or the band's high end first crossed the reportable quantity, seconds since the Unix epoch (absent until it does).",
+    );
+    for (id, tank, est) in with_estimate() {
+        for c in &est.crossings {
+            let q = number(c.quantity_kg);
+            for (which, at) in [("best", c.at_ms), ("high", c.high_at_ms)] {
+                if let Some(at) = at {
+                    f.value(
+                        &[
+                            ("event", id),
+                            ("tank", tank),
+                            ("quantity_kg", &q),
+                            ("estimate", which),
+                        ],
+                        seconds(at),
+                    );
+                }
+            }
+        }
+    }
+    let mut f = family(
+        &mut out,
+        "leaktally_event_warnings",
+        "gauge",
+        "1 for each warning the latest estimate carries (see the README's list of warnings).",
+    );
+    for (id, tank, est) in with_estimate() {
+        for w in est.warnings.iter() {
+            let code = serde_json::to_value(w)
+                .ok()
+                .and_then(|v| v.as_str().map(str::to_owned))
+                .unwrap_or_default();
+            f.value(&[("event", id), ("tank", tank), ("warning", &code)], 1.0);
+        }
+    }
+    let mut f = family(
+        &mut out,
+        "leaktally_event_data_stale",
+        "gauge",
+        "1 when an open event's latest sample is older than the site's polling explains, else 0.",
+    );
+    for e in &inputs.doc.events {
+        f.value(
+            &[("event", &e.event.to_string()), ("tank", &e.tank)],
+            if e.stale { 1.0 } else { 0.0 },
+        );
     }
     let mut f = family(
         &mut out,
