@@ -10,6 +10,8 @@
 //!   Modbus implementation.
 //! * `python_env`: the pinned Python environment those tests use.
 //! * `replay`: replays of a logged event and of a readings file.
+//! * `gaps`: data gaps end to end: a leak that stops during a link drop, a
+//!   hole plugged while the daemon is down, a back-dated start.
 //! * `faults`: link drops, a slow device, failed sensors, a locked
 //!   database and a full disk, end to end.
 //! * `tracking`: the simulator, the daemon and the operator CLI as real
@@ -21,6 +23,7 @@
 mod acquisition;
 mod bands;
 mod faults;
+mod gaps;
 mod interop;
 mod properties;
 mod python_env;

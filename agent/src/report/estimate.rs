@@ -126,8 +126,14 @@ pub fn implied_cd_text(e: &Estimate, p: &LeakParams) -> Option<String> {
 pub fn band_text(e: &Estimate) -> String {
     let b = &e.band;
     let mut parts = Vec::new();
-    if matches!(e.method, Method::OrificeGivenHole) {
-        parts.push(format!("Cd {} to {} (a bound)", b.cd_low, b.cd_high));
+    if matches!(e.method, Method::OrificeGivenHole) && b.model_high_kg > 0.0 {
+        parts.push(format!(
+            "the orifice model alone {} to {} (Cd {} to {}, a bound)",
+            kg(b.model_low_kg),
+            kg(b.model_high_kg),
+            b.cd_low,
+            b.cd_high
+        ));
     }
     if let Some(f) = b.fit_fraction {
         parts.push(format!("the fit's spread ±{} %", significant(f * 100.0)));

@@ -273,6 +273,12 @@ pub struct BandCauses {
     pub rate_fraction: f64,
     /// The fit's two-sigma spread of Cd·A, as a fraction, once fitted.
     pub fit_fraction: Option<f64>,
+    /// The orifice model's own band (kg), before the level bounds it:
+    /// the Cd range and the instruments, with no regard to the level.
+    #[serde(default)]
+    pub model_low_kg: f64,
+    #[serde(default)]
+    pub model_high_kg: f64,
 }
 
 /// Something a reader must be told, beside the figures. The figures a
