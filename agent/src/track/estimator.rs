@@ -1136,7 +1136,7 @@ impl Estimator {
             .si()
             * r.density
             / self.vessel.density().si();
-        self.refresh_forecast(r, best, cap);
+        self.refresh_forecast(r, best, cap, u);
         if self.forecast_capped {
             warnings.insert(Warning::ForecastCapped);
         }
@@ -1207,7 +1207,7 @@ impl Estimator {
         }
     }
 
-    fn refresh_forecast(&mut self, r: &Reading, released: f64, cap: f64) {
+    fn refresh_forecast(&mut self, r: &Reading, released: f64, cap: f64, uncertainty: f64) {
         let due = self
             .forecast
             .is_none_or(|f| r.at_ms - f.made_at_ms >= FORECAST_EVERY_MS);
@@ -1226,7 +1226,10 @@ impl Estimator {
             // transfers in: a total already past that is held, not added to.
             let total = |more: Mass| released + more.si();
             let at_stop = total(f.released_by_stop);
-            self.forecast_capped = at_stop > cap.max(released);
+            // Said only when the cap takes off more than the level's own
+            // uncertainty: a best figure a little above the level's, inside
+            // its band, is no news.
+            self.forecast_capped = at_stop > cap.max(released) + uncertainty;
             let capped = |x: f64| x.min(cap.max(released));
             self.forecast = Some(ForecastSummary {
                 made_at_ms: r.at_ms,
