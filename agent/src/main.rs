@@ -13,7 +13,9 @@ fn main() -> ExitCode {
     match leaktally::cli::run(cli) {
         Ok(()) => ExitCode::SUCCESS,
         Err(err) => {
-            eprintln!("error: {err:#}");
+            // Errors quote config text, device replies and file names; their
+            // control characters are escaped, their line breaks kept.
+            eprintln!("error: {}", leaktally::logging::lines(&format!("{err:#}")));
             ExitCode::FAILURE
         }
     }

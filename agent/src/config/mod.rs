@@ -286,10 +286,15 @@ pub struct Problem {
 
 impl fmt::Display for Problem {
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        // A message quotes what the file says; a control character there
+        // must not break the one-line-per-problem layout or reach a terminal.
         write!(
             f,
             "{}:{}:{}: {}",
-            self.file, self.line, self.column, self.message
+            crate::logging::one_line(&self.file),
+            self.line,
+            self.column,
+            crate::logging::one_line(&self.message)
         )
     }
 }
