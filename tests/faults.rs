@@ -65,7 +65,7 @@ sensor = "level"
 "#;
 
 /// The stored samples of `tank` from `from_ms` on.
-fn samples(db: &Path, tank: &str, from_ms: i64) -> Vec<TankSample> {
+pub(crate) fn samples(db: &Path, tank: &str, from_ms: i64) -> Vec<TankSample> {
     let conn = leaktally::store::open_read_only(db).expect("the database opens read-only");
     leaktally::store::samples_between(&conn, tank, from_ms, i64::MAX).expect("samples")
 }
@@ -92,14 +92,14 @@ fn flagged(
 /// The longest time between consecutive samples, seconds: a poll cycle
 /// stores a sample for every tank even when it reads nothing, so a longer
 /// gap would be data lost.
-fn longest_gap_s(samples: &[TankSample]) -> f64 {
+pub(crate) fn longest_gap_s(samples: &[TankSample]) -> f64 {
     samples
         .windows(2)
         .map(|w| (w[1].at_ms - w[0].at_ms) as f64 / 1000.0)
         .fold(0.0, f64::max)
 }
 
-fn assert_running(daemon: &mut Server) {
+pub(crate) fn assert_running(daemon: &mut Server) {
     let state = daemon.child.try_wait().expect("the daemon's state");
     assert!(
         state.is_none(),
@@ -286,14 +286,14 @@ impl Drop for WriteLock {
 }
 
 /// One metric's value from a Prometheus text page.
-fn metric(page: &str, name: &str) -> f64 {
+pub(crate) fn metric(page: &str, name: &str) -> f64 {
     page.lines()
         .find_map(|l| l.strip_prefix(name)?.strip_prefix(' '))
         .and_then(|v| v.trim().parse().ok())
         .unwrap_or_else(|| panic!("no {name} in the metrics:\n{page}"))
 }
 
-fn get(web: &str, path: &str) -> String {
+pub(crate) fn get(web: &str, path: &str) -> String {
     let reply = http(web, "GET", path).unwrap_or_else(|e| panic!("GET {path}: {e}"));
     assert_eq!(reply.status, 200, "GET {path}: {}", reply.body);
     reply.body

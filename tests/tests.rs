@@ -9,7 +9,10 @@
 //! * `python_env`: the pinned Python environment those tests use.
 //! * `replay`: replays of a logged event and of a readings file.
 //! * `faults`: link drops, a slow device, failed sensors, a locked
-//!   database and a full disk, end to end.
+//!   database and a full disk, end to end; Modbus exceptions, miscounted
+//!   replies and impossible level steps, flagged and logged once.
+//! * `flood`: thousands of idle and slow sockets on the web port while a
+//!   client, the pollers and a simulator restart carry on.
 //! * `tracking`: the simulator, the daemon and the operator CLI as real
 //!   processes, against the simulator's ground truth.
 //! * `web`: the daemon's responder page in headless chromium against
@@ -18,6 +21,7 @@
 
 mod acquisition;
 mod faults;
+mod flood;
 mod interop;
 mod properties;
 mod python_env;
