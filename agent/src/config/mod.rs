@@ -115,6 +115,9 @@ const VERTICAL_DIAMETER_M: (f64, f64) = (0.05, 200.0);
 const HORIZONTAL_DIAMETER_M: (f64, f64) = (0.05, 20.0);
 const HORIZONTAL_LENGTH_M: (f64, f64) = (0.05, 200.0);
 const SPHERE_DIAMETER_M: (f64, f64) = (0.05, 50.0);
+/// A dished head can be shallow (a millimetre is a flat head in practice);
+/// the model also keeps it within half the diameter.
+const HEAD_DEPTH_M: (f64, f64) = (0.001, 10.0);
 const TANK_HEIGHT_M: (f64, f64) = (0.05, 100.0);
 /// The most a strapping table may say a tank holds, m³: a vertical cylinder
 /// at the limits above (200 m across, 100 m tall) holds 3.1 million.
@@ -957,7 +960,7 @@ impl Checker {
             RawShape::HorizontalCylinder => {
                 let d = dimension(&raw.diameter_m, "diameter_m", HORIZONTAL_DIAMETER_M);
                 let l = dimension(&raw.length_m, "length_m", HORIZONTAL_LENGTH_M);
-                let depth = dimension(&raw.head_depth_m, "head_depth_m", HORIZONTAL_DIAMETER_M);
+                let depth = dimension(&raw.head_depth_m, "head_depth_m", HEAD_DEPTH_M);
                 let heads = raw.heads.as_ref().map_or(RawHeads::Flat, |h| *h.get_ref());
                 let (d, l) = (d?, l?);
                 let heads = match (heads, depth, &raw.head_depth_m) {
