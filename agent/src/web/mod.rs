@@ -162,13 +162,9 @@ pub async fn bind(web: &Web, config_path: &std::path::Path) -> anyhow::Result<Tc
         );
     }
     info!("web page on http://{bound}/ (JSON at /api/status, metrics at /metrics)");
-    let files = open_files.map_or("unknown".to_owned(), |n| n.to_string());
-    info!(
-        "web: at most {} connections at once (open-file limit {files}); a request's head must come within {} s, and a connection that moves nothing for {} s is closed",
-        server::connection_limit(open_files, 0).min(server::MAX_CONNECTIONS),
-        server::HEADER_TIMEOUT.as_secs(),
-        server::STALL_TIMEOUT.as_secs()
-    );
+    if let Some(files) = open_files {
+        info!("open-file limit {files}");
+    }
     Ok(listener)
 }
 
@@ -195,8 +191,14 @@ pub async fn serve(listener: TcpListener, shared: Arc<Shared>, cancel: Cancellat
         let _ = shared.bound.set(bound);
     }
     // The limit is already raised by `bind`; raising again only reads it.
-    let limit =
-        server::connection_limit(server::raise_open_file_limit(), shared.config.devices.len());
+    let open_files = server::raise_open_file_limit();
+    let limit = server::connection_limit(open_files, shared.config.devices.len());
+    info!(
+        "web: at most {limit} connections at once (open-file limit {}); a request's head must come within {} s, and a connection that moves nothing for {} s is closed",
+        open_files.map_or("unknown".to_owned(), |n| n.to_string()),
+        server::HEADER_TIMEOUT.as_secs(),
+        server::STALL_TIMEOUT.as_secs()
+    );
     server::serve(listener, router(shared), limit, cancel).await;
 }
 
