@@ -145,7 +145,9 @@ impl Shared {
 /// raises the open-file limit ([`server::raise_open_file_limit`]), before
 /// any poller or database file is opened.
 pub async fn bind(web: &Web, config_path: &std::path::Path) -> anyhow::Result<TcpListener> {
-    let open_files = server::raise_open_file_limit();
+    // Raised before any poller or database file is opened; `serve` says
+    // the limit with the connection limit it leads to.
+    server::raise_open_file_limit();
     let listener = listen(web.listen).map_err(|e| {
         anyhow::anyhow!(
             "cannot serve the web page on {}: {e}; choose another [web] listen address in {} \
@@ -162,9 +164,6 @@ pub async fn bind(web: &Web, config_path: &std::path::Path) -> anyhow::Result<Tc
         );
     }
     info!("web page on http://{bound}/ (JSON at /api/status, metrics at /metrics)");
-    if let Some(files) = open_files {
-        info!("open-file limit {files}");
-    }
     Ok(listener)
 }
 
