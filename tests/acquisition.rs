@@ -195,4 +195,164 @@ fn the_agent_reconnects_after_the_simulator_restarts_and_marks_the_gap() {
             "a cycle went missing: {pair:?}"
         );
     }
+    // The log says the outage once per device when it begins, as what it
+    // was (not tokio-modbus's leftover "Operation now in progress"), and
+    // once when it ends, with its length.
+    let log = poll.stderr();
+    println!("the outage in the log:\n{log}");
+    assert!(!log.contains("in progress"), "{log}");
+    for device in ["rtu-east", "rtu-west"] {
+        let lines: Vec<&str> = log
+            .lines()
+            .filter(|l| l.contains(&format!("{device} (")))
+            .collect();
+        let down: Vec<&&str> = lines.iter().filter(|l| l.contains("link down")).collect();
+        let up: Vec<&&str> = lines
+            .iter()
+            .filter(|l| l.contains("link back up after"))
+            .collect();
+        assert_eq!(
+            (down.len(), up.len()),
+            (1, 1),
+            "{device}:\n{}",
+            lines.join("\n")
+        );
+        assert!(
+            down[0].contains("the device closed the connection")
+                || down[0].contains("connection refused")
+                || down[0].contains("reset"),
+            "{}",
+            down[0]
+        );
+        // Down about 4 s, give or take the backoff and the first poll.
+        let seconds: f64 = up[0]
+            .split("link back up after ")
+            .nth(1)
+            .and_then(|rest| rest.split(' ').next())
+            .and_then(|v| v.parse().ok())
+            .unwrap_or_else(|| panic!("{}", up[0]));
+        assert!((2.5..=9.0).contains(&seconds), "{}", up[0]);
+    }
+}
+
+/// `check` reads every planned block once: against the simulator it shows
+/// the decoded values and exits 0; with a unit id no device has and a
+/// register the device does not have, it names the exception of each read,
+/// says what to check and exits 2; `--offline` exits 0 for the same valid
+/// config, and an invalid config exits 1.
+#[test]
+fn check_reads_every_block_and_names_what_a_device_refuses() {
+    let scratch = Scratch::new("check");
+    let scenario = scenario(&scratch, 0.001);
+    // The simulated gateway has nothing at holding register 500 of rtu-east.
+    let mut text = std::fs::read_to_string(&scenario).unwrap();
+    text.push_str(
+        "[[event]]\nat_s = 0.0\naction = \"device_refuses\"\ndevice = \"rtu-east\"\nexception_code = 2\ntable = \"holding\"\naddress = 500\ncount = 2\n",
+    );
+    std::fs::write(&scenario, text).unwrap();
+    let (_sim, address) = start_sim(&scratch, &scenario, "127.0.0.1:0");
+    let check = |name: &str, site: &str, offline: bool| {
+        let path = scratch.write(&format!("{name}.toml"), site);
+        let mut cmd = Command::new(binary("leaktally"));
+        cmd.arg("check").arg("--config").arg(path);
+        if offline {
+            cmd.arg("--offline");
+        }
+        crate::util::run(name, &mut cmd, &scratch)
+    };
+
+    let good = check("good", &demo_site(&address), false);
+    assert_eq!(
+        good.status.code(),
+        Some(0),
+        "{}\n{}",
+        good.stdout,
+        good.stderr
+    );
+    assert_eq!(
+        good.stdout.matches(": answered in ").count(),
+        4,
+        "{}",
+        good.stdout
+    );
+    assert!(!good.stdout.contains("warning"), "{}", good.stdout);
+    // The decoded level against the scenario's 4.2 m start (the leak has
+    // lowered it by millimetres since).
+    let level: f64 = good
+        .stdout
+        .lines()
+        .find_map(|l| l.trim().strip_prefix("FF-T12 level: "))
+        .and_then(|rest| rest.split_whitespace().next())
+        .and_then(|v| v.parse().ok())
+        .unwrap_or_else(|| panic!("no FF-T12 level in:\n{}", good.stdout));
+    assert!((level - 4.2).abs() < 0.05, "FF-T12 level {level}");
+    assert!(good.stdout.contains("FF-T14 pressure: "), "{}", good.stdout);
+    assert!(good.stdout.contains("kPa gauge, good"), "{}", good.stdout);
+    assert!(
+        good.stdout.contains("FF-T12 leak flag: not raised"),
+        "{}",
+        good.stdout
+    );
+
+    // rtu-west as unit 9, which the gateway does not have; FF-T14's
+    // pressure at holding 500, which rtu-east does not have.
+    let broken = demo_site(&address)
+        .replace("unit_id = 2", "unit_id = 9")
+        .replace("address = 12,", "address = 500,");
+    let bad = check("broken", &broken, false);
+    println!(
+        "check against a wrong unit id and an unmapped register:\n{}",
+        bad.stdout
+    );
+    assert_eq!(bad.status.code(), Some(2), "{}\n{}", bad.stdout, bad.stderr);
+    assert!(
+        bad.stderr
+            .contains("2 of 2 device(s) failed the check (2 read(s)"),
+        "{}",
+        bad.stderr
+    );
+    let wrong_unit = bad
+        .stdout
+        .lines()
+        .find(|l| l.contains("(FF-T20 level, FF-T20 pressure)"))
+        .unwrap_or_else(|| panic!("{}", bad.stdout));
+    assert!(
+        wrong_unit.contains("warning: ")
+            && wrong_unit.contains("exception 11 (gateway target device failed to respond)")
+            && wrong_unit.contains("check unit_id")
+            && wrong_unit.contains("unit_id is 9 for device rtu-west"),
+        "{wrong_unit}"
+    );
+    let unmapped = bad
+        .stdout
+        .lines()
+        .find(|l| l.contains("holding registers 500..501 (FF-T14 pressure)"))
+        .unwrap_or_else(|| panic!("{}", bad.stdout));
+    assert!(
+        unmapped.contains("exception 2 (illegal data address)")
+            && unmapped.contains("check the address"),
+        "{unmapped}"
+    );
+    // The rest of rtu-east still answers.
+    assert!(bad.stdout.contains("FF-T14 level: "), "{}", bad.stdout);
+    assert!(bad.stdout.contains("FF-T12 level: "), "{}", bad.stdout);
+
+    let offline = check("offline", &broken, true);
+    assert_eq!(offline.status.code(), Some(0), "{}", offline.stderr);
+    assert!(
+        !offline.stdout.contains("answered in"),
+        "{}",
+        offline.stdout
+    );
+    let invalid = check(
+        "invalid",
+        &broken.replace("unit_id = 9", "unit_id = 0"),
+        true,
+    );
+    assert_eq!(invalid.status.code(), Some(1), "{}", invalid.stdout);
+    assert!(
+        invalid.stderr.contains("unit_id 0 is outside 1..247"),
+        "{}",
+        invalid.stderr
+    );
 }

@@ -65,7 +65,7 @@ sensor = "level"
 "#;
 
 /// The stored samples of `tank` from `from_ms` on.
-fn samples(db: &Path, tank: &str, from_ms: i64) -> Vec<TankSample> {
+pub(crate) fn samples(db: &Path, tank: &str, from_ms: i64) -> Vec<TankSample> {
     let conn = leaktally::store::open_read_only(db).expect("the database opens read-only");
     leaktally::store::samples_between(&conn, tank, from_ms, i64::MAX).expect("samples")
 }
@@ -92,14 +92,14 @@ fn flagged(
 /// The longest time between consecutive samples, seconds: a poll cycle
 /// stores a sample for every tank even when it reads nothing, so a longer
 /// gap would be data lost.
-fn longest_gap_s(samples: &[TankSample]) -> f64 {
+pub(crate) fn longest_gap_s(samples: &[TankSample]) -> f64 {
     samples
         .windows(2)
         .map(|w| (w[1].at_ms - w[0].at_ms) as f64 / 1000.0)
         .fold(0.0, f64::max)
 }
 
-fn assert_running(daemon: &mut Server) {
+pub(crate) fn assert_running(daemon: &mut Server) {
     let state = daemon.child.try_wait().expect("the daemon's state");
     assert!(
         state.is_none(),
@@ -286,14 +286,14 @@ impl Drop for WriteLock {
 }
 
 /// One metric's value from a Prometheus text page.
-fn metric(page: &str, name: &str) -> f64 {
+pub(crate) fn metric(page: &str, name: &str) -> f64 {
     page.lines()
         .find_map(|l| l.strip_prefix(name)?.strip_prefix(' '))
         .and_then(|v| v.trim().parse().ok())
         .unwrap_or_else(|| panic!("no {name} in the metrics:\n{page}"))
 }
 
-fn get(web: &str, path: &str) -> String {
+pub(crate) fn get(web: &str, path: &str) -> String {
     let reply = http(web, "GET", path).unwrap_or_else(|e| panic!("GET {path}: {e}"));
     assert_eq!(reply.status, 200, "GET {path}: {}", reply.body);
     reply.body
@@ -465,4 +465,156 @@ fn a_locked_database_and_a_full_disk_lose_nothing_and_heal_by_themselves() {
     assert!(log.contains("takes writes again"), "{log}");
     drop(daemon);
     drop(disk);
+}
+
+/// Modbus trouble, one kind after another: a busy device, a device that
+/// answers more registers than asked, a link that drops, an impossible
+/// level step, a NaN level, and a device that refuses a read spanning a
+/// register it does not have.
+const MODBUS_TROUBLE: &str = r#"
+[[event]]
+at_s = 8.0
+action = "device_refuses"
+device = "rtu-east"
+exception_code = 6
+duration_s = 3.0
+[[event]]
+at_s = 14.0
+action = "device_miscounts"
+device = "rtu-west"
+extra_values = 2
+duration_s = 3.0
+[[event]]
+at_s = 20.0
+action = "link_drops"
+device = "rtu-west"
+duration_s = 5.0
+[[event]]
+at_s = 20.0
+action = "sensor_reads"
+tank = "FF-T12"
+sensor = "level"
+value_si = 1.0
+[[event]]
+at_s = 23.0
+action = "sensor_recovers"
+tank = "FF-T12"
+sensor = "level"
+[[event]]
+at_s = 27.0
+action = "sensor_garbage"
+tank = "FF-T14"
+sensor = "level"
+[[event]]
+at_s = 30.0
+action = "sensor_recovers"
+tank = "FF-T14"
+sensor = "level"
+[[event]]
+at_s = 33.0
+action = "device_refuses"
+device = "rtu-east"
+exception_code = 2
+table = "holding"
+address = 15
+"#;
+
+/// Each kind of trouble is flagged in the stored samples for its window,
+/// and the log says it once when it starts and once when it ends, with
+/// what the code means; a read refused as a whole but answered in parts is
+/// read in parts from then on, and said so once.
+#[test]
+fn modbus_trouble_is_flagged_and_logged_once_per_change() {
+    // The daemon reads FF-T14's pressure from holding 20, so that its one
+    // read of rtu-east's holding registers (10..21) spans unmapped 14..19;
+    // the simulator serves zeros there, and from 33 s refuses register 15.
+    let plant = Plant::start_with("faults-modbus", MODBUS_TROUBLE, |site| {
+        site.replacen("address = 12,", "address = 20,", 1)
+    });
+    let mut daemon = plant.daemon("daemon");
+    plant.wait_until(42.0);
+    assert_running(&mut daemon);
+    let t = plant.started_ms;
+    let t12 = samples(&plant.db, "FF-T12", t);
+    let t14 = samples(&plant.db, "FF-T14", t);
+    let t20 = samples(&plant.db, "FF-T20", t);
+    let busy_t12 = flagged(&t12, t, (8.0, 11.5), Quality::DeviceError);
+    let busy_t14 = flagged(&t14, t, (8.0, 11.5), Quality::DeviceError);
+    let busy_t20 = flagged(&t20, t, (8.0, 11.5), Quality::DeviceError);
+    let long_t20 = flagged(&t20, t, (14.0, 17.5), Quality::DeviceError);
+    let lost_t20 = flagged(&t20, t, (20.0, 25.5), Quality::CommunicationLost);
+    let step_t12 = flagged(&t12, t, (20.0, 23.5), Quality::ImplausibleStep);
+    let nan_t14 = flagged(&t14, t, (27.0, 30.5), Quality::NotANumber);
+    println!(
+        "flagged: busy {busy_t12} and {busy_t14} (other device {busy_t20}); long replies {long_t20}; link drop {lost_t20}; step {step_t12}; NaN {nan_t14}"
+    );
+    assert!(
+        busy_t12 >= 2 && busy_t14 >= 2,
+        "exception 6: {busy_t12}, {busy_t14}"
+    );
+    assert_eq!(busy_t20, 0, "rtu-west was not busy");
+    assert!(long_t20 >= 2, "replies with extra registers: {long_t20}");
+    assert!(lost_t20 >= 3, "link drop: {lost_t20}");
+    assert!(step_t12 >= 2, "a 3 m step in a second: {step_t12}");
+    assert!(nan_t14 >= 2, "NaN level: {nan_t14}");
+    // After the refusal at 33 s the device is read in parts, and every
+    // value is good again.
+    let late = |s: &TankSample| s.at_ms > t + 35_000;
+    for (tank, samples) in [("FF-T12", &t12), ("FF-T14", &t14), ("FF-T20", &t20)] {
+        let bad: Vec<&TankSample> = samples
+            .iter()
+            .filter(|s| late(s))
+            .filter(|s| !s.level.is_good() || s.pressure.is_some_and(|p| !p.is_good()))
+            .collect();
+        assert!(bad.is_empty(), "{tank} after 35 s: {bad:?}");
+        assert!(samples.iter().filter(|s| late(s)).count() >= 5, "{tank}");
+    }
+
+    let log = daemon.stderr();
+    println!("the daemon's log:\n{log}");
+    let count = |all: &[&str]| {
+        log.lines()
+            .filter(|l| all.iter().all(|part| l.contains(part)))
+            .count()
+    };
+    let once = [
+        // Busy: one line for rtu-east's three reads, one when they answer.
+        vec![
+            "rtu-east: 3 reads",
+            "exception 6 (server device busy)",
+            "until it answers",
+        ],
+        vec!["rtu-east: 3 reads", "answered again", "exception 6"],
+        vec![
+            "rtu-west: function 03",
+            "answered 5 registers where 3 were asked for",
+            "until it answers",
+        ],
+        vec![
+            "rtu-west: function 03",
+            "answered again",
+            "5 registers where 3",
+        ],
+        vec!["rtu-west (", "link down: no answer within 400 ms"],
+        vec!["rtu-west (", "link back up after"],
+        vec!["FF-T12 level: reading flagged implausible_step"],
+        vec!["FF-T14 level: reading flagged not_a_number"],
+        vec![
+            "rtu-east: function 03 holding registers 10..21",
+            "exception 2 (illegal data address)",
+            "answers 2 of its 2 parts read alone",
+            "reading the parts separately",
+        ],
+    ];
+    for parts in &once {
+        assert_eq!(count(parts), 1, "lines with {parts:?}:\n{log}");
+    }
+    // Nothing is said every cycle: the whole run is a few dozen lines.
+    assert!(
+        log.lines().count() < 40,
+        "{} lines:\n{log}",
+        log.lines().count()
+    );
+    assert!(!log.contains("in progress"), "{log}");
+    assert_running(&mut daemon);
 }

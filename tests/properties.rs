@@ -942,7 +942,8 @@ mod estimator {
                         0 => String::new(),
                         1 => format!("headspace_kpa = {kpa:?}\n"),
                         2 => format!("pressure = {{ {sensor}, reference = \"gauge\" }}\n"),
-                        3 => format!("pressure = {{ {sensor}, reference = \"absolute\", tap_elevation_m = {:?} }}\n", h * tap),
+                        // An absolute transmitter reads from a full vacuum up.
+                        3 => format!("pressure = {{ {}, reference = \"absolute\", tap_elevation_m = {:?} }}\n", sensor.replace("[-100.0, 1000.0]", "[0.0, 1100.0]"), h * tap),
                         _ => format!("pressure = {{ {sensor}, reference = \"gauge\", tap_elevation_m = 0.0 }}\n"),
                     };
                     if transfer {

@@ -13,7 +13,10 @@
 //! * `gaps`: data gaps end to end: a leak that stops during a link drop, a
 //!   hole plugged while the daemon is down, a back-dated start.
 //! * `faults`: link drops, a slow device, failed sensors, a locked
-//!   database and a full disk, end to end.
+//!   database and a full disk, end to end; Modbus exceptions, miscounted
+//!   replies and impossible level steps, flagged and logged once.
+//! * `flood`: thousands of idle and slow sockets on the web port while a
+//!   client, the pollers and a simulator restart carry on.
 //! * `tracking`: the simulator, the daemon and the operator CLI as real
 //!   processes, against the simulator's ground truth.
 //! * `web`: the daemon's responder page in headless chromium against
@@ -23,6 +26,7 @@
 mod acquisition;
 mod bands;
 mod faults;
+mod flood;
 mod gaps;
 mod interop;
 mod properties;

@@ -90,12 +90,13 @@ pub enum Command {
         #[arg(long)]
         json: bool,
     },
-    /// Validate a config file and show the tanks, registers and reads.
+    /// Validate a config file, show the tanks, registers and reads, and read
+    /// each block of every device once (exit 2 if a device or read fails).
     Check {
         /// The site config (TOML).
         #[arg(long, short)]
         config: PathBuf,
-        /// Do not try to connect to the devices.
+        /// Only validate and describe: do not read the devices.
         #[arg(long)]
         offline: bool,
     },
@@ -268,9 +269,13 @@ pub fn run(cli: Cli) -> anyhow::Result<()> {
             Ok(())
         }
         Command::Check { config, offline } => {
-            let text = runtime()?.block_on(commands::check::run(&config, offline))?;
-            print!("{text}");
-            Ok(())
+            let checked = runtime()?.block_on(commands::check::run(&config, offline))?;
+            print!("{}", checked.text);
+            match checked.failed {
+                // The binary exits with check::EXIT_DEVICES_FAILED for this.
+                Some(failed) => Err(failed.into()),
+                None => Ok(()),
+            }
         }
         Command::Poll { config, seconds } => runtime()?.block_on(commands::poll::run(
             &config,

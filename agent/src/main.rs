@@ -12,8 +12,19 @@ fn main() -> ExitCode {
     }
     match leaktally::cli::run(cli) {
         Ok(()) => ExitCode::SUCCESS,
+        // A valid config whose devices did not all answer: a code of its
+        // own, so that scripts can tell it from an invalid config.
+        Err(err) if err.is::<leaktally::commands::check::DevicesFailed>() => {
+            eprintln!(
+                "warning: {}",
+                leaktally::logging::lines(&format!("{err:#}"))
+            );
+            ExitCode::from(leaktally::commands::check::EXIT_DEVICES_FAILED)
+        }
         Err(err) => {
-            eprintln!("error: {err:#}");
+            // Errors quote config text, device replies and file names; their
+            // control characters are escaped, their line breaks kept.
+            eprintln!("error: {}", leaktally::logging::lines(&format!("{err:#}")));
             ExitCode::FAILURE
         }
     }

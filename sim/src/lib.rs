@@ -143,6 +143,8 @@ impl Simulator {
             image: RegisterImage::new(site),
             link_down: vec![false; site.devices.len()],
             reply_delay: vec![std::time::Duration::ZERO; site.devices.len()],
+            refusals: vec![Vec::new(); site.devices.len()],
+            miscount: vec![0; site.devices.len()],
         }));
         // Unit ids are unique: the scenario checked.
         let units: HashMap<u8, usize> = site
@@ -220,6 +222,8 @@ impl<W: Write> Driver<W> {
             self.plant.write_registers(&mut s.image);
             s.link_down = self.plant.links_down();
             s.reply_delay = self.plant.reply_delays();
+            s.refusals = self.plant.refusals();
+            s.miscount = self.plant.miscounts();
         }
         // The truth file is written from here directly: a few kilobytes a
         // second through a buffer, flushed once a second, cost less than a
@@ -309,6 +313,31 @@ fn log_applied(plant: &Plant, applied: &[Applied]) {
             } => tracing::info!(
                 "{t:.2} s: {} answers {reply_delay_ms} ms late for {duration_s} s",
                 site.devices.get(*device).map_or("?", |d| d.id.as_str())
+            ),
+            EventKind::DeviceRefuses {
+                device,
+                duration_s,
+                refusal,
+            } => tracing::info!(
+                "{t:.2} s: {} answers exception {} to {} for {}",
+                site.devices.get(*device).map_or("?", |d| d.id.as_str()),
+                refusal.code,
+                refusal
+                    .only
+                    .map_or("every read".to_owned(), |(table, start, count)| format!(
+                        "reads of {table:?} {start}..{}",
+                        u32::from(start) + u32::from(count) - 1
+                    )),
+                duration_s.map_or("the rest of the run".to_owned(), |d| format!("{d} s"))
+            ),
+            EventKind::DeviceMiscounts {
+                device,
+                duration_s,
+                extra_values,
+            } => tracing::info!(
+                "{t:.2} s: {} answers {extra_values:+} values to every read for {}",
+                site.devices.get(*device).map_or("?", |d| d.id.as_str()),
+                duration_s.map_or("the rest of the run".to_owned(), |d| format!("{d} s"))
             ),
             EventKind::Flag { tank: i, raised } => tracing::info!(
                 "{t:.2} s: {} leak flag {}",
@@ -418,6 +447,69 @@ mod tests {
         tokio::time::sleep(Duration::from_millis(250)).await;
         let mut east = tcp::connect_slave(addr, Slave(1)).await.unwrap();
         assert!(east.read_input_registers(0, 1).await.unwrap().is_ok());
+
+        stop.cancel();
+        handle.await.unwrap().unwrap();
+    }
+
+    /// A refused span gets its exception (other reads do not), and a
+    /// miscounting device's replies reach the agent's link as malformed.
+    #[tokio::test]
+    async fn a_device_refuses_a_span_and_then_miscounts_its_replies() {
+        use leaktally::acquire::decode::RegisterKind;
+        use leaktally::acquire::link::{Link, LinkError};
+        use leaktally::acquire::plan::Read;
+        use leaktally::config::Table;
+        let mut s = demo();
+        s.events = vec![
+            scenario::Event {
+                at_s: 0.0,
+                kind: EventKind::DeviceRefuses {
+                    device: 0,
+                    duration_s: Some(0.4),
+                    refusal: scenario::Refusal {
+                        code: 2,
+                        only: Some((scenario::SimTable::Holding, 12, 2)),
+                    },
+                },
+            },
+            scenario::Event {
+                at_s: 0.5,
+                kind: EventKind::DeviceMiscounts {
+                    device: 0,
+                    duration_s: None,
+                    extra_values: 2,
+                },
+            },
+        ];
+        let sim = Simulator::bind(s, Some("127.0.0.1:0")).await.unwrap();
+        let addr = sim.local_addr().unwrap();
+        let stop = CancellationToken::new();
+        let handle = tokio::spawn(sim.run(None::<TruthWriter<Vec<u8>>>, stop.clone()));
+
+        let read = |start: u16, count: u16| Read {
+            table: Table::Registers(RegisterKind::Holding),
+            start,
+            count,
+            values: vec![],
+        };
+        let mut link = Link::new(&addr.to_string(), 1, Duration::from_secs(1));
+        link.connect().await.unwrap();
+        assert_eq!(
+            link.read(&read(10, 4)).await,
+            Err(LinkError::Exception { code: 2 })
+        );
+        assert!(link.read(&read(10, 2)).await.is_ok(), "outside the span");
+        assert!(link.is_connected(), "an exception keeps the connection");
+        tokio::time::sleep(Duration::from_millis(700)).await;
+        assert_eq!(
+            link.read(&read(10, 4)).await,
+            Err(LinkError::Malformed {
+                got: 6,
+                wanted: 4,
+                what: "registers"
+            })
+        );
 
         stop.cancel();
         handle.await.unwrap().unwrap();

@@ -14,7 +14,7 @@
 use crate::noise::Noise;
 use crate::physics::{self, Hole};
 use crate::registers::{self, RegisterImage};
-use crate::scenario::{Event, EventKind, Fault, Scenario, SensorRole};
+use crate::scenario::{Event, EventKind, Fault, Refusal, Scenario, SensorRole};
 use leaktally::config::{Config, Tank as SiteTank};
 use leaktally::model::PressureTap;
 use std::time::Duration;
@@ -70,6 +70,11 @@ pub struct Plant {
     link_down_until: Vec<u64>,
     /// Per device: the step until which it answers late, and how late.
     slow_until: Vec<(u64, Duration)>,
+    /// Per device: the refusals in force, each with the step it ends at.
+    refusals: Vec<Vec<(u64, Refusal)>>,
+    /// Per device: the step until which its replies are miscounted, and by
+    /// how many values.
+    miscount_until: Vec<(u64, i16)>,
     noise: Noise,
 }
 
@@ -113,6 +118,8 @@ impl Plant {
             next_event: 0,
             link_down_until: vec![0; scenario.site.devices.len()],
             slow_until: vec![(0, Duration::ZERO); scenario.site.devices.len()],
+            refusals: vec![Vec::new(); scenario.site.devices.len()],
+            miscount_until: vec![(0, 0); scenario.site.devices.len()],
             noise: Noise::new(scenario.seed),
         }
     }
@@ -259,7 +266,56 @@ impl Plant {
                     t.flag = raised;
                 }
             }
+            EventKind::DeviceRefuses {
+                device,
+                duration_s,
+                refusal,
+            } => {
+                let until = self.until(duration_s);
+                if let Some(r) = self.refusals.get_mut(device) {
+                    r.push((until, refusal));
+                }
+            }
+            EventKind::DeviceMiscounts {
+                device,
+                duration_s,
+                extra_values,
+            } => {
+                let until = self.until(duration_s);
+                if let Some(d) = self.miscount_until.get_mut(device) {
+                    *d = (until, extra_values);
+                }
+            }
         }
+    }
+
+    /// The step a spell of `duration_s` from now ends at; never without one.
+    fn until(&self, duration_s: Option<f64>) -> u64 {
+        duration_s.map_or(u64::MAX, |d| {
+            self.steps
+                .saturating_add((d * 1000.0 / self.step_ms as f64).ceil() as u64)
+        })
+    }
+
+    /// The refusals in force now, per device.
+    pub fn refusals(&self) -> Vec<Vec<Refusal>> {
+        self.refusals
+            .iter()
+            .map(|r| {
+                r.iter()
+                    .filter(|(until, _)| self.steps < *until)
+                    .map(|(_, refusal)| *refusal)
+                    .collect()
+            })
+            .collect()
+    }
+
+    /// How many values each device's replies are off by now (0: none).
+    pub fn miscounts(&self) -> Vec<i16> {
+        self.miscount_until
+            .iter()
+            .map(|&(until, n)| if self.steps < until { n } else { 0 })
+            .collect()
     }
 
     /// Whether each device's link is down now, index-aligned with the

@@ -1,6 +1,7 @@
 //! The scenario file: which site to serve, how each tank starts, and the
 //! scripted events (a leak opening, pump transfers, sensor faults, dropped
-//! links, the leak flag).
+//! links, devices that refuse reads or answer with the wrong number of
+//! values, the leak flag).
 //!
 //! As in the agent's config, a raw serde layer mirrors the TOML and a
 //! validation pass turns it into a [`Scenario`] in SI units, naming
@@ -111,6 +112,55 @@ pub enum EventKind {
         tank: usize,
         raised: bool,
     },
+    /// For this long (`None`: for the rest of the run), the device answers
+    /// reads with a Modbus exception: all of them, or those that touch one
+    /// span of one table (a register the device does not have).
+    DeviceRefuses {
+        device: usize,
+        duration_s: Option<f64>,
+        refusal: Refusal,
+    },
+    /// For this long (`None`: for the rest of the run), the device answers
+    /// reads with this many values more (or, negative, fewer) than asked.
+    DeviceMiscounts {
+        device: usize,
+        duration_s: Option<f64>,
+        extra_values: i16,
+    },
+}
+
+/// An exception a device answers with, and to which reads.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct Refusal {
+    /// The exception code, 1 to 255 (Modbus defines 1 to 4, 5, 6, 8, 10, 11).
+    pub code: u8,
+    /// Only reads of this table that touch `start..start + count`; all
+    /// reads when `None`.
+    pub only: Option<(SimTable, u16, u16)>,
+}
+
+impl Refusal {
+    /// Whether a read of `count` values of `table` from `start` is refused.
+    pub fn applies(&self, table: SimTable, start: u16, count: u16) -> bool {
+        match self.only {
+            None => true,
+            Some((t, from, n)) => {
+                let (a, b) = (u32::from(start), u32::from(start) + u32::from(count));
+                let (c, d) = (u32::from(from), u32::from(from) + u32::from(n));
+                t == table && a < d && c < b
+            }
+        }
+    }
+}
+
+/// A device's four tables, as a scenario names them.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum SimTable {
+    Holding,
+    Input,
+    Coil,
+    DiscreteInput,
 }
 
 /// A hole as the scenario gives it, in SI.
@@ -220,7 +270,7 @@ impl fmt::Display for ScenarioError {
 impl std::error::Error for ScenarioError {}
 
 mod raw {
-    use super::SensorRole;
+    use super::{SensorRole, SimTable};
     use serde::Deserialize;
     use toml::Spanned;
 
@@ -269,6 +319,11 @@ mod raw {
         pub duration_s: Option<Spanned<f64>>,
         pub value_si: Option<Spanned<f64>>,
         pub reply_delay_ms: Option<Spanned<u64>>,
+        pub exception_code: Option<Spanned<u8>>,
+        pub table: Option<Spanned<SimTable>>,
+        pub address: Option<Spanned<u16>>,
+        pub count: Option<Spanned<u16>>,
+        pub extra_values: Option<Spanned<i64>>,
     }
 
     #[derive(Debug, Clone, Copy, PartialEq, Eq, Deserialize)]
@@ -286,6 +341,8 @@ mod raw {
         DeviceSlows,
         RaiseFlag,
         LowerFlag,
+        DeviceRefuses,
+        DeviceMiscounts,
     }
 
     impl Action {
@@ -303,6 +360,8 @@ mod raw {
                 Action::DeviceSlows => "device_slows",
                 Action::RaiseFlag => "raise_flag",
                 Action::LowerFlag => "lower_flag",
+                Action::DeviceRefuses => "device_refuses",
+                Action::DeviceMiscounts => "device_miscounts",
             }
         }
 
@@ -318,6 +377,11 @@ mod raw {
                 Action::SensorReads => (&["tank", "sensor", "value_si"], &[]),
                 Action::LinkDrops => (&["device", "duration_s"], &[]),
                 Action::DeviceSlows => (&["device", "duration_s", "reply_delay_ms"], &[]),
+                Action::DeviceRefuses => (
+                    &["device", "exception_code"],
+                    &["duration_s", "table", "address", "count"],
+                ),
+                Action::DeviceMiscounts => (&["device", "extra_values"], &["duration_s"]),
                 Action::LeakCloses
                 | Action::TransferStops
                 | Action::RaiseFlag
@@ -611,7 +675,7 @@ impl Checker<'_> {
         let action = *e.action.get_ref();
         let name = action.name();
         let (required, optional) = action.keys();
-        let present: [(&str, Option<Range<usize>>); 10] = [
+        let present: [(&str, Option<Range<usize>>); 15] = [
             ("tank", e.tank.as_ref().map(Spanned::span)),
             ("device", e.device.as_ref().map(Spanned::span)),
             ("sensor", e.sensor.as_ref().map(Spanned::span)),
@@ -625,6 +689,14 @@ impl Checker<'_> {
                 "reply_delay_ms",
                 e.reply_delay_ms.as_ref().map(Spanned::span),
             ),
+            (
+                "exception_code",
+                e.exception_code.as_ref().map(Spanned::span),
+            ),
+            ("table", e.table.as_ref().map(Spanned::span)),
+            ("address", e.address.as_ref().map(Spanned::span)),
+            ("count", e.count.as_ref().map(Spanned::span)),
+            ("extra_values", e.extra_values.as_ref().map(Spanned::span)),
         ];
         let mut ok = true;
         for (key, span) in &present {
@@ -760,6 +832,64 @@ impl Checker<'_> {
                     reply_delay_ms,
                 }
             }
+            Action::DeviceRefuses => {
+                let (device, duration_s) = self.device_spell(e)?;
+                let code = e.exception_code.as_ref()?;
+                if *code.get_ref() == 0 {
+                    self.problem(
+                        code.span(),
+                        "exception_code = 0 is not an exception; give 1 to 255 (2 is illegal data address, 6 device busy, 11 gateway target failed to respond)",
+                    );
+                    return None;
+                }
+                let only = match (&e.table, &e.address) {
+                    (None, None) if e.count.is_none() => None,
+                    (Some(table), Some(address)) => {
+                        let count = e.count.as_ref().map_or(1, |c| *c.get_ref());
+                        if count == 0 {
+                            let span = e.count.as_ref().map_or(0..0, Spanned::span);
+                            self.problem(
+                                span,
+                                "count = 0 refuses nothing; give 1 or more registers (or bits)",
+                            );
+                            return None;
+                        }
+                        Some((*table.get_ref(), *address.get_ref(), count))
+                    }
+                    _ => {
+                        self.problem(
+                            e.action.span(),
+                            "device_refuses takes table and address together (with an optional count), to refuse only reads that touch them; give both, or neither to refuse every read",
+                        );
+                        return None;
+                    }
+                };
+                EventKind::DeviceRefuses {
+                    device,
+                    duration_s,
+                    refusal: Refusal {
+                        code: *code.get_ref(),
+                        only,
+                    },
+                }
+            }
+            Action::DeviceMiscounts => {
+                let (device, duration_s) = self.device_spell(e)?;
+                let extra = e.extra_values.as_ref()?;
+                let n = *extra.get_ref();
+                if n == 0 || n.abs() > 10 {
+                    self.problem(
+                        extra.span(),
+                        format!("extra_values = {n} must be -10 to 10 and not 0: how many values a reply has more (or fewer) than asked"),
+                    );
+                    return None;
+                }
+                EventKind::DeviceMiscounts {
+                    device,
+                    duration_s,
+                    extra_values: n as i16,
+                }
+            }
             Action::RaiseFlag | Action::LowerFlag => {
                 let tank = tank?;
                 if self.site.tanks[tank].leak_flag.is_none() {
@@ -781,6 +911,42 @@ impl Checker<'_> {
             }
         };
         Some(Event { at_s, kind })
+    }
+
+    /// The device and the optional duration of a refusal or miscount.
+    fn device_spell(&mut self, e: &RawEvent) -> Option<(usize, Option<f64>)> {
+        let device = e.device.as_ref()?;
+        let index = self
+            .site
+            .devices
+            .iter()
+            .position(|d| d.id == *device.get_ref());
+        if index.is_none() {
+            let known: Vec<&str> = self.site.devices.iter().map(|d| d.id.as_str()).collect();
+            self.problem(
+                device.span(),
+                format!(
+                    "device \"{}\" is not in the site config; use one of: {}",
+                    device.get_ref(),
+                    known.join(", ")
+                ),
+            );
+        }
+        let duration = match &e.duration_s {
+            None => None,
+            Some(d) if d.get_ref().is_finite() && *d.get_ref() > 0.0 => Some(*d.get_ref()),
+            Some(d) => {
+                self.problem(
+                    d.span(),
+                    format!(
+                        "duration_s = {} must be a positive number of seconds (leave it out for the rest of the run)",
+                        d.get_ref()
+                    ),
+                );
+                return None;
+            }
+        };
+        Some((index?, duration))
     }
 
     /// The device and duration of a link event, checked.
@@ -976,6 +1142,59 @@ cd = 1.2
             msg.contains("test.toml:21:6: cd = 1.2 is outside (0, 1]"),
             "{msg}"
         );
+    }
+
+    #[test]
+    fn refusals_and_miscounts_load_and_their_mistakes_are_said() {
+        let ok = parse_here(&format!(
+            "{}[[event]]\nat_s = 0.0\naction = \"device_refuses\"\ndevice = \"rtu-east\"\nexception_code = 2\ntable = \"holding\"\naddress = 500\ncount = 2\n\
+             [[event]]\nat_s = 3.0\naction = \"device_miscounts\"\ndevice = \"rtu-west\"\nextra_values = -1\nduration_s = 2.0\n",
+            TANKS
+        ))
+        .unwrap_or_else(|e| panic!("{e}"));
+        assert_eq!(
+            ok.events[0].kind,
+            EventKind::DeviceRefuses {
+                device: 0,
+                duration_s: None,
+                refusal: Refusal {
+                    code: 2,
+                    only: Some((SimTable::Holding, 500, 2)),
+                },
+            }
+        );
+        let r = Refusal {
+            code: 2,
+            only: Some((SimTable::Holding, 500, 2)),
+        };
+        assert!(r.applies(SimTable::Holding, 490, 11) && r.applies(SimTable::Holding, 501, 1));
+        assert!(!r.applies(SimTable::Holding, 490, 10) && !r.applies(SimTable::Input, 500, 1));
+        assert_eq!(
+            ok.events[1].kind,
+            EventKind::DeviceMiscounts {
+                device: 1,
+                duration_s: Some(2.0),
+                extra_values: -1,
+            }
+        );
+        for (event, expected) in [
+            (
+                "action = \"device_refuses\"\ndevice = \"rtu-east\"\nexception_code = 2\naddress = 5\n",
+                "device_refuses takes table and address together",
+            ),
+            (
+                "action = \"device_refuses\"\ndevice = \"rtu-east\"\nexception_code = 0\n",
+                "exception_code = 0 is not an exception",
+            ),
+            (
+                "action = \"device_miscounts\"\ndevice = \"rtu-east\"\nextra_values = 40\n",
+                "extra_values = 40 must be -10 to 10 and not 0",
+            ),
+        ] {
+            let text = format!("{TANKS}[[event]]\nat_s = 1.0\n{event}");
+            let msg = messages(&text);
+            assert!(msg.contains(expected), "{msg}");
+        }
     }
 
     #[test]

@@ -10,13 +10,17 @@
 //! its requests get no reply at all and the client times out, as when an
 //! RTU's radio or serial link behind a gateway fails. While a device is
 //! slowed, each of its replies waits out the delay first (requests on one
-//! connection are answered in order, so later ones wait behind it).
+//! connection are answered in order, so later ones wait behind it). A
+//! device the scenario makes refuse answers the reads it refuses with the
+//! exception given; one it makes miscount answers with that many values
+//! more (or fewer) than asked, as a faulty device or gateway can.
 //!
 //! Left out: the physics and the clock (they update the shared image from
 //! outside), Modbus RTU, and per-connection state: every connection sees the
 //! same image.
 
-use crate::registers::{ReadError, RegisterImage};
+use crate::registers::{MAX_READ_BITS, MAX_READ_REGISTERS, ReadError, RegisterImage};
+use crate::scenario::{Refusal, SimTable};
 use leaktally::acquire::decode::{BitKind, RegisterKind};
 use std::collections::{BTreeMap, HashMap};
 use std::future::Future;
@@ -44,6 +48,10 @@ pub struct Shared {
     pub link_down: Vec<bool>,
     /// Per device: how long each reply waits before it is sent.
     pub reply_delay: Vec<Duration>,
+    /// Per device: the refusals in force.
+    pub refusals: Vec<Vec<Refusal>>,
+    /// Per device: how many values its replies are off by (0: none).
+    pub miscount: Vec<i16>,
 }
 
 /// Requests seen, by function code, across all connections.
@@ -147,6 +155,22 @@ impl SimService {
         if shared.link_down.get(device).copied().unwrap_or(false) {
             return Ok(None);
         }
+        let asked = match &request {
+            Request::ReadCoils(a, n) => Some((SimTable::Coil, *a, *n)),
+            Request::ReadDiscreteInputs(a, n) => Some((SimTable::DiscreteInput, *a, *n)),
+            Request::ReadHoldingRegisters(a, n) => Some((SimTable::Holding, *a, *n)),
+            Request::ReadInputRegisters(a, n) => Some((SimTable::Input, *a, *n)),
+            _ => None,
+        };
+        if let Some((table, start, count)) = asked
+            && let Some(refusal) = shared
+                .refusals
+                .get(device)
+                .and_then(|r| r.iter().find(|r| r.applies(table, start, count)))
+        {
+            return Err(ExceptionCode::new(refusal.code));
+        }
+        let extra = shared.miscount.get(device).copied().unwrap_or(0);
         let image = &shared.image;
         let response = match request {
             Request::ReadCoils(a, n) => image
@@ -163,10 +187,42 @@ impl SimService {
                 .map(Response::ReadInputRegisters),
             _ => return Err(ExceptionCode::IllegalFunction),
         };
-        response.map(Some).map_err(|e| match e {
-            ReadError::IllegalDataValue => ExceptionCode::IllegalDataValue,
-            ReadError::IllegalDataAddress => ExceptionCode::IllegalDataAddress,
-        })
+        response
+            .map(|r| Some(miscounted(r, extra)))
+            .map_err(|e| match e {
+                ReadError::IllegalDataValue => ExceptionCode::IllegalDataValue,
+                ReadError::IllegalDataAddress => ExceptionCode::IllegalDataAddress,
+            })
+    }
+}
+
+/// A reply with `extra` values more (zeros) or fewer than it should have,
+/// kept within the protocol's read limits: tokio-modbus's server drops the
+/// connection on a reply it cannot encode, which would be another fault.
+fn miscounted(response: Response, extra: i16) -> Response {
+    fn resize<T: Clone + Default>(mut values: Vec<T>, extra: i16, max: u16) -> Vec<T> {
+        let len = (values.len() as i64 + i64::from(extra)).clamp(0, i64::from(max));
+        values.resize(len as usize, T::default());
+        values
+    }
+    if extra == 0 {
+        return response;
+    }
+    // Bits travel packed in bytes: a whole byte more or less is what the
+    // client can see.
+    let bits = extra.saturating_mul(8);
+    match response {
+        Response::ReadHoldingRegisters(v) => {
+            Response::ReadHoldingRegisters(resize(v, extra, MAX_READ_REGISTERS))
+        }
+        Response::ReadInputRegisters(v) => {
+            Response::ReadInputRegisters(resize(v, extra, MAX_READ_REGISTERS))
+        }
+        Response::ReadCoils(v) => Response::ReadCoils(resize(v, bits, MAX_READ_BITS)),
+        Response::ReadDiscreteInputs(v) => {
+            Response::ReadDiscreteInputs(resize(v, bits, MAX_READ_BITS))
+        }
+        other => other,
     }
 }
 

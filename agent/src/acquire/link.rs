@@ -16,17 +16,24 @@
 use crate::acquire::decode::{BitKind, RegisterKind};
 use crate::acquire::plan::Read;
 use crate::config::Table;
+use std::io;
 use std::net::SocketAddr;
+use std::pin::Pin;
+use std::sync::Arc;
+use std::sync::atomic::{AtomicBool, Ordering};
+use std::task::{Context as TaskContext, Poll};
 use std::time::Duration;
 use thiserror::Error;
+use tokio::io::{AsyncRead, AsyncWrite, ReadBuf};
+use tokio::net::TcpStream;
 use tokio::time::timeout;
-use tokio_modbus::client::{Context, Reader};
+use tokio_modbus::client::{Client, Context};
 use tokio_modbus::prelude::*;
 
 /// Why a read failed. Follows tokio-modbus in keeping "the exchange failed"
 /// apart from "the device said no": the first calls for a reconnect, the
 /// second does not.
-#[derive(Debug, Error)]
+#[derive(Debug, Clone, PartialEq, Eq, Error)]
 pub enum LinkError {
     #[error("no connection to {0}")]
     NotConnected(String),
@@ -34,14 +41,24 @@ pub enum LinkError {
     Resolve { address: String, reason: String },
     #[error("connecting to {address} failed: {reason}")]
     Connect { address: String, reason: String },
-    #[error("no answer within {0:?}")]
+    #[error("no answer within {} ms", .0.as_millis())]
     Timeout(Duration),
+    /// The device (or a gateway, or something between) ended the TCP
+    /// connection: an end of stream where a reply was due.
+    #[error("the device closed the connection")]
+    Closed,
     #[error("the exchange failed: {0}")]
     Transport(String),
-    #[error("the device answered with exception {code} ({name})")]
-    Exception { code: u8, name: String },
-    #[error("the device answered {got} values where {wanted} were asked for")]
-    Malformed { got: usize, wanted: usize },
+    #[error("the device answered exception {code} ({})", exception_meaning(*.code))]
+    Exception { code: u8 },
+    /// A reply with more or fewer values than the request asked for: a
+    /// device or gateway fault, never data to use.
+    #[error("the device answered {got} {what} where {wanted} were asked for")]
+    Malformed {
+        got: usize,
+        wanted: usize,
+        what: &'static str,
+    },
 }
 
 impl LinkError {
@@ -55,7 +72,58 @@ impl LinkError {
 
     /// Whether the device refused the addresses (exception 02).
     pub fn is_illegal_address(&self) -> bool {
-        matches!(self, LinkError::Exception { code: 2, .. })
+        matches!(self, LinkError::Exception { code: 2 })
+    }
+
+    /// Whether the device answered, even if only to refuse: the link works.
+    pub fn device_answered(&self) -> bool {
+        !self.needs_reconnect()
+    }
+}
+
+/// What an exception code means, in the words of the Modbus Application
+/// Protocol Specification V1.1b3, section 7, which defines codes 01 to 06,
+/// 08, 0A and 0B.
+pub fn exception_meaning(code: u8) -> &'static str {
+    match code {
+        1 => "illegal function",
+        2 => "illegal data address",
+        3 => "illegal data value",
+        4 => "server device failure",
+        5 => "acknowledge",
+        6 => "server device busy",
+        8 => "memory parity error",
+        10 => "gateway path unavailable",
+        11 => "gateway target device failed to respond",
+        _ => "a code the Modbus specification does not define",
+    }
+}
+
+/// What to do about an exception, for the log and `leaktally check`.
+pub fn exception_hint(code: u8) -> &'static str {
+    match code {
+        1 => {
+            "the device does not serve this function code: check register = \"holding\" or \"input\" (input = \"coil\" or \"discrete_input\" for a flag)"
+        }
+        2 => {
+            "the device has no such register: check the address (0-based: a manual's 40001 is holding 0, 30001 input 0); for a read across unmapped registers, bridge_gaps = false avoids them"
+        }
+        3 => {
+            "the device refused the quantity or range asked for: some limit a read below the protocol's 125 registers; bridge_gaps = false makes reads shorter"
+        }
+        4 => {
+            "the device failed while answering; some devices also answer this to a unit id they do not have: check unit_id"
+        }
+        5 => "the device took the request but has not finished it; it should clear by itself",
+        6 => {
+            "the device is busy with other work; it should clear by itself (a longer poll_interval_ms helps a device that stays busy)"
+        }
+        8 => "the device found a parity error in its own memory; have the device checked",
+        10 => "the gateway has no path to this unit id: check unit_id and the gateway's routing",
+        11 => {
+            "the gateway got no answer from the unit id behind it: check unit_id, and that the device behind the gateway is powered and wired"
+        }
+        _ => "see the device's manual for what this code means",
     }
 }
 
@@ -72,6 +140,8 @@ pub struct Link {
     unit_id: u8,
     request_timeout: Duration,
     context: Option<Context>,
+    /// Set by the stream under the context when the peer ended it.
+    peer_closed: Arc<AtomicBool>,
 }
 
 impl Link {
@@ -81,6 +151,7 @@ impl Link {
             unit_id,
             request_timeout,
             context: None,
+            peer_closed: Arc::new(AtomicBool::new(false)),
         }
     }
 
@@ -88,31 +159,39 @@ impl Link {
         self.context.is_some()
     }
 
-    /// Connects if not connected.
+    /// Connects if not connected. The TCP stream is made here rather than
+    /// by tokio-modbus, so that it can be watched for the peer closing it
+    /// (see [`WatchedStream`]) and its errors said as they are.
     pub async fn connect(&mut self) -> Result<(), LinkError> {
         if self.context.is_some() {
             return Ok(());
         }
         let addr = resolve(&self.address, self.request_timeout).await?;
-        let attempt = timeout(
-            self.request_timeout,
-            tcp::connect_slave(addr, Slave(self.unit_id)),
-        )
-        .await;
-        match attempt {
-            Ok(Ok(ctx)) => {
-                self.context = Some(ctx);
-                Ok(())
+        let failed = |reason: String| LinkError::Connect {
+            address: self.address.clone(),
+            reason,
+        };
+        let stream = match timeout(self.request_timeout, TcpStream::connect(addr)).await {
+            Ok(Ok(stream)) => stream,
+            Ok(Err(e)) => return Err(failed(connect_reason(&e))),
+            Err(_) => {
+                return Err(failed(format!(
+                    "no answer within {} ms",
+                    self.request_timeout.as_millis()
+                )));
             }
-            Ok(Err(e)) => Err(LinkError::Connect {
-                address: self.address.clone(),
-                reason: e.to_string(),
-            }),
-            Err(_) => Err(LinkError::Connect {
-                address: self.address.clone(),
-                reason: format!("no answer within {:?}", self.request_timeout),
-            }),
-        }
+        };
+        // Requests are a few bytes each; waiting to fill a segment would
+        // only add latency to every poll.
+        let _ = stream.set_nodelay(true);
+        let closed = Arc::new(AtomicBool::new(false));
+        self.peer_closed = Arc::clone(&closed);
+        let watched = WatchedStream {
+            inner: stream,
+            closed,
+        };
+        self.context = Some(tcp::attach_slave(watched, Slave(self.unit_id)));
+        Ok(())
     }
 
     /// Closes the connection; the next read reconnects.
@@ -128,48 +207,157 @@ impl Link {
             return Err(LinkError::NotConnected(self.address.clone()));
         };
         let (start, count) = (read.start, read.count);
-        let outcome = match read.table {
-            Table::Registers(RegisterKind::Holding) => {
-                flatten(wait, ctx.read_holding_registers(start, count))
-                    .await
-                    .map(Words::Registers)
-            }
-            Table::Registers(RegisterKind::Input) => {
-                flatten(wait, ctx.read_input_registers(start, count))
-                    .await
-                    .map(Words::Registers)
-            }
-            Table::Bits(BitKind::Coil) => flatten(wait, ctx.read_coils(start, count))
-                .await
-                .map(Words::Bits),
-            Table::Bits(BitKind::DiscreteInput) => {
-                flatten(wait, ctx.read_discrete_inputs(start, count))
-                    .await
-                    .map(Words::Bits)
-            }
+        // The read requests are built here and nowhere else; `call` sends
+        // whatever it is given, so this match is what keeps the link
+        // read-only.
+        let request = match read.table {
+            Table::Registers(RegisterKind::Holding) => Request::ReadHoldingRegisters(start, count),
+            Table::Registers(RegisterKind::Input) => Request::ReadInputRegisters(start, count),
+            Table::Bits(BitKind::Coil) => Request::ReadCoils(start, count),
+            Table::Bits(BitKind::DiscreteInput) => Request::ReadDiscreteInputs(start, count),
         };
-        let outcome = outcome.and_then(|words| {
-            let got = match &words {
-                Words::Registers(r) => r.len(),
-                // Coil replies come padded to whole bytes; the client trims
-                // to the count asked, but check rather than trust.
-                Words::Bits(b) => b.len().min(usize::from(count)),
-            };
-            if got < usize::from(count) {
-                Err(LinkError::Malformed {
-                    got,
-                    wanted: usize::from(count),
-                })
-            } else {
-                Ok(words)
-            }
-        });
+        // `Client::call` rather than the `Reader` methods: those assert the
+        // reply's length in debug builds (a panic on a device's bad reply)
+        // and pass a wrong length on in release builds. Here the length is
+        // checked against the request either way.
+        let outcome = match timeout(wait, ctx.call(request)).await {
+            Err(_) => Err(LinkError::Timeout(wait)),
+            Ok(Err(e)) => Err(self.transport_error(&e)),
+            Ok(Ok(Err(code))) => Err(LinkError::Exception {
+                code: u8::from(code),
+            }),
+            Ok(Ok(Ok(response))) => checked(response, usize::from(count)),
+        };
         if let Err(e) = &outcome
             && e.needs_reconnect()
         {
             self.disconnect();
         }
         outcome
+    }
+
+    /// Says what a failed exchange was. tokio-modbus 0.17 reports the end
+    /// of the stream with whatever error number the thread last saw (often
+    /// "Operation now in progress"), so the stream's own record of the peer
+    /// closing comes first.
+    fn transport_error(&self, e: &tokio_modbus::Error) -> LinkError {
+        if self.peer_closed.load(Ordering::Relaxed) {
+            return LinkError::Closed;
+        }
+        match e {
+            tokio_modbus::Error::Transport(io) => match io.kind() {
+                io::ErrorKind::ConnectionReset => {
+                    LinkError::Transport("the device reset the connection".into())
+                }
+                io::ErrorKind::BrokenPipe | io::ErrorKind::ConnectionAborted => {
+                    LinkError::Transport("the connection was closed while sending".into())
+                }
+                io::ErrorKind::InvalidData => {
+                    LinkError::Transport(format!("a malformed reply ({io})"))
+                }
+                _ => LinkError::Transport(io.to_string()),
+            },
+            tokio_modbus::Error::Protocol(p) => LinkError::Transport(format!(
+                "a reply that does not match the request ({p}); a late reply to an earlier request, or a second client on the same gateway"
+            )),
+        }
+    }
+}
+
+/// Checks a reply against the request's count: registers must match it
+/// exactly; bits come packed in whole bytes, so up to the next multiple of
+/// eight is padding, and a whole byte more than needed is a wrong reply.
+fn checked(response: Response, wanted: usize) -> Result<Words, LinkError> {
+    match response {
+        Response::ReadHoldingRegisters(words) | Response::ReadInputRegisters(words) => {
+            if words.len() == wanted {
+                Ok(Words::Registers(words))
+            } else {
+                Err(LinkError::Malformed {
+                    got: words.len(),
+                    wanted,
+                    what: "registers",
+                })
+            }
+        }
+        Response::ReadCoils(mut bits) | Response::ReadDiscreteInputs(mut bits) => {
+            let padded = wanted.div_ceil(8) * 8;
+            if bits.len() < wanted || bits.len() > padded {
+                Err(LinkError::Malformed {
+                    got: bits.len(),
+                    wanted,
+                    what: "bits",
+                })
+            } else {
+                bits.truncate(wanted);
+                Ok(Words::Bits(bits))
+            }
+        }
+        // tokio-modbus checks that the reply's function code is the
+        // request's, so no other kind can come back; say so if it does.
+        other => Err(LinkError::Transport(format!(
+            "a reply of another kind than asked for ({other:?})"
+        ))),
+    }
+}
+
+/// A connect error as a person should read it.
+fn connect_reason(e: &io::Error) -> String {
+    match e.kind() {
+        io::ErrorKind::ConnectionRefused => {
+            "connection refused (nothing listens on that port, or a firewall refuses)".into()
+        }
+        io::ErrorKind::TimedOut => "the connection attempt timed out".into(),
+        io::ErrorKind::HostUnreachable | io::ErrorKind::NetworkUnreachable => {
+            format!("no route to the device ({e})")
+        }
+        _ => e.to_string(),
+    }
+}
+
+/// The TCP stream under a Modbus context, noting when the peer ends it: a
+/// read that completes with no bytes into room for some is the end of the
+/// stream. Everything else passes straight through.
+#[derive(Debug)]
+struct WatchedStream {
+    inner: TcpStream,
+    closed: Arc<AtomicBool>,
+}
+
+impl AsyncRead for WatchedStream {
+    fn poll_read(
+        mut self: Pin<&mut Self>,
+        cx: &mut TaskContext<'_>,
+        buf: &mut ReadBuf<'_>,
+    ) -> Poll<io::Result<()>> {
+        let before = buf.filled().len();
+        let room = buf.remaining() > 0;
+        let polled = Pin::new(&mut self.inner).poll_read(cx, buf);
+        if let Poll::Ready(Ok(())) = &polled
+            && room
+            && buf.filled().len() == before
+        {
+            self.closed.store(true, Ordering::Relaxed);
+        }
+        polled
+    }
+}
+
+impl AsyncWrite for WatchedStream {
+    fn poll_write(
+        mut self: Pin<&mut Self>,
+        cx: &mut TaskContext<'_>,
+        data: &[u8],
+    ) -> Poll<io::Result<usize>> {
+        Pin::new(&mut self.inner).poll_write(cx, data)
+    }
+
+    fn poll_flush(mut self: Pin<&mut Self>, cx: &mut TaskContext<'_>) -> Poll<io::Result<()>> {
+        Pin::new(&mut self.inner).poll_flush(cx)
+    }
+
+    fn poll_shutdown(mut self: Pin<&mut Self>, cx: &mut TaskContext<'_>) -> Poll<io::Result<()>> {
+        Pin::new(&mut self.inner).poll_shutdown(cx)
     }
 }
 
@@ -193,18 +381,79 @@ async fn resolve(address: &str, wait: Duration) -> Result<SocketAddr, LinkError>
         .ok_or_else(|| resolve_error("the name has no address".into()))
 }
 
-/// Flattens tokio-modbus's nested result, under a timeout.
-async fn flatten<T>(
-    wait: Duration,
-    request: impl std::future::Future<Output = tokio_modbus::Result<T>>,
-) -> Result<T, LinkError> {
-    match timeout(wait, request).await {
-        Err(_) => Err(LinkError::Timeout(wait)),
-        Ok(Err(e)) => Err(LinkError::Transport(e.to_string())),
-        Ok(Ok(Err(code))) => Err(LinkError::Exception {
-            code: u8::from(code),
-            name: format!("{code:?}"),
-        }),
-        Ok(Ok(Ok(value))) => Ok(value),
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn replies_are_checked_against_the_count_asked_for() {
+        let regs = |n: usize| Response::ReadHoldingRegisters(vec![7; n]);
+        assert_eq!(checked(regs(4), 4), Ok(Words::Registers(vec![7; 4])));
+        for n in [3, 5, 6] {
+            assert_eq!(
+                checked(regs(n), 4),
+                Err(LinkError::Malformed {
+                    got: n,
+                    wanted: 4,
+                    what: "registers"
+                }),
+                "{n} registers for 4"
+            );
+        }
+        // 3 bits come as one byte, 8 bits once unpacked: padding, trimmed.
+        let bits = |n: usize| Response::ReadCoils(vec![true; n]);
+        assert_eq!(checked(bits(8), 3), Ok(Words::Bits(vec![true; 3])));
+        // A second byte for 3 bits, or a byte short for 9, is wrong.
+        assert!(matches!(
+            checked(bits(16), 3),
+            Err(LinkError::Malformed { got: 16, .. })
+        ));
+        assert!(matches!(
+            checked(bits(8), 9),
+            Err(LinkError::Malformed { got: 8, .. })
+        ));
+        assert_eq!(checked(bits(16), 9), Ok(Words::Bits(vec![true; 9])));
+    }
+
+    #[test]
+    fn every_exception_has_a_meaning_and_a_hint() {
+        for code in 0..=255u8 {
+            assert!(!exception_meaning(code).is_empty() && !exception_hint(code).is_empty());
+        }
+        let e = LinkError::Exception { code: 11 };
+        assert_eq!(
+            e.to_string(),
+            "the device answered exception 11 (gateway target device failed to respond)"
+        );
+        assert!(!e.needs_reconnect() && e.device_answered());
+        assert!(LinkError::Closed.needs_reconnect());
+    }
+
+    /// Against a listener that accepts and then closes, the first read says
+    /// the device closed the connection (not tokio-modbus's leftover error
+    /// number), and a connect to a closed port says it was refused.
+    #[tokio::test]
+    async fn a_closed_connection_and_a_refused_one_are_said_as_such() {
+        let listener = tokio::net::TcpListener::bind("127.0.0.1:0").await.unwrap();
+        let address = listener.local_addr().unwrap().to_string();
+        let closer = tokio::spawn(async move {
+            let (socket, _) = listener.accept().await.unwrap();
+            drop(socket);
+            listener
+        });
+        let mut link = Link::new(&address, 1, Duration::from_secs(2));
+        link.connect().await.unwrap();
+        let listener = closer.await.unwrap();
+        let read = Read {
+            table: Table::Registers(RegisterKind::Holding),
+            start: 0,
+            count: 2,
+            values: vec![],
+        };
+        assert_eq!(link.read(&read).await, Err(LinkError::Closed));
+        assert!(!link.is_connected());
+        drop(listener);
+        let refused = link.connect().await.unwrap_err().to_string();
+        assert!(refused.contains("connection refused"), "{refused}");
     }
 }

@@ -4,6 +4,8 @@
 //! * [`plan`]: coalescing a device's values into as few reads as possible.
 //! * [`link`]: the read-only Modbus client with timeouts and reconnects.
 //! * [`poller`]: one task per device, producing flagged samples.
+//! * [`plausible`]: how fast a tank's level can move, for the step check.
+//! * [`notices`]: what the pollers log, once per change of state.
 //! * [`sample`]: what acquisition hands on.
 //! * [`stats`]: poll counters and latest readings, for the metrics page.
 //!
@@ -12,7 +14,9 @@
 
 pub mod decode;
 pub mod link;
+pub mod notices;
 pub mod plan;
+pub mod plausible;
 pub mod poller;
 pub mod sample;
 pub mod stats;

@@ -5,7 +5,8 @@
 //! bits per read (Modbus application protocol v1.1b3, sections 6.1 to 6.4).
 //! With `bridge_gaps`, a read may also span unmapped registers between two
 //! values; some devices refuse that with "illegal data address", and the
-//! poller then falls back to a plan without bridging.
+//! poller then reads the parts that [`split_read`] gives, and tries the
+//! whole again now and then.
 
 use crate::acquire::decode::{BitKind, RegisterKind};
 use crate::config::{Config, MappedValue, Role, Table, register_map};
@@ -69,6 +70,43 @@ pub fn plan_reads(config: &Config, device: usize, bridge_gaps: bool) -> Vec<Read
     reads
 }
 
+/// The parts of a read, for when a device refuses the whole with "illegal
+/// data address": its contiguous runs if it bridged a gap (the gap is the
+/// likely culprit), otherwise its values one by one (one value's address is
+/// the culprit, and reading each alone finds which). A read of one value
+/// has no parts.
+pub fn split_read(config: &Config, read: &Read) -> Vec<Read> {
+    let Some(&(first, _)) = read.values.first() else {
+        return Vec::new();
+    };
+    let device = config.tanks[first].device;
+    let mut values: Vec<MappedValue> = register_map(config, device)
+        .into_iter()
+        .filter(|v| v.kind == read.table && read.values.contains(&(v.tank, v.role)))
+        .collect();
+    if values.len() < 2 {
+        return Vec::new();
+    }
+    values.sort_by_key(|v| v.start);
+    let bridged = values.windows(2).any(|w| w[1].start > w[0].end());
+    let mut parts: Vec<Read> = Vec::new();
+    for v in values {
+        match parts.last_mut() {
+            Some(last) if bridged && u32::from(last.start) + u32::from(last.count) == v.start => {
+                last.count += v.count as u16;
+                last.values.push((v.tank, v.role));
+            }
+            _ => parts.push(Read {
+                table: v.kind,
+                start: v.start as u16,
+                count: v.count as u16,
+                values: vec![(v.tank, v.role)],
+            }),
+        }
+    }
+    parts
+}
+
 fn can_extend(read: &Read, end: u32, v: &MappedValue, bridge_gaps: bool) -> bool {
     let limit = match read.table {
         Table::Registers(_) => MAX_REGISTERS_PER_READ,
@@ -119,6 +157,25 @@ mod tests {
             .map(|r| (r.start, r.count))
             .collect();
         assert_eq!(spans, [(0, 4), (10, 2)]);
+    }
+
+    #[test]
+    fn a_refused_read_splits_into_runs_then_into_values() {
+        // f32 values at 0, 2 and 10: bridged, one read 0..12; its parts are
+        // the runs 0..4 and 10..12; the run 0..4 splits into its values.
+        let c = config_with_levels(&[0, 2, 10], true);
+        let whole = &plan_reads(&c, 0, true)[0];
+        assert_eq!((whole.start, whole.count), (0, 12));
+        let runs = split_read(&c, whole);
+        let spans: Vec<(u16, u16)> = runs.iter().map(|r| (r.start, r.count)).collect();
+        assert_eq!(spans, [(0, 4), (10, 2)]);
+        assert_eq!(runs[0].values.len(), 2);
+        let values: Vec<(u16, u16)> = split_read(&c, &runs[0])
+            .iter()
+            .map(|r| (r.start, r.count))
+            .collect();
+        assert_eq!(values, [(0, 2), (2, 2)]);
+        assert!(split_read(&c, &runs[1]).is_empty());
     }
 
     #[test]

@@ -7,14 +7,29 @@
 //! reconnects with exponential backoff and jitter, capped low enough that a
 //! device that comes back is read again within a few seconds.
 //!
+//! A read the device refuses with "illegal data address" (exception 02)
+//! that covers several values is not given up on, nor is the device
+//! switched to separate reads for good on one refusal: its parts
+//! ([`split_read`]) are read at once, in the same cycle. If the device
+//! answers some of them, it is the combining it refuses (or one value's
+//! address, which is then named): those parts are read from then on, and
+//! the whole is tried again every [`RECOMBINE_AFTER`]. If it refuses the
+//! parts too, the device is refusing everything for now, and nothing
+//! changes. What was decided, and why, goes in the log.
+//!
+//! The log says each kind of trouble when it starts and when it ends (see
+//! [`notices`](crate::acquire::notices)), never every cycle.
+//!
 //! Left out: what the samples are for. This module never looks at a leak.
 
-use crate::acquire::link::{Link, LinkError, Words};
-use crate::acquire::plan::{Read, plan_reads};
+use crate::acquire::link::{Link, LinkError, Words, exception_meaning};
+use crate::acquire::notices::{BlockKey, BlockWatch, Level, LinkWatch, Notice, ReadingWatch};
+use crate::acquire::plan::{Read, plan_reads, split_read};
+use crate::acquire::plausible::StepLimit;
 use crate::acquire::sample::{Quality, Reading, TankSample};
 use crate::acquire::stats::{Outcome, Stats};
 use crate::config::{Config, Role, Sensor};
-use std::collections::HashMap;
+use std::collections::{HashMap, VecDeque};
 use std::hash::{BuildHasher, Hasher};
 use std::sync::Arc;
 use std::time::{Duration, Instant};
@@ -28,6 +43,11 @@ const BACKOFF_START: Duration = Duration::from_millis(250);
 /// ...up to this. Low, because DESIGN.md wants readings back within seconds
 /// of a device's return, and a refused connect costs a device nothing.
 const BACKOFF_CAP: Duration = Duration::from_secs(3);
+/// How long a read the device refused as a whole (but answered in parts) is
+/// read in parts before the whole is tried again. A device's register map
+/// changes only when its program does, so once in ten minutes costs one
+/// refused request and finds a fixed map soon enough.
+pub const RECOMBINE_AFTER: Duration = Duration::from_secs(600);
 
 /// The result of one poll cycle for one value.
 #[derive(Debug, Clone, PartialEq)]
@@ -36,6 +56,8 @@ enum Raw {
     Bit(bool),
     Failed(Quality),
 }
+
+type RawMap = HashMap<(usize, Role), Raw>;
 
 /// Polls one device until cancelled or until nobody listens any more.
 ///
@@ -87,29 +109,70 @@ struct LastChange {
     since: Instant,
 }
 
+/// A read of the plan that is read in parts for now, or (no parts) one
+/// whose parts the device refused as well, which is not split again until
+/// the retry: a device refusing everything must not cost a request per
+/// value every cycle.
+#[derive(Debug, Clone)]
+struct Split {
+    parts: Vec<Read>,
+    /// When to try the whole read (and its parts) again.
+    retry_at: Instant,
+}
+
+/// How one planned read went.
+enum Answer {
+    /// Every value of it was read.
+    Whole,
+    /// The device answered, but refused some or all of it.
+    Refused,
+}
+
 struct DevicePoller {
     config: Arc<Config>,
     device: usize,
+    /// The reads as the config plans them (coalesced where it allows).
     plan: Vec<Read>,
-    bridging: bool,
+    /// Reads of `plan`, by index, that the device refused whole but
+    /// answered in parts.
+    split: HashMap<usize, Split>,
     link: Link,
     failures: u32,
     next_attempt: Instant,
+    links: LinkWatch,
+    blocks: BlockWatch,
+    readings: ReadingWatch,
     last_change: HashMap<(usize, Role), LastChange>,
+    /// Per tank: the last good level (m) and when it was read.
+    last_good_level: HashMap<usize, (f64, Instant)>,
+    /// Per tank: how fast its level can move.
+    step_limits: HashMap<usize, StepLimit>,
 }
 
 impl DevicePoller {
     fn new(config: Arc<Config>, device: usize) -> Self {
         let d = &config.devices[device];
         let link = Link::new(&d.address, d.unit_id, d.request_timeout);
-        let bridging = d.bridge_gaps;
+        let name = format!("{} ({} unit {})", d.id, d.address, d.unit_id);
+        let step_limits = config
+            .tanks
+            .iter()
+            .enumerate()
+            .filter(|(_, t)| t.device == device)
+            .map(|(i, t)| (i, StepLimit::for_tank(t)))
+            .collect();
         Self {
-            plan: plan_reads(&config, device, bridging),
-            bridging,
+            plan: plan_reads(&config, device, d.bridge_gaps),
+            split: HashMap::new(),
             link,
             failures: 0,
             next_attempt: Instant::now(),
+            links: LinkWatch::new(name),
+            blocks: BlockWatch::new(d.id.clone(), d.unit_id),
+            readings: ReadingWatch::default(),
             last_change: HashMap::new(),
+            last_good_level: HashMap::new(),
+            step_limits,
             config,
             device,
         }
@@ -128,65 +191,35 @@ impl DevicePoller {
     async fn cycle(&mut self) -> (Vec<TankSample>, Outcome) {
         let at_ms = jiff::Timestamp::now().as_millisecond();
         let (raw, outcome) = self.read_all().await;
+        for notice in self.blocks.flush() {
+            emit(Some(notice));
+        }
         (self.samples(&raw, at_ms), outcome)
     }
 
-    async fn read_all(&mut self) -> (HashMap<(usize, Role), Raw>, Outcome) {
+    async fn read_all(&mut self) -> (RawMap, Outcome) {
         let mut raw = HashMap::new();
-        let lost = |raw: &mut HashMap<(usize, Role), Raw>, reads: &[Read]| {
-            for read in reads {
-                for &key in &read.values {
-                    raw.insert(key, Raw::Failed(Quality::CommunicationLost));
-                }
-            }
-        };
         if !self.link.is_connected() {
             if Instant::now() < self.next_attempt {
                 lost(&mut raw, &self.plan);
                 return (raw, Outcome::Failed { attempted: false });
             }
-            match self.link.connect().await {
-                Ok(()) => {
-                    if self.failures > 0 {
-                        info!(device = %self.device_id(), "link back up after {} failed attempts", self.failures);
-                    }
-                    self.failures = 0;
-                }
-                Err(e) => {
-                    self.link_failed(&e);
-                    lost(&mut raw, &self.plan);
-                    return (raw, Outcome::Failed { attempted: true });
-                }
+            if let Err(e) = self.link.connect().await {
+                self.link_failed(&e);
+                lost(&mut raw, &self.plan);
+                return (raw, Outcome::Failed { attempted: true });
             }
         }
         let mut outcome = Outcome::Answered;
-        let plan = self.plan.clone();
-        for (i, read) in plan.iter().enumerate() {
-            match self.link.read(read).await {
-                Ok(words) => self.distribute(&mut raw, read, words),
-                Err(e) if e.is_illegal_address() && self.bridging && read.values.len() > 1 => {
-                    warn!(
-                        device = %self.device_id(),
-                        "the device refused a read spanning unmapped registers; reading values separately from now on \
-                         (set bridge_gaps = false in the config to skip this)"
-                    );
-                    self.bridging = false;
-                    self.plan = plan_reads(&self.config, self.device, false);
-                    for &key in &read.values {
-                        raw.insert(key, Raw::Failed(Quality::DeviceError));
-                    }
-                    outcome = Outcome::Failed { attempted: true };
-                }
-                Err(e) if !e.needs_reconnect() => {
-                    debug!(device = %self.device_id(), start = read.start, "read refused: {e}");
-                    for &key in &read.values {
-                        raw.insert(key, Raw::Failed(Quality::DeviceError));
-                    }
-                    outcome = Outcome::Failed { attempted: true };
-                }
+        for index in 0..self.plan.len() {
+            match self.read_planned(index, &mut raw).await {
+                Ok(Answer::Whole) => {}
+                Ok(Answer::Refused) => outcome = Outcome::Failed { attempted: true },
                 Err(e) => {
                     self.link_failed(&e);
-                    lost(&mut raw, &plan[i..]);
+                    lost(&mut raw, &self.plan[index..]);
+                    // Values of earlier reads that the failed one shares
+                    // nothing with keep what they got.
                     outcome = Outcome::Failed { attempted: true };
                     break;
                 }
@@ -195,18 +228,218 @@ impl DevicePoller {
         (raw, outcome)
     }
 
-    fn link_failed(&mut self, e: &LinkError) {
-        if self.failures == 0 {
-            warn!(device = %self.device_id(), "link down: {e}; reconnecting with backoff");
-        } else {
-            debug!(device = %self.device_id(), attempt = self.failures, "still down: {e}");
+    /// One read of the plan, whole or in its parts. `Err` only when the
+    /// exchange failed (the link needs a reconnect).
+    async fn read_planned(&mut self, index: usize, raw: &mut RawMap) -> Result<Answer, LinkError> {
+        let read = self.plan[index].clone();
+        let now = Instant::now();
+        if let Some(split) = self.split.get(&index)
+            && now < split.retry_at
+        {
+            if split.parts.is_empty() {
+                let answer = self.read_simple(&read, raw).await?;
+                if matches!(answer, Answer::Whole) {
+                    // It answers again: a later refusal may split it.
+                    self.split.remove(&index);
+                }
+                return Ok(answer);
+            }
+            let parts = split.parts.clone();
+            let mut whole = true;
+            for part in &parts {
+                whole &= matches!(self.read_simple(part, raw).await?, Answer::Whole);
+            }
+            return Ok(if whole {
+                Answer::Whole
+            } else {
+                Answer::Refused
+            });
         }
+        let retrying = self.split.contains_key(&index);
+        match self.link.read(&read).await {
+            Ok(words) => {
+                self.answered(&read);
+                self.distribute(raw, &read, words);
+                if let Some(split) = self.split.remove(&index)
+                    && !split.parts.is_empty()
+                {
+                    for part in &split.parts {
+                        self.blocks.forget(key(part));
+                    }
+                    info!(
+                        "{}: {} is answered as a whole again; back to one read for its {} values",
+                        self.device_id(),
+                        self.describe(&read),
+                        read.values.len()
+                    );
+                }
+                Ok(Answer::Whole)
+            }
+            Err(e) if e.is_illegal_address() && read.values.len() > 1 => {
+                self.links_answered();
+                self.try_parts(index, &read, &e, retrying, raw).await
+            }
+            Err(e) if e.device_answered() => {
+                self.links_answered();
+                self.refused(&read, &e);
+                mark(raw, &read, Quality::DeviceError);
+                Ok(Answer::Refused)
+            }
+            Err(e) => Err(e),
+        }
+    }
+
+    /// The device refused a read of several values with exception 02: reads
+    /// its parts (down to single values where a part is refused too) and
+    /// decides, from what it answers, whether to read in parts from now on.
+    async fn try_parts(
+        &mut self,
+        index: usize,
+        read: &Read,
+        error: &LinkError,
+        retrying: bool,
+        raw: &mut RawMap,
+    ) -> Result<Answer, LinkError> {
+        let mut pending: VecDeque<Read> = split_read(&self.config, read).into();
+        let mut answered = Vec::new();
+        let mut refused = Vec::new();
+        while let Some(part) = pending.pop_front() {
+            match self.link.read(&part).await {
+                Ok(words) => {
+                    self.distribute(raw, &part, words);
+                    answered.push(part);
+                }
+                Err(e) if e.is_illegal_address() && part.values.len() > 1 => {
+                    for (i, finer) in split_read(&self.config, &part).into_iter().enumerate() {
+                        pending.insert(i, finer);
+                    }
+                }
+                Err(e) if e.device_answered() => {
+                    mark(raw, &part, Quality::DeviceError);
+                    refused.push((part, e));
+                }
+                Err(e) => return Err(e),
+            }
+        }
+        if answered.is_empty() {
+            // Nothing is learned by splitting: the device refuses all of it
+            // for now. The whole is read (and refused) as planned until the
+            // retry, when the parts are tried again.
+            self.split.insert(
+                index,
+                Split {
+                    parts: Vec::new(),
+                    retry_at: Instant::now() + RECOMBINE_AFTER,
+                },
+            );
+            self.refused(read, error);
+            mark(raw, read, Quality::DeviceError);
+            return Ok(Answer::Refused);
+        }
+        self.blocks.forget(key(read));
+        let whole = self.describe(read);
+        let because = if refused.is_empty() {
+            "so it refuses the combined read (unmapped registers in the span, or a limit on how many it reads at once)".to_owned()
+        } else {
+            let named: Vec<String> = refused
+                .iter()
+                .flat_map(|(part, _)| &part.values)
+                .map(|&(tank, role)| format!("{} {}", self.config.tanks[tank].id, role.name()))
+                .collect();
+            format!("and refuses {} even alone (said below)", named.join(", "))
+        };
+        let line = format!(
+            "{}: {whole} got exception 2 ({}); it answers {} of its {} parts read alone, {because}; reading the parts separately from now on, and the whole again in {} min (bridge_gaps = false plans separate reads from the start)",
+            self.device_id(),
+            exception_meaning(2),
+            answered.len(),
+            answered.len() + refused.len(),
+            RECOMBINE_AFTER.as_secs() / 60
+        );
+        // Said loudly the first time; a repeat after the retry changes
+        // nothing and goes to the debug log.
+        if retrying {
+            debug!("{line}");
+        } else {
+            warn!("{line}");
+        }
+        for part in &answered {
+            self.answered(part);
+        }
+        let all_answered = refused.is_empty();
+        for (part, e) in &refused {
+            self.refused(part, e);
+        }
+        let mut parts = answered;
+        parts.extend(refused.into_iter().map(|(part, _)| part));
+        parts.sort_by_key(|p| p.start);
+        self.split.insert(
+            index,
+            Split {
+                parts,
+                retry_at: Instant::now() + RECOMBINE_AFTER,
+            },
+        );
+        Ok(if all_answered {
+            Answer::Whole
+        } else {
+            Answer::Refused
+        })
+    }
+
+    /// One read, no splitting: for the parts of a split read.
+    async fn read_simple(&mut self, read: &Read, raw: &mut RawMap) -> Result<Answer, LinkError> {
+        match self.link.read(read).await {
+            Ok(words) => {
+                self.answered(read);
+                self.distribute(raw, read, words);
+                Ok(Answer::Whole)
+            }
+            Err(e) if e.device_answered() => {
+                self.links_answered();
+                self.refused(read, &e);
+                mark(raw, read, Quality::DeviceError);
+                Ok(Answer::Refused)
+            }
+            Err(e) => Err(e),
+        }
+    }
+
+    /// The device answered `read` properly.
+    fn answered(&mut self, read: &Read) {
+        self.links_answered();
+        let what = self.describe(read);
+        self.blocks.answered(key(read), &what, Instant::now());
+    }
+
+    /// The device refused `read` or answered it wrongly.
+    fn refused(&mut self, read: &Read, error: &LinkError) {
+        let what = self.describe(read);
+        self.blocks.refused(key(read), &what, error, Instant::now());
+    }
+
+    /// The device answered something: the link is up.
+    fn links_answered(&mut self) {
+        self.failures = 0;
+        let notice = self.links.answered(Instant::now());
+        emit(notice);
+    }
+
+    fn link_failed(&mut self, e: &LinkError) {
         self.failures = self.failures.saturating_add(1);
         self.next_attempt = Instant::now() + backoff_delay(self.failures);
+        let notice = self.links.failed(e, Instant::now());
+        emit(notice);
+    }
+
+    /// A read as the log names it: "function 03 holding registers 10..13
+    /// (FF-T14 level, FF-T14 pressure)".
+    fn describe(&self, read: &Read) -> String {
+        describe_read(&self.config, read)
     }
 
     /// Hands each value of a read its slice of the answer.
-    fn distribute(&self, raw: &mut HashMap<(usize, Role), Raw>, read: &Read, words: Words) {
+    fn distribute(&self, raw: &mut RawMap, read: &Read, words: Words) {
         for &(tank, role) in &read.values {
             let t = &self.config.tanks[tank];
             let value = match (&words, role) {
@@ -231,7 +464,7 @@ impl DevicePoller {
         }
     }
 
-    fn samples(&mut self, raw: &HashMap<(usize, Role), Raw>, at_ms: i64) -> Vec<TankSample> {
+    fn samples(&mut self, raw: &RawMap, at_ms: i64) -> Vec<TankSample> {
         let config = Arc::clone(&self.config);
         let now = Instant::now();
         let device = self.device;
@@ -247,7 +480,12 @@ impl DevicePoller {
                     .get(&(tank_index, role))
                     .cloned()
                     .unwrap_or(Raw::Failed(Quality::CommunicationLost));
-                self.reading(tank_index, role, sensor, r, now)
+                let reading = self.reading(tank_index, role, sensor, r, now);
+                let notice = self
+                    .readings
+                    .saw(tank_index, &tank.id, role, reading.quality, now);
+                emit(notice);
+                reading
             };
             let level = reading(Role::Level, &tank.level);
             let pressure = tank
@@ -279,7 +517,8 @@ impl DevicePoller {
         out
     }
 
-    /// Decodes, scales and flags one value.
+    /// Decodes, scales and flags one value; a level is also checked
+    /// against the last good one ([`StepLimit`]).
     fn reading(
         &mut self,
         tank: usize,
@@ -294,7 +533,28 @@ impl DevicePoller {
             Raw::Bit(_) => return Reading::bad(Quality::DeviceError),
         };
         let stuck = self.note_change(tank, role, &words, now, sensor.stuck_after);
-        flag(sensor, &words, stuck)
+        let reading = flag(sensor, &words, stuck);
+        match (role, reading.value) {
+            (Role::Level, Some(level)) if reading.is_good() => {
+                let plausible = match (self.last_good_level.get(&tank), self.step_limits.get(&tank))
+                {
+                    (Some(&(last, at)), Some(limit)) => limit.allows(
+                        &self.config.tanks[tank],
+                        last,
+                        level,
+                        now.duration_since(at).as_secs_f64(),
+                    ),
+                    _ => true,
+                };
+                if plausible {
+                    self.last_good_level.insert(tank, (level, now));
+                    reading
+                } else {
+                    Reading::bad(Quality::ImplausibleStep)
+                }
+            }
+            _ => reading,
+        }
     }
 
     /// Records the words and says whether they have been the same for longer
@@ -319,6 +579,65 @@ impl DevicePoller {
             entry.since = now;
         }
         limit.is_some_and(|limit| now.duration_since(entry.since) > limit)
+    }
+}
+
+/// A read as the log and `leaktally check` name it: "function 03 holding
+/// registers 10..13 (FF-T14 level, FF-T14 pressure)".
+pub fn describe_read(config: &Config, read: &Read) -> String {
+    let values: Vec<String> = read
+        .values
+        .iter()
+        .map(|&(tank, role)| format!("{} {}", config.tanks[tank].id, role.name()))
+        .collect();
+    let last = u32::from(read.start) + u32::from(read.count).max(1) - 1;
+    let span = if read.count <= 1 {
+        format!("{} {}", read.table.name(), read.start)
+    } else {
+        format!("{}s {}..{last}", read.table.name(), read.start)
+    };
+    format!(
+        "function {:02} {span} ({})",
+        read.function_code(),
+        values.join(", ")
+    )
+}
+
+/// Marks every value of `reads` lost with the link.
+fn lost(raw: &mut RawMap, reads: &[Read]) {
+    for read in reads {
+        for &key in &read.values {
+            raw.entry(key)
+                .or_insert(Raw::Failed(Quality::CommunicationLost));
+        }
+    }
+}
+
+/// Marks every value of `read` with `quality`.
+fn mark(raw: &mut RawMap, read: &Read, quality: Quality) {
+    for &key in &read.values {
+        raw.insert(key, Raw::Failed(quality));
+    }
+}
+
+fn key(read: &Read) -> BlockKey {
+    BlockKey {
+        function: read.function_code(),
+        start: read.start,
+        count: read.count,
+    }
+}
+
+/// Logs a notice, if there is one. The text names the device (and the
+/// tank) itself, so no fields are added.
+fn emit(notice: Option<Notice>) {
+    let Some(Notice { level, text }) = notice else {
+        return;
+    };
+    match level {
+        Level::Debug => debug!("{text}"),
+        Level::Info => info!("{text}"),
+        Level::Warn => warn!("{text}"),
     }
 }
 

@@ -24,6 +24,10 @@ pub enum Quality {
     Stuck,
     /// A float register held NaN or infinity.
     NotANumber,
+    /// Decoded and in range, but further from the last good level than the
+    /// tank's fastest possible change allows (see `acquire::plausible`): a
+    /// glitch, a lost radar echo, a register half-written.
+    ImplausibleStep,
 }
 
 impl Quality {
@@ -35,6 +39,36 @@ impl Quality {
             Quality::OutOfRange => "out of range",
             Quality::Stuck => "stuck",
             Quality::NotANumber => "not a number",
+            Quality::ImplausibleStep => "implausible step",
+        }
+    }
+
+    /// The flag as the JSON of `leaktally poll`, the database and the log
+    /// write it (serde's snake_case names).
+    pub fn key(self) -> &'static str {
+        match self {
+            Quality::Good => "good",
+            Quality::CommunicationLost => "communication_lost",
+            Quality::DeviceError => "device_error",
+            Quality::OutOfRange => "out_of_range",
+            Quality::Stuck => "stuck",
+            Quality::NotANumber => "not_a_number",
+            Quality::ImplausibleStep => "implausible_step",
+        }
+    }
+
+    /// Why a reading carries this flag, for the log.
+    pub fn reason(self) -> &'static str {
+        match self {
+            Quality::Good => "a usable reading",
+            Quality::CommunicationLost => "no answer from the device",
+            Quality::DeviceError => "the device refused the read or answered wrongly",
+            Quality::OutOfRange => "outside the range configured for the sensor",
+            Quality::Stuck => "not changed at all for longer than stuck_after_s",
+            Quality::NotANumber => "a float register held NaN or infinity",
+            Quality::ImplausibleStep => {
+                "further from the last good level than the tank can move in the time between them"
+            }
         }
     }
 }

@@ -1,50 +1,267 @@
 //! `leaktally check`: validate a config and show what it will poll.
 //!
 //! Prints every device and tank with its registers and the reads each cycle
-//! makes, then (unless `--offline`) tries to connect to each device. An
-//! unreachable device is a warning, not a failure: the config can be right
-//! while the network is not.
+//! makes, then (unless `--offline`) reads every planned block of every
+//! device once and shows, per block, the values decoded in their units and
+//! flagged as the agent would flag them, or the Modbus exception with what
+//! it means and what to check (a wrong unit id, an address the device does
+//! not have, a function it does not serve). Opening a TCP connection proves
+//! nothing on its own: a gateway accepts connections for units it cannot
+//! reach.
+//!
+//! A device or block that fails is a warning in the text, and the command
+//! then exits with [`DevicesFailed`] (exit code 2 from the binary), so a
+//! script can tell a config that is valid but not yet answered from one
+//! that is invalid (exit code 1) or fully answered (0).
 
 use crate::acquire::decode::{DataType, WordOrder};
-use crate::acquire::link::Link;
+use crate::acquire::link::{Link, LinkError, Words, exception_hint};
 use crate::acquire::plan::{Read, plan_reads};
-use crate::config::{Config, Sensor, Table};
+use crate::acquire::poller::{describe_read, flag};
+use crate::config::{Config, Device, Role, Sensor, Table};
+use crate::logging::one_line;
 use crate::model::PressureTap;
 use crate::report;
 use std::fmt::Write as _;
 use std::path::Path;
 use std::time::Instant;
 
-/// Validates and describes a config; returns the text to print.
-pub async fn run(path: &Path, offline: bool) -> anyhow::Result<String> {
+/// The exit code of `leaktally check` when the config is valid but a device
+/// or one of its reads failed.
+pub const EXIT_DEVICES_FAILED: u8 = 2;
+
+/// The config is valid, but devices or reads failed; the text says which.
+#[derive(Debug, thiserror::Error)]
+#[error(
+    "{devices} of {of} device(s) failed the check ({blocks} read(s) not answered properly); see the warnings above"
+)]
+pub struct DevicesFailed {
+    pub devices: usize,
+    pub of: usize,
+    pub blocks: usize,
+}
+
+/// What `check` found: the text to print, and what failed.
+#[derive(Debug)]
+pub struct Checked {
+    pub text: String,
+    pub failed: Option<DevicesFailed>,
+}
+
+/// Validates and describes a config and, unless `offline`, reads every
+/// planned block of every device once.
+pub async fn run(path: &Path, offline: bool) -> anyhow::Result<Checked> {
     let config = crate::config::load(path)?;
     let mut out = describe(&config);
-    if !offline {
+    if offline {
+        return Ok(Checked {
+            text: out,
+            failed: None,
+        });
+    }
+    let (mut failed_devices, mut failed_blocks) = (0, 0);
+    for (d, device) in config.devices.iter().enumerate() {
+        let reads = plan_reads(&config, d, device.bridge_gaps);
+        if reads.is_empty() {
+            continue;
+        }
         let _ = writeln!(out);
-        for device in &config.devices {
-            let mut link = Link::new(&device.address, device.unit_id, device.request_timeout);
-            let started = Instant::now();
-            match link.connect().await {
-                Ok(()) => {
-                    let _ = writeln!(
-                        out,
-                        "device {}: reachable at {} (connected in {} ms)",
-                        device.id,
-                        device.address,
-                        started.elapsed().as_millis()
-                    );
+        let failed = probe(&config, device, &reads, &mut out).await;
+        if failed > 0 {
+            failed_devices += 1;
+            failed_blocks += failed;
+        }
+    }
+    let failed = (failed_devices > 0).then_some(DevicesFailed {
+        devices: failed_devices,
+        of: config.devices.len(),
+        blocks: failed_blocks,
+    });
+    Ok(Checked { text: out, failed })
+}
+
+/// Reads each block of one device once and writes what came back; returns
+/// how many blocks failed.
+async fn probe(config: &Config, device: &Device, reads: &[Read], out: &mut String) -> usize {
+    let name = format!(
+        "{} ({} unit {})",
+        one_line(&device.id),
+        one_line(&device.address),
+        device.unit_id
+    );
+    let mut link = Link::new(&device.address, device.unit_id, device.request_timeout);
+    let started = Instant::now();
+    if let Err(e) = link.connect().await {
+        let _ = writeln!(
+            out,
+            "warning: device {name} is not reachable: {}; none of its {} read(s) was made; the agent would keep retrying",
+            one_line(&e.to_string()),
+            reads.len()
+        );
+        return reads.len();
+    }
+    let _ = writeln!(
+        out,
+        "device {name}: connected in {} ms; reading each block once",
+        started.elapsed().as_millis()
+    );
+    let mut failed = 0;
+    for read in reads {
+        // A failed exchange drops the connection; the next block gets a
+        // fresh one, as the agent's next cycle would.
+        let began = Instant::now();
+        let result = match link.connect().await {
+            Ok(()) => link.read(read).await,
+            Err(e) => Err(e),
+        };
+        let what = one_line(&describe_read(config, read)).into_owned();
+        match result {
+            Ok(words) => {
+                let _ = writeln!(
+                    out,
+                    "  {what}: answered in {} ms",
+                    began.elapsed().as_millis()
+                );
+                for line in values(config, read, &words) {
+                    let _ = writeln!(out, "      {line}");
                 }
-                Err(e) => {
-                    let _ = writeln!(
-                        out,
-                        "warning: device {} is not reachable now: {e}; the agent will keep retrying",
-                        device.id
-                    );
-                }
+            }
+            Err(e) => {
+                failed += 1;
+                let _ = writeln!(
+                    out,
+                    "  warning: {what}: {}; {}",
+                    one_line(&e.to_string()),
+                    hint(&e, device)
+                );
             }
         }
     }
-    Ok(out)
+    failed
+}
+
+/// What to do about a failed read.
+fn hint(e: &LinkError, device: &Device) -> String {
+    match e {
+        LinkError::Exception {
+            code: code @ (4 | 10 | 11),
+        } => format!(
+            "{} (unit_id is {} for device {})",
+            exception_hint(*code),
+            device.unit_id,
+            one_line(&device.id)
+        ),
+        LinkError::Exception { code } => exception_hint(*code).to_owned(),
+        LinkError::Malformed { .. } => {
+            "the device or a gateway answered with the wrong number of values; the agent flags such replies device_error".into()
+        }
+        LinkError::Timeout(_) => {
+            "the device did not answer in time: check unit_id (some gateways stay silent for an unknown unit), or raise request_timeout_ms".into()
+        }
+        _ => "check the address, the network and the device".into(),
+    }
+}
+
+/// One line per value of a block: decoded, in its unit, flagged as the
+/// agent would flag it (without the stuck and step checks, which need a
+/// history).
+fn values(config: &Config, read: &Read, words: &Words) -> Vec<String> {
+    let mut lines = Vec::new();
+    for &(tank, role) in &read.values {
+        let t = &config.tanks[tank];
+        let who = format!("{} {}", one_line(&t.id), role.name());
+        let line = match (words, role) {
+            (Words::Bits(bits), Role::LeakFlag) => {
+                let bit = t
+                    .leak_flag
+                    .and_then(|f| bits.get(usize::from(f.address - read.start)).copied());
+                match bit {
+                    Some(true) => format!("{who}: raised"),
+                    Some(false) => format!("{who}: not raised"),
+                    None => format!("{who}: missing from the reply"),
+                }
+            }
+            (Words::Registers(regs), role) => {
+                let sensor = match role {
+                    Role::Level => Some(&t.level),
+                    Role::Pressure => t.pressure.as_ref().map(|p| &p.sensor),
+                    Role::Transfer => t.transfer.as_ref(),
+                    Role::Temperature => t.temperature.as_ref(),
+                    Role::LeakFlag => None,
+                };
+                // A pressure says what its zero is.
+                let reference = match (role, &t.pressure) {
+                    (Role::Pressure, Some(p)) if p.absolute => " absolute",
+                    (Role::Pressure, Some(_)) => " gauge",
+                    _ => "",
+                };
+                match sensor {
+                    Some(s) => {
+                        let from = usize::from(s.address - read.start);
+                        let to = from + usize::from(s.data_type.width());
+                        match regs.get(from..to) {
+                            Some(w) => value_line(&who, s, w, reference),
+                            None => format!("{who}: missing from the reply"),
+                        }
+                    }
+                    None => format!("{who}: not a register value"),
+                }
+            }
+            _ => format!("{who}: a reply of the wrong kind"),
+        };
+        lines.push(line);
+    }
+    lines
+}
+
+/// "FF-T12 level: 4.2 m (raw 17440), good", or the flag and why.
+fn value_line(who: &str, s: &Sensor, words: &[u16], reference: &str) -> String {
+    let raw = s.data_type.decode(words, s.word_order);
+    let reading = flag(s, words, false);
+    let unit = format!("{}{reference}", one_line(&s.unit));
+    let raw_text = match raw {
+        Some(r) if (s.raw_span.0, s.raw_span.1) != s.engineering_span => {
+            format!(" (raw {})", plain(r))
+        }
+        _ => String::new(),
+    };
+    match (reading.value, raw) {
+        (Some(si), _) => format!(
+            "{who}: {} {unit}{raw_text}, good",
+            plain((si - s.si_offset) / s.si_per_unit)
+        ),
+        (None, Some(r)) => {
+            let shown = (s.to_si(r) - s.si_offset) / s.si_per_unit;
+            let (lo, hi) = s.engineering_span;
+            format!(
+                "{who}: {} {unit}{raw_text}, flagged {} ({}; range {} to {} {unit})",
+                plain(shown),
+                reading.quality.key(),
+                reading.quality.reason(),
+                plain(lo),
+                plain(hi)
+            )
+        }
+        (None, None) => format!(
+            "{who}: flagged {} ({})",
+            reading.quality.key(),
+            reading.quality.reason()
+        ),
+    }
+}
+
+/// A value to four decimals at most, trailing zeros dropped.
+fn plain(x: f64) -> String {
+    if !x.is_finite() {
+        return format!("{x}");
+    }
+    let text = format!("{x:.4}");
+    let text = text.trim_end_matches('0').trim_end_matches('.');
+    if text == "-0" {
+        "0".into()
+    } else {
+        text.into()
+    }
 }
 
 /// The human description of a valid config.
@@ -53,8 +270,8 @@ pub fn describe(config: &Config) -> String {
     let _ = writeln!(
         out,
         "{}: valid. Site \"{}\", {} device(s), {} tank(s), ambient {:.3} kPa absolute.",
-        config.path.display(),
-        config.site_name,
+        one_line(&config.path.display().to_string()),
+        one_line(&config.site_name),
         config.devices.len(),
         config.tanks.len(),
         config.ambient.si() / 1000.0
@@ -63,21 +280,26 @@ pub fn describe(config: &Config) -> String {
         let _ = writeln!(
             out,
             "\ndevice {}  {} unit {}, every {} ms, timeout {} ms",
-            device.id,
-            device.address,
+            one_line(&device.id),
+            one_line(&device.address),
             device.unit_id,
             device.poll_interval.as_millis(),
             device.request_timeout.as_millis()
         );
         for tank in config.tanks.iter().filter(|t| t.device == d) {
             let v = &tank.vessel;
-            let _ = writeln!(out, "  tank {}  {}", tank.id, tank.description);
+            let _ = writeln!(
+                out,
+                "  tank {}  {}",
+                one_line(&tank.id),
+                one_line(&tank.description)
+            );
             let _ = writeln!(
                 out,
                 "    {:.2} tall, holds {:.2}; {} at {:.1}",
                 v.geometry().height(),
                 v.geometry().capacity(),
-                tank.substance,
+                one_line(&tank.substance),
                 v.density()
             );
             if !tank.reportable.is_empty() {
@@ -109,6 +331,10 @@ pub fn describe(config: &Config) -> String {
             if let Some(s) = &tank.transfer {
                 let _ = writeln!(out, "    {} (into the tank)", sensor_line("transfer", s));
             }
+            if let Some(s) = &tank.temperature {
+                let _ = writeln!(out, "    {}", sensor_line("temperature", s));
+            }
+            let _ = writeln!(out, "    {}", accuracy_line(tank));
             if let Some(f) = &tank.leak_flag {
                 let _ = writeln!(
                     out,
@@ -143,16 +369,16 @@ fn sensor_line(role: &str, s: &Sensor) -> String {
     let (r0, r1) = s.raw_span;
     let (e0, e1) = s.engineering_span;
     let scaling = if (r0, r1) == (e0, e1) {
-        format!("{e0}..{e1} {}", s.unit)
+        format!("{e0}..{e1} {}", one_line(&s.unit))
     } else {
-        format!("raw {r0}..{r1} -> {e0}..{e1} {}", s.unit)
+        format!("raw {r0}..{r1} -> {e0}..{e1} {}", one_line(&s.unit))
     };
     let step = match s.resolution_si() {
         0.0 => String::new(),
         step => format!(
             ", step {} {}",
             report::significant(step / s.si_per_unit),
-            s.unit
+            one_line(&s.unit)
         ),
     };
     format!(
@@ -160,6 +386,62 @@ fn sensor_line(role: &str, s: &Sensor) -> String {
         Table::Registers(s.register).name(),
         s.address
     )
+}
+
+/// The accuracies the band rests on, each marked as the config's own or
+/// a default, and how the density follows temperature.
+fn accuracy_line(tank: &crate::config::Tank) -> String {
+    let mark = |stated: bool| if stated { "" } else { " (default)" };
+    let mut parts = vec![format!(
+        "level ±{} mm{}",
+        report::significant(tank.level.accuracy.bound * 1000.0),
+        mark(tank.level.accuracy.stated)
+    )];
+    if let Some(p) = &tank.pressure {
+        parts.push(format!(
+            "pressure ±{} kPa{}",
+            report::significant(p.sensor.accuracy.bound / 1000.0),
+            mark(p.sensor.accuracy.stated)
+        ));
+    }
+    if let Some(s) = &tank.transfer {
+        parts.push(format!(
+            "transfer ±{} % of the reading{}",
+            report::significant(s.accuracy.bound * 100.0),
+            mark(s.accuracy.stated)
+        ));
+    }
+    if let Some(s) = &tank.temperature {
+        parts.push(format!(
+            "temperature ±{} °C{}",
+            report::significant(s.accuracy.bound),
+            mark(s.accuracy.stated)
+        ));
+    }
+    parts.push(format!(
+        "density ±{} %{}",
+        report::significant(tank.density_uncertainty.bound * 100.0),
+        mark(tank.density_uncertainty.stated)
+    ));
+    let density = match &tank.density {
+        crate::model::DensityModel::Constant(_) => "; density fixed".to_owned(),
+        crate::model::DensityModel::Expansion { at, per_kelvin, .. } => format!(
+            "; density follows the temperature ({per_kelvin} per °C from {} °C)",
+            report::significant(at.si() - 273.15)
+        ),
+        crate::model::DensityModel::Table(points) => {
+            format!(
+                "; density follows the temperature ({} table points)",
+                points.len()
+            )
+        }
+    };
+    let defaults = if tank.level.accuracy.stated && tank.density_uncertainty.stated {
+        ""
+    } else {
+        "; defaults are common practice, not your instruments': state the data sheet's figures (config/reference.toml)"
+    };
+    format!("accuracy   {}{density}{defaults}", parts.join(", "))
 }
 
 fn read_line(read: &Read) -> String {

@@ -152,6 +152,7 @@ fn init_logging(path: &Path) -> anyhow::Result<()> {
     let _ = tracing_subscriber::fmt()
         .with_writer(std::sync::Mutex::new(file))
         .with_ansi(false)
+        .fmt_fields(crate::logging::escaped_fields())
         .try_init();
     Ok(())
 }

@@ -76,7 +76,9 @@ pub fn run(command: LeakCommand) -> anyhow::Result<()> {
         LeakCommand::Close { event, note, db } => (db, Request::Close { event, note }),
     };
     let outcome = send(&db, &request)?;
-    println!("{outcome}");
+    // The daemon's outcome quotes the operator's note and tank id; a
+    // control character in them must not reach the terminal as one.
+    println!("{}", crate::logging::one_line(&outcome));
     Ok(())
 }
 
@@ -225,7 +227,10 @@ pub fn send(db: &Path, request: &Request) -> anyhow::Result<String> {
             .ok_or_else(|| StoreError::Corrupt(format!("action {id} vanished")))?;
         match action.state.as_str() {
             "done" => return Ok(action.outcome.unwrap_or_default()),
-            "refused" => bail!("the daemon refused: {}", action.outcome.unwrap_or_default()),
+            "refused" => bail!(
+                "the daemon refused: {}",
+                crate::logging::one_line(&action.outcome.unwrap_or_default())
+            ),
             _ if started.elapsed() > ACK_WAIT => bail!(
                 "the daemon has not acknowledged action {id} within {} s; it is recorded and will be applied when the daemon gets to it; check `leaktally status`",
                 ACK_WAIT.as_secs()

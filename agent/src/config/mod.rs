@@ -19,7 +19,7 @@ use crate::model::{
     AbsolutePressure, Density, DensityModel, GasProperties, Geometry, Heads, Length, Mass,
     ModelError, MolarMass, Pressure, PressureTap, Temperature, Vessel, Volume,
 };
-use raw::{RawConfig, RawGeometry, RawHeads, RawPressureReference, RawSensor, RawTank};
+use raw::{RawConfig, RawGeometry, RawHeads, RawPressureReference, RawSensor, RawShape, RawTank};
 use std::collections::{BTreeMap, HashMap};
 use std::fmt;
 use std::net::SocketAddr;
@@ -43,13 +43,56 @@ pub struct Config {
 }
 
 /// Where the daemon serves the read-only web page, the JSON and the metrics.
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+#[derive(Debug, Clone, PartialEq, Eq)]
 pub struct Web {
     pub listen: SocketAddr,
     /// Whether `listen` may be an address that other machines can reach.
     /// Validation refuses such an address without it, so a page with no
     /// login is never exposed by a typo.
     pub allow_remote: bool,
+    /// Names the page answers to besides its listen address (and
+    /// `localhost` on loopback), from `[web] hosts`: lower case, each with
+    /// the port it must come with, or `None` for any port.
+    pub hosts: Vec<HostName>,
+}
+
+/// One name a request's `Host` header may carry.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct HostName {
+    /// A DNS name or an IP address, lower case; an IPv6 address without
+    /// its brackets.
+    pub name: String,
+    /// The port it must come with; `None` accepts any (a reverse proxy
+    /// forwards the public name with the public port, or none).
+    pub port: Option<u16>,
+}
+
+impl HostName {
+    /// Splits a `Host` header value (`name`, `name:port`, `[v6]` or
+    /// `[v6]:port`) into a lower-case name and its port, if it is well
+    /// formed; it knows nothing of which names are allowed.
+    pub fn parse(text: &str) -> Option<(String, Option<u16>)> {
+        let text = text.trim();
+        let port_of = |p: &str| p.parse::<u16>().ok();
+        if let Some(rest) = text.strip_prefix('[') {
+            let (inside, after) = rest.split_once(']')?;
+            let ip = inside.parse::<std::net::Ipv6Addr>().ok()?;
+            let port = match after {
+                "" => None,
+                p => Some(port_of(p.strip_prefix(':')?)?),
+            };
+            return Some((ip.to_string(), port));
+        }
+        let (name, port) = match text.rsplit_once(':') {
+            Some((name, port)) => (name, Some(port_of(port)?)),
+            None => (text, None),
+        };
+        let plain = |c: char| c.is_ascii_alphanumeric() || matches!(c, '.' | '-' | '_');
+        if name.is_empty() || name.len() > 253 || !name.chars().all(plain) {
+            return None;
+        }
+        Some((name.to_ascii_lowercase(), port))
+    }
 }
 
 impl Web {
@@ -62,6 +105,50 @@ impl Web {
 
 /// The web page's address when `[web]` gives none: loopback only.
 pub const DEFAULT_WEB_LISTEN: &str = "127.0.0.1:8470";
+
+// Plausible dimensions, m. The largest storage tanks built are about 120 m
+// across and 30 m tall, spheres about 25 m across, and a horizontal tank
+// that can travel by road about 4 m (all from memory). The limits leave room
+// past those and refuse what is surely a unit slip (mm for m) or a typo such
+// as 1e308 or 1e-300; the smallest, 5 cm, is a laboratory vessel.
+const VERTICAL_DIAMETER_M: (f64, f64) = (0.05, 200.0);
+const HORIZONTAL_DIAMETER_M: (f64, f64) = (0.05, 20.0);
+const HORIZONTAL_LENGTH_M: (f64, f64) = (0.05, 200.0);
+const SPHERE_DIAMETER_M: (f64, f64) = (0.05, 50.0);
+/// A dished head can be shallow (a millimetre is a flat head in practice);
+/// the model also keeps it within half the diameter.
+const HEAD_DEPTH_M: (f64, f64) = (0.001, 10.0);
+const TANK_HEIGHT_M: (f64, f64) = (0.05, 100.0);
+/// The most a strapping table may say a tank holds, m³: a vertical cylinder
+/// at the limits above (200 m across, 100 m tall) holds 3.1 million.
+const MAX_TABLE_VOLUME_M3: f64 = 3.2e6;
+/// Strapping tables have tens to a few thousand rows; more is a file pasted
+/// by mistake, and each point costs memory in every estimator.
+const MAX_TABLE_POINTS: usize = 100_000;
+/// Pressures past this (100 MPa, 1000 bar) are beyond any tank, even a
+/// pressurised sphere (about 2 MPa; from memory).
+const MAX_PRESSURE_PA: f64 = 1e8;
+/// A reportable quantity past a million tonnes is a unit slip.
+const MAX_REPORTABLE_KG: f64 = 1e9;
+/// A stuck check longer than a week would never fire in practice.
+const MAX_STUCK_AFTER_S: f64 = 604_800.0;
+/// The most `max_rate_m_s` may say, m/s: free fall for a second.
+const MAX_LEVEL_RATE_M_S: f64 = 10.0;
+
+/// A number as a config message quotes it: to 7 significant digits, plain
+/// when it is of everyday size, in exponent form when Display would print
+/// hundreds of digits (1e308 has 309).
+fn shown(x: f64) -> String {
+    if !x.is_finite() || x == 0.0 {
+        return format!("{x}");
+    }
+    let rounded: f64 = format!("{x:.6e}").parse().unwrap_or(x);
+    if (1e-4..1e6).contains(&rounded.abs()) {
+        format!("{rounded}")
+    } else {
+        format!("{rounded:e}")
+    }
+}
 
 /// A Modbus TCP server to poll.
 #[derive(Debug, Clone, PartialEq)]
@@ -100,6 +187,10 @@ pub struct Tank {
     pub density: DensityModel,
     /// How far the density may be from the truth, as a fraction (a bound).
     pub density_uncertainty: Uncertainty,
+    /// The level sensor's `max_rate_m_s`: the fastest the level can move,
+    /// m/s, when the site knows better than the limit acquisition works out
+    /// from the tank.
+    pub max_level_rate: Option<f64>,
 }
 
 /// A bound on an error, and whether the config states it or a default
@@ -255,10 +346,15 @@ pub struct Problem {
 
 impl fmt::Display for Problem {
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        // A message quotes what the file says; a control character there
+        // must not break the one-line-per-problem layout or reach a terminal.
         write!(
             f,
             "{}:{}:{}: {}",
-            self.file, self.line, self.column, self.message
+            crate::logging::one_line(&self.file),
+            self.line,
+            self.column,
+            crate::logging::one_line(&self.message)
         )
     }
 }
@@ -446,7 +542,7 @@ impl Checker {
                     ),
                 );
             }
-            if let Some(tank) = self.tank(t, &device_index, ambient) {
+            if let Some(tank) = self.tank(t, &device_index, &devices, ambient) {
                 tanks.push(tank);
             }
         }
@@ -469,10 +565,12 @@ impl Checker {
 
     fn web(&mut self, w: raw::RawWeb) -> Web {
         let default: SocketAddr = DEFAULT_WEB_LISTEN.parse().expect("a valid default");
+        let hosts = self.web_hosts(&w.hosts);
         let Some(listen) = w.listen else {
             return Web {
                 listen: default,
                 allow_remote: w.allow_remote,
+                hosts,
             };
         };
         let text = listen.get_ref().trim();
@@ -495,11 +593,13 @@ impl Checker {
             return Web {
                 listen: default,
                 allow_remote: w.allow_remote,
+                hosts,
             };
         };
         let web = Web {
             listen: addr,
             allow_remote: w.allow_remote,
+            hosts,
         };
         if web.is_remote() && !web.allow_remote {
             self.problem(
@@ -511,6 +611,26 @@ impl Checker {
             );
         }
         web
+    }
+
+    /// The `[web] hosts` names, checked: a browser sends them as the
+    /// `Host` header, so anything else (a URL, a path, a space) would never
+    /// match and is a mistake to say now rather than a page refused later.
+    fn web_hosts(&mut self, hosts: &[Spanned<String>]) -> Vec<HostName> {
+        let mut out = Vec::new();
+        for h in hosts {
+            match HostName::parse(h.get_ref()) {
+                Some((name, port)) => out.push(HostName { name, port }),
+                None => self.problem(
+                    h.span(),
+                    format!(
+                        "web hosts entry {:?} is not a host name; give names as a browser sends them, such as \"responders.site.example\", \"10.0.0.5:8470\" or \"[fd00::5]:8470\", without http:// or a path",
+                        h.get_ref()
+                    ),
+                ),
+            }
+        }
+        out
     }
 
     fn device(&mut self, d: &raw::RawDevice) -> Option<Device> {
@@ -577,6 +697,7 @@ impl Checker {
         &mut self,
         t: RawTank,
         devices: &HashMap<String, usize>,
+        device_list: &[Device],
         ambient: AbsolutePressure,
     ) -> Option<Tank> {
         let id = t.id.get_ref().trim().to_owned();
@@ -620,22 +741,34 @@ impl Checker {
         let mut reportable = Vec::new();
         for q in &t.substance.reportable_kg {
             let kg = *q.get_ref();
-            if kg.is_finite() && kg > 0.0 {
+            if kg.is_finite() && kg > 0.0 && kg <= MAX_REPORTABLE_KG {
                 reportable.push(Mass::kilograms(kg));
             } else {
                 self.problem(
                     q.span(),
-                    format!("{ctx}: reportable quantity {kg} kg must be a positive number of kg"),
+                    format!(
+                        "{ctx}: reportable quantity {} kg must be a positive number of kg, at most {} (a million tonnes)",
+                        shown(kg),
+                        shown(MAX_REPORTABLE_KG)
+                    ),
                 );
             }
         }
         reportable.sort_by(|a, b| a.si().total_cmp(&b.si()));
 
         let assumed_headspace = match &t.headspace_kpa {
-            Some(kpa) if !kpa.get_ref().is_finite() || kpa.get_ref().abs() > 10_000.0 => {
+            Some(kpa)
+                if !kpa.get_ref().is_finite()
+                    || kpa.get_ref().abs() > 10_000.0
+                    || *kpa.get_ref() * 1000.0 < -ambient.si() =>
+            {
                 self.problem(
                     kpa.span(),
-                    format!("{ctx}: headspace_kpa = {} is not a plausible gauge pressure; give kPa above ambient (0 for an open vent)", kpa.get_ref()),
+                    format!(
+                        "{ctx}: headspace_kpa = {} is not a plausible gauge pressure; give kPa above ambient, from {:.3} (a full vacuum) to 10000 (0 for an open vent)",
+                        shown(*kpa.get_ref()),
+                        -ambient.si() / 1000.0
+                    ),
                 );
                 Pressure::ZERO
             }
@@ -709,6 +842,37 @@ impl Checker {
                 stated: false,
             }),
         };
+        if let (Some(level), Some(height)) = (&level, height) {
+            self.level_inside_tank(&t.level, level, &ctx, height);
+        }
+        if let Some(transfer) = &transfer {
+            let (lo, hi) = transfer.valid_si;
+            let top = crate::track::estimator::MAX_UNMETERED_TRANSFER_M3_S;
+            if lo.abs().max(hi.abs()) > top {
+                let span = t.transfer.as_ref().map_or(0..0, |s| s.range.span());
+                self.problem(
+                    span,
+                    format!(
+                        "{ctx} transfer: range reaches {} m³/s, past any pump or pipeline ({top} m³/s is {} m³/h); check the range and its unit",
+                        shown(lo.abs().max(hi.abs())),
+                        top * 3600.0
+                    ),
+                );
+            }
+        }
+        let max_level_rate = self.max_level_rate(&t, &ctx);
+        if let Some(d) = device {
+            let sensors = [
+                ("level", Some(&t.level)),
+                ("pressure", t.pressure.as_ref()),
+                ("transfer", t.transfer.as_ref()),
+            ];
+            for (name, s) in sensors {
+                if let Some(s) = s {
+                    self.stuck_after_poll(s, &ctx, name, &device_list[d]);
+                }
+            }
+        }
         let spans = [
             (Role::Level, Some(t.level.address.span())),
             (
@@ -753,6 +917,7 @@ impl Checker {
             leak_flag,
             density: density_model,
             density_uncertainty: density_uncertainty?,
+            max_level_rate,
         })
     }
 
@@ -812,52 +977,257 @@ impl Checker {
         }
     }
 
-    fn geometry(&mut self, g: &Spanned<RawGeometry>, ctx: &str) -> Option<Geometry> {
-        let m = Length::metres;
-        let result = match g.get_ref() {
-            RawGeometry::VerticalCylinder {
-                diameter_m,
-                height_m,
-            } => Geometry::vertical_cylinder(m(*diameter_m), m(*height_m)),
-            RawGeometry::HorizontalCylinder {
-                diameter_m,
-                length_m,
-                heads,
-                head_depth_m,
-            } => {
-                let heads = match (heads, head_depth_m) {
-                    (RawHeads::Flat, None) => Heads::Flat,
-                    (RawHeads::Hemispherical, None) => Heads::Ellipsoidal {
-                        depth: m(diameter_m / 2.0),
-                    },
-                    (RawHeads::Ellipsoidal, Some(depth)) => Heads::Ellipsoidal { depth: m(*depth) },
-                    (RawHeads::Ellipsoidal, None) => {
-                        self.problem(
-                            g.span(),
-                            format!("{ctx}: ellipsoidal heads need head_depth_m (a quarter of the diameter for 2:1 heads)"),
-                        );
-                        return None;
-                    }
-                    (_, Some(_)) => {
-                        self.problem(
-                            g.span(),
-                            format!("{ctx}: head_depth_m applies only to heads = \"ellipsoidal\"; remove it or change the heads"),
-                        );
-                        return None;
-                    }
-                };
-                Geometry::horizontal_cylinder(m(*diameter_m), m(*length_m), heads)
+    /// A level sensor's range must describe this tank: a span far past its
+    /// top, or one that misses it, is a unit or scaling slip (mm taken for
+    /// m, or a transmitter's factory range). Up to twice the tank's height
+    /// is allowed, since a gauge is often ranged past the tank it sits on.
+    fn level_inside_tank(&mut self, raw: &RawSensor, level: &Sensor, ctx: &str, height: f64) {
+        let (lo, hi) = level.valid_si;
+        let unit = &level.unit;
+        let in_unit = |m: f64| shown(m / level.si_per_unit);
+        if hi > 2.0 * height + 0.1 {
+            self.problem(
+                raw.range.span(),
+                format!(
+                    "{ctx} level: range reaches {} m, but the tank is only {} m tall; give the transmitter's span in {unit} (for this tank at most [{}, {}]), or check the unit",
+                    shown(hi),
+                    shown(height),
+                    in_unit(lo.max(0.0)),
+                    in_unit(height)
+                ),
+            );
+        } else if lo < -height || lo >= height || hi <= 0.0 {
+            self.problem(
+                raw.range.span(),
+                format!(
+                    "{ctx} level: range {} to {} m does not cover the tank, which is {} m tall; levels are measured up from the tank's lowest inside point, so a range such as [0, {}] {unit} is expected",
+                    shown(lo),
+                    shown(hi),
+                    shown(height),
+                    in_unit(height)
+                ),
+            );
+        }
+    }
+
+    /// `max_rate_m_s`, which only the level takes.
+    fn max_level_rate(&mut self, t: &RawTank, ctx: &str) -> Option<f64> {
+        for (name, s) in [
+            ("pressure", t.pressure.as_ref()),
+            ("transfer", t.transfer.as_ref()),
+        ] {
+            if let Some(rate) = s.and_then(|s| s.max_rate_m_s.as_ref()) {
+                self.problem(
+                    rate.span(),
+                    format!(
+                        "{ctx} {name}: max_rate_m_s applies only to the level sensor; remove it"
+                    ),
+                );
             }
-            RawGeometry::Sphere { diameter_m } => Geometry::sphere(m(*diameter_m)),
-            RawGeometry::Table { points } => {
-                let points: Vec<(Length, Volume)> = points
-                    .iter()
-                    .map(|&(h, v)| (m(h), Volume::cubic_metres(v)))
-                    .collect();
-                Geometry::calibration_table(&points)
+        }
+        let rate = t.level.max_rate_m_s.as_ref()?;
+        let v = *rate.get_ref();
+        if v.is_finite() && v > 0.0 && v <= MAX_LEVEL_RATE_M_S {
+            Some(v)
+        } else {
+            self.problem(
+                rate.span(),
+                format!(
+                    "{ctx} level: max_rate_m_s = {} must be a level speed in m/s, above 0 and at most {MAX_LEVEL_RATE_M_S}; leave it out to use the limit worked out from the tank",
+                    shown(v)
+                ),
+            );
+            None
+        }
+    }
+
+    /// A stuck check shorter than two poll cycles would flag every reading
+    /// of a quiet tank: the value has no chance to change between polls.
+    fn stuck_after_poll(&mut self, s: &RawSensor, ctx: &str, name: &str, device: &Device) {
+        let Some(secs) = &s.stuck_after_s else { return };
+        let v = *secs.get_ref();
+        let two_cycles = 2.0 * device.poll_interval.as_secs_f64();
+        if v.is_finite() && v > 0.0 && v < two_cycles {
+            self.problem(
+                secs.span(),
+                format!(
+                    "{ctx} {name}: stuck_after_s = {} is shorter than two poll cycles of device \"{}\" ({} ms each), so a quiet reading would be flagged stuck; give at least {two_cycles} s (minutes suit most gauges)",
+                    shown(v),
+                    device.id,
+                    device.poll_interval.as_millis()
+                ),
+            );
+        }
+    }
+
+    fn geometry(&mut self, g: &Spanned<RawGeometry>, ctx: &str) -> Option<Geometry> {
+        let raw = g.get_ref();
+        let shape = *raw.shape.get_ref();
+        let name = shape.name();
+        let gctx = format!("{ctx} geometry");
+        let (required, optional) = shape.keys();
+        let present: [(&str, Option<Range<usize>>); 6] = [
+            ("diameter_m", raw.diameter_m.as_ref().map(Spanned::span)),
+            ("height_m", raw.height_m.as_ref().map(Spanned::span)),
+            ("length_m", raw.length_m.as_ref().map(Spanned::span)),
+            ("heads", raw.heads.as_ref().map(Spanned::span)),
+            ("head_depth_m", raw.head_depth_m.as_ref().map(Spanned::span)),
+            ("points", raw.points.as_ref().map(Spanned::span)),
+        ];
+        let mut ok = true;
+        for (key, span) in present {
+            match span {
+                Some(span) if !required.contains(&key) && !optional.contains(&key) => {
+                    let takes: Vec<&str> = required.iter().chain(optional).copied().collect();
+                    self.problem(
+                        span,
+                        format!(
+                            "{gctx}: {key} does not apply to shape \"{name}\", which takes: {}; remove it",
+                            takes.join(", ")
+                        ),
+                    );
+                    ok = false;
+                }
+                None if required.contains(&key) => {
+                    self.problem(
+                        raw.shape.span(),
+                        format!("{gctx}: shape \"{name}\" needs {key}; add it (config/reference.toml shows each shape)"),
+                    );
+                    ok = false;
+                }
+                _ => {}
+            }
+        }
+        let m = Length::metres;
+        let mut dimension = |value: &Option<Spanned<f64>>, what: &str, (lo, hi): (f64, f64)| {
+            let v = value.as_ref()?;
+            let x = *v.get_ref();
+            if x.is_finite() && (lo..=hi).contains(&x) {
+                Some(x)
+            } else {
+                self.problem(
+                    v.span(),
+                    format!(
+                        "{gctx}: {what} = {} m is outside the plausible {lo} to {hi} m; give it in metres (a {what} in mm would be 1000 times too large)",
+                        shown(x)
+                    ),
+                );
+                ok = false;
+                None
             }
         };
-        self.model(g.span(), &format!("{ctx} geometry"), result)
+        let result = match shape {
+            RawShape::VerticalCylinder => {
+                let d = dimension(&raw.diameter_m, "diameter_m", VERTICAL_DIAMETER_M);
+                let h = dimension(&raw.height_m, "height_m", TANK_HEIGHT_M);
+                Geometry::vertical_cylinder(m(d?), m(h?))
+            }
+            RawShape::HorizontalCylinder => {
+                let d = dimension(&raw.diameter_m, "diameter_m", HORIZONTAL_DIAMETER_M);
+                let l = dimension(&raw.length_m, "length_m", HORIZONTAL_LENGTH_M);
+                let depth = dimension(&raw.head_depth_m, "head_depth_m", HEAD_DEPTH_M);
+                let heads = raw.heads.as_ref().map_or(RawHeads::Flat, |h| *h.get_ref());
+                let (d, l) = (d?, l?);
+                let heads = match (heads, depth, &raw.head_depth_m) {
+                    (_, None, Some(_)) => return None, // said above
+                    (RawHeads::Flat, None, None) => Heads::Flat,
+                    (RawHeads::Hemispherical, None, None) => {
+                        Heads::Ellipsoidal { depth: m(d / 2.0) }
+                    }
+                    (RawHeads::Ellipsoidal, Some(depth), _) => {
+                        Heads::Ellipsoidal { depth: m(depth) }
+                    }
+                    (RawHeads::Ellipsoidal, None, None) => {
+                        self.problem(
+                            raw.heads.as_ref().map_or(g.span(), Spanned::span),
+                            format!("{gctx}: ellipsoidal heads need head_depth_m (a quarter of the diameter for 2:1 heads)"),
+                        );
+                        return None;
+                    }
+                    (_, Some(_), Some(span)) => {
+                        self.problem(
+                            span.span(),
+                            format!("{gctx}: head_depth_m applies only to heads = \"ellipsoidal\"; remove it or change the heads"),
+                        );
+                        return None;
+                    }
+                    (_, Some(_), None) => return None, // cannot happen: a depth has its key
+                };
+                Geometry::horizontal_cylinder(m(d), m(l), heads)
+            }
+            RawShape::Sphere => {
+                let d = dimension(&raw.diameter_m, "diameter_m", SPHERE_DIAMETER_M);
+                Geometry::sphere(m(d?))
+            }
+            RawShape::Table => {
+                let points = self.table_points(raw.points.as_ref()?, &gctx)?;
+                let located = raw.points.as_ref().map_or(g.span(), Spanned::span);
+                return self.model(located, &gctx, Geometry::calibration_table(&points));
+            }
+        };
+        if !ok {
+            return None;
+        }
+        self.model(g.span(), &gctx, result)
+    }
+
+    /// A strapping table's points: each exactly [level_m, volume_m3], both
+    /// within what a tank can be; the model checks the order.
+    fn table_points(
+        &mut self,
+        points: &Spanned<Vec<Spanned<Vec<f64>>>>,
+        gctx: &str,
+    ) -> Option<Vec<(Length, Volume)>> {
+        if points.get_ref().len() > MAX_TABLE_POINTS {
+            self.problem(
+                points.span(),
+                format!(
+                    "{gctx}: the table has {} points; at most {MAX_TABLE_POINTS} are read (thin it: the volume is interpolated linearly between points)",
+                    points.get_ref().len()
+                ),
+            );
+            return None;
+        }
+        let mut out = Vec::with_capacity(points.get_ref().len());
+        let mut ok = true;
+        for (i, point) in points.get_ref().iter().enumerate() {
+            let n = i + 1;
+            let &[h, v] = point.get_ref().as_slice() else {
+                self.problem(
+                    point.span(),
+                    format!(
+                        "{gctx}: point {n} has {} number(s); each point is two, [level_m, volume_m3]",
+                        point.get_ref().len()
+                    ),
+                );
+                ok = false;
+                continue;
+            };
+            let (h_lo, h_hi) = (0.0, TANK_HEIGHT_M.1);
+            if !(h.is_finite() && (h_lo..=h_hi).contains(&h)) {
+                self.problem(
+                    point.span(),
+                    format!(
+                        "{gctx}: point {n} has level {} m, outside the plausible {h_lo} to {h_hi} m; give levels in metres above the tank's lowest point",
+                        shown(h)
+                    ),
+                );
+                ok = false;
+            }
+            if !(v.is_finite() && (0.0..=MAX_TABLE_VOLUME_M3).contains(&v)) {
+                self.problem(
+                    point.span(),
+                    format!(
+                        "{gctx}: point {n} has volume {} m³, outside the plausible 0 to {} m³; give volumes in cubic metres (litres would be 1000 times too large)",
+                        shown(v),
+                        shown(MAX_TABLE_VOLUME_M3)
+                    ),
+                );
+                ok = false;
+            }
+            out.push((Length::metres(h), Volume::cubic_metres(v)));
+        }
+        ok.then_some(out)
     }
 
     fn sensor(
@@ -896,42 +1266,63 @@ impl Checker {
                 None
             }
         };
-        let (e0, e1) = *s.range.get_ref();
-        if !(e0.is_finite() && e1.is_finite() && e1 > e0) {
-            self.problem(
-                s.range.span(),
-                format!("{ctx}: range = [{e0}, {e1}] must be two finite numbers, low then high"),
-            );
-        }
-        let raw_span = match &s.raw {
-            Some(raw) => {
-                let (r0, r1) = *raw.get_ref();
-                if !(r0.is_finite() && r1.is_finite() && r0 != r1) {
-                    self.problem(
-                        raw.span(),
-                        format!("{ctx}: raw = [{r0}, {r1}] must be two different finite numbers"),
-                    );
-                }
-                (r0, r1)
-            }
-            // Unscaled: the register holds the engineering value itself.
-            None => (e0, e1),
-        };
         let stuck_after = match &s.stuck_after_s {
-            Some(secs) if secs.get_ref().is_finite() && *secs.get_ref() > 0.0 => {
+            Some(secs) if (f64::MIN_POSITIVE..=MAX_STUCK_AFTER_S).contains(secs.get_ref()) => {
                 Some(Duration::from_secs_f64(*secs.get_ref()))
             }
             Some(secs) => {
                 self.problem(
                     secs.span(),
                     format!(
-                        "{ctx}: stuck_after_s = {} must be a positive number of seconds",
-                        secs.get_ref()
+                        "{ctx}: stuck_after_s = {} must be a positive number of seconds, at most {MAX_STUCK_AFTER_S} (a week)",
+                        shown(*secs.get_ref())
                     ),
                 );
                 None
             }
             None => None,
+        };
+        let (e0, e1) = self.pair(&s.range, ctx, "range", "low then high")?;
+        if !(e0.is_finite() && e1.is_finite() && e1 > e0) {
+            self.problem(
+                s.range.span(),
+                format!(
+                    "{ctx}: range = [{}, {}] must be two finite numbers, low then high",
+                    shown(e0),
+                    shown(e1)
+                ),
+            );
+        }
+        let raw_span = match &s.raw {
+            Some(raw) => {
+                let (r0, r1) = self.pair(
+                    raw,
+                    ctx,
+                    "raw",
+                    "the raw values at the low and high ends of range",
+                )?;
+                if !(r0.is_finite() && r1.is_finite() && r0 != r1) {
+                    self.problem(
+                        raw.span(),
+                        format!(
+                            "{ctx}: raw = [{}, {}] must be two different finite numbers",
+                            shown(r0),
+                            shown(r1)
+                        ),
+                    );
+                } else {
+                    self.raw_fits(raw.span(), ctx, data_type, (r0, r1), "raw");
+                }
+                (r0, r1)
+            }
+            // Unscaled: the register holds the engineering value itself, so
+            // the range is what the register must be able to hold.
+            None => {
+                if e0.is_finite() && e1.is_finite() {
+                    self.raw_fits(s.range.span(), ctx, data_type, (e0, e1), "range");
+                }
+                (e0, e1)
+            }
         };
         let unit = unit?;
         let si_per_unit = unit.si_factor(density);
@@ -952,6 +1343,75 @@ impl Checker {
             stuck_after,
             accuracy,
         })
+    }
+
+    /// A two-number array such as `range` or `raw`: exactly two, since a
+    /// third is a mistake worth saying (perhaps a missing key) rather than
+    /// a number to drop.
+    fn pair(
+        &mut self,
+        value: &Spanned<Vec<f64>>,
+        ctx: &str,
+        key: &str,
+        meaning: &str,
+    ) -> Option<(f64, f64)> {
+        match value.get_ref().as_slice() {
+            &[a, b] => Some((a, b)),
+            other => {
+                let listed: Vec<String> = other.iter().map(|&x| shown(x)).collect();
+                self.problem(
+                    value.span(),
+                    format!(
+                        "{ctx}: {key} = [{}] has {} number(s); give exactly two, {meaning}",
+                        listed.join(", "),
+                        other.len()
+                    ),
+                );
+                None
+            }
+        }
+    }
+
+    /// Raw values must be ones the register type can hold: a u16 cannot
+    /// read 70000, nor an unsigned type a negative count.
+    fn raw_fits(
+        &mut self,
+        span: Range<usize>,
+        ctx: &str,
+        data_type: DataType,
+        (r0, r1): (f64, f64),
+        key: &str,
+    ) {
+        let (lo, hi, name) = match data_type {
+            DataType::U16 => (0.0, f64::from(u16::MAX), "u16"),
+            DataType::I16 => (f64::from(i16::MIN), f64::from(i16::MAX), "i16"),
+            DataType::U32 => (0.0, f64::from(u32::MAX), "u32"),
+            DataType::I32 => (f64::from(i32::MIN), f64::from(i32::MAX), "i32"),
+            DataType::F32 => (-f64::from(f32::MAX), f64::from(f32::MAX), "f32"),
+        };
+        // The integer limits exactly, as a datasheet gives them.
+        let limit = |x: f64| match data_type {
+            DataType::F32 => shown(x),
+            _ => format!("{x}"),
+        };
+        if r0.min(r1) < lo || r0.max(r1) > hi {
+            let fix = if key == "range" {
+                "add raw = [low, high] with the register's own values, or pick a type that holds these values"
+            } else {
+                "give the register's values at the ends of range, or pick a type that holds them"
+            };
+            self.problem(
+                span,
+                format!(
+                    "{ctx}: {key} = [{}, {}] does not fit a {name} register, which holds {} to {}{}; {fix}",
+                    shown(r0),
+                    shown(r1),
+                    limit(lo),
+                    limit(hi),
+                    if key == "range" { " (without raw, the register holds the range's values themselves)" } else { "" }
+                ),
+            );
+        }
     }
 
     fn pressure_sensor(
@@ -991,6 +1451,34 @@ impl Checker {
             }
         };
         let sensor = self.sensor(s, &pctx, Quantity::Pressure, density)?;
+        let (lo, hi) = sensor.valid_si;
+        let kpa = |pa: f64| shown(pa / 1000.0);
+        if lo.abs().max(hi.abs()) > MAX_PRESSURE_PA {
+            self.problem(
+                s.range.span(),
+                format!(
+                    "{pctx}: range reaches {} kPa, past any tank ({} kPa, 1000 bar); check the range and its unit",
+                    kpa(lo.abs().max(hi.abs())),
+                    kpa(MAX_PRESSURE_PA)
+                ),
+            );
+        } else if absolute && lo < 0.0 {
+            self.problem(
+                s.range.span(),
+                format!(
+                    "{pctx}: range starts at {} kPa, but an absolute transmitter reads from a full vacuum (0) up; start the range at 0 or above, or say reference = \"gauge\" if it reads relative to ambient",
+                    kpa(lo)
+                ),
+            );
+        } else if !absolute && lo < -crate::model::vessel::AMBIENT_RANGE.1 {
+            self.problem(
+                s.range.span(),
+                format!(
+                    "{pctx}: range starts at {} kPa gauge, below a full vacuum (about -101 kPa); check the range, or say reference = \"absolute\" if it reads from a vacuum",
+                    kpa(lo)
+                ),
+            );
+        }
         Some(PressureSensor {
             sensor,
             absolute,
@@ -1334,7 +1822,7 @@ level = { register = "input", address = 0, type = "u16", raw = [4000, 20000], ra
             (
                 "\"vertical_cylinder\", diameter_m = 3.0, height_m = 5.0",
                 "\"table\", points = [[0.0, 0.0], [1.0, 5.0], [2.0, 4.0]]",
-                "9:12: tank \"T1\" geometry: the calibration table is not increasing at point 2",
+                "9:40: tank \"T1\" geometry: the calibration table is not increasing at point 2",
             ),
             (
                 "unit = \"m\"",
@@ -1349,7 +1837,127 @@ level = { register = "input", address = 0, type = "u16", raw = [4000, 20000], ra
             (
                 "diameter_m = 3.0",
                 "diameter_m = -3.0",
-                "9:12: tank \"T1\" geometry: tank diameter must be greater than zero",
+                "9:56: tank \"T1\" geometry: diameter_m = -3 m is outside the plausible 0.05 to 200 m; give it in metres",
+            ),
+            // Absurd sizes, either way, at the key that says them.
+            (
+                "diameter_m = 3.0",
+                "diameter_m = 1e308",
+                "9:56: tank \"T1\" geometry: diameter_m = 1e308 m is outside the plausible 0.05 to 200 m",
+            ),
+            (
+                "diameter_m = 3.0",
+                "diameter_m = 1e-300",
+                "9:56: tank \"T1\" geometry: diameter_m = 1e-300 m is outside the plausible 0.05 to 200 m",
+            ),
+            (
+                "height_m = 5.0",
+                "height_m = 5000.0",
+                "9:72: tank \"T1\" geometry: height_m = 5000 m is outside the plausible 0.05 to 100 m; give it in metres (a height_m in mm would be 1000 times too large)",
+            ),
+            (
+                "\"vertical_cylinder\", diameter_m = 3.0, height_m = 5.0",
+                "\"sphere\", diameter_m = 3.0, height_m = 5.0",
+                "9:61: tank \"T1\" geometry: height_m does not apply to shape \"sphere\", which takes: diameter_m; remove it",
+            ),
+            (
+                "diameter_m = 3.0, height_m = 5.0",
+                "diameter_m = 3.0",
+                "9:22: tank \"T1\" geometry: shape \"vertical_cylinder\" needs height_m; add it",
+            ),
+            (
+                "\"vertical_cylinder\", diameter_m = 3.0, height_m = 5.0",
+                "\"horizontal_cylinder\", diameter_m = 2.0, length_m = 6.0, heads = \"flat\", head_depth_m = 0.5",
+                "9:110: tank \"T1\" geometry: head_depth_m applies only to heads = \"ellipsoidal\"",
+            ),
+            (
+                "\"vertical_cylinder\", diameter_m = 3.0, height_m = 5.0",
+                "\"table\", points = [[0.0, 0.0], [1.0, 5.0, 7.0], [2.0, 9.0]]",
+                "9:53: tank \"T1\" geometry: point 2 has 3 number(s); each point is two, [level_m, volume_m3]",
+            ),
+            (
+                "\"vertical_cylinder\", diameter_m = 3.0, height_m = 5.0",
+                "\"table\", points = [[0.0, 0.0], [1.0, 5e9]]",
+                "9:53: tank \"T1\" geometry: point 2 has volume 5e9 m³, outside the plausible 0 to 3.2e6 m³",
+            ),
+            // Arrays of the wrong length, at the array.
+            (
+                "range = [0.0, 5.0]",
+                "range = [0, 5, 7]",
+                "11:87: tank \"T1\" level: range = [0, 5, 7] has 3 number(s); give exactly two, low then high",
+            ),
+            (
+                "raw = [4000, 20000]",
+                "raw = [4000]",
+                "11:64: tank \"T1\" level: raw = [4000] has 1 number(s); give exactly two",
+            ),
+            // Raw spans the register type cannot hold.
+            (
+                "raw = [4000, 20000]",
+                "raw = [4000, 70000]",
+                "11:64: tank \"T1\" level: raw = [4000, 70000] does not fit a u16 register, which holds 0 to 65535",
+            ),
+            (
+                "type = \"u16\", raw = [4000, 20000]",
+                "type = \"i16\", raw = [-40000, 20000]",
+                "11:64: tank \"T1\" level: raw = [-40000, 20000] does not fit a i16 register, which holds -32768 to 32767",
+            ),
+            (
+                "type = \"u16\", raw = [4000, 20000]",
+                "type = \"u32\", raw = [-1, 20000]",
+                "11:64: tank \"T1\" level: raw = [-1, 20000] does not fit a u32 register, which holds 0 to 4294967295",
+            ),
+            (
+                "raw = [4000, 20000], range = [0.0, 5.0], unit = \"m\"",
+                "range = [-10.0, 5000.0], unit = \"mm\"",
+                "11:66: tank \"T1\" level: range = [-10, 5000] does not fit a u16 register, which holds 0 to 65535 (without raw, the register holds the range's values themselves); add raw",
+            ),
+            // A level range that does not describe the tank.
+            (
+                "range = [0.0, 5.0]",
+                "range = [0.0, 50.0]",
+                "11:87: tank \"T1\" level: range reaches 50 m, but the tank is only 5 m tall; give the transmitter's span in m (for this tank at most [0, 5]), or check the unit",
+            ),
+            (
+                "range = [0.0, 5.0]",
+                "range = [6.0, 9.0]",
+                "11:87: tank \"T1\" level: range 6 to 9 m does not cover the tank, which is 5 m tall",
+            ),
+            // Pressure and transfer ranges past any tank.
+            (
+                "height_m = 5.0 }",
+                "height_m = 5.0 }\npressure = { register = \"input\", address = 5, type = \"f32\", range = [0.0, 5e6], unit = \"kPa\", reference = \"gauge\" }",
+                "10:69: tank \"T1\" pressure: range reaches 5e6 kPa, past any tank (100000 kPa, 1000 bar)",
+            ),
+            (
+                "height_m = 5.0 }",
+                "height_m = 5.0 }\npressure = { register = \"input\", address = 5, type = \"f32\", range = [-100.0, 300.0], unit = \"kPa\", reference = \"absolute\" }",
+                "10:69: tank \"T1\" pressure: range starts at -100 kPa, but an absolute transmitter reads from a full vacuum (0) up",
+            ),
+            (
+                "height_m = 5.0 }",
+                "height_m = 5.0 }\ntransfer = { register = \"input\", address = 5, type = \"f32\", range = [-1e6, 1e6], unit = \"m3/h\" }",
+                "10:69: tank \"T1\" transfer: range reaches 277.7778 m³/s, past any pump or pipeline (100 m³/s is 360000 m³/h)",
+            ),
+            (
+                "height_m = 5.0 }",
+                "height_m = 5.0 }\nheadspace_kpa = -500.0",
+                "10:17: tank \"T1\": headspace_kpa = -500 is not a plausible gauge pressure; give kPa above ambient, from -101.325 (a full vacuum)",
+            ),
+            (
+                "unit = \"m\" }",
+                "unit = \"m\", stuck_after_s = 1.5 }",
+                "11:127: tank \"T1\" level: stuck_after_s = 1.5 is shorter than two poll cycles of device \"d1\" (1000 ms each)",
+            ),
+            (
+                "unit = \"m\" }",
+                "unit = \"m\", max_rate_m_s = 0.0 }",
+                "11:126: tank \"T1\" level: max_rate_m_s = 0 must be a level speed in m/s, above 0 and at most 10",
+            ),
+            (
+                "density_kg_m3 = 840.0",
+                "density_kg_m3 = 840.0, reportable_kg = [5e12]",
+                "10:72: tank \"T1\": reportable quantity 5e12 kg must be a positive number of kg, at most 1e9",
             ),
             (
                 "raw = [4000, 20000], ",
@@ -1357,17 +1965,20 @@ level = { register = "input", address = 0, type = "u16", raw = [4000, 20000], ra
                 "11:71: tank \"T1\" level: word_order applies only to 32-bit types",
             ),
         ];
+        // Every case is tried before the test fails, so one run shows them all.
+        let mut wrong = Vec::new();
         for (from, to, expected) in cases {
             assert!(BASE.contains(from), "case edits {from:?}, not in BASE");
             let text = BASE.replacen(from, to, 1);
-            let err = parse(&text, Path::new("site.toml"))
-                .expect_err(expected)
-                .to_string();
-            assert!(
-                err.starts_with(&format!("site.toml:{expected}")),
-                "got:\n{err}\nexpected:\n{expected}"
-            );
+            match parse(&text, Path::new("site.toml")) {
+                Ok(_) => wrong.push(format!("accepted:\n{to}\nexpected:\n{expected}")),
+                Err(e) if !e.to_string().starts_with(&format!("site.toml:{expected}")) => {
+                    wrong.push(format!("got:\n{e}\nexpected:\n{expected}"))
+                }
+                Err(_) => {}
+            }
         }
+        assert!(wrong.is_empty(), "{}", wrong.join("\n\n"));
         assert!(parse(BASE, Path::new("site.toml")).is_ok());
     }
 
@@ -1415,7 +2026,11 @@ level = { register = "input", address = 0, type = "u16", raw = [4000, 20000], ra
             ),
             (
                 "[web]\nlisten = \"127.0.0.1:8470\"\nport = 8470\n",
-                "14:1: unknown field `port`, expected `listen` or `allow_remote`; check the spelling against config/reference.toml",
+                "14:1: unknown field `port`, expected one of `listen`, `allow_remote`, `hosts`; check the spelling against config/reference.toml",
+            ),
+            (
+                "[web]\nhosts = [\"responders.site.example\", \"http://10.0.0.5:8470/\"]\n",
+                "13:37: web hosts entry \"http://10.0.0.5:8470/\" is not a host name; give names as a browser sends them",
             ),
         ];
         for (web, expected) in cases {

@@ -29,6 +29,11 @@ pub struct RawWeb {
     /// The explicit opt-in for an address other machines can reach.
     #[serde(default)]
     pub allow_remote: bool,
+    /// More names the page answers to in the `Host` header (a DNS name,
+    /// a LAN address, the name a reverse proxy forwards), each with an
+    /// optional `:port`.
+    #[serde(default)]
+    pub hosts: Vec<Spanned<String>>,
 }
 
 #[derive(Debug, Deserialize)]
@@ -90,27 +95,59 @@ pub struct RawTank {
     pub leak_flag: Option<RawFlag>,
 }
 
+/// A tank's shape and its dimensions. One flat table rather than an enum
+/// tagged by `shape`: serde buffers a tagged enum's content, which loses the
+/// spans, and every dimension needs its own line and column when it is out
+/// of range. Validation checks which keys the shape takes.
 #[derive(Debug, Deserialize)]
-#[serde(deny_unknown_fields, tag = "shape", rename_all = "snake_case")]
-pub enum RawGeometry {
-    VerticalCylinder {
-        diameter_m: f64,
-        height_m: f64,
-    },
-    HorizontalCylinder {
-        diameter_m: f64,
-        length_m: f64,
-        #[serde(default)]
-        heads: RawHeads,
-        head_depth_m: Option<f64>,
-    },
-    Sphere {
-        diameter_m: f64,
-    },
-    Table {
-        /// (level m, volume m³) pairs, from the tank's strapping table.
-        points: Vec<(f64, f64)>,
-    },
+#[serde(deny_unknown_fields)]
+pub struct RawGeometry {
+    pub shape: Spanned<RawShape>,
+    pub diameter_m: Option<Spanned<f64>>,
+    /// Vertical cylinder only.
+    pub height_m: Option<Spanned<f64>>,
+    /// Horizontal cylinder only: the straight shell.
+    pub length_m: Option<Spanned<f64>>,
+    /// Horizontal cylinder only.
+    pub heads: Option<Spanned<RawHeads>>,
+    /// Horizontal cylinder with ellipsoidal heads only.
+    pub head_depth_m: Option<Spanned<f64>>,
+    /// Table only: (level m, volume m³) pairs, from the tank's strapping
+    /// table; each pair is checked for its length.
+    pub points: Option<Spanned<Vec<Spanned<Vec<f64>>>>>,
+}
+
+#[derive(Debug, Clone, Copy, Deserialize, PartialEq, Eq)]
+#[serde(rename_all = "snake_case")]
+pub enum RawShape {
+    VerticalCylinder,
+    HorizontalCylinder,
+    Sphere,
+    Table,
+}
+
+impl RawShape {
+    pub fn name(self) -> &'static str {
+        match self {
+            RawShape::VerticalCylinder => "vertical_cylinder",
+            RawShape::HorizontalCylinder => "horizontal_cylinder",
+            RawShape::Sphere => "sphere",
+            RawShape::Table => "table",
+        }
+    }
+
+    /// The keys besides `shape` that the shape requires, and those it also
+    /// accepts.
+    pub fn keys(self) -> (&'static [&'static str], &'static [&'static str]) {
+        match self {
+            RawShape::VerticalCylinder => (&["diameter_m", "height_m"], &[]),
+            RawShape::HorizontalCylinder => {
+                (&["diameter_m", "length_m"], &["heads", "head_depth_m"])
+            }
+            RawShape::Sphere => (&["diameter_m"], &[]),
+            RawShape::Table => (&["points"], &[]),
+        }
+    }
 }
 
 #[derive(Debug, Default, Clone, Copy, Deserialize, PartialEq)]
@@ -164,13 +201,18 @@ pub struct RawSensor {
     pub data_type: Spanned<DataType>,
     pub word_order: Option<Spanned<WordOrder>>,
     /// Raw register range that maps linearly onto `range`, e.g. [4000, 20000].
-    pub raw: Option<Spanned<(f64, f64)>>,
+    /// A list rather than a pair: serde reads a pair from the first two
+    /// numbers and ignores any more, and a third number is a mistake to say.
+    pub raw: Option<Spanned<Vec<f64>>>,
     /// Engineering range, in `unit`: the scaled span, and the limits beyond
-    /// which a reading is flagged out of range.
-    pub range: Spanned<(f64, f64)>,
+    /// which a reading is flagged out of range. Two numbers, as `raw`.
+    pub range: Spanned<Vec<f64>>,
     pub unit: Spanned<String>,
     /// Seconds without any change after which a reading counts as stuck.
     pub stuck_after_s: Option<Spanned<f64>>,
+    /// Level only: the fastest the level can move, m/s, in place of the
+    /// limit worked out from the tank (see `acquire::plausible`).
+    pub max_rate_m_s: Option<Spanned<f64>>,
     /// Pressure only: what the transmitter's zero is.
     pub reference: Option<Spanned<RawPressureReference>>,
     /// Pressure only: elevation of the tap above the tank bottom, m; absent

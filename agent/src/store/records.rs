@@ -17,6 +17,7 @@ fn quality_name(q: Quality) -> &'static str {
         Quality::OutOfRange => "out_of_range",
         Quality::Stuck => "stuck",
         Quality::NotANumber => "not_a_number",
+        Quality::ImplausibleStep => "implausible_step",
     }
 }
 
@@ -28,6 +29,7 @@ fn quality_from(name: &str) -> StoreResult<Quality> {
         "out_of_range" => Quality::OutOfRange,
         "stuck" => Quality::Stuck,
         "not_a_number" => Quality::NotANumber,
+        "implausible_step" => Quality::ImplausibleStep,
         other => {
             return Err(StoreError::Corrupt(format!(
                 "unknown sample quality {other:?}"

@@ -1,7 +1,8 @@
 //! The responder view: a read-only HTTP server inside the daemon.
 //!
 //! Routes (GET and HEAD only; every other method gets 405 with an `Allow`
-//! header, on every path, so nothing can be changed over HTTP):
+//! header, on every path, so nothing can be changed over HTTP; and only for
+//! a `Host` the page answers to, see below):
 //!
 //! * `/`: the page for people, every open event ([`page`]).
 //! * `/api/status`: the `leaktally status --json` document, open events.
@@ -14,7 +15,17 @@
 //! Threads: handlers never touch the daemon's writer connection. Each
 //! request opens a short-lived read-only connection on the blocking pool
 //! (`spawn_blocking`), which WAL lets run beside the writer; a semaphore
-//! bounds how many run at once.
+//! bounds how many run at once. Connections are accepted by [`server`],
+//! with a bound on how many are open and timeouts for slow and silent
+//! peers, so that no neighbour can take the descriptors the pollers need.
+//!
+//! The `Host` check: a request is answered only if its `Host` names the
+//! page (the listen address or the address the connection came in on, with
+//! the listen port; `localhost` on loopback; a name in `[web] hosts`).
+//! Anything else gets 421. A web page elsewhere can point a name of its own
+//! at this machine (DNS rebinding) and then make a browser here send it
+//! requests that the browser thinks are same-origin; the `Host` header
+//! still carries that foreign name, so the JSON is never read that way.
 //!
 //! Left out: authentication and TLS. The page only reads, and it listens on
 //! loopback unless the config opts in to a reachable address
@@ -23,10 +34,11 @@
 pub mod chart;
 pub mod metrics;
 pub mod page;
+pub mod server;
 
 use crate::acquire::stats::Stats;
 use crate::commands::status;
-use crate::config::{Config, Web};
+use crate::config::{Config, HostName, Web};
 use crate::store::health::StoreHealth;
 use crate::store::{self, StoreError};
 use axum::Router;
@@ -37,8 +49,10 @@ use axum::middleware::{self, Next};
 use axum::response::{IntoResponse, Response};
 use axum::routing::get;
 use serde::Serialize;
+use std::collections::HashSet;
+use std::net::{IpAddr, SocketAddr};
 use std::path::PathBuf;
-use std::sync::Arc;
+use std::sync::{Arc, Mutex, OnceLock, PoisonError};
 use std::time::Duration;
 use tokio::net::TcpListener;
 use tokio::sync::Semaphore;
@@ -52,8 +66,9 @@ use tracing::{info, warn};
 const CONCURRENT_READS: usize = 4;
 /// How long a request waits for a read slot before it gets 503.
 const READ_QUEUE: Duration = Duration::from_secs(5);
-/// How long open connections get to finish once the daemon stops.
-const SHUTDOWN_GRACE: Duration = Duration::from_secs(2);
+/// Distinct foreign `Host` names logged; past this they are only counted,
+/// so a page that tries many names cannot fill the log.
+const HOSTS_LOGGED: usize = 16;
 
 /// The methods the server answers.
 const ALLOW: &str = "GET, HEAD";
@@ -82,6 +97,11 @@ pub struct Shared {
     pub started_ms: i64,
     /// Bounds the database reads in flight; see [`CONCURRENT_READS`].
     readers: Semaphore,
+    /// The address the server is bound to (its port, when the config says
+    /// 0), once serving; the config's listen address until then.
+    bound: OnceLock<SocketAddr>,
+    /// Foreign `Host` names already logged.
+    refused_hosts: Mutex<HashSet<String>>,
 }
 
 impl Shared {
@@ -99,14 +119,36 @@ impl Shared {
             health,
             started_ms,
             readers: Semaphore::new(CONCURRENT_READS),
+            bound: OnceLock::new(),
+            refused_hosts: Mutex::new(HashSet::new()),
         }
+    }
+
+    /// The address the page is served on: where it is bound, else the
+    /// configured one (for a router used without a server, as in tests).
+    fn listen(&self) -> SocketAddr {
+        self.bound.get().copied().unwrap_or_else(|| {
+            self.config.web.as_ref().map_or_else(
+                || {
+                    crate::config::DEFAULT_WEB_LISTEN
+                        .parse()
+                        .expect("a valid default")
+                },
+                |w| w.listen,
+            )
+        })
     }
 }
 
 /// Binds the configured address; the daemon calls this before anything
-/// else, so a port in use stops it at startup with a clear error.
+/// else, so a port in use stops it at startup with a clear error. It also
+/// raises the open-file limit ([`server::raise_open_file_limit`]), before
+/// any poller or database file is opened.
 pub async fn bind(web: &Web, config_path: &std::path::Path) -> anyhow::Result<TcpListener> {
-    let listener = TcpListener::bind(web.listen).await.map_err(|e| {
+    // Raised before any poller or database file is opened; `serve` says
+    // the limit with the connection limit it leads to.
+    server::raise_open_file_limit();
+    let listener = listen(web.listen).map_err(|e| {
         anyhow::anyhow!(
             "cannot serve the web page on {}: {e}; choose another [web] listen address in {} \
              (or stop whatever uses that port), or remove the [web] section",
@@ -125,30 +167,43 @@ pub async fn bind(web: &Web, config_path: &std::path::Path) -> anyhow::Result<Tc
     Ok(listener)
 }
 
+/// A listening socket with a queue of [`server::BACKLOG`] connections
+/// that the kernel has completed and the server not yet accepted: a burst
+/// of browsers (or a flood) waits there, bounded, costing the daemon no
+/// descriptor until it is accepted. Address reuse as tokio's own `bind`
+/// sets it, so a restart can bind at once.
+fn listen(addr: SocketAddr) -> std::io::Result<TcpListener> {
+    let socket = if addr.is_ipv4() {
+        tokio::net::TcpSocket::new_v4()?
+    } else {
+        tokio::net::TcpSocket::new_v6()?
+    };
+    socket.set_reuseaddr(true)?;
+    socket.bind(addr)?;
+    socket.listen(server::BACKLOG)
+}
+
 /// Serves until `cancel` fires, then lets open connections finish for a
 /// moment and returns.
 pub async fn serve(listener: TcpListener, shared: Arc<Shared>, cancel: CancellationToken) {
-    let stop = cancel.clone();
-    let server = axum::serve(listener, router(shared))
-        .with_graceful_shutdown(async move { stop.cancelled().await });
-    // Graceful shutdown waits for every connection; a browser that keeps
-    // one open must not hold up the daemon's own shutdown for long.
-    let grace = async {
-        cancel.cancelled().await;
-        tokio::time::sleep(SHUTDOWN_GRACE).await;
-    };
-    tokio::select! {
-        result = server.into_future() => {
-            if let Err(e) = result {
-                warn!("the web server stopped: {e}");
-            }
-        }
-        () = grace => warn!("web connections still open after {SHUTDOWN_GRACE:?}; closing them"),
+    if let Ok(bound) = listener.local_addr() {
+        let _ = shared.bound.set(bound);
     }
+    // The limit is already raised by `bind`; raising again only reads it.
+    let open_files = server::raise_open_file_limit();
+    let limit = server::connection_limit(open_files, shared.config.devices.len());
+    info!(
+        "web: at most {limit} connections at once (open-file limit {}); a request's head must come within {} s, and a connection that moves nothing for {} s is closed",
+        open_files.map_or("unknown".to_owned(), |n| n.to_string()),
+        server::HEADER_TIMEOUT.as_secs(),
+        server::STALL_TIMEOUT.as_secs()
+    );
+    server::serve(listener, router(shared), limit, cancel).await;
 }
 
 /// The routes, with the read-only guard around all of them.
 pub fn router(shared: Arc<Shared>) -> Router {
+    let guarded = Arc::clone(&shared);
     Router::new()
         .route("/", get(index))
         .route("/api/status", get(api_status))
@@ -160,13 +215,15 @@ pub fn router(shared: Arc<Shared>) -> Router {
         .route("/assets/icon.svg", get(icon))
         .fallback(not_found)
         .with_state(shared)
-        .layer(middleware::from_fn(read_only))
+        .layer(middleware::from_fn_with_state(guarded, read_only))
 }
 
-/// Refuses every method but GET and HEAD, before routing, and adds the
-/// headers every answer carries.
-async fn read_only(request: Request, next: Next) -> Response {
-    let mut response = if request.method() == Method::GET || request.method() == Method::HEAD {
+/// Refuses a foreign `Host` and every method but GET and HEAD, before
+/// routing, and adds the headers every answer carries.
+async fn read_only(State(shared): State<Arc<Shared>>, request: Request, next: Next) -> Response {
+    let mut response = if let Err(refusal) = host_check(&shared, &request) {
+        refusal
+    } else if request.method() == Method::GET || request.method() == Method::HEAD {
         next.run(request).await
     } else {
         let mut r = text(
@@ -193,6 +250,101 @@ async fn read_only(request: Request, next: Next) -> Response {
         .entry(header::CACHE_CONTROL)
         .or_insert(HeaderValue::from_static("no-store"));
     response
+}
+
+/// Answers `Err` with the refusal for a request whose `Host` does not name
+/// this page (see the module doc).
+#[allow(clippy::result_large_err)] // a refusal is the rare path
+fn host_check(shared: &Shared, request: &Request) -> Result<(), Response> {
+    // An absolute URI's authority stands for Host (RFC 9112, 3.2.2).
+    let host = match request.uri().authority() {
+        Some(authority) => Some(authority.as_str().to_owned()),
+        None => request
+            .headers()
+            .get(header::HOST)
+            .map(|v| String::from_utf8_lossy(v.as_bytes()).into_owned()),
+    };
+    let Some(host) = host else {
+        return Err(text(
+            StatusCode::BAD_REQUEST,
+            "the request has no Host header; HTTP/1.1 requires one (RFC 9112, 3.2)\n".into(),
+        ));
+    };
+    let local = request
+        .extensions()
+        .get::<server::ConnectedTo>()
+        .map(|c| c.0);
+    let listen = shared.listen();
+    let extra = shared.config.web.as_ref().map_or(&[][..], |w| &w.hosts[..]);
+    if host_allowed(&host, listen, local, extra) {
+        return Ok(());
+    }
+    let shown = crate::logging::one_line(&host).into_owned();
+    {
+        let mut logged = shared
+            .refused_hosts
+            .lock()
+            .unwrap_or_else(PoisonError::into_inner);
+        if logged.len() < HOSTS_LOGGED && logged.insert(shown.clone()) {
+            warn!(
+                "web: refused a request for Host {shown:?}, which is not a name of this page (a DNS-rebinding page, or a name to add to [web] hosts){}",
+                if logged.len() == HOSTS_LOGGED {
+                    "; further foreign names are not logged"
+                } else {
+                    ""
+                }
+            );
+        }
+    }
+    let mut names = vec![listen.to_string()];
+    if listen.ip().is_loopback() {
+        names.push(format!("localhost:{}", listen.port()));
+    }
+    names.extend(extra.iter().map(|h| match h.port {
+        Some(p) => format!("{}:{p}", h.name),
+        None => h.name.clone(),
+    }));
+    Err(text(
+        StatusCode::MISDIRECTED_REQUEST,
+        format!(
+            "this page answers only for {}, not for {shown:?}; if you reach it through that name, add it to [web] hosts in the site config (see config/reference.toml)\n",
+            names.join(", ")
+        ),
+    ))
+}
+
+/// Whether `host` (a `Host` header value) names the page served on
+/// `listen`, reached on `local`, or is one of `extra`.
+pub fn host_allowed(
+    host: &str,
+    listen: SocketAddr,
+    local: Option<SocketAddr>,
+    extra: &[HostName],
+) -> bool {
+    let Some((name, port)) = HostName::parse(host) else {
+        return false;
+    };
+    // No port in Host means the scheme's default, 80 for http.
+    let port = port.unwrap_or(80);
+    if extra
+        .iter()
+        .any(|h| h.name == name && h.port.is_none_or(|p| p == port))
+    {
+        return true;
+    }
+    if port != listen.port() {
+        return false;
+    }
+    let addresses: Vec<IpAddr> = [Some(listen.ip()), local.map(|l| l.ip())]
+        .into_iter()
+        .flatten()
+        .filter(|a| !a.is_unspecified())
+        .map(|a| a.to_canonical())
+        .collect();
+    match name.parse::<IpAddr>() {
+        Ok(ip) => addresses.contains(&ip.to_canonical()),
+        Err(_) => name == "localhost" && addresses.iter().any(IpAddr::is_loopback),
+    }
 }
 
 /// Why a request could not be answered.

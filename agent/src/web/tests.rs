@@ -101,15 +101,23 @@ fn fixture_with_health() -> (Scratch, Router, i64, Arc<StoreHealth>) {
 }
 
 async fn call(router: &Router, method: &str, uri: &str) -> (StatusCode, HeaderMap, String) {
+    call_for(router, Some("127.0.0.1:8470"), method, uri).await
+}
+
+/// As [`call`], with the `Host` header given (or none).
+async fn call_for(
+    router: &Router,
+    host: Option<&str>,
+    method: &str,
+    uri: &str,
+) -> (StatusCode, HeaderMap, String) {
+    let mut request = HttpRequest::builder().method(method).uri(uri);
+    if let Some(host) = host {
+        request = request.header(header::HOST, host);
+    }
     let response = router
         .clone()
-        .oneshot(
-            HttpRequest::builder()
-                .method(method)
-                .uri(uri)
-                .body(Body::empty())
-                .unwrap(),
-        )
+        .oneshot(request.body(Body::empty()).unwrap())
         .await
         .unwrap();
     let status = response.status();
@@ -310,4 +318,115 @@ async fn a_database_that_takes_no_writes_is_shown_on_the_page_and_in_the_metrics
         metrics.contains("\nleaktally_store_failed_commits_total 1\n"),
         "{metrics}"
     );
+}
+
+/// A request for a name that is not the page's (as a DNS-rebinding page
+/// makes a browser send) gets 421 and no data, on every path and method;
+/// the page's own names are answered.
+#[tokio::test]
+async fn a_foreign_host_is_refused_everywhere_and_the_page_names_are_answered() {
+    let (_scratch, router, id) = fixture();
+    let paths = [
+        "/".to_owned(),
+        "/api/status".to_owned(),
+        format!("/api/events/{id}"),
+        format!("/api/events/{id}/series"),
+        "/metrics".to_owned(),
+        "/assets/refresh.js".to_owned(),
+        "/nowhere".to_owned(),
+    ];
+    for host in [
+        "rebind.attacker.example:8470",
+        "rebind.attacker.example",
+        "127.0.0.1:8471",
+        "127.0.0.2:8470",
+        "localhost:9999",
+        "127.0.0.1:8470, evil.example",
+        "",
+    ] {
+        for path in &paths {
+            for method in ["GET", "HEAD", "POST"] {
+                let (status, headers, body) = call_for(&router, Some(host), method, path).await;
+                assert_eq!(
+                    status,
+                    StatusCode::MISDIRECTED_REQUEST,
+                    "{method} {path} for {host:?}"
+                );
+                assert!(!body.contains("released"), "{body}");
+                assert_eq!(headers[header::X_CONTENT_TYPE_OPTIONS], "nosniff");
+                if method == "GET" {
+                    assert!(
+                        body.contains("answers only for 127.0.0.1:8470, localhost:8470")
+                            && body.contains("[web] hosts"),
+                        "{body}"
+                    );
+                }
+            }
+        }
+    }
+    let (status, _, body) = call_for(&router, None, "GET", "/api/status").await;
+    assert_eq!(status, StatusCode::BAD_REQUEST, "{body}");
+    for host in ["127.0.0.1:8470", "localhost:8470", "LOCALHOST:8470"] {
+        let (status, _, body) = call_for(&router, Some(host), "GET", "/api/status").await;
+        assert_eq!(status, StatusCode::OK, "{host}: {body}");
+        assert!(body.contains("\"events\""), "{body}");
+    }
+    // An absolute URI's authority stands for Host.
+    let (status, _, _) = call_for(
+        &router,
+        Some("127.0.0.1:8470"),
+        "GET",
+        "http://evil.example:8470/api/status",
+    )
+    .await;
+    assert_eq!(status, StatusCode::MISDIRECTED_REQUEST);
+}
+
+#[test]
+fn host_names_are_matched_with_their_ports() {
+    use crate::config::HostName;
+    let extra = [
+        HostName {
+            name: "responders.site.example".into(),
+            port: None,
+        },
+        HostName {
+            name: "10.0.0.5".into(),
+            port: Some(8470),
+        },
+    ];
+    let loopback: SocketAddr = "127.0.0.1:8470".parse().unwrap();
+    let anywhere: SocketAddr = "0.0.0.0:8470".parse().unwrap();
+    let v6: SocketAddr = "[::1]:8470".parse().unwrap();
+    let lan: Option<SocketAddr> = Some("192.0.2.7:8470".parse().unwrap());
+    // (host, listen, connection's local address, allowed)
+    let cases: &[(&str, SocketAddr, Option<SocketAddr>, bool)] = &[
+        ("127.0.0.1:8470", loopback, None, true),
+        ("localhost:8470", loopback, None, true),
+        ("localhost", loopback, None, false),
+        ("127.0.0.1", loopback, None, false),
+        ("evil.example:8470", loopback, None, false),
+        ("responders.site.example", loopback, None, true),
+        ("Responders.Site.Example:443", loopback, None, true),
+        ("10.0.0.5:8470", anywhere, lan, true),
+        ("10.0.0.5:80", anywhere, lan, false),
+        // Listening everywhere: the address the request came in on.
+        ("192.0.2.7:8470", anywhere, lan, true),
+        ("192.0.2.8:8470", anywhere, lan, false),
+        ("0.0.0.0:8470", anywhere, lan, false),
+        ("localhost:8470", anywhere, lan, false),
+        ("[::1]:8470", v6, None, true),
+        ("localhost:8470", v6, None, true),
+        ("[::2]:8470", v6, None, false),
+        ("[::1", v6, None, false),
+        ("a b:8470", loopback, None, false),
+        ("127.0.0.1:8470/", loopback, None, false),
+    ];
+    for &(host, listen, local, allowed) in cases {
+        assert_eq!(
+            host_allowed(host, listen, local, &extra),
+            allowed,
+            "{host} on {listen} via {local:?}"
+        );
+    }
 }
