@@ -526,7 +526,8 @@ address = 15
 #[test]
 fn modbus_trouble_is_flagged_and_logged_once_per_change() {
     // The daemon reads FF-T14's pressure from holding 20, so that its one
-    // read of rtu-east's holding registers (10..21) spans unmapped 14..19;
+    // read of rtu-east's holding registers (10..21: FF-T14's level, temperature
+    // at 14 and pressure moved to 20) spans unmapped 15..19;
     // the simulator serves zeros there, and from 33 s refuses register 15.
     let plant = Plant::start_with("faults-modbus", MODBUS_TROUBLE, |site| {
         site.replacen("address = 12,", "address = 20,", 1)
@@ -602,7 +603,7 @@ fn modbus_trouble_is_flagged_and_logged_once_per_change() {
         vec![
             "rtu-east: function 03 holding registers 10..21",
             "exception 2 (illegal data address)",
-            "answers 2 of its 2 parts read alone",
+            "answers 3 of its 3 parts read alone",
             "reading the parts separately",
         ],
     ];
