@@ -1091,6 +1091,8 @@ impl Row {
 #[derive(Debug, Clone, Default)]
 struct Plausibility {
     pressure_rows: u64,
+    /// Rows whose pressure cell is empty.
+    pressure_empty: u64,
     /// Rows whose headspace would be more than the margin below ambient.
     below_vacuum: u64,
     lowest_as_read: f64,
@@ -1133,6 +1135,8 @@ pub struct Import {
     tank_col: Option<usize>,
     headers: Vec<String>,
     ambient_pa: f64,
+    /// The config's assumed headspace, which the estimator falls back on.
+    assumed_headspace_pa: f64,
     density: Density,
     height_m: f64,
     /// The transmitter's range, SI, for the range warning.
@@ -1424,6 +1428,7 @@ impl Import {
             tank_col: resolved.tank,
             headers,
             ambient_pa,
+            assumed_headspace_pa: tank.assumed_headspace.si(),
             density,
             height_m: tank.vessel.geometry().height().si(),
             transmitter_range: if synthetic { None } else { transmitter_range },
@@ -1658,7 +1663,10 @@ impl Import {
                 to,
                 ..
             } => match pressure_raw {
-                None => f64::NAN,
+                None => {
+                    p.pressure_empty += 1;
+                    f64::NAN
+                }
                 Some(raw) => {
                     let value = raw * si_per_unit;
                     let headspace = headspace_gauge(
@@ -1829,6 +1837,17 @@ impl Import {
                     }
                 ));
             }
+        }
+        if p.pressure_empty > 0
+            && let PressureSource::Column { index, .. } = &self.pressure
+        {
+            r.warnings.push(format!(
+                "pressure column {:?} is empty on {} of {} row(s): for those the estimator holds the last good pressure, as it does live, and before the first one it assumes the config's {} kPa gauge",
+                self.headers[*index],
+                p.pressure_empty,
+                p.pressure_empty + p.pressure_rows,
+                fmt_kpa(self.assumed_headspace_pa)
+            ));
         }
         if p.outside_range > 0
             && let Some((lo, hi)) = self.transmitter_range
@@ -2977,6 +2996,26 @@ time_zone = "+01:00"
             "{:?}",
             report.warnings
         );
+        let (_, report) = import(
+            "time,level_m,PT [kPa(g)]\n2026-12-01T10:00:00Z,1.6,\n2026-12-01T10:00:01Z,1.6,15\n",
+            &Layout::default(),
+            &target(&config, "FF-T14"),
+        )
+        .unwrap();
+        assert!(
+            report
+                .warnings
+                .iter()
+                .any(|w| w.contains("is empty on 1 of 2 row(s)")),
+            "{:?}",
+            report.warnings
+        );
+        let (_, report) = import(
+            "time,level_m,PT [kPa(g)]\n2026-12-01T10:00:00Z,1.6,116.3\n2026-12-01T10:00:01Z,1.6,116.4\n",
+            &Layout::default(),
+            &target(&config, "FF-T14"),
+        )
+        .unwrap();
         assert!(
             report.warnings.iter().any(|w| w.contains("2 row(s) give a pressure that, as the transmitter would read it, is outside its range (-10 to 100 kPa")),
             "{:?}",
