@@ -469,9 +469,11 @@ fn replay_readings(
             progress.show(import.position());
         }
         progress.done();
-        // Stable: rows of the same time keep their file order, so the first
-        // of each time in the file is the one used.
-        rows.sort_by_key(|r| r.at_ms);
+        // By time, then line: rows of the same time keep their file order,
+        // so the first of each time in the file is the one used. An
+        // unstable sort on that key gives the stable order in place, where
+        // a stable sort would want a buffer of half the rows again.
+        rows.sort_unstable_by_key(|r| (r.at_ms, r.line));
         let mut feed = Feed::new(&estimator_tank, params, overrides, interval);
         let mut sink = Sink::new(outputs, &inputs, params.hole_height_m)?;
         for row in &rows {
@@ -488,7 +490,19 @@ fn replay_readings(
     if report.rows_used == 0 {
         return Err(Import::nothing_usable(&report, tank_id));
     }
-    let replayed = sink.last()?;
+    // When the estimator could use none of the rows, the warnings usually
+    // say why (a level in the wrong unit, say).
+    let replayed = sink.last().map_err(|e| {
+        if report.warnings.is_empty() {
+            e
+        } else {
+            anyhow::anyhow!(
+                "nothing to replay: {} row(s) read, but the estimator could use none in the range; the readings' warnings:\n  {}",
+                report.rows_used,
+                report.warnings.join("\n  ")
+            )
+        }
+    })?;
     let from = feed.from.unwrap_or(replayed.at_ms);
     let mut summary = Summary {
         event: None,
