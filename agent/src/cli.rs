@@ -37,6 +37,8 @@ pub enum Command {
         /// README for the columns); needs --tank and --config.
         #[arg(long, requires_all = ["tank", "config"], conflicts_with = "event")]
         readings: Option<PathBuf>,
+        #[command(flatten)]
+        layout: Box<ReadingsArgs>,
         /// The tank the readings are from.
         #[arg(long)]
         tank: Option<String>,
@@ -61,6 +63,9 @@ pub enum Command {
         /// Print the summary as JSON.
         #[arg(long)]
         json: bool,
+        /// Replace the --csv and --plot files if they exist.
+        #[arg(long)]
+        force: bool,
         /// The SQLite database the daemon writes.
         #[arg(long, default_value = DEFAULT_DB)]
         db: PathBuf,
@@ -211,6 +216,51 @@ pub struct HoleArgs {
     pub cd_range: Option<String>,
 }
 
+/// How to read a readings file (`replay --readings`), beyond its header.
+/// Boxed in the command: parsed once, and it would make every other
+/// subcommand's value as large.
+#[derive(Debug, Clone, clap::Args)]
+pub struct ReadingsArgs {
+    /// What a column of the readings holds, e.g. "PT-14 [kPa(g)]=pressure,kPa,gauge":
+    /// QUANTITY (time, level, pressure, transfer, temperature, tank or unused),
+    /// then the unit, and for pressure gauge|absolute and headspace|tap=M;
+    /// repeat for more columns.
+    #[arg(
+        long = "column",
+        value_name = "NAME=QUANTITY,UNIT,...",
+        requires = "readings"
+    )]
+    pub column: Vec<String>,
+    /// A TOML file describing the readings' columns and format (default:
+    /// <readings file>.columns.toml beside it, when there is one).
+    #[arg(long = "columns", value_name = "FILE.toml", requires = "readings")]
+    pub columns_file: Option<PathBuf>,
+    /// The readings' field separator: , ; tab | or space (default: read
+    /// from the header line).
+    #[arg(long, value_name = "CHAR", requires = "readings")]
+    pub separator: Option<String>,
+    /// The readings write decimals with a comma (1,5).
+    #[arg(long, requires = "readings")]
+    pub decimal_comma: bool,
+    /// The time zone of readings times written without an offset: an IANA
+    /// name (Europe/Berlin), UTC, or an offset (+01:00). Default UTC.
+    #[arg(long, value_name = "ZONE", requires = "readings")]
+    pub time_zone: Option<String>,
+    /// How the readings write times: auto, unix_s, unix_ms, or a strftime
+    /// pattern such as "%d.%m.%Y %H:%M:%S".
+    #[arg(long, value_name = "FORMAT", requires = "readings")]
+    pub time_format: Option<String>,
+    /// The headspace gauge pressure, kPa, held for the whole readings file,
+    /// for a file with no pressure column.
+    #[arg(
+        long,
+        value_name = "KPA",
+        requires = "readings",
+        allow_negative_numbers = true
+    )]
+    pub headspace: Option<f64>,
+}
+
 /// Changed leak parameters, for `leak revise` and `replay`.
 #[derive(Debug, Clone, clap::Args)]
 pub struct ParamChanges {
@@ -294,6 +344,7 @@ pub fn run(cli: Cli) -> anyhow::Result<()> {
         Command::Replay {
             event,
             readings,
+            layout,
             tank,
             config,
             changes,
@@ -302,6 +353,7 @@ pub fn run(cli: Cli) -> anyhow::Result<()> {
             csv,
             plot,
             json,
+            force,
             db,
         } => {
             let now = crate::store::now_ms();
@@ -326,18 +378,37 @@ pub fn run(cli: Cli) -> anyhow::Result<()> {
                     p.display()
                 );
             }
+            let mut protect = Vec::new();
             let source = match (event, readings) {
-                (_, Some(file)) => commands::replay::Source::Readings {
-                    file,
-                    tank: tank.unwrap_or_default(),
-                    config: config.unwrap_or_default(),
-                },
+                (_, Some(file)) => {
+                    protect.push(db);
+                    commands::replay::Source::Readings {
+                        file,
+                        tank: tank.unwrap_or_default(),
+                        config: config.unwrap_or_default(),
+                        options: commands::replay::ReadingsOptions {
+                            columns: layout.column,
+                            columns_file: layout.columns_file,
+                            separator: layout.separator,
+                            decimal_comma: layout.decimal_comma,
+                            time_zone: layout.time_zone,
+                            time_format: layout.time_format,
+                            headspace_kpa: layout.headspace,
+                        },
+                    }
+                }
                 (Some(event), None) => commands::replay::Source::Event { db, event, config },
                 (None, None) => {
                     anyhow::bail!("give an event id, or --readings FILE with --tank and --config")
                 }
             };
-            let outputs = commands::replay::Outputs { csv, plot, json };
+            let outputs = commands::replay::Outputs {
+                csv,
+                plot,
+                json,
+                force,
+                protect,
+            };
             print!("{}", commands::replay::run(source, &overrides, &outputs)?);
             Ok(())
         }

@@ -3,13 +3,20 @@
 //!
 //! Drawn with `plotters`' SVG backend only, which needs no system library:
 //! the text goes out as SVG text for the viewer to render. Left out: PNG,
-//! which would need an embedded font.
+//! which would need an embedded font, and writing the file (the replay
+//! writes it, atomically).
+//!
+//! The chart takes a [`ChartSeries`], thinned as the estimates arrive, so a
+//! replay of any length draws from a bounded number of points: a chart
+//! 1,000 pixels wide shows no more than a few thousand anyway. Thinning
+//! merges neighbouring estimates into one point whose band spans their
+//! lowest low and highest high, so the shaded band still covers every
+//! estimate; the best line passes through the last estimate of each point.
 
 use crate::report;
 use crate::track::estimator::Estimate;
 use anyhow::Context;
 use plotters::prelude::*;
-use std::path::Path;
 
 /// What the chart is about, for its title.
 pub struct ChartLabels<'a> {
@@ -23,28 +30,148 @@ const BAND: RGBColor = RGBColor(0xf2, 0xb8, 0x6b);
 const BEST: RGBColor = RGBColor(0x1d, 0x3c, 0x6e);
 const THRESHOLD: RGBColor = RGBColor(0xa8, 0x1c, 0x1c);
 
-/// Writes the chart of `estimates` (in time order) to `path` as SVG.
-pub fn write_svg(
-    path: &Path,
-    estimates: &[Estimate],
-    reportable_kg: &[f64],
-    labels: &ChartLabels,
-) -> anyhow::Result<()> {
-    let svg = render_svg(estimates, reportable_kg, labels)?;
-    std::fs::write(path, svg).with_context(|| format!("writing the plot {}", path.display()))
+/// One point of the chart: one estimate, or several neighbouring ones
+/// thinned into one.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct ChartPoint {
+    /// The time of the last estimate the point holds.
+    pub at_ms: i64,
+    pub rate_low_kg_s: f64,
+    pub rate_best_kg_s: f64,
+    pub rate_high_kg_s: f64,
+    pub released_low_kg: f64,
+    pub released_best_kg: f64,
+    pub released_high_kg: f64,
+}
+
+impl ChartPoint {
+    pub fn of(e: &Estimate) -> Self {
+        Self {
+            at_ms: e.at_ms,
+            rate_low_kg_s: e.rate_low_kg_s,
+            rate_best_kg_s: e.rate_best_kg_s,
+            rate_high_kg_s: e.rate_high_kg_s,
+            released_low_kg: e.released_low_kg,
+            released_best_kg: e.released_best_kg,
+            released_high_kg: e.released_high_kg,
+        }
+    }
+
+    /// This point and a later one as one: the later's time and best
+    /// figures, the band over both.
+    fn merge(self, later: Self) -> Self {
+        Self {
+            at_ms: later.at_ms,
+            rate_low_kg_s: self.rate_low_kg_s.min(later.rate_low_kg_s),
+            rate_best_kg_s: later.rate_best_kg_s,
+            rate_high_kg_s: self.rate_high_kg_s.max(later.rate_high_kg_s),
+            released_low_kg: self.released_low_kg.min(later.released_low_kg),
+            released_best_kg: later.released_best_kg,
+            released_high_kg: self.released_high_kg.max(later.released_high_kg),
+        }
+    }
+}
+
+/// The points of a chart, thinned as estimates arrive so that it never
+/// holds more than about `max_points`. Each finished point holds the same
+/// number of estimates; when the points reach the limit, neighbours are
+/// merged in pairs and each new point holds twice as many. The first
+/// estimate stays a point of its own, so the lines start where the replay
+/// does.
+#[derive(Debug, Clone)]
+pub struct ChartSeries {
+    first: Option<ChartPoint>,
+    done: Vec<ChartPoint>,
+    filling: Option<ChartPoint>,
+    filled: usize,
+    per_point: usize,
+    max_points: usize,
+    estimates: u64,
+}
+
+impl ChartSeries {
+    /// About two points per pixel of the chart's width.
+    pub const DEFAULT_MAX_POINTS: usize = 2000;
+
+    /// A series of at most about `max_points` points (at least 2).
+    pub fn new(max_points: usize) -> Self {
+        Self {
+            first: None,
+            done: Vec::new(),
+            filling: None,
+            filled: 0,
+            per_point: 1,
+            max_points: max_points.max(2),
+            estimates: 0,
+        }
+    }
+
+    /// Takes the next estimate (in time order).
+    pub fn push(&mut self, e: &Estimate) {
+        self.estimates += 1;
+        let point = ChartPoint::of(e);
+        if self.first.is_none() {
+            self.first = Some(point);
+            return;
+        }
+        self.filling = Some(match self.filling {
+            Some(earlier) => earlier.merge(point),
+            None => point,
+        });
+        self.filled += 1;
+        if self.filled < self.per_point {
+            return;
+        }
+        self.done.extend(self.filling.take());
+        self.filled = 0;
+        if self.done.len() >= self.max_points {
+            self.done = self
+                .done
+                .chunks(2)
+                .map(|pair| match pair {
+                    [a, b] => a.merge(*b),
+                    [a] => *a,
+                    _ => unreachable!("chunks(2) gives one or two"),
+                })
+                .collect();
+            self.per_point *= 2;
+        }
+    }
+
+    /// The points, in time order.
+    pub fn points(&self) -> Vec<ChartPoint> {
+        self.first
+            .iter()
+            .chain(&self.done)
+            .chain(&self.filling)
+            .copied()
+            .collect()
+    }
+
+    /// How many estimates went in.
+    pub fn estimates(&self) -> u64 {
+        self.estimates
+    }
+
+    /// How many estimates each finished point holds.
+    pub fn per_point(&self) -> usize {
+        self.per_point
+    }
 }
 
 /// The chart as SVG text.
 pub fn render_svg(
-    estimates: &[Estimate],
+    series: &ChartSeries,
     reportable_kg: &[f64],
     labels: &ChartLabels,
 ) -> anyhow::Result<String> {
+    let estimates = series.points();
+    let estimates = estimates.as_slice();
     let first = estimates
         .first()
         .context("nothing to plot: the replay produced no estimate")?;
     let t0 = first.at_ms;
-    let minutes = |e: &Estimate| (e.at_ms - t0) as f64 / 60_000.0;
+    let minutes = |e: &ChartPoint| (e.at_ms - t0) as f64 / 60_000.0;
     let t_end = estimates.last().map_or(1.0, minutes).max(1.0 / 60.0);
     let max_rate = estimates
         .iter()
@@ -86,8 +213,20 @@ pub fn render_svg(
             ("sans-serif", 22).into_font().color(&BLACK),
         ))
         .map_err(plot_error)?;
+        let thinned = if series.per_point() > 1 {
+            format!(
+                "; {} estimates, up to {} a point",
+                series.estimates(),
+                series.per_point()
+            )
+        } else {
+            String::new()
+        };
         top.draw(&Text::new(
-            format!("from {}; band: shaded; caution below", report::utc(t0)),
+            format!(
+                "from {}; band: shaded{thinned}; caution below",
+                report::utc(t0)
+            ),
             (20, 40),
             ("sans-serif", 14).into_font().color(&RGBColor(90, 90, 90)),
         ))
@@ -95,7 +234,7 @@ pub fn render_svg(
         let (charts, footer) = rest.split_vertically(660);
         let (upper, lower) = charts.split_vertically(310);
 
-        let minutes: &dyn Fn(&Estimate) -> f64 = &minutes;
+        let minutes: &dyn Fn(&ChartPoint) -> f64 = &minutes;
         panel(
             &upper,
             &Panel {
@@ -157,9 +296,9 @@ struct Panel<'a> {
     caption: &'a str,
     y_desc: &'a str,
     y_max: f64,
-    band: &'a dyn Fn(&Estimate) -> (f64, f64),
+    band: &'a dyn Fn(&ChartPoint) -> (f64, f64),
     band_label: &'a str,
-    best: &'a dyn Fn(&Estimate) -> f64,
+    best: &'a dyn Fn(&ChartPoint) -> f64,
     best_label: &'a str,
 }
 
@@ -168,8 +307,8 @@ struct Panel<'a> {
 fn panel<DB: DrawingBackend>(
     area: &DrawingArea<DB, plotters::coord::Shift>,
     spec: &Panel,
-    estimates: &[Estimate],
-    minutes: &dyn Fn(&Estimate) -> f64,
+    estimates: &[ChartPoint],
+    minutes: &dyn Fn(&ChartPoint) -> f64,
     t_end: f64,
     lines: &[(f64, String)],
 ) -> anyhow::Result<()> {
@@ -233,4 +372,98 @@ fn panel<DB: DrawingBackend>(
 
 fn plot_error<E: std::fmt::Display>(e: E) -> anyhow::Error {
     anyhow::anyhow!("drawing the chart: {e}")
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::acquire::sample::{Reading, TankSample};
+    use crate::track::estimator::{Estimator, LeakParams};
+
+    /// Estimates of a real estimator on a draining tank: `n` samples, 1 s
+    /// apart, with a little level noise so the band moves.
+    fn estimates(n: usize) -> Vec<Estimate> {
+        let text = std::fs::read_to_string(
+            std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("../config/demo.toml"),
+        )
+        .unwrap();
+        let config = crate::config::parse(&text, std::path::Path::new("demo.toml")).unwrap();
+        let tank = &config.tanks[0];
+        let params = LeakParams {
+            hole_diameter_m: Some(0.04),
+            hole_height_m: 0.3,
+            cd: 0.61,
+            density_kg_m3: None,
+            ..LeakParams::default()
+        };
+        let mut estimator = Estimator::new(tank, params, 0, 1000).unwrap();
+        (0..n)
+            .filter_map(|i| {
+                let wobble = if i % 7 == 0 { 0.002 } else { 0.0 };
+                estimator.push(&TankSample {
+                    tank: 0,
+                    tank_id: tank.id.clone(),
+                    at_ms: 1000 * i as i64,
+                    level: Reading::good(4.2 - 0.0008 * i as f64 + wobble),
+                    pressure: None,
+                    transfer: None,
+                    temperature: None,
+                    leak_flag: None,
+                })
+            })
+            .collect()
+    }
+
+    #[test]
+    fn a_long_series_is_thinned_to_a_bound_that_still_covers_every_estimate() {
+        let all = estimates(5000);
+        let mut series = ChartSeries::new(100);
+        for e in &all {
+            series.push(e);
+        }
+        let points = series.points();
+        assert!(points.len() <= 102, "{} points", points.len());
+        assert!(points.len() >= 50, "{} points", points.len());
+        assert_eq!(series.estimates(), all.len() as u64);
+        assert_eq!(
+            points[0],
+            ChartPoint::of(&all[0]),
+            "the first estimate stands alone"
+        );
+        assert_eq!(
+            points.last().unwrap().at_ms,
+            all.last().unwrap().at_ms,
+            "the last estimate ends the series"
+        );
+        assert!(points.windows(2).all(|w| w[0].at_ms < w[1].at_ms));
+        // Every estimate lies inside the band of the point that holds it
+        // (the first point whose time is at or after its own).
+        for e in &all {
+            let p = points.iter().find(|p| p.at_ms >= e.at_ms).unwrap();
+            assert!(p.rate_low_kg_s <= e.rate_low_kg_s && e.rate_high_kg_s <= p.rate_high_kg_s);
+            assert!(
+                p.released_low_kg <= e.released_low_kg && e.released_high_kg <= p.released_high_kg
+            );
+        }
+    }
+
+    #[test]
+    fn a_short_series_keeps_every_estimate() {
+        let all = estimates(30);
+        let mut series = ChartSeries::new(ChartSeries::DEFAULT_MAX_POINTS);
+        for e in &all {
+            series.push(e);
+        }
+        let expected: Vec<ChartPoint> = all.iter().map(ChartPoint::of).collect();
+        assert_eq!(series.points(), expected);
+        assert_eq!(series.per_point(), 1);
+        let labels = ChartLabels {
+            tank: "FF-T12",
+            event: None,
+            params: "hole 40.0 mm",
+        };
+        let svg = render_svg(&series, &[250.0], &labels).unwrap();
+        assert!(svg.contains("Cumulative release") && !svg.contains("estimates, up to"));
+        assert!(render_svg(&ChartSeries::new(10), &[], &labels).is_err());
+    }
 }

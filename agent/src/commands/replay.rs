@@ -3,23 +3,39 @@
 //!
 //! It is the very estimator the daemon runs, fed the very samples the daemon
 //! stored, so with no overrides it reproduces the logged live figures
-//! exactly, and says so by comparing every estimate. Outputs: a summary for
-//! people (with the cautions) or a JSON document, the time series as CSV,
-//! and a chart as SVG.
+//! exactly, and says so by comparing every estimate with its logged twin.
+//! Outputs: a summary for people (with the cautions) or a JSON document,
+//! the time series as CSV, and a chart as SVG.
+//!
+//! A replay runs in bounded memory whatever its length: samples are read a
+//! page at a time (from the database) or a row at a time (from a readings
+//! file), each estimate goes to the CSV as it comes and into a thinned chart
+//! series, and the live estimates are read a page at a time beside the
+//! replayed ones. The one exception is a readings file out of time order:
+//! its rows are sorted in memory, as compact tuples of 48 bytes, never as
+//! estimates.
+//!
+//! Outputs never replace inputs (the readings, its columns file, the
+//! config, the database and its journal files), an existing output is
+//! replaced only with `--force`, and each output is written to a temporary
+//! file beside it and renamed into place when the replay has succeeded, so
+//! an interrupted replay never leaves half a file under the final name.
 
 use crate::acquire::sample::TankSample;
 use crate::config::{Config, Tank};
 use crate::model::{Density, Mass, MassRate, TimeSpan};
-use crate::plot::{self, ChartLabels};
-use crate::readings;
+use crate::plot::{self, ChartLabels, ChartSeries};
+use crate::readings::{self, Import, ImportReport, Layout, Target, TimeOrder, Verdict};
 use crate::report;
 use crate::store;
 use crate::track::estimator::{Estimate, Estimator, LeakParams};
 use crate::track::tracker::describe_params;
 use anyhow::{Context, bail};
 use serde::Serialize;
+use std::collections::VecDeque;
 use std::fmt::Write as _;
-use std::io::IsTerminal;
+use std::fs::File;
+use std::io::{IsTerminal, Write as _};
 use std::path::{Path, PathBuf};
 
 /// Parameter changes for a replay; `None` keeps the logged value.
@@ -72,6 +88,22 @@ impl Overrides {
     }
 }
 
+/// How to read a readings file, from the command line.
+#[derive(Debug, Clone, Default)]
+pub struct ReadingsOptions {
+    /// `--column NAME=SPEC`, in order.
+    pub columns: Vec<String>,
+    /// `--columns FILE.toml`; without it, `<readings>.columns.toml` beside
+    /// the file is used when it exists.
+    pub columns_file: Option<PathBuf>,
+    pub separator: Option<String>,
+    pub decimal_comma: bool,
+    pub time_zone: Option<String>,
+    pub time_format: Option<String>,
+    /// `--headspace`: gauge headspace pressure held for the whole file, kPa.
+    pub headspace_kpa: Option<f64>,
+}
+
 /// Where the samples come from.
 pub enum Source {
     /// A logged event in the database.
@@ -85,6 +117,7 @@ pub enum Source {
         file: PathBuf,
         tank: String,
         config: PathBuf,
+        options: ReadingsOptions,
     },
 }
 
@@ -94,6 +127,11 @@ pub struct Outputs {
     pub csv: Option<PathBuf>,
     pub plot: Option<PathBuf>,
     pub json: bool,
+    /// Replace existing output files.
+    pub force: bool,
+    /// Further files no output may replace (the database, for a readings
+    /// replay, which does not open it).
+    pub protect: Vec<PathBuf>,
 }
 
 /// The replay's summary document (`--json`).
@@ -106,12 +144,18 @@ pub struct Summary {
     pub params_text: String,
     pub overrides: bool,
     pub samples: usize,
-    /// Rows of a readings file that were skipped, with their messages.
+    /// Rows of a readings file that were skipped, with their messages (the
+    /// first 100; `readings.rows_skipped` counts them all).
     pub skipped_rows: Vec<String>,
+    /// How a readings file was read: every column used or unused, the
+    /// pressure conversion, repeated and out-of-order times, warnings.
+    pub readings: Option<ImportReport>,
     pub from: String,
     pub to: String,
     /// The final replayed estimate.
     pub replayed: Estimate,
+    /// The same in words: why, the fit, the band, every warning.
+    pub replayed_words: report::estimate::Words,
     /// The final logged live estimate, for an event.
     pub live: Option<Estimate>,
     /// Whether every replayed estimate equals the logged one (no overrides).
@@ -125,21 +169,17 @@ pub struct Summary {
 
 /// Runs a replay and returns what to print.
 pub fn run(source: Source, overrides: &Overrides, outputs: &Outputs) -> anyhow::Result<String> {
-    let (summary, estimates, reportable) = replay(source, overrides)?;
-    let mut summary = summary;
-    if let Some(path) = &outputs.csv {
-        write_csv(path, &estimates, &summary)?;
-        summary.csv = Some(path.display().to_string());
-    }
-    if let Some(path) = &outputs.plot {
-        let labels = ChartLabels {
-            tank: &summary.tank,
-            event: summary.event,
-            params: &summary.params_text,
-        };
-        plot::write_svg(path, &estimates, &reportable, &labels)?;
-        summary.plot = Some(path.display().to_string());
-    }
+    let summary = match source {
+        Source::Event { db, event, config } => {
+            replay_event(&db, event, config, overrides, outputs)?
+        }
+        Source::Readings {
+            file,
+            tank,
+            config,
+            options,
+        } => replay_readings(&file, &tank, &config, &options, overrides, outputs)?,
+    };
     Ok(if outputs.json {
         serde_json::to_string_pretty(&summary)? + "\n"
     } else {
@@ -147,130 +187,446 @@ pub fn run(source: Source, overrides: &Overrides, outputs: &Outputs) -> anyhow::
     })
 }
 
-/// Replays and returns the summary, every estimate, and the reportable
-/// quantities (for the chart).
-pub fn replay(
-    source: Source,
+fn replay_event(
+    db: &Path,
+    event: i64,
+    config: Option<PathBuf>,
     overrides: &Overrides,
-) -> anyhow::Result<(Summary, Vec<Estimate>, Vec<f64>)> {
-    match source {
-        Source::Event { db, event, config } => {
-            let conn = store::open_read_only(&db)?;
-            let row = store::event(&conn, event)?.with_context(|| {
-                format!(
-                    "there is no event {event} in {}; `leaktally status` lists the open events",
-                    db.display()
-                )
-            })?;
-            let config_path = match config {
-                Some(p) => p,
-                None => match store::heartbeat(&conn)? {
-                    Some(h) => PathBuf::from(h.config),
-                    None => bail!(
-                        "the database does not say which config its daemon used; give --config FILE"
-                    ),
-                },
-            };
-            let config = crate::config::load(&config_path).with_context(|| {
-                format!(
-                    "loading the config {} (give another with --config)",
-                    config_path.display()
-                )
-            })?;
-            let (tank, interval) = tank_of(&config, &row.tank)?;
-            let params = overrides.apply(row.params);
-            let live = store::estimates_of(&conn, row.id, row.revision)?;
-            let from = overrides.from_ms.unwrap_or(row.start_ms);
-            // A closed event ends with its last live estimate: a sample taken
-            // just before the close but stored after it never reached the
-            // event, so the replay leaves it out too.
-            let end_of_event = row
-                .closed_at_ms
-                .map(|closed| live.last().map_or(closed, |e| e.at_ms.min(closed)));
-            let to = overrides.to_ms.or(end_of_event).unwrap_or(i64::MAX);
-            if to < from {
-                bail!("--to is before --from; give an end after the start");
+    outputs: &Outputs,
+) -> anyhow::Result<Summary> {
+    let conn = store::open_read_only(db)?;
+    // One read transaction for the whole replay: every page below sees the
+    // same snapshot, in which the daemon's samples and the estimates they
+    // produced were committed together.
+    let conn = conn
+        .unchecked_transaction()
+        .with_context(|| format!("reading {}", db.display()))?;
+    let row = store::event(&conn, event)?.with_context(|| {
+        format!(
+            "there is no event {event} in {}; `leaktally status` lists the open events",
+            db.display()
+        )
+    })?;
+    let config_path = match config {
+        Some(p) => p,
+        None => match store::heartbeat(&conn)? {
+            Some(h) => PathBuf::from(h.config),
+            None => {
+                bail!("the database does not say which config its daemon used; give --config FILE")
             }
-            // From one gap limit before the start, so that the estimator can
-            // interpolate the level at the start as the live run did.
-            let lookback = crate::track::estimator::gap_limit_ms(interval);
-            let samples = store::samples_between(&conn, &row.tank, from - lookback, to)?;
-            let estimates = run_estimator(tank, params, from, interval, &samples)?;
-            let (identical, compared, matching) = if overrides.any() {
-                (None, 0, 0)
+        },
+    };
+    let mut inputs = database_files(db);
+    inputs.push(("the config".to_owned(), config_path.clone()));
+    check_outputs(outputs, &inputs)?;
+    let config = crate::config::load(&config_path).with_context(|| {
+        format!(
+            "loading the config {} (give another with --config)",
+            config_path.display()
+        )
+    })?;
+    let (tank, interval) = tank_of(&config, &row.tank)?;
+    let params = overrides.apply(row.params);
+    let live_last = store::latest_estimate(&conn, &row)?;
+    let from = overrides.from_ms.unwrap_or(row.start_ms);
+    // A closed event ends with its last live estimate: a sample taken just
+    // before the close but stored after it never reached the event, so the
+    // replay leaves it out too.
+    let end_of_event = row
+        .closed_at_ms
+        .map(|closed| live_last.as_ref().map_or(closed, |e| e.at_ms.min(closed)));
+    let to = overrides.to_ms.or(end_of_event).unwrap_or(i64::MAX);
+    if to < from {
+        bail!("--to is before --from; give an end after the start");
+    }
+    let mut estimator = Estimator::new(tank, params, from, interval)?;
+    let mut sink = Sink::new(outputs, &inputs, params.hole_height_m)?;
+    let mut live = (!overrides.any()).then(|| LiveComparison::new(row.id, row.revision));
+    let end = store::last_sample_ms(&conn, &row.tank)?.map_or(from, |last| last.min(to));
+    // Pages of a few thousand poll intervals: one sample per poll at most.
+    let page_ms = interval.max(1).saturating_mul(4096);
+    let mut progress = Progress::new("replaying", (end - from).max(0) as u64, {
+        (end - from) / interval.max(1) > 50_000
+    });
+    let mut samples = 0usize;
+    // From one gap limit before the start, so that the estimator can
+    // interpolate the level at the start as the live run did; only the
+    // samples in the range count as replayed.
+    let mut cursor = from.saturating_sub(estimator.lookback_ms());
+    while cursor <= end {
+        let page_end = cursor.saturating_add(page_ms - 1).min(end);
+        for s in store::samples_between(&conn, &row.tank, cursor, page_end)? {
+            if s.at_ms >= from {
+                samples += 1;
+            }
+            if let Some(e) = estimator.push(&s) {
+                if let Some(live) = live.as_mut() {
+                    live.compare(&conn, &e)?;
+                }
+                sink.take(e)?;
+            }
+            progress.show((s.at_ms - from).max(0) as u64);
+        }
+        if page_end == i64::MAX {
+            break;
+        }
+        cursor = page_end + 1;
+    }
+    progress.done();
+    let (identical, compared, matching) = match live.as_mut() {
+        Some(live) => {
+            live.finish(&conn)?;
+            let same = live.matching == live.live && live.live == live.replayed;
+            (Some(same), live.live as usize, live.matching as usize)
+        }
+        None => (None, 0, 0),
+    };
+    let replayed = sink.last()?;
+    let mut summary = Summary {
+        event: Some(row.id),
+        tank: row.tank.clone(),
+        revision: Some(row.revision),
+        params,
+        params_text: describe_params(&params),
+        overrides: overrides.any(),
+        samples,
+        skipped_rows: Vec::new(),
+        readings: None,
+        from: report::utc(from),
+        to: report::utc(replayed.at_ms),
+        replayed_words: report::estimate::Words::of(&replayed, &params),
+        replayed,
+        live: live_last,
+        identical,
+        compared,
+        matching,
+        csv: None,
+        plot: None,
+        caution: report::CAUTION,
+    };
+    let reportable: Vec<f64> = tank.reportable.iter().map(|m| m.si()).collect();
+    sink.finish(&mut summary, &reportable)?;
+    Ok(summary)
+}
+
+/// The database and the files SQLite keeps beside it.
+fn database_files(db: &Path) -> Vec<(String, PathBuf)> {
+    let mut files = vec![("the database".to_owned(), db.to_owned())];
+    for suffix in ["-wal", "-shm", "-journal"] {
+        let mut name = db.as_os_str().to_owned();
+        name.push(suffix);
+        files.push((format!("the database's {suffix} file"), PathBuf::from(name)));
+    }
+    files
+}
+
+/// The logged live estimates, read a page at a time and compared one by
+/// one with the replayed ones.
+struct LiveComparison {
+    event: i64,
+    revision: i64,
+    page: VecDeque<Estimate>,
+    after_ms: i64,
+    exhausted: bool,
+    live: u64,
+    replayed: u64,
+    matching: u64,
+}
+
+impl LiveComparison {
+    const PAGE: usize = 1024;
+
+    fn new(event: i64, revision: i64) -> Self {
+        Self {
+            event,
+            revision,
+            page: VecDeque::new(),
+            after_ms: i64::MIN,
+            exhausted: false,
+            live: 0,
+            replayed: 0,
+            matching: 0,
+        }
+    }
+
+    fn next_live(&mut self, conn: &rusqlite::Connection) -> anyhow::Result<Option<Estimate>> {
+        if self.page.is_empty() && !self.exhausted {
+            let page =
+                store::estimates_after(conn, self.event, self.revision, self.after_ms, Self::PAGE)?;
+            self.exhausted = page.len() < Self::PAGE;
+            if let Some(last) = page.last() {
+                self.after_ms = last.at_ms;
+            }
+            self.page = page.into();
+        }
+        let next = self.page.pop_front();
+        if next.is_some() {
+            self.live += 1;
+        }
+        Ok(next)
+    }
+
+    fn compare(&mut self, conn: &rusqlite::Connection, replayed: &Estimate) -> anyhow::Result<()> {
+        self.replayed += 1;
+        if self.next_live(conn)?.is_some_and(|live| live == *replayed) {
+            self.matching += 1;
+        }
+        Ok(())
+    }
+
+    /// Counts the live estimates the replay did not reach.
+    fn finish(&mut self, conn: &rusqlite::Connection) -> anyhow::Result<()> {
+        while self.next_live(conn)?.is_some() {}
+        Ok(())
+    }
+}
+
+fn replay_readings(
+    file: &Path,
+    tank_id: &str,
+    config_path: &Path,
+    options: &ReadingsOptions,
+    overrides: &Overrides,
+    outputs: &Outputs,
+) -> anyhow::Result<Summary> {
+    let layout = layout_for(file, options)?;
+    let mut inputs = vec![
+        ("the readings file".to_owned(), file.to_owned()),
+        ("the config".to_owned(), config_path.to_owned()),
+    ];
+    if let Some(c) = &layout.columns_file {
+        inputs.push(("the columns file".to_owned(), c.clone()));
+    }
+    // Checked before the work starts, so a refusal costs nothing; the
+    // sink itself is made per pass below.
+    check_outputs(outputs, &inputs)?;
+    let config = crate::config::load(config_path)?;
+    let (tank, interval) = tank_of(&config, tank_id)?;
+    let params = overrides.apply(LeakParams::default());
+    // Parameters are checked before the file is read.
+    Estimator::new(tank, params, 0, interval)?;
+    let ambient = tank.vessel.ambient().si();
+    let stated_headspace_pa = match options.headspace_kpa {
+        None => None,
+        Some(kpa) if kpa.is_finite() && kpa * 1000.0 > -ambient && kpa < 100_000.0 => {
+            Some(kpa * 1000.0)
+        }
+        Some(kpa) => bail!(
+            "--headspace {kpa}: give the headspace as a gauge pressure in kPa, above -{:.3} (a full vacuum at this site's ambient) and below 100,000",
+            ambient / 1000.0
+        ),
+    };
+    let target = Target {
+        tank,
+        other_tanks: config
+            .tanks
+            .iter()
+            .filter(|t| t.id != tank.id)
+            .map(|t| t.id.clone())
+            .collect(),
+        density_kg_m3: params
+            .density_kg_m3
+            .unwrap_or_else(|| tank.vessel.density().si()),
+        stated_headspace_pa,
+    };
+    let file_size = std::fs::metadata(file).map_or(0, |m| m.len());
+
+    // First pass: stream the rows straight into the estimator, as long as
+    // they come in time order; the first row that does not ends the pass,
+    // and the second sorts.
+    let mut import = Import::open(file, &layout, &target)?;
+    let estimator_tank = import.tank_for_estimator(tank, stated_headspace_pa);
+    let mut feed = Feed::new(&estimator_tank, params, overrides, interval);
+    let mut sink = Sink::new(outputs, &inputs, params.hole_height_m)?;
+    let mut order = TimeOrder::default();
+    let mut sample = import.blank_sample();
+    let mut progress = Progress::new("reading", file_size, file_size > 20_000_000);
+    let mut in_order = true;
+    while let Some(row) = import.next_row()? {
+        match order.judge(&row) {
+            Verdict::Next => {
+                import.fill_sample(&row, &mut sample);
+                feed.push(&sample, &mut sink)?;
+            }
+            Verdict::Repeat => {}
+            Verdict::Earlier => {
+                in_order = false;
+                break;
+            }
+        }
+        progress.show(import.position());
+    }
+    let (report, feed, sink) = if in_order {
+        progress.done();
+        let mut report = import.finish();
+        order.finish(&mut report, false);
+        (report, feed, sink)
+    } else {
+        drop(sink);
+        progress.done();
+        // Room for every row at once, estimated from the first pass's bytes
+        // per row, so that the vector does not double past the file.
+        let expected_rows = (file_size as f64 * import.rows_read() as f64
+            / import.position().max(1) as f64
+            * 1.05) as usize;
+        let mut import = Import::open(file, &layout, &target)?;
+        let mut order = TimeOrder::default();
+        let mut rows = Vec::with_capacity(expected_rows.min(1 << 28));
+        let mut progress = Progress::new("sorting", file_size, file_size > 20_000_000);
+        while let Some(row) = import.next_row()? {
+            order.note_file_order(&row);
+            rows.push(row);
+            progress.show(import.position());
+        }
+        progress.done();
+        // By time, then line: rows of the same time keep their file order,
+        // so the first of each time in the file is the one used. An
+        // unstable sort on that key gives the stable order in place, where
+        // a stable sort would want a buffer of half the rows again.
+        rows.sort_unstable_by_key(|r| (r.at_ms, r.line));
+        let mut feed = Feed::new(&estimator_tank, params, overrides, interval);
+        let mut sink = Sink::new(outputs, &inputs, params.hole_height_m)?;
+        for row in &rows {
+            if order.judge(row) == Verdict::Next {
+                import.fill_sample(row, &mut sample);
+                feed.push(&sample, &mut sink)?;
+            }
+        }
+        drop(rows);
+        let mut report = import.finish();
+        order.finish(&mut report, true);
+        (report, feed, sink)
+    };
+    if report.rows_used == 0 {
+        return Err(Import::nothing_usable(&report, tank_id));
+    }
+    // When the estimator could use none of the rows, the warnings usually
+    // say why (a level in the wrong unit, say).
+    let replayed = sink.last().map_err(|e| {
+        if report.warnings.is_empty() {
+            e
+        } else {
+            anyhow::anyhow!(
+                "nothing to replay: {} row(s) read, but the estimator could use none in the range; the readings' warnings:\n  {}",
+                report.rows_used,
+                report.warnings.join("\n  ")
+            )
+        }
+    })?;
+    let from = feed.from.unwrap_or(replayed.at_ms);
+    let mut summary = Summary {
+        event: None,
+        tank: tank_id.to_owned(),
+        revision: None,
+        params,
+        params_text: describe_params(&params),
+        overrides: overrides.any(),
+        samples: feed.samples,
+        skipped_rows: report.skipped.clone(),
+        readings: Some(report),
+        from: report::utc(from),
+        to: report::utc(replayed.at_ms),
+        replayed_words: report::estimate::Words::of(&replayed, &params),
+        replayed,
+        live: None,
+        identical: None,
+        compared: 0,
+        matching: 0,
+        csv: None,
+        plot: None,
+        caution: report::CAUTION,
+    };
+    let reportable: Vec<f64> = tank.reportable.iter().map(|m| m.si()).collect();
+    let mut sink = sink;
+    sink.finish(&mut summary, &reportable)?;
+    Ok(summary)
+}
+
+/// The layout of a readings file: its columns file (given, or found beside
+/// it), then the command line's settings over it.
+fn layout_for(file: &Path, options: &ReadingsOptions) -> anyhow::Result<Layout> {
+    let mut layout = match &options.columns_file {
+        Some(path) => Layout::from_file(path)?,
+        None => {
+            let beside = readings::columns_file_beside(file);
+            if beside.is_file() {
+                Layout::from_file(&beside)?
             } else {
-                let matching = estimates.iter().zip(&live).filter(|(a, b)| a == b).count();
-                let same = matching == live.len() && live.len() == estimates.len();
-                (Some(same), live.len(), matching)
-            };
-            let summary = Summary {
-                event: Some(row.id),
-                tank: row.tank.clone(),
-                revision: Some(row.revision),
-                params,
-                params_text: describe_params(&params),
-                overrides: overrides.any(),
-                // The samples in the range, not the one before it that the
-                // start is interpolated from.
-                samples: samples.iter().filter(|s| s.at_ms >= from).count(),
-                skipped_rows: Vec::new(),
-                from: report::utc(from),
-                to: report::utc(estimates.last().map_or(from, |e| e.at_ms)),
-                replayed: last(&estimates)?,
-                live: live.last().cloned(),
-                identical,
-                compared,
-                matching,
-                csv: None,
-                plot: None,
-                caution: report::CAUTION,
-            };
-            let reportable = tank.reportable.iter().map(|m| m.si()).collect();
-            Ok((summary, estimates, reportable))
+                Layout::default()
+            }
         }
-        Source::Readings { file, tank, config } => {
-            let config = crate::config::load(&config)?;
-            let (t, interval) = tank_of(&config, &tank)?;
-            let data = readings::read(&file, &tank)?;
-            let first = data.samples[0].at_ms;
-            let from = overrides.from_ms.unwrap_or(first);
-            let to = overrides.to_ms.unwrap_or(i64::MAX);
-            let samples: Vec<TankSample> = data
-                .samples
-                .into_iter()
-                .filter(|s| {
-                    s.at_ms >= from - crate::track::estimator::gap_limit_ms(interval)
-                        && s.at_ms <= to
-                })
-                .collect();
-            let params = overrides.apply(LeakParams::default());
-            let estimates = run_estimator(t, params, from, interval, &samples)?;
-            let summary = Summary {
-                event: None,
-                tank: tank.clone(),
-                revision: None,
-                params,
-                params_text: describe_params(&params),
-                overrides: overrides.any(),
-                samples: samples.len(),
-                skipped_rows: data.skipped,
-                from: report::utc(from),
-                to: report::utc(estimates.last().map_or(from, |e| e.at_ms)),
-                replayed: last(&estimates)?,
-                live: None,
-                identical: None,
-                compared: 0,
-                matching: 0,
-                csv: None,
-                plot: None,
-                caution: report::CAUTION,
-            };
-            Ok((
-                summary,
-                estimates,
-                t.reportable.iter().map(|m| m.si()).collect(),
-            ))
+    };
+    layout.add_command_line(&options.columns)?;
+    if let Some(s) = &options.separator {
+        layout.separator =
+            Some(readings::parse_separator(s).map_err(|e| anyhow::anyhow!("--separator: {e}"))?);
+    }
+    if options.decimal_comma {
+        layout.decimal_comma = true;
+    }
+    if let Some(z) = &options.time_zone {
+        layout.time_zone =
+            Some(readings::Zone::parse(z).map_err(|e| anyhow::anyhow!("--time-zone: {e}"))?);
+    }
+    if let Some(f) = &options.time_format {
+        layout.time_format = Some(
+            readings::TimeFormat::parse(f).map_err(|e| anyhow::anyhow!("--time-format: {e}"))?,
+        );
+    }
+    Ok(layout)
+}
+
+/// Samples into a fresh estimator, made at the first sample when the start
+/// is the file's first time.
+struct Feed<'a> {
+    tank: &'a Tank,
+    params: LeakParams,
+    interval: i64,
+    from: Option<i64>,
+    to: i64,
+    estimator: Option<Estimator>,
+    samples: usize,
+}
+
+impl<'a> Feed<'a> {
+    fn new(tank: &'a Tank, params: LeakParams, overrides: &Overrides, interval: i64) -> Self {
+        Self {
+            tank,
+            params,
+            interval,
+            from: overrides.from_ms,
+            to: overrides.to_ms.unwrap_or(i64::MAX),
+            estimator: None,
+            samples: 0,
         }
+    }
+
+    fn push(&mut self, sample: &TankSample, sink: &mut Sink) -> anyhow::Result<()> {
+        // From one gap limit before `--from`: the estimator interpolates
+        // the level at the start from the samples either side of it.
+        let lookback = crate::track::estimator::gap_limit_ms(self.interval);
+        if sample.at_ms > self.to
+            || self
+                .from
+                .is_some_and(|from| sample.at_ms < from.saturating_sub(lookback))
+        {
+            return Ok(());
+        }
+        let estimator = match &mut self.estimator {
+            Some(e) => e,
+            None => {
+                let from = *self.from.get_or_insert(sample.at_ms);
+                self.estimator
+                    .insert(Estimator::new(self.tank, self.params, from, self.interval)?)
+            }
+        };
+        if self.from.is_some_and(|from| sample.at_ms >= from) {
+            self.samples += 1;
+        }
+        if let Some(e) = estimator.push(sample) {
+            sink.take(e)?;
+        }
+        Ok(())
     }
 }
 
@@ -290,42 +646,41 @@ fn tank_of<'a>(config: &'a Config, tank: &str) -> anyhow::Result<(&'a Tank, i64)
     Ok((t, config.devices[t.device].poll_interval.as_millis() as i64))
 }
 
-fn last(estimates: &[Estimate]) -> anyhow::Result<Estimate> {
-    estimates
-        .last()
-        .cloned()
-        .context("no usable sample in the range: nothing to replay (check --from and --to)")
+/// Progress on a terminal for long replays.
+struct Progress {
+    what: &'static str,
+    total: u64,
+    shown: Option<u64>,
+    on: bool,
 }
 
-/// Feeds the samples to a fresh estimator, with progress on a terminal for
-/// long replays.
-fn run_estimator(
-    tank: &Tank,
-    params: LeakParams,
-    from: i64,
-    interval: i64,
-    samples: &[TankSample],
-) -> anyhow::Result<Vec<Estimate>> {
-    let mut estimator = Estimator::new(tank, params, from, interval)?;
-    let progress = std::io::stderr().is_terminal() && samples.len() > 50_000;
-    let step = (samples.len() / 20).max(1);
-    let mut out = Vec::with_capacity(samples.len());
-    for (i, s) in samples.iter().enumerate() {
-        if let Some(e) = estimator.push(s) {
-            out.push(e);
-        }
-        if progress && i % step == 0 {
-            eprint!(
-                "\rreplaying: {:>3} % of {} samples",
-                100 * i / samples.len(),
-                samples.len()
-            );
+impl Progress {
+    fn new(what: &'static str, total: u64, long: bool) -> Self {
+        Self {
+            what,
+            total: total.max(1),
+            shown: None,
+            on: long && std::io::stderr().is_terminal(),
         }
     }
-    if progress {
-        eprintln!("\rreplaying: 100 % of {} samples", samples.len());
+
+    fn show(&mut self, done: u64) {
+        if !self.on {
+            return;
+        }
+        let percent = (100 * done.min(self.total)) / self.total;
+        if self.shown != Some(percent) {
+            self.shown = Some(percent);
+            eprint!("\r{}: {percent:>3} %", self.what);
+        }
     }
-    Ok(out)
+
+    fn done(&mut self) {
+        if self.on && self.shown.is_some() {
+            eprintln!("\r{}: 100 %", self.what);
+        }
+        self.on = false;
+    }
 }
 
 /// One row of the replay's time series.
@@ -347,38 +702,300 @@ struct Row<'a> {
     after_gap: bool,
 }
 
-fn write_csv(path: &Path, estimates: &[Estimate], summary: &Summary) -> anyhow::Result<()> {
-    let mut w =
-        csv::Writer::from_path(path).with_context(|| format!("writing {}", path.display()))?;
-    let z = summary.params.hole_height_m;
-    for e in estimates {
-        let column = (e.level_m - z).max(0.0);
-        let driving = if column > 0.0 {
-            (e.headspace_pa + e.density_kg_m3 * crate::model::STANDARD_GRAVITY * column).max(0.0)
-        } else {
-            e.headspace_pa.max(0.0)
+/// Where each estimate goes as it comes: the CSV, the chart's thinned
+/// series, and the last one for the summary.
+struct Sink {
+    csv: Option<(OutputFile, csv::Writer<File>)>,
+    chart: Option<(OutputFile, ChartSeries)>,
+    last: Option<Estimate>,
+    /// For the CSV's driving pressure: the column above the hole.
+    hole_height_m: f64,
+}
+
+impl Sink {
+    /// Checks the outputs against the inputs and opens their temporary
+    /// files.
+    fn new(
+        outputs: &Outputs,
+        inputs: &[(String, PathBuf)],
+        hole_height_m: f64,
+    ) -> anyhow::Result<Self> {
+        check_outputs(outputs, inputs)?;
+        let csv = match &outputs.csv {
+            Some(path) => {
+                let (out, file) = OutputFile::create(path, outputs.force)?;
+                Some((out, csv::Writer::from_writer(file)))
+            }
+            None => None,
         };
-        w.serialize(Row {
-            time: jiff::Timestamp::from_millisecond(e.at_ms)
-                .map(|t| t.to_string())
-                .unwrap_or_default(),
-            at_ms: e.at_ms,
-            level_m: e.level_m,
-            driving_pressure_pa: driving,
-            rate_kg_s: e.rate_best_kg_s,
-            released_best_kg: e.released_best_kg,
-            released_low_kg: e.released_low_kg,
-            released_high_kg: e.released_high_kg,
-            inventory_kg: e.inventory_kg,
-            method: e.method.code(),
-            samples_used: e.quality.samples_used,
-            samples_skipped: e.quality.samples_skipped,
-            gaps_bridged: e.quality.gaps_bridged,
-            after_gap: e.after_gap,
-        })?;
+        let chart = match &outputs.plot {
+            Some(path) => Some((
+                OutputFile::create(path, outputs.force)?.0,
+                ChartSeries::new(ChartSeries::DEFAULT_MAX_POINTS),
+            )),
+            None => None,
+        };
+        Ok(Self {
+            csv,
+            chart,
+            last: None,
+            hole_height_m,
+        })
     }
-    w.flush()?;
+
+    fn take(&mut self, e: Estimate) -> anyhow::Result<()> {
+        if let Some((out, w)) = &mut self.csv {
+            write_row(w, &e, self.hole_height_m)
+                .with_context(|| format!("writing {}", out.temporary.display()))?;
+        }
+        if let Some((_, series)) = &mut self.chart {
+            series.push(&e);
+        }
+        self.last = Some(e);
+        Ok(())
+    }
+
+    fn last(&self) -> anyhow::Result<Estimate> {
+        self.last
+            .clone()
+            .context("no usable sample in the range: nothing to replay (check --from and --to)")
+    }
+
+    /// Writes the chart and puts both outputs in place.
+    fn finish(&mut self, summary: &mut Summary, reportable: &[f64]) -> anyhow::Result<()> {
+        if let Some((out, writer)) = self.csv.take() {
+            let file = writer.into_inner().map_err(|e| {
+                anyhow::anyhow!("writing {}: {}", out.temporary.display(), e.error())
+            })?;
+            summary.csv = Some(out.path.display().to_string());
+            out.commit(file)?;
+        }
+        if let Some((out, series)) = self.chart.take() {
+            let labels = ChartLabels {
+                tank: &summary.tank,
+                event: summary.event,
+                params: &summary.params_text,
+            };
+            let svg = plot::render_svg(&series, reportable, &labels)?;
+            let mut file = File::options()
+                .write(true)
+                .open(&out.temporary)
+                .with_context(|| format!("writing {}", out.temporary.display()))?;
+            file.write_all(svg.as_bytes())
+                .with_context(|| format!("writing {}", out.temporary.display()))?;
+            summary.plot = Some(out.path.display().to_string());
+            out.commit(file)?;
+        }
+        Ok(())
+    }
+}
+
+fn write_row(w: &mut csv::Writer<File>, e: &Estimate, hole_height_m: f64) -> anyhow::Result<()> {
+    let column = (e.level_m - hole_height_m).max(0.0);
+    let driving = if column > 0.0 {
+        (e.headspace_pa + e.density_kg_m3 * crate::model::STANDARD_GRAVITY * column).max(0.0)
+    } else {
+        e.headspace_pa.max(0.0)
+    };
+    w.serialize(Row {
+        time: jiff::Timestamp::from_millisecond(e.at_ms)
+            .map(|t| t.to_string())
+            .unwrap_or_default(),
+        at_ms: e.at_ms,
+        level_m: e.level_m,
+        driving_pressure_pa: driving,
+        rate_kg_s: e.rate_best_kg_s,
+        released_best_kg: e.released_best_kg,
+        released_low_kg: e.released_low_kg,
+        released_high_kg: e.released_high_kg,
+        inventory_kg: e.inventory_kg,
+        method: e.method.code(),
+        samples_used: e.quality.samples_used,
+        samples_skipped: e.quality.samples_skipped,
+        gaps_bridged: e.quality.gaps_bridged,
+        after_gap: e.after_gap,
+    })?;
     Ok(())
+}
+
+/// Refuses outputs that are inputs, the same file twice, or existing files
+/// without `--force`.
+fn check_outputs(outputs: &Outputs, inputs: &[(String, PathBuf)]) -> anyhow::Result<()> {
+    let named: Vec<(&str, &PathBuf)> = [("--csv", &outputs.csv), ("--plot", &outputs.plot)]
+        .into_iter()
+        .filter_map(|(flag, p)| p.as_ref().map(|p| (flag, p)))
+        .collect();
+    let protected: Vec<(String, PathBuf)> = inputs
+        .iter()
+        .cloned()
+        .chain(outputs.protect.iter().flat_map(|db| database_files(db)))
+        .collect();
+    for (i, (flag, path)) in named.iter().enumerate() {
+        if path.is_dir() {
+            bail!(
+                "{flag} {}: that is a folder; give a file name",
+                path.display()
+            );
+        }
+        let folder = match path.parent() {
+            Some(p) if !p.as_os_str().is_empty() => p,
+            _ => Path::new("."),
+        };
+        if !folder.is_dir() {
+            bail!(
+                "{flag} {}: the folder {} does not exist; create it or give another path",
+                path.display(),
+                folder.display()
+            );
+        }
+        for (what, input) in &protected {
+            if same_file(path, input) {
+                bail!(
+                    "{flag} {}: that is {what} ({}), an input of this replay; an output never replaces an input, so give another file name",
+                    path.display(),
+                    input.display()
+                );
+            }
+        }
+        for (other_flag, other) in &named[..i] {
+            if same_file(path, other) {
+                bail!(
+                    "{flag} {} is the same file as {other_flag} {}; give each output its own file",
+                    path.display(),
+                    other.display()
+                );
+            }
+        }
+        if !outputs.force && std::fs::symlink_metadata(path).is_ok() {
+            bail!(
+                "{flag} {}: the file exists and was left as it is; give --force to replace it, or another name",
+                path.display()
+            );
+        }
+    }
+    Ok(())
+}
+
+/// A path made absolute with every symlink resolved, also for a file that
+/// does not exist yet (through its folder).
+fn identity(path: &Path) -> Option<PathBuf> {
+    if let Ok(p) = std::fs::canonicalize(path) {
+        return Some(p);
+    }
+    let folder = match path.parent() {
+        Some(p) if !p.as_os_str().is_empty() => p,
+        _ => Path::new("."),
+    };
+    Some(std::fs::canonicalize(folder).ok()?.join(path.file_name()?))
+}
+
+/// Whether two paths name one file: the same canonical path, or (for files
+/// that exist) the same device and inode, which also catches hard links
+/// and case-insensitive file systems.
+fn same_file(a: &Path, b: &Path) -> bool {
+    if let (Some(x), Some(y)) = (identity(a), identity(b))
+        && x == y
+    {
+        return true;
+    }
+    #[cfg(unix)]
+    {
+        use std::os::unix::fs::MetadataExt;
+        if let (Ok(x), Ok(y)) = (std::fs::metadata(a), std::fs::metadata(b)) {
+            return x.dev() == y.dev() && x.ino() == y.ino();
+        }
+    }
+    false
+}
+
+/// An output being written: a temporary file beside its final path, put in
+/// place by [`OutputFile::commit`] and removed if the replay fails first.
+struct OutputFile {
+    path: PathBuf,
+    temporary: PathBuf,
+    force: bool,
+    committed: bool,
+}
+
+impl OutputFile {
+    fn create(path: &Path, force: bool) -> anyhow::Result<(Self, File)> {
+        let folder = match path.parent() {
+            Some(p) if !p.as_os_str().is_empty() => p,
+            _ => Path::new("."),
+        };
+        let name = path.file_name().unwrap_or_default().to_string_lossy();
+        for attempt in 0..100 {
+            let temporary = folder.join(format!(".{name}.{}.{attempt}.tmp", std::process::id()));
+            match File::options()
+                .write(true)
+                .create_new(true)
+                .open(&temporary)
+            {
+                Ok(file) => {
+                    return Ok((
+                        Self {
+                            path: path.to_owned(),
+                            temporary,
+                            force,
+                            committed: false,
+                        },
+                        file,
+                    ));
+                }
+                Err(e) if e.kind() == std::io::ErrorKind::AlreadyExists => continue,
+                Err(e) => {
+                    return Err(e).with_context(|| {
+                        format!(
+                            "cannot write in {} (for {})",
+                            folder.display(),
+                            path.display()
+                        )
+                    });
+                }
+            }
+        }
+        bail!(
+            "cannot make a temporary file beside {}: 100 names taken",
+            path.display()
+        )
+    }
+
+    /// Flushes `file` to disk and puts it under the final name: replacing
+    /// an existing file only with `--force`, and otherwise by a hard link,
+    /// which fails rather than replace a file that appeared meanwhile.
+    fn commit(mut self, file: File) -> anyhow::Result<()> {
+        file.sync_all()
+            .with_context(|| format!("writing {}", self.temporary.display()))?;
+        drop(file);
+        if self.force {
+            std::fs::rename(&self.temporary, &self.path)
+                .with_context(|| format!("putting {} in place", self.path.display()))?;
+        } else {
+            match std::fs::hard_link(&self.temporary, &self.path) {
+                Ok(()) => {
+                    let _ = std::fs::remove_file(&self.temporary);
+                }
+                Err(e) if e.kind() == std::io::ErrorKind::AlreadyExists => bail!(
+                    "{}: the file appeared while the replay ran and was left as it is; give --force to replace it, or another name",
+                    self.path.display()
+                ),
+                // A file system without hard links: the check before the
+                // replay stands in.
+                Err(_) => std::fs::rename(&self.temporary, &self.path)
+                    .with_context(|| format!("putting {} in place", self.path.display()))?,
+            }
+        }
+        self.committed = true;
+        Ok(())
+    }
+}
+
+impl Drop for OutputFile {
+    fn drop(&mut self) {
+        if !self.committed {
+            let _ = std::fs::remove_file(&self.temporary);
+        }
+    }
 }
 
 /// The summary for people.
@@ -408,17 +1025,11 @@ pub fn human(s: &Summary) -> String {
             ""
         }
     );
-    if !s.skipped_rows.is_empty() {
-        let _ = writeln!(
-            out,
-            "skipped      {} row(s) of the readings file:",
-            s.skipped_rows.len()
-        );
-        for m in s.skipped_rows.iter().take(10) {
-            let _ = writeln!(out, "               {m}");
-        }
+    if let Some(r) = &s.readings {
+        let _ = write!(out, "{r}");
     }
     let r = &s.replayed;
+    let w = &s.replayed_words;
     let column = |label: &str, replayed: String, live: Option<String>| {
         format!("{label:<14}{replayed:<34}{}\n", live.unwrap_or_default())
     };
@@ -434,6 +1045,8 @@ pub fn human(s: &Summary) -> String {
         format!("{} to {}", kg(r.released_low_kg), kg(r.released_high_kg)),
         live.map(|l| format!("{} to {}", kg(l.released_low_kg), kg(l.released_high_kg))),
     );
+    let model = |e: &Estimate| e.model_kg.map_or("-".to_owned(), kg);
+    out += &column("orifice model", model(r), live.map(model));
     out += &column(
         "rate at end",
         report::rate(MassRate::kg_per_second(r.rate_best_kg_s)),
@@ -444,24 +1057,42 @@ pub fn human(s: &Summary) -> String {
         report::estimate::method_name(r.method).into(),
         live.map(|l| report::estimate::method_name(l.method).into()),
     );
-    let hole = |e: &Estimate| {
-        e.fitted_diameter_m
-            .map_or("-".to_owned(), |d| format!("{:.1} mm", d * 1000.0))
+    let area = |e: &Estimate| {
+        e.fit.area().map_or("-".to_owned(), |(_, k, _)| {
+            format!("Cd·A {} mm²", report::significant(k * 1e6))
+        })
     };
-    out += &column("fitted hole", hole(r), live.map(hole));
+    out += &column("fitted hole", area(r), live.map(area));
     out += &column(
         "inventory",
         r.inventory_kg.map_or("-".into(), kg),
         live.map(|l| l.inventory_kg.map_or("-".into(), kg)),
     );
-    let _ = writeln!(
-        out,
-        "volume       {}",
-        report::volumes(
-            Mass::kilograms(r.released_best_kg),
-            Density::kg_per_cubic_metre(r.density_kg_m3)
-        )
-    );
+    let _ = writeln!(out, "phase        {}", w.phase_text);
+    let _ = writeln!(out, "best from    {}", w.method_reason);
+    let _ = writeln!(out, "band from    {}", w.band_text);
+    let _ = writeln!(out, "fitted hole  {}", w.fit_status);
+    if let Some(text) = &w.implied_cd_text {
+        let _ = writeln!(out, "implied Cd   {text}");
+    }
+    for warning in &w.warnings_text {
+        let _ = writeln!(out, "WARNING      {warning}");
+    }
+    if r.phase == crate::track::estimate::PhaseName::Vapour {
+        let _ = writeln!(
+            out,
+            "volume       none: the release is vapour (gas), not liquid"
+        );
+    } else {
+        let _ = writeln!(
+            out,
+            "volume       {}",
+            report::volumes(
+                Mass::kilograms(r.released_best_kg),
+                Density::kg_per_cubic_metre(r.density_kg_m3)
+            )
+        );
+    }
     if let Some(f) = &r.forecast {
         let _ = writeln!(
             out,
@@ -472,10 +1103,12 @@ pub fn human(s: &Summary) -> String {
         );
     }
     for c in &r.crossings {
-        let when = c.at_ms.map_or("not reached".to_owned(), |t| {
-            format!("crossed at {}", report::utc(t))
-        });
-        let _ = writeln!(out, "reportable   {}: {when}", kg(c.quantity_kg));
+        let _ = writeln!(
+            out,
+            "reportable   {}: {}",
+            kg(c.quantity_kg),
+            crate::commands::status::crossing_text(c)
+        );
     }
     match s.identical {
         Some(true) => {
@@ -486,9 +1119,18 @@ pub fn human(s: &Summary) -> String {
             );
         }
         Some(false) => {
+            let why = if s
+                .live
+                .as_ref()
+                .is_some_and(|l| l.reason == crate::track::estimate::Reason::Unrecorded)
+            {
+                "the event was logged by an earlier version of leaktally, whose estimator gave other figures for the same samples (the replay's are this version's)"
+            } else {
+                "the config may have changed since"
+            };
             let _ = writeln!(
                 out,
-                "WARNING: the replay differs from the logged live figures ({} of {} estimates identical); the config may have changed since.",
+                "WARNING: the replay differs from the logged live figures ({} of {} estimates identical); {why}.",
                 s.matching, s.compared
             );
         }

@@ -64,40 +64,23 @@ pub struct EventStatus {
 pub struct EstimateView {
     #[serde(flatten)]
     pub estimate: Estimate,
-    /// Why the best figure comes from where it does.
-    pub method_reason: String,
-    /// The fitted hole as an effective area, or why not yet.
-    pub fit_status: String,
+    #[serde(flatten)]
+    pub words: words::Words,
     /// The given hole's disagreement with the level drop, if any (kept
     /// for readers of the first document format; also in `warnings_text`).
     pub consistency: Option<String>,
-    /// The Cd the level implies at a given hole, in words.
-    pub implied_cd_text: Option<String>,
-    /// What widens the band.
-    pub band_text: String,
-    /// Every warning of `warnings`, in words, in the same order.
-    pub warnings_text: Vec<String>,
 }
 
 impl EstimateView {
     pub fn new(estimate: Estimate, params: &LeakParams) -> Self {
         let e = &estimate;
+        let hole = crate::track::estimate::Warning::HoleInconsistent;
         Self {
-            method_reason: words::reason_text(e, params),
-            fit_status: words::fit_text(e, params),
+            words: words::Words::of(e, params),
             consistency: e
                 .warnings
-                .contains(crate::track::estimate::Warning::HoleInconsistent)
-                .then(|| {
-                    words::warning_text(
-                        crate::track::estimate::Warning::HoleInconsistent,
-                        e,
-                        params,
-                    )
-                }),
-            implied_cd_text: words::implied_cd_text(e, params),
-            band_text: words::band_text(e),
-            warnings_text: words::warnings_text(e, params),
+                .contains(hole)
+                .then(|| words::warning_text(hole, e, params)),
             estimate,
         }
     }
@@ -289,7 +272,7 @@ fn event_text(out: &mut String, e: &EventStatus) {
         "               {}",
         report::volumes(Mass::kilograms(est.released_best_kg), rho)
     );
-    let _ = writeln!(out, "  band from    {}", est.band_text);
+    let _ = writeln!(out, "  band from    {}", est.words.band_text);
     let closed = e.closed_at_ms.is_some();
     let _ = writeln!(
         out,
@@ -308,9 +291,9 @@ fn event_text(out: &mut String, e: &EventStatus) {
         out,
         "  best from    {}: {}",
         words::method_name(est.method),
-        est.method_reason
+        est.words.method_reason
     );
-    for warning in &est.warnings_text {
+    for warning in &est.words.warnings_text {
         let _ = writeln!(out, "  WARNING      {warning}");
     }
     if let Some(inv) = est.inventory_kg {
@@ -321,8 +304,8 @@ fn event_text(out: &mut String, e: &EventStatus) {
             kg(est.band.inventory_kg)
         );
     }
-    let _ = writeln!(out, "  fitted hole  {}", est.fit_status);
-    if let Some(text) = &est.implied_cd_text {
+    let _ = writeln!(out, "  fitted hole  {}", est.words.fit_status);
+    if let Some(text) = &est.words.implied_cd_text {
         let _ = writeln!(out, "  implied Cd   {text}");
     }
     let _ = writeln!(

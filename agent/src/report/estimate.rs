@@ -246,6 +246,37 @@ pub fn warnings_text(e: &Estimate, p: &LeakParams) -> Vec<String> {
     e.warnings.iter().map(|w| warning_text(w, e, p)).collect()
 }
 
+/// An estimate said in words, for the JSON documents beside the numbers
+/// and codes (never stored).
+#[derive(Debug, Clone, serde::Serialize)]
+pub struct Words {
+    /// Why the best figure comes from where it does.
+    pub method_reason: String,
+    /// The fitted hole as an effective area, or why not yet.
+    pub fit_status: String,
+    /// The Cd the level implies at a given hole, in words.
+    pub implied_cd_text: Option<String>,
+    /// What widens the band.
+    pub band_text: String,
+    /// The phase, and for vapour whether it is choked.
+    pub phase_text: &'static str,
+    /// Every warning of `warnings`, in words, in the same order.
+    pub warnings_text: Vec<String>,
+}
+
+impl Words {
+    pub fn of(e: &Estimate, p: &LeakParams) -> Self {
+        Self {
+            method_reason: reason_text(e, p),
+            fit_status: fit_text(e, p),
+            implied_cd_text: implied_cd_text(e, p),
+            band_text: band_text(e),
+            phase_text: phase_text(e),
+            warnings_text: warnings_text(e, p),
+        }
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

@@ -341,6 +341,38 @@ pub fn estimates_of(conn: &Connection, event: i64, revision: i64) -> StoreResult
     .collect()
 }
 
+/// Up to `limit` estimates of one event revision after `after_ms`, in time
+/// order: one page, so a replay compares a long event with its live
+/// figures without holding them all.
+pub fn estimates_after(
+    conn: &Connection,
+    event: i64,
+    revision: i64,
+    after_ms: i64,
+    limit: usize,
+) -> StoreResult<Vec<Estimate>> {
+    let mut stmt = conn.prepare_cached(
+        "SELECT doc FROM estimates WHERE event = ?1 AND revision = ?2 AND at_ms > ?3 ORDER BY at_ms LIMIT ?4",
+    )?;
+    let limit = i64::try_from(limit).unwrap_or(i64::MAX);
+    let rows = stmt.query_map(params![event, revision, after_ms, limit], |r| {
+        r.get::<_, String>(0)
+    })?;
+    rows.map(|doc| {
+        serde_json::from_str(&doc?).map_err(|e| StoreError::Corrupt(format!("estimate: {e}")))
+    })
+    .collect()
+}
+
+/// The time of a tank's newest stored sample.
+pub fn last_sample_ms(conn: &Connection, tank: &str) -> StoreResult<Option<i64>> {
+    Ok(conn.query_row(
+        "SELECT MAX(s.at_ms) FROM samples s JOIN tanks t ON t.id = s.tank WHERE t.tag = ?1",
+        [tank],
+        |r| r.get(0),
+    )?)
+}
+
 /// The released totals (time, best, low, high in kg) of one event
 /// revision, in time order, from the estimate columns alone: for charts,
 /// which need neither the whole documents nor their JSON parsing.

@@ -306,7 +306,7 @@ fn event(s: &mut String, e: &EventStatus, extras: &EventExtras, now_ms: i64, sta
         gal = g(best.us_gallons),
         bbl = g(best.barrels),
         rho = g(rho),
-        causes = escape(&est.band_text),
+        causes = escape(&est.words.band_text),
     );
     let (rate, rate_unit) = rate_parts(est.rate_best_kg_s);
     let (rate_lo, rate_lo_unit) = rate_parts(est.rate_low_kg_s);
@@ -363,7 +363,7 @@ fn event(s: &mut String, e: &EventStatus, extras: &EventExtras, now_ms: i64, sta
                 s,
                 r#"
 <p data-field="forecast-none" data-event="{id}">No forecast yet: it needs a hole size or a fitted hole ({}).</p>"#,
-                escape(&est.fit_status)
+                escape(&est.words.fit_status)
             );
         }
     }
@@ -437,7 +437,7 @@ fn event(s: &mut String, e: &EventStatus, extras: &EventExtras, now_ms: i64, sta
     let others: Vec<&String> = est
         .warnings
         .iter()
-        .zip(&est.warnings_text)
+        .zip(&est.words.warnings_text)
         .filter(|(w, _)| *w != crate::track::estimate::Warning::HoleInconsistent)
         .map(|(_, text)| text)
         .collect();
@@ -460,7 +460,7 @@ fn event(s: &mut String, e: &EventStatus, extras: &EventExtras, now_ms: i64, sta
 <dt>Why</dt><dd>{reason}</dd>
 "#,
         method = escape(words::method_name(est.method)),
-        reason = escape(&est.method_reason),
+        reason = escape(&est.words.method_reason),
     );
     if let Some(inv) = est.inventory_kg {
         let _ = writeln!(
@@ -470,8 +470,8 @@ fn event(s: &mut String, e: &EventStatus, extras: &EventExtras, now_ms: i64, sta
             g(est.band.inventory_kg)
         );
     }
-    let hole = escape(&est.fit_status);
-    if let Some(text) = &est.implied_cd_text {
+    let hole = escape(&est.words.fit_status);
+    if let Some(text) = &est.words.implied_cd_text {
         let _ = writeln!(s, "<dt>Implied Cd</dt><dd>{}</dd>", escape(text));
     }
     let _ = write!(
