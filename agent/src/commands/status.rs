@@ -310,6 +310,15 @@ fn event_text(out: &mut String, e: &EventStatus) {
     }
     let _ = writeln!(
         out,
+        "  density      {} kg/m³{}",
+        report::significant(est.density_kg_m3),
+        est.temperature_k.map_or(" (fixed)".to_owned(), |t| format!(
+            " at the liquid's {} °C",
+            report::significant(t - 273.15)
+        ))
+    );
+    let _ = writeln!(
+        out,
         "  remaining    {} above the hole (level {:.3} m)",
         kg(est.remaining_above_hole_kg),
         est.level_m
