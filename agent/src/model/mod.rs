@@ -9,10 +9,12 @@
 //! * [`orifice`]: the orifice equation for liquid and the ideal-gas nozzle equations.
 //! * [`vessel`]: a tank with its contents; pressure readings; which phase flows.
 //! * [`forecast`]: the draining forecast (when the flow stops, totals at horizons).
+//! * [`blowdown`]: the gas space venting through a hole above the liquid.
 //! * [`tally`]: the running total over timestamped samples, with its Cd band.
 //! * [`integral`]: the trapezoid rule as a running accumulator.
 //! * [`quadrature`]: adaptive Gauss–Kronrod integration, used by the forecast.
 
+pub mod blowdown;
 pub mod error;
 pub mod forecast;
 pub mod geometry;
@@ -23,6 +25,7 @@ pub mod tally;
 pub mod units;
 pub mod vessel;
 
+pub use blowdown::{Blowdown, BlowdownEnd, BlowdownForecast, BlowdownPoint, Thermal, Ullage};
 pub use error::{ModelError, ModelResult};
 pub use forecast::{Forecast, HorizonPoint, forecast_liquid};
 pub use geometry::{Geometry, Heads};
