@@ -500,25 +500,35 @@ fn whatif_figures_match_the_torricelli_solution() {
     )
     .unwrap();
     let mut worst = WorstError::new("what-if vs Torricelli");
+    assert_eq!(
+        study.horizons_s,
+        vec![900.0, 3600.0],
+        "the default horizons"
+    );
     for h in &study.holes {
+        let l = h.liquid.as_ref().expect("a liquid release");
         for (cd, stops, in_15, in_60) in [
-            (0.61, h.stops_after_s, h.in_15_min_kg[1], h.in_1_h_kg[1]),
+            (
+                0.61,
+                l.stops_after_s.cd_chosen,
+                l.horizons[0].released_kg.cd_chosen,
+                l.horizons[1].released_kg.cd_chosen,
+            ),
             (
                 1.0,
-                h.stops_after_high_cd_s,
-                h.in_15_min_kg[2],
-                h.in_1_h_kg[2],
+                l.stops_after_s.cd_high,
+                l.horizons[0].released_kg.cd_high,
+                l.horizons[1].released_kg.cd_high,
             ),
         ] {
-            let ratio = cd
-                * (h.hole_diameter_mm / 1000.0 / d_tank).powi(2)
-                * (STANDARD_GRAVITY / 2.0).sqrt();
+            let ratio =
+                cd * (h.diameter_mm / 1000.0 / d_tank).powi(2) * (STANDARD_GRAVITY / 2.0).sqrt();
             let t_stop = (h0 - z).sqrt() / ratio;
             let released = |t: f64| {
                 let level = z + ((h0 - z).sqrt() - ratio * t.min(t_stop)).powi(2);
                 rho * PI * d_tank * d_tank / 4.0 * (h0 - level)
             };
-            let label = || format!("{} mm, Cd {cd}", h.hole_diameter_mm);
+            let label = || format!("{} mm, Cd {cd}", h.diameter_mm);
             assert!(
                 worst.record(stops, t_stop, label) < 1e-4,
                 "time to stop {stops} vs {t_stop}"

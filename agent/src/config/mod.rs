@@ -594,14 +594,14 @@ impl Checker {
                 format!("{ctx}: headspace_kpa is only for tanks without a pressure sensor; remove one of the two"),
             );
         }
-        let nominal_headspace = t.nominal_headspace_kpa.as_ref().and_then(|kpa| {
+        let nominal_headspace = t.nominal_headspace_kpa.as_ref().map(|kpa| {
             let value = *kpa.get_ref();
             if t.pressure.is_none() {
                 self.problem(kpa.span(), format!("{ctx}: nominal_headspace_kpa is for tanks with a pressure sensor; for a tank without one, give headspace_kpa"));
             } else if !(value.is_finite() && value > -ambient.si() / 1000.0 && value <= 10_000.0) {
                 self.problem(kpa.span(), format!("{ctx}: nominal_headspace_kpa = {value} is not a plausible gauge pressure; give the blanket's usual pressure in kPa above ambient"));
             }
-            Some(Pressure::kilopascals(value))
+            Pressure::kilopascals(value)
         });
 
         let height = vessel.as_ref().map(|v| v.geometry().height().si());
