@@ -198,6 +198,12 @@ mod command_line {
         "--seconds",
         "--since",
         "--note",
+        "--hole-area",
+        "--to-level",
+        "--headspace",
+        "--headspace-abs",
+        "--horizons",
+        "--blanket-supply",
         "--help",
         "-h",
         "--version",
@@ -405,15 +411,28 @@ mod command_line {
             valued: &[
                 "--config",
                 "--hole-diameter",
+                "--hole-area",
                 "--hole-height",
                 "--level",
+                "--to-level",
+                "--headspace",
+                "--headspace-abs",
+                "--horizons",
+                "--blanket-supply",
                 "--cd",
             ],
             switches: &["--json"],
         },
         Head {
             args: &["whatif", "--tank", "FF-T20", "-c", "leaktally.toml"],
-            valued: &["--hole-diameter", "--hole-height", "--level", "--cd"],
+            valued: &[
+                "--hole-diameter",
+                "--hole-height",
+                "--level",
+                "--headspace",
+                "--horizons",
+                "--cd",
+            ],
             switches: &["--json"],
         },
         Head {
@@ -608,9 +627,41 @@ mod command_line {
                 }
             }
             Command::Whatif {
-                hole_diameter: Some(text),
+                hole_diameter,
+                hole_area,
+                horizons,
+                blanket_supply,
                 ..
-            } => check_holes(text)?,
+            } => {
+                if let Some(text) = hole_diameter {
+                    check_holes(text)?;
+                }
+                // Never a panic; what they accept is finite and positive.
+                use leaktally::commands::whatif;
+                for area in hole_area
+                    .iter()
+                    .flat_map(|t| whatif::parse_hole_areas(t).ok())
+                    .flatten()
+                {
+                    prop_assert!(
+                        area.is_finite() && area > 0.0,
+                        "area {area} from {hole_area:?}"
+                    );
+                }
+                for t in horizons
+                    .iter()
+                    .flat_map(|t| whatif::parse_horizons(t).ok())
+                    .flatten()
+                {
+                    prop_assert!(
+                        t.si().is_finite() && t.si() > 0.0,
+                        "horizon {t} from {horizons:?}"
+                    );
+                }
+                if let Some(text) = blanket_supply {
+                    let _ = whatif::parse_supply(text);
+                }
+            }
             Command::Leak(LeakCommand::Open { hole, since, .. }) => {
                 check_hole_args(hole)?;
                 if let Some(t) = since {

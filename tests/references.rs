@@ -500,31 +500,561 @@ fn whatif_figures_match_the_torricelli_solution() {
     )
     .unwrap();
     let mut worst = WorstError::new("what-if vs Torricelli");
+    assert_eq!(
+        study.horizons_s,
+        vec![900.0, 3600.0],
+        "the default horizons"
+    );
     for h in &study.holes {
+        let l = h.liquid.as_ref().expect("a liquid release");
         for (cd, stops, in_15, in_60) in [
-            (0.61, h.stops_after_s, h.in_15_min_kg[1], h.in_1_h_kg[1]),
+            (
+                0.61,
+                l.stops_after_s.cd_chosen,
+                l.horizons[0].released_kg.cd_chosen,
+                l.horizons[1].released_kg.cd_chosen,
+            ),
             (
                 1.0,
-                h.stops_after_high_cd_s,
-                h.in_15_min_kg[2],
-                h.in_1_h_kg[2],
+                l.stops_after_s.cd_high,
+                l.horizons[0].released_kg.cd_high,
+                l.horizons[1].released_kg.cd_high,
             ),
         ] {
-            let ratio = cd
-                * (h.hole_diameter_mm / 1000.0 / d_tank).powi(2)
-                * (STANDARD_GRAVITY / 2.0).sqrt();
+            let ratio =
+                cd * (h.diameter_mm / 1000.0 / d_tank).powi(2) * (STANDARD_GRAVITY / 2.0).sqrt();
             let t_stop = (h0 - z).sqrt() / ratio;
             let released = |t: f64| {
                 let level = z + ((h0 - z).sqrt() - ratio * t.min(t_stop)).powi(2);
                 rho * PI * d_tank * d_tank / 4.0 * (h0 - level)
             };
-            let label = || format!("{} mm, Cd {cd}", h.hole_diameter_mm);
+            let label = || format!("{} mm, Cd {cd}", h.diameter_mm);
             assert!(
                 worst.record(stops, t_stop, label) < 1e-4,
                 "time to stop {stops} vs {t_stop}"
             );
             assert!(worst.record(in_15, released(900.0), label) < 1e-4, "15 min");
             assert!(worst.record(in_60, released(3600.0), label) < 1e-4, "1 h");
+        }
+    }
+}
+
+// ---------------------------------------------------------------------------
+// Blowdown of the gas space through a hole above the liquid
+// ---------------------------------------------------------------------------
+
+mod blowdown {
+    use crate::util::{WorstError, fixture, rel_err};
+    use leaktally::model::blowdown::{Blowdown, BlowdownEnd, Thermal, Ullage};
+    use leaktally::model::{
+        AbsolutePressure, DischargeCoefficient, GAS_CONSTANT, GasProperties, GasRegime, Hole,
+        Length, Mass, MassRate, MolarMass, Temperature, TimeSpan, Volume, gas_mass_rate,
+    };
+    use serde::Deserialize;
+    use std::f64::consts::PI;
+
+    #[derive(Deserialize)]
+    struct Fixture {
+        gas_constant_j_mol_k: f64,
+        settled_within: f64,
+        cases: Vec<Case>,
+    }
+
+    #[derive(Deserialize)]
+    struct Case {
+        name: String,
+        thermal: String,
+        volume_m3: f64,
+        molar_mass_kg_per_mol: f64,
+        heat_capacity_ratio: f64,
+        temperature_k: f64,
+        initial_pa: f64,
+        ambient_pa: f64,
+        cd: f64,
+        hole_diameter_m: f64,
+        supply_kg_s: f64,
+        initial_gas_kg: f64,
+        initial_rate_kg_s: f64,
+        time_constant_s: f64,
+        choked_at_start: bool,
+        choked_for_s: Option<f64>,
+        end: String,
+        end_after_s: f64,
+        released_by_end_kg: f64,
+        steady_pressure_pa: Option<f64>,
+        horizons: Vec<Point>,
+        release_times: Vec<(f64, Option<f64>)>,
+    }
+
+    #[derive(Deserialize)]
+    struct Point {
+        after_s: f64,
+        pressure_pa: f64,
+        temperature_k: f64,
+        rate_kg_s: f64,
+        released_kg: f64,
+    }
+
+    /// A blowdown problem as the fixture and the analytic checks state it.
+    #[allow(clippy::too_many_arguments)]
+    fn problem(
+        volume: f64,
+        (molar_mass, k, temperature): (f64, f64, f64),
+        initial_pa: f64,
+        ambient_pa: f64,
+        cd: f64,
+        hole_m: f64,
+        supply: f64,
+        thermal: Thermal,
+    ) -> Blowdown {
+        let gas = GasProperties::new(
+            MolarMass::kg_per_mol(molar_mass),
+            k,
+            Temperature::kelvin(temperature),
+        )
+        .unwrap();
+        let ullage = Ullage::new(
+            Volume::cubic_metres(volume),
+            gas,
+            AbsolutePressure::pascals(initial_pa),
+            AbsolutePressure::pascals(ambient_pa),
+        )
+        .unwrap();
+        Blowdown::new(
+            ullage,
+            &Hole::new(Length::metres(hole_m), Length::metres(2.0)).unwrap(),
+            DischargeCoefficient::new(cd).unwrap(),
+            MassRate::kg_per_second(supply),
+            thermal,
+        )
+        .unwrap()
+    }
+
+    const NITROGEN: (f64, f64, f64) = (0.028_01, 1.4, 288.15);
+    const AMBIENT: f64 = 101_325.0;
+
+    /// The blowdown against scipy.integrate.solve_ivp (DOP853, rtol 1e-13)
+    /// of the mass and energy balances in the state (sqrt(p - pa), m,
+    /// released), fixture blowdown.json, written by tests/fixtures/generate.py,
+    /// which shares no code with the project and cross-checks itself against
+    /// Radau, the closed forms and brentq. Isothermal and adiabatic, choked
+    /// and subcritical, supply off and on (settling subcritical and choked).
+    #[test]
+    fn blowdown_matches_scipy_solve_ivp() {
+        let data: Fixture = fixture("blowdown.json");
+        assert_eq!(data.gas_constant_j_mol_k, GAS_CONSTANT);
+        assert_eq!(
+            data.settled_within,
+            leaktally::model::blowdown::SETTLED_WITHIN
+        );
+        assert!(data.cases.len() >= 12);
+        let mut times = WorstError::new("blowdown event times vs scipy solve_ivp");
+        let mut states =
+            WorstError::new("blowdown pressure excess and released vs scipy solve_ivp");
+        for case in &data.cases {
+            let thermal = match case.thermal.as_str() {
+                "isothermal" => Thermal::Isothermal,
+                "adiabatic" => Thermal::Adiabatic,
+                other => panic!("{other}"),
+            };
+            let b = problem(
+                case.volume_m3,
+                (
+                    case.molar_mass_kg_per_mol,
+                    case.heat_capacity_ratio,
+                    case.temperature_k,
+                ),
+                case.initial_pa,
+                case.ambient_pa,
+                case.cd,
+                case.hole_diameter_m,
+                case.supply_kg_s,
+                thermal,
+            );
+            let horizons: Vec<TimeSpan> = case
+                .horizons
+                .iter()
+                .map(|p| TimeSpan::seconds(p.after_s))
+                .collect();
+            let releases: Vec<Mass> = case
+                .release_times
+                .iter()
+                .map(|&(q, _)| Mass::kilograms(q))
+                .collect();
+            let f = b.forecast(&horizons, &releases).unwrap();
+            let name = &case.name;
+            assert!(
+                rel_err(f.initial_gas.si(), case.initial_gas_kg) < 1e-14,
+                "{name}"
+            );
+            assert!(
+                rel_err(f.initial.rate.si(), case.initial_rate_kg_s) < 1e-13,
+                "{name}"
+            );
+            assert!(
+                rel_err(b.time_constant().si(), case.time_constant_s) < 1e-14,
+                "{name}"
+            );
+            assert_eq!(
+                f.initial.regime == Some(GasRegime::Choked),
+                case.choked_at_start,
+                "{name}"
+            );
+            let time = |times: &mut WorstError, got: f64, want: f64, what: &str| {
+                let e = times.record(got, want, || format!("{name}: {what}"));
+                assert!(e < 1e-8, "{name}: {what} {got} vs scipy {want}");
+            };
+            match case.choked_for_s {
+                Some(want) => time(&mut times, f.choked_for.si(), want, "choked for"),
+                None => assert!(f.choked_for.si().is_infinite(), "{name}: choked throughout"),
+            }
+            match (f.end, case.end.as_str()) {
+                (BlowdownEnd::Ambient { after }, "ambient") => {
+                    time(&mut times, after.si(), case.end_after_s, "time to ambient")
+                }
+                (BlowdownEnd::Steady { pressure, after }, "steady") => {
+                    time(
+                        &mut times,
+                        after.si(),
+                        case.end_after_s,
+                        "settled within 1 %",
+                    );
+                    let p_ss = case.steady_pressure_pa.unwrap();
+                    assert!(
+                        rel_err(pressure.si() - case.ambient_pa, p_ss - case.ambient_pa) < 1e-9,
+                        "{name}: steady pressure {pressure} vs {p_ss}"
+                    );
+                }
+                (end, want) => panic!("{name}: ended {end:?}, scipy says {want}"),
+            }
+            let total_scale = case.released_by_end_kg.max(case.initial_gas_kg);
+            assert!(
+                (f.released_by_end.si() - case.released_by_end_kg).abs() < 1e-6 * total_scale,
+                "{name}: released by the end {} vs {}",
+                f.released_by_end,
+                case.released_by_end_kg
+            );
+            let excess0 = case.initial_pa - case.ambient_pa;
+            for (got, want) in f.horizons.iter().zip(&case.horizons) {
+                let at = || format!("{name} at {} s", want.after_s);
+                let excess = got.pressure.si() - case.ambient_pa;
+                let want_excess = want.pressure_pa - case.ambient_pa;
+                states.record(excess / excess0 + 1.0, want_excess / excess0 + 1.0, at);
+                assert!(
+                    (excess - want_excess).abs() < 1e-8 * excess0,
+                    "{} at {} s: excess pressure {excess} vs {want_excess}",
+                    name,
+                    want.after_s
+                );
+                let scale = case.initial_gas_kg + case.supply_kg_s * want.after_s;
+                states.record(
+                    got.released.si() / scale + 1.0,
+                    want.released_kg / scale + 1.0,
+                    at,
+                );
+                assert!(
+                    (got.released.si() - want.released_kg).abs() < 1e-8 * scale,
+                    "{name} at {} s: released {} vs {}",
+                    want.after_s,
+                    got.released,
+                    want.released_kg
+                );
+                assert!(
+                    (got.temperature.si() - want.temperature_k).abs() < 1e-7 * case.temperature_k,
+                    "{name} at {} s: temperature {} vs {}",
+                    want.after_s,
+                    got.temperature,
+                    want.temperature_k
+                );
+                assert!(
+                    (got.rate.si() - want.rate_kg_s).abs() < 1e-6 * case.initial_rate_kg_s,
+                    "{name} at {} s: rate {} vs {}",
+                    want.after_s,
+                    got.rate,
+                    want.rate_kg_s
+                );
+            }
+            for (got, &(q, want)) in f.release_times.iter().zip(&case.release_times) {
+                match (got, want) {
+                    (Some(got), Some(want)) => {
+                        time(&mut times, got.si(), want, &format!("{q} kg released"))
+                    }
+                    (None, None) => {}
+                    (got, want) => panic!("{name}: {q} kg released at {got:?}, scipy {want:?}"),
+                }
+            }
+        }
+    }
+
+    /// The choked phase against its closed forms (analytic solutions of
+    /// dp/dt = -p/tau, isothermal, and dp/dt = -(k/tau) p (p/p0)^((k-1)/(2k)),
+    /// adiabatic, with tau = V/(Cd A psi* sqrt(R T0/M)), psi*² =
+    /// k (2/(k+1))^((k+1)/(k-1))), written out here from the equations; and
+    /// the isothermal choked blowdown with the supply on, which the model
+    /// integrates in time, against the analytic solution of the linear ODE
+    /// dp/dt = R T0 s/(M V) - p/tau: p = p_ss + (p0 - p_ss) exp(-t/tau),
+    /// p_ss = tau R T0 s/(M V).
+    #[test]
+    fn blowdown_choked_phase_matches_its_closed_forms() {
+        let (molar_mass, k, t0) = NITROGEN;
+        let (volume, cd, d_hole, p0) = (3.0, 0.61, 0.02, AMBIENT + 500e3);
+        let area = PI / 4.0 * d_hole * d_hole;
+        let psi = (k * (2.0 / (k + 1.0)).powf((k + 1.0) / (k - 1.0))).sqrt();
+        let tau = volume / (cd * area * psi * (GAS_CONSTANT * t0 / molar_mass).sqrt());
+        let critical = AMBIENT / (2.0 / (k + 1.0)).powf(k / (k - 1.0));
+        let mut worst = WorstError::new("choked blowdown vs closed forms");
+        for thermal in [Thermal::Isothermal, Thermal::Adiabatic] {
+            let b = problem(volume, NITROGEN, p0, AMBIENT, cd, d_hole, 0.0, thermal);
+            assert!(rel_err(b.time_constant().si(), tau) < 1e-14);
+            let closed = |t: f64| match thermal {
+                Thermal::Isothermal => p0 * (-t / tau).exp(),
+                Thermal::Adiabatic => {
+                    p0 * (1.0 + 0.5 * (k - 1.0) * t / tau).powf(-2.0 * k / (k - 1.0))
+                }
+            };
+            let t_critical = match thermal {
+                Thermal::Isothermal => tau * (p0 / critical).ln(),
+                Thermal::Adiabatic => {
+                    2.0 * tau / (k - 1.0) * ((p0 / critical).powf((k - 1.0) / (2.0 * k)) - 1.0)
+                }
+            };
+            let horizons: Vec<TimeSpan> = (0..10)
+                .map(|i| TimeSpan::seconds(t_critical * i as f64 / 10.0))
+                .collect();
+            let f = b.forecast(&horizons, &[]).unwrap();
+            let e = worst.record(f.choked_for.si(), t_critical, || {
+                format!("{} choked for", thermal.name())
+            });
+            assert!(e < 1e-13, "{}: choked for {}", thermal.name(), f.choked_for);
+            for point in &f.horizons {
+                let t = point.after.si();
+                let e = worst.record(point.pressure.si(), closed(t), || {
+                    format!("{} at {t:.1} s", thermal.name())
+                });
+                assert!(e < 1e-13, "{} at {t} s", thermal.name());
+                assert_eq!(point.regime, Some(GasRegime::Choked));
+            }
+        }
+
+        // Supply on, choked throughout (p_ss above the critical pressure).
+        let supply = 0.15;
+        let b = problem(
+            volume,
+            NITROGEN,
+            p0,
+            AMBIENT,
+            cd,
+            d_hole,
+            supply,
+            Thermal::Isothermal,
+        );
+        let per_pa = volume * molar_mass / (GAS_CONSTANT * t0);
+        let p_ss = tau * supply / per_pa;
+        assert!(p_ss > critical, "the case must stay choked");
+        let horizons: Vec<TimeSpan> = [0.5, 5.0, 20.0, 60.0, 150.0, 400.0]
+            .map(TimeSpan::seconds)
+            .to_vec();
+        let f = b.forecast(&horizons, &[]).unwrap();
+        assert!(f.choked_for.si().is_infinite());
+        for point in &f.horizons {
+            let t = point.after.si();
+            let p = p_ss + (p0 - p_ss) * (-t / tau).exp();
+            let e = worst.record(point.pressure.si() - AMBIENT, p - AMBIENT, || {
+                format!("supply on at {t} s")
+            });
+            assert!(e < 1e-9, "supply on at {t} s: {} vs {p}", point.pressure);
+            // Released: the supply fed plus the gas the ullage lost.
+            let released = supply * t + (p0 - p) * per_pa;
+            let e = worst.record(point.released.si(), released, || {
+                format!("supply on, released at {t} s")
+            });
+            assert!(
+                e < 1e-9,
+                "released at {t} s: {} vs {released}",
+                point.released
+            );
+        }
+        match f.end {
+            BlowdownEnd::Steady { pressure, .. } => {
+                assert!(rel_err(pressure.si(), p_ss) < 1e-12, "{pressure} vs {p_ss}")
+            }
+            other => panic!("{other:?}"),
+        }
+    }
+
+    /// Mass conservation: what the forecast says has left equals the
+    /// integral of its own outflow over time (composite Simpson's rule over
+    /// 2 000 intervals, split at the end of choking, where the rate has a
+    /// kink), supply off and on, both bounds.
+    #[test]
+    fn blowdown_conserves_mass() {
+        let mut worst = WorstError::new("blowdown released vs integral of the outflow");
+        for supply in [0.0, 0.05] {
+            for thermal in [Thermal::Isothermal, Thermal::Adiabatic] {
+                let b = problem(
+                    3.0,
+                    NITROGEN,
+                    AMBIENT + 500e3,
+                    AMBIENT,
+                    0.61,
+                    0.02,
+                    supply,
+                    thermal,
+                );
+                let first = b.forecast(&[], &[]).unwrap();
+                let t_choke = first.choked_for.si();
+                let t_end = 250.0;
+                // Split where the rate has a kink: the end of choking and
+                // (supply off) the arrival at ambient.
+                let t_ambient = match first.end {
+                    BlowdownEnd::Ambient { after } => after.si(),
+                    _ => 0.5 * (t_choke + t_end),
+                };
+                let mut total = 0.0;
+                for (a, z) in [(0.0, t_choke), (t_choke, t_ambient), (t_ambient, t_end)] {
+                    let n = 1000;
+                    let times: Vec<TimeSpan> = (0..=n)
+                        .map(|i| TimeSpan::seconds(a + (z - a) * i as f64 / n as f64))
+                        .collect();
+                    let f = b.forecast(&times, &[]).unwrap();
+                    let h = (z - a) / n as f64;
+                    let simpson: f64 = f
+                        .horizons
+                        .iter()
+                        .enumerate()
+                        .map(|(i, p)| {
+                            let w = if i == 0 || i == n {
+                                1.0
+                            } else if i % 2 == 1 {
+                                4.0
+                            } else {
+                                2.0
+                            };
+                            w * p.rate.si()
+                        })
+                        .sum::<f64>()
+                        * h
+                        / 3.0;
+                    total += simpson;
+                }
+                let f = b.forecast(&[TimeSpan::seconds(t_end)], &[]).unwrap();
+                let label = format!("{} supply {supply} kg/s", thermal.name());
+                let e = worst.record(total, f.horizons[0].released.si(), || label.clone());
+                assert!(
+                    e < 1e-8,
+                    "{label}: integral {total} vs released {}",
+                    f.horizons[0].released
+                );
+                if supply == 0.0 {
+                    assert!(f.released_by_end <= f.initial_gas);
+                }
+            }
+        }
+    }
+
+    /// The supply-on steady state: the pressure settles where the outflow
+    /// at T0 (by `gas_mass_rate`, the orifice module's nozzle equations)
+    /// equals the supply, for both bounds, and the release then grows at
+    /// the supply rate (the steady state of dm/dt = s - w and, adiabatic,
+    /// of the energy balance, which gives T = T0).
+    #[test]
+    fn blowdown_with_supply_settles_where_the_outflow_equals_the_supply() {
+        let (molar_mass, k, t0) = NITROGEN;
+        let gas = GasProperties::new(
+            MolarMass::kg_per_mol(molar_mass),
+            k,
+            Temperature::kelvin(t0),
+        )
+        .unwrap();
+        let area = Length::metres(0.0254).circle_area();
+        for supply in [0.001, 0.017, 0.08] {
+            for thermal in [Thermal::Isothermal, Thermal::Adiabatic] {
+                let b = problem(
+                    2.2,
+                    NITROGEN,
+                    AMBIENT + 15e3,
+                    AMBIENT,
+                    1.0,
+                    0.0254,
+                    supply,
+                    thermal,
+                );
+                // Far past the slowest settling (the adiabatic gas warming
+                // back to T0 takes a few turnovers of the ullage, hours for
+                // the smallest supply).
+                let far = [TimeSpan::hours(100.0), TimeSpan::hours(101.0)];
+                let f = b.forecast(&far, &[]).unwrap();
+                let label = format!("{} supply {supply} kg/s", thermal.name());
+                let p = f.horizons[0].pressure;
+                let (outflow, _) = gas_mass_rate(
+                    DischargeCoefficient::CONSERVATIVE,
+                    area,
+                    p,
+                    AbsolutePressure::pascals(AMBIENT),
+                    &gas,
+                );
+                assert!(
+                    rel_err(outflow.si(), supply) < 1e-6,
+                    "{label}: outflow {outflow} at {p}"
+                );
+                let temperature = f.horizons[0].temperature;
+                assert!(
+                    rel_err(temperature.si(), t0) < 1e-8,
+                    "{label}: {temperature} after {:?}",
+                    f.end
+                );
+                let growth = (f.horizons[1].released.si() - f.horizons[0].released.si()) / 3600.0;
+                assert!(rel_err(growth, supply) < 1e-8, "{label}: grows at {growth}");
+                let steady = b.steady_pressure().unwrap();
+                assert!(
+                    rel_err(steady.si() - AMBIENT, p.si() - AMBIENT) < 1e-8,
+                    "{label}: steady pressure {steady} vs {p} reached"
+                );
+            }
+        }
+    }
+
+    /// Near ambient the nozzle equation tends to the incompressible orifice
+    /// equation w = Cd A sqrt(2 rho dP) (analytic limit as dP/p -> 0), and
+    /// the isothermal blowdown to the Torricelli-like solution
+    /// sqrt(dP) = sqrt(dP0) - K t / 2, K = R T0/(M V) Cd A sqrt(2 rho), so it
+    /// reaches ambient at 2 sqrt(dP0)/K; the adiabatic bound, whose pressure
+    /// falls k times faster for the same outflow, at that over k. The
+    /// neglected terms are of the order dP/p, 2e-4 here.
+    #[test]
+    fn a_small_overpressure_blows_down_as_the_incompressible_limit_says() {
+        let (molar_mass, k, t0) = NITROGEN;
+        let (volume, cd, d_hole, dp0): (f64, f64, f64, f64) = (5.0, 0.8, 0.01, 20.0);
+        let rho = AMBIENT * molar_mass / (GAS_CONSTANT * t0);
+        let big_k = GAS_CONSTANT * t0 / (molar_mass * volume)
+            * cd
+            * (PI / 4.0 * d_hole * d_hole)
+            * (2.0 * rho).sqrt();
+        let t_iso = 2.0 * dp0.sqrt() / big_k;
+        for (thermal, expected) in [
+            (Thermal::Isothermal, t_iso),
+            (Thermal::Adiabatic, t_iso / k),
+        ] {
+            let b = problem(
+                volume,
+                NITROGEN,
+                AMBIENT + dp0,
+                AMBIENT,
+                cd,
+                d_hole,
+                0.0,
+                thermal,
+            );
+            let f = b
+                .forecast(&[TimeSpan::seconds(0.5 * expected)], &[])
+                .unwrap();
+            let BlowdownEnd::Ambient { after } = f.end else {
+                panic!("{:?}", f.end)
+            };
+            let e = rel_err(after.si(), expected);
+            println!("incompressible limit, {}: {e:.2e}", thermal.name());
+            assert!(e < 1e-3, "{}: {after} vs {expected} s", thermal.name());
+            assert_eq!(f.horizons[0].regime, Some(GasRegime::Subcritical));
         }
     }
 }

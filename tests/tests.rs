@@ -21,6 +21,8 @@
 //!   processes, against the simulator's ground truth.
 //! * `web`: the daemon's responder page in headless chromium against
 //!   `status --json`, and its metrics through prometheus-client.
+//! * `whatif`: `leaktally whatif` as a user runs it, the headspace read
+//!   from a database a daemon fills from the simulator.
 //! * `util`: shared helpers.
 
 mod acquisition;
@@ -36,3 +38,4 @@ mod replay;
 mod tracking;
 mod util;
 mod web;
+mod whatif;

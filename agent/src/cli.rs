@@ -70,7 +70,8 @@ pub enum Command {
         #[arg(long, default_value = DEFAULT_DB)]
         db: PathBuf,
     },
-    /// Pre-planning figures for a tank and hole sizes that have not happened.
+    /// Pre-planning figures for a tank and hole sizes that have not happened:
+    /// liquid below the surface, the headspace gas above it.
     Whatif {
         /// The tank's id (tag) in the config.
         #[arg(long)]
@@ -80,18 +81,52 @@ pub enum Command {
         config: PathBuf,
         /// Hole diameters in mm, comma-separated (default: 6.35,25.4,101.6,
         /// the small, medium and large holes of risk-based inspection).
-        #[arg(long, value_name = "MM[,MM...]")]
+        #[arg(long, value_name = "MM[,MM...]", conflicts_with = "hole_area")]
         hole_diameter: Option<String>,
-        /// Height of the hole above the tank bottom, m (default: the bottom).
-        #[arg(long, value_name = "M", default_value_t = 0.0)]
-        hole_height: f64,
+        /// Hole areas in mm², comma-separated, instead of diameters (each
+        /// taken as the round hole of that area).
+        #[arg(long, value_name = "MM2[,MM2...]")]
+        hole_area: Option<String>,
+        /// Height of the hole above the tank bottom, m (default: the bottom,
+        /// which releases the most). Above the liquid, the headspace gas vents.
+        #[arg(long, value_name = "M", allow_negative_numbers = true)]
+        hole_height: Option<f64>,
         /// Liquid level, m (default: 90 % of the tank's height).
-        #[arg(long, value_name = "M")]
+        #[arg(long, value_name = "M", allow_negative_numbers = true)]
         level: Option<f64>,
+        /// Also give the time until the liquid falls to this level, m.
+        #[arg(long, value_name = "M", allow_negative_numbers = true)]
+        to_level: Option<f64>,
+        /// Headspace pressure, kPa gauge (default: the last logged reading
+        /// with --db, else the config's nominal_headspace_kpa or
+        /// headspace_kpa, else 0 with a warning).
+        #[arg(
+            long,
+            value_name = "KPA",
+            allow_negative_numbers = true,
+            conflicts_with = "headspace_abs"
+        )]
+        headspace: Option<f64>,
+        /// Headspace pressure, kPa absolute, instead of --headspace.
+        #[arg(long, value_name = "KPA", allow_negative_numbers = true)]
+        headspace_abs: Option<f64>,
+        /// Read the tank's last good pressure from this database (read-only)
+        /// for the headspace.
+        #[arg(long, value_name = "FILE")]
+        db: Option<PathBuf>,
+        /// Horizons for the released totals, comma-separated (default:
+        /// 15m,1h), like 5m,30m,2h.
+        #[arg(long, value_name = "T[,T...]")]
+        horizons: Option<String>,
+        /// For a hole above the liquid: a blanket regulator keeps feeding pad
+        /// gas at up to this rate, with its unit: 50Nm3/h (0 °C, 101.325
+        /// kPa), 60kg/h or 0.02kg/s (default: off).
+        #[arg(long, value_name = "RATE")]
+        blanket_supply: Option<String>,
         /// Discharge coefficient, 0.1 to 1 (default 1.0, conservative).
-        #[arg(long, default_value_t = 1.0)]
-        cd: f64,
-        /// Print JSON instead of the table.
+        #[arg(long, allow_negative_numbers = true)]
+        cd: Option<f64>,
+        /// Print JSON instead of the tables.
         #[arg(long)]
         json: bool,
     },
@@ -282,11 +317,19 @@ pub fn run(cli: Cli) -> anyhow::Result<()> {
             tank,
             config,
             hole_diameter,
+            hole_area,
             hole_height,
             level,
+            to_level,
+            headspace,
+            headspace_abs,
+            db,
+            horizons,
+            blanket_supply,
             cd,
             json,
         } => {
+            use commands::whatif::{self, HeadspaceGiven, HoleSize};
             let config = crate::config::load(&config)?;
             let Some(t) = config.tanks.iter().find(|t| t.id == tank) else {
                 let known: Vec<&str> = config.tanks.iter().map(|t| t.id.as_str()).collect();
@@ -296,25 +339,57 @@ pub fn run(cli: Cli) -> anyhow::Result<()> {
                     known.join(", ")
                 );
             };
-            let holes = match hole_diameter {
-                Some(text) => commands::whatif::parse_holes(&text)?,
-                None => commands::whatif::REPRESENTATIVE_HOLES_MM.to_vec(),
+            let mut holes = Vec::new();
+            if let Some(text) = hole_diameter {
+                holes.extend(
+                    whatif::parse_holes(&text)?
+                        .into_iter()
+                        .map(HoleSize::Diameter),
+                );
+            }
+            if let Some(text) = hole_area {
+                holes.extend(
+                    whatif::parse_hole_areas(&text)?
+                        .into_iter()
+                        .map(HoleSize::Area),
+                );
+            }
+            let metres = |value: Option<f64>, option: &str| -> anyhow::Result<_> {
+                match value {
+                    Some(m) if !m.is_finite() || m < 0.0 => anyhow::bail!(
+                        "{option} {m} must be a height above the tank bottom in metres, 0 or more"
+                    ),
+                    other => Ok(other.map(crate::model::Length::metres)),
+                }
             };
-            let level = level.map_or(
-                commands::whatif::default_level(t),
-                crate::model::Length::metres,
-            );
-            let study = commands::whatif::study(
-                t,
-                level,
-                crate::model::Length::metres(hole_height),
-                crate::model::DischargeCoefficient::new(cd)?,
-                &holes,
-            )?;
+            let given = match (headspace, headspace_abs) {
+                (Some(kpa), _) => Some(HeadspaceGiven::Gauge(kpa)),
+                (None, Some(kpa)) => Some(HeadspaceGiven::Absolute(kpa)),
+                (None, None) => None,
+            };
+            let request = whatif::Request {
+                level: metres(level, "--level")?,
+                hole_height: metres(hole_height, "--hole-height")?,
+                cd: cd
+                    .map(crate::model::DischargeCoefficient::new)
+                    .transpose()?,
+                holes,
+                headspace: whatif::headspace(t, given, db.as_deref(), crate::store::now_ms())?,
+                horizons: horizons
+                    .as_deref()
+                    .map(whatif::parse_horizons)
+                    .transpose()?,
+                to_level: metres(to_level, "--to-level")?,
+                supply: blanket_supply
+                    .as_deref()
+                    .map(whatif::parse_supply)
+                    .transpose()?,
+            };
+            let study = whatif::compute(t, &request)?;
             if json {
                 println!("{}", serde_json::to_string_pretty(&study)?);
             } else {
-                print!("{}", commands::whatif::human(&study));
+                print!("{}", whatif::human(&study));
             }
             Ok(())
         }

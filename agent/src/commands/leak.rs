@@ -116,19 +116,39 @@ fn check_density(density: Option<f64>) -> anyhow::Result<Option<f64>> {
     }
 }
 
+/// The hole sizes the command line accepts, as a round hole's diameter in
+/// mm: from 0.1 mm (smaller than any hole a tank leaks through, and a size
+/// whose flow is below what any level gauge could see) to 5 m (past a
+/// tank's wall; more likely metres typed for millimetres). The one rule for
+/// every command that takes a hole: `leak open`, `leak revise`, `replay` and
+/// `whatif`, whether the size is given as a diameter or an area.
+pub const HOLE_DIAMETER_RANGE_MM: (f64, f64) = (0.1, 5000.0);
+
+/// Why a round hole of this diameter (mm) is refused, or `None` when it is
+/// accepted; the words follow the figure in the caller's message.
+pub fn hole_diameter_refusal(mm: f64) -> Option<&'static str> {
+    let (min, max) = HOLE_DIAMETER_RANGE_MM;
+    if !(mm.is_finite() && mm > 0.0) {
+        Some("is not a positive size")
+    } else if mm < min {
+        Some("is below 0.1 mm, smaller than any hole a tank leaks through")
+    } else if mm > max {
+        Some("is over 5 m")
+    } else {
+        None
+    }
+}
+
 impl HoleArgs {
     pub fn diameter_m(&self) -> anyhow::Result<Option<f64>> {
         match self.hole_diameter {
-            Some(mm) if !(mm.is_finite() && mm > 0.0) => {
-                bail!("--hole-diameter {mm} must be a positive number of millimetres")
-            }
-            Some(mm) if mm < 0.1 => bail!(
-                "--hole-diameter {mm} mm is below 0.1 mm, smaller than any hole a tank leaks through; the option takes millimetres"
-            ),
-            Some(mm) if mm > 5000.0 => bail!(
-                "--hole-diameter {mm} mm is over 5 m; the option takes millimetres (25 for a one-inch hole)"
-            ),
-            other => Ok(other.map(|mm| mm / 1000.0)),
+            Some(mm) => match hole_diameter_refusal(mm) {
+                Some(why) => bail!(
+                    "--hole-diameter {mm} mm {why}; the option takes millimetres (25 for a one-inch hole)"
+                ),
+                None => Ok(Some(mm / 1000.0)),
+            },
+            None => Ok(None),
         }
     }
 
@@ -321,7 +341,7 @@ pub fn parse_since(text: &str, now_ms: i64) -> anyhow::Result<i64> {
 const MAX_AGO: Duration = Duration::from_secs(366 * 86_400);
 
 /// `90s`, `5m`, `1h30m`, `2h`: a duration from number-and-unit parts.
-fn parse_duration(text: &str) -> Option<Duration> {
+pub fn parse_duration(text: &str) -> Option<Duration> {
     let mut total = 0.0;
     let mut number = String::new();
     let mut any = false;

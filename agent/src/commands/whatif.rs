@@ -1,19 +1,44 @@
 //! `leaktally whatif`: pre-planning figures for holes that have not happened.
 //!
-//! For each hole size: the initial rate, when the liquid flow stops, the
-//! total released by then, the totals at +15 min and +1 h, and when each
-//! reportable quantity is reached, at the chosen Cd with the band from 0.61
-//! to 1.0. The forecast assumes the headspace gauge pressure stays as it
-//! is, no pumping, and a hole that does not grow.
+//! For each hole size, at a level and a headspace pressure: which phase
+//! leaves (liquid when the surface is above the hole, the headspace gas when
+//! it is below) and then
+//!
+//! * liquid: the initial rate in kg/s and m³/h, when the flow stops, the
+//!   release by then and by each horizon, at the chosen Cd with the band from
+//!   Cd 0.61 to 1.0, by the draining forecast;
+//! * gas: the blowdown of the gas space to ambient (or to the pressure a
+//!   blanket supply holds) between its isothermal and adiabatic bounds, by
+//!   `model::blowdown`: the initial rate, how long the flow stays choked,
+//!   when it ends, the release by each horizon and in total;
+//!
+//! and when each reportable quantity (and a given level) is reached.
+//! Everything the figures rest on is said with where it came from: above
+//! all the headspace pressure (the command line, the database's last good
+//! reading, the config's nominal blanket pressure, or 0 kPa with a warning),
+//! which a blanketed tank's figures depend on most.
+//!
+//! Left out: a hole that grows, pumping, two-phase jets, and the gas that
+//! vents through a hole below the surface once the liquid has gone (a study
+//! with the hole above the liquid gives that).
 
 use crate::config::Tank;
+use crate::model::blowdown::{Blowdown, BlowdownEnd, BlowdownForecast, Thermal, Ullage};
 use crate::model::{
-    DischargeCoefficient, Hole, Length, Mass, ModelResult, TankState, TimeSpan,
-    forecast::time_to_release, forecast_liquid,
+    AbsolutePressure, DischargeCoefficient, GAS_CONSTANT, GasProperties, GasRegime, Hole, Length,
+    Mass, MassRate, Pressure, PressureReading, PressureTap, TankState, TimeSpan,
+    blowdown::ullage_volume, forecast::time_to_release, forecast_liquid,
 };
 use crate::report;
+use crate::store;
+use anyhow::{Context, bail};
 use serde::Serialize;
+use std::f64::consts::FRAC_PI_4;
 use std::fmt::Write as _;
+use std::path::Path;
+
+/// The version of the JSON document; fields are only ever added.
+pub const FORMAT: u32 = 1;
 
 /// Representative hole sizes for pre-planning: the small, medium and large
 /// release holes of 1/4 in, 1 in and 4 in used in risk-based inspection
@@ -21,188 +46,1825 @@ use std::fmt::Write as _;
 /// left out because the orifice equation does not describe it).
 pub const REPRESENTATIVE_HOLES_MM: [f64; 3] = [6.35, 25.4, 101.6];
 
-/// The figures for one hole size.
-#[derive(Debug, Clone, Serialize)]
-pub struct HoleFigures {
-    pub hole_diameter_mm: f64,
-    pub cd: f64,
-    pub initial_rate_kg_s: f64,
-    pub initial_rate_low_kg_s: f64,
-    pub initial_rate_high_kg_s: f64,
-    /// At the chosen Cd, and at the band's ends (a higher Cd drains faster).
-    pub stops_after_s: f64,
-    pub stops_after_low_cd_s: f64,
-    pub stops_after_high_cd_s: f64,
-    pub total_at_stop_kg: f64,
-    pub in_15_min_kg: [f64; 3],
-    pub in_1_h_kg: [f64; 3],
-    /// (quantity, seconds until reached at the chosen Cd; None if never).
-    pub reportable: Vec<(f64, Option<f64>)>,
+/// The horizons when none are given: +15 min and +1 h.
+pub const DEFAULT_HORIZONS: [TimeSpan; 2] = [TimeSpan::minutes(15.0), TimeSpan::hours(1.0)];
+
+/// The normal conditions of a normal cubic metre of gas, 0 °C and
+/// 101.325 kPa (common practice, as in DIN 1343).
+pub const NORMAL_TEMPERATURE_K: f64 = 273.15;
+pub const NORMAL_PRESSURE_PA: f64 = 101_325.0;
+
+/// A logged pressure older than this is said to be old.
+const OLD_READING_S: f64 = 3600.0;
+
+/// The most hole sizes and horizons a study takes (the tables stay legible).
+const MAX_HOLES: usize = 12;
+const MAX_HORIZONS: usize = 8;
+
+/// The longest horizon: a year is past any emergency's planning.
+const MAX_HORIZON_S: f64 = 366.0 * 86_400.0;
+
+// ---------------------------------------------------------------------------
+// What the study is asked
+
+/// A hole size as the user gave it.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub enum HoleSize {
+    /// `--hole-diameter`, mm.
+    Diameter(f64),
+    /// `--hole-area`, mm²: the round hole of the same area.
+    Area(f64),
+    /// One of [`REPRESENTATIVE_HOLES_MM`], when no size is given.
+    Representative(f64),
 }
 
-/// A what-if study of one tank.
+impl HoleSize {
+    pub fn diameter_mm(self) -> f64 {
+        match self {
+            HoleSize::Diameter(mm) | HoleSize::Representative(mm) => mm,
+            HoleSize::Area(mm2) => (mm2 / FRAC_PI_4).sqrt(),
+        }
+    }
+
+    pub fn area_mm2(self) -> f64 {
+        match self {
+            HoleSize::Area(mm2) => mm2,
+            other => FRAC_PI_4 * other.diameter_mm().powi(2),
+        }
+    }
+
+    fn given_as(self) -> &'static str {
+        match self {
+            HoleSize::Diameter(_) => "diameter",
+            HoleSize::Area(_) => "area",
+            HoleSize::Representative(_) => "representative",
+        }
+    }
+}
+
+/// A headspace pressure given on the command line, kPa.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub enum HeadspaceGiven {
+    /// `--headspace`: gauge.
+    Gauge(f64),
+    /// `--headspace-abs`: absolute.
+    Absolute(f64),
+}
+
+/// A blanket supply as given: the pad gas rate and its unit.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub enum SupplyGiven {
+    KgPerHour(f64),
+    KgPerSecond(f64),
+    /// Normal cubic metres per hour (0 °C, 101.325 kPa).
+    NormalCubicMetresPerHour(f64),
+}
+
+/// Everything a study needs besides the tank.
+#[derive(Debug, Clone)]
+pub struct Request {
+    /// `None`: the default, 90 % of the tank's height.
+    pub level: Option<Length>,
+    /// `None`: the tank bottom, which releases the most.
+    pub hole_height: Option<Length>,
+    /// `None`: 1.0, the conservative figure.
+    pub cd: Option<DischargeCoefficient>,
+    /// Empty: the representative sizes.
+    pub holes: Vec<HoleSize>,
+    pub headspace: Headspace,
+    /// `None`: +15 min and +1 h.
+    pub horizons: Option<Vec<TimeSpan>>,
+    pub to_level: Option<Length>,
+    pub supply: Option<SupplyGiven>,
+}
+
+impl Request {
+    /// The plain request: defaults throughout, the headspace from the config.
+    pub fn for_tank(tank: &Tank) -> Self {
+        Self {
+            level: None,
+            hole_height: None,
+            cd: None,
+            holes: Vec::new(),
+            headspace: headspace_from_config(tank, Vec::new()),
+            horizons: None,
+            to_level: None,
+            supply: None,
+        }
+    }
+}
+
+// ---------------------------------------------------------------------------
+// The headspace pressure and where it comes from
+
+/// The headspace gauge pressure a study uses, and why.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Headspace {
+    pub gauge: Pressure,
+    pub source: HeadspaceSource,
+    /// What the user should know about it (an assumption, an old reading).
+    pub warnings: Vec<String>,
+}
+
+#[derive(Debug, Clone, PartialEq)]
+pub enum HeadspaceSource {
+    /// `--headspace`.
+    GivenGauge,
+    /// `--headspace-abs`, converted with the site's ambient pressure.
+    GivenAbsolute,
+    /// The last good reading of the tank's transmitter in the database.
+    Logged(LoggedReading),
+    /// The config's `nominal_headspace_kpa`.
+    ConfigNominal,
+    /// The config's `headspace_kpa` (a tank without a transmitter; 0, an open
+    /// vent, when left out).
+    ConfigAssumed,
+    /// Nothing gave it: 0 kPa gauge for a tank with a transmitter.
+    AssumedZero,
+}
+
+/// A transmitter reading taken from the database.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct LoggedReading {
+    pub database: String,
+    pub at_ms: i64,
+    pub at: String,
+    /// How old it was when the study was made.
+    pub age_s: f64,
+    /// The transmitter's value, Pa, in its own reference.
+    pub reading_pa: f64,
+    pub reference: &'static str,
+    /// `headspace`, or `submerged` with the tap's elevation.
+    pub tap: &'static str,
+    pub tap_elevation_m: Option<f64>,
+    /// The level logged with it (a submerged tap also reads the column).
+    pub level_m: Option<f64>,
+}
+
+impl HeadspaceSource {
+    fn name(&self) -> &'static str {
+        match self {
+            HeadspaceSource::GivenGauge => "given_gauge",
+            HeadspaceSource::GivenAbsolute => "given_absolute",
+            HeadspaceSource::Logged(_) => "logged",
+            HeadspaceSource::ConfigNominal => "config_nominal",
+            HeadspaceSource::ConfigAssumed => "config_assumed",
+            HeadspaceSource::AssumedZero => "assumed_zero",
+        }
+    }
+
+    fn explain(&self) -> String {
+        match self {
+            HeadspaceSource::GivenGauge => "given with --headspace".to_owned(),
+            HeadspaceSource::GivenAbsolute => {
+                "given with --headspace-abs, less the site's ambient pressure".to_owned()
+            }
+            HeadspaceSource::Logged(r) => format!(
+                "the last good pressure reading in {}, at {} ({} old)",
+                r.database,
+                r.at,
+                report::duration(TimeSpan::seconds(r.age_s))
+            ),
+            HeadspaceSource::ConfigNominal => {
+                "the nominal blanket pressure in the config (nominal_headspace_kpa)".to_owned()
+            }
+            HeadspaceSource::ConfigAssumed => {
+                "the config's assumed headspace for a tank without a pressure transmitter (headspace_kpa; 0, an open vent, when left out)"
+                    .to_owned()
+            }
+            HeadspaceSource::AssumedZero => {
+                "ASSUMED: nothing gave it (no --headspace, no --db reading, no nominal_headspace_kpa)"
+                    .to_owned()
+            }
+        }
+    }
+}
+
+/// The headspace from the config alone: the nominal blanket pressure of a
+/// tank with a transmitter, the assumed headspace of one without, or 0 kPa
+/// with a warning.
+pub fn headspace_from_config(tank: &Tank, mut warnings: Vec<String>) -> Headspace {
+    match (&tank.pressure, tank.nominal_headspace) {
+        (None, _) => Headspace {
+            gauge: tank.assumed_headspace,
+            source: HeadspaceSource::ConfigAssumed,
+            warnings,
+        },
+        (Some(_), Some(nominal)) => Headspace {
+            gauge: nominal,
+            source: HeadspaceSource::ConfigNominal,
+            warnings,
+        },
+        (Some(_), None) => {
+            warnings.push(format!(
+                "the headspace pressure of tank {} is taken as 0 kPa gauge, but the tank has a pressure transmitter, so it may be blanketed or pressurised: the figures may be low (the unsafe side). Give --headspace KPA, --db FILE for the last logged reading, or nominal_headspace_kpa in the config",
+                tank.id
+            ));
+            Headspace {
+                gauge: Pressure::ZERO,
+                source: HeadspaceSource::AssumedZero,
+                warnings,
+            }
+        }
+    }
+}
+
+/// The headspace a study uses: as given, else the last good reading in the
+/// database (when one is given), else from the config.
+pub fn headspace(
+    tank: &Tank,
+    given: Option<HeadspaceGiven>,
+    db: Option<&Path>,
+    now_ms: i64,
+) -> anyhow::Result<Headspace> {
+    let ambient_kpa = tank.vessel.ambient().si() / 1000.0;
+    let mut warnings = Vec::new();
+    if let Some(given) = given {
+        let (gauge_kpa, source) = match given {
+            HeadspaceGiven::Gauge(kpa) => {
+                if !(kpa.is_finite() && kpa > -ambient_kpa && kpa <= 10_000.0) {
+                    bail!(
+                        "--headspace {kpa} kPa is not a gauge pressure the tank can hold: give kPa above ambient, from above -{ambient_kpa} (a full vacuum) to 10000"
+                    );
+                }
+                if (kpa - ambient_kpa).abs() < 5.0 {
+                    warnings.push(format!(
+                        "--headspace {kpa} kPa gauge is about the ambient pressure ({ambient_kpa} kPa absolute); if you meant an absolute pressure, use --headspace-abs {kpa}"
+                    ));
+                }
+                (kpa, HeadspaceSource::GivenGauge)
+            }
+            HeadspaceGiven::Absolute(kpa) => {
+                if !(kpa.is_finite() && kpa > 0.0 && kpa <= 10_000.0 + ambient_kpa) {
+                    bail!(
+                        "--headspace-abs {kpa} kPa is not an absolute pressure the tank can hold: give kPa above a full vacuum, more than 0 and at most {}",
+                        10_000.0 + ambient_kpa
+                    );
+                }
+                if kpa < ambient_kpa - 30.0 {
+                    warnings.push(format!(
+                        "--headspace-abs {kpa} kPa absolute is a deep vacuum ({:.1} kPa gauge); if you meant a gauge pressure, use --headspace {kpa}",
+                        kpa - ambient_kpa
+                    ));
+                }
+                (kpa - ambient_kpa, HeadspaceSource::GivenAbsolute)
+            }
+        };
+        if db.is_some() {
+            warnings.push(
+                "--db is not read for the headspace: the pressure given on the command line takes precedence"
+                    .to_owned(),
+            );
+        }
+        return Ok(Headspace {
+            gauge: Pressure::kilopascals(gauge_kpa),
+            source,
+            warnings,
+        });
+    }
+    if let Some(db) = db {
+        if tank.pressure.is_none() {
+            warnings.push(format!(
+                "tank {} has no pressure transmitter, so {} holds no pressure for it; the headspace comes from the config",
+                tank.id,
+                db.display()
+            ));
+        } else {
+            match last_logged_headspace(tank, db, now_ms)? {
+                Some((gauge, reading)) => {
+                    if reading.age_s > OLD_READING_S {
+                        warnings.push(format!(
+                            "the last good pressure reading of tank {} in {} is {} old ({}); the headspace may have changed since",
+                            tank.id,
+                            reading.database,
+                            report::duration(TimeSpan::seconds(reading.age_s)),
+                            reading.at
+                        ));
+                    }
+                    return Ok(Headspace {
+                        gauge,
+                        source: HeadspaceSource::Logged(reading),
+                        warnings,
+                    });
+                }
+                None => warnings.push(format!(
+                    "{} holds no good pressure reading of tank {}; the headspace comes from the config",
+                    db.display(),
+                    tank.id
+                )),
+            }
+        }
+    }
+    Ok(headspace_from_config(tank, warnings))
+}
+
+/// The tank's latest good pressure reading in the database, read-only, as
+/// the headspace gauge pressure: converted with the transmitter's reference
+/// and tap, as the estimator does (a submerged tap needs the level logged
+/// with it).
+fn last_logged_headspace(
+    tank: &Tank,
+    db: &Path,
+    now_ms: i64,
+) -> anyhow::Result<Option<(Pressure, LoggedReading)>> {
+    let Some(sensor) = &tank.pressure else {
+        return Ok(None);
+    };
+    let conn = store::open_read_only(db)
+        .with_context(|| format!("--db {}: reading the last logged pressure", db.display()))?;
+    // The recent samples first: on a live database the reading is there,
+    // and the whole history is read only when it is not.
+    for from_ms in [now_ms.saturating_sub(15 * 60 * 1000), i64::MIN] {
+        let samples = store::samples_between(&conn, &tank.id, from_ms, i64::MAX)?;
+        for sample in samples.iter().rev() {
+            let Some(value) = sample
+                .pressure
+                .and_then(|r| r.value.filter(|&v| r.is_good() && sensor.sensor.accepts(v)))
+            else {
+                continue;
+            };
+            let level = sample.level.value.filter(|_| sample.level.is_good());
+            let (tap_name, tap_elevation) = match sensor.tap {
+                PressureTap::Headspace => ("headspace", None),
+                PressureTap::Submerged { elevation } => ("submerged", Some(elevation.si())),
+            };
+            let level_for_tap = match (sensor.tap, level) {
+                (PressureTap::Headspace, _) => Length::ZERO,
+                (PressureTap::Submerged { .. }, Some(level)) => Length::metres(level),
+                (PressureTap::Submerged { .. }, None) => continue,
+            };
+            let reading = if sensor.absolute {
+                PressureReading::Absolute(AbsolutePressure::pascals(value))
+            } else {
+                PressureReading::Gauge(Pressure::pascals(value))
+            };
+            let gauge = tank
+                .vessel
+                .headspace_pressure(reading, sensor.tap, level_for_tap);
+            return Ok(Some((
+                gauge,
+                LoggedReading {
+                    database: db.display().to_string(),
+                    at_ms: sample.at_ms,
+                    at: report::utc(sample.at_ms),
+                    age_s: (now_ms - sample.at_ms) as f64 / 1000.0,
+                    reading_pa: value,
+                    reference: if sensor.absolute { "absolute" } else { "gauge" },
+                    tap: tap_name,
+                    tap_elevation_m: tap_elevation,
+                    level_m: level,
+                },
+            )));
+        }
+        if from_ms == i64::MIN {
+            break;
+        }
+    }
+    Ok(None)
+}
+
+// ---------------------------------------------------------------------------
+// The study as figures (the JSON document)
+
+/// A figure at the chosen Cd and at the band's two ends.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
+pub struct AtCd<T> {
+    pub cd_low: T,
+    pub cd_chosen: T,
+    pub cd_high: T,
+}
+
+impl<T> AtCd<T> {
+    fn from_fn(mut f: impl FnMut(usize) -> T) -> Self {
+        Self {
+            cd_low: f(0),
+            cd_chosen: f(1),
+            cd_high: f(2),
+        }
+    }
+}
+
+impl<T: Copy> AtCd<T> {
+    fn map<U>(&self, mut f: impl FnMut(T) -> U) -> AtCd<U> {
+        AtCd {
+            cd_low: f(self.cd_low),
+            cd_chosen: f(self.cd_chosen),
+            cd_high: f(self.cd_high),
+        }
+    }
+}
+
+/// The discharge coefficients of a study.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
+pub struct CdUsed {
+    pub low: f64,
+    pub chosen: f64,
+    pub high: f64,
+    /// Whether `chosen` was given (`--cd`) or is the default 1.0.
+    pub given: bool,
+}
+
+/// A what-if study of one tank (the JSON document, `format` 1).
 #[derive(Debug, Clone, Serialize)]
 pub struct Study {
+    pub format: u32,
     pub tank: String,
-    pub level_m: f64,
-    pub headspace_pa: f64,
-    pub hole_height_m: f64,
+    pub substance: String,
     pub density_kg_m3: f64,
+    pub ambient_pa: f64,
+    pub level_m: f64,
+    /// `given` or `default` (90 % of the tank's height).
+    pub level_source: &'static str,
+    pub headspace: HeadspaceUsed,
+    pub hole_height_m: f64,
+    /// `given` or `default` (the tank bottom).
+    pub hole_height_source: &'static str,
+    pub cd: CdUsed,
+    pub horizons_s: Vec<f64>,
+    /// `given` or `default` (+15 min and +1 h).
+    pub horizons_source: &'static str,
+    pub to_level_m: Option<f64>,
     pub liquid_above_hole_kg: f64,
-    pub holes: Vec<HoleFigures>,
+    pub liquid_above_hole_m3: f64,
+    /// The gas space above the liquid: the tank's capacity less the liquid.
+    pub ullage_volume_m3: f64,
+    pub blanket_supply: Option<SupplyUsed>,
+    pub holes: Vec<HoleStudy>,
+    /// Anything the figures rest on that may be wrong; also in the text.
+    pub warnings: Vec<String>,
+    /// What the figures assume; also in the text.
+    pub assumptions: Vec<String>,
     pub caution: &'static str,
 }
 
-/// Computes the study.
+#[derive(Debug, Clone, Serialize)]
+pub struct HeadspaceUsed {
+    pub gauge_pa: f64,
+    pub absolute_pa: f64,
+    /// `given_gauge`, `given_absolute`, `logged`, `config_nominal`,
+    /// `config_assumed` or `assumed_zero`.
+    pub source: &'static str,
+    pub explanation: String,
+    pub logged: Option<LoggedReading>,
+}
+
+#[derive(Debug, Clone, Serialize)]
+pub struct SupplyUsed {
+    pub kg_s: f64,
+    pub nm3_h: f64,
+    /// As given, e.g. `50 Nm3/h`.
+    pub given: String,
+}
+
+/// The figures for one hole size.
+#[derive(Debug, Clone, Serialize)]
+pub struct HoleStudy {
+    pub diameter_mm: f64,
+    pub area_mm2: f64,
+    /// `diameter`, `area` or `representative`.
+    pub given_as: &'static str,
+    /// `liquid`, `vapour` or `none`.
+    pub phase: &'static str,
+    /// For vapour, at the start: `choked` or `subcritical`.
+    pub regime: Option<&'static str>,
+    /// Why this phase (or nothing) flows.
+    pub reason: String,
+    pub liquid: Option<LiquidFigures>,
+    pub vapour: Option<VapourFigures>,
+}
+
+#[derive(Debug, Clone, Serialize)]
+pub struct LiquidFigures {
+    /// The liquid's gauge pressure at the hole at the start.
+    pub driving_pressure_pa: f64,
+    pub initial_rate_kg_s: AtCd<f64>,
+    pub initial_rate_m3_h: AtCd<f64>,
+    pub stops_after_s: AtCd<f64>,
+    /// Where the flow stops: the hole, or above it under a vacuum.
+    pub stop_level_m: f64,
+    /// The same at every Cd: the liquid between the level and the stop level.
+    pub released_by_stop_kg: f64,
+    pub released_by_stop_m3: f64,
+    pub horizons: Vec<LiquidHorizon>,
+    pub to_level: Option<TimeToLevel>,
+    pub reportable: Vec<ReportableTimes>,
+}
+
+#[derive(Debug, Clone, Serialize)]
+pub struct LiquidHorizon {
+    pub after_s: f64,
+    pub released_kg: AtCd<f64>,
+    pub released_m3: AtCd<f64>,
+    pub level_m: AtCd<f64>,
+    pub rate_kg_s: AtCd<f64>,
+}
+
+#[derive(Debug, Clone, Serialize)]
+pub struct TimeToLevel {
+    pub level_m: f64,
+    /// `None` where the flow stops above that level.
+    pub reached_after_s: AtCd<Option<f64>>,
+}
+
+#[derive(Debug, Clone, Serialize)]
+pub struct ReportableTimes {
+    pub quantity_kg: f64,
+    /// `None` where the release never reaches it.
+    pub reached_after_s: AtCd<Option<f64>>,
+}
+
+#[derive(Debug, Clone, Serialize)]
+pub struct VapourFigures {
+    pub molar_mass_g_mol: f64,
+    pub heat_capacity_ratio: f64,
+    pub temperature_c: f64,
+    pub ullage_volume_m3: f64,
+    pub initial_gas_kg: f64,
+    /// The headspace gauge pressure above which the flow is choked.
+    pub critical_pressure_gauge_pa: f64,
+    pub initial_rate_kg_s: AtCd<f64>,
+    pub initial_rate_nm3_h: AtCd<f64>,
+    /// `off` or `on`.
+    pub supply: &'static str,
+    pub isothermal: AtCd<BlowdownFigures>,
+    pub adiabatic: AtCd<BlowdownFigures>,
+    /// Over both bounds and the Cd band.
+    pub band: Vec<ReleasedBand>,
+    pub released_by_end_band: ReleasedBand,
+    /// Over both bounds and the Cd band.
+    pub reportable: Vec<ReportableRange>,
+}
+
+#[derive(Debug, Clone, Serialize)]
+pub struct BlowdownFigures {
+    /// `None` with `choked_throughout`: a supply holds the flow choked.
+    pub choked_for_s: Option<f64>,
+    pub choked_throughout: bool,
+    /// `ambient`, `steady`, `held` or `no_flow`.
+    pub end: &'static str,
+    /// When the pressure reaches ambient, or when the outflow came within
+    /// 1 % of the supply for good; 0 for `held` and `no_flow`.
+    pub end_after_s: f64,
+    pub end_pressure_gauge_pa: f64,
+    pub released_by_end_kg: f64,
+    /// The release rate after the end: 0 at ambient, the supply once
+    /// steady, the initial rate when held.
+    pub rate_after_end_kg_s: f64,
+    pub horizons: Vec<BlowdownHorizon>,
+    pub reportable: Vec<ReportableTime>,
+}
+
+#[derive(Debug, Clone, Serialize)]
+pub struct BlowdownHorizon {
+    pub after_s: f64,
+    pub pressure_gauge_pa: f64,
+    pub temperature_c: f64,
+    pub rate_kg_s: f64,
+    pub regime: Option<&'static str>,
+    pub released_kg: f64,
+}
+
+#[derive(Debug, Clone, Serialize)]
+pub struct ReportableTime {
+    pub quantity_kg: f64,
+    pub reached_after_s: Option<f64>,
+}
+
+#[derive(Debug, Clone, Copy, Serialize)]
+pub struct ReleasedBand {
+    pub after_s: Option<f64>,
+    pub low_kg: f64,
+    pub high_kg: f64,
+}
+
+#[derive(Debug, Clone, Serialize)]
+pub struct ReportableRange {
+    pub quantity_kg: f64,
+    /// `None`: never, in any case.
+    pub earliest_s: Option<f64>,
+    /// `None`: never, in the slowest case.
+    pub latest_s: Option<f64>,
+}
+
+// ---------------------------------------------------------------------------
+// Computing the study
+
+/// The study for the demo and the reference tests: the given sizes at a
+/// level and hole height, the headspace from the config, the default
+/// horizons.
 pub fn study(
     tank: &Tank,
     level: Length,
     hole_height: Length,
     cd: DischargeCoefficient,
     holes_mm: &[f64],
-) -> ModelResult<Study> {
-    let vessel = &tank.vessel;
-    let start = TankState {
-        level: Length::metres(vessel.geometry().check_level(level)?),
-        headspace: tank.assumed_headspace,
+) -> anyhow::Result<Study> {
+    let request = Request {
+        level: Some(level),
+        hole_height: Some(hole_height),
+        cd: Some(cd),
+        holes: holes_mm.iter().map(|&mm| HoleSize::Diameter(mm)).collect(),
+        ..Request::for_tank(tank)
     };
+    compute(tank, &request)
+}
+
+/// Computes a study.
+pub fn compute(tank: &Tank, request: &Request) -> anyhow::Result<Study> {
+    let vessel = &tank.vessel;
+    let geometry = vessel.geometry();
+    let ambient = vessel.ambient();
+    let level = request.level.unwrap_or_else(|| default_level(tank));
+    let level = Length::metres(geometry.check_level(level)?);
+    let hole_height = request.hole_height.unwrap_or(Length::ZERO);
+    let cd = request.cd.unwrap_or(DischargeCoefficient::CONSERVATIVE);
+    let headspace = request.headspace.gauge;
+    let start = TankState { level, headspace };
+    let rho = vessel.density().si();
+
     let band = [
-        cd.get().min(DischargeCoefficient::SHARP_EDGED.get()),
-        cd.get(),
-        1.0,
+        DischargeCoefficient::new(cd.get().min(DischargeCoefficient::SHARP_EDGED.get()))?,
+        cd,
+        DischargeCoefficient::CONSERVATIVE,
     ];
-    let horizons = [TimeSpan::minutes(15.0), TimeSpan::hours(1.0)];
-    let mut figures = Vec::new();
-    for &mm in holes_mm {
-        let hole = Hole::new(Length::millimetres(mm), hole_height)?;
-        vessel.check_hole(&hole)?;
-        let mut forecasts = Vec::new();
-        let mut rates = Vec::new();
-        for c in band {
-            let c = DischargeCoefficient::new(c)?;
-            forecasts.push(forecast_liquid(vessel, &hole, c, &start, &horizons)?);
-            rates.push(vessel.outflow(&start, &hole, c).rate.si());
+    let horizons: Vec<TimeSpan> = request
+        .horizons
+        .clone()
+        .unwrap_or_else(|| DEFAULT_HORIZONS.to_vec());
+    let holes: Vec<HoleSize> = if request.holes.is_empty() {
+        REPRESENTATIVE_HOLES_MM
+            .iter()
+            .map(|&mm| HoleSize::Representative(mm))
+            .collect()
+    } else {
+        request.holes.clone()
+    };
+    let probe = Hole::new(Length::metres(0.01), hole_height)?;
+    vessel.check_hole(&probe)?;
+    if let Some(target) = request.to_level {
+        let target_m = geometry.check_level(target)?;
+        if target_m >= level.si() {
+            bail!(
+                "--to-level {target_m} m is not below the level {} m; give a level the liquid falls to",
+                level.si()
+            );
         }
-        let mut reportable = Vec::new();
-        for q in &tank.reportable {
-            let t = time_to_release(vessel, &hole, cd, &start, *q)?;
-            reportable.push((q.si(), t.map(|t| t.si())));
-        }
-        figures.push(HoleFigures {
-            hole_diameter_mm: mm,
-            cd: cd.get(),
-            initial_rate_kg_s: rates[1],
-            initial_rate_low_kg_s: rates[0],
-            initial_rate_high_kg_s: rates[2],
-            stops_after_s: forecasts[1].stops_after.si(),
-            stops_after_low_cd_s: forecasts[0].stops_after.si(),
-            stops_after_high_cd_s: forecasts[2].stops_after.si(),
-            total_at_stop_kg: forecasts[1].released_by_stop.si(),
-            in_15_min_kg: [0, 1, 2].map(|i| forecasts[i].horizons[0].released.si()),
-            in_1_h_kg: [0, 1, 2].map(|i| forecasts[i].horizons[1].released.si()),
-            reportable,
-        });
     }
+
+    let mut warnings = request.headspace.warnings.clone();
+    let mut assumptions = Vec::new();
+    let gas = vessel.vapour().copied();
+    let supply = match (request.supply, &gas) {
+        (None, _) => None,
+        (Some(_), None) => bail!(
+            "--blanket-supply: tank {} has no vapour properties in the config, so no gas release can be forecast; add vapour = {{ molar_mass_g_mol = ..., heat_capacity_ratio = ..., temperature_c = ... }} to its [tank.substance]",
+            tank.id
+        ),
+        (Some(given), Some(gas)) => Some(supply_used(given, gas)?),
+    };
+    let ullage = ullage_volume(vessel, level)?;
+    let liquid_above = vessel.liquid_above(level, &probe).si();
+
+    let mut figures = Vec::new();
+    for &size in &holes {
+        let hole = Hole::new(Length::millimetres(size.diameter_mm()), hole_height)?;
+        let mut study = HoleStudy {
+            diameter_mm: size.diameter_mm(),
+            area_mm2: size.area_mm2(),
+            given_as: size.given_as(),
+            phase: "none",
+            regime: None,
+            reason: String::new(),
+            liquid: None,
+            vapour: None,
+        };
+        if level > hole_height {
+            let driving = vessel.liquid_driving_pressure(&start, &hole);
+            if driving.si() > 0.0 {
+                study.phase = "liquid";
+                study.reason = "the surface is above the hole: liquid flows".to_owned();
+                study.liquid = Some(liquid_figures(
+                    tank,
+                    &hole,
+                    &band,
+                    &start,
+                    &horizons,
+                    request.to_level,
+                )?);
+            } else {
+                study.reason = format!(
+                    "the headspace vacuum ({} kPa gauge) holds the liquid column: nothing flows out (air would be drawn in)",
+                    kpa(headspace.si())
+                );
+            }
+        } else if headspace.si() <= 0.0 {
+            study.reason = "the hole is above the liquid and the headspace is not above ambient: nothing flows out".to_owned();
+        } else if ullage.si() <= 0.0 {
+            study.reason =
+                "the hole is above the liquid but the tank is full: there is no gas space to vent"
+                    .to_owned();
+        } else if let Some(gas) = &gas {
+            let ullage = Ullage::new(ullage, *gas, ambient + headspace, ambient)?;
+            let vapour = vapour_figures(tank, &ullage, &hole, &band, supply.as_ref(), &horizons)?;
+            study.phase = "vapour";
+            study.regime = Some(regime_name(vapour.1));
+            study.reason = format!(
+                "the surface is below the hole: the headspace gas vents, {} at the start",
+                regime_name(vapour.1)
+            );
+            study.vapour = Some(vapour.0);
+        } else {
+            study.phase = "vapour";
+            study.reason = "the surface is below the hole: the headspace gas vents, but the config gives no vapour properties for this tank".to_owned();
+            warnings.push(format!(
+                "the {} mm hole is above the liquid, where the headspace gas vents, but tank {} has no vapour properties in the config: no gas forecast; add vapour = {{ molar_mass_g_mol = ..., heat_capacity_ratio = ..., temperature_c = ... }} to its [tank.substance]",
+                self::size(size.diameter_mm()),
+                tank.id
+            ));
+        }
+        figures.push(study);
+    }
+
+    // Said once, for whichever phases appear.
+    let any_liquid = figures.iter().any(|h| h.liquid.is_some());
+    let any_vapour = figures.iter().any(|h| h.vapour.is_some());
+    if any_liquid {
+        assumptions.push(format!(
+            "Liquid: the orifice equation with the headspace held at {} kPa gauge (an open vent or a blanket regulator), no pumping, and a hole that does not grow. A forecast never releases more than the liquid above the hole ({}): it drains the tank at most down to the hole.",
+            kpa(headspace.si()),
+            report::mass(Mass::kilograms(liquid_above))
+        ));
+        if headspace.si() > 0.0 {
+            assumptions.push(
+                "Once the liquid stops, the pressurised headspace gas would vent through the same hole: not included; a study with --hole-height above the liquid gives it.".to_owned(),
+            );
+        }
+        if let (Some(s), Some(gas)) = (&supply, &gas) {
+            // The regulator must replace the liquid's volume with gas at
+            // the headspace pressure to hold it.
+            let gas_density = (ambient + headspace).si() * gas.molar_mass().si()
+                / (GAS_CONSTANT * gas.temperature().si());
+            let holds_m3_h = s.kg_s / gas_density * 3600.0;
+            for h in &figures {
+                if let Some(l) = &h.liquid
+                    && l.initial_rate_m3_h.cd_chosen > holds_m3_h
+                {
+                    warnings.push(format!(
+                        "a blanket supply of {} replaces the liquid only up to {} m³/h at the headspace pressure, and the {} mm hole starts at {} m³/h: the headspace would fall, so its liquid figures are high (the safe side)",
+                        s.given,
+                        report::significant(holds_m3_h),
+                        self::size(h.diameter_mm),
+                        report::significant(l.initial_rate_m3_h.cd_chosen)
+                    ));
+                }
+            }
+        }
+    }
+    if any_vapour {
+        assumptions.push(
+            "Gas: the ideal-gas nozzle equations, the gas space fixed (the liquid does not move), between two bounds a real tank lies within: isothermal (the walls keep the gas at its temperature; the most released, the longest) and adiabatic (no heat reaches the gas, which cools; less, sooner). Evaporation from the liquid into the gas space is not included.".to_owned(),
+        );
+        assumptions.push(match &supply {
+            Some(s) => format!(
+                "Blanket supply on: pad gas of the configured vapour at its temperature, at up to {} ({} kg/s), by a regulator whose set point is the headspace pressure; steady means the outflow within 1 % of the supply for good.",
+                s.given,
+                report::significant(s.kg_s)
+            ),
+            None => "Blanket supply off (give --blanket-supply for a regulator that keeps feeding pad gas).".to_owned(),
+        });
+    } else if supply.is_some() {
+        assumptions.push(
+            "--blanket-supply matters only for a hole above the liquid; no hole here is."
+                .to_owned(),
+        );
+    }
+    assumptions.push(
+        "Times run from the moment the hole opens; figures in brackets are the band from the lowest to the highest Cd.".to_owned(),
+    );
+
+    let (gauge, absolute) = (headspace.si(), (ambient + headspace).si());
     Ok(Study {
+        format: FORMAT,
         tank: tank.id.clone(),
-        level_m: start.level.si(),
-        headspace_pa: start.headspace.si(),
+        substance: tank.substance.clone(),
+        density_kg_m3: rho,
+        ambient_pa: ambient.si(),
+        level_m: level.si(),
+        level_source: if request.level.is_some() {
+            "given"
+        } else {
+            "default"
+        },
+        headspace: HeadspaceUsed {
+            gauge_pa: gauge,
+            absolute_pa: absolute,
+            source: request.headspace.source.name(),
+            explanation: request.headspace.source.explain(),
+            logged: match &request.headspace.source {
+                HeadspaceSource::Logged(r) => Some(r.clone()),
+                _ => None,
+            },
+        },
         hole_height_m: hole_height.si(),
-        density_kg_m3: vessel.density().si(),
-        liquid_above_hole_kg: vessel
-            .liquid_above(start.level, &Hole::new(Length::metres(1.0), hole_height)?)
-            .si(),
+        hole_height_source: if request.hole_height.is_some() {
+            "given"
+        } else {
+            "default"
+        },
+        cd: CdUsed {
+            low: band[0].get(),
+            chosen: cd.get(),
+            high: band[2].get(),
+            given: request.cd.is_some(),
+        },
+        horizons_s: horizons.iter().map(|t| t.si()).collect(),
+        horizons_source: if request.horizons.is_some() {
+            "given"
+        } else {
+            "default"
+        },
+        to_level_m: request.to_level.map(|l| l.si()),
+        liquid_above_hole_kg: liquid_above,
+        liquid_above_hole_m3: liquid_above / rho,
+        ullage_volume_m3: ullage.si(),
+        blanket_supply: supply,
         holes: figures,
+        warnings,
+        assumptions,
         caution: report::CAUTION,
     })
 }
 
+fn regime_name(regime: Option<GasRegime>) -> &'static str {
+    match regime {
+        Some(GasRegime::Choked) => "choked",
+        Some(GasRegime::Subcritical) => "subcritical",
+        None => "no flow",
+    }
+}
+
+fn supply_used(given: SupplyGiven, gas: &GasProperties) -> anyhow::Result<SupplyUsed> {
+    let normal_density =
+        NORMAL_PRESSURE_PA * gas.molar_mass().si() / (GAS_CONSTANT * NORMAL_TEMPERATURE_K);
+    let (kg_s, text) = match given {
+        SupplyGiven::KgPerHour(v) => (v / 3600.0, format!("{} kg/h", size(v))),
+        SupplyGiven::KgPerSecond(v) => (v, format!("{} kg/s", size(v))),
+        SupplyGiven::NormalCubicMetresPerHour(v) => {
+            (v * normal_density / 3600.0, format!("{} Nm³/h", size(v)))
+        }
+    };
+    Ok(SupplyUsed {
+        kg_s,
+        nm3_h: kg_s * 3600.0 / normal_density,
+        given: text,
+    })
+}
+
+fn liquid_figures(
+    tank: &Tank,
+    hole: &Hole,
+    band: &[DischargeCoefficient; 3],
+    start: &TankState,
+    horizons: &[TimeSpan],
+    to_level: Option<Length>,
+) -> anyhow::Result<LiquidFigures> {
+    let vessel = &tank.vessel;
+    let rho = vessel.density().si();
+    let geometry = vessel.geometry();
+    let mut forecasts = Vec::new();
+    for cd in band {
+        forecasts.push(forecast_liquid(vessel, hole, *cd, start, horizons)?);
+    }
+    let rates = AtCd::from_fn(|i| vessel.outflow(start, hole, band[i]).rate.si());
+    let liquid_above = vessel.liquid_above(start.level, hole).si();
+    let released_by_stop = forecasts[1].released_by_stop.si();
+    // By construction the forecast drains at most to the hole; checked, so
+    // that a fault would show as an error rather than as a figure.
+    let most = liquid_above * (1.0 + 1e-9) + 1e-9;
+    if forecasts.iter().any(|f| {
+        f.released_by_stop.si() > most || f.horizons.iter().any(|p| p.released.si() > most)
+    }) {
+        bail!(
+            "the forecast for the {} mm hole releases more than the {liquid_above} kg above it; this is a fault in leaktally, please report it",
+            hole.diameter().as_millimetres()
+        );
+    }
+    let horizons = (0..horizons.len())
+        .map(|k| LiquidHorizon {
+            after_s: horizons[k].si(),
+            released_kg: AtCd::from_fn(|i| forecasts[i].horizons[k].released.si()),
+            released_m3: AtCd::from_fn(|i| forecasts[i].horizons[k].released.si() / rho),
+            level_m: AtCd::from_fn(|i| forecasts[i].horizons[k].level.si()),
+            rate_kg_s: AtCd::from_fn(|i| forecasts[i].horizons[k].rate.si()),
+        })
+        .collect();
+    let time_to = |mass: Mass| -> anyhow::Result<AtCd<Option<f64>>> {
+        let mut out = [None; 3];
+        for (i, cd) in band.iter().enumerate() {
+            out[i] = time_to_release(vessel, hole, *cd, start, mass)?.map(|t| t.si());
+        }
+        Ok(AtCd::from_fn(|i| out[i]))
+    };
+    let to_level = match to_level {
+        Some(target) => {
+            let drop = (geometry.volume_si(start.level.si()) - geometry.volume_si(target.si()))
+                .max(0.0)
+                * rho;
+            Some(TimeToLevel {
+                level_m: target.si(),
+                reached_after_s: time_to(Mass::kilograms(drop))?,
+            })
+        }
+        None => None,
+    };
+    let mut reportable = Vec::new();
+    for q in &tank.reportable {
+        reportable.push(ReportableTimes {
+            quantity_kg: q.si(),
+            reached_after_s: time_to(*q)?,
+        });
+    }
+    Ok(LiquidFigures {
+        driving_pressure_pa: vessel.liquid_driving_pressure(start, hole).si(),
+        initial_rate_kg_s: rates,
+        initial_rate_m3_h: rates.map(|r| r * 3600.0 / rho),
+        stops_after_s: AtCd::from_fn(|i| forecasts[i].stops_after.si()),
+        stop_level_m: forecasts[1].stop_level.si(),
+        released_by_stop_kg: released_by_stop,
+        released_by_stop_m3: released_by_stop / rho,
+        horizons,
+        to_level,
+        reportable,
+    })
+}
+
+fn vapour_figures(
+    tank: &Tank,
+    ullage: &Ullage,
+    hole: &Hole,
+    band: &[DischargeCoefficient; 3],
+    supply: Option<&SupplyUsed>,
+    horizons: &[TimeSpan],
+) -> anyhow::Result<(VapourFigures, Option<GasRegime>)> {
+    let gas = ullage.gas();
+    let ambient = ullage.ambient();
+    let supply_rate = MassRate::kg_per_second(supply.map_or(0.0, |s| s.kg_s));
+    let normal_density =
+        NORMAL_PRESSURE_PA * gas.molar_mass().si() / (GAS_CONSTANT * NORMAL_TEMPERATURE_K);
+    let mut runs: Vec<(Thermal, Vec<BlowdownForecast>)> = Vec::new();
+    let mut critical = 0.0;
+    for thermal in [Thermal::Isothermal, Thermal::Adiabatic] {
+        let mut at_cd = Vec::new();
+        for cd in band {
+            let b = Blowdown::new(*ullage, hole, *cd, supply_rate, thermal)?;
+            critical = (b.critical_pressure() - ambient).si();
+            at_cd.push(b.forecast(horizons, &tank.reportable)?);
+        }
+        runs.push((thermal, at_cd));
+    }
+    let all: Vec<&BlowdownForecast> = runs.iter().flat_map(|(_, f)| f.iter()).collect();
+    let figures_of = |f: &BlowdownForecast| -> BlowdownFigures {
+        let (end, end_after, end_pressure) = match f.end {
+            BlowdownEnd::NoFlow => ("no_flow", 0.0, f.initial.pressure),
+            BlowdownEnd::Ambient { after } => ("ambient", after.si(), ambient),
+            BlowdownEnd::Steady { pressure, after } => ("steady", after.si(), pressure),
+            BlowdownEnd::Held => ("held", 0.0, f.initial.pressure),
+        };
+        let choked_throughout = f.choked_for.si().is_infinite();
+        BlowdownFigures {
+            choked_for_s: (!choked_throughout).then_some(f.choked_for.si()),
+            choked_throughout,
+            end,
+            end_after_s: end_after,
+            end_pressure_gauge_pa: (end_pressure - ambient).si(),
+            released_by_end_kg: f.released_by_end.si(),
+            rate_after_end_kg_s: f.rate_after_end.si(),
+            horizons: f
+                .horizons
+                .iter()
+                .map(|p| BlowdownHorizon {
+                    after_s: p.after.si(),
+                    pressure_gauge_pa: (p.pressure - ambient).si(),
+                    temperature_c: p.temperature.si() - 273.15,
+                    rate_kg_s: p.rate.si(),
+                    regime: p.regime.map(|r| regime_name(Some(r))),
+                    released_kg: p.released.si(),
+                })
+                .collect(),
+            reportable: tank
+                .reportable
+                .iter()
+                .zip(&f.release_times)
+                .map(|(q, t)| ReportableTime {
+                    quantity_kg: q.si(),
+                    reached_after_s: t.map(|t| t.si()),
+                })
+                .collect(),
+        }
+    };
+    let at_cd = |runs: &[BlowdownForecast]| AtCd::from_fn(|i| figures_of(&runs[i]));
+    let spread = |values: Vec<f64>| {
+        let low = values.iter().copied().fold(f64::INFINITY, f64::min);
+        let high = values.iter().copied().fold(f64::NEG_INFINITY, f64::max);
+        (low, high)
+    };
+    let band_out = (0..horizons.len())
+        .map(|k| {
+            let (low, high) = spread(all.iter().map(|f| f.horizons[k].released.si()).collect());
+            ReleasedBand {
+                after_s: Some(horizons[k].si()),
+                low_kg: low,
+                high_kg: high,
+            }
+        })
+        .collect();
+    let (end_low, end_high) = spread(all.iter().map(|f| f.released_by_end.si()).collect());
+    let reportable = tank
+        .reportable
+        .iter()
+        .enumerate()
+        .map(|(q, mass)| {
+            let times: Vec<Option<f64>> = all
+                .iter()
+                .map(|f| f.release_times[q].map(|t| t.si()))
+                .collect();
+            let reached: Vec<f64> = times.iter().flatten().copied().collect();
+            ReportableRange {
+                quantity_kg: mass.si(),
+                earliest_s: reached.iter().copied().reduce(f64::min),
+                latest_s: if times.iter().all(Option::is_some) {
+                    reached.iter().copied().reduce(f64::max)
+                } else {
+                    None
+                },
+            }
+        })
+        .collect();
+    let chosen = &runs[0].1[1];
+    let rates = AtCd::from_fn(|i| runs[0].1[i].initial.rate.si());
+    Ok((
+        VapourFigures {
+            molar_mass_g_mol: gas.molar_mass().si() * 1000.0,
+            heat_capacity_ratio: gas.heat_capacity_ratio(),
+            temperature_c: gas.temperature().si() - 273.15,
+            ullage_volume_m3: ullage.volume().si(),
+            initial_gas_kg: ullage.gas_mass().si(),
+            critical_pressure_gauge_pa: critical,
+            initial_rate_kg_s: rates,
+            initial_rate_nm3_h: rates.map(|r| r * 3600.0 / normal_density),
+            supply: if supply.is_some() { "on" } else { "off" },
+            isothermal: at_cd(&runs[0].1),
+            adiabatic: at_cd(&runs[1].1),
+            band: band_out,
+            released_by_end_band: ReleasedBand {
+                after_s: None,
+                low_kg: end_low,
+                high_kg: end_high,
+            },
+            reportable,
+        },
+        chosen.initial.regime,
+    ))
+}
+
+// ---------------------------------------------------------------------------
+// The study as text
+
+/// A time as h:mm:ss, one unit for a whole column; past a year, in words.
+fn hms(seconds: f64) -> String {
+    if !seconds.is_finite() {
+        return "never".to_owned();
+    }
+    if seconds > MAX_HORIZON_S {
+        return "over a year".to_owned();
+    }
+    let total = seconds.round() as i64;
+    format!(
+        "{}:{:02}:{:02}",
+        total / 3600,
+        (total % 3600) / 60,
+        total % 60
+    )
+}
+
+fn optional_hms(seconds: Option<f64>) -> String {
+    seconds.map_or("never".to_owned(), hms)
+}
+
+/// A horizon as its user would write it: 15 min, 1 h, 90 s.
+fn horizon_label(seconds: f64) -> String {
+    let s = seconds.round() as i64;
+    match (s / 3600, (s % 3600) / 60, s % 60) {
+        (0, 0, sec) => format!("{sec} s"),
+        (0, min, 0) => format!("{min} min"),
+        (h, 0, 0) => format!("{h} h"),
+        (h, min, 0) => format!("{h} h {min:02} min"),
+        _ => hms(seconds),
+    }
+}
+
+/// `best [low–high]`, or just `best` when the band is a point.
+fn banded(best: String, low: String, high: String) -> String {
+    if low == high && low == best {
+        best
+    } else {
+        format!("{best} [{low}–{high}]")
+    }
+}
+
+/// A left-aligned table with a two-line header (the quantity, its unit).
+struct Table {
+    header: Vec<(String, String)>,
+    rows: Vec<Vec<String>>,
+}
+
+impl Table {
+    fn new(header: Vec<(String, String)>) -> Self {
+        Self {
+            header,
+            rows: Vec::new(),
+        }
+    }
+
+    fn render(&self, out: &mut String) {
+        let columns = self.header.len();
+        let mut widths = vec![0; columns];
+        for (c, (name, unit)) in self.header.iter().enumerate() {
+            widths[c] = name.chars().count().max(unit.chars().count());
+        }
+        for row in &self.rows {
+            for (c, cell) in row.iter().enumerate().take(columns) {
+                widths[c] = widths[c].max(cell.chars().count());
+            }
+        }
+        let line = |out: &mut String, cells: Vec<&str>| {
+            let mut text = String::from(" ");
+            for (c, cell) in cells.iter().enumerate() {
+                let pad = widths[c] - cell.chars().count();
+                text.push(' ');
+                text.push_str(cell);
+                if c + 1 < cells.len() {
+                    text.push_str(&" ".repeat(pad + 2));
+                }
+            }
+            let _ = writeln!(out, "{}", text.trim_end());
+        };
+        line(out, self.header.iter().map(|(n, _)| n.as_str()).collect());
+        line(out, self.header.iter().map(|(_, u)| u.as_str()).collect());
+        for row in &self.rows {
+            line(out, row.iter().map(String::as_str).collect());
+        }
+    }
+}
+
+fn kg(x: f64) -> String {
+    report::grouped(x)
+}
+
+/// A hole size as given (6.35, 25.4, 101.6): up to four significant
+/// figures, trailing zeros dropped.
+fn size(x: f64) -> String {
+    let magnitude = x.abs().log10().floor() as i32;
+    let decimals = (3 - magnitude).max(0) as usize;
+    let text = format!("{x:.decimals$}");
+    if text.contains('.') {
+        text.trim_end_matches('0').trim_end_matches('.').to_owned()
+    } else {
+        text
+    }
+}
+
+/// A pressure in kPa with one decimal, as gauges show it (three figures
+/// under 1 kPa).
+fn kpa(pa: f64) -> String {
+    let kpa = pa / 1000.0;
+    if kpa != 0.0 && kpa.abs() < 1.0 {
+        // A pressure a small supply holds just above ambient.
+        report::significant(kpa)
+    } else {
+        format!("{kpa:.1}")
+    }
+}
+
+/// A time as h:mm:ss.s, for the gas columns, whose blowdowns can be over in
+/// a second.
+fn hms_tenths(seconds: f64) -> String {
+    if !seconds.is_finite() || seconds > MAX_HORIZON_S {
+        return hms(seconds);
+    }
+    let tenths = (seconds * 10.0).round() as i64;
+    let whole = tenths / 10;
+    format!(
+        "{}:{:02}:{:02}.{}",
+        whole / 3600,
+        (whole % 3600) / 60,
+        whole % 60,
+        tenths % 10
+    )
+}
+
 /// The study as text for people.
 pub fn human(s: &Study) -> String {
-    let kg = |x: f64| report::mass(Mass::kilograms(x));
-    let rate = |x: f64| report::rate(crate::model::MassRate::kg_per_second(x));
-    let dur = |x: f64| report::duration(TimeSpan::seconds(x));
-    let rho = crate::model::Density::kg_per_cubic_metre(s.density_kg_m3);
     let mut out = String::new();
     let _ = writeln!(
         out,
-        "What-if for tank {}: level {:.2} m, headspace {:.1} kPa gauge, hole {:.2} m above the bottom",
+        "What-if for tank {} ({}, {} kg/m³)",
         s.tank,
-        s.level_m,
-        s.headspace_pa / 1000.0,
-        s.hole_height_m
+        s.substance,
+        report::significant(s.density_kg_m3)
     );
+    let level_note = if s.level_source == "given" {
+        "given"
+    } else {
+        "90 % of the tank's height, the default; give --level"
+    };
+    let _ = writeln!(out, "  level      {:.2} m ({level_note})", s.level_m);
     let _ = writeln!(
         out,
-        "Liquid above the hole: {} ({})",
-        kg(s.liquid_above_hole_kg),
-        report::volumes(Mass::kilograms(s.liquid_above_hole_kg), rho)
+        "  headspace  {} kPa gauge = {} kPa absolute: {}",
+        kpa(s.headspace.gauge_pa),
+        kpa(s.headspace.absolute_pa),
+        s.headspace.explanation
     );
-    for h in &s.holes {
+    let height_note = if s.hole_height_source == "given" {
+        ""
+    } else {
+        " (the bottom, the default, which releases the most; give --hole-height)"
+    };
+    let cd_note = if s.cd.given {
+        ""
+    } else {
+        " (the default, conservative; give --cd)"
+    };
+    let _ = writeln!(
+        out,
+        "  hole       {:.2} m above the bottom{height_note}; Cd {:.2}{cd_note}, band from {:.2} to {:.2}",
+        s.hole_height_m, s.cd.chosen, s.cd.low, s.cd.high
+    );
+    if s.liquid_above_hole_kg > 0.0 {
         let _ = writeln!(
             out,
-            "\nHole {} mm, Cd {} (band from Cd 0.61 to 1.0):",
-            h.hole_diameter_mm, h.cd
+            "  liquid above the hole  {} kg ({})",
+            kg(s.liquid_above_hole_kg),
+            report::volumes(
+                Mass::kilograms(s.liquid_above_hole_kg),
+                crate::model::Density::kg_per_cubic_metre(s.density_kg_m3)
+            )
         );
+    } else {
         let _ = writeln!(
             out,
-            "  initial rate        {}  (band {} to {})",
-            rate(h.initial_rate_kg_s),
-            rate(h.initial_rate_low_kg_s),
-            rate(h.initial_rate_high_kg_s)
+            "  liquid above the hole  none: the hole is at or above the surface"
         );
-        let _ = writeln!(
-            out,
-            "  flow stops after    {}  (band {} to {})",
-            dur(h.stops_after_s),
-            dur(h.stops_after_high_cd_s),
-            dur(h.stops_after_low_cd_s)
-        );
-        let _ = writeln!(out, "  released by then    {}", kg(h.total_at_stop_kg));
-        for (label, [low, best, high]) in [
-            ("released in 15 min", h.in_15_min_kg),
-            ("released in 1 h", h.in_1_h_kg),
-        ] {
-            let _ = writeln!(
-                out,
-                "  {label:<18}  {}  (band {} to {})",
-                kg(best),
-                kg(low),
-                kg(high)
-            );
-        }
-        for (q, t) in &h.reportable {
-            let when = t.map_or("not reached".to_owned(), |t| {
-                format!("reached after {}", dur(t))
-            });
-            let _ = writeln!(out, "  reportable {:<8} {when}", kg(*q));
-        }
     }
     let _ = writeln!(
         out,
-        "\nThe forecast assumes the headspace pressure stays as it is, no pumping, and a hole that does not grow."
+        "  gas space  {} m³ above the liquid",
+        report::significant(s.ullage_volume_m3)
     );
+    if !s.warnings.is_empty() {
+        let _ = writeln!(out);
+        for w in &s.warnings {
+            let _ = writeln!(out, "WARNING: {w}");
+        }
+    }
+    for h in s
+        .holes
+        .iter()
+        .filter(|h| h.liquid.is_none() && h.vapour.is_none())
+    {
+        let _ = writeln!(out, "\nHole {} mm: {}.", size(h.diameter_mm), h.reason);
+    }
+    liquid_tables(s, &mut out);
+    vapour_tables(s, &mut out);
+    reach_table(s, &mut out);
+    let _ = writeln!(out);
+    for a in &s.assumptions {
+        let _ = writeln!(out, "{a}");
+    }
     let _ = writeln!(out, "{}", s.caution);
     out
 }
 
-/// Parses `--hole-diameter 6,25,100` (millimetres).
-pub fn parse_holes(text: &str) -> anyhow::Result<Vec<f64>> {
-    text.split(',')
-        .map(|part| {
-            let mm: f64 = part.trim().parse().map_err(|_| {
-                anyhow::anyhow!("--hole-diameter: {part:?} is not a number of millimetres; write sizes like 6,25,100")
-            })?;
-            if !(mm.is_finite() && mm > 0.0 && mm <= 5000.0) {
-                anyhow::bail!("--hole-diameter: {mm} mm must be more than 0 and at most 5000 mm");
+fn hole_label(h: &HoleStudy) -> String {
+    match h.given_as {
+        "area" => format!("{} ({} mm²)", size(h.diameter_mm), size(h.area_mm2)),
+        _ => size(h.diameter_mm),
+    }
+}
+
+fn liquid_tables(s: &Study, out: &mut String) {
+    let holes: Vec<(&HoleStudy, &LiquidFigures)> = s
+        .holes
+        .iter()
+        .filter_map(|h| h.liquid.as_ref().map(|l| (h, l)))
+        .collect();
+    if holes.is_empty() {
+        return;
+    }
+    let sig = |x: f64| report::significant(x);
+    let _ = writeln!(
+        out,
+        "\nLiquid through the hole (orifice equation), at Cd {:.2} [band]:",
+        s.cd.chosen
+    );
+    let mut table = Table::new(vec![
+        ("hole".into(), "mm".into()),
+        ("phase".into(), "".into()),
+        ("initial rate".into(), "kg/s".into()),
+        ("initial rate".into(), "m³/h".into()),
+        ("flow stops after".into(), "h:mm:ss".into()),
+        ("released by then".into(), "kg".into()),
+    ]);
+    for (h, l) in &holes {
+        let r = &l.initial_rate_kg_s;
+        let v = &l.initial_rate_m3_h;
+        let t = &l.stops_after_s;
+        table.rows.push(vec![
+            hole_label(h),
+            "liquid".into(),
+            banded(sig(r.cd_chosen), sig(r.cd_low), sig(r.cd_high)),
+            banded(sig(v.cd_chosen), sig(v.cd_low), sig(v.cd_high)),
+            banded(hms(t.cd_chosen), hms(t.cd_high), hms(t.cd_low)),
+            kg(l.released_by_stop_kg),
+        ]);
+    }
+    table.render(out);
+    let _ = writeln!(
+        out,
+        "\nLiquid released by each horizon, at Cd {:.2} [band]:",
+        s.cd.chosen
+    );
+    let mut header = vec![("hole".to_owned(), "mm".to_owned())];
+    for &t in &s.horizons_s {
+        header.push((format!("in {}", horizon_label(t)), "kg".to_owned()));
+    }
+    let mut table = Table::new(header);
+    for (h, l) in &holes {
+        let mut row = vec![hole_label(h)];
+        for p in &l.horizons {
+            let r = &p.released_kg;
+            row.push(banded(kg(r.cd_chosen), kg(r.cd_low), kg(r.cd_high)));
+        }
+        table.rows.push(row);
+    }
+    table.render(out);
+}
+
+fn vapour_tables(s: &Study, out: &mut String) {
+    let holes: Vec<(&HoleStudy, &VapourFigures)> = s
+        .holes
+        .iter()
+        .filter_map(|h| h.vapour.as_ref().map(|v| (h, v)))
+        .collect();
+    let Some((_, first)) = holes.first() else {
+        return;
+    };
+    let sig = |x: f64| report::significant(x);
+    let supply = match &s.blanket_supply {
+        Some(supply) => format!(
+            "blanket supply on at {} = {} kg/s",
+            supply.given,
+            sig(supply.kg_s)
+        ),
+        None => "blanket supply off".to_owned(),
+    };
+    let _ = writeln!(
+        out,
+        "\nGas through the hole (ideal-gas nozzle equations): the gas space, {} m³ holding {} kg of the configured vapour ({} g/mol, k {}, {} °C) at {} kPa absolute, vents to ambient; {supply}; at Cd {:.2}:",
+        sig(first.ullage_volume_m3),
+        sig(first.initial_gas_kg),
+        sig(first.molar_mass_g_mol),
+        sig(first.heat_capacity_ratio),
+        sig(first.temperature_c),
+        kpa(s.headspace.absolute_pa),
+        s.cd.chosen
+    );
+    let mut header = vec![
+        ("hole".to_owned(), "mm".to_owned()),
+        ("phase".to_owned(), "".to_owned()),
+        ("bound".to_owned(), "".to_owned()),
+        ("initial rate".to_owned(), "kg/s".to_owned()),
+        ("initial rate".to_owned(), "Nm³/h".to_owned()),
+        ("choked for".to_owned(), "h:mm:ss.s".to_owned()),
+        ("ends".to_owned(), "".to_owned()),
+        ("after".to_owned(), "h:mm:ss.s".to_owned()),
+        ("released by then".to_owned(), "kg".to_owned()),
+    ];
+    for &t in &s.horizons_s {
+        header.push((format!("in {}", horizon_label(t)), "kg".to_owned()));
+    }
+    let mut table = Table::new(header);
+    for (h, v) in &holes {
+        for (i, (name, run)) in [
+            ("isothermal", &v.isothermal.cd_chosen),
+            ("adiabatic", &v.adiabatic.cd_chosen),
+        ]
+        .into_iter()
+        .enumerate()
+        {
+            let phase = match (i, h.regime) {
+                (0, Some(regime)) => format!("vapour, {regime}"),
+                _ => String::new(),
+            };
+            let (ends, after, by_end) = match run.end {
+                "ambient" => (
+                    "at ambient".to_owned(),
+                    hms_tenths(run.end_after_s),
+                    kg(run.released_by_end_kg),
+                ),
+                "steady" => (
+                    format!("steady at {} kPa g", kpa(run.end_pressure_gauge_pa)),
+                    hms_tenths(run.end_after_s),
+                    kg(run.released_by_end_kg),
+                ),
+                "held" => (
+                    format!("held at {} kPa g", kpa(run.end_pressure_gauge_pa)),
+                    "—".to_owned(),
+                    "—".to_owned(),
+                ),
+                _ => ("no flow".to_owned(), "—".to_owned(), "0".to_owned()),
+            };
+            let mut row = vec![
+                if i == 0 { hole_label(h) } else { String::new() },
+                phase,
+                name.to_owned(),
+                if i == 0 {
+                    sig(v.initial_rate_kg_s.cd_chosen)
+                } else {
+                    String::new()
+                },
+                if i == 0 {
+                    sig(v.initial_rate_nm3_h.cd_chosen)
+                } else {
+                    String::new()
+                },
+                match run.choked_for_s {
+                    _ if run.choked_throughout => "throughout".to_owned(),
+                    Some(t) if t > 0.0 => hms_tenths(t),
+                    _ => "not choked".to_owned(),
+                },
+                ends,
+                after,
+                by_end,
+            ];
+            for p in &run.horizons {
+                row.push(kg(p.released_kg));
             }
-            Ok(mm)
+            table.rows.push(row);
+        }
+    }
+    table.render(out);
+    let _ = writeln!(
+        out,
+        "\nGas released, band over both bounds and Cd {:.2} to {:.2}:",
+        s.cd.low, s.cd.high
+    );
+    let mut header = vec![("hole".to_owned(), "mm".to_owned())];
+    for &t in &s.horizons_s {
+        header.push((format!("in {}", horizon_label(t)), "kg".to_owned()));
+    }
+    header.push(("by the end".to_owned(), "kg".to_owned()));
+    let mut table = Table::new(header);
+    for (h, v) in &holes {
+        let mut row = vec![hole_label(h)];
+        for b in &v.band {
+            row.push(format!("{}–{}", kg(b.low_kg), kg(b.high_kg)));
+        }
+        let e = &v.released_by_end_band;
+        row.push(if v.isothermal.cd_chosen.end == "held" {
+            "—".to_owned()
+        } else {
+            format!("{}–{}", kg(e.low_kg), kg(e.high_kg))
+        });
+        table.rows.push(row);
+    }
+    table.render(out);
+    if let Some(supply) = &s.blanket_supply {
+        let _ = writeln!(
+            out,
+            "  With the supply on the release goes on after the end, at the supply rate ({} kg/s) once steady, or at the initial rate where the supply holds the pressure.",
+            sig(supply.kg_s)
+        );
+    }
+}
+
+fn reach_table(s: &Study, out: &mut String) {
+    let reportables: Vec<f64> = s
+        .holes
+        .iter()
+        .find_map(|h| {
+            h.liquid
+                .as_ref()
+                .map(|l| l.reportable.iter().map(|r| r.quantity_kg).collect())
+                .or_else(|| {
+                    h.vapour
+                        .as_ref()
+                        .map(|v| v.reportable.iter().map(|r| r.quantity_kg).collect())
+                })
         })
-        .collect()
+        .unwrap_or_default();
+    if reportables.is_empty() && s.to_level_m.is_none() {
+        return;
+    }
+    if !s
+        .holes
+        .iter()
+        .any(|h| h.liquid.is_some() || h.vapour.is_some())
+    {
+        return;
+    }
+    let _ = writeln!(out, "\nTime to reach, at Cd {:.2} [band]:", s.cd.chosen);
+    let mut header = vec![("hole".to_owned(), "mm".to_owned())];
+    for q in &reportables {
+        header.push((format!("{} kg (reportable)", kg(*q)), "h:mm:ss".to_owned()));
+    }
+    if let Some(level) = s.to_level_m {
+        header.push((format!("level {level:.2} m"), "h:mm:ss".to_owned()));
+    }
+    let mut table = Table::new(header);
+    for h in &s.holes {
+        let mut row = vec![hole_label(h)];
+        if let Some(l) = &h.liquid {
+            for r in &l.reportable {
+                let t = &r.reached_after_s;
+                row.push(banded(
+                    optional_hms(t.cd_chosen),
+                    optional_hms(t.cd_high),
+                    optional_hms(t.cd_low),
+                ));
+            }
+            if let Some(to) = &l.to_level {
+                let t = &to.reached_after_s;
+                row.push(banded(
+                    optional_hms(t.cd_chosen),
+                    optional_hms(t.cd_high),
+                    optional_hms(t.cd_low),
+                ));
+            }
+        } else if let Some(v) = &h.vapour {
+            for r in &v.reportable {
+                row.push(match (r.earliest_s, r.latest_s) {
+                    (None, _) => "never".to_owned(),
+                    (Some(a), b) => format!("{}–{}", hms(a), optional_hms(b)),
+                });
+            }
+            if s.to_level_m.is_some() {
+                row.push("— (gas: the level stays)".to_owned());
+            }
+        } else {
+            continue;
+        }
+        table.rows.push(row);
+    }
+    table.render(out);
+}
+
+// ---------------------------------------------------------------------------
+// Parsing the options
+
+/// Parses `--hole-diameter 6,25,100` (millimetres), each size checked by the
+/// rule every command shares ([`crate::commands::leak::hole_diameter_refusal`]).
+pub fn parse_holes(text: &str) -> anyhow::Result<Vec<f64>> {
+    parse_list(text, "--hole-diameter", |part| {
+        let mm: f64 = part.parse().map_err(|_| {
+            anyhow::anyhow!(
+                "--hole-diameter {part:?} is not a number of millimetres; write sizes like 6,25,100"
+            )
+        })?;
+        if let Some(why) = crate::commands::leak::hole_diameter_refusal(mm) {
+            bail!(
+                "--hole-diameter {part}: {mm} mm {why}; the option takes millimetres (25 for a one-inch hole)"
+            );
+        }
+        Ok(mm)
+    })
+}
+
+/// Parses `--hole-area 5,500` (square millimetres): each the area of a round
+/// hole whose diameter must pass the same rule as `--hole-diameter`.
+pub fn parse_hole_areas(text: &str) -> anyhow::Result<Vec<f64>> {
+    parse_list(text, "--hole-area", |part| {
+        let mm2: f64 = part.parse().map_err(|_| {
+            anyhow::anyhow!(
+                "--hole-area {part:?} is not a number of square millimetres; write areas like 30,500,8000"
+            )
+        })?;
+        if !(mm2.is_finite() && mm2 > 0.0) {
+            bail!("--hole-area {part}: the area must be a positive number of square millimetres");
+        }
+        let diameter = (mm2 / FRAC_PI_4).sqrt();
+        if let Some(why) = crate::commands::leak::hole_diameter_refusal(diameter) {
+            bail!(
+                "--hole-area {part}: {mm2} mm² is a round hole {} mm across, which {why}; the option takes square millimetres (507 for a one-inch hole)",
+                report::significant(diameter)
+            );
+        }
+        Ok(mm2)
+    })
+}
+
+/// Parses `--horizons 5m,30m,2h` (as `--since` reads a duration): sorted,
+/// without repeats.
+pub fn parse_horizons(text: &str) -> anyhow::Result<Vec<TimeSpan>> {
+    let mut horizons = parse_list(text, "--horizons", |part| {
+        let Some(duration) = crate::commands::leak::parse_duration(part) else {
+            bail!(
+                "--horizons {part:?} is not a duration; write horizons like 5m,30m,2h (s, m or min, h)"
+            );
+        };
+        let seconds = duration.as_secs_f64();
+        if seconds <= 0.0 {
+            bail!("--horizons {part}: a horizon must be later than the moment the hole opens");
+        }
+        if seconds > MAX_HORIZON_S {
+            bail!("--horizons {part} is more than a year; give horizons of at most 8784h");
+        }
+        Ok(TimeSpan::seconds(seconds))
+    })?;
+    horizons.sort_by(|a, b| a.si().total_cmp(&b.si()));
+    horizons.dedup();
+    if horizons.len() > MAX_HORIZONS {
+        bail!("--horizons: at most {MAX_HORIZONS} horizons, so that the tables stay legible");
+    }
+    Ok(horizons)
+}
+
+/// Parses `--blanket-supply 50Nm3/h` (normal cubic metres of pad gas per
+/// hour, at 0 °C and 101.325 kPa), `60kg/h` or `0.02kg/s`.
+pub fn parse_supply(text: &str) -> anyhow::Result<SupplyGiven> {
+    let hint = "give the pad gas rate with its unit, like 50Nm3/h (normal cubic metres per hour, 0 °C and 101.325 kPa), 60kg/h or 0.02kg/s";
+    let trimmed = text.trim();
+    let split = trimmed
+        .find(|c: char| !(c.is_ascii_digit() || matches!(c, '.' | 'e' | 'E' | '+' | '-')))
+        .unwrap_or(trimmed.len());
+    let (number, unit) = trimmed.split_at(split);
+    let Ok(value) = number.parse::<f64>() else {
+        bail!("--blanket-supply {text:?}: {hint}");
+    };
+    let unit = unit.trim().to_ascii_lowercase().replace('³', "3");
+    let given = match unit.as_str() {
+        "nm3/h" => SupplyGiven::NormalCubicMetresPerHour(value),
+        "kg/h" => SupplyGiven::KgPerHour(value),
+        "kg/s" => SupplyGiven::KgPerSecond(value),
+        _ => {
+            bail!("--blanket-supply {text:?}: the unit {unit:?} is not one leaktally knows; {hint}")
+        }
+    };
+    let kg_s_bound = match given {
+        SupplyGiven::KgPerSecond(v) => v,
+        SupplyGiven::KgPerHour(v) => v / 3600.0,
+        // Hydrogen to the heaviest vapours: under 3 kg per normal m³.
+        SupplyGiven::NormalCubicMetresPerHour(v) => v / 3600.0,
+    };
+    if !(value.is_finite() && value > 0.0) {
+        bail!("--blanket-supply {text:?}: the rate must be more than 0; {hint}");
+    }
+    if kg_s_bound > 100.0 {
+        bail!("--blanket-supply {text:?} is more than any blanketing regulator feeds; {hint}");
+    }
+    Ok(given)
+}
+
+/// Splits a comma-separated option and parses each part.
+fn parse_list<T>(
+    text: &str,
+    option: &str,
+    mut parse: impl FnMut(&str) -> anyhow::Result<T>,
+) -> anyhow::Result<Vec<T>> {
+    let parts: Vec<&str> = text.split(',').map(str::trim).collect();
+    if parts.len() > MAX_HOLES.max(MAX_HORIZONS) {
+        bail!(
+            "{option}: at most {} values, so that the tables stay legible",
+            MAX_HOLES.max(MAX_HORIZONS)
+        );
+    }
+    parts.into_iter().map(&mut parse).collect()
 }
 
 /// The default level for a study: the tank 90 % full, a typical working
 /// maximum (common practice).
 pub fn default_level(tank: &Tank) -> Length {
     tank.vessel.geometry().height() * 0.9
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn demo() -> crate::config::Config {
+        let path = Path::new(env!("CARGO_MANIFEST_DIR")).join("../config/demo.toml");
+        crate::config::load(&path).unwrap()
+    }
+
+    #[test]
+    fn hole_sizes_follow_the_shared_rule() {
+        assert_eq!(parse_holes("6, 25,100").unwrap(), vec![6.0, 25.0, 100.0]);
+        for bad in ["1e-300", "0.05", "6000", "-3", "nan", "", "6,,25"] {
+            let err = parse_holes(bad).unwrap_err().to_string();
+            assert!(err.starts_with("--hole-diameter"), "{bad}: {err}");
+        }
+        // The same rule as `leak open`: 0.1 mm passes, just under does not.
+        assert!(parse_holes("0.1").is_ok() && parse_holes("0.099").is_err());
+        assert!(parse_holes("5000").is_ok() && parse_holes("5000.1").is_err());
+        let area = parse_hole_areas("506.7").unwrap()[0];
+        assert!((HoleSize::Area(area).diameter_mm() - 25.4).abs() < 1e-3);
+        let err = parse_hole_areas("0.005").unwrap_err().to_string();
+        assert!(err.contains("below 0.1 mm"), "{err}");
+        assert!(
+            parse_hole_areas("2e7")
+                .unwrap_err()
+                .to_string()
+                .contains("over 5 m")
+        );
+    }
+
+    #[test]
+    fn horizons_and_supplies_parse_with_their_units() {
+        let h = parse_horizons("2h, 5m,30m,5m").unwrap();
+        assert_eq!(
+            h,
+            vec![
+                TimeSpan::minutes(5.0),
+                TimeSpan::minutes(30.0),
+                TimeSpan::hours(2.0)
+            ]
+        );
+        for bad in ["5", "0s", "9000h", "5 parsecs", ""] {
+            assert!(parse_horizons(bad).is_err(), "{bad}");
+        }
+        assert_eq!(
+            parse_supply("50 Nm3/h").unwrap(),
+            SupplyGiven::NormalCubicMetresPerHour(50.0)
+        );
+        assert_eq!(
+            parse_supply("60kg/h").unwrap(),
+            SupplyGiven::KgPerHour(60.0)
+        );
+        assert_eq!(
+            parse_supply("0.02 KG/S").unwrap(),
+            SupplyGiven::KgPerSecond(0.02)
+        );
+        for bad in ["50", "50 m3/h", "-5kg/h", "0kg/h", "1e9kg/s", "lots"] {
+            assert!(parse_supply(bad).is_err(), "{bad}");
+        }
+    }
+
+    #[test]
+    fn the_headspace_says_where_it_came_from() {
+        let config = demo();
+        let t12 = &config.tanks[0];
+        let t14 = &config.tanks[1];
+        let h = headspace(t14, None, None, 0).unwrap();
+        assert_eq!(h.source, HeadspaceSource::ConfigNominal);
+        assert_eq!(h.gauge, Pressure::kilopascals(15.0));
+        let h = headspace(t12, None, None, 0).unwrap();
+        assert_eq!(h.source, HeadspaceSource::ConfigAssumed);
+        let mut bare = t14.clone();
+        bare.nominal_headspace = None;
+        let h = headspace(&bare, None, None, 0).unwrap();
+        assert_eq!(h.source, HeadspaceSource::AssumedZero);
+        assert!(h.warnings[0].contains("unsafe side"), "{:?}", h.warnings);
+        let h = headspace(t14, Some(HeadspaceGiven::Absolute(121.325)), None, 0).unwrap();
+        assert!((h.gauge.si() - 20_000.0).abs() < 1e-6);
+        assert_eq!(h.source, HeadspaceSource::GivenAbsolute);
+        let h = headspace(t14, Some(HeadspaceGiven::Gauge(101.0)), None, 0).unwrap();
+        assert!(
+            h.warnings[0].contains("--headspace-abs"),
+            "{:?}",
+            h.warnings
+        );
+        for bad in [-200.0, f64::NAN, 20_000.0] {
+            assert!(headspace(t14, Some(HeadspaceGiven::Gauge(bad)), None, 0).is_err());
+        }
+        assert!(headspace(t14, Some(HeadspaceGiven::Absolute(0.0)), None, 0).is_err());
+    }
+
+    #[test]
+    fn a_hole_above_the_liquid_gives_a_vapour_forecast() {
+        let config = demo();
+        let t14 = &config.tanks[1];
+        let request = Request {
+            level: Some(Length::metres(2.0)),
+            hole_height: Some(Length::metres(2.3)),
+            holes: vec![HoleSize::Diameter(25.4)],
+            ..Request::for_tank(t14)
+        };
+        let study = compute(t14, &request).unwrap();
+        let hole = &study.holes[0];
+        assert_eq!((hole.phase, hole.regime), ("vapour", Some("subcritical")));
+        let v = hole.vapour.as_ref().unwrap();
+        let iso = &v.isothermal.cd_chosen;
+        let adi = &v.adiabatic.cd_chosen;
+        assert_eq!((iso.end, adi.end), ("ambient", "ambient"));
+        assert!(iso.released_by_end_kg > adi.released_by_end_kg);
+        assert!(iso.released_by_end_kg > 0.0 && iso.released_by_end_kg < v.initial_gas_kg);
+        // Isothermal released: (p0 - pa) V M/(R T) (the ideal gas law).
+        let expected = 15_000.0 * v.ullage_volume_m3 * 0.028_01 / (GAS_CONSTANT * 288.15);
+        assert!((iso.released_by_end_kg / expected - 1.0).abs() < 1e-12);
+        let text = human(&study);
+        assert!(text.contains("vapour, subcritical"), "{text}");
+        assert!(text.contains("blanket supply off"), "{text}");
+        assert!(!text.contains("flow stops after"), "{text}");
+    }
 }

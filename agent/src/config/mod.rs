@@ -176,6 +176,9 @@ pub struct Tank {
     pub reportable: Vec<Mass>,
     /// Headspace gauge pressure to assume when no pressure sensor is mapped.
     pub assumed_headspace: Pressure,
+    /// With a pressure sensor: the blanket's usual gauge pressure, which
+    /// `whatif` takes when no reading is given or logged.
+    pub nominal_headspace: Option<Pressure>,
     pub level: Sensor,
     pub pressure: Option<PressureSensor>,
     /// Net volume flow into the tank from pumps (negative out), m³/s.
@@ -781,6 +784,15 @@ impl Checker {
                 format!("{ctx}: headspace_kpa is only for tanks without a pressure sensor; remove one of the two"),
             );
         }
+        let nominal_headspace = t.nominal_headspace_kpa.as_ref().map(|kpa| {
+            let value = *kpa.get_ref();
+            if t.pressure.is_none() {
+                self.problem(kpa.span(), format!("{ctx}: nominal_headspace_kpa is for tanks with a pressure sensor; for a tank without one, give headspace_kpa"));
+            } else if !(value.is_finite() && value > -ambient.si() / 1000.0 && value <= 10_000.0) {
+                self.problem(kpa.span(), format!("{ctx}: nominal_headspace_kpa = {value} is not a plausible gauge pressure; give the blanket's usual pressure in kPa above ambient"));
+            }
+            Pressure::kilopascals(value)
+        });
 
         let height = vessel.as_ref().map(|v| v.geometry().height().si());
         let level = self.sensor(&t.level, &format!("{ctx} level"), Quantity::Length, density);
@@ -910,6 +922,7 @@ impl Checker {
             substance: t.substance.name,
             reportable,
             assumed_headspace,
+            nominal_headspace,
             level: level?,
             pressure,
             transfer,
@@ -2052,6 +2065,49 @@ level = { register = "input", address = 0, type = "u16", raw = [4000, 20000], ra
             panic!("expected problems");
         };
         assert_eq!(problems.len(), 2, "{problems:?}");
+    }
+
+    /// `nominal_headspace_kpa`: only beside a pressure sensor, and a
+    /// plausible gauge pressure.
+    #[test]
+    fn a_nominal_headspace_needs_a_pressure_sensor_and_a_plausible_value() {
+        let pressure = "height_m = 5.0 }\npressure = { register = \"input\", address = 5, type = \"u16\", range = [0.0, 100.0], unit = \"kPa\", reference = \"gauge\" }";
+        let with = |key: &str| BASE.replacen("height_m = 5.0 }", &format!("{pressure}\n{key}"), 1);
+        let tank = parse(
+            &with("nominal_headspace_kpa = 15.0"),
+            Path::new("site.toml"),
+        )
+        .unwrap()
+        .tanks
+        .remove(0);
+        assert_eq!(tank.nominal_headspace, Some(Pressure::kilopascals(15.0)));
+        let cases = [
+            (
+                BASE.replacen(
+                    "height_m = 5.0 }",
+                    "height_m = 5.0 }\nnominal_headspace_kpa = 15.0",
+                    1,
+                ),
+                "site.toml:10:25: tank \"T1\": nominal_headspace_kpa is for tanks with a pressure sensor; for a tank without one, give headspace_kpa",
+            ),
+            (
+                with("nominal_headspace_kpa = -150.0"),
+                "site.toml:11:25: tank \"T1\": nominal_headspace_kpa = -150 is not a plausible gauge pressure",
+            ),
+        ];
+        for (text, expected) in cases {
+            let err = parse(&text, Path::new("site.toml"))
+                .unwrap_err()
+                .to_string();
+            assert!(
+                err.starts_with(expected),
+                "got:\n{err}\nexpected:\n{expected}"
+            );
+        }
+        assert_eq!(
+            parse(BASE, Path::new("site.toml")).unwrap().tanks[0].nominal_headspace,
+            None
+        );
     }
 
     #[test]

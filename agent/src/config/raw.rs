@@ -87,6 +87,10 @@ pub struct RawTank {
     /// sensor, in kPa: 0 for an open vent, the set point for a blanket.
     #[serde(default)]
     pub headspace_kpa: Option<Spanned<f64>>,
+    /// For a tank with a pressure transmitter: the blanket's usual gauge
+    /// pressure in kPa, for what-if studies without a logged reading.
+    #[serde(default)]
+    pub nominal_headspace_kpa: Option<Spanned<f64>>,
     pub level: RawSensor,
     pub pressure: Option<RawSensor>,
     pub transfer: Option<RawSensor>,

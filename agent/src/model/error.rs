@@ -100,6 +100,11 @@ pub enum ModelError {
         "samples must come in time order, but one at {next_ms} ms follows one at {previous_ms} ms; sort the readings by time"
     )]
     SamplesOutOfOrder { previous_ms: i64, next_ms: i64 },
+
+    #[error(
+        "the {what} did not settle within {steps} steps; this is a fault in leaktally, not in the inputs: please report it with the command that gave it"
+    )]
+    NotConverged { what: &'static str, steps: usize },
 }
 
 pub type ModelResult<T> = Result<T, ModelError>;

@@ -10,10 +10,12 @@
 //! * [`vessel`]: a tank with its contents; pressure readings; which phase flows.
 //! * [`density`]: liquid density as a function of temperature.
 //! * [`forecast`]: the draining forecast (when the flow stops, totals at horizons).
+//! * [`blowdown`]: the gas space venting through a hole above the liquid.
 //! * [`tally`]: the running total over timestamped samples, with its Cd band.
 //! * [`integral`]: the trapezoid rule as a running accumulator.
 //! * [`quadrature`]: adaptive Gauss–Kronrod integration, used by the forecast.
 
+pub mod blowdown;
 pub mod density;
 pub mod error;
 pub mod forecast;
@@ -25,6 +27,7 @@ pub mod tally;
 pub mod units;
 pub mod vessel;
 
+pub use blowdown::{Blowdown, BlowdownEnd, BlowdownForecast, BlowdownPoint, Thermal, Ullage};
 pub use density::DensityModel;
 pub use error::{ModelError, ModelResult};
 pub use forecast::{Forecast, HorizonPoint, forecast_liquid};

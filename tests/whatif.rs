@@ -1,0 +1,434 @@
+//! `leaktally whatif` end to end, as a user runs it: the headspace pressure
+//! read from a database a real daemon fills from the simulator (against the
+//! simulator's truth), a hole above the liquid of the nitrogen-blanketed
+//! tank, the options and their refusals, and the JSON document.
+
+use crate::util::{
+    Finished, Scratch, Truth, binary, demo_site, now_ms, run, start_daemon, start_sim, toml_path,
+    wait_for,
+};
+use leaktally::model::GAS_CONSTANT;
+use serde_json::Value;
+use std::path::Path;
+use std::process::Command;
+use std::time::Duration;
+
+fn whatif(scratch: &Scratch, config: &Path, args: &[&str]) -> Finished {
+    let mut command = Command::new(binary("leaktally"));
+    command.arg("whatif").arg("--config").arg(config).args(args);
+    run("leaktally-whatif", &mut command, scratch)
+}
+
+fn whatif_ok(scratch: &Scratch, config: &Path, args: &[&str]) -> String {
+    let done = whatif(scratch, config, args);
+    assert!(
+        done.status.success(),
+        "whatif {args:?} failed:\n{}\n{}",
+        done.stdout,
+        done.stderr
+    );
+    done.stdout
+}
+
+fn json(scratch: &Scratch, config: &Path, args: &[&str]) -> Value {
+    let mut args = args.to_vec();
+    args.push("--json");
+    serde_json::from_str(&whatif_ok(scratch, config, &args)).expect("whatif --json is JSON")
+}
+
+/// The time of the truth file's last complete row, UTC ms.
+fn truth_ends_ms(path: &Path) -> i64 {
+    let text = std::fs::read_to_string(path).unwrap_or_default();
+    let mut lines = text.lines();
+    let Some(header) = lines.next() else {
+        return i64::MIN;
+    };
+    let columns = header.split(',').count();
+    let utc = header
+        .split(',')
+        .position(|h| h == "utc")
+        .expect("a utc column");
+    lines
+        .filter(|l| l.split(',').count() >= columns)
+        .filter_map(|l| l.split(',').nth(utc)?.parse::<jiff::Timestamp>().ok())
+        .map(|t| t.as_millisecond())
+        .max()
+        .unwrap_or(i64::MIN)
+}
+
+fn demo_config() -> std::path::PathBuf {
+    crate::util::repo_root().join("config/demo.toml")
+}
+
+/// The headspace from the last good reading in the database: FF-T14's
+/// gauge transmitter in the headspace, and FF-T20's absolute transmitter low
+/// on the shell, which also reads the liquid column above it and must come
+/// out at the simulator's headspace (the truth file) once that is taken off.
+#[test]
+fn whatif_takes_the_headspace_from_the_last_logged_reading() {
+    let scratch = Scratch::new("whatif-db");
+    let site = scratch.write("sim-site.toml", &demo_site("127.0.0.1:1"));
+    let scenario = scratch.write(
+        "scenario.toml",
+        &format!(
+            r#"site = {site}
+seed = 5
+[[tank]]
+id = "FF-T12"
+initial_level_m = 4.0
+[[tank]]
+id = "FF-T14"
+initial_level_m = 1.6
+headspace_kpa = 22.0
+pressure_noise_pa = 30.0
+[[tank]]
+id = "FF-T20"
+initial_level_m = 5.1
+headspace_kpa = 3.0
+pressure_noise_pa = 30.0
+"#,
+            site = toml_path(&site)
+        ),
+    );
+    let (_sim, address) = start_sim(&scratch, &scenario, "127.0.0.1:0");
+    let config = scratch.write("site.toml", &demo_site(&address));
+    let db = scratch.path("leaktally.db");
+    let _daemon = start_daemon(&scratch, "daemon", &config, &db);
+    let db_text = db.to_str().unwrap();
+    wait_for(
+        "a logged pressure of FF-T20",
+        Duration::from_secs(20),
+        || {
+            let doc = json(&scratch, &config, &["--tank", "FF-T20", "--db", db_text]);
+            doc["headspace"]["source"] == "logged"
+        },
+    );
+    for (tank, noise_pa) in [("FF-T14", 30.0), ("FF-T20", 30.0)] {
+        let doc = json(&scratch, &config, &["--tank", tank, "--db", db_text]);
+        let headspace = &doc["headspace"];
+        assert_eq!(headspace["source"], "logged", "{tank}: {headspace:#}");
+        let logged = &headspace["logged"];
+        let at_ms = logged["at_ms"].as_i64().unwrap();
+        assert!(
+            now_ms() - at_ms < 10_000,
+            "{tank}: the reading is the latest"
+        );
+        // The simulator writes its truth every simulated second.
+        wait_for(
+            "the truth to cover the reading",
+            Duration::from_secs(10),
+            || truth_ends_ms(&scratch.path("truth.csv")) > at_ms,
+        );
+        let truth = Truth::load(&scratch.path("truth.csv"));
+        let expected = truth.at(tank, at_ms).headspace_pa;
+        let got = headspace["gauge_pa"].as_f64().unwrap();
+        // The simulator's noise on the reading (30 Pa, one sigma) and the
+        // register's quantisation (FF-T20: 250 kPa over 65535 counts).
+        println!("{tank}: logged headspace {got:.0} Pa gauge, truth {expected:.0} Pa");
+        assert!(
+            (got - expected).abs() < 5.0 * noise_pa + 4.0,
+            "{tank}: {got} Pa vs the truth {expected} Pa"
+        );
+        assert!(
+            (headspace["absolute_pa"].as_f64().unwrap() - got - 101_325.0).abs() < 1e-6,
+            "{tank}"
+        );
+        let text = whatif_ok(&scratch, &config, &["--tank", tank, "--db", db_text]);
+        assert!(
+            text.contains("the last good pressure reading in") && text.contains(" UTC ("),
+            "{tank}: the text names the reading and its time:\n{text}"
+        );
+    }
+    let t20 = json(&scratch, &config, &["--tank", "FF-T20", "--db", db_text]);
+    assert_eq!(t20["headspace"]["logged"]["tap"], "submerged");
+    assert_eq!(t20["headspace"]["logged"]["reference"], "absolute");
+
+    // A pressure given on the command line wins, and says so.
+    let doc = json(
+        &scratch,
+        &config,
+        &[
+            "--tank",
+            "FF-T14",
+            "--db",
+            db_text,
+            "--headspace-abs",
+            "130",
+        ],
+    );
+    assert_eq!(doc["headspace"]["source"], "given_absolute");
+    assert!((doc["headspace"]["gauge_pa"].as_f64().unwrap() - 28_675.0).abs() < 1e-6);
+    assert!(
+        doc["warnings"][0]
+            .as_str()
+            .unwrap()
+            .contains("--db is not read"),
+        "{doc:#}"
+    );
+    // A tank without a transmitter: the config's, with a word why.
+    let doc = json(&scratch, &config, &["--tank", "FF-T12", "--db", db_text]);
+    assert_eq!(doc["headspace"]["source"], "config_assumed");
+    assert!(
+        doc["warnings"][0]
+            .as_str()
+            .unwrap()
+            .contains("no pressure transmitter")
+    );
+}
+
+/// A hole above the liquid of the nitrogen-blanketed FF-T14: a vapour
+/// forecast, named as such, not "flow stops after 0 s".
+#[test]
+fn a_hole_above_the_liquid_of_the_blanketed_tank_vents_its_gas() {
+    let scratch = Scratch::new("whatif-vapour");
+    let config = demo_config();
+    let args = [
+        "--tank",
+        "FF-T14",
+        "--level",
+        "1.6",
+        "--hole-height",
+        "2.3",
+        "--hole-diameter",
+        "25.4",
+        "--horizons",
+        "5s,1m,30m",
+    ];
+    let text = whatif_ok(&scratch, &config, &args);
+    println!("{text}");
+    for expected in [
+        "15.0 kPa gauge = 116.3 kPa absolute: the nominal blanket pressure in the config",
+        "vapour, subcritical",
+        "isothermal",
+        "adiabatic",
+        "at ambient",
+        "blanket supply off",
+        "CAUTION",
+    ] {
+        assert!(text.contains(expected), "missing {expected:?} in:\n{text}");
+    }
+    assert!(!text.contains("flow stops after"), "{text}");
+
+    let doc = json(&scratch, &config, &args);
+    assert_eq!(doc["format"], 1);
+    let hole = &doc["holes"][0];
+    assert_eq!(hole["phase"], "vapour");
+    assert_eq!(hole["regime"], "subcritical");
+    assert_eq!(hole["liquid"], Value::Null);
+    let v = &hole["vapour"];
+    // The isothermal bound releases, in all, what the ideal gas law says
+    // the gas space loses going from 15 kPa gauge to ambient at 15 °C:
+    // (p0 - pa) V M / (R T).
+    let volume = v["ullage_volume_m3"].as_f64().unwrap();
+    let total = 15_000.0 * volume * 0.028_01 / (GAS_CONSTANT * 288.15);
+    let iso = &v["isothermal"]["cd_chosen"];
+    let adi = &v["adiabatic"]["cd_chosen"];
+    assert!(
+        (iso["released_by_end_kg"].as_f64().unwrap() / total - 1.0).abs() < 1e-10,
+        "{iso:#}"
+    );
+    // Adiabatic: the gas left at ambient is cold, (pa/p0)^(1/k) of the
+    // initial density (isentropic expansion).
+    let initial = v["initial_gas_kg"].as_f64().unwrap();
+    let adiabatic_total = initial * (1.0 - (101_325.0f64 / 116_325.0).powf(1.0 / 1.4));
+    assert!(
+        (adi["released_by_end_kg"].as_f64().unwrap() / adiabatic_total - 1.0).abs() < 1e-10,
+        "{adi:#}"
+    );
+    assert_eq!(iso["end"], "ambient");
+    // The bands are named, the horizons labelled.
+    let band = &v["band"][1];
+    assert_eq!(band["after_s"], 60.0);
+    assert!(band["low_kg"].as_f64().unwrap() <= band["high_kg"].as_f64().unwrap());
+    assert!(v["initial_rate_kg_s"]["cd_low"].as_f64().unwrap() > 0.0);
+    assert_eq!(doc["horizons_s"], serde_json::json!([5.0, 60.0, 1800.0]));
+
+    // With the supply on: the pressure settles where the outflow is the
+    // supply, and the release goes on.
+    let mut on = args.to_vec();
+    on.extend(["--blanket-supply", "50Nm3/h"]);
+    let doc = json(&scratch, &config, &on);
+    let v = &doc["holes"][0]["vapour"];
+    assert_eq!(v["supply"], "on");
+    let supply = &doc["blanket_supply"];
+    // 50 normal m³/h of nitrogen: 50 * 101325 * 0.02801 / (R * 273.15) / 3600
+    // kg/s (the ideal gas law at 0 °C and 101.325 kPa).
+    let kg_s = 50.0 * 101_325.0 * 0.028_01 / (GAS_CONSTANT * 273.15) / 3600.0;
+    assert!((supply["kg_s"].as_f64().unwrap() / kg_s - 1.0).abs() < 1e-12);
+    for bound in ["isothermal", "adiabatic"] {
+        let run = &v[bound]["cd_chosen"];
+        assert_eq!(run["end"], "steady", "{bound}: {run:#}");
+        assert!((run["rate_after_end_kg_s"].as_f64().unwrap() / kg_s - 1.0).abs() < 1e-12);
+        let steady = run["end_pressure_gauge_pa"].as_f64().unwrap();
+        assert!(steady > 0.0 && steady < 15_000.0, "{bound}: {steady}");
+    }
+    let text = whatif_ok(&scratch, &config, &on);
+    assert!(text.contains("blanket supply on at 50 Nm³/h"), "{text}");
+    assert!(text.contains("steady at"), "{text}");
+}
+
+/// Liquid holes: rates in kg/s and m³/h, user horizons, time to a level,
+/// a hole given by its area, and nothing released beyond the liquid above
+/// the hole.
+#[test]
+fn liquid_holes_with_horizons_a_level_and_an_area() {
+    let scratch = Scratch::new("whatif-liquid");
+    let config = demo_config();
+    let args = [
+        "--tank",
+        "FF-T14",
+        "--level",
+        "2.0",
+        "--hole-height",
+        "0.5",
+        "--hole-area",
+        "506.7,8107",
+        "--horizons",
+        "5m,30m,2h",
+        "--to-level",
+        "1.0",
+        "--cd",
+        "0.8",
+    ];
+    let doc = json(&scratch, &config, &args);
+    let rho = 792.0;
+    let above = doc["liquid_above_hole_kg"].as_f64().unwrap();
+    for hole in doc["holes"].as_array().unwrap() {
+        assert_eq!(hole["phase"], "liquid");
+        assert_eq!(hole["given_as"], "area");
+        let l = &hole["liquid"];
+        for cd in ["cd_low", "cd_chosen", "cd_high"] {
+            let kg_s = l["initial_rate_kg_s"][cd].as_f64().unwrap();
+            let m3_h = l["initial_rate_m3_h"][cd].as_f64().unwrap();
+            assert!((m3_h - kg_s * 3600.0 / rho).abs() < 1e-9 * m3_h);
+            for h in l["horizons"].as_array().unwrap() {
+                let released = h["released_kg"][cd].as_f64().unwrap();
+                assert!(released <= above * (1.0 + 1e-12), "{released} > {above}");
+            }
+            let t = l["to_level"]["reached_after_s"][cd].as_f64().unwrap();
+            assert!(t > 0.0 && t < l["stops_after_s"][cd].as_f64().unwrap());
+        }
+        // Torricelli for the headspace held: the orifice equation at the
+        // start, Cd A sqrt(2 rho dP), dP = 15 kPa + rho g (2.0 - 0.5).
+        let area = hole["area_mm2"].as_f64().unwrap() * 1e-6;
+        let dp = 15_000.0 + rho * 9.806_65 * 1.5;
+        let expected = 0.8 * area * (2.0 * rho * dp).sqrt();
+        let got = l["initial_rate_kg_s"]["cd_chosen"].as_f64().unwrap();
+        assert!((got / expected - 1.0).abs() < 1e-12, "{got} vs {expected}");
+        assert_eq!(l["horizons"].as_array().unwrap().len(), 3);
+    }
+    let text = whatif_ok(&scratch, &config, &args);
+    println!("{text}");
+    for expected in [
+        "in 5 min",
+        "in 30 min",
+        "in 2 h",
+        "level 1.00 m",
+        "m³/h",
+        "(506.7 mm²)",
+        "Cd 0.80 [band]",
+    ] {
+        assert!(text.contains(expected), "missing {expected:?} in:\n{text}");
+    }
+    assert!(
+        !text.contains("in 15 min"),
+        "user horizons replace the default:\n{text}"
+    );
+    // One unit per column: no kg/h anywhere in the rate columns.
+    assert!(!text.contains("kg/h"), "{text}");
+}
+
+/// Refusals: each says what is wrong and how to put it right, and the
+/// hole sizes follow the one rule `leak open` has.
+#[test]
+fn whatif_refuses_what_makes_no_sense_and_says_why() {
+    let scratch = Scratch::new("whatif-refusals");
+    let config = demo_config();
+    let cases: &[(&[&str], &str)] = &[
+        (&["--hole-diameter", "1e-300"], "below 0.1 mm"),
+        (&["--hole-diameter", "6000"], "is over 5 m"),
+        (&["--hole-area", "0.001"], "below 0.1 mm"),
+        (
+            &["--hole-area", "5", "--hole-diameter", "5"],
+            "cannot be used with",
+        ),
+        (
+            &["--headspace", "10", "--headspace-abs", "110"],
+            "cannot be used with",
+        ),
+        (
+            &["--headspace", "-150"],
+            "not a gauge pressure the tank can hold",
+        ),
+        (
+            &["--blanket-supply", "50m3/h"],
+            "the unit \"m3/h\" is not one",
+        ),
+        (&["--horizons", "5m,soon"], "is not a duration"),
+        (&["--to-level", "2.4"], "is not below the level"),
+        (&["--level", "3.0"], "above the top of the tank"),
+        (&["--hole-height", "3.0"], "the tank is only 2.5 m tall"),
+        (&["--db", "/nonexistent/x.db"], "x.db"),
+    ];
+    for (extra, expected) in cases {
+        let mut args = vec!["--tank", "FF-T14"];
+        args.extend_from_slice(extra);
+        let done = whatif(&scratch, &config, &args);
+        assert!(
+            !done.status.success(),
+            "{args:?} was accepted:\n{}",
+            done.stdout
+        );
+        assert!(
+            done.stderr.contains(expected),
+            "{args:?}: expected {expected:?} in:\n{}",
+            done.stderr
+        );
+        assert!(
+            !done.stderr.contains("panicked"),
+            "{args:?}: {}",
+            done.stderr
+        );
+    }
+    // The same rule as `leak open --hole-diameter`, from the same function.
+    assert_eq!(
+        leaktally::commands::leak::HOLE_DIAMETER_RANGE_MM,
+        (0.1, 5000.0)
+    );
+
+    // FF-T12 has no vapour properties: a supply cannot be forecast.
+    let done = whatif(
+        &scratch,
+        &config,
+        &["--tank", "FF-T12", "--blanket-supply", "5kg/h"],
+    );
+    assert!(!done.status.success());
+    assert!(
+        done.stderr.contains("no vapour properties"),
+        "{}",
+        done.stderr
+    );
+}
+
+/// A tank with a transmitter and no nominal pressure, no --headspace and
+/// no --db: 0 kPa, with the warning in the text and in the JSON.
+#[test]
+fn an_assumed_zero_headspace_is_said_in_the_text_and_the_json() {
+    let scratch = Scratch::new("whatif-zero");
+    let text = std::fs::read_to_string(demo_config())
+        .unwrap()
+        .replace("nominal_headspace_kpa = 15.0\n", "");
+    let config = scratch.write("site.toml", &text);
+    let doc = json(&scratch, &config, &["--tank", "FF-T14"]);
+    assert_eq!(doc["headspace"]["source"], "assumed_zero");
+    assert_eq!(doc["headspace"]["gauge_pa"], 0.0);
+    assert!(
+        doc["warnings"][0].as_str().unwrap().contains("unsafe side"),
+        "{doc:#}"
+    );
+    let text = whatif_ok(&scratch, &config, &["--tank", "FF-T14"]);
+    assert!(
+        text.contains("WARNING:") && text.contains("ASSUMED"),
+        "{text}"
+    );
+}
