@@ -18,6 +18,8 @@ pub enum WriteFailure {
     Locked,
     /// The disk (or a size limit) is full.
     Full,
+    /// SQLite says the file is damaged.
+    Damaged,
     /// Anything else: an I/O error, a read-only file.
     Other,
 }
@@ -28,6 +30,7 @@ impl WriteFailure {
             StoreError::Sql(rusqlite::Error::SqliteFailure(e, _)) => match e.code {
                 ErrorCode::DatabaseBusy | ErrorCode::DatabaseLocked => WriteFailure::Locked,
                 ErrorCode::DiskFull => WriteFailure::Full,
+                ErrorCode::DatabaseCorrupt | ErrorCode::NotADatabase => WriteFailure::Damaged,
                 _ => WriteFailure::Other,
             },
             _ => WriteFailure::Other,
@@ -37,7 +40,7 @@ impl WriteFailure {
     /// Whether `error` is one that passes by itself (a lock let go, space
     /// freed), so the write is held and tried again rather than refused.
     pub fn passes(error: &StoreError) -> bool {
-        Self::of(error) != WriteFailure::Other
+        matches!(Self::of(error), WriteFailure::Locked | WriteFailure::Full)
     }
 
     /// What a reader is told, with the fix.
@@ -47,6 +50,9 @@ impl WriteFailure {
                 "another program holds the database's write lock; find and stop it"
             }
             WriteFailure::Full => "the disk holding the database is full; free space on it",
+            WriteFailure::Damaged => {
+                "the database file is damaged; stop the daemon and follow \"A damaged database\" in the README"
+            }
             WriteFailure::Other => "the database cannot be written; see the daemon's log",
         }
     }
@@ -56,6 +62,7 @@ impl WriteFailure {
             WriteFailure::Locked => 1,
             WriteFailure::Full => 2,
             WriteFailure::Other => 3,
+            WriteFailure::Damaged => 4,
         }
     }
 
@@ -64,6 +71,7 @@ impl WriteFailure {
             1 => Some(WriteFailure::Locked),
             2 => Some(WriteFailure::Full),
             3 => Some(WriteFailure::Other),
+            4 => Some(WriteFailure::Damaged),
             _ => None,
         }
     }

@@ -155,6 +155,26 @@ pub fn samples_between(
     Ok(out)
 }
 
+/// Whether a good level of `tank` is stored within `slack_ms` either side
+/// of `at_ms`: whether the logged history covers that moment.
+pub fn good_level_near(
+    conn: &Connection,
+    tank: &str,
+    at_ms: i64,
+    slack_ms: i64,
+) -> StoreResult<bool> {
+    Ok(conn.query_row(
+        "SELECT EXISTS (SELECT 1 FROM samples s JOIN tanks t ON t.id = s.tank
+                        WHERE t.tag = ?1 AND s.at_ms BETWEEN ?2 AND ?3 AND s.level_q = 'good')",
+        params![
+            tank,
+            at_ms.saturating_sub(slack_ms),
+            at_ms.saturating_add(slack_ms)
+        ],
+        |r| r.get(0),
+    )?)
+}
+
 /// The time of a tank's oldest stored sample.
 pub fn first_sample_ms(conn: &Connection, tank: &str) -> StoreResult<Option<i64>> {
     Ok(conn.query_row(
@@ -268,10 +288,52 @@ pub fn revise_event(conn: &Connection, id: i64, params: &LeakParams) -> StoreRes
 
 pub fn close_event(conn: &Connection, id: i64, at_ms: i64) -> StoreResult<()> {
     conn.execute(
-        "UPDATE events SET closed_at_ms = ?2 WHERE id = ?1 AND closed_at_ms IS NULL",
+        "UPDATE events SET closed_at_ms = ?2, tracking_error = NULL WHERE id = ?1 AND closed_at_ms IS NULL",
         params![id, at_ms],
     )?;
     Ok(())
+}
+
+/// Drops an event's estimates and crossings after `at_ms` (every revision).
+pub fn drop_estimates_after(conn: &Connection, event: i64, at_ms: i64) -> StoreResult<()> {
+    conn.execute(
+        "DELETE FROM estimates WHERE event = ?1 AND at_ms > ?2",
+        params![event, at_ms],
+    )?;
+    conn.execute(
+        "DELETE FROM crossings WHERE event = ?1 AND at_ms > ?2",
+        params![event, at_ms],
+    )?;
+    Ok(())
+}
+
+/// The open event of a tank (the newest, should there be more).
+pub fn open_event_of_tank(conn: &Connection, tank: &str) -> StoreResult<Option<EventRow>> {
+    let sql = format!(
+        "SELECT {EVENT_COLUMNS} FROM events WHERE tank = ?1 AND closed_at_ms IS NULL ORDER BY id DESC LIMIT 1"
+    );
+    conn.query_row(&sql, [tank], event_from_row)
+        .optional()?
+        .map(parse_params)
+        .transpose()
+}
+
+/// Marks an open event as not tracked, and why; None clears it.
+pub fn set_tracking_error(conn: &Connection, event: i64, why: Option<&str>) -> StoreResult<()> {
+    conn.execute(
+        "UPDATE events SET tracking_error = ?2 WHERE id = ?1",
+        params![event, why],
+    )?;
+    Ok(())
+}
+
+/// Why each open event that is not tracked is not, by event id.
+pub fn tracking_errors(conn: &Connection) -> StoreResult<std::collections::HashMap<i64, String>> {
+    let mut stmt = conn.prepare(
+        "SELECT id, tracking_error FROM events WHERE closed_at_ms IS NULL AND tracking_error IS NOT NULL",
+    )?;
+    let rows = stmt.query_map([], |r| Ok((r.get(0)?, r.get(1)?)))?;
+    Ok(rows.collect::<Result<_, _>>()?)
 }
 
 fn json<T: Serialize>(value: &T) -> StoreResult<String> {
@@ -473,7 +535,7 @@ pub fn actions_of(conn: &Connection, event: i64) -> StoreResult<Vec<ActionRow>> 
     rows.map(|r| parse_action(r?)).collect()
 }
 
-/// Marks an action done or refused, with what changed or why not.
+/// Marks an action done or refused, with what changed or why not, now.
 pub fn finish_action(
     conn: &Connection,
     id: i64,
@@ -481,11 +543,35 @@ pub fn finish_action(
     done: bool,
     outcome: &str,
 ) -> StoreResult<()> {
+    finish_action_at(conn, id, event, done, outcome, super::now_ms())
+}
+
+/// As [`finish_action`], handled at `at_ms` (the daemon's timeline).
+pub fn finish_action_at(
+    conn: &Connection,
+    id: i64,
+    event: Option<i64>,
+    done: bool,
+    outcome: &str,
+    at_ms: i64,
+) -> StoreResult<()> {
     conn.execute(
-        "UPDATE actions SET state = ?2, handled_at_ms = ?3, outcome = ?4, event = COALESCE(event, ?5) WHERE id = ?1",
-        params![id, if done { "done" } else { "refused" }, super::now_ms(), outcome, event],
+        "UPDATE actions SET state = ?2, handled_at_ms = ?3, outcome = ?4, event = COALESCE(event, ?5) WHERE id = ?1 AND state = 'pending'",
+        params![id, if done { "done" } else { "refused" }, at_ms, outcome, event],
     )?;
     Ok(())
+}
+
+/// Whether an action still waits for the daemon.
+pub fn action_is_pending(conn: &Connection, id: i64) -> StoreResult<bool> {
+    Ok(conn
+        .query_row(
+            "SELECT state = 'pending' FROM actions WHERE id = ?1",
+            [id],
+            |r| r.get::<_, bool>(0),
+        )
+        .optional()?
+        .unwrap_or(false))
 }
 
 /// The daemon's heartbeat row.
@@ -493,9 +579,18 @@ pub fn finish_action(
 pub struct Heartbeat {
     pub pid: i64,
     pub started_at_ms: i64,
+    /// The last beat on the daemon's timeline.
     pub beat_at_ms: i64,
     pub config: String,
     pub stopped_at_ms: Option<i64>,
+    /// The last beat on the wall clock (absent before schema version 3).
+    pub beat_wall_ms: Option<i64>,
+    /// The daemon's timeline minus the wall clock at the last beat.
+    pub clock_offset_ms: Option<i64>,
+    /// When the daemon's main loop last turned, on the wall clock.
+    pub loop_wall_ms: Option<i64>,
+    /// What the daemon was doing at the last beat.
+    pub activity: Option<String>,
 }
 
 impl Heartbeat {
@@ -510,21 +605,140 @@ impl Heartbeat {
         std::fs::read_to_string(format!("/proc/{}/comm", self.pid))
             .is_ok_and(|comm| comm.trim_end() == "leaktally")
     }
+
+    /// How long ago (ms) the daemon beat, by a reader's wall clock
+    /// `now_wall_ms`: wall against wall, so that the daemon's timeline
+    /// running ahead of or behind the wall clock does not count.
+    pub fn age_ms(&self, now_wall_ms: i64) -> i64 {
+        now_wall_ms - self.beat_wall_ms.unwrap_or(self.beat_at_ms)
+    }
+
+    /// How long ago (ms) the daemon's main loop last turned, by a reader's
+    /// wall clock; None if it does not say.
+    pub fn loop_age_ms(&self, now_wall_ms: i64) -> Option<i64> {
+        self.loop_wall_ms.map(|at| now_wall_ms - at)
+    }
 }
 
+/// A heartbeat older than this (by the wall clock) means the daemon is not
+/// writing to the database.
+pub const SILENT_AFTER_MS: i64 = 5_000;
+/// A main loop that has not turned for this long, under a fresh heartbeat,
+/// means the daemon is busy.
+pub const BUSY_AFTER_MS: i64 = 5_000;
+
+/// What a reader can tell of the daemon from its heartbeat row.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub enum DaemonState {
+    /// Beating, its main loop turning.
+    Running,
+    /// Beating, but its main loop has not turned for `for_ms`: it is busy
+    /// with `activity`.
+    Busy { for_ms: i64, activity: String },
+    /// Its process is alive but has not beaten: it cannot write to the
+    /// database (locked, full, or a disk that does not answer).
+    Stalled,
+    /// No daemon: stopped, or its process has gone.
+    NotRunning,
+}
+
+impl DaemonState {
+    pub fn name(&self) -> &'static str {
+        match self {
+            DaemonState::Running => "running",
+            DaemonState::Busy { .. } => "busy",
+            DaemonState::Stalled => "stalled",
+            DaemonState::NotRunning => "not_running",
+        }
+    }
+}
+
+impl Heartbeat {
+    /// The daemon's state, by a reader's wall clock `now_wall_ms`. A fresh
+    /// heartbeat counts as running even if the process has just died (the
+    /// seconds after a kill -9): the beat goes stale within
+    /// [`SILENT_AFTER_MS`].
+    pub fn state(&self, now_wall_ms: i64) -> DaemonState {
+        if self.stopped_at_ms.is_some() {
+            return DaemonState::NotRunning;
+        }
+        if self.age_ms(now_wall_ms) <= SILENT_AFTER_MS {
+            return match self.loop_age_ms(now_wall_ms) {
+                Some(age) if age > BUSY_AFTER_MS => DaemonState::Busy {
+                    for_ms: age,
+                    activity: self.activity.clone().unwrap_or_default(),
+                },
+                _ => DaemonState::Running,
+            };
+        }
+        if self.process_alive() {
+            DaemonState::Stalled
+        } else {
+            DaemonState::NotRunning
+        }
+    }
+}
+
+/// What the daemon writes into its heartbeat row.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Beat {
+    pub pid: u32,
+    pub started_at_ms: i64,
+    pub config: String,
+    /// The beat on the daemon's timeline and on the wall clock.
+    pub at_ms: i64,
+    pub wall_ms: i64,
+    pub loop_wall_ms: i64,
+    pub activity: String,
+}
+
+/// Beats now (timeline and wall clock alike), saying nothing of the loop:
+/// for tests and tools that stand in for a daemon.
 pub fn beat(conn: &Connection, pid: u32, started_at_ms: i64, config: &str) -> StoreResult<()> {
+    let now = super::now_ms();
+    beat_with(
+        conn,
+        &Beat {
+            pid,
+            started_at_ms,
+            config: config.to_owned(),
+            at_ms: now,
+            wall_ms: now,
+            loop_wall_ms: now,
+            activity: "polling".into(),
+        },
+    )
+}
+
+pub fn beat_with(conn: &Connection, b: &Beat) -> StoreResult<()> {
     conn.execute(
-        "INSERT INTO daemon (id, pid, started_at_ms, beat_at_ms, config) VALUES (1, ?1, ?2, ?3, ?4)
-         ON CONFLICT (id) DO UPDATE SET pid = ?1, started_at_ms = ?2, beat_at_ms = ?3, config = ?4, stopped_at_ms = NULL",
-        params![pid, started_at_ms, super::now_ms(), config],
+        "INSERT INTO daemon (id, pid, started_at_ms, beat_at_ms, config, beat_wall_ms, clock_offset_ms, loop_wall_ms, activity)
+         VALUES (1, ?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8)
+         ON CONFLICT (id) DO UPDATE SET pid = ?1, started_at_ms = ?2, beat_at_ms = ?3, config = ?4, stopped_at_ms = NULL,
+             beat_wall_ms = ?5, clock_offset_ms = ?6, loop_wall_ms = ?7, activity = ?8",
+        params![
+            b.pid,
+            b.started_at_ms,
+            b.at_ms,
+            b.config,
+            b.wall_ms,
+            b.at_ms - b.wall_ms,
+            b.loop_wall_ms,
+            b.activity
+        ],
     )?;
     Ok(())
 }
 
 pub fn mark_stopped(conn: &Connection) -> StoreResult<()> {
+    let now = super::now_ms();
+    mark_stopped_at(conn, now, now)
+}
+
+pub fn mark_stopped_at(conn: &Connection, at_ms: i64, wall_ms: i64) -> StoreResult<()> {
     conn.execute(
-        "UPDATE daemon SET stopped_at_ms = ?1 WHERE id = 1",
-        [super::now_ms()],
+        "UPDATE daemon SET stopped_at_ms = ?1, beat_wall_ms = ?2, activity = 'stopped' WHERE id = 1",
+        params![at_ms, wall_ms],
     )?;
     Ok(())
 }
@@ -532,7 +746,8 @@ pub fn mark_stopped(conn: &Connection) -> StoreResult<()> {
 pub fn heartbeat(conn: &Connection) -> StoreResult<Option<Heartbeat>> {
     Ok(conn
         .query_row(
-            "SELECT pid, started_at_ms, beat_at_ms, config, stopped_at_ms FROM daemon WHERE id = 1",
+            "SELECT pid, started_at_ms, beat_at_ms, config, stopped_at_ms, beat_wall_ms, clock_offset_ms, loop_wall_ms, activity
+             FROM daemon WHERE id = 1",
             [],
             |r| {
                 Ok(Heartbeat {
@@ -541,91 +756,123 @@ pub fn heartbeat(conn: &Connection) -> StoreResult<Option<Heartbeat>> {
                     beat_at_ms: r.get(2)?,
                     config: r.get(3)?,
                     stopped_at_ms: r.get(4)?,
+                    beat_wall_ms: r.get(5)?,
+                    clock_offset_ms: r.get(6)?,
+                    loop_wall_ms: r.get(7)?,
+                    activity: r.get(8)?,
                 })
             },
         )
         .optional()?)
 }
 
-/// How the rolling history is kept (DESIGN.md section 3): full rate for
-/// `full_ms`, one sample per `thin_every_ms` per tank back to `keep_ms`, none
-/// older. Samples inside an event (from its start to its close, or still
-/// open) are kept at full rate for as long as the event is kept.
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
-pub struct Retention {
-    pub full_ms: i64,
-    pub thin_every_ms: i64,
-    pub keep_ms: i64,
+/// The latest time anything stored carries (the heartbeat, the newest
+/// sample of any tank), so that a restarted daemon's timeline starts after
+/// it. One index lookup per tank.
+pub fn latest_stored_ms(conn: &Connection) -> StoreResult<Option<i64>> {
+    let beat: Option<i64> = conn
+        .query_row(
+            "SELECT MAX(beat_at_ms, COALESCE(stopped_at_ms, beat_at_ms)) FROM daemon WHERE id = 1",
+            [],
+            |r| r.get(0),
+        )
+        .optional()?
+        .flatten();
+    let sample: Option<i64> = conn.query_row(
+        "SELECT MAX((SELECT MAX(s.at_ms) FROM samples s WHERE s.tank = t.id)) FROM tanks t",
+        [],
+        |r| r.get(0),
+    )?;
+    Ok(beat.max(sample))
 }
 
-impl Retention {
-    /// 2 h at full rate, one per 10 s back to 24 h.
-    pub const DEFAULT: Retention = Retention {
-        full_ms: 2 * 3_600_000,
-        thin_every_ms: 10_000,
-        keep_ms: 24 * 3_600_000,
-    };
+/// Records a step of the wall clock (or what the timeline did about one).
+pub fn record_clock_step(conn: &Connection, step: &crate::clock::ClockStep) -> StoreResult<()> {
+    conn.execute(
+        "INSERT INTO clock_steps (kind, at_ms, wall_ms, step_ms, offset_ms) VALUES (?1, ?2, ?3, ?4, ?5)",
+        params![step.kind.name(), step.at_ms, step.wall_ms, step.step_ms, step.offset_ms],
+    )?;
+    Ok(())
 }
 
-/// Applies the retention to the samples that have aged in the last
-/// `slice_ms` (call it at least that often): a bounded amount of work each
-/// time, however long the history. Returns how many rows went.
-pub fn trim_history(
-    conn: &Connection,
-    now_ms: i64,
-    retention: Retention,
-    slice_ms: i64,
-) -> StoreResult<usize> {
-    let tanks: Vec<(i64, String)> = {
-        let mut stmt = conn.prepare_cached("SELECT id, tag FROM tanks")?;
-        stmt.query_map([], |r| Ok((r.get(0)?, r.get(1)?)))?
-            .collect::<Result<_, _>>()?
-    };
-    let mut removed = 0;
-    for (id, tag) in tanks {
-        // Event windows of this tank, to keep.
-        let windows: Vec<(i64, i64)> = {
-            let mut stmt = conn.prepare_cached(
-                "SELECT start_ms, COALESCE(closed_at_ms, ?2) FROM events WHERE tank = ?1",
-            )?;
-            stmt.query_map(params![tag, i64::MAX], |r| Ok((r.get(0)?, r.get(1)?)))?
-                .collect::<Result<_, _>>()?
-        };
-        let kept = |at: i64| windows.iter().any(|&(a, b)| at >= a && at <= b);
-        let mut doomed = Vec::new();
-        {
-            // Too old: everything past keep_ms.
-            let mut stmt =
-                conn.prepare_cached("SELECT at_ms FROM samples WHERE tank = ?1 AND at_ms < ?2")?;
-            for at in stmt.query_map(params![id, now_ms - retention.keep_ms], |r| {
-                r.get::<_, i64>(0)
-            })? {
-                let at = at?;
-                if !kept(at) {
-                    doomed.push(at);
-                }
-            }
-            // Just aged out of full rate: keep the first of each bucket.
-            let mut stmt = conn
-                .prepare_cached("SELECT at_ms FROM samples WHERE tank = ?1 AND at_ms >= ?2 AND at_ms < ?3 ORDER BY at_ms")?;
-            let from = now_ms - retention.full_ms - slice_ms;
-            let mut bucket = i64::MIN;
-            for at in stmt.query_map(params![id, from, now_ms - retention.full_ms], |r| {
-                r.get::<_, i64>(0)
-            })? {
-                let at = at?;
-                let b = at.div_euclid(retention.thin_every_ms);
-                if b == bucket && !kept(at) {
-                    doomed.push(at);
-                }
-                bucket = b;
-            }
-        }
-        let mut delete =
-            conn.prepare_cached("DELETE FROM samples WHERE tank = ?1 AND at_ms = ?2")?;
-        for at in doomed {
-            removed += delete.execute(params![id, at])?;
+/// A recorded clock step: kind, timeline time, wall time, step, offset.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize)]
+pub struct ClockStepRow {
+    pub kind: String,
+    pub at_ms: i64,
+    pub wall_ms: i64,
+    pub step_ms: i64,
+    pub offset_ms: i64,
+}
+
+/// Every recorded clock step, oldest first.
+pub fn clock_steps(conn: &Connection) -> StoreResult<Vec<ClockStepRow>> {
+    let mut stmt = conn
+        .prepare("SELECT kind, at_ms, wall_ms, step_ms, offset_ms FROM clock_steps ORDER BY id")?;
+    let rows = stmt.query_map([], |r| {
+        Ok(ClockStepRow {
+            kind: r.get(0)?,
+            at_ms: r.get(1)?,
+            wall_ms: r.get(2)?,
+            step_ms: r.get(3)?,
+            offset_ms: r.get(4)?,
+        })
+    })?;
+    Ok(rows.collect::<Result<_, _>>()?)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn beat(at_ms: i64, wall_ms: i64, loop_wall_ms: i64) -> Heartbeat {
+        Heartbeat {
+            pid: i64::from(u32::MAX), // no such process
+            started_at_ms: 0,
+            beat_at_ms: at_ms,
+            config: "site.toml".into(),
+            stopped_at_ms: None,
+            beat_wall_ms: Some(wall_ms),
+            clock_offset_ms: Some(at_ms - wall_ms),
+            loop_wall_ms: Some(loop_wall_ms),
+            activity: Some("storing 300 held poll cycle(s)".into()),
         }
     }
-    Ok(removed)
+
+    /// Readers judge the heartbeat by the wall clock on both sides: a
+    /// daemon whose timeline runs an hour ahead (or behind) after a clock
+    /// step is still running; one whose loop has not turned for 6 s is busy
+    /// with what it says; a stale beat of a process that is gone, or a
+    /// stopped daemon, is not running.
+    #[test]
+    fn the_daemon_state_is_judged_by_the_wall_clock() {
+        let now = 1_780_000_000_000;
+        let hour = 3_600_000;
+        assert_eq!(
+            beat(now + hour, now - 500, now - 200).state(now),
+            DaemonState::Running
+        );
+        assert_eq!(
+            beat(now - hour, now - 500, now - 200).state(now),
+            DaemonState::Running
+        );
+        assert_eq!(
+            beat(now, now - 500, now - 6_000).state(now),
+            DaemonState::Busy {
+                for_ms: 6_000,
+                activity: "storing 300 held poll cycle(s)".into()
+            }
+        );
+        assert_eq!(
+            beat(now, now - 6_000, now - 6_000).state(now),
+            DaemonState::NotRunning
+        );
+        let mut stopped = beat(now, now, now);
+        stopped.stopped_at_ms = Some(now);
+        assert_eq!(stopped.state(now), DaemonState::NotRunning);
+        // Rows from before schema version 3 have no wall-clock beat.
+        let mut old = beat(now - 1000, 0, 0);
+        (old.beat_wall_ms, old.loop_wall_ms) = (None, None);
+        assert_eq!(old.state(now), DaemonState::Running);
+    }
 }

@@ -104,6 +104,54 @@ const MIGRATIONS: &[&str] = &[
     ALTER TABLE samples ADD COLUMN temperature REAL;
     ALTER TABLE samples ADD COLUMN temperature_q TEXT;
     "#,
+    // 3: long runs. Trimming finds a tank's event windows by index and
+    // keeps its place across restarts; wall-clock steps are recorded
+    // beside the samples (not on every sample row, whose size stays as it
+    // was); the heartbeat says what the daemon is doing and how its
+    // timeline stands against the wall clock; an open event that cannot be
+    // resumed says why.
+    r#"
+    CREATE INDEX events_by_tank ON events(tank, start_ms);
+
+    -- How far the rolling history has been trimmed: everything before
+    -- thinned_before_ms is thinned, everything before removed_before_ms
+    -- (outside event windows) is gone. One row.
+    CREATE TABLE trim_progress (
+        id                INTEGER PRIMARY KEY CHECK (id = 1),
+        thinned_before_ms INTEGER NOT NULL,
+        removed_before_ms INTEGER NOT NULL
+    );
+
+    -- Steps of the wall clock the daemon saw, and what its timeline did.
+    -- kind: wall_step (the wall clock jumped; the timeline went on as it
+    -- was), realigned (the timeline moved forward to the wall clock, with
+    -- no event open), anchored_ahead (at start, the timeline was set after
+    -- the stored history, ahead of a wall clock that is behind it).
+    -- at_ms is on the timeline, wall_ms on the wall clock, step_ms the
+    -- jump (negative: back), offset_ms the timeline minus the wall clock
+    -- afterwards.
+    CREATE TABLE clock_steps (
+        id        INTEGER PRIMARY KEY,
+        kind      TEXT NOT NULL,
+        at_ms     INTEGER NOT NULL,
+        wall_ms   INTEGER NOT NULL,
+        step_ms   INTEGER NOT NULL,
+        offset_ms INTEGER NOT NULL
+    );
+
+    -- beat_wall_ms: the beat on the wall clock, which readers compare with
+    -- their own; clock_offset_ms: the daemon's timeline minus the wall
+    -- clock; loop_wall_ms: when its main loop last turned (wall clock);
+    -- activity: what it is doing, in words.
+    ALTER TABLE daemon ADD COLUMN beat_wall_ms INTEGER;
+    ALTER TABLE daemon ADD COLUMN clock_offset_ms INTEGER;
+    ALTER TABLE daemon ADD COLUMN loop_wall_ms INTEGER;
+    ALTER TABLE daemon ADD COLUMN activity TEXT;
+
+    -- Why an open event is not being tracked (it could not be resumed);
+    -- NULL while it is.
+    ALTER TABLE events ADD COLUMN tracking_error TEXT;
+    "#,
 ];
 
 /// The version this program writes.
