@@ -7,6 +7,7 @@
 //!   the running total). Pure, clock-free and deterministic.
 //! * [`config`]: the site config file, validated into SI values.
 //! * [`acquire`]: Modbus polling, one task per device, read-only.
+//! * [`clock`]: the daemon's timeline, which wall-clock steps cannot move.
 //! * [`report`]: formatting figures for people, with units and the cautions.
 //! * [`web`]: the daemon's read-only responder page, JSON and metrics.
 //! * [`commands`]: what each subcommand does.
@@ -16,6 +17,7 @@
 
 pub mod acquire;
 pub mod cli;
+pub mod clock;
 pub mod commands;
 pub mod config;
 pub mod daemon;

@@ -21,6 +21,7 @@ pub mod poller;
 pub mod sample;
 pub mod stats;
 
+use crate::clock::Clock;
 use crate::config::Config;
 use sample::TankSample;
 use stats::Stats;
@@ -31,7 +32,7 @@ use tokio_util::task::TaskTracker;
 
 /// Batches the channel holds before pollers wait: a few cycles of every
 /// device, enough to ride out a slow database commit.
-const CHANNEL_BATCHES: usize = 64;
+pub const CHANNEL_BATCHES: usize = 64;
 
 /// Starts one poller task per device on `tasks` and returns the stream of
 /// sample batches. The stream ends once every poller has stopped (cancel
@@ -42,19 +43,23 @@ pub fn start(
     tasks: &TaskTracker,
 ) -> mpsc::Receiver<Vec<TankSample>> {
     let stats = Arc::new(Stats::new(&config));
-    start_with_stats(config, stats, cancel, tasks)
+    let clock = Arc::new(Clock::system());
+    start_with_stats(config, stats, clock, CHANNEL_BATCHES, cancel, tasks)
 }
 
 /// Like [`start`], with the pollers counting into `stats` (made by
 /// [`Stats::new`] from the same config), which the daemon shares with its
-/// metrics page.
+/// metrics page, timing their samples by `clock`, on a channel of `slots`
+/// batches.
 pub fn start_with_stats(
     config: Arc<Config>,
     stats: Arc<Stats>,
+    clock: Arc<Clock>,
+    slots: usize,
     cancel: &CancellationToken,
     tasks: &TaskTracker,
 ) -> mpsc::Receiver<Vec<TankSample>> {
-    let (tx, rx) = mpsc::channel(CHANNEL_BATCHES);
+    let (tx, rx) = mpsc::channel(slots.max(1));
     for device in 0..config.devices.len() {
         if config.tanks.iter().any(|t| t.device == device) {
             tasks.spawn(poller::poll_device(
@@ -62,6 +67,7 @@ pub fn start_with_stats(
                 device,
                 tx.clone(),
                 Arc::clone(&stats),
+                Arc::clone(&clock),
                 cancel.clone(),
             ));
         }

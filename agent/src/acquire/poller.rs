@@ -28,6 +28,7 @@ use crate::acquire::plan::{Read, plan_reads, split_read};
 use crate::acquire::plausible::StepLimit;
 use crate::acquire::sample::{Quality, Reading, TankSample};
 use crate::acquire::stats::{Outcome, Stats};
+use crate::clock::Clock;
 use crate::config::{Config, Role, Sensor};
 use std::collections::{HashMap, VecDeque};
 use std::hash::{BuildHasher, Hasher};
@@ -67,15 +68,21 @@ type RawMap = HashMap<(usize, Role), Raw>;
 /// and the timestamps stay true.
 ///
 /// Every cycle is counted in `stats` (successes, failures, duration, the
-/// latest good readings) before its batch is sent.
+/// latest good readings) before its batch is sent. Sample times come from
+/// `clock`, the daemon's timeline, which never goes back or jumps.
+///
+/// The send is not raced against `cancel`: a batch made is a batch
+/// acquired, and the daemon drains the channel at shutdown until every
+/// poller has gone.
 pub async fn poll_device(
     config: Arc<Config>,
     device: usize,
     out: mpsc::Sender<Vec<TankSample>>,
     stats: Arc<Stats>,
+    clock: Arc<Clock>,
     cancel: CancellationToken,
 ) {
-    let mut poller = DevicePoller::new(config, device);
+    let mut poller = DevicePoller::new(config, device, clock);
     let mut tick = tokio::time::interval(poller.interval());
     tick.set_missed_tick_behavior(MissedTickBehavior::Delay);
     loop {
@@ -92,7 +99,7 @@ pub async fn poll_device(
         };
         let at_ms = batch
             .first()
-            .map_or_else(|| jiff::Timestamp::now().as_millisecond(), |s| s.at_ms);
+            .map_or_else(|| poller.clock.now_ms(), |s| s.at_ms);
         stats.record_cycle(device, outcome, began.elapsed(), at_ms);
         stats.record_samples(&batch);
         if out.send(batch).await.is_err() {
@@ -131,6 +138,7 @@ enum Answer {
 struct DevicePoller {
     config: Arc<Config>,
     device: usize,
+    clock: Arc<Clock>,
     /// The reads as the config plans them (coalesced where it allows).
     plan: Vec<Read>,
     /// Reads of `plan`, by index, that the device refused whole but
@@ -150,7 +158,7 @@ struct DevicePoller {
 }
 
 impl DevicePoller {
-    fn new(config: Arc<Config>, device: usize) -> Self {
+    fn new(config: Arc<Config>, device: usize, clock: Arc<Clock>) -> Self {
         let d = &config.devices[device];
         let link = Link::new(&d.address, d.unit_id, d.request_timeout);
         let name = format!("{} ({} unit {})", d.id, d.address, d.unit_id);
@@ -175,6 +183,7 @@ impl DevicePoller {
             step_limits,
             config,
             device,
+            clock,
         }
     }
 
@@ -189,7 +198,7 @@ impl DevicePoller {
     /// One poll cycle: the samples of every tank on this device, and how
     /// the exchange went.
     async fn cycle(&mut self) -> (Vec<TankSample>, Outcome) {
-        let at_ms = jiff::Timestamp::now().as_millisecond();
+        let at_ms = self.clock.now_ms();
         let (raw, outcome) = self.read_all().await;
         for notice in self.blocks.flush() {
             emit(Some(notice));

@@ -3,20 +3,20 @@
 //! The CLI does not change anything itself. It writes the request as an
 //! action row (one transaction, durable once committed), then waits for the
 //! daemon to pick it up and acknowledge it, and prints what the daemon did.
-//! If no daemon has beaten its heartbeat recently, it says so and writes
-//! nothing: a request nobody acts on would only mislead.
+//! If no daemon is running, it says so and writes nothing: a request nobody
+//! acts on would only mislead. A request the daemon has not acknowledged
+//! (busy, stalled on the database, or gone since) stays recorded and is
+//! applied with the time it was made; the CLI says which and why.
 
 use crate::cli::{HoleArgs, LeakCommand, ParamChanges};
 use crate::model::DischargeCoefficient;
 use crate::report;
-use crate::store::{self, StoreError};
+use crate::store::{self, DaemonState, SILENT_AFTER_MS, StoreError};
 use crate::track::tracker::Request;
-use anyhow::{Context, bail};
+use anyhow::bail;
 use std::path::Path;
 use std::time::{Duration, Instant};
 
-/// A heartbeat older than this means no daemon is running.
-const DAEMON_SILENT_AFTER_MS: i64 = 5_000;
 /// How long to wait for the daemon's acknowledgement.
 const ACK_WAIT: Duration = Duration::from_secs(20);
 
@@ -206,6 +206,14 @@ impl HoleArgs {
 
 /// Sends a request to the daemon and waits for its acknowledgement; returns
 /// the daemon's account of what it did.
+///
+/// A request is only written when a daemon can take it: one that is
+/// running (busy or not), or stalled on the database (it takes the request
+/// once it can write again). With no daemon it says so and writes nothing.
+/// A request written in the seconds after a daemon died or stalled (its
+/// heartbeat still fresh) stays in its row and is applied, with the time it
+/// was made, by the next daemon or once the daemon can write; the wait says
+/// so as soon as the heartbeat goes stale.
 pub fn send(db: &Path, request: &Request) -> anyhow::Result<String> {
     if !db.exists() {
         bail!(
@@ -214,32 +222,56 @@ pub fn send(db: &Path, request: &Request) -> anyhow::Result<String> {
             db.display()
         );
     }
-    let conn = store::open_read_write(db).with_context(|| format!("opening {}", db.display()))?;
-    match store::heartbeat(&conn)? {
-        Some(h)
-            if h.stopped_at_ms.is_none()
-                && store::now_ms() - h.beat_at_ms <= DAEMON_SILENT_AFTER_MS => {}
-        Some(h) if h.process_alive() => bail!(
-            "the leaktally daemon on {} (pid {}) is running but has not written to it since {}: another program may hold its lock, or its disk may be full; fix that (the daemon catches up by itself) and try again; nothing was changed",
-            db.display(),
-            h.pid,
-            report::utc(h.beat_at_ms)
-        ),
-        Some(h) => bail!(
-            "no leaktally daemon is running on {} (last seen {}); start it with `leaktally run --config {} --db {}`; nothing was changed",
-            db.display(),
-            report::utc(h.beat_at_ms),
-            h.config,
-            db.display()
-        ),
-        None => bail!(
+    let conn = store::open_for_requests(db)?;
+    let heartbeat = store::heartbeat(&conn).map_err(|e| damage_said(e, db))?;
+    let Some(h) = heartbeat else {
+        bail!(
             "no leaktally daemon has ever run on {}; start it with `leaktally run --config FILE --db {}`; nothing was changed",
             db.display(),
             db.display()
-        ),
+        );
+    };
+    match h.state(store::now_ms()) {
+        DaemonState::NotRunning => {
+            // Why it is not running may be the file itself: the daemon
+            // refuses to start on a damaged one.
+            store::check_integrity(db, &conn)?;
+            bail!(
+                "no leaktally daemon is running on {} (last seen {}); start it with `leaktally run --config {} --db {}`; nothing was changed",
+                db.display(),
+                report::utc(h.beat_at_ms),
+                h.config,
+                db.display()
+            )
+        }
+        DaemonState::Stalled => {
+            // A damaged file stalls a daemon too; never write to one.
+            store::check_integrity(db, &conn)?;
+            eprintln!(
+                "warning: the leaktally daemon on {} (pid {}) is running but stalled on the database: it has not written to it since {}; it takes this request once it can write again",
+                db.display(),
+                h.pid,
+                report::utc(h.beat_at_ms)
+            )
+        }
+        DaemonState::Running | DaemonState::Busy { .. } => {}
     }
     let value = serde_json::to_value(request)?;
-    let id = store::request_action(&conn, request.kind(), request.event(), &value, &who())?;
+    let id = store::request_action(&conn, request.kind(), request.event(), &value, &who())
+        .map_err(|e| {
+            anyhow::Error::from(damage_said(e, db)).context(format!(
+                "recording the request in {}; nothing was changed",
+                db.display()
+            ))
+        })?;
+    let action = store::action(&conn, id)?
+        .ok_or_else(|| StoreError::Corrupt(format!("action {id} vanished")))?;
+    let made = report::utc(action.requested_at_ms);
+    let restart = format!(
+        "`leaktally run --config {} --db {}`",
+        h.config,
+        db.display()
+    );
     let started = Instant::now();
     loop {
         std::thread::sleep(Duration::from_millis(100));
@@ -251,12 +283,45 @@ pub fn send(db: &Path, request: &Request) -> anyhow::Result<String> {
                 "the daemon refused: {}",
                 crate::logging::one_line(&action.outcome.unwrap_or_default())
             ),
-            _ if started.elapsed() > ACK_WAIT => bail!(
-                "the daemon has not acknowledged action {id} within {} s; it is recorded and will be applied when the daemon gets to it; check `leaktally status`",
+            _ => {}
+        }
+        let now = store::now_ms();
+        let state = store::heartbeat(&conn)?.map_or(DaemonState::NotRunning, |h| h.state(now));
+        let waited = started.elapsed() > ACK_WAIT;
+        match state {
+            DaemonState::NotRunning => bail!(
+                "the daemon stopped before it took request {id}; the request is recorded and will be applied, with the time it was made ({made}), when a daemon next starts on {}: {restart}",
+                db.display()
+            ),
+            // As soon as it shows (a heartbeat 5 s stale): it will not
+            // take the request until it can write, however long that is.
+            DaemonState::Stalled => bail!(
+                "the daemon is running but stalled on the database (it has not written to it for over {} s: another program holding the write lock, a full disk, or a disk that does not answer; its log says which); request {id} is recorded and will be applied, with the time it was made ({made}), once it can write again; `leaktally status` shows when",
+                SILENT_AFTER_MS / 1000
+            ),
+            DaemonState::Busy { for_ms, activity } if waited => bail!(
+                "the daemon is running but busy ({activity}, for {} s), and has not taken request {id} yet; the request is recorded and it will apply it, with the time it was made ({made}), as soon as it gets to it; `leaktally status` shows when",
+                for_ms / 1000
+            ),
+            _ if waited => bail!(
+                "the daemon is running but has not taken request {id} within {} s; the request is recorded and will be applied, with the time it was made ({made}); see the daemon's log, and `leaktally status`",
                 ACK_WAIT.as_secs()
             ),
             _ => {}
         }
+    }
+}
+
+/// A store error, with the damaged-database message when SQLite says the
+/// file is damaged.
+fn damage_said(e: StoreError, db: &Path) -> StoreError {
+    if e.is_damage() && !matches!(e, StoreError::Damaged { .. }) {
+        StoreError::Damaged {
+            path: db.to_owned(),
+            details: e.to_string(),
+        }
+    } else {
+        e
     }
 }
 

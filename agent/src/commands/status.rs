@@ -7,7 +7,7 @@
 
 use crate::model::{Density, Mass, MassRate, TimeSpan};
 use crate::report::{self, estimate as words};
-use crate::store::{self, EventRow};
+use crate::store::{self, DaemonState, EventRow};
 use crate::track::estimator::{Estimate, LeakParams};
 use crate::track::tracker::describe_params;
 use serde::Serialize;
@@ -25,9 +25,18 @@ pub struct StatusDocument {
     /// Whether a daemon has beaten its heartbeat in the last 5 s.
     pub daemon_running: bool,
     /// Not beating, but its process is alive: it cannot write to the
-    /// database (locked by another program, or its disk full).
+    /// database (locked by another program, its disk full, or a disk that
+    /// does not answer).
     pub daemon_stalled: bool,
+    /// `running`, `busy` (beating, but its main loop has not turned for
+    /// 5 s), `stalled` or `not_running`.
+    pub daemon_state: &'static str,
+    /// What a busy daemon is busy with.
+    pub daemon_busy_with: Option<String>,
     pub daemon_last_seen: Option<String>,
+    /// The daemon's timeline minus the wall clock, ms, at its last beat: not
+    /// 0 after the wall clock stepped (the README's "Clock steps").
+    pub daemon_clock_offset_ms: Option<i64>,
     pub events: Vec<EventStatus>,
 }
 
@@ -56,6 +65,9 @@ pub struct EventStatus {
     pub stale: bool,
     /// The latest estimate; absent until the first usable sample.
     pub estimate: Option<EstimateView>,
+    /// Why an open event is not being tracked (its figures are not being
+    /// updated); absent while it is.
+    pub tracking_error: Option<String>,
 }
 
 /// An estimate as reports show it: the stored numbers and codes, and the
@@ -159,6 +171,7 @@ pub fn document_with(
         })?],
         None => store::events(conn, true)?,
     };
+    let untracked = store::tracking_errors(conn)?;
     let mut events = Vec::new();
     for row in rows {
         let estimate = store::latest_estimate(conn, &row)?;
@@ -186,19 +199,30 @@ pub fn document_with(
             data_age_ms,
             stale: open && data_age_ms.unwrap_or(now - row.opened_at_ms) > stale_after_ms,
             estimate: estimate.map(|e| EstimateView::new(e, &row.params)),
+            tracking_error: untracked.get(&row.id).cloned(),
         });
     }
     let heartbeat = store::heartbeat(conn)?;
-    let running = heartbeat
+    let state = heartbeat
         .as_ref()
-        .is_some_and(|h| h.stopped_at_ms.is_none() && now - h.beat_at_ms <= 5_000);
+        .map_or(DaemonState::NotRunning, |h| h.state(now));
+    let running = matches!(state, DaemonState::Running | DaemonState::Busy { .. });
     Ok(StatusDocument {
         format: 1,
         generated_at: report::utc(now),
         generated_at_ms: now,
         caution: report::CAUTION,
         daemon_running: running,
-        daemon_stalled: !running && heartbeat.as_ref().is_some_and(|h| h.process_alive()),
+        daemon_stalled: state == DaemonState::Stalled,
+        daemon_state: state.name(),
+        daemon_busy_with: match &state {
+            DaemonState::Busy { activity, .. } => Some(activity.clone()),
+            _ => None,
+        },
+        daemon_clock_offset_ms: heartbeat
+            .as_ref()
+            .filter(|_| running)
+            .and_then(|h| h.clock_offset_ms),
         daemon_last_seen: heartbeat.map(|h| report::utc(h.beat_at_ms)),
         events,
     })
@@ -211,14 +235,27 @@ pub fn human(doc: &StatusDocument) -> String {
     if doc.daemon_stalled {
         let _ = writeln!(
             out,
-            "WARNING: the daemon is running but has not written to the database since {}: another program may hold its lock, or its disk may be full (see the daemon's log). These figures are behind; it catches up by itself once it can write.",
+            "WARNING: the daemon is running but stalled on the database: it has not written to it since {}. Its writes fail or wait (another program holding the write lock, a full disk, or a disk that does not answer; its log and web page say which). These figures are behind; it catches up by itself once it can write.",
             doc.daemon_last_seen.as_deref().unwrap_or("never")
+        );
+    } else if let Some(activity) = &doc.daemon_busy_with {
+        let _ = writeln!(
+            out,
+            "NOTE: the daemon is running but busy ({activity}); its database writes go on, and these figures may lag by a few seconds."
         );
     } else if !doc.daemon_running {
         let _ = writeln!(
             out,
             "WARNING: no daemon is running (last seen {}); these figures are not being updated.",
             doc.daemon_last_seen.as_deref().unwrap_or("never")
+        );
+    }
+    if let Some(offset) = doc.daemon_clock_offset_ms.filter(|o| o.abs() >= 1000) {
+        let _ = writeln!(
+            out,
+            "NOTE: the daemon's times run {} {} this machine's clock after a step of the wall clock (it keeps every sample in order; README, \"Clock steps\").",
+            report::duration(TimeSpan::seconds(offset.unsigned_abs() as f64 / 1000.0)),
+            if offset > 0 { "ahead of" } else { "behind" }
         );
     }
     if doc.events.is_empty() {
@@ -243,7 +280,14 @@ fn event_text(out: &mut String, e: &EventStatus) {
         e.event, e.tank, e.source, e.revision
     );
     let _ = writeln!(out, "  parameters   {}", e.params_text);
-    if e.stale {
+    if let Some(why) = &e.tracking_error {
+        let _ = writeln!(
+            out,
+            "  NOT TRACKED  {why}; these figures are not being updated. Close the event (`leaktally leak close {}`), or fix that and restart the daemon.",
+            e.event
+        );
+    }
+    if e.stale && e.tracking_error.is_none() {
         let _ = writeln!(
             out,
             "  WARNING      no new data for {}: the figures below are not current; check the link to the tank's device and its gauge",

@@ -252,6 +252,13 @@ fn event(s: &mut String, e: &EventStatus, extras: &EventExtras, now_ms: i64, sta
         revision = e.revision,
         params = escape(&e.params_text),
     );
+    if let Some(why) = &e.tracking_error {
+        let _ = writeln!(
+            s,
+            r#"<p class="alarm" role="alert" data-field="not-tracked" data-event="{id}">Not tracked: {}. These figures are not being updated.</p>"#,
+            escape(why)
+        );
+    }
     let Some(est) = &e.estimate else {
         let _ = writeln!(
             s,
