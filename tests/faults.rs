@@ -352,13 +352,31 @@ fn a_locked_database_and_a_full_disk_lose_nothing_and_heal_by_themselves() {
         "writes back {healed_lock_s} s after the lock went"
     );
 
-    // The disk fills up for 10 s. An operator's note meanwhile is refused
-    // with a message that names the full disk, whether the daemon's
-    // heartbeat is still fresh (the CLI's own write then fails) or already
-    // stale (the CLI says the daemon cannot write).
+    // The disk fills up for 10 s. An operator's note meanwhile is not
+    // acknowledged, with a message that names the full disk: the CLI's own
+    // write fails (nothing changed), or it fits where the daemon's larger
+    // commit did not, and the CLI says, once the heartbeat goes stale, that
+    // the daemon is stalled and takes the note when it can write again.
     plant.wait_until(25.0);
     let (filler, filled) = disk.fill();
+    // The daemon checkpoints its WAL every second, so SQLite reuses the
+    // WAL file's space and a full disk stops writes only once the database
+    // file itself must grow (a few seconds at this site).
+    let full_at = Instant::now();
+    wait_for(
+        "writes failing on the full disk",
+        Duration::from_secs(20),
+        || {
+            http(&web, "GET", "/metrics")
+                .is_ok_and(|r| metric(&r.body, "leaktally_store_writes_failing") == 1.0)
+        },
+    );
+    println!(
+        "writes failed {:.1} s after the disk filled",
+        full_at.elapsed().as_secs_f64()
+    );
     let note = plant.cli(&["leak", "note", &id.to_string(), "disk full"]);
+    println!("a note on the full disk: {}", note.stderr.trim());
     assert!(
         !note.status.success(),
         "a note on a full disk: {}",
@@ -437,6 +455,16 @@ fn a_locked_database_and_a_full_disk_lose_nothing_and_heal_by_themselves() {
     }
     // A note now goes through.
     plant.ok(&["leak", "note", &id.to_string(), "disk freed"]);
+    if note.stderr.contains("is recorded") {
+        let conn = leaktally::store::open_read_only(&plant.db).unwrap();
+        let notes: Vec<_> = leaktally::store::actions_of(&conn, id)
+            .unwrap()
+            .into_iter()
+            .filter(|a| a.request["text"] == "disk full")
+            .collect();
+        assert_eq!(notes.len(), 1, "{notes:?}");
+        assert_eq!(notes[0].state, "done", "the recorded note was taken later");
+    }
     let (best, exact) = total_against_truth(&plant, id, "FF-T12");
     println!(
         "lock held 8 s: {held_locked} samples held, writes back {healed_lock_s:.1} s after release; disk full ({:.1} MiB filler) 10 s: {held_full} held, back {healed_disk_s:.1} s after freeing; {failed} failed commits; total {best:.1} kg vs truth {exact:.1} kg ({:.3} %)",

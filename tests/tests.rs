@@ -17,6 +17,8 @@
 //!   replies and impossible level steps, flagged and logged once.
 //! * `flood`: thousands of idle and slow sockets on the web port while a
 //!   client, the pollers and a simulator restart carry on.
+//! * `longrun`: wall-clock steps under the daemon (faketime), a damaged
+//!   database, a request made as the daemon dies.
 //! * `tracking`: the simulator, the daemon and the operator CLI as real
 //!   processes, against the simulator's ground truth.
 //! * `web`: the daemon's responder page in headless chromium against
@@ -31,6 +33,7 @@ mod faults;
 mod flood;
 mod gaps;
 mod interop;
+mod longrun;
 mod properties;
 mod python_env;
 mod references;
