@@ -17,7 +17,7 @@ use serde::{Deserialize, Serialize};
 /// The estimator's version. It changes whenever the same samples would give
 /// different figures; an event logged by another version replays with this
 /// one's figures, and replay says so rather than calling them a mismatch.
-pub const ESTIMATOR_VERSION: u32 = 2;
+pub const ESTIMATOR_VERSION: u32 = 3;
 
 /// The discharge coefficient range when nothing is known of the hole: 0.61
 /// for a sharp-edged hole to 1.0 for one with no losses (common practice).
