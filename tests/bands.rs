@@ -18,7 +18,8 @@
 use crate::util::Scratch;
 use leaktally::acquire::poller::flag;
 use leaktally::acquire::sample::TankSample;
-use leaktally::track::estimator::{Estimate, Estimator, LeakParams, Method, Reason, Warning};
+use leaktally::estimate::{Estimate, LeakParams, Method, Reason, Warning};
+use leaktally::estimator::Estimator;
 use leaktally_sim::plant::Plant;
 use leaktally_sim::registers::RegisterImage;
 

@@ -9,7 +9,7 @@
 
 use crate::tracking::{Plant, event_id, event_of};
 use crate::util::Truth;
-use leaktally::track::estimate::Estimate;
+use leaktally::estimate::Estimate;
 use serde_json::Value;
 use std::path::Path;
 use std::time::Duration;

@@ -19,7 +19,7 @@
 
 use crate::python_env::{python, script};
 use crate::util::{Scratch, Server, repo_root, run, toml_path};
-use leaktally::acquire::decode::WordOrder;
+use leaktally::registers::WordOrder;
 use serde_json::Value;
 use std::path::Path;
 use std::process::Command;

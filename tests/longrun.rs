@@ -284,12 +284,12 @@ fn a_damaged_database_is_refused_and_left_untouched() {
             })
             .collect();
         leaktally::store::insert_samples(&conn, &samples).unwrap();
-        let params = leaktally::track::estimator::LeakParams {
+        let params = leaktally::estimate::LeakParams {
             hole_diameter_m: Some(0.02),
             hole_height_m: 0.3,
             cd: 0.61,
             density_kg_m3: None,
-            ..leaktally::track::estimator::LeakParams::default()
+            ..leaktally::estimate::LeakParams::default()
         };
         leaktally::store::create_event(&conn, "FF-T12", start, start, "operator", &params).unwrap();
         leaktally::store::beat(&conn, 1, start, "site.toml").unwrap();

@@ -880,8 +880,9 @@ mod estimator {
     use leaktally::acquire::sample::{Quality, Reading, TankSample};
     use leaktally::cli::HoleArgs;
     use leaktally::config::Tank;
+    use leaktally::estimate::{Estimate, LeakParams};
+    use leaktally::estimator::Estimator;
     use leaktally::model::DischargeCoefficient;
-    use leaktally::track::estimator::{Estimate, Estimator, LeakParams};
     use proptest::prelude::*;
     use proptest::test_runner::FileFailurePersistence;
     use std::path::Path;
@@ -1418,7 +1419,7 @@ mod estimator {
             if revised {
                 prop_assert!(
                     e.warnings
-                        .contains(leaktally::track::estimate::Warning::TotalRevisedDown)
+                        .contains(leaktally::estimate::Warning::TotalRevisedDown)
                 );
             }
             for (a, b) in p.crossings.iter().zip(&e.crossings) {

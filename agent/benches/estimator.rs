@@ -5,11 +5,12 @@
 
 use criterion::{Criterion, criterion_group, criterion_main};
 use leaktally::acquire::sample::{Reading, TankSample};
+use leaktally::estimate::LeakParams;
+use leaktally::estimator::Estimator;
 use leaktally::model::{
     AbsolutePressure, Density, DischargeCoefficient, Geometry, Heads, Hole, Length, Pressure,
     ReleaseTally, TankState, TimeSpan, Vessel, forecast_liquid,
 };
-use leaktally::track::estimator::{Estimator, LeakParams};
 use std::hint::black_box;
 
 fn vessel(geometry: Geometry) -> Vessel {

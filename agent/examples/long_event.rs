@@ -11,7 +11,8 @@
 //! reference. A million samples make a database of about 4.7 GB.
 
 use leaktally::acquire::sample::{Reading, TankSample};
-use leaktally::track::estimator::{Estimator, LeakParams};
+use leaktally::estimate::LeakParams;
+use leaktally::estimator::Estimator;
 use std::path::Path;
 
 fn main() -> anyhow::Result<()> {

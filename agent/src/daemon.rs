@@ -26,7 +26,7 @@ use crate::clock::{Clock, WallSource};
 use crate::config::Config;
 use crate::store::health::StoreHealth;
 use crate::store::{Beat, Lane, Retention, Store};
-use crate::track::tracker::{Counts, Tracker};
+use crate::tracker::{Counts, Tracker};
 use crate::web;
 use std::path::Path;
 use std::sync::atomic::{AtomicI64, Ordering};

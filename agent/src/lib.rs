@@ -5,9 +5,15 @@
 //!
 //! * [`model`]: the physics (orifice flow, tank geometry, draining forecast,
 //!   the running total). Pure, clock-free and deterministic.
+//! * [`registers`]: the Modbus register vocabulary (tables, data types, word
+//!   orders, encoding), shared by the config, acquisition and the simulator.
 //! * [`config`]: the site config file, validated into SI values.
 //! * [`acquire`]: Modbus polling, one task per device, read-only.
 //! * [`clock`]: the daemon's timeline, which wall-clock steps cannot move.
+//! * [`estimate`]: what an estimate holds, as numbers and enums (data only).
+//! * [`estimator`]: the clock-free estimator of one event.
+//! * [`store`]: the SQLite database and the daemon's one writer.
+//! * [`tracker`]: the daemon's open events, operator actions and writes.
 //! * [`report`]: formatting figures for people, with units and the cautions.
 //! * [`web`]: the daemon's read-only responder page, JSON and metrics.
 //! * [`commands`]: what each subcommand does.
@@ -21,12 +27,15 @@ pub mod clock;
 pub mod commands;
 pub mod config;
 pub mod daemon;
+pub mod estimate;
+pub mod estimator;
 pub mod logging;
 pub mod model;
 pub mod plot;
 pub mod readings;
+pub mod registers;
 pub mod report;
 pub mod shutdown;
 pub mod store;
-pub mod track;
+pub mod tracker;
 pub mod web;

@@ -13,8 +13,8 @@
 //! lowest low and highest high, so the shaded band still covers every
 //! estimate; the best line passes through the last estimate of each point.
 
+use crate::estimate::Estimate;
 use crate::report;
-use crate::track::estimator::Estimate;
 use anyhow::Context;
 use plotters::prelude::*;
 
@@ -378,7 +378,8 @@ fn plot_error<E: std::fmt::Display>(e: E) -> anyhow::Error {
 mod tests {
     use super::*;
     use crate::acquire::sample::{Reading, TankSample};
-    use crate::track::estimator::{Estimator, LeakParams};
+    use crate::estimate::LeakParams;
+    use crate::estimator::Estimator;
 
     /// Estimates of a real estimator on a draining tank: `n` samples, 1 s
     /// apart, with a little level noise so the band moves.

@@ -2,7 +2,7 @@
 //! order, any scaling must give a reading with a finite value or a flag.
 #![no_main]
 
-use leaktally::acquire::decode::{DataType, RegisterKind, WordOrder};
+use leaktally::registers::{DataType, RegisterKind, WordOrder};
 use leaktally::acquire::poller::flag;
 use leaktally::config::Sensor;
 use libfuzzer_sys::fuzz_target;

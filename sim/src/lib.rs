@@ -456,10 +456,10 @@ mod tests {
     /// miscounting device's replies reach the agent's link as malformed.
     #[tokio::test]
     async fn a_device_refuses_a_span_and_then_miscounts_its_replies() {
-        use leaktally::acquire::decode::RegisterKind;
         use leaktally::acquire::link::{Link, LinkError};
         use leaktally::acquire::plan::Read;
-        use leaktally::config::Table;
+        use leaktally::registers::RegisterKind;
+        use leaktally::registers::Table;
         let mut s = demo();
         s.events = vec![
             scenario::Event {

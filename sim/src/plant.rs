@@ -425,7 +425,7 @@ fn step_of(at_s: f64, step_ms: u64) -> u64 {
 mod tests {
     use super::*;
     use crate::scenario;
-    use leaktally::acquire::decode::RegisterKind;
+    use leaktally::registers::RegisterKind;
     use std::path::Path;
 
     fn scenario_with(events: &str) -> Scenario {
@@ -563,7 +563,7 @@ tank = "FF-T12"
         assert!(f32::from_bits(u32::from(words[1]) << 16 | u32::from(words[0])).is_nan());
         assert_eq!(
             image
-                .read_bits(0, leaktally::acquire::decode::BitKind::Coil, 0, 1)
+                .read_bits(0, leaktally::registers::BitKind::Coil, 0, 1)
                 .unwrap(),
             [true]
         );

@@ -14,8 +14,8 @@
 //! nothing here can change from the network) and any knowledge of sockets
 //! or the protocol's framing.
 
-use leaktally::acquire::decode::{BitKind, DataType, RegisterKind};
 use leaktally::config::{Config, Sensor};
+use leaktally::registers::{BitKind, DataType, RegisterKind};
 
 /// Table size: one entry per address.
 const TABLE: usize = 1 << 16;

@@ -21,7 +21,7 @@
 
 use crate::registers::{MAX_READ_BITS, MAX_READ_REGISTERS, ReadError, RegisterImage};
 use crate::scenario::{Refusal, SimTable};
-use leaktally::acquire::decode::{BitKind, RegisterKind};
+use leaktally::registers::{BitKind, RegisterKind};
 use std::collections::{BTreeMap, HashMap};
 use std::future::Future;
 use std::io;

@@ -13,9 +13,9 @@
 //! exception response the connection stays, since the device is fine and
 //! merely refused that request.
 
-use crate::acquire::decode::{BitKind, RegisterKind};
 use crate::acquire::plan::Read;
-use crate::config::Table;
+use crate::registers::Table;
+use crate::registers::{BitKind, RegisterKind};
 use std::io;
 use std::net::SocketAddr;
 use std::pin::Pin;

@@ -1,6 +1,5 @@
 //! Acquisition: reading tank values from Modbus TCP devices.
 //!
-//! * [`decode`]: the register vocabulary and how values are encoded.
 //! * [`plan`]: coalescing a device's values into as few reads as possible.
 //! * [`link`]: the read-only Modbus client with timeouts and reconnects.
 //! * [`poller`]: one task per device, producing flagged samples.
@@ -12,7 +11,6 @@
 //! Architecture invariant: only this module knows register addresses and
 //! talks Modbus, and it only ever reads (see [`link`]).
 
-pub mod decode;
 pub mod link;
 pub mod notices;
 pub mod plan;

@@ -8,8 +8,9 @@
 //! poller then reads the parts that [`split_read`] gives, and tries the
 //! whole again now and then.
 
-use crate::acquire::decode::{BitKind, RegisterKind};
-use crate::config::{Config, MappedValue, Role, Table, register_map};
+use crate::config::{Config, MappedValue, Role, register_map};
+use crate::registers::Table;
+use crate::registers::{BitKind, RegisterKind};
 
 /// Registers per read, the protocol's limit for function codes 03 and 04.
 pub const MAX_REGISTERS_PER_READ: u32 = 125;

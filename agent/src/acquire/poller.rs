@@ -699,7 +699,7 @@ fn backoff_delay(failures: u32) -> Duration {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::acquire::decode::{DataType, RegisterKind, WordOrder};
+    use crate::registers::{DataType, RegisterKind, WordOrder};
 
     fn level_sensor(data_type: DataType) -> Sensor {
         Sensor {

@@ -14,13 +14,14 @@
 //! script can tell a config that is valid but not yet answered from one
 //! that is invalid (exit code 1) or fully answered (0).
 
-use crate::acquire::decode::{DataType, WordOrder};
 use crate::acquire::link::{Link, LinkError, Words, exception_hint};
 use crate::acquire::plan::{Read, plan_reads};
 use crate::acquire::poller::{describe_read, flag};
-use crate::config::{Config, Device, Role, Sensor, Table};
+use crate::config::{Config, Device, Role, Sensor};
 use crate::logging::one_line;
 use crate::model::PressureTap;
+use crate::registers::Table;
+use crate::registers::{DataType, WordOrder};
 use crate::report;
 use std::fmt::Write as _;
 use std::path::Path;

@@ -13,7 +13,7 @@ use crate::commands::{leak, status, whatif};
 use crate::model::{DischargeCoefficient, Length, Mass, MassRate, TimeSpan};
 use crate::report;
 use crate::store;
-use crate::track::tracker::Request;
+use crate::tracker::Request;
 use anyhow::{Context, bail};
 use std::io::{BufRead, BufReader, IsTerminal, Write};
 use std::path::{Path, PathBuf};

@@ -12,7 +12,7 @@ use crate::cli::{HoleArgs, LeakCommand, ParamChanges};
 use crate::model::DischargeCoefficient;
 use crate::report;
 use crate::store::{self, DaemonState, SILENT_AFTER_MS, StoreError};
-use crate::track::tracker::Request;
+use crate::tracker::Request;
 use anyhow::bail;
 use std::path::Path;
 use std::time::{Duration, Instant};

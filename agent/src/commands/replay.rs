@@ -23,13 +23,14 @@
 
 use crate::acquire::sample::TankSample;
 use crate::config::{Config, Tank};
+use crate::estimate::{Estimate, LeakParams};
+use crate::estimator::Estimator;
 use crate::model::{Density, Mass, MassRate, TimeSpan};
 use crate::plot::{self, ChartLabels, ChartSeries};
 use crate::readings::{self, Import, ImportReport, Layout, Target, TimeOrder, Verdict};
 use crate::report;
 use crate::store;
-use crate::track::estimator::{Estimate, Estimator, LeakParams};
-use crate::track::tracker::describe_params;
+use crate::tracker::describe_params;
 use anyhow::{Context, bail};
 use serde::Serialize;
 use std::collections::VecDeque;
@@ -604,7 +605,7 @@ impl<'a> Feed<'a> {
     fn push(&mut self, sample: &TankSample, sink: &mut Sink) -> anyhow::Result<()> {
         // From one gap limit before `--from`: the estimator interpolates
         // the level at the start from the samples either side of it.
-        let lookback = crate::track::estimator::gap_limit_ms(self.interval);
+        let lookback = crate::estimator::gap_limit_ms(self.interval);
         if sample.at_ms > self.to
             || self
                 .from
@@ -1078,7 +1079,7 @@ pub fn human(s: &Summary) -> String {
     for warning in &w.warnings_text {
         let _ = writeln!(out, "WARNING      {warning}");
     }
-    if r.phase == crate::track::estimate::PhaseName::Vapour {
+    if r.phase == crate::estimate::PhaseName::Vapour {
         let _ = writeln!(
             out,
             "volume       none: the release is vapour (gas), not liquid"
@@ -1122,7 +1123,7 @@ pub fn human(s: &Summary) -> String {
             let why = if s
                 .live
                 .as_ref()
-                .is_some_and(|l| l.reason == crate::track::estimate::Reason::Unrecorded)
+                .is_some_and(|l| l.reason == crate::estimate::Reason::Unrecorded)
             {
                 "the event was logged by an earlier version of leaktally, whose estimator gave other figures for the same samples (the replay's are this version's)"
             } else {

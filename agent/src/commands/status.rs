@@ -5,11 +5,11 @@
 //! document is the one the web page serves too; its fields are documented in
 //! the README and only ever added to, never renamed.
 
+use crate::estimate::{Estimate, LeakParams};
 use crate::model::{Density, Mass, MassRate, TimeSpan};
 use crate::report::{self, estimate as words};
 use crate::store::{self, DaemonState, EventRow};
-use crate::track::estimator::{Estimate, LeakParams};
-use crate::track::tracker::describe_params;
+use crate::tracker::describe_params;
 use serde::Serialize;
 use std::fmt::Write as _;
 use std::path::Path;
@@ -86,7 +86,7 @@ pub struct EstimateView {
 impl EstimateView {
     pub fn new(estimate: Estimate, params: &LeakParams) -> Self {
         let e = &estimate;
-        let hole = crate::track::estimate::Warning::HoleInconsistent;
+        let hole = crate::estimate::Warning::HoleInconsistent;
         Self {
             words: words::Words::of(e, params),
             consistency: e
@@ -413,7 +413,7 @@ fn event_text(out: &mut String, e: &EventStatus) {
 
 /// A reportable quantity's crossings: when it may have been reached (the
 /// band's high end) and when the best estimate reached it.
-pub fn crossing_text(c: &crate::track::estimate::Crossing) -> String {
+pub fn crossing_text(c: &crate::estimate::Crossing) -> String {
     match (c.high_at_ms, c.at_ms) {
         (_, Some(best)) => format!(
             "reached at {} (best estimate){}",

@@ -14,11 +14,11 @@
 mod raw;
 pub mod units;
 
-use crate::acquire::decode::{BitKind, DataType, RegisterKind, WordOrder};
 use crate::model::{
     AbsolutePressure, Density, DensityModel, GasProperties, Geometry, Heads, Length, Mass,
     ModelError, MolarMass, Pressure, PressureTap, Temperature, Vessel, Volume,
 };
+use crate::registers::{BitKind, DataType, RegisterKind, Table, WordOrder};
 use raw::{RawConfig, RawGeometry, RawHeads, RawPressureReference, RawSensor, RawShape, RawTank};
 use std::collections::{BTreeMap, HashMap};
 use std::fmt;
@@ -28,6 +28,10 @@ use std::path::{Path, PathBuf};
 use std::time::Duration;
 use toml::Spanned;
 use units::{Quantity, Unit};
+
+/// The largest transfer believed from a file for a tank with no meter in
+/// its config, m³/s: 100 m³/s is 360,000 m³/h, past any pump or pipeline.
+pub const MAX_UNMETERED_TRANSFER_M3_S: f64 = 100.0;
 
 /// A validated site config.
 #[derive(Debug, Clone)]
@@ -859,7 +863,7 @@ impl Checker {
         }
         if let Some(transfer) = &transfer {
             let (lo, hi) = transfer.valid_si;
-            let top = crate::track::estimator::MAX_UNMETERED_TRANSFER_M3_S;
+            let top = MAX_UNMETERED_TRANSFER_M3_S;
             if lo.abs().max(hi.abs()) > top {
                 let span = t.transfer.as_ref().map_or(0..0, |s| s.range.span());
                 self.problem(
@@ -1680,24 +1684,6 @@ impl Role {
             Role::Transfer => "transfer",
             Role::Temperature => "temperature",
             Role::LeakFlag => "leak flag",
-        }
-    }
-}
-
-/// A Modbus table: registers of a kind, or bits of a kind.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, PartialOrd, Ord)]
-pub enum Table {
-    Registers(RegisterKind),
-    Bits(BitKind),
-}
-
-impl Table {
-    pub fn name(self) -> &'static str {
-        match self {
-            Table::Registers(RegisterKind::Holding) => "holding register",
-            Table::Registers(RegisterKind::Input) => "input register",
-            Table::Bits(BitKind::Coil) => "coil",
-            Table::Bits(BitKind::DiscreteInput) => "discrete input",
         }
     }
 }

@@ -5,7 +5,7 @@
 //! that the check in `config::validate` can point at the line and column.
 //! Nothing here interprets a value; see the parent module for that.
 
-use crate::acquire::decode::{BitKind, DataType, RegisterKind, WordOrder};
+use crate::registers::{BitKind, DataType, RegisterKind, WordOrder};
 use serde::Deserialize;
 use toml::Spanned;
 

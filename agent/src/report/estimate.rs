@@ -8,8 +8,8 @@
 //! Left out: layout (each report lays out its own lines).
 
 use super::{duration, mass, significant};
+use crate::estimate::{Estimate, Fit, LeakParams, Method, PhaseName, Reason, Warning};
 use crate::model::{Mass, TimeSpan};
-use crate::track::estimate::{Estimate, Fit, LeakParams, Method, PhaseName, Reason, Warning};
 
 /// A method's name for people.
 pub fn method_name(method: Method) -> &'static str {

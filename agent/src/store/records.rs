@@ -5,7 +5,7 @@
 
 use super::{StoreError, StoreResult};
 use crate::acquire::sample::{Quality, Reading, TankSample};
-use crate::track::estimator::{Estimate, LeakParams};
+use crate::estimate::{Estimate, LeakParams};
 use rusqlite::{Connection, OptionalExtension, params};
 use serde::{Deserialize, Serialize};
 

@@ -319,8 +319,8 @@ fn thin(
 mod tests {
     use super::*;
     use crate::acquire::sample::{Reading, TankSample};
+    use crate::estimate::LeakParams;
     use crate::store::records;
-    use crate::track::estimator::LeakParams;
 
     const HOUR: i64 = 3_600_000;
 

@@ -16,7 +16,7 @@ use super::trim::{self, Retention, TrimState, TrimStep};
 use super::{StoreError, StoreResult};
 use crate::acquire::sample::TankSample;
 use crate::clock::ClockStep;
-use crate::track::estimator::{Estimate, LeakParams};
+use crate::estimate::{Estimate, LeakParams};
 use rusqlite::Connection;
 use std::time::Duration;
 use tokio::sync::oneshot;

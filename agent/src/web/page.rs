@@ -445,7 +445,7 @@ fn event(s: &mut String, e: &EventStatus, extras: &EventExtras, now_ms: i64, sta
         .warnings
         .iter()
         .zip(&est.words.warnings_text)
-        .filter(|(w, _)| *w != crate::track::estimate::Warning::HoleInconsistent)
+        .filter(|(w, _)| *w != crate::estimate::Warning::HoleInconsistent)
         .map(|(_, text)| text)
         .collect();
     if !others.is_empty() {

@@ -3,7 +3,8 @@
 
 use super::*;
 use crate::acquire::sample::{Reading, TankSample};
-use crate::track::estimator::{Estimator, LeakParams};
+use crate::estimate::LeakParams;
+use crate::estimator::Estimator;
 use axum::http::Request as HttpRequest;
 use std::sync::atomic::{AtomicU32, Ordering};
 use tower::ServiceExt;

@@ -52,6 +52,24 @@ pub enum WordOrder {
     LowFirst,
 }
 
+/// A Modbus table: registers of a kind, or bits of a kind.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, PartialOrd, Ord)]
+pub enum Table {
+    Registers(RegisterKind),
+    Bits(BitKind),
+}
+
+impl Table {
+    pub fn name(self) -> &'static str {
+        match self {
+            Table::Registers(RegisterKind::Holding) => "holding register",
+            Table::Registers(RegisterKind::Input) => "input register",
+            Table::Bits(BitKind::Coil) => "coil",
+            Table::Bits(BitKind::DiscreteInput) => "discrete input",
+        }
+    }
+}
+
 impl DataType {
     /// Registers the value occupies.
     pub fn width(self) -> u16 {

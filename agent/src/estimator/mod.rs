@@ -41,15 +41,17 @@
 //! a noisy inventory must not make a running total fall before responders'
 //! eyes. A revision (new parameters) starts afresh.
 
-pub use super::estimate::*;
-use super::fit::{LineFit, Window};
+pub mod fit;
+
 use crate::acquire::sample::TankSample;
 use crate::config::Tank;
+use crate::estimate::*;
 use crate::model::{
     Area, Density, DischargeCoefficient, Hole, Length, Mass, ModelResult, Outflow, Phase, Pressure,
     PressureReading, PressureTap, STANDARD_GRAVITY, TankState, Temperature, TimeSpan, Trapezoid,
     Vessel, forecast_liquid,
 };
+use fit::{LineFit, Window};
 
 /// How often the forecast is recomputed, in sample time. A forecast is a
 /// quadrature, far dearer than a sample step; every 10 s keeps a replay of a
@@ -77,9 +79,6 @@ pub const CONSISTENCY_RATIO: f64 = 1.5;
 /// The window over which the inventory balance gives its own rate and its
 /// smoothed value.
 pub const INVENTORY_RATE_WINDOW_MS: i64 = 60_000;
-/// The largest transfer believed from a file for a tank with no meter in
-/// its config, m³/s: 100 m³/s is 360,000 m³/h, past any pump or pipeline.
-pub const MAX_UNMETERED_TRANSFER_M3_S: f64 = 100.0;
 
 /// The coverage factor of every band: two standard uncertainties, about
 /// 95 % for a near-normal combination (GUM 6.2.2, 6.3.3).
@@ -561,7 +560,7 @@ impl Estimator {
         // of their own.
         let plausible = |v: f64| match &self.tank.transfer {
             Some(meter) => meter.accepts(v),
-            None => v.is_finite() && v.abs() <= MAX_UNMETERED_TRANSFER_M3_S,
+            None => v.is_finite() && v.abs() <= crate::config::MAX_UNMETERED_TRANSFER_M3_S,
         };
         let transfer = match sample.transfer {
             Some(r) if r.is_good() && r.value.is_none_or(plausible) => r.value.unwrap_or(0.0),
@@ -1223,7 +1222,7 @@ impl Estimator {
     /// inventory over the last minute, with a two-sigma band (low clamped at
     /// zero). Noisy, but a leak in progress never shows as zero flow just
     /// because no hole size is known yet.
-    fn inventory_rate(&self, line: Option<super::fit::WindowLine>) -> (f64, f64, f64) {
+    fn inventory_rate(&self, line: Option<fit::WindowLine>) -> (f64, f64, f64) {
         match line {
             Some(l) => (
                 (l.slope - COVERAGE_FACTOR * l.slope_se).max(0.0),

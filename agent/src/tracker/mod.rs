@@ -34,9 +34,10 @@
 use crate::acquire::sample::TankSample;
 use crate::clock::Clock;
 use crate::config::Config;
+use crate::estimate::{Estimate, LeakParams};
+use crate::estimator::Estimator;
 use crate::store::health::{StoreHealth, WriteFailure};
 use crate::store::{ActionRow, EventRow, Lane, Reader, Store, StoreError, StoreResult, Tx};
-use crate::track::estimator::{Estimate, Estimator, LeakParams};
 use serde::{Deserialize, Serialize};
 use std::collections::{HashMap, HashSet, VecDeque};
 use std::sync::Arc;
