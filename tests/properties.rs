@@ -1397,12 +1397,23 @@ mod estimator {
                 p.at_ms
             );
             // The best figure and the high end never fall, but by a
-            // reconciliation after a gap, which the estimate records; the
-            // low end is not ratcheted (see the estimator's module doc).
-            let revised = e.quality.revisions_down > p.quality.revisions_down;
+            // reconciliation (after a gap, or where the level refutes the
+            // model), which the estimate records; the low end is not
+            // ratcheted (see the estimator's module doc). While no loss is
+            // seen (and no hole given) the figures move with the level.
+            let revised = e.quality.revisions_down > p.quality.revisions_down
+                || e.reason == leaktally::estimate::Reason::NoLossSeen;
+            let refuted = matches!(
+                e.reason,
+                leaktally::estimate::Reason::LevelBoundsGivenHole
+                    | leaktally::estimate::Reason::LevelBoundsFittedHole
+            );
             prop_assert!(
-                revised || e.after_gap || e.quality.revisions_down == p.quality.revisions_down,
-                "revisions recorded outside a gap"
+                revised
+                    || e.after_gap
+                    || refuted
+                    || e.quality.revisions_down == p.quality.revisions_down,
+                "revisions recorded outside a gap or a refutation"
             );
             prop_assert!(
                 revised || e.released_best_kg >= p.released_best_kg,
@@ -1416,7 +1427,7 @@ mod estimator {
                 p.released_high_kg,
                 e.released_high_kg
             );
-            if revised {
+            if e.quality.revisions_down > p.quality.revisions_down {
                 prop_assert!(
                     e.warnings
                         .contains(leaktally::estimate::Warning::TotalRevisedDown)

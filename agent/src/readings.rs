@@ -1390,6 +1390,15 @@ impl Import {
             ));
         }
         let time_format = layout.time_format.clone().unwrap_or(TimeFormat::Auto);
+        let mut warnings = Vec::new();
+        if temperature.is_none() && tank.temperature.is_some() && tank.density.follows_temperature()
+        {
+            warnings.push(format!(
+                "tank {} has a temperature sensor and a density that follows it, but no column of the file is a temperature: every row uses the density at the config's reference, {} kg/m³, not the liquid's; map a temperature column with --column \"NAME=temperature,degC\" if the export has one",
+                tank.id,
+                report_number(tank.density.at(None).si())
+            ));
+        }
         let report = ImportReport {
             file: name.to_owned(),
             columns_file: layout
@@ -1408,6 +1417,7 @@ impl Import {
             pressure: pressure_text,
             headspace_stated_kpa: target.stated_headspace_pa.map(|p| p / 1000.0),
             notes,
+            warnings,
             ..ImportReport::default()
         };
         Ok(Self {
@@ -1853,12 +1863,23 @@ impl Import {
             && let Some((lo, hi)) = self.transmitter_range
         {
             r.warnings.push(format!(
-                "{} row(s) give a pressure that, as the transmitter would read it, is outside its range ({} to {} kPa; the values run from {} to {} kPa): the estimator holds the last good pressure for them, as it does live",
+                "{} row(s) give a pressure that, as the transmitter would read it, is outside its range ({} to {} kPa; the values run from {} to {} kPa): the estimator holds the last good pressure for them, as it does live, and {}",
                 p.outside_range,
                 fmt_kpa(lo),
                 fmt_kpa(hi),
                 fmt_kpa(p.converted_min),
-                fmt_kpa(p.converted_max)
+                fmt_kpa(p.converted_max),
+                if p.outside_range >= p.pressure_rows {
+                    format!(
+                        "as no row gives a pressure inside the range, the whole replay assumes the config's {} kPa gauge headspace; check the column's unit and reference",
+                        fmt_kpa(self.assumed_headspace_pa)
+                    )
+                } else {
+                    format!(
+                        "before the first good one it assumes the config's {} kPa gauge",
+                        fmt_kpa(self.assumed_headspace_pa)
+                    )
+                }
             ));
         }
         if p.level_outside > 0 {

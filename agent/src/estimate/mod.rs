@@ -222,6 +222,10 @@ pub struct BandCauses {
     pub model_low_kg: f64,
     #[serde(default)]
     pub model_high_kg: f64,
+    /// The uncertainty of what the level set across data gaps (kg,
+    /// expanded), which widens the model's band.
+    #[serde(default)]
+    pub bridge_kg: f64,
 }
 
 /// Everything the estimator says after a sample.

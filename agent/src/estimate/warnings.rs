@@ -46,12 +46,19 @@ pub enum Warning {
     /// The event starts before the first usable sample by more than the
     /// gap limit: the start is bridged at the first sample's rate.
     StartBridged,
+    /// The level has fallen further than the liquid there was above the
+    /// given hole height: the hole is lower (or the gauge wrong), and the
+    /// figures follow the level.
+    HoleHeightRefuted,
 }
 
 impl Warning {
-    pub const ALL: [Warning; 15] = [
+    /// Every warning, most important first (the order they are shown in).
+    /// New warnings go at the end of the enum, whose order sets the bits.
+    pub const ALL: [Warning; 16] = [
         Warning::HoleInconsistent,
         Warning::LevelContradictsModel,
+        Warning::HoleHeightRefuted,
         Warning::NoLossSeen,
         Warning::BridgedGapsDominate,
         Warning::BridgeCutByLevel,

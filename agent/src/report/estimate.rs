@@ -55,19 +55,19 @@ pub fn reason_text(e: &Estimate, p: &LeakParams) -> String {
             "the operator gave {hole} hole; band from Cd {cd_low} to {cd_high} and the instruments, held to what the level allows"
         ),
         Reason::LevelBoundsGivenHole => format!(
-            "the operator gave {hole} hole, but the level does not fall as it would through it; the figure is held to what the level allows"
+            "the operator gave {hole} hole, but the level does not fall as it would through it at the chosen Cd; the figures follow the level balance, inside what the hole allows"
         ),
         Reason::FittedHole => {
             "no hole size given; the hole is fitted to the level drop, and the band is the fit's spread and the instruments'".into()
         }
         Reason::LevelBoundsFittedHole => {
-            "no hole size given; the fitted model is held to what the level allows".into()
+            "no hole size given; the level no longer falls as the fitted hole says (the flow slowed or stopped), so the figures follow the level balance".into()
         }
         Reason::NotEnoughDrop => {
             "no hole size given and not enough level drop to fit one yet; the figure is the level balance, and the rate its slope over the last minute".into()
         }
         Reason::NoLossSeen => {
-            "no hole size given, and no loss seen beyond the instruments' uncertainty yet; the figure is the level balance".into()
+            "no loss seen beyond the instruments' uncertainty yet: the figure is the level balance (near zero), and no flow is shown; the band's high end is what the level cannot yet rule out".into()
         }
         Reason::Vapour => format!(
             "vapour through {} hole, from the headspace pressure; the level cannot check it",
@@ -154,6 +154,12 @@ pub fn band_text(e: &Estimate) -> String {
         kg(b.inventory_kg),
         causes.join(", ")
     ));
+    if b.bridge_kg > 0.0 {
+        parts.push(format!(
+            "data gaps bridged from the level ±{}",
+            kg(b.bridge_kg)
+        ));
+    }
     if b.rate_fraction > 0.0 {
         parts.push(format!(
             "instruments ±{} % on the rate",
@@ -209,7 +215,7 @@ pub fn warning_text(w: Warning, e: &Estimate, p: &LeakParams) -> String {
             kg(q.bridge_cut_kg)
         ),
         Warning::TotalRevisedDown => format!(
-            "the total was revised down {} time(s) after data gaps, by {} in all, to what the level on the far side allows",
+            "the total was revised down {} time(s), by {} in all, to what the level allows (after a data gap, or when the level showed the model's figure to be wrong)",
             q.revisions_down,
             kg(q.revised_down_kg)
         ),
@@ -238,6 +244,10 @@ pub fn warning_text(w: Warning, e: &Estimate, p: &LeakParams) -> String {
         Warning::StartBridged => {
             "the event starts before the first logged level: that stretch is counted at the first sample's rate, not measured".into()
         }
+        Warning::HoleHeightRefuted => format!(
+            "the level has fallen further than the liquid there was above the given hole height ({} m): the hole is lower than given, or the gauge is wrong; the figures follow the level (check the hole height: leak revise --hole-height)",
+            significant(p.hole_height_m)
+        ),
     }
 }
 
