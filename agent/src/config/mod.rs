@@ -11,17 +11,20 @@
 //! devices separately; the daemon binds the web page's address when it
 //! starts) and the defaults of the store.
 
+mod problems;
 mod raw;
 pub mod units;
+
+pub use problems::{ConfigError, Problem, line_col};
 
 use crate::model::{
     AbsolutePressure, Density, DensityModel, GasProperties, Geometry, Heads, Length, Mass,
     ModelError, MolarMass, Pressure, PressureTap, Temperature, Vessel, Volume,
 };
 use crate::registers::{BitKind, DataType, RegisterKind, Table, WordOrder};
+use problems::Problems;
 use raw::{RawConfig, RawGeometry, RawHeads, RawPressureReference, RawSensor, RawShape, RawTank};
 use std::collections::{BTreeMap, HashMap};
-use std::fmt;
 use std::net::SocketAddr;
 use std::ops::Range;
 use std::path::{Path, PathBuf};
@@ -330,67 +333,6 @@ pub struct Flag {
     pub address: u16,
 }
 
-/// A config that could not be read or is not valid.
-#[derive(Debug)]
-pub enum ConfigError {
-    Read {
-        path: PathBuf,
-        source: std::io::Error,
-    },
-    Invalid {
-        problems: Vec<Problem>,
-    },
-}
-
-/// One thing wrong in a config file, located.
-#[derive(Debug, Clone, PartialEq)]
-pub struct Problem {
-    pub file: String,
-    pub line: usize,
-    pub column: usize,
-    pub message: String,
-}
-
-impl fmt::Display for Problem {
-    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
-        // A message quotes what the file says; a control character there
-        // must not break the one-line-per-problem layout or reach a terminal.
-        write!(
-            f,
-            "{}:{}:{}: {}",
-            crate::logging::one_line(&self.file),
-            self.line,
-            self.column,
-            crate::logging::one_line(&self.message)
-        )
-    }
-}
-
-impl fmt::Display for ConfigError {
-    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
-        match self {
-            ConfigError::Read { path, source } => {
-                write!(
-                    f,
-                    "cannot read the config file {}: {source}; check the path (config/reference.toml in the source tree documents the format)",
-                    path.display()
-                )
-            }
-            ConfigError::Invalid { problems } => {
-                for (i, p) in problems.iter().enumerate() {
-                    if i > 0 {
-                        writeln!(f)?;
-                    }
-                    write!(f, "{p}")?;
-                }
-                Ok(())
-            }
-        }
-    }
-}
-
-impl std::error::Error for ConfigError {}
-
 /// Reads and validates a config file.
 pub fn load(path: &Path) -> Result<Config, ConfigError> {
     let text = std::fs::read_to_string(path).map_err(|source| ConfigError::Read {
@@ -402,21 +344,9 @@ pub fn load(path: &Path) -> Result<Config, ConfigError> {
 
 /// Validates config text; `path` names it in messages.
 pub fn parse(text: &str, path: &Path) -> Result<Config, ConfigError> {
-    let file = path.display().to_string();
-    let locate = |span: Option<Range<usize>>, message: String| {
-        let (line, column) = line_col(text, span.map_or(0, |s| s.start));
-        Problem {
-            file: file.clone(),
-            line,
-            column,
-            message,
-        }
-    };
-    let raw: RawConfig = toml::from_str(text).map_err(|e| ConfigError::Invalid {
-        problems: vec![locate(e.span(), parse_hint(e.message()))],
-    })?;
+    let raw: RawConfig = toml::from_str(text).map_err(|e| problems::unparsable(text, path, &e))?;
     let mut checker = Checker {
-        problems: Vec::new(),
+        problems: Problems::default(),
         address_spans: HashMap::new(),
     };
     let config = checker.config(raw, path);
@@ -433,47 +363,13 @@ pub fn parse(text: &str, path: &Path) -> Result<Config, ConfigError> {
     if checker.problems.is_empty() {
         Ok(config)
     } else {
-        Err(ConfigError::Invalid {
-            problems: checker
-                .problems
-                .into_iter()
-                .map(|(span, msg)| locate(Some(span), msg))
-                .collect(),
-        })
-    }
-}
-
-/// 1-based line and column of a byte offset.
-pub fn line_col(text: &str, offset: usize) -> (usize, usize) {
-    let mut offset = offset.min(text.len());
-    while !text.is_char_boundary(offset) {
-        offset -= 1;
-    }
-    let before = &text[..offset];
-    let line = before.matches('\n').count() + 1;
-    let column = before.rsplit('\n').next().map_or(0, |l| l.chars().count()) + 1;
-    (line, column)
-}
-
-/// Adds a way out to the TOML parser's messages where it gives none.
-fn parse_hint(message: &str) -> String {
-    let message = message.trim_end();
-    if message.starts_with("unknown field") {
-        format!("{message}; check the spelling against config/reference.toml")
-    } else if message.starts_with("missing field") {
-        format!("{message}; add it (config/reference.toml documents every key)")
-    } else if message.starts_with("invalid float") || message.starts_with("invalid number") {
-        format!("{message}; text such as an address needs double quotes, as in \"192.0.2.10:502\"")
-    } else if message.starts_with("unknown variant") {
-        format!("{message}; use one of the listed values")
-    } else {
-        message.to_owned()
+        Err(checker.problems.located(text, path))
     }
 }
 
 /// Collects problems while building the validated config.
 struct Checker {
-    problems: Vec<(Range<usize>, String)>,
+    problems: Problems,
     /// Where each tank's mapped values are written, for the overlap check
     /// that runs once every tank is known.
     address_spans: HashMap<(String, Role), Range<usize>>,
@@ -481,7 +377,7 @@ struct Checker {
 
 impl Checker {
     fn problem(&mut self, span: Range<usize>, message: impl Into<String>) {
-        self.problems.push((span, message.into()));
+        self.problems.push(span, message);
     }
 
     /// Records a model error at `span`, prefixed with `context`.
@@ -1754,10 +1650,10 @@ pub fn overlaps(config: &Config) -> Vec<(usize, Role, String)> {
 }
 
 #[cfg(test)]
-mod tests {
+pub(super) mod tests {
     use super::*;
 
-    fn repo_file(rel: &str) -> PathBuf {
+    pub(super) fn repo_file(rel: &str) -> PathBuf {
         Path::new(env!("CARGO_MANIFEST_DIR")).join("..").join(rel)
     }
 
@@ -1776,7 +1672,7 @@ mod tests {
         assert!(seen >= 2, "expected the demo and the reference config");
     }
 
-    const BASE: &str = r#"[site]
+    pub(super) const BASE: &str = r#"[site]
 name = "x"
 [[device]]
 id = "d1"
@@ -2039,18 +1935,6 @@ level = { register = "input", address = 0, type = "u16", raw = [4000, 20000], ra
                 "got:\n{err}\nexpected:\n{expected}"
             );
         }
-    }
-
-    #[test]
-    fn every_problem_is_reported_at_once() {
-        let text = BASE
-            .replace("unit = \"m\"", "unit = \"yards\"")
-            .replace("diameter_m = 3.0", "diameter_m = 0.0");
-        let ConfigError::Invalid { problems } = parse(&text, Path::new("s.toml")).unwrap_err()
-        else {
-            panic!("expected problems");
-        };
-        assert_eq!(problems.len(), 2, "{problems:?}");
     }
 
     /// `nominal_headspace_kpa`: only beside a pressure sensor, and a
