@@ -13,10 +13,12 @@
 
 mod problems;
 mod raw;
+mod register_map;
 mod types;
 pub mod units;
 
 pub use problems::{ConfigError, Problem, line_col};
+pub use register_map::{MappedValue, overlaps, register_map};
 pub use types::{
     Config, DEFAULT_DENSITY_UNCERTAINTY, DEFAULT_LEVEL_ACCURACY_FRACTION_OF_SPAN,
     DEFAULT_LEVEL_ACCURACY_MIN_M, DEFAULT_PRESSURE_ACCURACY_FRACTION_OF_SPAN,
@@ -29,10 +31,10 @@ use crate::model::{
     AbsolutePressure, Density, DensityModel, GasProperties, Geometry, Heads, Length, Mass,
     ModelError, MolarMass, Pressure, PressureTap, Temperature, Vessel, Volume,
 };
-use crate::registers::{DataType, Table, WordOrder};
+use crate::registers::{DataType, WordOrder};
 use problems::Problems;
 use raw::{RawConfig, RawGeometry, RawHeads, RawPressureReference, RawSensor, RawShape, RawTank};
-use std::collections::{BTreeMap, HashMap};
+use std::collections::HashMap;
 use std::net::SocketAddr;
 use std::ops::Range;
 use std::path::Path;
@@ -1271,115 +1273,6 @@ impl Checker {
             );
         }
     }
-}
-
-/// Which register each value of a device occupies, for overlap checks and
-/// read planning: (kind, first register, registers) per tank and role.
-pub fn register_map(config: &Config, device: usize) -> Vec<MappedValue<'_>> {
-    let mut out = Vec::new();
-    for (tank_index, tank) in config
-        .tanks
-        .iter()
-        .enumerate()
-        .filter(|(_, t)| t.device == device)
-    {
-        let mut add = |role: Role, sensor: &Sensor| {
-            out.push(MappedValue {
-                tank: tank_index,
-                tank_id: &tank.id,
-                role,
-                kind: Table::Registers(sensor.register),
-                start: u32::from(sensor.address),
-                count: u32::from(sensor.data_type.width()),
-            })
-        };
-        add(Role::Level, &tank.level);
-        if let Some(p) = &tank.pressure {
-            add(Role::Pressure, &p.sensor);
-        }
-        if let Some(s) = &tank.transfer {
-            add(Role::Transfer, s);
-        }
-        if let Some(s) = &tank.temperature {
-            add(Role::Temperature, s);
-        }
-        if let Some(f) = &tank.leak_flag {
-            out.push(MappedValue {
-                tank: tank_index,
-                tank_id: &tank.id,
-                role: Role::LeakFlag,
-                kind: Table::Bits(f.kind),
-                start: u32::from(f.address),
-                count: 1,
-            });
-        }
-    }
-    out
-}
-
-/// One value's place in a device's tables.
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
-pub struct MappedValue<'a> {
-    pub tank: usize,
-    pub tank_id: &'a str,
-    pub role: Role,
-    pub kind: Table,
-    pub start: u32,
-    pub count: u32,
-}
-
-impl MappedValue<'_> {
-    pub fn end(&self) -> u32 {
-        self.start + self.count
-    }
-}
-
-/// Finds values that share a register on the same device, and values whose
-/// last register is past 65535: (tank index, role, message) for each.
-pub fn overlaps(config: &Config) -> Vec<(usize, Role, String)> {
-    let mut out = Vec::new();
-    for (d, device) in config.devices.iter().enumerate() {
-        let mut by_table: BTreeMap<Table, Vec<MappedValue>> = BTreeMap::new();
-        for v in register_map(config, d) {
-            if v.end() > 65_536 {
-                out.push((
-                    v.tank,
-                    v.role,
-                    format!(
-                        "tank \"{}\" {}: {} {} runs past the last address 65535; move it lower",
-                        v.tank_id,
-                        v.role.name(),
-                        v.kind.name(),
-                        v.start
-                    ),
-                ));
-            }
-            by_table.entry(v.kind).or_default().push(v);
-        }
-        for (table, mut values) in by_table {
-            values.sort_by_key(|v| v.start);
-            for pair in values.windows(2) {
-                let (a, b) = (pair[0], pair[1]);
-                if b.start < a.end() {
-                    out.push((b.tank, b.role, format!(
-                        "on device \"{}\", tank \"{}\" {} ({} {}..{}) overlaps tank \"{}\" {} ({} {}..{}); give each value its own registers",
-                        device.id,
-                        a.tank_id,
-                        a.role.name(),
-                        table.name(),
-                        a.start,
-                        a.end() - 1,
-                        b.tank_id,
-                        b.role.name(),
-                        table.name(),
-                        b.start,
-                        b.end() - 1
-                    )));
-                }
-            }
-        }
-    }
-    out
 }
 
 #[cfg(test)]
