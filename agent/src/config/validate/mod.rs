@@ -19,9 +19,9 @@ mod sensor;
 mod tank;
 
 use super::problems::Problems;
-use super::raw::{self, RawConfig};
+use super::raw::{self, RawConfig, RawTank};
 use super::register_map::overlaps;
-use super::types::{Config, DEFAULT_WEB_LISTEN, Device, HostName, Role, Web};
+use super::types::{Config, DEFAULT_WEB_LISTEN, Device, HostName, Role, Tank, Web};
 use crate::model::{AbsolutePressure, ModelError};
 use std::collections::HashMap;
 use std::net::SocketAddr;
@@ -135,29 +135,47 @@ impl Checker {
     }
 
     fn config(&mut self, raw: RawConfig, path: &Path) -> Config {
-        let ambient = match raw.site.ambient_pressure_kpa {
-            Some(kpa) => {
-                let pa = *kpa.get_ref() * 1000.0;
-                let (lo, hi) = crate::model::vessel::AMBIENT_RANGE;
-                if !(lo..=hi).contains(&pa) {
-                    self.problem(
-                        kpa.span(),
-                        format!(
-                            "ambient_pressure_kpa = {} is outside {}..{} kPa; give the absolute ambient pressure in kPa (101.325 at sea level)",
-                            kpa.get_ref(),
-                            lo / 1000.0,
-                            hi / 1000.0
-                        ),
-                    );
-                }
-                AbsolutePressure::pascals(pa)
-            }
-            None => AbsolutePressure::STANDARD_ATMOSPHERE,
-        };
+        let ambient = self.ambient(raw.site.ambient_pressure_kpa.as_ref());
+        let (devices, device_index) = self.devices(raw.devices);
+        let tanks = self.tanks(raw.tanks, &device_index, &devices, ambient);
+        let web = raw.web.map(|w| self.web(w));
+        Config {
+            path: path.to_owned(),
+            site_name: raw.site.name,
+            ambient,
+            devices,
+            tanks,
+            web,
+        }
+    }
 
+    /// `ambient_pressure_kpa`, absolute: the standard atmosphere if absent.
+    fn ambient(&mut self, kpa: Option<&Spanned<f64>>) -> AbsolutePressure {
+        let Some(kpa) = kpa else {
+            return AbsolutePressure::STANDARD_ATMOSPHERE;
+        };
+        let pa = *kpa.get_ref() * 1000.0;
+        let (lo, hi) = crate::model::vessel::AMBIENT_RANGE;
+        if !(lo..=hi).contains(&pa) {
+            self.problem(
+                kpa.span(),
+                format!(
+                    "ambient_pressure_kpa = {} is outside {}..{} kPa; give the absolute ambient pressure in kPa (101.325 at sea level)",
+                    kpa.get_ref(),
+                    lo / 1000.0,
+                    hi / 1000.0
+                ),
+            );
+        }
+        AbsolutePressure::pascals(pa)
+    }
+
+    /// The `[[device]]` tables, each id used once, and each id's index in
+    /// the list (the last, for an id used twice).
+    fn devices(&mut self, raw: Vec<raw::RawDevice>) -> (Vec<Device>, HashMap<String, usize>) {
         let mut device_index: HashMap<String, usize> = HashMap::new();
         let mut devices = Vec::new();
-        for d in raw.devices {
+        for d in raw {
             if let Some(device) = self.device(&d) {
                 if device_index
                     .insert(device.id.clone(), devices.len())
@@ -174,10 +192,22 @@ impl Checker {
                 devices.push(device);
             }
         }
+        (devices, device_index)
+    }
 
+    /// The `[[tank]]` tables, each id used once; a config needs at least
+    /// one (said only when nothing else is wrong, as problems above may be
+    /// why none was built).
+    fn tanks(
+        &mut self,
+        raw: Vec<RawTank>,
+        device_index: &HashMap<String, usize>,
+        devices: &[Device],
+        ambient: AbsolutePressure,
+    ) -> Vec<Tank> {
         let mut tank_ids: HashMap<String, ()> = HashMap::new();
         let mut tanks = Vec::new();
-        for t in raw.tanks {
+        for t in raw {
             if tank_ids.insert(t.id.get_ref().clone(), ()).is_some() {
                 self.problem(
                     t.id.span(),
@@ -187,7 +217,7 @@ impl Checker {
                     ),
                 );
             }
-            if let Some(tank) = self.tank(t, &device_index, &devices, ambient) {
+            if let Some(tank) = self.tank(t, device_index, devices, ambient) {
                 tanks.push(tank);
             }
         }
@@ -197,15 +227,7 @@ impl Checker {
                 "the config defines no tanks; add a [[tank]] table (see config/reference.toml)",
             );
         }
-        let web = raw.web.map(|w| self.web(w));
-        Config {
-            path: path.to_owned(),
-            site_name: raw.site.name,
-            ambient,
-            devices,
-            tanks,
-            web,
-        }
+        tanks
     }
 
     fn web(&mut self, w: raw::RawWeb) -> Web {

@@ -378,21 +378,4 @@ impl Checker {
             }),
         )
     }
-
-    pub(super) fn pressure_keys_only_on_pressure(&mut self, s: &RawSensor, ctx: &str, name: &str) {
-        if let Some(r) = &s.reference {
-            self.problem(
-                r.span(),
-                format!("{ctx} {name}: reference applies only to the pressure sensor; remove it"),
-            );
-        }
-        if let Some(z) = &s.tap_elevation_m {
-            self.problem(
-                z.span(),
-                format!(
-                    "{ctx} {name}: tap_elevation_m applies only to the pressure sensor; remove it"
-                ),
-            );
-        }
-    }
 }

@@ -37,6 +37,79 @@ impl Checker {
                 "tank id is empty; use the tank's tag, such as \"T-101\"",
             );
         }
+        let device = self.tank_device(&t, devices, &ctx);
+        let density = Density::kg_per_cubic_metre(*t.substance.density_kg_m3.get_ref());
+        let vessel = self.vessel(&t, &ctx, density, ambient);
+        let reportable = self.reportable(&t.substance, &ctx);
+        let assumed_headspace = self.assumed_headspace(&t, &ctx, ambient);
+        let nominal_headspace = self.nominal_headspace(&t, &ctx, ambient);
+
+        let height = vessel.as_ref().map(|v| v.geometry().height().si());
+        let level = self.sensor(&t.level, &format!("{ctx} level"), Quantity::Length, density);
+        let pressure = t
+            .pressure
+            .as_ref()
+            .and_then(|p| self.pressure_sensor(p, &ctx, density, height));
+        let transfer = t
+            .transfer
+            .as_ref()
+            .and_then(|s| self.sensor(s, &format!("{ctx} transfer"), Quantity::Flow, density));
+        let temperature = t.temperature.as_ref().and_then(|s| {
+            self.sensor(
+                s,
+                &format!("{ctx} temperature"),
+                Quantity::Temperature,
+                density,
+            )
+        });
+        self.pressure_keys_only_on_pressure(&t, &ctx);
+
+        let density_model = self.density_model(&t.substance, &ctx, density);
+        self.density_needs_temperature(&t, &ctx, &density_model);
+        let density_uncertainty = self.density_uncertainty(&t.substance, &ctx);
+        if let (Some(level), Some(height)) = (&level, height) {
+            self.level_inside_tank(&t.level, level, &ctx, height);
+        }
+        if let Some(transfer) = &transfer {
+            self.transfer_range(&t, transfer, &ctx);
+        }
+        let max_level_rate = self.max_level_rate(&t, &ctx);
+        if let Some(d) = device {
+            self.stuck_after_poll(&t, &ctx, &device_list[d]);
+        }
+        self.note_addresses(&t, &id);
+        let leak_flag = t.leak_flag.as_ref().map(|f| Flag {
+            kind: f.input,
+            address: *f.address.get_ref(),
+        });
+
+        Some(Tank {
+            id,
+            description: t.description,
+            device: device?,
+            vessel: vessel?,
+            substance: t.substance.name,
+            reportable,
+            assumed_headspace,
+            nominal_headspace,
+            level: level?,
+            pressure,
+            transfer,
+            temperature,
+            leak_flag,
+            density: density_model,
+            density_uncertainty: density_uncertainty?,
+            max_level_rate,
+        })
+    }
+
+    /// The index of the device the tank names, which must be defined.
+    fn tank_device(
+        &mut self,
+        t: &RawTank,
+        devices: &HashMap<String, usize>,
+        ctx: &str,
+    ) -> Option<usize> {
         let device = devices.get(t.device.get_ref()).copied();
         if device.is_none() {
             let mut known: Vec<&str> = devices.keys().map(String::as_str).collect();
@@ -50,9 +123,19 @@ impl Checker {
                 ),
             );
         }
+        device
+    }
 
-        let geometry = self.geometry(&t.geometry, &ctx);
-        let density = Density::kg_per_cubic_metre(*t.substance.density_kg_m3.get_ref());
+    /// The vessel: the shape with the liquid's density, the ambient
+    /// pressure and the vapour, if the substance gives one.
+    fn vessel(
+        &mut self,
+        t: &RawTank,
+        ctx: &str,
+        density: Density,
+        ambient: AbsolutePressure,
+    ) -> Option<Vessel> {
+        let geometry = self.geometry(&t.geometry, ctx);
         let vapour = t.substance.vapour.as_ref().and_then(|v| {
             let raw = v.get_ref();
             let gas = GasProperties::new(
@@ -62,13 +145,16 @@ impl Checker {
             );
             self.model(v.span(), &format!("{ctx} vapour"), gas)
         });
-        let vessel = geometry.and_then(|g| {
+        geometry.and_then(|g| {
             let v = Vessel::new(g, density, ambient, vapour);
-            self.model(t.substance.density_kg_m3.span(), &ctx, v)
-        });
+            self.model(t.substance.density_kg_m3.span(), ctx, v)
+        })
+    }
 
+    /// The reportable quantities, ascending; each a plausible mass.
+    fn reportable(&mut self, substance: &raw::RawSubstance, ctx: &str) -> Vec<Mass> {
         let mut reportable = Vec::new();
-        for q in &t.substance.reportable_kg {
+        for q in &substance.reportable_kg {
             let kg = *q.get_ref();
             if kg.is_finite() && kg > 0.0 && kg <= MAX_REPORTABLE_KG {
                 reportable.push(Mass::kilograms(kg));
@@ -84,8 +170,13 @@ impl Checker {
             }
         }
         reportable.sort_by(|a, b| a.si().total_cmp(&b.si()));
+        reportable
+    }
 
-        let assumed_headspace = match &t.headspace_kpa {
+    /// `headspace_kpa`, the gauge pressure assumed without a pressure
+    /// sensor (and refused beside one): an open vent's zero by default.
+    fn assumed_headspace(&mut self, t: &RawTank, ctx: &str, ambient: AbsolutePressure) -> Pressure {
+        let assumed = match &t.headspace_kpa {
             Some(kpa)
                 if !kpa.get_ref().is_finite()
                     || kpa.get_ref().abs() > 10_000.0
@@ -110,7 +201,18 @@ impl Checker {
                 format!("{ctx}: headspace_kpa is only for tanks without a pressure sensor; remove one of the two"),
             );
         }
-        let nominal_headspace = t.nominal_headspace_kpa.as_ref().map(|kpa| {
+        assumed
+    }
+
+    /// `nominal_headspace_kpa`, the blanket's usual gauge pressure: only
+    /// beside a pressure sensor, and a plausible pressure.
+    fn nominal_headspace(
+        &mut self,
+        t: &RawTank,
+        ctx: &str,
+        ambient: AbsolutePressure,
+    ) -> Option<Pressure> {
+        t.nominal_headspace_kpa.as_ref().map(|kpa| {
             let value = *kpa.get_ref();
             if t.pressure.is_none() {
                 self.problem(kpa.span(), format!("{ctx}: nominal_headspace_kpa is for tanks with a pressure sensor; for a tank without one, give headspace_kpa"));
@@ -118,37 +220,40 @@ impl Checker {
                 self.problem(kpa.span(), format!("{ctx}: nominal_headspace_kpa = {value} is not a plausible gauge pressure; give the blanket's usual pressure in kPa above ambient"));
             }
             Pressure::kilopascals(value)
-        });
+        })
+    }
 
-        let height = vessel.as_ref().map(|v| v.geometry().height().si());
-        let level = self.sensor(&t.level, &format!("{ctx} level"), Quantity::Length, density);
-        let pressure = t
-            .pressure
-            .as_ref()
-            .and_then(|p| self.pressure_sensor(p, &ctx, density, height));
-        let transfer = t
-            .transfer
-            .as_ref()
-            .and_then(|s| self.sensor(s, &format!("{ctx} transfer"), Quantity::Flow, density));
-        let temperature = t.temperature.as_ref().and_then(|s| {
-            self.sensor(
-                s,
-                &format!("{ctx} temperature"),
-                Quantity::Temperature,
-                density,
-            )
-        });
+    /// `reference` and `tap_elevation_m`, which only the pressure sensor
+    /// takes.
+    fn pressure_keys_only_on_pressure(&mut self, t: &RawTank, ctx: &str) {
         for (name, s) in [
             ("level", Some(&t.level)),
             ("transfer", t.transfer.as_ref()),
             ("temperature", t.temperature.as_ref()),
         ] {
-            if let Some(s) = s {
-                self.pressure_keys_only_on_pressure(s, &ctx, name);
+            let Some(s) = s else { continue };
+            if let Some(r) = &s.reference {
+                self.problem(
+                    r.span(),
+                    format!(
+                        "{ctx} {name}: reference applies only to the pressure sensor; remove it"
+                    ),
+                );
+            }
+            if let Some(z) = &s.tap_elevation_m {
+                self.problem(
+                    z.span(),
+                    format!(
+                        "{ctx} {name}: tap_elevation_m applies only to the pressure sensor; remove it"
+                    ),
+                );
             }
         }
-        let density_model = self.density_model(&t.substance, &ctx, density);
-        if density_model.follows_temperature() && t.temperature.is_none() {
+    }
+
+    /// A density that follows temperature needs a temperature to follow.
+    fn density_needs_temperature(&mut self, t: &RawTank, ctx: &str, model: &DensityModel) {
+        if model.follows_temperature() && t.temperature.is_none() {
             let span = t
                 .substance
                 .expansion_per_c
@@ -161,7 +266,15 @@ impl Checker {
                 format!("{ctx}: the density follows temperature, but the tank has no temperature sensor; add a temperature = {{ ... }} sensor, or remove the expansion data"),
             );
         }
-        let density_uncertainty = match &t.substance.density_uncertainty_pct {
+    }
+
+    /// `density_uncertainty_pct`, as a fraction, or the default.
+    fn density_uncertainty(
+        &mut self,
+        substance: &raw::RawSubstance,
+        ctx: &str,
+    ) -> Option<Uncertainty> {
+        match &substance.density_uncertainty_pct {
             Some(pct) if !(pct.get_ref().is_finite() && (0.0..=20.0).contains(pct.get_ref())) => {
                 self.problem(
                     pct.span(),
@@ -179,38 +292,30 @@ impl Checker {
                 relative: true,
                 stated: false,
             }),
-        };
-        if let (Some(level), Some(height)) = (&level, height) {
-            self.level_inside_tank(&t.level, level, &ctx, height);
         }
-        if let Some(transfer) = &transfer {
-            let (lo, hi) = transfer.valid_si;
-            let top = MAX_UNMETERED_TRANSFER_M3_S;
-            if lo.abs().max(hi.abs()) > top {
-                let span = t.transfer.as_ref().map_or(0..0, |s| s.range.span());
-                self.problem(
-                    span,
-                    format!(
-                        "{ctx} transfer: range reaches {} m³/s, past any pump or pipeline ({top} m³/s is {} m³/h); check the range and its unit",
-                        shown(lo.abs().max(hi.abs())),
-                        top * 3600.0
-                    ),
-                );
-            }
+    }
+
+    /// A transfer meter's range must be one a pump or pipeline can have:
+    /// the estimator believes a transfer only up to this.
+    fn transfer_range(&mut self, t: &RawTank, transfer: &Sensor, ctx: &str) {
+        let (lo, hi) = transfer.valid_si;
+        let top = MAX_UNMETERED_TRANSFER_M3_S;
+        if lo.abs().max(hi.abs()) > top {
+            let span = t.transfer.as_ref().map_or(0..0, |s| s.range.span());
+            self.problem(
+                span,
+                format!(
+                    "{ctx} transfer: range reaches {} m³/s, past any pump or pipeline ({top} m³/s is {} m³/h); check the range and its unit",
+                    shown(lo.abs().max(hi.abs())),
+                    top * 3600.0
+                ),
+            );
         }
-        let max_level_rate = self.max_level_rate(&t, &ctx);
-        if let Some(d) = device {
-            let sensors = [
-                ("level", Some(&t.level)),
-                ("pressure", t.pressure.as_ref()),
-                ("transfer", t.transfer.as_ref()),
-            ];
-            for (name, s) in sensors {
-                if let Some(s) = s {
-                    self.stuck_after_poll(s, &ctx, name, &device_list[d]);
-                }
-            }
-        }
+    }
+
+    /// Where each of the tank's values has its address written, so that an
+    /// overlap found later is reported there.
+    fn note_addresses(&mut self, t: &RawTank, id: &str) {
         let spans = [
             (Role::Level, Some(t.level.address.span())),
             (
@@ -232,32 +337,9 @@ impl Checker {
         ];
         for (role, span) in spans {
             if let Some(span) = span {
-                self.address_spans.insert((id.clone(), role), span);
+                self.address_spans.insert((id.to_owned(), role), span);
             }
         }
-        let leak_flag = t.leak_flag.as_ref().map(|f| Flag {
-            kind: f.input,
-            address: *f.address.get_ref(),
-        });
-
-        Some(Tank {
-            id,
-            description: t.description,
-            device: device?,
-            vessel: vessel?,
-            substance: t.substance.name,
-            reportable,
-            assumed_headspace,
-            nominal_headspace,
-            level: level?,
-            pressure,
-            transfer,
-            temperature,
-            leak_flag,
-            density: density_model,
-            density_uncertainty: density_uncertainty?,
-            max_level_rate,
-        })
     }
 
     /// How the density follows temperature: an expansion coefficient at a
@@ -382,20 +464,30 @@ impl Checker {
 
     /// A stuck check shorter than two poll cycles would flag every reading
     /// of a quiet tank: the value has no chance to change between polls.
-    fn stuck_after_poll(&mut self, s: &RawSensor, ctx: &str, name: &str, device: &Device) {
-        let Some(secs) = &s.stuck_after_s else { return };
-        let v = *secs.get_ref();
+    /// The level, pressure and transfer are held to their device's polls.
+    fn stuck_after_poll(&mut self, t: &RawTank, ctx: &str, device: &Device) {
+        let sensors = [
+            ("level", Some(&t.level)),
+            ("pressure", t.pressure.as_ref()),
+            ("transfer", t.transfer.as_ref()),
+        ];
         let two_cycles = 2.0 * device.poll_interval.as_secs_f64();
-        if v.is_finite() && v > 0.0 && v < two_cycles {
-            self.problem(
-                secs.span(),
-                format!(
-                    "{ctx} {name}: stuck_after_s = {} is shorter than two poll cycles of device \"{}\" ({} ms each), so a quiet reading would be flagged stuck; give at least {two_cycles} s (minutes suit most gauges)",
-                    shown(v),
-                    device.id,
-                    device.poll_interval.as_millis()
-                ),
-            );
+        for (name, s) in sensors {
+            let Some(secs) = s.and_then(|s| s.stuck_after_s.as_ref()) else {
+                continue;
+            };
+            let v = *secs.get_ref();
+            if v.is_finite() && v > 0.0 && v < two_cycles {
+                self.problem(
+                    secs.span(),
+                    format!(
+                        "{ctx} {name}: stuck_after_s = {} is shorter than two poll cycles of device \"{}\" ({} ms each), so a quiet reading would be flagged stuck; give at least {two_cycles} s (minutes suit most gauges)",
+                        shown(v),
+                        device.id,
+                        device.poll_interval.as_millis()
+                    ),
+                );
+            }
         }
     }
 }
