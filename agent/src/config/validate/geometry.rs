@@ -17,10 +17,45 @@ use toml::Spanned;
 impl Checker {
     pub(super) fn geometry(&mut self, g: &Spanned<RawGeometry>, ctx: &str) -> Option<Geometry> {
         let raw = g.get_ref();
-        let shape = *raw.shape.get_ref();
-        let name = shape.name();
         let gctx = format!("{ctx} geometry");
-        let (required, optional) = shape.keys();
+        let keys_ok = self.shape_keys(raw, &gctx);
+        let m = Length::metres;
+        // A dimension out of range ends the shape at its `?`, said already.
+        let result = match *raw.shape.get_ref() {
+            RawShape::VerticalCylinder => {
+                let d = self.dimension(&raw.diameter_m, &gctx, "diameter_m", VERTICAL_DIAMETER_M);
+                let h = self.dimension(&raw.height_m, &gctx, "height_m", TANK_HEIGHT_M);
+                Geometry::vertical_cylinder(m(d?), m(h?))
+            }
+            RawShape::HorizontalCylinder => {
+                let d = self.dimension(&raw.diameter_m, &gctx, "diameter_m", HORIZONTAL_DIAMETER_M);
+                let l = self.dimension(&raw.length_m, &gctx, "length_m", HORIZONTAL_LENGTH_M);
+                let depth = self.dimension(&raw.head_depth_m, &gctx, "head_depth_m", HEAD_DEPTH_M);
+                let (d, l) = (d?, l?);
+                let heads = self.heads(g, &gctx, d, depth)?;
+                Geometry::horizontal_cylinder(m(d), m(l), heads)
+            }
+            RawShape::Sphere => {
+                let d = self.dimension(&raw.diameter_m, &gctx, "diameter_m", SPHERE_DIAMETER_M);
+                Geometry::sphere(m(d?))
+            }
+            RawShape::Table => {
+                let points = self.table_points(raw.points.as_ref()?, &gctx)?;
+                let located = raw.points.as_ref().map_or(g.span(), Spanned::span);
+                return self.model(located, &gctx, Geometry::calibration_table(&points));
+            }
+        };
+        if !keys_ok {
+            return None;
+        }
+        self.model(g.span(), &gctx, result)
+    }
+
+    /// Whether the geometry has every key its shape needs and none that it
+    /// does not take.
+    fn shape_keys(&mut self, raw: &RawGeometry, gctx: &str) -> bool {
+        let name = raw.shape.get_ref().name();
+        let (required, optional) = raw.shape.get_ref().keys();
         let present: [(&str, Option<Range<usize>>); 6] = [
             ("diameter_m", raw.diameter_m.as_ref().map(Spanned::span)),
             ("height_m", raw.height_m.as_ref().map(Spanned::span)),
@@ -53,77 +88,70 @@ impl Checker {
                 _ => {}
             }
         }
+        ok
+    }
+
+    /// A dimension in metres within its plausible `(lo, hi)`, if the key is
+    /// there (a missing one is the shape's to say).
+    fn dimension(
+        &mut self,
+        value: &Option<Spanned<f64>>,
+        gctx: &str,
+        what: &str,
+        (lo, hi): (f64, f64),
+    ) -> Option<f64> {
+        let v = value.as_ref()?;
+        let x = *v.get_ref();
+        if x.is_finite() && (lo..=hi).contains(&x) {
+            Some(x)
+        } else {
+            self.problem(
+                v.span(),
+                format!(
+                    "{gctx}: {what} = {} m is outside the plausible {lo} to {hi} m; give it in metres (a {what} in mm would be 1000 times too large)",
+                    shown(x)
+                ),
+            );
+            None
+        }
+    }
+
+    /// A horizontal cylinder's heads: flat unless said, hemispherical (half
+    /// the diameter deep), or ellipsoidal with `head_depth_m`, which no
+    /// other heads take. `depth` is `head_depth_m` if it is plausible.
+    fn heads(
+        &mut self,
+        g: &Spanned<RawGeometry>,
+        gctx: &str,
+        diameter: f64,
+        depth: Option<f64>,
+    ) -> Option<Heads> {
+        let raw = g.get_ref();
         let m = Length::metres;
-        let mut dimension = |value: &Option<Spanned<f64>>, what: &str, (lo, hi): (f64, f64)| {
-            let v = value.as_ref()?;
-            let x = *v.get_ref();
-            if x.is_finite() && (lo..=hi).contains(&x) {
-                Some(x)
-            } else {
+        let heads = raw.heads.as_ref().map_or(RawHeads::Flat, |h| *h.get_ref());
+        match (heads, depth, &raw.head_depth_m) {
+            (_, None, Some(_)) => None, // said by dimension
+            (RawHeads::Flat, None, None) => Some(Heads::Flat),
+            (RawHeads::Hemispherical, None, None) => Some(Heads::Ellipsoidal {
+                depth: m(diameter / 2.0),
+            }),
+            (RawHeads::Ellipsoidal, Some(depth), _) => Some(Heads::Ellipsoidal { depth: m(depth) }),
+            (RawHeads::Ellipsoidal, None, None) => {
                 self.problem(
-                    v.span(),
-                    format!(
-                        "{gctx}: {what} = {} m is outside the plausible {lo} to {hi} m; give it in metres (a {what} in mm would be 1000 times too large)",
-                        shown(x)
-                    ),
+                    raw.heads.as_ref().map_or(g.span(), Spanned::span),
+                    format!("{gctx}: ellipsoidal heads need head_depth_m (a quarter of the diameter for 2:1 heads)"),
                 );
-                ok = false;
                 None
             }
-        };
-        let result = match shape {
-            RawShape::VerticalCylinder => {
-                let d = dimension(&raw.diameter_m, "diameter_m", VERTICAL_DIAMETER_M);
-                let h = dimension(&raw.height_m, "height_m", TANK_HEIGHT_M);
-                Geometry::vertical_cylinder(m(d?), m(h?))
+            (_, Some(_), Some(span)) => {
+                self.problem(
+                    span.span(),
+                    format!("{gctx}: head_depth_m applies only to heads = \"ellipsoidal\"; remove it or change the heads"),
+                );
+                None
             }
-            RawShape::HorizontalCylinder => {
-                let d = dimension(&raw.diameter_m, "diameter_m", HORIZONTAL_DIAMETER_M);
-                let l = dimension(&raw.length_m, "length_m", HORIZONTAL_LENGTH_M);
-                let depth = dimension(&raw.head_depth_m, "head_depth_m", HEAD_DEPTH_M);
-                let heads = raw.heads.as_ref().map_or(RawHeads::Flat, |h| *h.get_ref());
-                let (d, l) = (d?, l?);
-                let heads = match (heads, depth, &raw.head_depth_m) {
-                    (_, None, Some(_)) => return None, // said above
-                    (RawHeads::Flat, None, None) => Heads::Flat,
-                    (RawHeads::Hemispherical, None, None) => {
-                        Heads::Ellipsoidal { depth: m(d / 2.0) }
-                    }
-                    (RawHeads::Ellipsoidal, Some(depth), _) => {
-                        Heads::Ellipsoidal { depth: m(depth) }
-                    }
-                    (RawHeads::Ellipsoidal, None, None) => {
-                        self.problem(
-                            raw.heads.as_ref().map_or(g.span(), Spanned::span),
-                            format!("{gctx}: ellipsoidal heads need head_depth_m (a quarter of the diameter for 2:1 heads)"),
-                        );
-                        return None;
-                    }
-                    (_, Some(_), Some(span)) => {
-                        self.problem(
-                            span.span(),
-                            format!("{gctx}: head_depth_m applies only to heads = \"ellipsoidal\"; remove it or change the heads"),
-                        );
-                        return None;
-                    }
-                    (_, Some(_), None) => return None, // cannot happen: a depth has its key
-                };
-                Geometry::horizontal_cylinder(m(d), m(l), heads)
-            }
-            RawShape::Sphere => {
-                let d = dimension(&raw.diameter_m, "diameter_m", SPHERE_DIAMETER_M);
-                Geometry::sphere(m(d?))
-            }
-            RawShape::Table => {
-                let points = self.table_points(raw.points.as_ref()?, &gctx)?;
-                let located = raw.points.as_ref().map_or(g.span(), Spanned::span);
-                return self.model(located, &gctx, Geometry::calibration_table(&points));
-            }
-        };
-        if !ok {
-            return None;
+            (_, Some(_), None) => None, // cannot happen: a depth has its key
         }
-        self.model(g.span(), &gctx, result)
     }
 
     /// A strapping table's points: each exactly [level_m, volume_m3], both
