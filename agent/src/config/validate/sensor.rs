@@ -30,92 +30,11 @@ impl Checker {
         density: Density,
     ) -> Option<Sensor> {
         let data_type = *s.data_type.get_ref();
-        let word_order = match (&s.word_order, data_type.width()) {
-            (Some(order), 1) => {
-                self.problem(
-                    order.span(),
-                    format!(
-                        "{ctx}: word_order applies only to 32-bit types (u32, i32, f32); remove it"
-                    ),
-                );
-                WordOrder::default()
-            }
-            (Some(order), _) => *order.get_ref(),
-            (None, _) => WordOrder::default(),
-        };
-        let unit = match Unit::parse(s.unit.get_ref()) {
-            Some(u) if u.quantity() == quantity => Some(u),
-            Some(_) | None => {
-                self.problem(
-                    s.unit.span(),
-                    format!(
-                        "{ctx}: unit \"{}\" is not a {} unit; use one of: {}",
-                        s.unit.get_ref(),
-                        quantity.name(),
-                        Unit::names(quantity).join(", ")
-                    ),
-                );
-                None
-            }
-        };
-        let stuck_after = match &s.stuck_after_s {
-            Some(secs) if (f64::MIN_POSITIVE..=MAX_STUCK_AFTER_S).contains(secs.get_ref()) => {
-                Some(Duration::from_secs_f64(*secs.get_ref()))
-            }
-            Some(secs) => {
-                self.problem(
-                    secs.span(),
-                    format!(
-                        "{ctx}: stuck_after_s = {} must be a positive number of seconds, at most {MAX_STUCK_AFTER_S} (a week)",
-                        shown(*secs.get_ref())
-                    ),
-                );
-                None
-            }
-            None => None,
-        };
-        let (e0, e1) = self.pair(&s.range, ctx, "range", "low then high")?;
-        if !(e0.is_finite() && e1.is_finite() && e1 > e0) {
-            self.problem(
-                s.range.span(),
-                format!(
-                    "{ctx}: range = [{}, {}] must be two finite numbers, low then high",
-                    shown(e0),
-                    shown(e1)
-                ),
-            );
-        }
-        let raw_span = match &s.raw {
-            Some(raw) => {
-                let (r0, r1) = self.pair(
-                    raw,
-                    ctx,
-                    "raw",
-                    "the raw values at the low and high ends of range",
-                )?;
-                if !(r0.is_finite() && r1.is_finite() && r0 != r1) {
-                    self.problem(
-                        raw.span(),
-                        format!(
-                            "{ctx}: raw = [{}, {}] must be two different finite numbers",
-                            shown(r0),
-                            shown(r1)
-                        ),
-                    );
-                } else {
-                    self.raw_fits(raw.span(), ctx, data_type, (r0, r1), "raw");
-                }
-                (r0, r1)
-            }
-            // Unscaled: the register holds the engineering value itself, so
-            // the range is what the register must be able to hold.
-            None => {
-                if e0.is_finite() && e1.is_finite() {
-                    self.raw_fits(s.range.span(), ctx, data_type, (e0, e1), "range");
-                }
-                (e0, e1)
-            }
-        };
+        let word_order = self.word_order(s, ctx, data_type);
+        let unit = self.unit(s, ctx, quantity);
+        let stuck_after = self.stuck_after(s, ctx);
+        let (e0, e1) = self.engineering_range(s, ctx)?;
+        let raw_span = self.raw_span(s, ctx, data_type, (e0, e1))?;
         let unit = unit?;
         let si_per_unit = unit.si_factor(density);
         let si_offset = unit.si_offset();
@@ -135,6 +54,124 @@ impl Checker {
             stuck_after,
             accuracy,
         })
+    }
+
+    /// `word_order`, which only a 32-bit type takes: high word first unless
+    /// said.
+    fn word_order(&mut self, s: &RawSensor, ctx: &str, data_type: DataType) -> WordOrder {
+        match (&s.word_order, data_type.width()) {
+            (Some(order), 1) => {
+                self.problem(
+                    order.span(),
+                    format!(
+                        "{ctx}: word_order applies only to 32-bit types (u32, i32, f32); remove it"
+                    ),
+                );
+                WordOrder::default()
+            }
+            (Some(order), _) => *order.get_ref(),
+            (None, _) => WordOrder::default(),
+        }
+    }
+
+    /// The engineering unit, which must measure the sensor's quantity.
+    fn unit(&mut self, s: &RawSensor, ctx: &str, quantity: Quantity) -> Option<Unit> {
+        match Unit::parse(s.unit.get_ref()) {
+            Some(u) if u.quantity() == quantity => Some(u),
+            Some(_) | None => {
+                self.problem(
+                    s.unit.span(),
+                    format!(
+                        "{ctx}: unit \"{}\" is not a {} unit; use one of: {}",
+                        s.unit.get_ref(),
+                        quantity.name(),
+                        Unit::names(quantity).join(", ")
+                    ),
+                );
+                None
+            }
+        }
+    }
+
+    /// `stuck_after_s`: positive, and at most a week.
+    fn stuck_after(&mut self, s: &RawSensor, ctx: &str) -> Option<Duration> {
+        match &s.stuck_after_s {
+            Some(secs) if (f64::MIN_POSITIVE..=MAX_STUCK_AFTER_S).contains(secs.get_ref()) => {
+                Some(Duration::from_secs_f64(*secs.get_ref()))
+            }
+            Some(secs) => {
+                self.problem(
+                    secs.span(),
+                    format!(
+                        "{ctx}: stuck_after_s = {} must be a positive number of seconds, at most {MAX_STUCK_AFTER_S} (a week)",
+                        shown(*secs.get_ref())
+                    ),
+                );
+                None
+            }
+            None => None,
+        }
+    }
+
+    /// `range`, in the engineering unit: two numbers, low then high (a
+    /// range that is not, once said, is still returned for the checks
+    /// that follow).
+    fn engineering_range(&mut self, s: &RawSensor, ctx: &str) -> Option<(f64, f64)> {
+        let (e0, e1) = self.pair(&s.range, ctx, "range", "low then high")?;
+        if !(e0.is_finite() && e1.is_finite() && e1 > e0) {
+            self.problem(
+                s.range.span(),
+                format!(
+                    "{ctx}: range = [{}, {}] must be two finite numbers, low then high",
+                    shown(e0),
+                    shown(e1)
+                ),
+            );
+        }
+        Some((e0, e1))
+    }
+
+    /// The raw register values at the ends of the range: `raw`, two
+    /// different numbers, or the range itself when the register holds the
+    /// engineering value; either way, values the register type can hold.
+    fn raw_span(
+        &mut self,
+        s: &RawSensor,
+        ctx: &str,
+        data_type: DataType,
+        (e0, e1): (f64, f64),
+    ) -> Option<(f64, f64)> {
+        match &s.raw {
+            Some(raw) => {
+                let (r0, r1) = self.pair(
+                    raw,
+                    ctx,
+                    "raw",
+                    "the raw values at the low and high ends of range",
+                )?;
+                if !(r0.is_finite() && r1.is_finite() && r0 != r1) {
+                    self.problem(
+                        raw.span(),
+                        format!(
+                            "{ctx}: raw = [{}, {}] must be two different finite numbers",
+                            shown(r0),
+                            shown(r1)
+                        ),
+                    );
+                } else {
+                    self.raw_fits(raw.span(), ctx, data_type, (r0, r1), "raw");
+                }
+                Some((r0, r1))
+            }
+            // Unscaled: the register holds the engineering value itself, so
+            // the range is what the register must be able to hold.
+            None => {
+                if e0.is_finite() && e1.is_finite() {
+                    self.raw_fits(s.range.span(), ctx, data_type, (e0, e1), "range");
+                }
+                Some((e0, e1))
+            }
+        }
     }
 
     /// A two-number array such as `range` or `raw`: exactly two, since a
@@ -214,7 +251,21 @@ impl Checker {
         height: Option<f64>,
     ) -> Option<PressureSensor> {
         let pctx = format!("{ctx} pressure");
-        let absolute = match &s.reference {
+        let absolute = self.pressure_reference(s, &pctx);
+        let tap = self.pressure_tap(s, &pctx, height);
+        let sensor = self.sensor(s, &pctx, Quantity::Pressure, density)?;
+        self.pressure_range(s, &sensor, &pctx, absolute);
+        Some(PressureSensor {
+            sensor,
+            absolute,
+            tap,
+        })
+    }
+
+    /// `reference`, which a pressure transmitter must give: whether it
+    /// reads absolute (true) or gauge.
+    fn pressure_reference(&mut self, s: &RawSensor, pctx: &str) -> bool {
+        match &s.reference {
             Some(r) => *r.get_ref() == RawPressureReference::Absolute,
             None => {
                 self.problem(
@@ -223,26 +274,33 @@ impl Checker {
                 );
                 false
             }
+        }
+    }
+
+    /// Where the transmitter is: in the headspace unless `tap_elevation_m`
+    /// puts it below the liquid, somewhere on the tank.
+    fn pressure_tap(&mut self, s: &RawSensor, pctx: &str, height: Option<f64>) -> PressureTap {
+        let Some(z) = &s.tap_elevation_m else {
+            return PressureTap::Headspace;
         };
-        let tap = match &s.tap_elevation_m {
-            None => PressureTap::Headspace,
-            Some(z) => {
-                let zv = *z.get_ref();
-                if !zv.is_finite() || zv < 0.0 || height.is_some_and(|h| zv > h) {
-                    self.problem(
-                        z.span(),
-                        format!(
-                            "{pctx}: tap_elevation_m = {zv} is not on the tank; give the tap's height above the tank bottom (0 to {} m), or leave it out for a headspace transmitter",
-                            height.unwrap_or(f64::NAN)
-                        ),
-                    );
-                }
-                PressureTap::Submerged {
-                    elevation: Length::metres(zv),
-                }
-            }
-        };
-        let sensor = self.sensor(s, &pctx, Quantity::Pressure, density)?;
+        let zv = *z.get_ref();
+        if !zv.is_finite() || zv < 0.0 || height.is_some_and(|h| zv > h) {
+            self.problem(
+                z.span(),
+                format!(
+                    "{pctx}: tap_elevation_m = {zv} is not on the tank; give the tap's height above the tank bottom (0 to {} m), or leave it out for a headspace transmitter",
+                    height.unwrap_or(f64::NAN)
+                ),
+            );
+        }
+        PressureTap::Submerged {
+            elevation: Length::metres(zv),
+        }
+    }
+
+    /// A range a tank can have: within 1000 bar, from a full vacuum up for
+    /// an absolute transmitter, and not below a full vacuum for a gauge one.
+    fn pressure_range(&mut self, s: &RawSensor, sensor: &Sensor, pctx: &str, absolute: bool) {
         let (lo, hi) = sensor.valid_si;
         let kpa = |pa: f64| shown(pa / 1000.0);
         if lo.abs().max(hi.abs()) > MAX_PRESSURE_PA {
@@ -271,11 +329,6 @@ impl Checker {
                 ),
             );
         }
-        Some(PressureSensor {
-            sensor,
-            absolute,
-            tap,
-        })
     }
 
     /// The sensor's accuracy: its own key (one per kind of sensor, in the
@@ -351,31 +404,35 @@ impl Checker {
         if !ok {
             return None;
         }
-        Some(
-            found.unwrap_or(match quantity {
-                Quantity::Length => Uncertainty {
-                    bound: (DEFAULT_LEVEL_ACCURACY_FRACTION_OF_SPAN * span_si)
-                        .max(DEFAULT_LEVEL_ACCURACY_MIN_M),
-                    relative: false,
-                    stated: false,
-                },
-                Quantity::Pressure => Uncertainty {
-                    bound: (DEFAULT_PRESSURE_ACCURACY_FRACTION_OF_SPAN * span_si)
-                        .max(DEFAULT_PRESSURE_ACCURACY_MIN_PA),
-                    relative: false,
-                    stated: false,
-                },
-                Quantity::Flow => Uncertainty {
-                    bound: DEFAULT_TRANSFER_ACCURACY,
-                    relative: true,
-                    stated: false,
-                },
-                Quantity::Temperature => Uncertainty {
-                    bound: DEFAULT_TEMPERATURE_ACCURACY_K,
-                    relative: false,
-                    stated: false,
-                },
-            }),
-        )
+        Some(found.unwrap_or_else(|| default_accuracy(quantity, span_si)))
+    }
+}
+
+/// The accuracy a sensor of `quantity` is taken to have when the config
+/// states none, for a range `span_si` wide.
+fn default_accuracy(quantity: Quantity, span_si: f64) -> Uncertainty {
+    match quantity {
+        Quantity::Length => Uncertainty {
+            bound: (DEFAULT_LEVEL_ACCURACY_FRACTION_OF_SPAN * span_si)
+                .max(DEFAULT_LEVEL_ACCURACY_MIN_M),
+            relative: false,
+            stated: false,
+        },
+        Quantity::Pressure => Uncertainty {
+            bound: (DEFAULT_PRESSURE_ACCURACY_FRACTION_OF_SPAN * span_si)
+                .max(DEFAULT_PRESSURE_ACCURACY_MIN_PA),
+            relative: false,
+            stated: false,
+        },
+        Quantity::Flow => Uncertainty {
+            bound: DEFAULT_TRANSFER_ACCURACY,
+            relative: true,
+            stated: false,
+        },
+        Quantity::Temperature => Uncertainty {
+            bound: DEFAULT_TEMPERATURE_ACCURACY_K,
+            relative: false,
+            stated: false,
+        },
     }
 }
