@@ -1,15 +1,27 @@
-//! The site config: devices to poll, tanks and their sensors' registers.
+//! The site config: the devices to poll, the tanks with their contents,
+//! and where each sensor's value sits in which registers, read from a TOML
+//! file and validated into SI values.
 //!
 //! Two layers, as ripgrep splits its arguments: `raw` mirrors the TOML and
-//! only knows types; [`validate`] turns it into a [`Config`] whose values
-//! are in SI units, in range, and consistent with each other (unique ids,
-//! known devices, no two values sharing a register). Every problem names
+//! only knows types; `validate` turns it into a [`Config`] whose values are
+//! in SI units, in range, and consistent with each other (unique ids, known
+//! devices, no two values sharing a register). Every problem names
 //! file:line:column, says what is wrong and how to fix it, and all problems
 //! are reported at once so a config can be fixed in one pass.
 //!
-//! Left out: anything that needs the network (`leaktally check` probes the
-//! devices separately; the daemon binds the web page's address when it
-//! starts) and the defaults of the store.
+//! *Invariant:* no network, and no global. Reading a config never touches
+//! the network (`leaktally check` probes the devices separately; the daemon
+//! binds the web page's address when it starts), and a [`Config`] is passed
+//! explicitly to whatever needs it, never kept in a global.
+//!
+//! The files: `types` (the validated types), `validate` (the checks, split
+//! into the site's, a tank's, its geometry's and a sensor's), `problems`
+//! (what is wrong and where, and how it is rendered), `register_map` (which
+//! registers each value occupies, and overlaps), `raw` and `units`. This
+//! file holds only [`load`], [`parse`] and the re-exports, so code outside
+//! names everything as `config::X`, whichever file holds it.
+//!
+//! Left out: the defaults of the store.
 
 mod problems;
 mod raw;
