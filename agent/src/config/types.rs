@@ -84,7 +84,7 @@ impl HostName {
 
 impl Web {
     /// Whether other machines can reach the page (anything but loopback;
-    /// 0.0.0.0 and [::] listen on every interface).
+    /// `0.0.0.0` and `[::]` listen on every interface).
     pub fn is_remote(&self) -> bool {
         !self.listen.ip().is_loopback()
     }
