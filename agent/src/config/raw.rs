@@ -3,7 +3,7 @@
 //! Unknown keys are errors (`deny_unknown_fields`), so a typo never passes
 //! silently. Values that need a check beyond their type are `Spanned`, so
 //! that the check in `config::validate` can point at the line and column.
-//! Nothing here interprets a value; see the parent module for that.
+//! Nothing here interprets a value: that is `validate`'s job.
 
 use crate::registers::{BitKind, DataType, RegisterKind, WordOrder};
 use serde::Deserialize;

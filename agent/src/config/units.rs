@@ -4,6 +4,9 @@
 //! the avoirdupois pound, standard gravity, the US gallon of 231 in³ and the
 //! 42-gallon oil barrel). Mass flows become volume flows at the tank's
 //! liquid density, because the inventory balance works in volume.
+//!
+//! Left out: whether a unit suits the sensor it is given for (`validate`
+//! checks that), and scaling raw register values (`types::Sensor`).
 
 use crate::model::Density;
 
