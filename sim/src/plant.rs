@@ -85,21 +85,27 @@ impl Plant {
             .tanks
             .iter()
             .zip(&scenario.tanks)
-            .map(|(site, setup)| PlantTank {
-                physics: physics::Tank::new(
+            .map(|(site, setup)| {
+                let held = physics::Tank::new(
                     site.vessel.geometry().clone(),
                     site.vessel.density().si(),
                     setup.initial_level_m,
                     setup.headspace_pa,
-                ),
-                level_noise_m: setup.level_noise_m,
-                pressure_noise_pa: setup.pressure_noise_pa,
-                level_bias_m: setup.level_bias_m,
-                level_drift_m_per_h: setup.level_drift_m_per_h,
-                pressure_bias_pa: setup.pressure_bias_pa,
-                temperature_k: setup.temperature_k,
-                faults: [Fault::None; 4],
-                flag: false,
+                );
+                PlantTank {
+                    physics: match setup.ullage {
+                        Some(spec) => held.with_gas_ullage(spec),
+                        None => held,
+                    },
+                    level_noise_m: setup.level_noise_m,
+                    pressure_noise_pa: setup.pressure_noise_pa,
+                    level_bias_m: setup.level_bias_m,
+                    level_drift_m_per_h: setup.level_drift_m_per_h,
+                    pressure_bias_pa: setup.pressure_bias_pa,
+                    temperature_k: setup.temperature_k,
+                    faults: [Fault::None; 4],
+                    flag: false,
+                }
             })
             .collect();
         let step_ms = scenario.step_ms.max(1);
