@@ -242,6 +242,15 @@ pub enum Thermal {
     Adiabatic,
 }
 
+impl Thermal {
+    pub fn name(self) -> &'static str {
+        match self {
+            Thermal::Isothermal => "isothermal",
+            Thermal::Adiabatic => "adiabatic",
+        }
+    }
+}
+
 /// A gas space above the liquid, as a scenario asks for one.
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct UllageSpec {

@@ -704,6 +704,47 @@ height_m = 2.2
         assert!((kpa - 15.0).abs() < 1e-6);
     }
 
+    /// The shipped vapour scenario: FF-T14's nitrogen vents through a hole
+    /// above the liquid faster than its blanket can feed, and the pressure
+    /// settles where the outflow equals the supply.
+    #[test]
+    fn the_vapour_scenario_vents_until_the_outflow_meets_the_blanket() {
+        let path = Path::new(env!("CARGO_MANIFEST_DIR")).join("scenarios/vapour.toml");
+        let s = scenario::load(&path).unwrap_or_else(|e| panic!("{e}"));
+        let supply = s.tanks[1].ullage.expect("a gas space").blanket_max_kg_s;
+        let mut plant = Plant::new(&s);
+        let (mut rows, mut applied) = (Vec::new(), Vec::new());
+        plant.advance_to(100_000, &mut rows, &mut applied);
+        let t14: Vec<&TruthRow> = rows.iter().filter(|r| r.tank == 1).collect();
+        let opened = t14.iter().find(|r| r.phase == Phase::Gas).unwrap();
+        assert!(
+            opened.gas_rate_kg_s > 0.05 && opened.gas_rate_kg_s < 0.06,
+            "{opened:?}"
+        );
+        let last = t14.last().unwrap();
+        assert!(
+            (last.gas_rate_kg_s - supply).abs() < 1e-3 * supply,
+            "{} vs {supply}",
+            last.gas_rate_kg_s
+        );
+        assert!(
+            last.headspace_pa > 100.0 && last.headspace_pa < 300.0,
+            "{last:?}"
+        );
+        assert_eq!((last.level_m, last.released_kg), (1.6, 0.0));
+        let tank = plant.tank(1).unwrap();
+        assert!(
+            tank.gas_released_kg() > tank.gas_supplied_kg(),
+            "the ullage lost gas"
+        );
+
+        assert!(
+            rows.iter()
+                .filter(|r| r.tank != 1)
+                .all(|r| r.phase == Phase::None)
+        );
+    }
+
     #[test]
     fn noise_repeats_with_the_seed_and_the_step() {
         let mut s = scenario_with("");
