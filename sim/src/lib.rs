@@ -8,7 +8,8 @@
 //! Layout:
 //!
 //! * [`scenario`]: the scenario file and its validation.
-//! * [`physics`]: one tank's level and released mass, by RK4. Pure.
+//! * [`physics`]: one tank's level, released mass and, optionally, the gas
+//!   in its ullage, by RK4. Pure.
 //! * [`plant`]: all tanks, the event script and the sensor readings, on a
 //!   clock of physics steps. Pure.
 //! * [`noise`]: deterministic gaussian noise.
@@ -160,6 +161,22 @@ impl Simulator {
             site.devices.len(),
             plant.step_ms()
         );
+        for (tank, setup) in site.tanks.iter().zip(&self.scenario.tanks) {
+            if let Some(u) = &setup.ullage {
+                tracing::info!(
+                    "{}: gas space of {} g/mol vapour at {:.1} °C, {}, {}",
+                    tank.id,
+                    u.gas.molar_mass_kg_mol * 1000.0,
+                    u.gas.temperature_k - 273.15,
+                    u.thermal.name(),
+                    if u.blanket_max_kg_s > 0.0 {
+                        format!("blanket up to {} kg/s", u.blanket_max_kg_s)
+                    } else {
+                        "no blanket".to_owned()
+                    }
+                );
+            }
+        }
         // The first wake-up happens before the first request can arrive, so
         // no client sees the empty image or misses an event due at zero.
         let mut driver = Driver::new(plant, shared, truth);

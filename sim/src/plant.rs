@@ -12,7 +12,7 @@
 //! `lib.rs` does those), and the physics itself (`physics`).
 
 use crate::noise::Noise;
-use crate::physics::{self, Hole};
+use crate::physics::{self, Hole, Phase};
 use crate::registers::{self, RegisterImage};
 use crate::scenario::{Event, EventKind, Fault, Refusal, Scenario, SensorRole};
 use leaktally::config::{Config, Tank as SiteTank};
@@ -34,6 +34,12 @@ pub struct TruthRow {
     pub released_kg: f64,
     pub transfer_m3_s: f64,
     pub leak_open: bool,
+    /// Gas released through the hole so far, kg (zero in a held headspace).
+    pub gas_released_kg: f64,
+    /// The gas's mass flow through the hole now, kg/s.
+    pub gas_rate_kg_s: f64,
+    /// What the hole is open to: liquid, gas, or none (no hole).
+    pub phase: Phase,
 }
 
 /// An event as it was applied, for the log.
@@ -85,21 +91,27 @@ impl Plant {
             .tanks
             .iter()
             .zip(&scenario.tanks)
-            .map(|(site, setup)| PlantTank {
-                physics: physics::Tank::new(
+            .map(|(site, setup)| {
+                let held = physics::Tank::new(
                     site.vessel.geometry().clone(),
                     site.vessel.density().si(),
                     setup.initial_level_m,
                     setup.headspace_pa,
-                ),
-                level_noise_m: setup.level_noise_m,
-                pressure_noise_pa: setup.pressure_noise_pa,
-                level_bias_m: setup.level_bias_m,
-                level_drift_m_per_h: setup.level_drift_m_per_h,
-                pressure_bias_pa: setup.pressure_bias_pa,
-                temperature_k: setup.temperature_k,
-                faults: [Fault::None; 4],
-                flag: false,
+                );
+                PlantTank {
+                    physics: match setup.ullage {
+                        Some(spec) => held.with_gas_ullage(spec),
+                        None => held,
+                    },
+                    level_noise_m: setup.level_noise_m,
+                    pressure_noise_pa: setup.pressure_noise_pa,
+                    level_bias_m: setup.level_bias_m,
+                    level_drift_m_per_h: setup.level_drift_m_per_h,
+                    pressure_bias_pa: setup.pressure_bias_pa,
+                    temperature_k: setup.temperature_k,
+                    faults: [Fault::None; 4],
+                    flag: false,
+                }
             })
             .collect();
         let step_ms = scenario.step_ms.max(1);
@@ -198,6 +210,9 @@ impl Plant {
                     released_kg: p.released_kg(),
                     transfer_m3_s: p.transfer_m3_s(),
                     leak_open: p.hole().is_some(),
+                    gas_released_kg: p.gas_released_kg(),
+                    gas_rate_kg_s: p.gas_rate(),
+                    phase: p.phase(),
                 });
             }
             self.next_row = self.steps + TRUTH_PERIOD_MS / self.step_ms;
@@ -609,6 +624,125 @@ reply_delay_ms = 1500
         plant.advance_to(100, &mut rows, &mut applied);
         assert_eq!(level_counts(&plant), 17_440);
         assert_eq!(plant.reply_delays(), [Duration::ZERO; 2]);
+    }
+
+    /// FF-T14 (1.6 m of methanol in a 2.5 m horizontal cylinder, nitrogen at
+    /// 15 kPa) with a 25 mm hole at 2.2 m, above the surface: with a gas
+    /// space it vents, the pressure falls and the transmitter shows it; held,
+    /// as by default, nothing leaves.
+    #[test]
+    fn a_hole_above_the_surface_of_a_gas_space_releases_gas() {
+        let run = |ullage: &str| {
+            let text = format!(
+                r#"
+site = "../../config/demo.toml"
+[[tank]]
+id = "FF-T12"
+initial_level_m = 4.2
+[[tank]]
+id = "FF-T14"
+initial_level_m = 1.6
+headspace_kpa = 15.0
+{ullage}
+[[tank]]
+id = "FF-T20"
+initial_level_m = 5.1
+[[event]]
+at_s = 0.5
+action = "leak_opens"
+tank = "FF-T14"
+diameter_mm = 25
+height_m = 2.2
+"#
+            );
+            let path = Path::new(env!("CARGO_MANIFEST_DIR")).join("scenarios/test.toml");
+            let mut plant =
+                Plant::new(&scenario::parse(&text, &path).unwrap_or_else(|e| panic!("{e}")));
+            let (mut rows, mut applied) = (Vec::new(), Vec::new());
+            plant.advance_to(3000, &mut rows, &mut applied);
+            let words = registers(&plant, 0, RegisterKind::Holding, 12, 2);
+            let kpa = f64::from(f32::from_bits(
+                u32::from(words[1]) << 16 | u32::from(words[0]),
+            ));
+            let t14: Vec<TruthRow> = rows.into_iter().filter(|r| r.tank == 1).collect();
+            (t14, kpa, plant.tank(1).unwrap().ullage_m3())
+        };
+
+        let (rows, kpa, ullage) = run("ullage = \"gas\"");
+        assert_eq!(rows.len(), 301);
+        assert_eq!((rows[4].phase, rows[5].phase), (Phase::None, Phase::Gas));
+        let last = rows.last().unwrap();
+        assert!(
+            last.gas_released_kg > 0.1 && last.gas_rate_kg_s > 0.0,
+            "{last:?}"
+        );
+        assert!(
+            rows.windows(2)
+                .all(|w| w[1].gas_released_kg >= w[0].gas_released_kg)
+        );
+        assert!(last.headspace_pa < 14_000.0, "{}", last.headspace_pa);
+        assert!((kpa - last.headspace_pa / 1000.0).abs() < 1e-3, "{kpa}");
+        assert_eq!(
+            (last.released_kg, last.rate_kg_s, last.level_m),
+            (0.0, 0.0, 1.6)
+        );
+        // The gas that left is what the ullage lost by the gas law, at the
+        // site's 28.01 g/mol and 15 °C (no blanket, isothermal).
+        let lost = (rows[0].headspace_pa - last.headspace_pa) * ullage * 0.028_01
+            / (physics::GAS_CONSTANT * 288.15);
+        assert!(
+            (last.gas_released_kg - lost).abs() < 1e-9 * lost,
+            "{} vs {lost}",
+            last.gas_released_kg
+        );
+
+        let (rows, kpa, _) = run("");
+        let last = rows.last().unwrap();
+        assert_eq!(last.phase, Phase::Gas);
+        assert_eq!((last.gas_released_kg, last.gas_rate_kg_s), (0.0, 0.0));
+        assert_eq!(last.headspace_pa, 15_000.0);
+        assert!((kpa - 15.0).abs() < 1e-6);
+    }
+
+    /// The shipped vapour scenario: FF-T14's nitrogen vents through a hole
+    /// above the liquid faster than its blanket can feed, and the pressure
+    /// settles where the outflow equals the supply.
+    #[test]
+    fn the_vapour_scenario_vents_until_the_outflow_meets_the_blanket() {
+        let path = Path::new(env!("CARGO_MANIFEST_DIR")).join("scenarios/vapour.toml");
+        let s = scenario::load(&path).unwrap_or_else(|e| panic!("{e}"));
+        let supply = s.tanks[1].ullage.expect("a gas space").blanket_max_kg_s;
+        let mut plant = Plant::new(&s);
+        let (mut rows, mut applied) = (Vec::new(), Vec::new());
+        plant.advance_to(100_000, &mut rows, &mut applied);
+        let t14: Vec<&TruthRow> = rows.iter().filter(|r| r.tank == 1).collect();
+        let opened = t14.iter().find(|r| r.phase == Phase::Gas).unwrap();
+        assert!(
+            opened.gas_rate_kg_s > 0.05 && opened.gas_rate_kg_s < 0.06,
+            "{opened:?}"
+        );
+        let last = t14.last().unwrap();
+        assert!(
+            (last.gas_rate_kg_s - supply).abs() < 1e-3 * supply,
+            "{} vs {supply}",
+            last.gas_rate_kg_s
+        );
+        assert!(
+            last.headspace_pa > 100.0 && last.headspace_pa < 300.0,
+            "{last:?}"
+        );
+        assert_eq!((last.level_m, last.released_kg), (1.6, 0.0));
+        let tank = plant.tank(1).unwrap();
+        assert!(
+            tank.gas_released_kg() > tank.gas_supplied_kg(),
+            "the ullage lost gas"
+        );
+
+        assert!(
+            rows.iter()
+                .filter(|r| r.tank != 1)
+                .all(|r| r.phase == Phase::None)
+        );
     }
 
     #[test]

@@ -1,4 +1,5 @@
-//! The scenario file: which site to serve, how each tank starts, and the
+//! The scenario file: which site to serve, how each tank starts (with its
+//! headspace held, or a gas space with an optional blanket supply), and the
 //! scripted events (a leak opening, pump transfers, sensor faults, dropped
 //! links, devices that refuse reads or answer with the wrong number of
 //! values, the leak flag).
@@ -14,6 +15,7 @@
 //! beyond what validation needs (the tank height, for the hole and level
 //! checks).
 
+use crate::physics::{self, Gas, Thermal, UllageSpec};
 use leaktally::config::{self, Config, ConfigError, Problem, line_col};
 use leaktally::model::Length;
 use serde::Deserialize;
@@ -45,8 +47,13 @@ pub struct Scenario {
 #[derive(Debug, Clone, PartialEq)]
 pub struct TankSetup {
     pub initial_level_m: f64,
-    /// Headspace gauge pressure, Pa, held constant for the whole run.
+    /// Headspace gauge pressure, Pa: held constant for the whole run, or,
+    /// with a gas space, its starting pressure and the blanket's set point.
     pub headspace_pa: f64,
+    /// The gas space (`ullage = "gas"`): the site config's vapour, the
+    /// thermal option, the ambient pressure and the blanket's largest
+    /// supply. `None` for the held headspace, the default.
+    pub ullage: Option<UllageSpec>,
     /// Standard deviation of the noise on the level reading, m.
     pub level_noise_m: f64,
     /// Standard deviation of the noise on the pressure reading, Pa.
@@ -224,6 +231,9 @@ pub enum Fault {
 /// The default discharge coefficient: a sharp-edged hole (common practice).
 pub const DEFAULT_CD: f64 = 0.61;
 const DEFAULT_STEP_MS: i64 = 10;
+/// The largest blanket supply a scenario may give, kg/s (3 600 t/h, far
+/// past any blanketing regulator); a bigger figure is likely a unit slip.
+const MAX_BLANKET_KG_S: f64 = 1000.0;
 const DEFAULT_SEED: u64 = 1;
 
 /// A scenario that could not be read or is not valid.
@@ -299,6 +309,31 @@ mod raw {
         pub pressure_bias_pa: Option<Spanned<f64>>,
         /// The liquid's temperature, °C, held for the whole run.
         pub temperature_c: Option<Spanned<f64>>,
+        /// "held" (the default): the headspace pressure is held and no gas
+        /// is modelled; "gas": the ullage holds the site config's vapour,
+        /// which a hole above the surface lets out.
+        pub ullage: Option<Spanned<UllageKind>>,
+        /// With `ullage = "gas"`: "isothermal" (the default) or "adiabatic".
+        pub ullage_thermal: Option<Spanned<ThermalKind>>,
+        /// With `ullage = "gas"`: a blanket regulator holding the starting
+        /// pressure, feeding at most this much gas, kg/s or normal m³/h
+        /// (0 °C, 101.325 kPa); one of the two.
+        pub blanket_max_kg_s: Option<Spanned<f64>>,
+        pub blanket_max_nm3_h: Option<Spanned<f64>>,
+    }
+
+    #[derive(Debug, Clone, Copy, PartialEq, Eq, Deserialize)]
+    #[serde(rename_all = "snake_case")]
+    pub enum UllageKind {
+        Held,
+        Gas,
+    }
+
+    #[derive(Debug, Clone, Copy, PartialEq, Eq, Deserialize)]
+    #[serde(rename_all = "snake_case")]
+    pub enum ThermalKind {
+        Isothermal,
+        Adiabatic,
     }
 
     /// One `[[event]]`. Every action shares this flat type, and validation
@@ -391,7 +426,7 @@ mod raw {
     }
 }
 
-use raw::{Action, RawEvent, RawScenario, RawTank};
+use raw::{Action, RawEvent, RawScenario, RawTank, ThermalKind, UllageKind};
 
 /// Reads and validates a scenario file, and the site config it names.
 pub fn load(path: &Path) -> Result<Scenario, ScenarioError> {
@@ -659,9 +694,11 @@ impl Checker<'_> {
             Some(c) => *c.get_ref(),
             None => 15.0,
         };
+        let ullage = self.ullage(t, index, level, &mut ok);
         ok.then_some(TankSetup {
             initial_level_m: level,
             headspace_pa,
+            ullage,
             level_noise_m,
             pressure_noise_pa,
             level_bias_m,
@@ -669,6 +706,135 @@ impl Checker<'_> {
             pressure_bias_pa,
             temperature_k: temperature_c + 273.15,
         })
+    }
+
+    /// The gas space of `ullage = "gas"`, its thermal option and blanket,
+    /// checked against the site config's vapour; `None` for a held
+    /// headspace. Clears `ok` on a problem.
+    fn ullage(
+        &mut self,
+        t: &RawTank,
+        index: usize,
+        level: f64,
+        ok: &mut bool,
+    ) -> Option<UllageSpec> {
+        let tank = &self.site.tanks[index];
+        let ctx = format!("tank \"{}\"", tank.id);
+        let gas = matches!(
+            t.ullage.as_ref().map(|u| *u.get_ref()),
+            Some(UllageKind::Gas)
+        );
+        if !gas {
+            // The gas-space keys mean nothing for a held headspace.
+            let keys = [
+                (
+                    "ullage_thermal",
+                    t.ullage_thermal.as_ref().map(Spanned::span),
+                ),
+                (
+                    "blanket_max_kg_s",
+                    t.blanket_max_kg_s.as_ref().map(Spanned::span),
+                ),
+                (
+                    "blanket_max_nm3_h",
+                    t.blanket_max_nm3_h.as_ref().map(Spanned::span),
+                ),
+            ];
+            for (key, span) in keys {
+                if let Some(span) = span {
+                    self.problem(
+                        span,
+                        format!("{ctx}: {key} applies to a gas space only; add ullage = \"gas\" or remove it"),
+                    );
+                    *ok = false;
+                }
+            }
+            return None;
+        }
+        let span = t.ullage.as_ref().map_or(0..0, Spanned::span);
+        let Some(vapour) = tank.vessel.vapour() else {
+            self.problem(
+                span,
+                format!(
+                    "{ctx}: ullage = \"gas\" needs the gas's properties, and the site config gives no vapour for this tank; add vapour = {{ molar_mass_g_mol, heat_capacity_ratio, temperature_c }} to its substance, or leave the headspace held"
+                ),
+            );
+            *ok = false;
+            return None;
+        };
+        let top = tank.vessel.geometry().height().si();
+        if level >= top {
+            self.problem(
+                span,
+                format!("{ctx}: ullage = \"gas\" needs room for the gas, and initial_level_m = {level} fills the tank; start below {top} m"),
+            );
+            *ok = false;
+        }
+        let gas = Gas {
+            molar_mass_kg_mol: vapour.molar_mass().si(),
+            heat_capacity_ratio: vapour.heat_capacity_ratio(),
+            temperature_k: vapour.temperature().si(),
+        };
+        let thermal = match t.ullage_thermal.as_ref().map(|u| *u.get_ref()) {
+            None | Some(ThermalKind::Isothermal) => Thermal::Isothermal,
+            Some(ThermalKind::Adiabatic) => Thermal::Adiabatic,
+        };
+        // A normal m³ of the gas weighs p_n M / (R T_n).
+        let normal_density =
+            gas.density(physics::NORMAL_PRESSURE_PA, physics::NORMAL_TEMPERATURE_K);
+        let blanket = match (&t.blanket_max_kg_s, &t.blanket_max_nm3_h) {
+            (None, None) => 0.0,
+            (Some(_), Some(nm3)) => {
+                self.problem(
+                    nm3.span(),
+                    format!("{ctx}: give the blanket's supply once, as blanket_max_kg_s or blanket_max_nm3_h"),
+                );
+                *ok = false;
+                0.0
+            }
+            (Some(v), None) => self.blanket(v, 1.0, "blanket_max_kg_s", "kg/s", &ctx, ok),
+            (None, Some(v)) => self.blanket(
+                v,
+                normal_density / 3600.0,
+                "blanket_max_nm3_h",
+                "Nm³/h",
+                &ctx,
+                ok,
+            ),
+        };
+        Some(UllageSpec {
+            gas,
+            thermal,
+            ambient_pa: self.site.ambient.si(),
+            blanket_max_kg_s: blanket,
+        })
+    }
+
+    /// A blanket's largest supply in kg/s, from `value` times `to_kg_s`.
+    fn blanket(
+        &mut self,
+        value: &Spanned<f64>,
+        to_kg_s: f64,
+        key: &str,
+        unit: &str,
+        ctx: &str,
+        ok: &mut bool,
+    ) -> f64 {
+        let v = *value.get_ref();
+        let kg_s = v * to_kg_s;
+        if v.is_finite() && v >= 0.0 && kg_s <= MAX_BLANKET_KG_S {
+            kg_s
+        } else {
+            self.problem(
+                value.span(),
+                format!(
+                    "{ctx}: {key} = {v} must be the regulator's largest supply in {unit}, 0 (none) up to {:.0} {unit}",
+                    MAX_BLANKET_KG_S / to_kg_s
+                ),
+            );
+            *ok = false;
+            0.0
+        }
     }
 
     fn event(&mut self, e: &RawEvent) -> Option<Event> {
@@ -1195,6 +1361,91 @@ cd = 1.2
             let msg = messages(&text);
             assert!(msg.contains(expected), "{msg}");
         }
+    }
+
+    #[test]
+    fn a_gas_space_loads_with_the_site_vapour_and_its_blanket() {
+        let text = TANKS.replace(
+            "headspace_kpa = 15.0\n",
+            "headspace_kpa = 15.0\nullage = \"gas\"\nullage_thermal = \"adiabatic\"\nblanket_max_nm3_h = 36.0\n",
+        );
+        let s = parse_here(&text).unwrap_or_else(|e| panic!("{e}"));
+        assert_eq!(s.tanks[0].ullage, None, "held by default");
+        let spec = s.tanks[1].ullage.expect("FF-T14 has a gas space");
+        // The site config's vapour: nitrogen, 28.01 g/mol, k 1.40, 15 °C.
+        assert_eq!(
+            spec.gas,
+            Gas {
+                molar_mass_kg_mol: 0.028_01,
+                heat_capacity_ratio: 1.4,
+                temperature_k: 288.15,
+            }
+        );
+        assert_eq!(
+            (spec.thermal, spec.ambient_pa),
+            (Thermal::Adiabatic, 101_325.0)
+        );
+        // 36 Nm³/h of nitrogen, at about 1.250 kg per normal m³: 12.5 g/s.
+        let rho_n = 101_325.0 * 0.028_01 / (physics::GAS_CONSTANT * 273.15);
+        assert!((spec.blanket_max_kg_s - 36.0 * rho_n / 3600.0).abs() < 1e-15);
+        assert!((spec.blanket_max_kg_s - 0.0125).abs() < 1e-5);
+        let text = TANKS.replace(
+            "headspace_kpa = 15.0\n",
+            "headspace_kpa = 15.0\nullage = \"gas\"\nblanket_max_kg_s = 0.02\n",
+        );
+        let spec = parse_here(&text).unwrap().tanks[1].ullage.unwrap();
+        assert_eq!(
+            (spec.thermal, spec.blanket_max_kg_s),
+            (Thermal::Isothermal, 0.02)
+        );
+    }
+
+    #[test]
+    fn gas_space_mistakes_are_said() {
+        let t12 = "initial_level_m = 4.2\n";
+        let t14 = "headspace_kpa = 15.0\n";
+        for (at, keys, expected) in [
+            (
+                t12,
+                "ullage = \"gas\"\n",
+                "test.toml:6:10: tank \"FF-T12\": ullage = \"gas\" needs the gas's properties, and the site config gives no vapour for this tank",
+            ),
+            (
+                t12,
+                "blanket_max_kg_s = 0.1\n",
+                "tank \"FF-T12\": blanket_max_kg_s applies to a gas space only; add ullage = \"gas\" or remove it",
+            ),
+            (
+                t14,
+                "ullage = \"held\"\nullage_thermal = \"adiabatic\"\n",
+                "tank \"FF-T14\": ullage_thermal applies to a gas space only",
+            ),
+            (
+                t14,
+                "ullage = \"gas\"\nblanket_max_kg_s = 0.1\nblanket_max_nm3_h = 5.0\n",
+                "give the blanket's supply once, as blanket_max_kg_s or blanket_max_nm3_h",
+            ),
+            (
+                t14,
+                "ullage = \"gas\"\nblanket_max_kg_s = -1.0\n",
+                "blanket_max_kg_s = -1 must be the regulator's largest supply in kg/s, 0 (none) up to 1000 kg/s",
+            ),
+            (t14, "ullage = \"vented\"\n", "unknown variant `vented`"),
+        ] {
+            let text = TANKS.replacen(at, &format!("{at}{keys}"), 1);
+            let msg = messages(&text);
+            assert!(msg.contains(expected), "{keys}\n=> {msg}");
+        }
+        let full = TANKS
+            .replace("initial_level_m = 1.6", "initial_level_m = 2.5")
+            .replace(t14, &format!("{t14}ullage = \"gas\"\n"));
+        let msg = messages(&full);
+        assert!(
+            msg.contains(
+                "ullage = \"gas\" needs room for the gas, and initial_level_m = 2.5 fills the tank"
+            ),
+            "{msg}"
+        );
     }
 
     #[test]

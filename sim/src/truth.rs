@@ -1,5 +1,11 @@
 //! The ground-truth CSV: the true level, headspace pressure, leak rate,
-//! released mass and transfer of every tank, every 100 ms of simulated time.
+//! released mass and transfer of every tank, every 100 ms of simulated time,
+//! and, after those, the gas released and its rate and what the hole is open
+//! to (`liquid`, `gas`, or `none` without a hole).
+//!
+//! `rate_kg_s` and `released_kg` are the liquid's; `gas_rate_kg_s` and
+//! `gas_released_kg` the gas's, which only a tank with `ullage = "gas"`
+//! releases. `headspace_pa` is gauge: held, or the gas space's pressure.
 //!
 //! Tests read this file while the simulator runs, so it is flushed at least
 //! once a second of simulated time (which, running in real time, is a
@@ -14,8 +20,9 @@
 use crate::plant::TruthRow;
 use std::io::{self, BufWriter, Write};
 
-pub const HEADER: &str =
-    "time_s,utc,tank,level_m,headspace_pa,rate_kg_s,released_kg,transfer_m3_s,leak_open";
+/// The columns. Those a gas space added come last, so readers of the
+/// earlier columns by position still work.
+pub const HEADER: &str = "time_s,utc,tank,level_m,headspace_pa,rate_kg_s,released_kg,transfer_m3_s,leak_open,gas_released_kg,gas_rate_kg_s,phase";
 
 /// Writes truth rows to any sink; a file in the binary, a buffer in tests.
 pub struct TruthWriter<W: Write> {
@@ -54,7 +61,7 @@ impl<W: Write> TruthWriter<W> {
         let tank = self.tank_ids.get(row.tank).map_or("?", String::as_str);
         writeln!(
             self.out,
-            "{:.3},{utc:.3},{},{},{},{},{},{},{}",
+            "{:.3},{utc:.3},{},{},{},{},{},{},{},{},{},{}",
             row.time_s,
             quote(tank),
             row.level_m,
@@ -62,7 +69,10 @@ impl<W: Write> TruthWriter<W> {
             row.rate_kg_s,
             row.released_kg,
             row.transfer_m3_s,
-            row.leak_open
+            row.leak_open,
+            row.gas_released_kg,
+            row.gas_rate_kg_s,
+            row.phase.name()
         )?;
         if row.time_s - self.flushed_at_s >= 1.0 {
             self.flush()?;
@@ -93,6 +103,7 @@ fn quote(field: &str) -> String {
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::physics::Phase;
 
     #[test]
     fn rows_carry_exact_numbers_and_millisecond_utc() {
@@ -112,6 +123,9 @@ mod tests {
             released_kg: 1.0 / 3.0,
             transfer_m3_s: -0.001,
             leak_open: true,
+            gas_released_kg: 0.25,
+            gas_rate_kg_s: 1e-3,
+            phase: Phase::Liquid,
         };
         w.write(&row).unwrap();
         let text = String::from_utf8(w.into_inner().unwrap()).unwrap();
@@ -119,7 +133,7 @@ mod tests {
         assert_eq!(lines[0], HEADER);
         assert_eq!(
             lines[1],
-            "10.100,2026-12-01T08:00:10.223Z,\"odd,\"\"tag\"\"\",4.1999999999999,0,5.62,0.3333333333333333,-0.001,true"
+            "10.100,2026-12-01T08:00:10.223Z,\"odd,\"\"tag\"\"\",4.1999999999999,0,5.62,0.3333333333333333,-0.001,true,0.25,0.001,liquid"
         );
     }
 }
