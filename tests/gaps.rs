@@ -34,6 +34,24 @@ fn holds(e: &Value, truth: f64) -> bool {
     low <= truth + 1e-6 && truth <= high + 1e-6
 }
 
+/// After a leak stopped (in a gap), the figures follow the level: the
+/// best within the level's own uncertainty of the truth, no flow, and no
+/// forecast of more to come. (The given hole alone would go on at about
+/// 5 kg/s.)
+fn follows_the_level(e: &Value, exact: f64) {
+    let best = e["released_best_kg"].as_f64().unwrap();
+    let u = e["band"]["inventory_kg"].as_f64().unwrap();
+    assert!(
+        (best - exact).abs() <= u,
+        "{best} vs truth {exact} ± {u}: {e:#}"
+    );
+    assert_eq!(e["reason"], "level_bounds_given_hole", "{e:#}");
+    assert!(e["rate_best_kg_s"].as_f64().unwrap() < 1.0, "{e:#}");
+    if let Some(f) = e["forecast"]["total_in_1_h_kg"].as_f64() {
+        assert!(f < best + 3600.0, "{e:#}");
+    }
+}
+
 fn warnings(e: &Value) -> Vec<String> {
     e["warnings"]
         .as_array()
@@ -100,6 +118,7 @@ tank = "FF-T12"
     assert!(cut > 50.0, "{e:#}");
     let w = warnings(e);
     assert!(w.iter().any(|w| w == "bridge_cut_by_level"), "{w:?}");
+    follows_the_level(e, exact);
     let text = plant.ok(&["status", &id.to_string()]);
     assert!(
         text.contains("WARNING") && text.contains("cut by"),
@@ -176,10 +195,62 @@ tank = "FF-T12"
         e["quality"]["bridge_cut_kg"].as_f64().unwrap()
     );
     assert!(holds(e, exact), "{e:#} vs truth {exact}");
+    follows_the_level(e, exact);
     assert!(e["quality"]["gaps_bridged"].as_u64().unwrap() >= 1);
     assert!(
         e["quality"]["bridge_cut_kg"].as_f64().unwrap() > 50.0,
         "{e:#}"
     );
     assert!(warnings(e).iter().any(|w| w == "bridge_cut_by_level"));
+}
+
+/// A leak that goes on through a long link drop (rtu-west, 40 s of a
+/// 50 s event): the gap is bridged by the forecast, the level on the far
+/// side agrees, and every output says that most of the total was bridged,
+/// not measured.
+#[test]
+fn a_long_gap_in_a_leak_is_bridged_and_said_so() {
+    let plant = Plant::start_with(
+        "gap-long",
+        r#"
+[[event]]
+at_s = 8.0
+action = "link_drops"
+device = "rtu-west"
+duration_s = 40.0
+"#,
+        |site| site,
+    );
+    let _daemon = plant.daemon("daemon");
+    plant.wait_until(3.0);
+    let since = plant.leak_start("FF-T20");
+    let id = event_id(&plant.open_leak("FF-T20", Some("35"), "0.5", &since));
+    plant.wait_until(55.0);
+    let status = plant.status(Some(id));
+    let e = &event_of(&status, id)["estimate"];
+    let truth = plant.truth();
+    let start = event_of(&status, id)["start_ms"].as_i64().unwrap();
+    let exact = truth_since(&truth, "FF-T20", start, e["at_ms"].as_i64().unwrap());
+    let bridged = e["quality"]["bridged_kg"].as_f64().unwrap();
+    println!(
+        "a leak through a 40 s link drop: {:.1} kg (band {:.1} to {:.1}) vs truth {exact:.1} kg, {bridged:.1} kg bridged",
+        e["released_best_kg"].as_f64().unwrap(),
+        e["released_low_kg"].as_f64().unwrap(),
+        e["released_high_kg"].as_f64().unwrap()
+    );
+    assert!(holds(e, exact), "{e:#} vs truth {exact}");
+    assert!(bridged > 0.5 * exact, "{e:#}");
+    assert!(
+        warnings(e).iter().any(|w| w == "bridged_gaps_dominate"),
+        "{e:#}"
+    );
+    let text = plant.ok(&["status", &id.to_string()]);
+    assert!(text.contains("was bridged across"), "{text}");
+    let replay = plant.ok(&[
+        "replay",
+        &id.to_string(),
+        "--config",
+        plant.site.to_str().unwrap(),
+    ]);
+    assert!(replay.contains("was bridged across"), "{replay}");
 }

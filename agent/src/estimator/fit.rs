@@ -127,6 +127,14 @@ impl Window {
         }
     }
 
+    /// Forgets every point: the next line starts afresh (after a gap, the
+    /// points either side belong to different regimes).
+    pub fn clear(&mut self) {
+        self.points.clear();
+        self.sums = Sums::default();
+        self.since_rebuild = 0;
+    }
+
     fn rebuild(&mut self) {
         self.since_rebuild = 0;
         self.origin_ms = self.points.front().map_or(0, |p| p.0);

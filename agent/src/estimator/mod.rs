@@ -416,6 +416,12 @@ impl Estimator {
         }
         self.fit.push(self.per_unit.liquid.total(), inventory);
         self.note_level(reading.state.level.si());
+        if gap.is_some() {
+            // The level's own line (its rate, its smoothed figure) starts
+            // again after a gap: a flow that stopped or changed in the gap
+            // must not be averaged with the flow before it.
+            self.recent_inventory.clear();
+        }
         self.recent_inventory.push(reading.at_ms, inventory);
         self.last = Some(Last {
             at_ms: reading.at_ms,
@@ -1237,7 +1243,7 @@ impl Estimator {
             * r.density
             / self.vessel.density().si();
         let vapour = matches!(unit.phase, Phase::Vapour(_));
-        let hole_cd = self.forecast_hole(unit_rate, rate.1);
+        let hole_cd = self.forecast_hole(unit_rate, (rate.0, rate.1));
         if entered_level_mode {
             // The hole it drained through is refuted: remake it now.
             self.forecast = None;
@@ -1326,12 +1332,14 @@ impl Estimator {
     fn forecast_hole(
         &self,
         unit_rate: f64,
-        rate_best: f64,
+        (rate_low, rate_best): (f64, f64),
     ) -> Option<(Hole, DischargeCoefficient)> {
         if !self.level_mode {
             return self.hole_and_cd();
         }
-        if rate_best <= 0.0 || unit_rate <= 0.0 {
+        if rate_best <= 0.0 || rate_low <= 0.0 || unit_rate <= 0.0 {
+            // No flow the level's slope can tell from zero: nothing to
+            // forecast.
             return None;
         }
         let cd = self.cd;
