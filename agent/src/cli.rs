@@ -369,8 +369,13 @@ pub fn run(cli: Cli) -> anyhow::Result<()> {
             };
             let request = whatif::Request {
                 level: metres(level, "--level")?,
-                hole_height: metres(hole_height, "--hole-height")?,
+                hole_height: hole_height
+                    .map(crate::estimate::check_hole_height_m)
+                    .transpose()?
+                    .map(crate::model::Length::metres),
                 cd: cd
+                    .map(crate::estimate::check_cd)
+                    .transpose()?
                     .map(crate::model::DischargeCoefficient::new)
                     .transpose()?,
                 holes,
@@ -434,14 +439,8 @@ pub fn run(cli: Cli) -> anyhow::Result<()> {
             let now = crate::store::now_ms();
             let when =
                 |t: Option<String>| t.map(|t| commands::leak::parse_since(&t, now)).transpose();
-            let c = changes.checked()?;
             let overrides = commands::replay::Overrides {
-                hole_diameter_m: c.hole_diameter_m,
-                unknown_diameter: c.unknown_diameter,
-                hole_height_m: c.hole_height_m,
-                cd: c.cd,
-                cd_range: c.cd_range,
-                density_kg_m3: c.density_kg_m3,
+                change: changes.change()?,
                 from_ms: when(from)?,
                 to_ms: when(to)?,
             };

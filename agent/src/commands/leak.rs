@@ -9,7 +9,10 @@
 //! applied with the time it was made; the CLI says which and why.
 
 use crate::cli::{HoleArgs, LeakCommand, ParamChanges};
-use crate::model::DischargeCoefficient;
+use crate::estimate::{
+    ParamChange, ParamError, check_cd, check_cd_range, check_density_kg_m3, check_hole_diameter_mm,
+    check_hole_height_m,
+};
 use crate::report;
 use crate::store::{self, DaemonState, SILENT_AFTER_MS, StoreError};
 use crate::tracker::Request;
@@ -42,12 +45,13 @@ pub fn run(command: LeakCommand) -> anyhow::Result<()> {
                 );
             }
             let since_ms = since.as_deref().map(|s| parse_since(s, now)).transpose()?;
+            let given = hole.change()?;
             let request = Request::Open {
                 tank,
-                hole_diameter_m: hole.diameter_m()?,
-                hole_height_m: hole.height_m()?,
-                cd: hole.cd_checked()?,
-                cd_range: hole.cd_range_checked()?,
+                hole_diameter_m: given.hole_diameter_m,
+                hole_height_m: given.hole_height_m,
+                cd: given.cd,
+                cd_range: given.cd_range,
                 since_ms,
                 note,
             };
@@ -59,15 +63,9 @@ pub fn run(command: LeakCommand) -> anyhow::Result<()> {
             note,
             db,
         } => {
-            let c = changes.checked()?;
             let request = Request::Revise {
                 event,
-                hole_diameter_m: c.hole_diameter_m,
-                unknown_diameter: c.unknown_diameter,
-                hole_height_m: c.hole_height_m,
-                cd: c.cd,
-                cd_range: c.cd_range,
-                density_kg_m3: c.density_kg_m3,
+                change: changes.change()?,
                 note,
             };
             (db, request)
@@ -82,125 +80,51 @@ pub fn run(command: LeakCommand) -> anyhow::Result<()> {
     Ok(())
 }
 
-/// [`ParamChanges`] with every value checked, in SI.
-pub struct CheckedChanges {
-    pub hole_diameter_m: Option<f64>,
-    pub unknown_diameter: bool,
-    pub hole_height_m: Option<f64>,
-    pub cd: Option<f64>,
-    pub cd_range: Option<(f64, f64)>,
-    pub density_kg_m3: Option<f64>,
+impl HoleArgs {
+    /// What the options give, each checked by its one rule, in SI; in the
+    /// order they are checked (a diameter's refusal is said first).
+    pub fn change(&self) -> Result<ParamChange, ParamError> {
+        Ok(ParamChange {
+            hole_diameter_m: self.diameter_m()?,
+            hole_height_m: self.height_m()?,
+            cd: self.cd_checked()?,
+            cd_range: self.cd_range_checked()?,
+            ..ParamChange::default()
+        })
+    }
+
+    /// `--hole-diameter`, in metres.
+    pub fn diameter_m(&self) -> Result<Option<f64>, ParamError> {
+        self.hole_diameter.map(check_hole_diameter_mm).transpose()
+    }
+
+    /// `--hole-height`, in metres.
+    pub fn height_m(&self) -> Result<Option<f64>, ParamError> {
+        self.hole_height.map(check_hole_height_m).transpose()
+    }
+
+    /// `--cd`.
+    pub fn cd_checked(&self) -> Result<Option<f64>, ParamError> {
+        self.cd.map(check_cd).transpose()
+    }
+
+    /// `--cd-range LOW..HIGH`, which must include `--cd` (or the default).
+    pub fn cd_range_checked(&self) -> Result<Option<(f64, f64)>, ParamError> {
+        self.cd_range
+            .as_deref()
+            .map(|text| check_cd_range(text, self.cd))
+            .transpose()
+    }
 }
 
 impl ParamChanges {
-    pub fn checked(&self) -> anyhow::Result<CheckedChanges> {
-        Ok(CheckedChanges {
-            hole_diameter_m: self.hole.diameter_m()?,
+    /// The change the options give, each value checked, in SI.
+    pub fn change(&self) -> Result<ParamChange, ParamError> {
+        Ok(ParamChange {
             unknown_diameter: self.unknown_diameter,
-            hole_height_m: self.hole.height_m()?,
-            cd: self.hole.cd_checked()?,
-            cd_range: self.hole.cd_range_checked()?,
-            density_kg_m3: check_density(self.density)?,
+            density_kg_m3: self.density.map(check_density_kg_m3).transpose()?,
+            ..self.hole.change()?
         })
-    }
-}
-
-/// `--density`: a liquid's density in kg/m³ within the model's range.
-fn check_density(density: Option<f64>) -> anyhow::Result<Option<f64>> {
-    let (lo, hi) = crate::model::vessel::DENSITY_RANGE;
-    match density {
-        Some(d) if !(d.is_finite() && (lo..=hi).contains(&d)) => bail!(
-            "--density {d} is outside {lo} to {hi} kg/m³; give the liquid's density in kg/m³ (diesel is about 840)"
-        ),
-        other => Ok(other),
-    }
-}
-
-/// The hole sizes the command line accepts, as a round hole's diameter in
-/// mm: from 0.1 mm (smaller than any hole a tank leaks through, and a size
-/// whose flow is below what any level gauge could see) to 5 m (past a
-/// tank's wall; more likely metres typed for millimetres). The one rule for
-/// every command that takes a hole: `leak open`, `leak revise`, `replay` and
-/// `whatif`, whether the size is given as a diameter or an area.
-pub const HOLE_DIAMETER_RANGE_MM: (f64, f64) = (0.1, 5000.0);
-
-/// Why a round hole of this diameter (mm) is refused, or `None` when it is
-/// accepted; the words follow the figure in the caller's message.
-pub fn hole_diameter_refusal(mm: f64) -> Option<&'static str> {
-    let (min, max) = HOLE_DIAMETER_RANGE_MM;
-    if !(mm.is_finite() && mm > 0.0) {
-        Some("is not a positive size")
-    } else if mm < min {
-        Some("is below 0.1 mm, smaller than any hole a tank leaks through")
-    } else if mm > max {
-        Some("is over 5 m")
-    } else {
-        None
-    }
-}
-
-impl HoleArgs {
-    pub fn diameter_m(&self) -> anyhow::Result<Option<f64>> {
-        match self.hole_diameter {
-            Some(mm) => match hole_diameter_refusal(mm) {
-                Some(why) => bail!(
-                    "--hole-diameter {mm} mm {why}; the option takes millimetres (25 for a one-inch hole)"
-                ),
-                None => Ok(Some(mm / 1000.0)),
-            },
-            None => Ok(None),
-        }
-    }
-
-    pub fn height_m(&self) -> anyhow::Result<Option<f64>> {
-        match self.hole_height {
-            Some(h) if !(h.is_finite() && h >= 0.0) => {
-                bail!(
-                    "--hole-height {h} must be the height above the tank bottom in metres, 0 or more"
-                )
-            }
-            other => Ok(other),
-        }
-    }
-
-    pub fn cd_checked(&self) -> anyhow::Result<Option<f64>> {
-        match self.cd {
-            Some(cd) => Ok(Some(DischargeCoefficient::new(cd)?.get())),
-            None => Ok(None),
-        }
-    }
-
-    /// `--cd-range LOW..HIGH`: two Cds, low first, that include `--cd`
-    /// (or 1.0, the default Cd, when none is given).
-    pub fn cd_range_checked(&self) -> anyhow::Result<Option<(f64, f64)>> {
-        let Some(text) = &self.cd_range else {
-            return Ok(None);
-        };
-        let parsed = text.split_once("..").and_then(|(a, b)| {
-            Some((a.trim().parse::<f64>().ok()?, b.trim().parse::<f64>().ok()?))
-        });
-        let Some((low, high)) = parsed else {
-            bail!("--cd-range {text:?} is not LOW..HIGH; write it like 0.60..0.65");
-        };
-        DischargeCoefficient::new(low)?;
-        DischargeCoefficient::new(high)?;
-        if low > high {
-            bail!(
-                "--cd-range {text}: the low end is above the high end; write it low first, like 0.60..0.65"
-            );
-        }
-        let cd = self.cd.unwrap_or(1.0);
-        if !(low..=high).contains(&cd) {
-            bail!(
-                "--cd-range {text} does not include the Cd {cd}{}; give a --cd inside the range",
-                if self.cd.is_none() {
-                    " (the default, since no --cd is given)"
-                } else {
-                    ""
-                }
-            );
-        }
-        Ok(Some((low, high)))
     }
 }
 

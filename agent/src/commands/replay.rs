@@ -23,7 +23,7 @@
 
 use crate::acquire::sample::TankSample;
 use crate::config::{Config, Tank};
-use crate::estimate::{Estimate, LeakParams};
+use crate::estimate::{Estimate, LeakParams, ParamChange};
 use crate::estimator::Estimator;
 use crate::model::{Density, Mass, MassRate, TimeSpan};
 use crate::plot::{self, ChartLabels, ChartSeries};
@@ -39,53 +39,18 @@ use std::fs::File;
 use std::io::{IsTerminal, Write as _};
 use std::path::{Path, PathBuf};
 
-/// Parameter changes for a replay; `None` keeps the logged value.
+/// What a replay changes: the parameters (`None` keeps the logged value)
+/// and the stretch replayed.
 #[derive(Debug, Clone, Default)]
 pub struct Overrides {
-    pub hole_diameter_m: Option<f64>,
-    pub unknown_diameter: bool,
-    pub hole_height_m: Option<f64>,
-    pub cd: Option<f64>,
-    pub cd_range: Option<(f64, f64)>,
-    pub density_kg_m3: Option<f64>,
+    pub change: ParamChange,
     pub from_ms: Option<i64>,
     pub to_ms: Option<i64>,
 }
 
 impl Overrides {
     fn any(&self) -> bool {
-        self.hole_diameter_m.is_some()
-            || self.unknown_diameter
-            || self.hole_height_m.is_some()
-            || self.cd.is_some()
-            || self.cd_range.is_some()
-            || self.density_kg_m3.is_some()
-            || self.from_ms.is_some()
-            || self.to_ms.is_some()
-    }
-
-    fn apply(&self, mut p: LeakParams) -> LeakParams {
-        if self.unknown_diameter {
-            p.hole_diameter_m = None;
-        }
-        if self.hole_diameter_m.is_some() {
-            p.hole_diameter_m = self.hole_diameter_m;
-        }
-        if let Some(h) = self.hole_height_m {
-            p.hole_height_m = h;
-            p.hole_height_assumed = false;
-        }
-        if let Some(c) = self.cd {
-            p.cd = c;
-            p.cd_assumed = false;
-        }
-        if self.cd_range.is_some() {
-            p.cd_range = self.cd_range;
-        }
-        if self.density_kg_m3.is_some() {
-            p.density_kg_m3 = self.density_kg_m3;
-        }
-        p
+        !self.change.is_empty() || self.from_ms.is_some() || self.to_ms.is_some()
     }
 }
 
@@ -227,7 +192,7 @@ fn replay_event(
         )
     })?;
     let (tank, interval) = tank_of(&config, &row.tank)?;
-    let params = overrides.apply(row.params);
+    let params = row.params.with(&overrides.change);
     let live_last = store::latest_estimate(&conn, &row)?;
     let from = overrides.from_ms.unwrap_or(row.start_ms);
     // A closed event ends with its last live estimate: a sample taken just
@@ -403,7 +368,7 @@ fn replay_readings(
     check_outputs(outputs, &inputs)?;
     let config = crate::config::load(config_path)?;
     let (tank, interval) = tank_of(&config, tank_id)?;
-    let params = overrides.apply(LeakParams::default());
+    let params = LeakParams::default().with(&overrides.change);
     // Parameters are checked before the file is read.
     Estimator::new(tank, params, 0, interval)?;
     let ambient = tank.vessel.ambient().si();

@@ -23,6 +23,7 @@
 //! with the hole above the liquid gives that).
 
 use crate::config::Tank;
+use crate::estimate::{check_hole_diameter_mm, given_figure, hole_diameter_refusal};
 use crate::model::blowdown::{Blowdown, BlowdownEnd, BlowdownForecast, Thermal, Ullage};
 use crate::model::{
     AbsolutePressure, DischargeCoefficient, GAS_CONSTANT, GasProperties, GasRegime, Hole, Length,
@@ -1624,7 +1625,8 @@ fn reach_table(s: &Study, out: &mut String) {
 // Parsing the options
 
 /// Parses `--hole-diameter 6,25,100` (millimetres), each size checked by the
-/// rule every command shares ([`crate::commands::leak::hole_diameter_refusal`]).
+/// rule every command shares ([`check_hole_diameter_mm`]), and refused in
+/// the same words as `leak open --hole-diameter`.
 pub fn parse_holes(text: &str) -> anyhow::Result<Vec<f64>> {
     parse_list(text, "--hole-diameter", |part| {
         let mm: f64 = part.parse().map_err(|_| {
@@ -1632,11 +1634,7 @@ pub fn parse_holes(text: &str) -> anyhow::Result<Vec<f64>> {
                 "--hole-diameter {part:?} is not a number of millimetres; write sizes like 6,25,100"
             )
         })?;
-        if let Some(why) = crate::commands::leak::hole_diameter_refusal(mm) {
-            bail!(
-                "--hole-diameter {part}: {mm} mm {why}; the option takes millimetres (25 for a one-inch hole)"
-            );
-        }
+        check_hole_diameter_mm(mm)?;
         Ok(mm)
     })
 }
@@ -1654,10 +1652,16 @@ pub fn parse_hole_areas(text: &str) -> anyhow::Result<Vec<f64>> {
             bail!("--hole-area {part}: the area must be a positive number of square millimetres");
         }
         let diameter = (mm2 / FRAC_PI_4).sqrt();
-        if let Some(why) = crate::commands::leak::hole_diameter_refusal(diameter) {
+        if let Some(why) = hole_diameter_refusal(diameter) {
             bail!(
-                "--hole-area {part}: {mm2} mm² is a round hole {} mm across, which {why}; the option takes square millimetres (507 for a one-inch hole)",
-                report::significant(diameter)
+                "--hole-area {part}: {} mm² is a round hole {} mm across, which {why}; the option takes square millimetres (507 for a one-inch hole)",
+                given_figure(mm2),
+                // Plain digits would run to 150 places for a 1e-300 area.
+                if diameter >= 1e-4 {
+                    report::significant(diameter)
+                } else {
+                    format!("{diameter:.2e}")
+                }
             );
         }
         Ok(mm2)
@@ -1776,6 +1780,23 @@ mod tests {
                 .unwrap_err()
                 .to_string()
                 .contains("over 5 m")
+        );
+    }
+
+    #[test]
+    fn a_refused_hole_is_said_in_the_words_every_command_uses() {
+        for (text, mm) in [("1e-300", 1e-300), ("6,0.05", 0.05), ("6000", 6000.0)] {
+            assert_eq!(
+                parse_holes(text).unwrap_err().to_string(),
+                check_hole_diameter_mm(mm).unwrap_err().to_string(),
+                "{text}"
+            );
+        }
+        let err = parse_hole_areas("1e-300").unwrap_err().to_string();
+        assert!(err.len() < 250, "{err}");
+        assert!(
+            err.contains("1e-300 mm²") && err.contains("1.13e-150 mm across"),
+            "{err}"
         );
     }
 

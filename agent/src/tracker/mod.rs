@@ -34,7 +34,7 @@
 use crate::acquire::sample::TankSample;
 use crate::clock::Clock;
 use crate::config::Config;
-use crate::estimate::{Estimate, LeakParams};
+use crate::estimate::{Estimate, LeakParams, ParamChange};
 use crate::estimator::Estimator;
 use crate::store::health::{StoreHealth, WriteFailure};
 use crate::store::{ActionRow, EventRow, Lane, Reader, Store, StoreError, StoreResult, Tx};
@@ -64,15 +64,9 @@ pub enum Request {
     },
     Revise {
         event: i64,
-        hole_diameter_m: Option<f64>,
-        /// Forget the hole diameter (back to the fitted hole).
-        #[serde(default)]
-        unknown_diameter: bool,
-        hole_height_m: Option<f64>,
-        cd: Option<f64>,
-        #[serde(default)]
-        cd_range: Option<(f64, f64)>,
-        density_kg_m3: Option<f64>,
+        /// Stored flat, beside `event`, as it always was.
+        #[serde(flatten)]
+        change: ParamChange,
         note: Option<String>,
     },
     Note {
@@ -865,12 +859,7 @@ fn apply(
         }
         Request::Revise {
             event,
-            hole_diameter_m,
-            unknown_diameter,
-            hole_height_m,
-            cd,
-            cd_range,
-            density_kg_m3,
+            change,
             note: _,
         } => {
             let Some(row) = tx.event(event)?.filter(|r| r.closed_at_ms.is_none()) else {
@@ -885,27 +874,7 @@ fn apply(
                 );
             }
             let before = row.params;
-            let mut params = before;
-            if unknown_diameter {
-                params.hole_diameter_m = None;
-            }
-            if hole_diameter_m.is_some() {
-                params.hole_diameter_m = hole_diameter_m;
-            }
-            if let Some(h) = hole_height_m {
-                params.hole_height_m = h;
-                params.hole_height_assumed = false;
-            }
-            if let Some(c) = cd {
-                params.cd = c;
-                params.cd_assumed = false;
-            }
-            if cd_range.is_some() {
-                params.cd_range = cd_range;
-            }
-            if density_kg_m3.is_some() {
-                params.density_kg_m3 = density_kg_m3;
-            }
+            let params = before.with(&change);
             let Some((_, tank, _)) = tank_of(&cx.config, &row.tank) else {
                 return refuse(
                     Some(event),
