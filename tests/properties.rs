@@ -158,8 +158,8 @@ proptest! {
 
 mod command_line {
     use crate::util::{Scratch, binary, demo_site, run_for};
+    use leaktally::actions::parse_since;
     use leaktally::cli::{Cli, Command, HoleArgs, LeakCommand, Parser};
-    use leaktally::commands::leak::parse_since;
     use leaktally::commands::whatif::parse_holes;
     use leaktally::config::units::Unit;
     use leaktally::model::Density;

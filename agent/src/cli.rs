@@ -438,7 +438,7 @@ pub fn run(cli: Cli) -> anyhow::Result<()> {
         } => {
             let now = crate::store::now_ms();
             let when =
-                |t: Option<String>| t.map(|t| commands::leak::parse_since(&t, now)).transpose();
+                |t: Option<String>| t.map(|t| crate::actions::parse_since(&t, now)).transpose();
             let overrides = commands::replay::Overrides {
                 change: changes.change()?,
                 from_ms: when(from)?,

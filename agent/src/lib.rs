@@ -22,6 +22,7 @@
 //! Estimates for emergency planning, not measurements.
 
 pub mod acquire;
+pub mod actions;
 pub mod cli;
 pub mod clock;
 pub mod commands;

@@ -9,11 +9,11 @@
 //! Fennick Flats is a fictional fuel depot; its tanks, sizes and the leak
 //! are made up for the demo.
 
-use crate::commands::{leak, status, whatif};
+use crate::actions::{self, Request};
+use crate::commands::{status, whatif};
 use crate::model::{DischargeCoefficient, Length, Mass, MassRate, TimeSpan};
 use crate::report;
 use crate::store;
-use crate::tracker::Request;
 use anyhow::{Context, bail};
 use std::io::{BufRead, BufReader, IsTerminal, Write};
 use std::path::{Path, PathBuf};
@@ -202,13 +202,9 @@ async fn narrate(
         note: Some("demo: level falling, hole not yet seen".into()),
     };
     let db_owned = db.to_owned();
-    let reply = tokio::task::spawn_blocking(move || leak::send(&db_owned, &request)).await??;
-    println!("  {reply}");
-    let event: i64 = reply
-        .split_whitespace()
-        .nth(2)
-        .and_then(|w| w.parse().ok())
-        .context("the daemon's reply names no event")?;
+    let reply = tokio::task::spawn_blocking(move || actions::send(&db_owned, &request)).await??;
+    println!("  {}", reply.text);
+    let event = reply.event.context("the daemon's reply names no event")?;
     println!(
         "\nRunning totals (a responder sees the same with `leaktally status --db {}`",
         db.display()
@@ -237,7 +233,7 @@ async fn narrate(
     println!("  $ leaktally leak close {event}");
     let db_owned = db.to_owned();
     let reply = tokio::task::spawn_blocking(move || {
-        leak::send(
+        actions::send(
             &db_owned,
             &Request::Close {
                 event,
@@ -246,7 +242,7 @@ async fn narrate(
         )
     })
     .await??;
-    println!("  {reply}\n");
+    println!("  {}\n", reply.text);
     let doc = status::document(db, Some(event))?;
     print!("{}", status::human(&doc));
     compare_with_truth(dir, &doc);

@@ -22,6 +22,7 @@
 //! vents through a hole below the surface once the liquid has gone (a study
 //! with the hole above the liquid gives that).
 
+use crate::actions::parse_duration;
 use crate::config::Tank;
 use crate::estimate::{check_hole_diameter_mm, given_figure, hole_diameter_refusal};
 use crate::model::blowdown::{Blowdown, BlowdownEnd, BlowdownForecast, Thermal, Ullage};
@@ -1672,7 +1673,7 @@ pub fn parse_hole_areas(text: &str) -> anyhow::Result<Vec<f64>> {
 /// without repeats.
 pub fn parse_horizons(text: &str) -> anyhow::Result<Vec<TimeSpan>> {
     let mut horizons = parse_list(text, "--horizons", |part| {
-        let Some(duration) = crate::commands::leak::parse_duration(part) else {
+        let Some(duration) = parse_duration(part) else {
             bail!(
                 "--horizons {part:?} is not a duration; write horizons like 5m,30m,2h (s, m or min, h)"
             );

@@ -32,72 +32,18 @@
 //! estimator is the one a live daemon would have had.
 
 use crate::acquire::sample::TankSample;
+use crate::actions::Request;
 use crate::clock::Clock;
 use crate::config::Config;
-use crate::estimate::{Estimate, LeakParams, ParamChange};
+use crate::estimate::{Estimate, LeakParams};
 use crate::estimator::Estimator;
 use crate::store::health::{StoreHealth, WriteFailure};
 use crate::store::{ActionRow, EventRow, Lane, Reader, Store, StoreError, StoreResult, Tx};
-use serde::{Deserialize, Serialize};
 use std::collections::{HashMap, HashSet, VecDeque};
 use std::sync::Arc;
 use std::time::Duration;
 use tokio::time::Instant;
 use tracing::{debug, error, info, warn};
-
-/// What an operator may ask for, as stored in an action row.
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
-#[serde(tag = "kind", rename_all = "snake_case", deny_unknown_fields)]
-pub enum Request {
-    Open {
-        tank: String,
-        hole_diameter_m: Option<f64>,
-        hole_height_m: Option<f64>,
-        cd: Option<f64>,
-        /// The Cd's range (low, high); 0.61 to 1.0 if absent.
-        #[serde(default)]
-        cd_range: Option<(f64, f64)>,
-        /// Back-dated start, UTC ms on the requester's wall clock; the time
-        /// of the request if absent.
-        since_ms: Option<i64>,
-        note: Option<String>,
-    },
-    Revise {
-        event: i64,
-        /// Stored flat, beside `event`, as it always was.
-        #[serde(flatten)]
-        change: ParamChange,
-        note: Option<String>,
-    },
-    Note {
-        event: i64,
-        text: String,
-    },
-    Close {
-        event: i64,
-        note: Option<String>,
-    },
-}
-
-impl Request {
-    pub fn kind(&self) -> &'static str {
-        match self {
-            Request::Open { .. } => "open",
-            Request::Revise { .. } => "revise",
-            Request::Note { .. } => "note",
-            Request::Close { .. } => "close",
-        }
-    }
-
-    pub fn event(&self) -> Option<i64> {
-        match self {
-            Request::Open { .. } => None,
-            Request::Revise { event, .. }
-            | Request::Note { event, .. }
-            | Request::Close { event, .. } => Some(*event),
-        }
-    }
-}
 
 /// An operator's request turned down, and why: recorded as the action's
 /// outcome, never confused with a database error.
