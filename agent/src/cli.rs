@@ -486,15 +486,7 @@ pub fn run(cli: Cli) -> anyhow::Result<()> {
             print!("{}", commands::replay::run(source, &overrides, &outputs)?);
             Ok(())
         }
-        Command::Status { event, json, db } => {
-            let doc = commands::status::document(&db, event)?;
-            if json {
-                println!("{}", serde_json::to_string_pretty(&doc)?);
-            } else {
-                print!("{}", commands::status::human(&doc));
-            }
-            Ok(())
-        }
+        Command::Status { event, json, db } => commands::status::print(&db, event, json),
     }
 }
 

@@ -13,8 +13,13 @@
 //! * [`estimate`]: what an estimate holds, as numbers and enums (data only).
 //! * [`estimator`]: the clock-free estimator of one event.
 //! * [`store`]: the SQLite database and the daemon's one writer.
+//! * [`report`]: formatting figures for people, with units and the cautions;
+//!   the words for estimates and the status table.
+//! * [`status`]: the read model, the status document built from one
+//!   database connection.
+//! * [`actions`]: the operator-actions client: the requests, sending them,
+//!   the daemon's replies.
 //! * [`tracker`]: the daemon's open events, operator actions and writes.
-//! * [`report`]: formatting figures for people, with units and the cautions.
 //! * [`web`]: the daemon's read-only responder page, JSON and metrics.
 //! * [`commands`]: what each subcommand does.
 //! * [`cli`]: the command line.
@@ -37,6 +42,7 @@ pub mod readings;
 pub mod registers;
 pub mod report;
 pub mod shutdown;
+pub mod status;
 pub mod store;
 pub mod tracker;
 pub mod web;

@@ -10,9 +10,10 @@
 //! are made up for the demo.
 
 use crate::actions::{self, Request};
-use crate::commands::{status, whatif};
+use crate::commands::{status::read as read_status, whatif};
 use crate::model::{DischargeCoefficient, Length, Mass, MassRate, TimeSpan};
 use crate::report;
+use crate::status::{self, StatusDocument};
 use crate::store;
 use anyhow::{Context, bail};
 use std::io::{BufRead, BufReader, IsTerminal, Write};
@@ -216,7 +217,7 @@ async fn narrate(
     let terminal = std::io::stdout().is_terminal();
     for second in 1..=seconds {
         sleep_or_stop(Duration::from_secs(1), stop).await?;
-        let doc = status::document(db, Some(event))?;
+        let doc = read_status(db, Some(event))?;
         let line = progress_line(second, &doc);
         if terminal {
             print!("\r\x1b[2K{line}");
@@ -243,8 +244,8 @@ async fn narrate(
     })
     .await??;
     println!("  {}\n", reply.text);
-    let doc = status::document(db, Some(event))?;
-    print!("{}", status::human(&doc));
+    let doc = read_status(db, Some(event))?;
+    print!("{}", status::text(&doc));
     compare_with_truth(dir, &doc);
     print_what_if(dir, &doc)?;
     Ok(())
@@ -271,7 +272,7 @@ fn web_address(dir: &Path) -> Option<String> {
         .map(str::to_owned)
 }
 
-fn progress_line(second: u64, doc: &status::StatusDocument) -> String {
+fn progress_line(second: u64, doc: &StatusDocument) -> String {
     let Some(est) = doc.events.first().and_then(|e| e.estimate.as_ref()) else {
         return format!("+{second:>3} s  waiting for the first sample");
     };
@@ -297,7 +298,7 @@ fn progress_line(second: u64, doc: &status::StatusDocument) -> String {
 }
 
 /// The simulator's truth at the moment of the last estimate.
-fn compare_with_truth(dir: &Path, doc: &status::StatusDocument) {
+fn compare_with_truth(dir: &Path, doc: &StatusDocument) {
     let Some(est) = doc.events.first().and_then(|e| e.estimate.as_ref()) else {
         return;
     };
@@ -330,7 +331,7 @@ fn compare_with_truth(dir: &Path, doc: &status::StatusDocument) {
 }
 
 /// What an engineer would look at next: the same tank with other holes.
-fn print_what_if(dir: &Path, doc: &status::StatusDocument) -> anyhow::Result<()> {
+fn print_what_if(dir: &Path, doc: &StatusDocument) -> anyhow::Result<()> {
     let config = crate::config::load(&dir.join("site.toml"))?;
     let tank = config
         .tanks

@@ -28,9 +28,8 @@ use crate::estimator::Estimator;
 use crate::model::{Density, Mass, MassRate, TimeSpan};
 use crate::plot::{self, ChartLabels, ChartSeries};
 use crate::readings::{self, Import, ImportReport, Layout, Target, TimeOrder, Verdict};
-use crate::report;
+use crate::report::{self, estimate::describe_params};
 use crate::store;
-use crate::tracker::describe_params;
 use anyhow::{Context, bail};
 use serde::Serialize;
 use std::collections::VecDeque;
@@ -1073,7 +1072,7 @@ pub fn human(s: &Summary) -> String {
             out,
             "reportable   {}: {}",
             kg(c.quantity_kg),
-            crate::commands::status::crossing_text(c)
+            report::estimate::crossing_text(c)
         );
     }
     match s.identical {

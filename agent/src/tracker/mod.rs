@@ -37,6 +37,7 @@ use crate::clock::Clock;
 use crate::config::Config;
 use crate::estimate::{Estimate, LeakParams};
 use crate::estimator::Estimator;
+use crate::report::estimate::describe_params;
 use crate::store::health::{StoreHealth, WriteFailure};
 use crate::store::{ActionRow, EventRow, Lane, Reader, Store, StoreError, StoreResult, Tx};
 use std::collections::{HashMap, HashSet, VecDeque};
@@ -905,29 +906,6 @@ fn check_history(tx: &Tx<'_>, tank: &str, start: i64, now: i64) -> StoreResult<R
 
 fn not_open(event: i64) -> String {
     format!("event {event} is not open; `leaktally status` lists the open events")
-}
-
-/// The parameters in words, for the audit trail.
-pub fn describe_params(p: &LeakParams) -> String {
-    let hole = match p.hole_diameter_m {
-        Some(d) => format!("hole {:.1} mm", d * 1000.0),
-        None => "hole size unknown (fitted)".to_owned(),
-    };
-    let density = p
-        .density_kg_m3
-        .map_or(String::new(), |d| format!(", density {d} kg/m³"));
-    let (cd_low, cd_high) = p.cd_band();
-    format!(
-        "{hole} at {:.2} m{}, Cd {}{} (range {cd_low} to {cd_high}){density}",
-        p.hole_height_m,
-        if p.hole_height_assumed {
-            " (assumed: the bottom)"
-        } else {
-            ""
-        },
-        p.cd,
-        if p.cd_assumed { " (assumed)" } else { "" },
-    )
 }
 
 #[cfg(test)]
