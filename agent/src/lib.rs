@@ -21,8 +21,8 @@
 //!   the daemon's replies.
 //! * [`tracker`]: the daemon's open events, operator actions and writes.
 //! * [`web`]: the daemon's read-only responder page, JSON and metrics.
-//! * [`commands`]: what each subcommand does.
-//! * [`cli`]: the command line.
+//! * [`commands`]: each subcommand's arguments and what it does.
+//! * [`cli`]: the command line, composed of the commands' arguments.
 //!
 //! Estimates for emergency planning, not measurements.
 

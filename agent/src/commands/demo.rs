@@ -50,6 +50,19 @@ impl Drop for Folder {
     }
 }
 
+/// `leaktally demo`'s options.
+#[derive(Debug, clap::Args)]
+pub struct DemoArgs {
+    /// How long to track the leak after flagging it, seconds.
+    #[arg(long, default_value_t = 60)]
+    pub seconds: u64,
+}
+
+/// Runs `leaktally demo` as the command line gave it.
+pub fn command(args: DemoArgs) -> anyhow::Result<()> {
+    run(args.seconds)
+}
+
 /// Runs the demo; the leak is tracked for `seconds` after it is flagged.
 pub fn run(seconds: u64) -> anyhow::Result<()> {
     let folder =

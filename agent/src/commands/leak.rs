@@ -7,16 +7,66 @@
 //! Left out: the waiting and what it says when the daemon does not answer
 //! (`crate::actions`).
 
+use super::args::{DEFAULT_DB, HoleArgs, ParamChangeArgs};
 use crate::actions::{self, Request, parse_since};
-use crate::cli::{HoleArgs, LeakCommand, ParamChanges};
-use crate::estimate::{
-    ParamChange, ParamError, check_cd, check_cd_range, check_density_kg_m3, check_hole_diameter_mm,
-    check_hole_height_m,
-};
 use crate::store;
+use clap::Subcommand;
+use std::path::PathBuf;
+
+#[derive(Debug, Subcommand)]
+pub enum LeakCommand {
+    /// Open a leak event on a tank.
+    Open {
+        /// The tank's id (tag) in the config.
+        #[arg(long)]
+        tank: String,
+        #[command(flatten)]
+        hole: HoleArgs,
+        /// When the leak began: a time today (13:42), a UTC time
+        /// (2026-12-01T13:42:00Z) or how long ago (90s, 5m, 1h30m).
+        /// The total is computed from then, from the logged history.
+        #[arg(long)]
+        since: Option<String>,
+        /// A note for the audit trail.
+        #[arg(long)]
+        note: Option<String>,
+        /// The SQLite database the daemon writes.
+        #[arg(long, default_value = DEFAULT_DB)]
+        db: PathBuf,
+    },
+    /// Recompute an event from its start with new parameters (logged).
+    Revise {
+        /// The event's id.
+        event: i64,
+        #[command(flatten)]
+        changes: ParamChangeArgs,
+        #[arg(long)]
+        note: Option<String>,
+        /// The SQLite database the daemon writes.
+        #[arg(long, default_value = DEFAULT_DB)]
+        db: PathBuf,
+    },
+    /// Add a note to an event's audit trail.
+    Note {
+        event: i64,
+        text: String,
+        /// The SQLite database the daemon writes.
+        #[arg(long, default_value = DEFAULT_DB)]
+        db: PathBuf,
+    },
+    /// Close an event once the leak is isolated; its total no longer changes.
+    Close {
+        event: i64,
+        #[arg(long)]
+        note: Option<String>,
+        /// The SQLite database the daemon writes.
+        #[arg(long, default_value = DEFAULT_DB)]
+        db: PathBuf,
+    },
+}
 
 /// Runs one `leak` subcommand.
-pub fn run(command: LeakCommand) -> anyhow::Result<()> {
+pub fn command(command: LeakCommand) -> anyhow::Result<()> {
     let now = store::now_ms();
     let (db, request) = match command {
         LeakCommand::Open {
@@ -70,52 +120,4 @@ pub fn run(command: LeakCommand) -> anyhow::Result<()> {
     // control character in them must not reach the terminal as one.
     println!("{}", crate::logging::one_line(&reply.text));
     Ok(())
-}
-
-impl HoleArgs {
-    /// What the options give, each checked by its one rule, in SI; in the
-    /// order they are checked (a diameter's refusal is said first).
-    pub fn change(&self) -> Result<ParamChange, ParamError> {
-        Ok(ParamChange {
-            hole_diameter_m: self.diameter_m()?,
-            hole_height_m: self.height_m()?,
-            cd: self.cd_checked()?,
-            cd_range: self.cd_range_checked()?,
-            ..ParamChange::default()
-        })
-    }
-
-    /// `--hole-diameter`, in metres.
-    pub fn diameter_m(&self) -> Result<Option<f64>, ParamError> {
-        self.hole_diameter.map(check_hole_diameter_mm).transpose()
-    }
-
-    /// `--hole-height`, in metres.
-    pub fn height_m(&self) -> Result<Option<f64>, ParamError> {
-        self.hole_height.map(check_hole_height_m).transpose()
-    }
-
-    /// `--cd`.
-    pub fn cd_checked(&self) -> Result<Option<f64>, ParamError> {
-        self.cd.map(check_cd).transpose()
-    }
-
-    /// `--cd-range LOW..HIGH`, which must include `--cd` (or the default).
-    pub fn cd_range_checked(&self) -> Result<Option<(f64, f64)>, ParamError> {
-        self.cd_range
-            .as_deref()
-            .map(|text| check_cd_range(text, self.cd))
-            .transpose()
-    }
-}
-
-impl ParamChanges {
-    /// The change the options give, each value checked, in SI.
-    pub fn change(&self) -> Result<ParamChange, ParamError> {
-        Ok(ParamChange {
-            unknown_diameter: self.unknown_diameter,
-            density_kg_m3: self.density.map(check_density_kg_m3).transpose()?,
-            ..self.hole.change()?
-        })
-    }
 }

@@ -21,7 +21,9 @@
 //! file beside it and renamed into place when the replay has succeeded, so
 //! an interrupted replay never leaves half a file under the final name.
 
+use super::args::{DEFAULT_DB, ParamChangeArgs};
 use crate::acquire::sample::TankSample;
+use crate::actions::parse_since;
 use crate::config::{Config, Tank};
 use crate::estimate::{Estimate, LeakParams, ParamChange};
 use crate::estimator::Estimator;
@@ -37,6 +39,163 @@ use std::fmt::Write as _;
 use std::fs::File;
 use std::io::{IsTerminal, Write as _};
 use std::path::{Path, PathBuf};
+
+/// `leaktally replay`'s options.
+#[derive(Debug, clap::Args)]
+pub struct ReplayArgs {
+    /// The event's id (leave out with --readings).
+    #[arg(required_unless_present = "readings")]
+    pub event: Option<i64>,
+    /// A CSV of timestamped readings instead of a logged event (see the
+    /// README for the columns); needs --tank and --config.
+    #[arg(long, requires_all = ["tank", "config"], conflicts_with = "event")]
+    pub readings: Option<PathBuf>,
+    #[command(flatten)]
+    pub layout: Box<ReadingsArgs>,
+    /// The tank the readings are from.
+    #[arg(long)]
+    pub tank: Option<String>,
+    /// The site config (default for an event: the one its daemon ran with).
+    #[arg(long, short)]
+    pub config: Option<PathBuf>,
+    #[command(flatten)]
+    pub changes: ParamChangeArgs,
+    /// Start the replay here instead of at the event's start (a time, a
+    /// UTC time, or how long ago, as for `leak open --since`).
+    #[arg(long)]
+    pub from: Option<String>,
+    /// End the replay here.
+    #[arg(long)]
+    pub to: Option<String>,
+    /// Write the time series to this CSV file.
+    #[arg(long, value_name = "FILE")]
+    pub csv: Option<PathBuf>,
+    /// Write a chart of rate and cumulative release to this SVG file.
+    #[arg(long, value_name = "FILE.svg")]
+    pub plot: Option<PathBuf>,
+    /// Print the summary as JSON.
+    #[arg(long)]
+    pub json: bool,
+    /// Replace the --csv and --plot files if they exist.
+    #[arg(long)]
+    pub force: bool,
+    /// The SQLite database the daemon writes.
+    #[arg(long, default_value = DEFAULT_DB)]
+    pub db: PathBuf,
+}
+
+/// How to read a readings file (`replay --readings`), beyond its header.
+/// Boxed in the command: parsed once, and it would make every other
+/// subcommand's value as large.
+#[derive(Debug, Clone, clap::Args)]
+pub struct ReadingsArgs {
+    /// What a column of the readings holds, e.g. "PT-14 [kPa(g)]=pressure,kPa,gauge":
+    /// QUANTITY (time, level, pressure, transfer, temperature, tank or unused),
+    /// then the unit, and for pressure gauge|absolute and headspace|tap=M;
+    /// repeat for more columns.
+    #[arg(
+        long = "column",
+        value_name = "NAME=QUANTITY,UNIT,...",
+        requires = "readings"
+    )]
+    pub column: Vec<String>,
+    /// A TOML file describing the readings' columns and format (default:
+    /// <readings file>.columns.toml beside it, when there is one).
+    #[arg(long = "columns", value_name = "FILE.toml", requires = "readings")]
+    pub columns_file: Option<PathBuf>,
+    /// The readings' field separator: , ; tab | or space (default: read
+    /// from the header line).
+    #[arg(long, value_name = "CHAR", requires = "readings")]
+    pub separator: Option<String>,
+    /// The readings write decimals with a comma (1,5).
+    #[arg(long, requires = "readings")]
+    pub decimal_comma: bool,
+    /// The time zone of readings times written without an offset: an IANA
+    /// name (Europe/Berlin), UTC, or an offset (+01:00). Default UTC.
+    #[arg(long, value_name = "ZONE", requires = "readings")]
+    pub time_zone: Option<String>,
+    /// How the readings write times: auto, unix_s, unix_ms, or a strftime
+    /// pattern such as "%d.%m.%Y %H:%M:%S".
+    #[arg(long, value_name = "FORMAT", requires = "readings")]
+    pub time_format: Option<String>,
+    /// The headspace gauge pressure, kPa, held for the whole readings file,
+    /// for a file with no pressure column.
+    #[arg(
+        long,
+        value_name = "KPA",
+        requires = "readings",
+        allow_negative_numbers = true
+    )]
+    pub headspace: Option<f64>,
+}
+
+/// Runs `leaktally replay` as the command line gave it: checks the options,
+/// replays and prints the summary.
+pub fn command(args: ReplayArgs) -> anyhow::Result<()> {
+    let ReplayArgs {
+        event,
+        readings,
+        layout,
+        tank,
+        config,
+        changes,
+        from,
+        to,
+        csv,
+        plot,
+        json,
+        force,
+        db,
+    } = args;
+    let now = store::now_ms();
+    let when = |t: Option<String>| t.map(|t| parse_since(&t, now)).transpose();
+    let overrides = Overrides {
+        change: changes.change()?,
+        from_ms: when(from)?,
+        to_ms: when(to)?,
+    };
+    if let Some(p) = &plot
+        && p.extension().is_none_or(|e| e != "svg")
+    {
+        anyhow::bail!(
+            "--plot {}: the chart is written as SVG; give a file name ending in .svg",
+            p.display()
+        );
+    }
+    let mut protect = Vec::new();
+    let source = match (event, readings) {
+        (_, Some(file)) => {
+            protect.push(db);
+            Source::Readings {
+                file,
+                tank: tank.unwrap_or_default(),
+                config: config.unwrap_or_default(),
+                options: ReadingsOptions {
+                    columns: layout.column,
+                    columns_file: layout.columns_file,
+                    separator: layout.separator,
+                    decimal_comma: layout.decimal_comma,
+                    time_zone: layout.time_zone,
+                    time_format: layout.time_format,
+                    headspace_kpa: layout.headspace,
+                },
+            }
+        }
+        (Some(event), None) => Source::Event { db, event, config },
+        (None, None) => {
+            anyhow::bail!("give an event id, or --readings FILE with --tank and --config")
+        }
+    };
+    let outputs = Outputs {
+        csv,
+        plot,
+        json,
+        force,
+        protect,
+    };
+    print!("{}", run(source, &overrides, &outputs)?);
+    Ok(())
+}
 
 /// What a replay changes: the parameters (`None` keeps the logged value)
 /// and the stretch replayed.

@@ -5,9 +5,23 @@
 //! model (`crate::status`) build the document, and prints it as the table
 //! (`crate::report::table`) or as JSON.
 
+use super::args::DEFAULT_DB;
 use crate::status::{self, StatusDocument, StatusError};
 use crate::store;
-use std::path::Path;
+use std::path::{Path, PathBuf};
+
+/// `leaktally status`'s options.
+#[derive(Debug, clap::Args)]
+pub struct StatusArgs {
+    /// One event's id; all open events if absent.
+    pub event: Option<i64>,
+    /// Print the JSON document for machines instead of the table.
+    #[arg(long)]
+    pub json: bool,
+    /// The SQLite database the daemon writes.
+    #[arg(long, default_value = DEFAULT_DB)]
+    pub db: PathBuf,
+}
 
 /// The status document of one event, or of every open event, read from
 /// the database at `db`.
@@ -22,10 +36,11 @@ pub fn read(db: &Path, event: Option<i64>) -> anyhow::Result<StatusDocument> {
     })
 }
 
-/// Prints the document of one event, or of every open event.
-pub fn print(db: &Path, event: Option<i64>, json: bool) -> anyhow::Result<()> {
-    let doc = read(db, event)?;
-    if json {
+/// Runs `leaktally status` as the command line gave it: prints the
+/// document of one event, or of every open event.
+pub fn command(args: StatusArgs) -> anyhow::Result<()> {
+    let doc = read(&args.db, args.event)?;
+    if args.json {
         println!("{}", serde_json::to_string_pretty(&doc)?);
     } else {
         print!("{}", status::text(&doc));
