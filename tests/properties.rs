@@ -158,9 +158,12 @@ proptest! {
 
 mod command_line {
     use crate::util::{Scratch, binary, demo_site, run_for};
-    use leaktally::cli::{Cli, Command, HoleArgs, LeakCommand, Parser};
-    use leaktally::commands::leak::parse_since;
-    use leaktally::commands::whatif::parse_holes;
+    use leaktally::actions::parse_since;
+    use leaktally::cli::{Cli, Command, Parser};
+    use leaktally::commands::args::HoleArgs;
+    use leaktally::commands::leak::LeakCommand;
+    use leaktally::commands::replay::ReplayArgs;
+    use leaktally::commands::whatif::{WhatifArgs, parse_holes};
     use leaktally::config::units::Unit;
     use leaktally::model::Density;
     use proptest::prelude::*;
@@ -618,21 +621,21 @@ mod command_line {
     /// What the value helpers make of a parsed command's values.
     fn check_parsed(cli: &Cli, now_ms: i64) -> Result<(), TestCaseError> {
         match &cli.command {
-            Command::Replay {
+            Command::Replay(ReplayArgs {
                 changes, from, to, ..
-            } => {
+            }) => {
                 check_hole_args(&changes.hole)?;
                 for t in [from, to].into_iter().flatten() {
                     check_since(t, now_ms)?;
                 }
             }
-            Command::Whatif {
+            Command::Whatif(WhatifArgs {
                 hole_diameter,
                 hole_area,
                 horizons,
                 blanket_supply,
                 ..
-            } => {
+            }) => {
                 if let Some(text) = hole_diameter {
                     check_holes(text)?;
                 }
@@ -878,7 +881,7 @@ mod command_line {
 
 mod estimator {
     use leaktally::acquire::sample::{Quality, Reading, TankSample};
-    use leaktally::cli::HoleArgs;
+    use leaktally::commands::args::HoleArgs;
     use leaktally::config::Tank;
     use leaktally::estimate::{Estimate, LeakParams};
     use leaktally::estimator::Estimator;

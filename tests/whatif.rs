@@ -391,10 +391,7 @@ fn whatif_refuses_what_makes_no_sense_and_says_why() {
         );
     }
     // The same rule as `leak open --hole-diameter`, from the same function.
-    assert_eq!(
-        leaktally::commands::leak::HOLE_DIAMETER_RANGE_MM,
-        (0.1, 5000.0)
-    );
+    assert_eq!(leaktally::estimate::HOLE_DIAMETER_RANGE_MM, (0.1, 5000.0));
 
     // FF-T12 has no vapour properties: a supply cannot be forecast.
     let done = whatif(
@@ -407,6 +404,45 @@ fn whatif_refuses_what_makes_no_sense_and_says_why() {
         done.stderr.contains("no vapour properties"),
         "{}",
         done.stderr
+    );
+}
+
+/// A hole far under the smallest one `leak` takes is refused by `whatif`
+/// with the very words `leak open` uses, and its size said in a few
+/// characters (not as 300 zeros).
+#[test]
+fn whatif_refuses_a_tiny_hole_in_the_words_of_leak() {
+    let scratch = Scratch::new("whatif-tiny-hole");
+    let config = demo_config();
+    let error_line = |done: &Finished| -> String {
+        assert!(!done.status.success(), "accepted:\n{}", done.stdout);
+        done.stderr
+            .lines()
+            .find(|l| l.starts_with("error: "))
+            .unwrap_or_else(|| panic!("no error line in:\n{}", done.stderr))
+            .to_owned()
+    };
+    let whatif = error_line(&whatif(
+        &scratch,
+        &config,
+        &["--tank", "FF-T14", "--hole-diameter", "1e-300"],
+    ));
+    let mut leak = Command::new(binary("leaktally"));
+    leak.args([
+        "leak",
+        "open",
+        "--tank",
+        "FF-T14",
+        "--hole-diameter",
+        "1e-300",
+    ])
+    .arg("--db")
+    .arg(scratch.path("none.db"));
+    let leak = error_line(&run("leaktally-leak", &mut leak, &scratch));
+    assert_eq!(whatif, leak);
+    assert_eq!(
+        whatif,
+        "error: --hole-diameter 1e-300 mm is below 0.1 mm, smaller than any hole a tank leaks through; the option takes millimetres (25 for a one-inch hole)"
     );
 }
 

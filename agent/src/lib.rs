@@ -13,15 +13,21 @@
 //! * [`estimate`]: what an estimate holds, as numbers and enums (data only).
 //! * [`estimator`]: the clock-free estimator of one event.
 //! * [`store`]: the SQLite database and the daemon's one writer.
+//! * [`report`]: formatting figures for people, with units and the cautions;
+//!   the words for estimates and the status table.
+//! * [`status`]: the read model, the status document built from one
+//!   database connection.
+//! * [`actions`]: the operator-actions client: the requests, sending them,
+//!   the daemon's replies.
 //! * [`tracker`]: the daemon's open events, operator actions and writes.
-//! * [`report`]: formatting figures for people, with units and the cautions.
 //! * [`web`]: the daemon's read-only responder page, JSON and metrics.
-//! * [`commands`]: what each subcommand does.
-//! * [`cli`]: the command line.
+//! * [`commands`]: each subcommand's arguments and what it does.
+//! * [`cli`]: the command line, composed of the commands' arguments.
 //!
 //! Estimates for emergency planning, not measurements.
 
 pub mod acquire;
+pub mod actions;
 pub mod cli;
 pub mod clock;
 pub mod commands;
@@ -36,6 +42,7 @@ pub mod readings;
 pub mod registers;
 pub mod report;
 pub mod shutdown;
+pub mod status;
 pub mod store;
 pub mod tracker;
 pub mod web;

@@ -7,7 +7,7 @@ fn main() -> ExitCode {
     let cli = <leaktally::cli::Cli as clap::Parser>::parse();
     // The demo keeps the screen for its narration and logs to a file of its
     // own.
-    if !matches!(cli.command, leaktally::cli::Command::Demo { .. }) {
+    if !matches!(cli.command, leaktally::cli::Command::Demo(_)) {
         leaktally::logging::to_stderr();
     }
     match leaktally::cli::run(cli) {

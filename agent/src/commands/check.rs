@@ -24,7 +24,7 @@ use crate::registers::Table;
 use crate::registers::{DataType, WordOrder};
 use crate::report;
 use std::fmt::Write as _;
-use std::path::Path;
+use std::path::{Path, PathBuf};
 use std::time::Instant;
 
 /// The exit code of `leaktally check` when the config is valid but a device
@@ -47,6 +47,30 @@ pub struct DevicesFailed {
 pub struct Checked {
     pub text: String,
     pub failed: Option<DevicesFailed>,
+}
+
+/// `leaktally check`'s options.
+#[derive(Debug, clap::Args)]
+pub struct CheckArgs {
+    /// The site config (TOML).
+    #[arg(long, short)]
+    pub config: PathBuf,
+    /// Only validate and describe: do not read the devices.
+    #[arg(long)]
+    pub offline: bool,
+}
+
+/// Runs `leaktally check` as the command line gave it and prints the
+/// account; a valid config whose devices did not all answer is a
+/// [`DevicesFailed`] error, for the binary's exit code.
+pub fn command(args: CheckArgs) -> anyhow::Result<()> {
+    let checked = super::args::runtime()?.block_on(run(&args.config, args.offline))?;
+    print!("{}", checked.text);
+    match checked.failed {
+        // The binary exits with EXIT_DEVICES_FAILED for this.
+        Some(failed) => Err(failed.into()),
+        None => Ok(()),
+    }
 }
 
 /// Validates and describes a config and, unless `offline`, reads every

@@ -9,11 +9,12 @@
 //! Fennick Flats is a fictional fuel depot; its tanks, sizes and the leak
 //! are made up for the demo.
 
-use crate::commands::{leak, status, whatif};
+use crate::actions::{self, Request};
+use crate::commands::{status::read as read_status, whatif};
 use crate::model::{DischargeCoefficient, Length, Mass, MassRate, TimeSpan};
 use crate::report;
+use crate::status::{self, StatusDocument};
 use crate::store;
-use crate::tracker::Request;
 use anyhow::{Context, bail};
 use std::io::{BufRead, BufReader, IsTerminal, Write};
 use std::path::{Path, PathBuf};
@@ -47,6 +48,19 @@ impl Drop for Folder {
     fn drop(&mut self) {
         let _ = std::fs::remove_dir_all(&self.0);
     }
+}
+
+/// `leaktally demo`'s options.
+#[derive(Debug, clap::Args)]
+pub struct DemoArgs {
+    /// How long to track the leak after flagging it, seconds.
+    #[arg(long, default_value_t = 60)]
+    pub seconds: u64,
+}
+
+/// Runs `leaktally demo` as the command line gave it.
+pub fn command(args: DemoArgs) -> anyhow::Result<()> {
+    run(args.seconds)
 }
 
 /// Runs the demo; the leak is tracked for `seconds` after it is flagged.
@@ -202,13 +216,9 @@ async fn narrate(
         note: Some("demo: level falling, hole not yet seen".into()),
     };
     let db_owned = db.to_owned();
-    let reply = tokio::task::spawn_blocking(move || leak::send(&db_owned, &request)).await??;
-    println!("  {reply}");
-    let event: i64 = reply
-        .split_whitespace()
-        .nth(2)
-        .and_then(|w| w.parse().ok())
-        .context("the daemon's reply names no event")?;
+    let reply = tokio::task::spawn_blocking(move || actions::send(&db_owned, &request)).await??;
+    println!("  {}", reply.text);
+    let event = reply.event.context("the daemon's reply names no event")?;
     println!(
         "\nRunning totals (a responder sees the same with `leaktally status --db {}`",
         db.display()
@@ -220,7 +230,7 @@ async fn narrate(
     let terminal = std::io::stdout().is_terminal();
     for second in 1..=seconds {
         sleep_or_stop(Duration::from_secs(1), stop).await?;
-        let doc = status::document(db, Some(event))?;
+        let doc = read_status(db, Some(event))?;
         let line = progress_line(second, &doc);
         if terminal {
             print!("\r\x1b[2K{line}");
@@ -237,7 +247,7 @@ async fn narrate(
     println!("  $ leaktally leak close {event}");
     let db_owned = db.to_owned();
     let reply = tokio::task::spawn_blocking(move || {
-        leak::send(
+        actions::send(
             &db_owned,
             &Request::Close {
                 event,
@@ -246,9 +256,9 @@ async fn narrate(
         )
     })
     .await??;
-    println!("  {reply}\n");
-    let doc = status::document(db, Some(event))?;
-    print!("{}", status::human(&doc));
+    println!("  {}\n", reply.text);
+    let doc = read_status(db, Some(event))?;
+    print!("{}", status::text(&doc));
     compare_with_truth(dir, &doc);
     print_what_if(dir, &doc)?;
     Ok(())
@@ -275,7 +285,7 @@ fn web_address(dir: &Path) -> Option<String> {
         .map(str::to_owned)
 }
 
-fn progress_line(second: u64, doc: &status::StatusDocument) -> String {
+fn progress_line(second: u64, doc: &StatusDocument) -> String {
     let Some(est) = doc.events.first().and_then(|e| e.estimate.as_ref()) else {
         return format!("+{second:>3} s  waiting for the first sample");
     };
@@ -301,7 +311,7 @@ fn progress_line(second: u64, doc: &status::StatusDocument) -> String {
 }
 
 /// The simulator's truth at the moment of the last estimate.
-fn compare_with_truth(dir: &Path, doc: &status::StatusDocument) {
+fn compare_with_truth(dir: &Path, doc: &StatusDocument) {
     let Some(est) = doc.events.first().and_then(|e| e.estimate.as_ref()) else {
         return;
     };
@@ -334,7 +344,7 @@ fn compare_with_truth(dir: &Path, doc: &status::StatusDocument) {
 }
 
 /// What an engineer would look at next: the same tank with other holes.
-fn print_what_if(dir: &Path, doc: &status::StatusDocument) -> anyhow::Result<()> {
+fn print_what_if(dir: &Path, doc: &StatusDocument) -> anyhow::Result<()> {
     let config = crate::config::load(&dir.join("site.toml"))?;
     let tank = config
         .tanks

@@ -1,27 +1,72 @@
 //! `leaktally leak open|revise|note|close`: operator actions.
 //!
-//! The CLI does not change anything itself. It writes the request as an
-//! action row (one transaction, durable once committed), then waits for the
-//! daemon to pick it up and acknowledge it, and prints what the daemon did.
-//! If no daemon is running, it says so and writes nothing: a request nobody
-//! acts on would only mislead. A request the daemon has not acknowledged
-//! (busy, stalled on the database, or gone since) stays recorded and is
-//! applied with the time it was made; the CLI says which and why.
+//! It checks the options, builds the request and hands it to
+//! [`actions::send`], which writes it for the daemon and waits for its
+//! acknowledgement; then it prints what the daemon did.
+//!
+//! Left out: the waiting and what it says when the daemon does not answer
+//! (`crate::actions`).
 
-use crate::cli::{HoleArgs, LeakCommand, ParamChanges};
-use crate::model::DischargeCoefficient;
-use crate::report;
-use crate::store::{self, DaemonState, SILENT_AFTER_MS, StoreError};
-use crate::tracker::Request;
-use anyhow::bail;
-use std::path::Path;
-use std::time::{Duration, Instant};
+use super::args::{DEFAULT_DB, HoleArgs, ParamChangeArgs};
+use crate::actions::{self, Request, parse_since};
+use crate::store;
+use clap::Subcommand;
+use std::path::PathBuf;
 
-/// How long to wait for the daemon's acknowledgement.
-const ACK_WAIT: Duration = Duration::from_secs(20);
+#[derive(Debug, Subcommand)]
+pub enum LeakCommand {
+    /// Open a leak event on a tank.
+    Open {
+        /// The tank's id (tag) in the config.
+        #[arg(long)]
+        tank: String,
+        #[command(flatten)]
+        hole: HoleArgs,
+        /// When the leak began: a time today (13:42), a UTC time
+        /// (2026-12-01T13:42:00Z) or how long ago (90s, 5m, 1h30m).
+        /// The total is computed from then, from the logged history.
+        #[arg(long)]
+        since: Option<String>,
+        /// A note for the audit trail.
+        #[arg(long)]
+        note: Option<String>,
+        /// The SQLite database the daemon writes.
+        #[arg(long, default_value = DEFAULT_DB)]
+        db: PathBuf,
+    },
+    /// Recompute an event from its start with new parameters (logged).
+    Revise {
+        /// The event's id.
+        event: i64,
+        #[command(flatten)]
+        changes: ParamChangeArgs,
+        #[arg(long)]
+        note: Option<String>,
+        /// The SQLite database the daemon writes.
+        #[arg(long, default_value = DEFAULT_DB)]
+        db: PathBuf,
+    },
+    /// Add a note to an event's audit trail.
+    Note {
+        event: i64,
+        text: String,
+        /// The SQLite database the daemon writes.
+        #[arg(long, default_value = DEFAULT_DB)]
+        db: PathBuf,
+    },
+    /// Close an event once the leak is isolated; its total no longer changes.
+    Close {
+        event: i64,
+        #[arg(long)]
+        note: Option<String>,
+        /// The SQLite database the daemon writes.
+        #[arg(long, default_value = DEFAULT_DB)]
+        db: PathBuf,
+    },
+}
 
 /// Runs one `leak` subcommand.
-pub fn run(command: LeakCommand) -> anyhow::Result<()> {
+pub fn command(command: LeakCommand) -> anyhow::Result<()> {
     let now = store::now_ms();
     let (db, request) = match command {
         LeakCommand::Open {
@@ -42,12 +87,13 @@ pub fn run(command: LeakCommand) -> anyhow::Result<()> {
                 );
             }
             let since_ms = since.as_deref().map(|s| parse_since(s, now)).transpose()?;
+            let given = hole.change()?;
             let request = Request::Open {
                 tank,
-                hole_diameter_m: hole.diameter_m()?,
-                hole_height_m: hole.height_m()?,
-                cd: hole.cd_checked()?,
-                cd_range: hole.cd_range_checked()?,
+                hole_diameter_m: given.hole_diameter_m,
+                hole_height_m: given.hole_height_m,
+                cd: given.cd,
+                cd_range: given.cd_range,
                 since_ms,
                 note,
             };
@@ -59,15 +105,9 @@ pub fn run(command: LeakCommand) -> anyhow::Result<()> {
             note,
             db,
         } => {
-            let c = changes.checked()?;
             let request = Request::Revise {
                 event,
-                hole_diameter_m: c.hole_diameter_m,
-                unknown_diameter: c.unknown_diameter,
-                hole_height_m: c.hole_height_m,
-                cd: c.cd,
-                cd_range: c.cd_range,
-                density_kg_m3: c.density_kg_m3,
+                change: changes.change()?,
                 note,
             };
             (db, request)
@@ -75,403 +115,9 @@ pub fn run(command: LeakCommand) -> anyhow::Result<()> {
         LeakCommand::Note { event, text, db } => (db, Request::Note { event, text }),
         LeakCommand::Close { event, note, db } => (db, Request::Close { event, note }),
     };
-    let outcome = send(&db, &request)?;
+    let reply = actions::send(&db, &request)?;
     // The daemon's outcome quotes the operator's note and tank id; a
     // control character in them must not reach the terminal as one.
-    println!("{}", crate::logging::one_line(&outcome));
+    println!("{}", crate::logging::one_line(&reply.text));
     Ok(())
-}
-
-/// [`ParamChanges`] with every value checked, in SI.
-pub struct CheckedChanges {
-    pub hole_diameter_m: Option<f64>,
-    pub unknown_diameter: bool,
-    pub hole_height_m: Option<f64>,
-    pub cd: Option<f64>,
-    pub cd_range: Option<(f64, f64)>,
-    pub density_kg_m3: Option<f64>,
-}
-
-impl ParamChanges {
-    pub fn checked(&self) -> anyhow::Result<CheckedChanges> {
-        Ok(CheckedChanges {
-            hole_diameter_m: self.hole.diameter_m()?,
-            unknown_diameter: self.unknown_diameter,
-            hole_height_m: self.hole.height_m()?,
-            cd: self.hole.cd_checked()?,
-            cd_range: self.hole.cd_range_checked()?,
-            density_kg_m3: check_density(self.density)?,
-        })
-    }
-}
-
-/// `--density`: a liquid's density in kg/m³ within the model's range.
-fn check_density(density: Option<f64>) -> anyhow::Result<Option<f64>> {
-    let (lo, hi) = crate::model::vessel::DENSITY_RANGE;
-    match density {
-        Some(d) if !(d.is_finite() && (lo..=hi).contains(&d)) => bail!(
-            "--density {d} is outside {lo} to {hi} kg/m³; give the liquid's density in kg/m³ (diesel is about 840)"
-        ),
-        other => Ok(other),
-    }
-}
-
-/// The hole sizes the command line accepts, as a round hole's diameter in
-/// mm: from 0.1 mm (smaller than any hole a tank leaks through, and a size
-/// whose flow is below what any level gauge could see) to 5 m (past a
-/// tank's wall; more likely metres typed for millimetres). The one rule for
-/// every command that takes a hole: `leak open`, `leak revise`, `replay` and
-/// `whatif`, whether the size is given as a diameter or an area.
-pub const HOLE_DIAMETER_RANGE_MM: (f64, f64) = (0.1, 5000.0);
-
-/// Why a round hole of this diameter (mm) is refused, or `None` when it is
-/// accepted; the words follow the figure in the caller's message.
-pub fn hole_diameter_refusal(mm: f64) -> Option<&'static str> {
-    let (min, max) = HOLE_DIAMETER_RANGE_MM;
-    if !(mm.is_finite() && mm > 0.0) {
-        Some("is not a positive size")
-    } else if mm < min {
-        Some("is below 0.1 mm, smaller than any hole a tank leaks through")
-    } else if mm > max {
-        Some("is over 5 m")
-    } else {
-        None
-    }
-}
-
-impl HoleArgs {
-    pub fn diameter_m(&self) -> anyhow::Result<Option<f64>> {
-        match self.hole_diameter {
-            Some(mm) => match hole_diameter_refusal(mm) {
-                Some(why) => bail!(
-                    "--hole-diameter {mm} mm {why}; the option takes millimetres (25 for a one-inch hole)"
-                ),
-                None => Ok(Some(mm / 1000.0)),
-            },
-            None => Ok(None),
-        }
-    }
-
-    pub fn height_m(&self) -> anyhow::Result<Option<f64>> {
-        match self.hole_height {
-            Some(h) if !(h.is_finite() && h >= 0.0) => {
-                bail!(
-                    "--hole-height {h} must be the height above the tank bottom in metres, 0 or more"
-                )
-            }
-            other => Ok(other),
-        }
-    }
-
-    pub fn cd_checked(&self) -> anyhow::Result<Option<f64>> {
-        match self.cd {
-            Some(cd) => Ok(Some(DischargeCoefficient::new(cd)?.get())),
-            None => Ok(None),
-        }
-    }
-
-    /// `--cd-range LOW..HIGH`: two Cds, low first, that include `--cd`
-    /// (or 1.0, the default Cd, when none is given).
-    pub fn cd_range_checked(&self) -> anyhow::Result<Option<(f64, f64)>> {
-        let Some(text) = &self.cd_range else {
-            return Ok(None);
-        };
-        let parsed = text.split_once("..").and_then(|(a, b)| {
-            Some((a.trim().parse::<f64>().ok()?, b.trim().parse::<f64>().ok()?))
-        });
-        let Some((low, high)) = parsed else {
-            bail!("--cd-range {text:?} is not LOW..HIGH; write it like 0.60..0.65");
-        };
-        DischargeCoefficient::new(low)?;
-        DischargeCoefficient::new(high)?;
-        if low > high {
-            bail!(
-                "--cd-range {text}: the low end is above the high end; write it low first, like 0.60..0.65"
-            );
-        }
-        let cd = self.cd.unwrap_or(1.0);
-        if !(low..=high).contains(&cd) {
-            bail!(
-                "--cd-range {text} does not include the Cd {cd}{}; give a --cd inside the range",
-                if self.cd.is_none() {
-                    " (the default, since no --cd is given)"
-                } else {
-                    ""
-                }
-            );
-        }
-        Ok(Some((low, high)))
-    }
-}
-
-/// Sends a request to the daemon and waits for its acknowledgement; returns
-/// the daemon's account of what it did.
-///
-/// A request is only written when a daemon can take it: one that is
-/// running (busy or not), or stalled on the database (it takes the request
-/// once it can write again). With no daemon it says so and writes nothing.
-/// A request written in the seconds after a daemon died or stalled (its
-/// heartbeat still fresh) stays in its row and is applied, with the time it
-/// was made, by the next daemon or once the daemon can write; the wait says
-/// so as soon as the heartbeat goes stale.
-pub fn send(db: &Path, request: &Request) -> anyhow::Result<String> {
-    if !db.exists() {
-        bail!(
-            "the database {} does not exist, so no daemon is running on it; start one with `leaktally run --config FILE --db {}`",
-            db.display(),
-            db.display()
-        );
-    }
-    let conn = store::open_for_requests(db)?;
-    let heartbeat = store::heartbeat(&conn).map_err(|e| damage_said(e, db))?;
-    let Some(h) = heartbeat else {
-        bail!(
-            "no leaktally daemon has ever run on {}; start it with `leaktally run --config FILE --db {}`; nothing was changed",
-            db.display(),
-            db.display()
-        );
-    };
-    match h.state(store::now_ms()) {
-        DaemonState::NotRunning => {
-            // Why it is not running may be the file itself: the daemon
-            // refuses to start on a damaged one.
-            store::check_integrity(db, &conn)?;
-            bail!(
-                "no leaktally daemon is running on {} (last seen {}); start it with `leaktally run --config {} --db {}`; nothing was changed",
-                db.display(),
-                report::utc(h.beat_at_ms),
-                h.config,
-                db.display()
-            )
-        }
-        DaemonState::Stalled => {
-            // A damaged file stalls a daemon too; never write to one.
-            store::check_integrity(db, &conn)?;
-            eprintln!(
-                "warning: the leaktally daemon on {} (pid {}) is running but stalled on the database: it has not written to it since {}; it takes this request once it can write again",
-                db.display(),
-                h.pid,
-                report::utc(h.beat_at_ms)
-            )
-        }
-        DaemonState::Running | DaemonState::Busy { .. } => {}
-    }
-    let value = serde_json::to_value(request)?;
-    let id = store::request_action(&conn, request.kind(), request.event(), &value, &who())
-        .map_err(|e| {
-            anyhow::Error::from(damage_said(e, db)).context(format!(
-                "recording the request in {}; nothing was changed",
-                db.display()
-            ))
-        })?;
-    let action = store::action(&conn, id)?
-        .ok_or_else(|| StoreError::Corrupt(format!("action {id} vanished")))?;
-    let made = report::utc(action.requested_at_ms);
-    let restart = format!(
-        "`leaktally run --config {} --db {}`",
-        h.config,
-        db.display()
-    );
-    let started = Instant::now();
-    loop {
-        std::thread::sleep(Duration::from_millis(100));
-        let action = store::action(&conn, id)?
-            .ok_or_else(|| StoreError::Corrupt(format!("action {id} vanished")))?;
-        match action.state.as_str() {
-            "done" => return Ok(action.outcome.unwrap_or_default()),
-            "refused" => bail!(
-                "the daemon refused: {}",
-                crate::logging::one_line(&action.outcome.unwrap_or_default())
-            ),
-            _ => {}
-        }
-        let now = store::now_ms();
-        let state = store::heartbeat(&conn)?.map_or(DaemonState::NotRunning, |h| h.state(now));
-        let waited = started.elapsed() > ACK_WAIT;
-        match state {
-            DaemonState::NotRunning => bail!(
-                "the daemon stopped before it took request {id}; the request is recorded and will be applied, with the time it was made ({made}), when a daemon next starts on {}: {restart}",
-                db.display()
-            ),
-            // As soon as it shows (a heartbeat 5 s stale): it will not
-            // take the request until it can write, however long that is.
-            DaemonState::Stalled => bail!(
-                "the daemon is running but stalled on the database (it has not written to it for over {} s: another program holding the write lock, a full disk, or a disk that does not answer; its log says which); request {id} is recorded and will be applied, with the time it was made ({made}), once it can write again; `leaktally status` shows when",
-                SILENT_AFTER_MS / 1000
-            ),
-            DaemonState::Busy { for_ms, activity } if waited => bail!(
-                "the daemon is running but busy ({activity}, for {} s), and has not taken request {id} yet; the request is recorded and it will apply it, with the time it was made ({made}), as soon as it gets to it; `leaktally status` shows when",
-                for_ms / 1000
-            ),
-            _ if waited => bail!(
-                "the daemon is running but has not taken request {id} within {} s; the request is recorded and will be applied, with the time it was made ({made}); see the daemon's log, and `leaktally status`",
-                ACK_WAIT.as_secs()
-            ),
-            _ => {}
-        }
-    }
-}
-
-/// A store error, with the damaged-database message when SQLite says the
-/// file is damaged.
-fn damage_said(e: StoreError, db: &Path) -> StoreError {
-    if e.is_damage() && !matches!(e, StoreError::Damaged { .. }) {
-        StoreError::Damaged {
-            path: db.to_owned(),
-            details: e.to_string(),
-        }
-    } else {
-        e
-    }
-}
-
-/// The operating-system user and host, for the audit trail.
-pub fn who() -> (String, String) {
-    let user = std::env::var("USER")
-        .or_else(|_| std::env::var("LOGNAME"))
-        .ok()
-        .or_else(user_from_uid)
-        .unwrap_or_else(|| "unknown".into());
-    let host = std::fs::read_to_string("/proc/sys/kernel/hostname")
-        .map(|h| h.trim().to_owned())
-        .or_else(|_| std::env::var("HOSTNAME"))
-        .unwrap_or_else(|_| "unknown".into());
-    (user, host)
-}
-
-/// The login name of this process's real uid, from /proc and /etc/passwd,
-/// for sessions (services, sudo, cron) that set no USER.
-fn user_from_uid() -> Option<String> {
-    let status = std::fs::read_to_string("/proc/self/status").ok()?;
-    let uid = status
-        .lines()
-        .find_map(|l| l.strip_prefix("Uid:"))?
-        .split_whitespace()
-        .next()?
-        .to_owned();
-    let passwd = std::fs::read_to_string("/etc/passwd").ok()?;
-    passwd.lines().find_map(|line| {
-        let mut fields = line.split(':');
-        let name = fields.next()?;
-        (fields.nth(1)? == uid).then(|| name.to_owned())
-    })
-}
-
-/// Parses `--since`: an RFC 3339 time (`2026-12-01T13:42:00Z`), a time of
-/// day today in this machine's time zone (`13:42` or `13:42:30`; yesterday
-/// only when that is less than 3 h ago, as just after midnight), or a
-/// duration ago (`90s`, `5m`, `1h30m`).
-pub fn parse_since(text: &str, now_ms: i64) -> anyhow::Result<i64> {
-    let text = text.trim();
-    if let Some(ago) = parse_duration(text) {
-        if ago > MAX_AGO {
-            bail!(
-                "--since {text} is more than {} days ago; no logged history goes back that far; give a full time such as 2026-12-01T13:42:00Z",
-                MAX_AGO.as_secs() / 86_400
-            );
-        }
-        return Ok(now_ms.saturating_sub(ago.as_millis() as i64));
-    }
-    if let Ok(t) = text.parse::<jiff::Timestamp>() {
-        return Ok(t.as_millisecond());
-    }
-    if let Ok(time) = text.parse::<jiff::civil::Time>() {
-        let now = jiff::Timestamp::from_millisecond(now_ms)?
-            .to_zoned_datetime(jiff::tz::TimeZone::system());
-        let mut at = now
-            .date()
-            .to_datetime(time)
-            .to_zoned_datetime(now.time_zone().clone())?;
-        if at.timestamp() > now.timestamp() {
-            // Just after midnight, 23:55 means a few minutes ago, yesterday.
-            // Much further back, a time still to come today is a slip.
-            at = at.yesterday()?;
-            if now_ms - at.timestamp().as_millisecond() > 3 * 3_600_000 {
-                bail!(
-                    "--since {text} is later than the time now ({}); give how long ago (like 20m) or a full time such as {}",
-                    now.strftime("%H:%M"),
-                    at.strftime("%Y-%m-%dT%H:%M:%S%:z")
-                );
-            }
-        }
-        return Ok(at.timestamp().as_millisecond());
-    }
-    bail!(
-        "--since {text:?} is not a time or a duration; write a time today like 13:42, a UTC time like 2026-12-01T13:42:00Z, or how long ago like 90s, 5m or 1h30m"
-    )
-}
-
-/// The furthest back a duration may go: a year is past any event's logged
-/// history (the rolling window keeps 24 h; event samples are kept).
-const MAX_AGO: Duration = Duration::from_secs(366 * 86_400);
-
-/// `90s`, `5m`, `1h30m`, `2h`: a duration from number-and-unit parts.
-pub fn parse_duration(text: &str) -> Option<Duration> {
-    let mut total = 0.0;
-    let mut number = String::new();
-    let mut any = false;
-    let mut chars = text.chars().peekable();
-    while let Some(c) = chars.next() {
-        if c.is_ascii_digit() || c == '.' {
-            number.push(c);
-            continue;
-        }
-        let mut unit = c.to_string();
-        while let Some(&n) = chars.peek() {
-            if n.is_ascii_alphabetic() {
-                unit.push(n);
-                chars.next();
-            } else {
-                break;
-            }
-        }
-        let value: f64 = number.parse().ok()?;
-        number.clear();
-        let seconds = match unit.as_str() {
-            "s" | "sec" => 1.0,
-            "m" | "min" => 60.0,
-            "h" | "hr" => 3600.0,
-            _ => return None,
-        };
-        total += value * seconds;
-        any = true;
-    }
-    if !(any && number.is_empty()) {
-        return None;
-    }
-    // Refuses NaN, negatives and sizes past Duration's range.
-    Duration::try_from_secs_f64(total).ok()
-}
-
-#[cfg(test)]
-mod tests {
-    use super::*;
-
-    #[test]
-    fn since_accepts_durations_and_times() {
-        let now = jiff::Timestamp::from_second(1_780_000_000)
-            .unwrap()
-            .as_millisecond();
-        assert_eq!(parse_since("90s", now).unwrap(), now - 90_000);
-        assert_eq!(parse_since("1h30m", now).unwrap(), now - 5_400_000);
-        assert_eq!(
-            parse_since("2026-05-28T20:00:00Z", now).unwrap(),
-            1_779_998_400_000
-        );
-        let today = parse_since("00:00", now).unwrap();
-        assert!(today <= now && now - today < 86_400_000);
-        let err = parse_since("9000h", now).unwrap_err().to_string();
-        assert!(err.contains("more than 366 days ago"), "{err}");
-        for bad in [
-            "soon",
-            "5 parsecs",
-            "12:99",
-            "-5m",
-            "",
-            "99999999999999999999s",
-        ] {
-            let err = parse_since(bad, now).unwrap_err().to_string();
-            assert!(err.contains("is not a time or a duration"), "{bad}: {err}");
-        }
-    }
 }

@@ -1,5 +1,10 @@
-//! The subcommands, one module each. `cli` parses; these do the work.
+//! The subcommands, one module each: its command-line arguments (clap
+//! types) and the work. `cli` only composes them into the top-level parser
+//! and dispatches; nothing here imports it.
+//!
+//! * [`args`]: the arguments more than one command takes.
 
+pub mod args;
 pub mod check;
 pub mod demo;
 pub mod leak;

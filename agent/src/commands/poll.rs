@@ -9,11 +9,32 @@ use crate::acquire;
 use crate::acquire::sample::Quality;
 use std::collections::BTreeMap;
 use std::io::Write as _;
-use std::path::Path;
+use std::path::{Path, PathBuf};
 use std::sync::Arc;
 use std::time::Duration;
 use tokio_util::sync::CancellationToken;
 use tokio_util::task::TaskTracker;
+
+/// `leaktally poll`'s options.
+#[derive(Debug, clap::Args)]
+pub struct PollArgs {
+    /// The site config (TOML).
+    #[arg(long, short)]
+    pub config: PathBuf,
+    /// Stop after this many seconds (default: until Ctrl-C).
+    #[arg(long)]
+    pub seconds: Option<f64>,
+}
+
+/// Runs `leaktally poll` as the command line gave it, until the time is up
+/// or the process is told to stop.
+pub fn command(args: PollArgs) -> anyhow::Result<()> {
+    super::args::runtime()?.block_on(run(
+        &args.config,
+        args.seconds,
+        crate::shutdown::signalled(),
+    ))
+}
 
 /// Polls until `seconds` have passed (forever if `None`) or `stop` resolves.
 pub async fn run(

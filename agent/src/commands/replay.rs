@@ -21,16 +21,17 @@
 //! file beside it and renamed into place when the replay has succeeded, so
 //! an interrupted replay never leaves half a file under the final name.
 
+use super::args::{DEFAULT_DB, ParamChangeArgs};
 use crate::acquire::sample::TankSample;
+use crate::actions::parse_since;
 use crate::config::{Config, Tank};
-use crate::estimate::{Estimate, LeakParams};
+use crate::estimate::{Estimate, LeakParams, ParamChange};
 use crate::estimator::Estimator;
 use crate::model::{Density, Mass, MassRate, TimeSpan};
 use crate::plot::{self, ChartLabels, ChartSeries};
 use crate::readings::{self, Import, ImportReport, Layout, Target, TimeOrder, Verdict};
-use crate::report;
+use crate::report::{self, estimate::describe_params};
 use crate::store;
-use crate::tracker::describe_params;
 use anyhow::{Context, bail};
 use serde::Serialize;
 use std::collections::VecDeque;
@@ -39,53 +40,175 @@ use std::fs::File;
 use std::io::{IsTerminal, Write as _};
 use std::path::{Path, PathBuf};
 
-/// Parameter changes for a replay; `None` keeps the logged value.
+/// `leaktally replay`'s options.
+#[derive(Debug, clap::Args)]
+pub struct ReplayArgs {
+    /// The event's id (leave out with --readings).
+    #[arg(required_unless_present = "readings")]
+    pub event: Option<i64>,
+    /// A CSV of timestamped readings instead of a logged event (see the
+    /// README for the columns); needs --tank and --config.
+    #[arg(long, requires_all = ["tank", "config"], conflicts_with = "event")]
+    pub readings: Option<PathBuf>,
+    #[command(flatten)]
+    pub layout: Box<ReadingsArgs>,
+    /// The tank the readings are from.
+    #[arg(long)]
+    pub tank: Option<String>,
+    /// The site config (default for an event: the one its daemon ran with).
+    #[arg(long, short)]
+    pub config: Option<PathBuf>,
+    #[command(flatten)]
+    pub changes: ParamChangeArgs,
+    /// Start the replay here instead of at the event's start (a time, a
+    /// UTC time, or how long ago, as for `leak open --since`).
+    #[arg(long)]
+    pub from: Option<String>,
+    /// End the replay here.
+    #[arg(long)]
+    pub to: Option<String>,
+    /// Write the time series to this CSV file.
+    #[arg(long, value_name = "FILE")]
+    pub csv: Option<PathBuf>,
+    /// Write a chart of rate and cumulative release to this SVG file.
+    #[arg(long, value_name = "FILE.svg")]
+    pub plot: Option<PathBuf>,
+    /// Print the summary as JSON.
+    #[arg(long)]
+    pub json: bool,
+    /// Replace the --csv and --plot files if they exist.
+    #[arg(long)]
+    pub force: bool,
+    /// The SQLite database the daemon writes.
+    #[arg(long, default_value = DEFAULT_DB)]
+    pub db: PathBuf,
+}
+
+/// How to read a readings file (`replay --readings`), beyond its header.
+/// Boxed in the command: parsed once, and it would make every other
+/// subcommand's value as large.
+#[derive(Debug, Clone, clap::Args)]
+pub struct ReadingsArgs {
+    /// What a column of the readings holds, e.g. "PT-14 [kPa(g)]=pressure,kPa,gauge":
+    /// QUANTITY (time, level, pressure, transfer, temperature, tank or unused),
+    /// then the unit, and for pressure gauge|absolute and headspace|tap=M;
+    /// repeat for more columns.
+    #[arg(
+        long = "column",
+        value_name = "NAME=QUANTITY,UNIT,...",
+        requires = "readings"
+    )]
+    pub column: Vec<String>,
+    /// A TOML file describing the readings' columns and format (default:
+    /// <readings file>.columns.toml beside it, when there is one).
+    #[arg(long = "columns", value_name = "FILE.toml", requires = "readings")]
+    pub columns_file: Option<PathBuf>,
+    /// The readings' field separator: , ; tab | or space (default: read
+    /// from the header line).
+    #[arg(long, value_name = "CHAR", requires = "readings")]
+    pub separator: Option<String>,
+    /// The readings write decimals with a comma (1,5).
+    #[arg(long, requires = "readings")]
+    pub decimal_comma: bool,
+    /// The time zone of readings times written without an offset: an IANA
+    /// name (Europe/Berlin), UTC, or an offset (+01:00). Default UTC.
+    #[arg(long, value_name = "ZONE", requires = "readings")]
+    pub time_zone: Option<String>,
+    /// How the readings write times: auto, unix_s, unix_ms, or a strftime
+    /// pattern such as "%d.%m.%Y %H:%M:%S".
+    #[arg(long, value_name = "FORMAT", requires = "readings")]
+    pub time_format: Option<String>,
+    /// The headspace gauge pressure, kPa, held for the whole readings file,
+    /// for a file with no pressure column.
+    #[arg(
+        long,
+        value_name = "KPA",
+        requires = "readings",
+        allow_negative_numbers = true
+    )]
+    pub headspace: Option<f64>,
+}
+
+/// Runs `leaktally replay` as the command line gave it: checks the options,
+/// replays and prints the summary.
+pub fn command(args: ReplayArgs) -> anyhow::Result<()> {
+    let ReplayArgs {
+        event,
+        readings,
+        layout,
+        tank,
+        config,
+        changes,
+        from,
+        to,
+        csv,
+        plot,
+        json,
+        force,
+        db,
+    } = args;
+    let now = store::now_ms();
+    let when = |t: Option<String>| t.map(|t| parse_since(&t, now)).transpose();
+    let overrides = Overrides {
+        change: changes.change()?,
+        from_ms: when(from)?,
+        to_ms: when(to)?,
+    };
+    if let Some(p) = &plot
+        && p.extension().is_none_or(|e| e != "svg")
+    {
+        anyhow::bail!(
+            "--plot {}: the chart is written as SVG; give a file name ending in .svg",
+            p.display()
+        );
+    }
+    let mut protect = Vec::new();
+    let source = match (event, readings) {
+        (_, Some(file)) => {
+            protect.push(db);
+            Source::Readings {
+                file,
+                tank: tank.unwrap_or_default(),
+                config: config.unwrap_or_default(),
+                options: ReadingsOptions {
+                    columns: layout.column,
+                    columns_file: layout.columns_file,
+                    separator: layout.separator,
+                    decimal_comma: layout.decimal_comma,
+                    time_zone: layout.time_zone,
+                    time_format: layout.time_format,
+                    headspace_kpa: layout.headspace,
+                },
+            }
+        }
+        (Some(event), None) => Source::Event { db, event, config },
+        (None, None) => {
+            anyhow::bail!("give an event id, or --readings FILE with --tank and --config")
+        }
+    };
+    let outputs = Outputs {
+        csv,
+        plot,
+        json,
+        force,
+        protect,
+    };
+    print!("{}", run(source, &overrides, &outputs)?);
+    Ok(())
+}
+
+/// What a replay changes: the parameters (`None` keeps the logged value)
+/// and the stretch replayed.
 #[derive(Debug, Clone, Default)]
 pub struct Overrides {
-    pub hole_diameter_m: Option<f64>,
-    pub unknown_diameter: bool,
-    pub hole_height_m: Option<f64>,
-    pub cd: Option<f64>,
-    pub cd_range: Option<(f64, f64)>,
-    pub density_kg_m3: Option<f64>,
+    pub change: ParamChange,
     pub from_ms: Option<i64>,
     pub to_ms: Option<i64>,
 }
 
 impl Overrides {
     fn any(&self) -> bool {
-        self.hole_diameter_m.is_some()
-            || self.unknown_diameter
-            || self.hole_height_m.is_some()
-            || self.cd.is_some()
-            || self.cd_range.is_some()
-            || self.density_kg_m3.is_some()
-            || self.from_ms.is_some()
-            || self.to_ms.is_some()
-    }
-
-    fn apply(&self, mut p: LeakParams) -> LeakParams {
-        if self.unknown_diameter {
-            p.hole_diameter_m = None;
-        }
-        if self.hole_diameter_m.is_some() {
-            p.hole_diameter_m = self.hole_diameter_m;
-        }
-        if let Some(h) = self.hole_height_m {
-            p.hole_height_m = h;
-            p.hole_height_assumed = false;
-        }
-        if let Some(c) = self.cd {
-            p.cd = c;
-            p.cd_assumed = false;
-        }
-        if self.cd_range.is_some() {
-            p.cd_range = self.cd_range;
-        }
-        if self.density_kg_m3.is_some() {
-            p.density_kg_m3 = self.density_kg_m3;
-        }
-        p
+        !self.change.is_empty() || self.from_ms.is_some() || self.to_ms.is_some()
     }
 }
 
@@ -227,7 +350,7 @@ fn replay_event(
         )
     })?;
     let (tank, interval) = tank_of(&config, &row.tank)?;
-    let params = overrides.apply(row.params);
+    let params = row.params.with(&overrides.change);
     let live_last = store::latest_estimate(&conn, &row)?;
     let from = overrides.from_ms.unwrap_or(row.start_ms);
     // A closed event ends with its last live estimate: a sample taken just
@@ -403,7 +526,7 @@ fn replay_readings(
     check_outputs(outputs, &inputs)?;
     let config = crate::config::load(config_path)?;
     let (tank, interval) = tank_of(&config, tank_id)?;
-    let params = overrides.apply(LeakParams::default());
+    let params = LeakParams::default().with(&overrides.change);
     // Parameters are checked before the file is read.
     Estimator::new(tank, params, 0, interval)?;
     let ambient = tank.vessel.ambient().si();
@@ -1108,7 +1231,7 @@ pub fn human(s: &Summary) -> String {
             out,
             "reportable   {}: {}",
             kg(c.quantity_kg),
-            crate::commands::status::crossing_text(c)
+            report::estimate::crossing_text(c)
         );
     }
     match s.identical {

@@ -22,7 +22,11 @@
 //! vents through a hole below the surface once the liquid has gone (a study
 //! with the hole above the liquid gives that).
 
+use crate::actions::parse_duration;
 use crate::config::Tank;
+use crate::estimate::{
+    check_cd, check_hole_diameter_mm, check_hole_height_m, given_figure, hole_diameter_refusal,
+};
 use crate::model::blowdown::{Blowdown, BlowdownEnd, BlowdownForecast, Thermal, Ullage};
 use crate::model::{
     AbsolutePressure, DischargeCoefficient, GAS_CONSTANT, GasProperties, GasRegime, Hole, Length,
@@ -35,7 +39,7 @@ use anyhow::{Context, bail};
 use serde::Serialize;
 use std::f64::consts::FRAC_PI_4;
 use std::fmt::Write as _;
-use std::path::Path;
+use std::path::{Path, PathBuf};
 
 /// The version of the JSON document; fields are only ever added.
 pub const FORMAT: u32 = 1;
@@ -1621,10 +1625,149 @@ fn reach_table(s: &Study, out: &mut String) {
 }
 
 // ---------------------------------------------------------------------------
+// The command line
+
+/// `leaktally whatif`'s options.
+#[derive(Debug, clap::Args)]
+pub struct WhatifArgs {
+    /// The tank's id (tag) in the config.
+    #[arg(long)]
+    pub tank: String,
+    /// The site config (TOML).
+    #[arg(long, short, default_value = "leaktally.toml")]
+    pub config: PathBuf,
+    /// Hole diameters in mm, comma-separated (default: 6.35,25.4,101.6,
+    /// the small, medium and large holes of risk-based inspection).
+    #[arg(long, value_name = "MM[,MM...]", conflicts_with = "hole_area")]
+    pub hole_diameter: Option<String>,
+    /// Hole areas in mm², comma-separated, instead of diameters (each
+    /// taken as the round hole of that area).
+    #[arg(long, value_name = "MM2[,MM2...]")]
+    pub hole_area: Option<String>,
+    /// Height of the hole above the tank bottom, m (default: the bottom,
+    /// which releases the most). Above the liquid, the headspace gas vents.
+    #[arg(long, value_name = "M", allow_negative_numbers = true)]
+    pub hole_height: Option<f64>,
+    /// Liquid level, m (default: 90 % of the tank's height).
+    #[arg(long, value_name = "M", allow_negative_numbers = true)]
+    pub level: Option<f64>,
+    /// Also give the time until the liquid falls to this level, m.
+    #[arg(long, value_name = "M", allow_negative_numbers = true)]
+    pub to_level: Option<f64>,
+    /// Headspace pressure, kPa gauge (default: the last logged reading
+    /// with --db, else the config's nominal_headspace_kpa or
+    /// headspace_kpa, else 0 with a warning).
+    #[arg(
+        long,
+        value_name = "KPA",
+        allow_negative_numbers = true,
+        conflicts_with = "headspace_abs"
+    )]
+    pub headspace: Option<f64>,
+    /// Headspace pressure, kPa absolute, instead of --headspace.
+    #[arg(long, value_name = "KPA", allow_negative_numbers = true)]
+    pub headspace_abs: Option<f64>,
+    /// Read the tank's last good pressure from this database (read-only)
+    /// for the headspace.
+    #[arg(long, value_name = "FILE")]
+    pub db: Option<PathBuf>,
+    /// Horizons for the released totals, comma-separated (default:
+    /// 15m,1h), like 5m,30m,2h.
+    #[arg(long, value_name = "T[,T...]")]
+    pub horizons: Option<String>,
+    /// For a hole above the liquid: a blanket regulator keeps feeding pad
+    /// gas at up to this rate, with its unit: 50Nm3/h (0 °C, 101.325
+    /// kPa), 60kg/h or 0.02kg/s (default: off).
+    #[arg(long, value_name = "RATE")]
+    pub blanket_supply: Option<String>,
+    /// Discharge coefficient, 0.1 to 1 (default 1.0, conservative).
+    #[arg(long, allow_negative_numbers = true)]
+    pub cd: Option<f64>,
+    /// Print JSON instead of the tables.
+    #[arg(long)]
+    pub json: bool,
+}
+
+/// Runs `leaktally whatif` as the command line gave it: checks the options,
+/// makes the study and prints it.
+pub fn command(args: WhatifArgs) -> anyhow::Result<()> {
+    let WhatifArgs {
+        tank,
+        config,
+        hole_diameter,
+        hole_area,
+        hole_height,
+        level,
+        to_level,
+        headspace: headspace_gauge,
+        headspace_abs,
+        db,
+        horizons,
+        blanket_supply,
+        cd,
+        json,
+    } = args;
+    let config = crate::config::load(&config)?;
+    let Some(t) = config.tanks.iter().find(|t| t.id == tank) else {
+        let known: Vec<&str> = config.tanks.iter().map(|t| t.id.as_str()).collect();
+        bail!(
+            "there is no tank {tank:?} in {}; the tanks are: {}",
+            config.path.display(),
+            known.join(", ")
+        );
+    };
+    let mut holes = Vec::new();
+    if let Some(text) = hole_diameter {
+        holes.extend(parse_holes(&text)?.into_iter().map(HoleSize::Diameter));
+    }
+    if let Some(text) = hole_area {
+        holes.extend(parse_hole_areas(&text)?.into_iter().map(HoleSize::Area));
+    }
+    let metres = |value: Option<f64>, option: &str| -> anyhow::Result<_> {
+        match value {
+            Some(m) if !m.is_finite() || m < 0.0 => {
+                bail!("{option} {m} must be a height above the tank bottom in metres, 0 or more")
+            }
+            other => Ok(other.map(Length::metres)),
+        }
+    };
+    let given = match (headspace_gauge, headspace_abs) {
+        (Some(kpa), _) => Some(HeadspaceGiven::Gauge(kpa)),
+        (None, Some(kpa)) => Some(HeadspaceGiven::Absolute(kpa)),
+        (None, None) => None,
+    };
+    let request = Request {
+        level: metres(level, "--level")?,
+        hole_height: hole_height
+            .map(check_hole_height_m)
+            .transpose()?
+            .map(Length::metres),
+        cd: cd
+            .map(check_cd)
+            .transpose()?
+            .map(DischargeCoefficient::new)
+            .transpose()?,
+        holes,
+        headspace: headspace(t, given, db.as_deref(), crate::store::now_ms())?,
+        horizons: horizons.as_deref().map(parse_horizons).transpose()?,
+        to_level: metres(to_level, "--to-level")?,
+        supply: blanket_supply.as_deref().map(parse_supply).transpose()?,
+    };
+    let study = compute(t, &request)?;
+    if json {
+        println!("{}", serde_json::to_string_pretty(&study)?);
+    } else {
+        print!("{}", human(&study));
+    }
+    Ok(())
+}
+
+// ---------------------------------------------------------------------------
 // Parsing the options
 
 /// Parses `--hole-diameter 6,25,100` (millimetres), each size checked by the
-/// rule every command shares ([`crate::commands::leak::hole_diameter_refusal`]).
+/// rule every command shares ([`check_hole_diameter_mm`]), and refused in
+/// the same words as `leak open --hole-diameter`.
 pub fn parse_holes(text: &str) -> anyhow::Result<Vec<f64>> {
     parse_list(text, "--hole-diameter", |part| {
         let mm: f64 = part.parse().map_err(|_| {
@@ -1632,11 +1775,7 @@ pub fn parse_holes(text: &str) -> anyhow::Result<Vec<f64>> {
                 "--hole-diameter {part:?} is not a number of millimetres; write sizes like 6,25,100"
             )
         })?;
-        if let Some(why) = crate::commands::leak::hole_diameter_refusal(mm) {
-            bail!(
-                "--hole-diameter {part}: {mm} mm {why}; the option takes millimetres (25 for a one-inch hole)"
-            );
-        }
+        check_hole_diameter_mm(mm)?;
         Ok(mm)
     })
 }
@@ -1654,10 +1793,16 @@ pub fn parse_hole_areas(text: &str) -> anyhow::Result<Vec<f64>> {
             bail!("--hole-area {part}: the area must be a positive number of square millimetres");
         }
         let diameter = (mm2 / FRAC_PI_4).sqrt();
-        if let Some(why) = crate::commands::leak::hole_diameter_refusal(diameter) {
+        if let Some(why) = hole_diameter_refusal(diameter) {
             bail!(
-                "--hole-area {part}: {mm2} mm² is a round hole {} mm across, which {why}; the option takes square millimetres (507 for a one-inch hole)",
-                report::significant(diameter)
+                "--hole-area {part}: {} mm² is a round hole {} mm across, which {why}; the option takes square millimetres (507 for a one-inch hole)",
+                given_figure(mm2),
+                // Plain digits would run to 150 places for a 1e-300 area.
+                if diameter >= 1e-4 {
+                    report::significant(diameter)
+                } else {
+                    format!("{diameter:.2e}")
+                }
             );
         }
         Ok(mm2)
@@ -1668,7 +1813,7 @@ pub fn parse_hole_areas(text: &str) -> anyhow::Result<Vec<f64>> {
 /// without repeats.
 pub fn parse_horizons(text: &str) -> anyhow::Result<Vec<TimeSpan>> {
     let mut horizons = parse_list(text, "--horizons", |part| {
-        let Some(duration) = crate::commands::leak::parse_duration(part) else {
+        let Some(duration) = parse_duration(part) else {
             bail!(
                 "--horizons {part:?} is not a duration; write horizons like 5m,30m,2h (s, m or min, h)"
             );
@@ -1776,6 +1921,23 @@ mod tests {
                 .unwrap_err()
                 .to_string()
                 .contains("over 5 m")
+        );
+    }
+
+    #[test]
+    fn a_refused_hole_is_said_in_the_words_every_command_uses() {
+        for (text, mm) in [("1e-300", 1e-300), ("6,0.05", 0.05), ("6000", 6000.0)] {
+            assert_eq!(
+                parse_holes(text).unwrap_err().to_string(),
+                check_hole_diameter_mm(mm).unwrap_err().to_string(),
+                "{text}"
+            );
+        }
+        let err = parse_hole_areas("1e-300").unwrap_err().to_string();
+        assert!(err.len() < 250, "{err}");
+        assert!(
+            err.contains("1e-300 mm²") && err.contains("1.13e-150 mm across"),
+            "{err}"
         );
     }
 

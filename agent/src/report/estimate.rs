@@ -1,14 +1,16 @@
 //! Words for an estimate: why its best figure comes from where it does,
-//! the fit, what widens the band, and every warning with its figures.
+//! the fit, what widens the band, every warning with its figures, when each
+//! reportable quantity was reached, and the parameters it rests on.
 //!
 //! The estimator stores numbers and enums; this module is the one place
-//! that turns them into sentences, so `status`, `replay`, the web page and
-//! the JSON's text fields say the same thing in the same words.
+//! that turns them into sentences, so `status`, `replay`, the web page, the
+//! audit trail and the JSON's text fields say the same thing in the same
+//! words.
 //!
 //! Left out: layout (each report lays out its own lines).
 
-use super::{duration, mass, significant};
-use crate::estimate::{Estimate, Fit, LeakParams, Method, PhaseName, Reason, Warning};
+use super::{duration, mass, significant, utc};
+use crate::estimate::{Crossing, Estimate, Fit, LeakParams, Method, PhaseName, Reason, Warning};
 use crate::model::{Mass, TimeSpan};
 
 /// A method's name for people.
@@ -284,6 +286,51 @@ impl Words {
             phase_text: phase_text(e),
             warnings_text: warnings_text(e, p),
         }
+    }
+}
+
+/// The parameters in words, for the audit trail.
+pub fn describe_params(p: &LeakParams) -> String {
+    let hole = match p.hole_diameter_m {
+        Some(d) => format!("hole {:.1} mm", d * 1000.0),
+        None => "hole size unknown (fitted)".to_owned(),
+    };
+    let density = p
+        .density_kg_m3
+        .map_or(String::new(), |d| format!(", density {d} kg/m³"));
+    let (cd_low, cd_high) = p.cd_band();
+    format!(
+        "{hole} at {:.2} m{}, Cd {}{} (range {cd_low} to {cd_high}){density}",
+        p.hole_height_m,
+        if p.hole_height_assumed {
+            " (assumed: the bottom)"
+        } else {
+            ""
+        },
+        p.cd,
+        if p.cd_assumed { " (assumed)" } else { "" },
+    )
+}
+
+/// A reportable quantity's crossings: when it may have been reached (the
+/// band's high end) and when the best estimate reached it.
+pub fn crossing_text(c: &Crossing) -> String {
+    match (c.high_at_ms, c.at_ms) {
+        (_, Some(best)) => format!(
+            "reached at {} (best estimate){}",
+            utc(best),
+            c.high_at_ms
+                .filter(|&h| h < best)
+                .map_or(String::new(), |h| format!(
+                    "; may have been reached from {} (band's high end)",
+                    utc(h)
+                ))
+        ),
+        (Some(high), None) => format!(
+            "MAY HAVE BEEN REACHED from {} (band's high end); the best estimate is below it",
+            utc(high)
+        ),
+        (None, None) => "not reached".into(),
     }
 }
 

@@ -1,13 +1,16 @@
 //! Figures for people: masses, volumes, rates and durations with their units,
 //! and the cautions every human-facing report carries.
 //!
-//! Left out: layout. Each command lays out its own table; this module only
-//! makes sure a number never appears without its unit.
+//! Left out: layout, but for the status table ([`table`]), which `status`
+//! and the demo print alike. Each other command lays out its own table;
+//! this module makes sure a number never appears without its unit.
 //!
 //! * [`estimate`]: the words for an estimate (reasons, the fit, the band's
-//!   causes, warnings), shared by every report.
+//!   causes, warnings, crossings) and its parameters, shared by every report.
+//! * [`table`]: the status table for a terminal.
 
 pub mod estimate;
+pub mod table;
 
 use crate::model::{Density, Mass, MassRate, TimeSpan, Volume};
 

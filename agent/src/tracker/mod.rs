@@ -32,78 +32,19 @@
 //! estimator is the one a live daemon would have had.
 
 use crate::acquire::sample::TankSample;
+use crate::actions::Request;
 use crate::clock::Clock;
 use crate::config::Config;
 use crate::estimate::{Estimate, LeakParams};
 use crate::estimator::Estimator;
+use crate::report::estimate::describe_params;
 use crate::store::health::{StoreHealth, WriteFailure};
 use crate::store::{ActionRow, EventRow, Lane, Reader, Store, StoreError, StoreResult, Tx};
-use serde::{Deserialize, Serialize};
 use std::collections::{HashMap, HashSet, VecDeque};
 use std::sync::Arc;
 use std::time::Duration;
 use tokio::time::Instant;
 use tracing::{debug, error, info, warn};
-
-/// What an operator may ask for, as stored in an action row.
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
-#[serde(tag = "kind", rename_all = "snake_case", deny_unknown_fields)]
-pub enum Request {
-    Open {
-        tank: String,
-        hole_diameter_m: Option<f64>,
-        hole_height_m: Option<f64>,
-        cd: Option<f64>,
-        /// The Cd's range (low, high); 0.61 to 1.0 if absent.
-        #[serde(default)]
-        cd_range: Option<(f64, f64)>,
-        /// Back-dated start, UTC ms on the requester's wall clock; the time
-        /// of the request if absent.
-        since_ms: Option<i64>,
-        note: Option<String>,
-    },
-    Revise {
-        event: i64,
-        hole_diameter_m: Option<f64>,
-        /// Forget the hole diameter (back to the fitted hole).
-        #[serde(default)]
-        unknown_diameter: bool,
-        hole_height_m: Option<f64>,
-        cd: Option<f64>,
-        #[serde(default)]
-        cd_range: Option<(f64, f64)>,
-        density_kg_m3: Option<f64>,
-        note: Option<String>,
-    },
-    Note {
-        event: i64,
-        text: String,
-    },
-    Close {
-        event: i64,
-        note: Option<String>,
-    },
-}
-
-impl Request {
-    pub fn kind(&self) -> &'static str {
-        match self {
-            Request::Open { .. } => "open",
-            Request::Revise { .. } => "revise",
-            Request::Note { .. } => "note",
-            Request::Close { .. } => "close",
-        }
-    }
-
-    pub fn event(&self) -> Option<i64> {
-        match self {
-            Request::Open { .. } => None,
-            Request::Revise { event, .. }
-            | Request::Note { event, .. }
-            | Request::Close { event, .. } => Some(*event),
-        }
-    }
-}
 
 /// An operator's request turned down, and why: recorded as the action's
 /// outcome, never confused with a database error.
@@ -865,12 +806,7 @@ fn apply(
         }
         Request::Revise {
             event,
-            hole_diameter_m,
-            unknown_diameter,
-            hole_height_m,
-            cd,
-            cd_range,
-            density_kg_m3,
+            change,
             note: _,
         } => {
             let Some(row) = tx.event(event)?.filter(|r| r.closed_at_ms.is_none()) else {
@@ -885,27 +821,7 @@ fn apply(
                 );
             }
             let before = row.params;
-            let mut params = before;
-            if unknown_diameter {
-                params.hole_diameter_m = None;
-            }
-            if hole_diameter_m.is_some() {
-                params.hole_diameter_m = hole_diameter_m;
-            }
-            if let Some(h) = hole_height_m {
-                params.hole_height_m = h;
-                params.hole_height_assumed = false;
-            }
-            if let Some(c) = cd {
-                params.cd = c;
-                params.cd_assumed = false;
-            }
-            if cd_range.is_some() {
-                params.cd_range = cd_range;
-            }
-            if density_kg_m3.is_some() {
-                params.density_kg_m3 = density_kg_m3;
-            }
+            let params = before.with(&change);
             let Some((_, tank, _)) = tank_of(&cx.config, &row.tank) else {
                 return refuse(
                     Some(event),
@@ -990,29 +906,6 @@ fn check_history(tx: &Tx<'_>, tank: &str, start: i64, now: i64) -> StoreResult<R
 
 fn not_open(event: i64) -> String {
     format!("event {event} is not open; `leaktally status` lists the open events")
-}
-
-/// The parameters in words, for the audit trail.
-pub fn describe_params(p: &LeakParams) -> String {
-    let hole = match p.hole_diameter_m {
-        Some(d) => format!("hole {:.1} mm", d * 1000.0),
-        None => "hole size unknown (fitted)".to_owned(),
-    };
-    let density = p
-        .density_kg_m3
-        .map_or(String::new(), |d| format!(", density {d} kg/m³"));
-    let (cd_low, cd_high) = p.cd_band();
-    format!(
-        "{hole} at {:.2} m{}, Cd {}{} (range {cd_low} to {cd_high}){density}",
-        p.hole_height_m,
-        if p.hole_height_assumed {
-            " (assumed: the bottom)"
-        } else {
-            ""
-        },
-        p.cd,
-        if p.cd_assumed { " (assumed)" } else { "" },
-    )
 }
 
 #[cfg(test)]

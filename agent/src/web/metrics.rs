@@ -12,8 +12,8 @@
 //! `leaktally status EVENT`).
 
 use crate::acquire::stats::{DeviceSnapshot, TankSnapshot};
-use crate::commands::status::StatusDocument;
 use crate::config::Config;
+use crate::status::StatusDocument;
 use crate::store::health::HealthSnapshot;
 use std::fmt::Write as _;
 

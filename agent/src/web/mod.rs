@@ -13,8 +13,10 @@
 //! * `/assets/...`: the page's style sheet, refresh script and icon.
 //!
 //! Threads: handlers never touch the daemon's writer connection. Each
-//! request opens a short-lived read-only connection on the blocking pool
-//! (`spawn_blocking`), which WAL lets run beside the writer; a semaphore
+//! request opens one short-lived read-only connection on the blocking pool
+//! (`spawn_blocking`), which WAL lets run beside the writer, and reads
+//! everything it shows through it (the status document from
+//! `crate::status`, the chart's series, the notes); a semaphore
 //! bounds how many run at once. Connections are accepted by [`server`],
 //! with a bound on how many are open and timeouts for slow and silent
 //! peers, so that no neighbour can take the descriptors the pollers need.
@@ -37,8 +39,8 @@ pub mod page;
 pub mod server;
 
 use crate::acquire::stats::Stats;
-use crate::commands::status;
 use crate::config::{Config, HostName, Web};
+use crate::status::{self, StatusError};
 use crate::store::health::StoreHealth;
 use crate::store::{self, StoreError};
 use axum::Router;
@@ -366,6 +368,13 @@ impl From<anyhow::Error> for Failure {
     }
 }
 
+impl From<StatusError> for Failure {
+    /// With every cause, as the status document's errors always said.
+    fn from(e: StatusError) -> Self {
+        anyhow::Error::from(e).into()
+    }
+}
+
 impl Failure {
     fn status(&self) -> StatusCode {
         match self {
@@ -475,10 +484,10 @@ async fn index(State(shared): State<Arc<Shared>>) -> Response {
     }
 }
 
-/// Everything the page shows, read in one go.
+/// Everything the page shows, read in one go through one connection.
 fn page_data(shared: &Shared) -> Result<page::PageData, Failure> {
-    let doc = status::document(&shared.db, None)?;
-    let conn = store::open_read_only(&shared.db)?;
+    let conn = open_for_document(shared)?;
+    let doc = status::document(&conn, None)?;
     let mut events = Vec::with_capacity(doc.events.len());
     for e in &doc.events {
         let series = chart::thin(
@@ -494,15 +503,7 @@ fn page_data(shared: &Shared) -> Result<page::PageData, Failure> {
             substance: tank.map(|t| t.substance.clone()).unwrap_or_default(),
         });
     }
-    let stale_after_ms = shared
-        .config
-        .devices
-        .iter()
-        .map(|d| d.poll_interval.as_millis() as i64)
-        .max()
-        .unwrap_or(1000)
-        .saturating_mul(5)
-        .max(10_000);
+    let stale_after_ms = status::stale_after_ms(&shared.config);
     Ok(page::PageData {
         site: shared.config.site_name.clone(),
         doc,
@@ -512,8 +513,18 @@ fn page_data(shared: &Shared) -> Result<page::PageData, Failure> {
     })
 }
 
+/// The read-only connection a request reads the status document (and
+/// anything else it shows) through; a failure to open it is said with every
+/// cause, as the document's own errors are.
+fn open_for_document(shared: &Shared) -> Result<rusqlite::Connection, Failure> {
+    store::open_read_only(&shared.db).map_err(|e| anyhow::Error::from(e).into())
+}
+
 async fn api_status(State(shared): State<Arc<Shared>>) -> Response {
-    match read(&shared, |s| Ok(status::document(&s.db, None)?)).await {
+    let doc = read(&shared, |s| {
+        Ok(status::document(&open_for_document(s)?, None)?)
+    });
+    match doc.await {
         Ok(doc) => json(StatusCode::OK, &doc),
         Err(f) => f.as_json(),
     }
@@ -522,8 +533,9 @@ async fn api_status(State(shared): State<Arc<Shared>>) -> Response {
 async fn api_event(State(shared): State<Arc<Shared>>, UrlPath(id): UrlPath<String>) -> Response {
     let found = read(&shared, move |s| {
         let id = event_id(&id)?;
-        find_event(&store::open_read_only(&s.db)?, id)?;
-        Ok(status::document(&s.db, Some(id))?)
+        let conn = store::open_read_only(&s.db)?;
+        find_event(&conn, id)?;
+        Ok(status::document(&conn, Some(id))?)
     })
     .await;
     match found {
@@ -548,7 +560,10 @@ async fn api_series(State(shared): State<Arc<Shared>>, UrlPath(id): UrlPath<Stri
 }
 
 async fn metrics_text(State(shared): State<Arc<Shared>>) -> Response {
-    let doc = read(&shared, |s| Ok(status::document(&s.db, None)?)).await;
+    let doc = read(&shared, |s| {
+        Ok(status::document(&open_for_document(s)?, None)?)
+    })
+    .await;
     match doc {
         Ok(doc) => {
             let body = metrics::render(&metrics::Inputs {

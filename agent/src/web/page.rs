@@ -14,9 +14,9 @@
 //! page again and swaps the fresh `<main>` in; nothing is computed in the
 //! browser.
 
-use crate::commands::status::{EventStatus, StatusDocument, Volumes};
 use crate::model::TimeSpan;
 use crate::report::{self, estimate as words};
+use crate::status::{EventStatus, StatusDocument, Volumes};
 use crate::store::ActionRow;
 use crate::store::health::HealthSnapshot;
 use crate::web::chart::{self, Point};
@@ -408,7 +408,7 @@ fn event(s: &mut String, e: &EventStatus, extras: &EventExtras, now_ms: i64, sta
                         s,
                         r#"<li class="crossed" data-field="reportable" data-event="{id}" data-quantity-kg="{}" data-crossed-at-ms="{at}"{high}><strong>{q} kg</strong> {}</li>"#,
                         c.quantity_kg,
-                        escape(&crate::commands::status::crossing_text(c))
+                        escape(&words::crossing_text(c))
                     );
                 }
                 (None, Some(_)) => {
@@ -416,7 +416,7 @@ fn event(s: &mut String, e: &EventStatus, extras: &EventExtras, now_ms: i64, sta
                         s,
                         r#"<li class="crossed" data-field="reportable" data-event="{id}" data-quantity-kg="{}"{high}><strong>{q} kg</strong> {}</li>"#,
                         c.quantity_kg,
-                        escape(&crate::commands::status::crossing_text(c))
+                        escape(&words::crossing_text(c))
                     );
                 }
                 (None, None) => {

@@ -1,0 +1,109 @@
+//! The command-line arguments more than one command takes: what is known
+//! of a hole (`leak open`), a change to an event's parameters (`leak
+//! revise`, `replay`), the default database, and the runtime the async
+//! commands run on.
+//!
+//! Each value is checked by the one rule for its quantity
+//! (`estimate/params.rs`), so every command refuses the same values in
+//! the same words.
+//!
+//! Left out: each command's own arguments, which live with the command.
+
+use crate::estimate::{
+    ParamChange, ParamError, check_cd, check_cd_range, check_density_kg_m3, check_hole_diameter_mm,
+    check_hole_height_m,
+};
+
+/// The database file when `--db` is not given.
+pub const DEFAULT_DB: &str = "leaktally.db";
+
+/// What is known of the hole.
+#[derive(Debug, Clone, clap::Args)]
+pub struct HoleArgs {
+    /// Hole diameter in mm, if known; without it the hole is fitted to the
+    /// level drop.
+    #[arg(long, value_name = "MM", allow_negative_numbers = true)]
+    pub hole_diameter: Option<f64>,
+    /// Height of the hole above the tank bottom, m (default: the bottom, the
+    /// conservative choice).
+    #[arg(long, value_name = "M", allow_negative_numbers = true)]
+    pub hole_height: Option<f64>,
+    /// Discharge coefficient, 0.1 to 1 (default 1.0, conservative; the
+    /// band runs from 0.61 to 1.0 unless --cd-range says otherwise).
+    #[arg(long, allow_negative_numbers = true)]
+    pub cd: Option<f64>,
+    /// The range the discharge coefficient may lie in, LOW..HIGH (for
+    /// example 0.60..0.65 for a hole someone has measured); it must include
+    /// --cd. Default 0.61..1.0 (common practice).
+    #[arg(long, value_name = "LOW..HIGH")]
+    pub cd_range: Option<String>,
+}
+
+/// Changed leak parameters, for `leak revise` and `replay`.
+#[derive(Debug, Clone, clap::Args)]
+pub struct ParamChangeArgs {
+    #[command(flatten)]
+    pub hole: HoleArgs,
+    /// Forget the hole diameter and fit the hole to the level drop instead.
+    #[arg(long, conflicts_with = "hole_diameter")]
+    pub unknown_diameter: bool,
+    /// Liquid density, kg/m³, if the config's is wrong for this event.
+    #[arg(long)]
+    pub density: Option<f64>,
+}
+
+impl HoleArgs {
+    /// What the options give, each checked by its one rule, in SI; in the
+    /// order they are checked (a diameter's refusal is said first).
+    pub fn change(&self) -> Result<ParamChange, ParamError> {
+        Ok(ParamChange {
+            hole_diameter_m: self.diameter_m()?,
+            hole_height_m: self.height_m()?,
+            cd: self.cd_checked()?,
+            cd_range: self.cd_range_checked()?,
+            ..ParamChange::default()
+        })
+    }
+
+    /// `--hole-diameter`, in metres.
+    pub fn diameter_m(&self) -> Result<Option<f64>, ParamError> {
+        self.hole_diameter.map(check_hole_diameter_mm).transpose()
+    }
+
+    /// `--hole-height`, in metres.
+    pub fn height_m(&self) -> Result<Option<f64>, ParamError> {
+        self.hole_height.map(check_hole_height_m).transpose()
+    }
+
+    /// `--cd`.
+    pub fn cd_checked(&self) -> Result<Option<f64>, ParamError> {
+        self.cd.map(check_cd).transpose()
+    }
+
+    /// `--cd-range LOW..HIGH`, which must include `--cd` (or the default).
+    pub fn cd_range_checked(&self) -> Result<Option<(f64, f64)>, ParamError> {
+        self.cd_range
+            .as_deref()
+            .map(|text| check_cd_range(text, self.cd))
+            .transpose()
+    }
+}
+
+impl ParamChangeArgs {
+    /// The change the options give, each value checked, in SI.
+    pub fn change(&self) -> Result<ParamChange, ParamError> {
+        Ok(ParamChange {
+            unknown_diameter: self.unknown_diameter,
+            density_kg_m3: self.density.map(check_density_kg_m3).transpose()?,
+            ..self.hole.change()?
+        })
+    }
+}
+
+/// The runtime for a command that runs async work (`check`, `poll`, `run`).
+pub fn runtime() -> anyhow::Result<tokio::runtime::Runtime> {
+    Ok(tokio::runtime::Builder::new_multi_thread()
+        .worker_threads(2)
+        .enable_all()
+        .build()?)
+}

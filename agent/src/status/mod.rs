@@ -1,0 +1,330 @@
+//! The read model: the running totals of the open events (or of one
+//! event), as one document for people and for machines.
+//!
+//! [`document`] builds the [`StatusDocument`] from one connection the caller
+//! opened (read-only, beside the daemon's writer), so `leaktally status`,
+//! the demo, the web page, `/api/*` and `/metrics` show the same figures
+//! from the same reads, and a web request reads everything it shows through
+//! one connection. The JSON is the document serialised; its fields are
+//! documented in the README and only ever added to, never renamed. Its words
+//! (the `*_text` fields, the terminal table) come from `crate::report`.
+//!
+//! Left out: opening the database (the caller's, with the path it names in
+//! its messages) and any writing.
+
+use crate::estimate::{Estimate, LeakParams};
+use crate::report::{self, estimate as words, table};
+use crate::store::{self, DaemonState, EventRow, StoreError};
+use serde::Serialize;
+use std::path::Path;
+
+/// The status document: every event asked for, with its latest estimate.
+#[derive(Debug, Clone, Serialize)]
+pub struct StatusDocument {
+    /// Version of this document's layout.
+    pub format: u32,
+    pub generated_at: String,
+    pub generated_at_ms: i64,
+    pub caution: &'static str,
+    /// Whether a daemon has beaten its heartbeat in the last 5 s.
+    pub daemon_running: bool,
+    /// Not beating, but its process is alive: it cannot write to the
+    /// database (locked by another program, its disk full, or a disk that
+    /// does not answer).
+    pub daemon_stalled: bool,
+    /// `running`, `busy` (beating, but its main loop has not turned for
+    /// 5 s), `stalled` or `not_running`.
+    pub daemon_state: &'static str,
+    /// What a busy daemon is busy with.
+    pub daemon_busy_with: Option<String>,
+    pub daemon_last_seen: Option<String>,
+    /// The daemon's timeline minus the wall clock, ms, at its last beat: not
+    /// 0 after the wall clock stepped (the README's "Clock steps").
+    pub daemon_clock_offset_ms: Option<i64>,
+    pub events: Vec<EventStatus>,
+}
+
+/// One event in the status document.
+#[derive(Debug, Clone, Serialize)]
+pub struct EventStatus {
+    pub event: i64,
+    pub tank: String,
+    /// "open" or "closed".
+    pub state: &'static str,
+    /// "operator" or "leak flag".
+    pub source: String,
+    pub start: String,
+    pub start_ms: i64,
+    pub opened_at_ms: i64,
+    pub closed_at_ms: Option<i64>,
+    pub revision: i64,
+    pub params: LeakParams,
+    pub params_text: String,
+    /// The best released total as liquid volume at the logged density.
+    pub released_volume: Option<Volumes>,
+    /// How old the latest estimate's sample is, ms, and whether that is
+    /// older than the site's polling explains (an open event whose data
+    /// stopped: a link down, a gauge failed).
+    pub data_age_ms: Option<i64>,
+    pub stale: bool,
+    /// The latest estimate; absent until the first usable sample.
+    pub estimate: Option<EstimateView>,
+    /// Why an open event is not being tracked (its figures are not being
+    /// updated); absent while it is.
+    pub tracking_error: Option<String>,
+}
+
+/// An estimate as reports show it: the stored numbers and codes, and the
+/// same said in words (rendered by `report::estimate`, never stored).
+#[derive(Debug, Clone, Serialize)]
+pub struct EstimateView {
+    #[serde(flatten)]
+    pub estimate: Estimate,
+    #[serde(flatten)]
+    pub words: words::Words,
+    /// The given hole's disagreement with the level drop, if any (kept
+    /// for readers of the first document format; also in `warnings_text`).
+    pub consistency: Option<String>,
+}
+
+impl EstimateView {
+    pub fn new(estimate: Estimate, params: &LeakParams) -> Self {
+        let e = &estimate;
+        let hole = crate::estimate::Warning::HoleInconsistent;
+        Self {
+            words: words::Words::of(e, params),
+            consistency: e
+                .warnings
+                .contains(hole)
+                .then(|| words::warning_text(hole, e, params)),
+            estimate,
+        }
+    }
+}
+
+impl std::ops::Deref for EstimateView {
+    type Target = Estimate;
+    fn deref(&self) -> &Estimate {
+        &self.estimate
+    }
+}
+
+/// When an open event's data counts as stale: five poll intervals of the
+/// slowest device, and never under 10 s.
+pub fn stale_after_ms(config: &crate::config::Config) -> i64 {
+    config
+        .devices
+        .iter()
+        .map(|d| d.poll_interval.as_millis() as i64)
+        .max()
+        .unwrap_or(1000)
+        .saturating_mul(5)
+        .max(DEFAULT_STALE_AFTER_MS)
+}
+
+/// The stale limit when the site's config cannot be read.
+pub const DEFAULT_STALE_AFTER_MS: i64 = 10_000;
+
+/// A volume in the units responders use.
+#[derive(Debug, Clone, Copy, Serialize)]
+pub struct Volumes {
+    pub m3: f64,
+    pub litres: f64,
+    pub us_gallons: f64,
+    pub barrels: f64,
+}
+
+impl Volumes {
+    pub fn of(mass_kg: f64, density_kg_m3: f64) -> Self {
+        let m3 = mass_kg / density_kg_m3;
+        let litres = m3 * 1000.0;
+        Self {
+            m3,
+            litres,
+            us_gallons: litres / report::LITRES_PER_US_GALLON,
+            barrels: litres / report::LITRES_PER_BARREL,
+        }
+    }
+}
+
+/// Why a document could not be built.
+#[derive(Debug, thiserror::Error)]
+pub enum StatusError {
+    /// The event asked for is not in the database.
+    #[error("there is no event {0}; `leaktally status` lists the open events")]
+    NoEvent(i64),
+    #[error(transparent)]
+    Store(#[from] StoreError),
+}
+
+/// Builds the status document of one event, or of every open event, from
+/// `conn`. The stale limit comes from the config the daemon runs with (its
+/// heartbeat names the file), when it can be read.
+pub fn document(
+    conn: &rusqlite::Connection,
+    event: Option<i64>,
+) -> Result<StatusDocument, StatusError> {
+    let heartbeat = store::heartbeat(conn)?;
+    let stale_after = heartbeat
+        .as_ref()
+        .and_then(|h| crate::config::load(Path::new(&h.config)).ok())
+        .map_or(DEFAULT_STALE_AFTER_MS, |c| stale_after_ms(&c));
+    let now = store::now_ms();
+    let rows: Vec<EventRow> = match event {
+        Some(id) => vec![store::event(conn, id)?.ok_or(StatusError::NoEvent(id))?],
+        None => store::events(conn, true)?,
+    };
+    let untracked = store::tracking_errors(conn)?;
+    let mut events = Vec::new();
+    for row in rows {
+        let estimate = store::latest_estimate(conn, &row)?;
+        let data_age_ms = estimate.as_ref().map(|e| now - e.at_ms);
+        let open = row.closed_at_ms.is_none();
+        events.push(EventStatus {
+            event: row.id,
+            tank: row.tank.clone(),
+            state: if row.closed_at_ms.is_some() {
+                "closed"
+            } else {
+                "open"
+            },
+            source: row.source.clone(),
+            start: report::utc(row.start_ms),
+            start_ms: row.start_ms,
+            opened_at_ms: row.opened_at_ms,
+            closed_at_ms: row.closed_at_ms,
+            revision: row.revision,
+            params: row.params,
+            params_text: words::describe_params(&row.params),
+            released_volume: estimate
+                .as_ref()
+                .map(|e| Volumes::of(e.released_best_kg, e.density_kg_m3)),
+            data_age_ms,
+            stale: open && data_age_ms.unwrap_or(now - row.opened_at_ms) > stale_after,
+            estimate: estimate.map(|e| EstimateView::new(e, &row.params)),
+            tracking_error: untracked.get(&row.id).cloned(),
+        });
+    }
+    let state = heartbeat
+        .as_ref()
+        .map_or(DaemonState::NotRunning, |h| h.state(now));
+    let running = matches!(state, DaemonState::Running | DaemonState::Busy { .. });
+    Ok(StatusDocument {
+        format: 1,
+        generated_at: report::utc(now),
+        generated_at_ms: now,
+        caution: report::CAUTION,
+        daemon_running: running,
+        daemon_stalled: state == DaemonState::Stalled,
+        daemon_state: state.name(),
+        daemon_busy_with: match &state {
+            DaemonState::Busy { activity, .. } => Some(activity.clone()),
+            _ => None,
+        },
+        daemon_clock_offset_ms: heartbeat
+            .as_ref()
+            .filter(|_| running)
+            .and_then(|h| h.clock_offset_ms),
+        daemon_last_seen: heartbeat.map(|h| report::utc(h.beat_at_ms)),
+        events,
+    })
+}
+
+impl StatusDocument {
+    /// The document as the terminal table's views, for
+    /// [`report::table::render`].
+    pub fn table(&self) -> table::Table<'_> {
+        table::Table {
+            generated_at: &self.generated_at,
+            daemon: table::Daemon {
+                running: self.daemon_running,
+                stalled: self.daemon_stalled,
+                busy_with: self.daemon_busy_with.as_deref(),
+                last_seen: self.daemon_last_seen.as_deref(),
+                clock_offset_ms: self.daemon_clock_offset_ms,
+            },
+            events: self.events.iter().map(EventStatus::table).collect(),
+            caution: self.caution,
+        }
+    }
+}
+
+impl EventStatus {
+    fn table(&self) -> table::Event<'_> {
+        table::Event {
+            id: self.event,
+            tank: &self.tank,
+            source: &self.source,
+            revision: self.revision,
+            start: &self.start,
+            closed_at_ms: self.closed_at_ms,
+            params_text: &self.params_text,
+            tracking_error: self.tracking_error.as_deref(),
+            stale: self.stale,
+            data_age_ms: self.data_age_ms,
+            estimate: self.estimate.as_ref().map(|e| (&e.estimate, &e.words)),
+        }
+    }
+}
+
+/// The document as a table for people.
+pub fn text(doc: &StatusDocument) -> String {
+    table::render(&doc.table())
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// A scratch folder, removed when dropped.
+    struct Scratch(std::path::PathBuf);
+
+    impl Drop for Scratch {
+        fn drop(&mut self) {
+            let _ = std::fs::remove_dir_all(&self.0);
+        }
+    }
+
+    #[test]
+    fn the_document_is_built_from_the_callers_connection() {
+        let dir = std::env::temp_dir().join(format!("leaktally-status-{}", std::process::id()));
+        std::fs::create_dir_all(&dir).unwrap();
+        let scratch = Scratch(dir);
+        let db = scratch.0.join("leaktally.db");
+        let conn = store::open_read_write(&db).unwrap();
+        store::register_tanks(&conn, ["T1"]).unwrap();
+        let start = store::now_ms() - 60_000;
+        let params = LeakParams {
+            hole_diameter_m: Some(0.025),
+            ..LeakParams::default()
+        };
+        let id = store::create_event(&conn, "T1", start, start, "operator", &params).unwrap();
+        drop(conn);
+
+        let conn = store::open_read_only(&db).unwrap();
+        let doc = document(&conn, None).unwrap();
+        assert_eq!(doc.daemon_state, "not_running");
+        let [e] = doc.events.as_slice() else {
+            panic!("{:?}", doc.events)
+        };
+        assert_eq!((e.event, e.tank.as_str(), e.state), (id, "T1", "open"));
+        assert_eq!(e.params_text, words::describe_params(&params));
+        // No sample for a minute, against the 10 s limit with no config.
+        assert!(e.stale && e.estimate.is_none());
+        let text = text(&doc);
+        for expected in [
+            "WARNING: no daemon is running (last seen never)",
+            &format!("Event {id}  tank T1  open since"),
+            "hole 25.0 mm at 0.00 m (assumed: the bottom)",
+            "WARNING      no new data for any sample yet",
+            "no usable sample yet",
+            report::CAUTION,
+        ] {
+            assert!(text.contains(expected), "{expected:?} not in:\n{text}");
+        }
+        assert!(matches!(
+            document(&conn, Some(id + 1)),
+            Err(StatusError::NoEvent(missing)) if missing == id + 1
+        ));
+    }
+}
