@@ -191,7 +191,7 @@ fn simulate(scratch: &Scratch, c: &Conditions, given: bool) -> Vec<Point> {
         if at_ms >= start_ms {
             released_at_start.get_or_insert(released);
         }
-        if let Some(estimate) = estimator.push(&sample) {
+        if let Some(estimate) = estimator.push_and_estimate(&sample) {
             out.push(Point {
                 after_s: (at_ms - start_ms) as f64 / 1000.0,
                 estimate,

@@ -9,16 +9,16 @@
 
 use crate::tracking::{Plant, event_id, event_of};
 use crate::util::Truth;
-use leaktally::estimate::Estimate;
+use leaktally::estimate::Figures;
 use serde_json::Value;
 use std::path::Path;
 use std::time::Duration;
 
 /// Every estimate the daemon logged for an event, in time order.
-fn logged(plant: &Plant, id: i64) -> Vec<Estimate> {
+fn logged(plant: &Plant, id: i64) -> Vec<Figures> {
     let conn = leaktally::store::open_read_only(Path::new(&plant.db)).unwrap();
     let row = leaktally::store::event(&conn, id).unwrap().unwrap();
-    leaktally::store::estimates_of(&conn, id, row.revision).unwrap()
+    leaktally::store::figures_of(&conn, id, row.revision).unwrap()
 }
 
 /// The true release between the event's start and `at_ms`.

@@ -1243,7 +1243,7 @@ mod estimator {
         .enumerate()
         {
             let e = estimator
-                .push(&sample(i as i64, p, t))
+                .push_and_estimate(&sample(i as i64, p, t))
                 .expect("an estimate");
             check(previous.as_ref(), &e).unwrap_or_else(|err| panic!("sample {i}: {err}"));
             previous = Some(e);
@@ -1464,13 +1464,16 @@ mod estimator {
         let mut previous: Option<Estimate> = None;
         let mut live = Vec::new();
         for s in &samples {
-            if let Some(e) = estimator.push(s) {
+            if let Some(e) = estimator.push_and_estimate(s) {
                 check(previous.as_ref(), &e)?;
                 previous = Some(e.clone());
                 live.push(e);
             }
         }
-        let again: Vec<Estimate> = samples.iter().filter_map(|s| replayed.push(s)).collect();
+        let again: Vec<Estimate> = samples
+            .iter()
+            .filter_map(|s| replayed.push_and_estimate(s))
+            .collect();
         prop_assert!(again == live, "a second run of the same samples differs");
         Ok(())
     }
@@ -1563,7 +1566,7 @@ mod estimator {
                     temperature: None,
                     leak_flag: None,
                 };
-                let first = e.push(&sample);
+                let first = e.push_and_estimate(&sample);
                 prop_assert!(first.is_some());
                 check(None, &first.unwrap())?;
             }

@@ -69,7 +69,7 @@ fn main() -> anyhow::Result<()> {
             temperature: None,
             leak_flag: Some(Some(false)),
         };
-        estimates.extend(estimator.push(&sample));
+        estimates.extend(estimator.push_and_estimate(&sample));
         samples.push(sample);
         if samples.len() == 10_000 || i + 1 == count {
             // As the tracker does: a batch's samples and estimates together.

@@ -680,7 +680,7 @@ fn refuse_a_second_daemon(db: &Path) -> anyhow::Result<()> {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::store::records;
+    use crate::store as records;
 
     /// Two devices nobody answers for (every cycle's samples are flagged
     /// communication_lost, but they are acquired samples all the same), with

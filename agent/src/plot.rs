@@ -13,7 +13,7 @@
 //! lowest low and highest high, so the shaded band still covers every
 //! estimate; the best line passes through the last estimate of each point.
 
-use crate::estimate::Estimate;
+use crate::estimate::Figures;
 use crate::report;
 use anyhow::Context;
 use plotters::prelude::*;
@@ -45,7 +45,7 @@ pub struct ChartPoint {
 }
 
 impl ChartPoint {
-    pub fn of(e: &Estimate) -> Self {
+    pub fn of(e: &Figures) -> Self {
         Self {
             at_ms: e.at_ms,
             rate_low_kg_s: e.rate_low_kg_s,
@@ -106,8 +106,8 @@ impl ChartSeries {
         }
     }
 
-    /// Takes the next estimate (in time order).
-    pub fn push(&mut self, e: &Estimate) {
+    /// Takes the next estimate's figures (in time order).
+    pub fn push(&mut self, e: &Figures) {
         self.estimates += 1;
         let point = ChartPoint::of(e);
         if self.first.is_none() {
@@ -383,7 +383,7 @@ mod tests {
 
     /// Estimates of a real estimator on a draining tank: `n` samples, 1 s
     /// apart, with a little level noise so the band moves.
-    fn estimates(n: usize) -> Vec<Estimate> {
+    fn estimates(n: usize) -> Vec<Figures> {
         let text = std::fs::read_to_string(
             std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("../config/demo.toml"),
         )

@@ -123,3 +123,20 @@ pub struct TankSample {
     /// The leak flag; absent when not mapped, `None` inside when unreadable.
     pub leak_flag: Option<Option<bool>>,
 }
+
+impl TankSample {
+    /// A sample of `tank` with nothing read yet (a level flagged as a
+    /// device error, nothing else mapped), to be filled in.
+    pub fn empty(tank: &str) -> Self {
+        Self {
+            tank: 0,
+            tank_id: tank.to_owned(),
+            at_ms: 0,
+            level: Reading::bad(Quality::DeviceError),
+            pressure: None,
+            transfer: None,
+            temperature: None,
+            leak_flag: None,
+        }
+    }
+}

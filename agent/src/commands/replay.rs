@@ -25,7 +25,7 @@ use super::args::{DEFAULT_DB, ParamChangeArgs};
 use crate::acquire::sample::TankSample;
 use crate::actions::parse_since;
 use crate::config::{Config, Tank};
-use crate::estimate::{Estimate, LeakParams, ParamChange};
+use crate::estimate::{Estimate, Figures, LeakParams, ParamChange};
 use crate::estimator::Estimator;
 use crate::model::{Density, Mass, MassRate, TimeSpan};
 use crate::plot::{self, ChartLabels, ChartSeries};
@@ -282,6 +282,9 @@ pub struct Summary {
     pub replayed_words: report::estimate::Words,
     /// The final logged live estimate, for an event.
     pub live: Option<Estimate>,
+    /// The estimator version that logged the live figures (absent: an
+    /// event logged before the version was kept).
+    pub live_estimator_version: Option<u32>,
     /// Whether every replayed estimate equals the logged one (no overrides).
     pub identical: Option<bool>,
     pub compared: usize,
@@ -351,7 +354,11 @@ fn replay_event(
     })?;
     let (tank, interval) = tank_of(&config, &row.tank)?;
     let params = row.params.with(&overrides.change);
-    let live_last = store::latest_estimate(&conn, &row)?;
+    let (live_last, live_version) =
+        match store::latest_estimate_with_version(&conn, row.id, row.revision)? {
+            Some((e, version)) => (Some(e), version),
+            None => (None, None),
+        };
     let from = overrides.from_ms.unwrap_or(row.start_ms);
     // A closed event ends with its last live estimate: a sample taken just
     // before the close but stored after it never reached the event, so the
@@ -383,11 +390,11 @@ fn replay_event(
             if s.at_ms >= from {
                 samples += 1;
             }
-            if let Some(e) = estimator.push(&s) {
+            if let Some(f) = estimator.push(&s) {
                 if let Some(live) = live.as_mut() {
-                    live.compare(&conn, &e)?;
+                    live.compare(&conn, &f)?;
                 }
-                sink.take(e)?;
+                sink.take(&f, &mut estimator)?;
             }
             progress.show((s.at_ms - from).max(0) as u64);
         }
@@ -397,15 +404,19 @@ fn replay_event(
         cursor = page_end + 1;
     }
     progress.done();
+    let replayed = sink.last(Some(&mut estimator))?;
+    // The same figures at every sample, and the same whole estimate at the
+    // last (band causes, fit, forecast, crossings, data quality).
     let (identical, compared, matching) = match live.as_mut() {
         Some(live) => {
             live.finish(&conn)?;
-            let same = live.matching == live.live && live.live == live.replayed;
+            let same = live.matching == live.live
+                && live.live == live.replayed
+                && live_last.as_ref() == Some(&replayed);
             (Some(same), live.live as usize, live.matching as usize)
         }
         None => (None, 0, 0),
     };
-    let replayed = sink.last()?;
     let mut summary = Summary {
         event: Some(row.id),
         tank: row.tank.clone(),
@@ -421,6 +432,7 @@ fn replay_event(
         replayed_words: report::estimate::Words::of(&replayed, &params),
         replayed,
         live: live_last,
+        live_estimator_version: live_version,
         identical,
         compared,
         matching,
@@ -449,7 +461,7 @@ fn database_files(db: &Path) -> Vec<(String, PathBuf)> {
 struct LiveComparison {
     event: i64,
     revision: i64,
-    page: VecDeque<Estimate>,
+    page: VecDeque<Figures>,
     after_ms: i64,
     exhausted: bool,
     live: u64,
@@ -473,10 +485,10 @@ impl LiveComparison {
         }
     }
 
-    fn next_live(&mut self, conn: &rusqlite::Connection) -> anyhow::Result<Option<Estimate>> {
+    fn next_live(&mut self, conn: &rusqlite::Connection) -> anyhow::Result<Option<Figures>> {
         if self.page.is_empty() && !self.exhausted {
             let page =
-                store::estimates_after(conn, self.event, self.revision, self.after_ms, Self::PAGE)?;
+                store::figures_after(conn, self.event, self.revision, self.after_ms, Self::PAGE)?;
             self.exhausted = page.len() < Self::PAGE;
             if let Some(last) = page.last() {
                 self.after_ms = last.at_ms;
@@ -490,9 +502,12 @@ impl LiveComparison {
         Ok(next)
     }
 
-    fn compare(&mut self, conn: &rusqlite::Connection, replayed: &Estimate) -> anyhow::Result<()> {
+    fn compare(&mut self, conn: &rusqlite::Connection, replayed: &Figures) -> anyhow::Result<()> {
         self.replayed += 1;
-        if self.next_live(conn)?.is_some_and(|live| live == *replayed) {
+        if self
+            .next_live(conn)?
+            .is_some_and(|live| live.identical(replayed))
+        {
             self.matching += 1;
         }
         Ok(())
@@ -580,7 +595,7 @@ fn replay_readings(
         }
         progress.show(import.position());
     }
-    let (report, feed, sink) = if in_order {
+    let (report, mut feed, sink) = if in_order {
         progress.done();
         let mut report = import.finish();
         order.finish(&mut report, false);
@@ -626,7 +641,7 @@ fn replay_readings(
     }
     // When the estimator could use none of the rows, the warnings usually
     // say why (a level in the wrong unit, say).
-    let replayed = sink.last().map_err(|e| {
+    let replayed = sink.last(feed.estimator.as_mut()).map_err(|e| {
         if report.warnings.is_empty() {
             e
         } else {
@@ -653,6 +668,7 @@ fn replay_readings(
         replayed_words: report::estimate::Words::of(&replayed, &params),
         replayed,
         live: None,
+        live_estimator_version: None,
         identical: None,
         compared: 0,
         matching: 0,
@@ -747,8 +763,8 @@ impl<'a> Feed<'a> {
         if self.from.is_some_and(|from| sample.at_ms >= from) {
             self.samples += 1;
         }
-        if let Some(e) = estimator.push(sample) {
-            sink.take(e)?;
+        if let Some(f) = estimator.push(sample) {
+            sink.take(&f, estimator)?;
         }
         Ok(())
     }
@@ -831,7 +847,8 @@ struct Row<'a> {
 struct Sink {
     csv: Option<(OutputFile, csv::Writer<File>)>,
     chart: Option<(OutputFile, ChartSeries)>,
-    last: Option<Estimate>,
+    /// Whether any sample gave figures.
+    any: bool,
     /// For the CSV's driving pressure: the column above the hole.
     hole_height_m: f64,
 }
@@ -862,26 +879,33 @@ impl Sink {
         Ok(Self {
             csv,
             chart,
-            last: None,
+            any: false,
             hole_height_m,
         })
     }
 
-    fn take(&mut self, e: Estimate) -> anyhow::Result<()> {
-        if let Some((out, w)) = &mut self.csv {
+    /// Takes one sample's figures; the CSV's rows want the whole estimate
+    /// (the level, the pressure, the data quality), which the estimator
+    /// gives on asking.
+    fn take(&mut self, f: &Figures, estimator: &mut Estimator) -> anyhow::Result<()> {
+        if let Some((out, w)) = &mut self.csv
+            && let Some(e) = estimator.estimate()
+        {
             write_row(w, &e, self.hole_height_m)
                 .with_context(|| format!("writing {}", out.temporary.display()))?;
         }
         if let Some((_, series)) = &mut self.chart {
-            series.push(&e);
+            series.push(f);
         }
-        self.last = Some(e);
+        self.any = true;
         Ok(())
     }
 
-    fn last(&self) -> anyhow::Result<Estimate> {
-        self.last
-            .clone()
+    /// The whole estimate after the last sample.
+    fn last(&self, estimator: Option<&mut Estimator>) -> anyhow::Result<Estimate> {
+        estimator
+            .filter(|_| self.any)
+            .and_then(Estimator::estimate)
             .context("no usable sample in the range: nothing to replay (check --from and --to)")
     }
 
@@ -1243,12 +1267,8 @@ pub fn human(s: &Summary) -> String {
             );
         }
         Some(false) => {
-            let why = if s
-                .live
-                .as_ref()
-                .is_some_and(|l| l.reason == crate::estimate::Reason::Unrecorded)
-            {
-                "the event was logged by an earlier version of leaktally, whose estimator gave other figures for the same samples (the replay's are this version's)"
+            let why = if s.live_estimator_version != Some(crate::estimate::ESTIMATOR_VERSION) {
+                "the event was logged by another version of leaktally's estimator, which gives other figures for the same samples (the replay's are this version's)"
             } else {
                 "the config may have changed since"
             };

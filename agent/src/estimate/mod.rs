@@ -228,6 +228,58 @@ pub struct BandCauses {
     pub bridge_kg: f64,
 }
 
+/// The figures of one estimate, as the store keeps one per sample: what a
+/// chart, a series or a replay's comparison needs, in a small fixed size.
+/// The whole [`Estimate`] (band causes, fit, forecast, crossings, data
+/// quality) is kept for the latest sample of an event; any earlier one can
+/// be recomputed from the stored samples.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Figures {
+    pub at_ms: i64,
+    pub released_best_kg: f64,
+    pub released_low_kg: f64,
+    pub released_high_kg: f64,
+    pub rate_best_kg_s: f64,
+    pub rate_low_kg_s: f64,
+    pub rate_high_kg_s: f64,
+    pub inventory_kg: Option<f64>,
+    pub model_kg: Option<f64>,
+    pub method: Method,
+    pub reason: Reason,
+    pub phase: PhaseName,
+    pub after_gap: bool,
+    /// The warnings of the sample (those of the forecast aside, which is
+    /// made for the latest estimate only).
+    pub warnings: Warnings,
+}
+
+impl Figures {
+    /// Whether two figures are the same bit for bit (NaN-free figures; a
+    /// plain `==` would also do, but says less about what is meant).
+    pub fn identical(&self, other: &Figures) -> bool {
+        let same = |a: f64, b: f64| a.to_bits() == b.to_bits();
+        let same_opt = |a: Option<f64>, b: Option<f64>| match (a, b) {
+            (Some(a), Some(b)) => same(a, b),
+            (None, None) => true,
+            _ => false,
+        };
+        self.at_ms == other.at_ms
+            && same(self.released_best_kg, other.released_best_kg)
+            && same(self.released_low_kg, other.released_low_kg)
+            && same(self.released_high_kg, other.released_high_kg)
+            && same(self.rate_best_kg_s, other.rate_best_kg_s)
+            && same(self.rate_low_kg_s, other.rate_low_kg_s)
+            && same(self.rate_high_kg_s, other.rate_high_kg_s)
+            && same_opt(self.inventory_kg, other.inventory_kg)
+            && same_opt(self.model_kg, other.model_kg)
+            && self.method == other.method
+            && self.reason == other.reason
+            && self.phase == other.phase
+            && self.after_gap == other.after_gap
+            && self.warnings == other.warnings
+    }
+}
+
 /// Everything the estimator says after a sample.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct Estimate {
@@ -284,6 +336,28 @@ pub struct Estimate {
     pub band: BandCauses,
     #[serde(default)]
     pub warnings: Warnings,
+}
+
+impl Estimate {
+    /// The per-sample figures of this estimate.
+    pub fn figures(&self) -> Figures {
+        Figures {
+            at_ms: self.at_ms,
+            released_best_kg: self.released_best_kg,
+            released_low_kg: self.released_low_kg,
+            released_high_kg: self.released_high_kg,
+            rate_best_kg_s: self.rate_best_kg_s,
+            rate_low_kg_s: self.rate_low_kg_s,
+            rate_high_kg_s: self.rate_high_kg_s,
+            inventory_kg: self.inventory_kg,
+            model_kg: self.model_kg,
+            method: self.method,
+            reason: self.reason,
+            phase: self.phase,
+            after_gap: self.after_gap,
+            warnings: self.warnings,
+        }
+    }
 }
 
 #[cfg(test)]

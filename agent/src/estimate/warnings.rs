@@ -86,6 +86,18 @@ impl Warning {
 pub struct Warnings(u32);
 
 impl Warnings {
+    /// The set as bits (bit n: the n-th warning of the enum), as the store
+    /// keeps it.
+    pub fn bits(self) -> u32 {
+        self.0
+    }
+
+    /// A set from stored bits; bits this version does not know are dropped.
+    pub fn from_bits(bits: u32) -> Self {
+        let known = Warning::ALL.iter().fold(0, |all, w| all | w.bit());
+        Self(bits & known)
+    }
+
     pub fn insert(&mut self, w: Warning) {
         self.0 |= w.bit();
     }

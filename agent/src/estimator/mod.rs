@@ -210,9 +210,16 @@ pub struct Estimator {
     last_headspace: Option<Pressure>,
     last_temperature: Option<f64>,
     shown: (f64, f64, f64),
-    forecast: Option<ForecastSummary>,
-    forecast_capped: bool,
+    /// The state the forecast is made from, picked by sample time (every
+    /// FORECAST_EVERY_MS, and at once when its hole changes), and the
+    /// forecast made from it once asked for.
+    forecast_input: Option<ForecastInput>,
+    /// (the input's time, the forecast made from it).
+    forecast: Option<(i64, Option<ForecastSummary>)>,
     crossings: Vec<Crossing>,
+    /// The whole estimate after the latest sample, its forecast and
+    /// crossings aside (see [`Estimator::estimate`]).
+    latest: Option<Estimate>,
     quality: DataQuality,
     /// Whether the level has fallen beyond what the instruments allow, at
     /// any sample of this revision.
@@ -220,6 +227,20 @@ pub struct Estimator {
     /// Whether the level has refuted the model's figure in this revision:
     /// from then on the figures follow the level.
     level_mode: bool,
+}
+
+/// The state a forecast is made from.
+#[derive(Debug, Clone, Copy)]
+struct ForecastInput {
+    at_ms: i64,
+    state: TankState,
+    /// The hole it drains through (none: no forecast).
+    hole_cd: Option<(Hole, DischargeCoefficient)>,
+    vapour: bool,
+    /// The best total then, the liquid cap, and the level's uncertainty.
+    released: f64,
+    cap: f64,
+    uncertainty: f64,
 }
 
 /// What one sample brings, converted.
@@ -308,8 +329,9 @@ impl Estimator {
             last_headspace: None,
             last_temperature: None,
             shown: (0.0, 0.0, 0.0),
+            forecast_input: None,
             forecast: None,
-            forecast_capped: false,
+            latest: None,
             crossings: tank
                 .reportable
                 .iter()
@@ -345,10 +367,11 @@ impl Estimator {
         self.last.map(|l| l.at_ms)
     }
 
-    /// Takes one sample; returns the estimate after it, or `None` when the
+    /// Takes one sample; returns the figures after it, or `None` when the
     /// sample is unusable (before the start, or its level is not good) or
-    /// not newer than the last one used.
-    pub fn push(&mut self, sample: &TankSample) -> Option<Estimate> {
+    /// not newer than the last one used. The whole estimate is
+    /// [`Estimator::estimate`].
+    pub fn push(&mut self, sample: &TankSample) -> Option<Figures> {
         if self.last.is_some_and(|l| sample.at_ms <= l.at_ms) {
             return None;
         }
@@ -434,7 +457,47 @@ impl Estimator {
             None if first && self.start_bridged => Some(self.start_ms),
             None => None,
         };
-        Some(self.estimate(&reading, unit, fraction, inventory, gap_from))
+        Some(self.compute(&reading, unit, fraction, inventory, gap_from))
+    }
+
+    /// [`Estimator::push`], then [`Estimator::estimate`]: the whole estimate
+    /// after every sample (for tests and tools that want each one; the
+    /// daemon asks for the whole estimate once a poll cycle).
+    pub fn push_and_estimate(&mut self, sample: &TankSample) -> Option<Estimate> {
+        self.push(sample)?;
+        self.estimate()
+    }
+
+    /// The whole estimate after the latest sample pushed: its figures with
+    /// the band's causes, the fit, the data quality, the crossings and the
+    /// forecast. The forecast is made here, from the state at the sample
+    /// its schedule picked, so asking more or less often changes nothing:
+    /// a replay asked once at its end gives the live run's last estimate.
+    pub fn estimate(&mut self) -> Option<Estimate> {
+        let mut e = self.latest.clone()?;
+        if let Some(input) = self.forecast_input
+            && self
+                .forecast
+                .is_none_or(|(made_for, _)| made_for != input.at_ms)
+        {
+            self.forecast = Some((input.at_ms, self.make_forecast(&input)));
+        }
+        if let Some((_, Some(f))) = self.forecast {
+            if self.forecast_capped(&f) {
+                e.warnings.insert(Warning::ForecastCapped);
+            }
+            // A forecast made up to 10 s ago never shows less than has
+            // been released since.
+            let best = e.released_best_kg;
+            e.forecast = Some(ForecastSummary {
+                total_at_stop_kg: f.total_at_stop_kg.max(best),
+                total_in_15_min_kg: f.total_in_15_min_kg.max(best),
+                total_in_1_h_kg: f.total_in_1_h_kg.max(best),
+                ..f
+            });
+        }
+        e.crossings.clone_from(&self.crossings);
+        Some(e)
     }
 
     /// Keeps the last good sample before the start.
@@ -887,14 +950,14 @@ impl Estimator {
         }
     }
 
-    fn estimate(
+    fn compute(
         &mut self,
         r: &Reading,
         unit: Outflow,
         fraction: f64,
         inventory_raw: f64,
         gap_from: Option<i64>,
-    ) -> Estimate {
+    ) -> Figures {
         let after_gap = gap_from.is_some();
         let start = self.start.expect("set by begin");
         // The level's own figure is the inventory at this sample, with its
@@ -1242,18 +1305,24 @@ impl Estimator {
             .si()
             * r.density
             / self.vessel.density().si();
-        let vapour = matches!(unit.phase, Phase::Vapour(_));
         let hole_cd = self.forecast_hole(unit_rate, (rate.0, rate.1));
-        if entered_level_mode {
-            // The hole it drained through is refuted: remake it now.
-            self.forecast = None;
-        }
-        self.refresh_forecast(r, hole_cd, vapour, best, cap, u);
-        if self.forecast_capped {
-            warnings.insert(Warning::ForecastCapped);
+        let due = entered_level_mode
+            || self
+                .forecast_input
+                .is_none_or(|i| i.hole_cd.is_none() || r.at_ms - i.at_ms >= FORECAST_EVERY_MS);
+        if due {
+            self.forecast_input = Some(ForecastInput {
+                at_ms: r.at_ms,
+                state: r.state,
+                hole_cd,
+                vapour: matches!(unit.phase, Phase::Vapour(_)),
+                released: best,
+                cap,
+                uncertainty: u,
+            });
         }
         let (rate_low, rate_best, rate_high) = rate;
-        Estimate {
+        let latest = Estimate {
             at_ms: r.at_ms,
             released_best_kg: best,
             released_low_kg: low,
@@ -1282,20 +1351,16 @@ impl Estimator {
                 _ => None,
             },
             remaining_above_hole_kg: remaining,
-            // A forecast made up to 10 s ago never shows less than has
-            // been released since.
-            forecast: self.forecast.map(|f| ForecastSummary {
-                total_at_stop_kg: f.total_at_stop_kg.max(best),
-                total_in_15_min_kg: f.total_in_15_min_kg.max(best),
-                total_in_1_h_kg: f.total_in_1_h_kg.max(best),
-                ..f
-            }),
-            crossings: self.crossings.clone(),
+            forecast: None,
+            crossings: Vec::new(),
             quality: self.quality,
             after_gap,
             band,
             warnings,
-        }
+        };
+        let figures = latest.figures();
+        self.latest = Some(latest);
+        figures
     }
 
     /// Whether any of the tank's instrument accuracies (or its density's
@@ -1348,40 +1413,21 @@ impl Estimator {
         Some((hole, cd))
     }
 
-    /// Remakes the forecast every FORECAST_EVERY_MS of sample time (and at
-    /// once when the hole it drains through changes). Liquid: the draining
-    /// forecast to where the flow stops. Vapour: the isothermal blowdown of
-    /// the gas space to ambient with no blanket supply, the bound that
-    /// releases the most and lasts longest (`model::blowdown`).
-    fn refresh_forecast(
-        &mut self,
-        r: &Reading,
-        hole_cd: Option<(Hole, DischargeCoefficient)>,
-        vapour: bool,
-        released: f64,
-        cap: f64,
-        uncertainty: f64,
-    ) {
-        let due = self
-            .forecast
-            .is_none_or(|f| r.at_ms - f.made_at_ms >= FORECAST_EVERY_MS);
-        if !due {
-            return;
-        }
-        self.forecast = None;
-        self.forecast_capped = false;
-        let Some((hole, cd)) = hole_cd else {
-            return;
-        };
+    /// The forecast from a picked state. Liquid: the draining forecast to
+    /// where the flow stops. Vapour: the isothermal blowdown of the gas
+    /// space to ambient with no blanket supply, the bound that releases
+    /// the most and lasts longest (`model::blowdown`). `None` when there is
+    /// no hole to drain through, or the model cannot make one.
+    fn make_forecast(&self, input: &ForecastInput) -> Option<ForecastSummary> {
+        let (hole, cd) = input.hole_cd?;
         let horizons = [TimeSpan::minutes(15.0), TimeSpan::hours(1.0)];
+        let released = input.released;
         let total = |more: Mass| released + more.si();
-        if vapour {
-            let Some(gas) = self.vessel.vapour().copied() else {
-                return;
-            };
+        if input.vapour {
+            let gas = self.vessel.vapour().copied()?;
             let ambient = self.vessel.ambient();
-            let made = ullage_volume(&self.vessel, r.state.level)
-                .and_then(|v| Ullage::new(v, gas, ambient + r.state.headspace, ambient))
+            let f = ullage_volume(&self.vessel, input.state.level)
+                .and_then(|v| Ullage::new(v, gas, ambient + input.state.headspace, ambient))
                 .and_then(|u| {
                     Blowdown::new(
                         u,
@@ -1391,44 +1437,53 @@ impl Estimator {
                         Thermal::Isothermal,
                     )
                 })
-                .and_then(|b| b.forecast(&horizons, &[]));
-            if let Ok(f) = made {
-                let stops_after_s = match f.end {
-                    BlowdownEnd::Ambient { after } | BlowdownEnd::Steady { after, .. } => {
-                        after.si()
-                    }
-                    BlowdownEnd::NoFlow | BlowdownEnd::Held => 0.0,
-                };
-                self.forecast = Some(ForecastSummary {
-                    made_at_ms: r.at_ms,
-                    stops_after_s,
-                    stop_level_m: r.state.level.si(),
-                    total_at_stop_kg: total(f.released_by_end),
-                    total_in_15_min_kg: total(f.horizons[0].released),
-                    total_in_1_h_kg: total(f.horizons[1].released),
-                });
-            }
-            return;
-        }
-        if let Ok(f) = forecast_liquid(&self.vessel, &hole, cd, &r.state, &horizons) {
-            // The forecast releases at most the liquid above the hole now,
-            // and the total at most what there was at the start plus
-            // transfers in: a total already past that is held, not added to.
-            let at_stop = total(f.released_by_stop);
-            // Said only when the cap takes off more than the level's own
-            // uncertainty: a best figure a little above the level's, inside
-            // its band, is no news.
-            self.forecast_capped = at_stop > cap.max(released) + uncertainty;
-            let capped = |x: f64| x.min(cap.max(released));
-            self.forecast = Some(ForecastSummary {
-                made_at_ms: r.at_ms,
-                stops_after_s: f.stops_after.si(),
-                stop_level_m: f.stop_level.si(),
-                total_at_stop_kg: capped(at_stop),
-                total_in_15_min_kg: capped(total(f.horizons[0].released)),
-                total_in_1_h_kg: capped(total(f.horizons[1].released)),
+                .and_then(|b| b.forecast(&horizons, &[]))
+                .ok()?;
+            let stops_after_s = match f.end {
+                BlowdownEnd::Ambient { after } | BlowdownEnd::Steady { after, .. } => after.si(),
+                BlowdownEnd::NoFlow | BlowdownEnd::Held => 0.0,
+            };
+            return Some(ForecastSummary {
+                made_at_ms: input.at_ms,
+                stops_after_s,
+                stop_level_m: input.state.level.si(),
+                total_at_stop_kg: total(f.released_by_end),
+                total_in_15_min_kg: total(f.horizons[0].released),
+                total_in_1_h_kg: total(f.horizons[1].released),
             });
         }
+        let f = forecast_liquid(&self.vessel, &hole, cd, &input.state, &horizons).ok()?;
+        // The forecast releases at most the liquid above the hole now, and
+        // the total at most what there was at the start plus transfers in:
+        // a total already past that is held, not added to.
+        let capped = |x: f64| x.min(input.cap.max(released));
+        Some(ForecastSummary {
+            made_at_ms: input.at_ms,
+            stops_after_s: f.stops_after.si(),
+            stop_level_m: f.stop_level.si(),
+            total_at_stop_kg: capped(total(f.released_by_stop)),
+            total_in_15_min_kg: capped(total(f.horizons[0].released)),
+            total_in_1_h_kg: capped(total(f.horizons[1].released)),
+        })
+    }
+
+    /// Whether the cap took off more than the level's own uncertainty: a
+    /// best figure a little above the level's, inside its band, is no news.
+    fn forecast_capped(&self, f: &ForecastSummary) -> bool {
+        let Some(input) = self
+            .forecast_input
+            .filter(|i| i.at_ms == f.made_at_ms && !i.vapour)
+        else {
+            return false;
+        };
+        let Some((hole, cd)) = input.hole_cd else {
+            return false;
+        };
+        let horizons = [TimeSpan::minutes(15.0), TimeSpan::hours(1.0)];
+        forecast_liquid(&self.vessel, &hole, cd, &input.state, &horizons).is_ok_and(|raw| {
+            input.released + raw.released_by_stop.si()
+                > input.cap.max(input.released) + input.uncertainty
+        })
     }
 
     /// The liquid mass between a level and the hole, for reports.
@@ -1533,7 +1588,7 @@ mod tests {
         (0..=seconds)
             .filter(|s| !skip(*s))
             .filter_map(|s| {
-                e.push(&sample(
+                e.push_and_estimate(&sample(
                     s as f64,
                     torricelli_level(s as f64) + noise_m * noise.gaussian(),
                 ))
@@ -1701,7 +1756,7 @@ mod tests {
         let mut estimates = Vec::new();
         for s in (0..=400).filter(|s| !(101..221).contains(s)) {
             let t = s as f64;
-            estimates.extend(e.push(&sample(t, level(t) + 0.001 * noise.gaussian())));
+            estimates.extend(e.push_and_estimate(&sample(t, level(t) + 0.001 * noise.gaussian())));
         }
         let truth = torricelli_released(stops);
         let after = estimates.iter().find(|e| e.after_gap).unwrap();
@@ -1740,7 +1795,9 @@ mod tests {
         for s in 0..=3600 {
             let t = s as f64;
             let drift = -0.002 * t / 3600.0;
-            if let Some(est) = e.push(&sample(t, 4.0 + drift + 0.001 * noise.gaussian())) {
+            if let Some(est) =
+                e.push_and_estimate(&sample(t, 4.0 + drift + 0.001 * noise.gaussian()))
+            {
                 assert_eq!(est.released_low_kg, 0.0, "{s} s: {est:?}");
                 assert!(
                     est.released_best_kg < 0.5 * est.band.inventory_kg,
@@ -1765,7 +1822,7 @@ mod tests {
             let mut estimates = Vec::new();
             for s in 0..=900 {
                 let level = 4.0 + 0.002 * noise.gaussian();
-                estimates.extend(e.push(&sample(s as f64, level)));
+                estimates.extend(e.push_and_estimate(&sample(s as f64, level)));
             }
             // A hole someone has seen stands until the level refutes it:
             // its 5.6 kg/s fills the level's ±48 kg band in about ten
@@ -1816,7 +1873,7 @@ mod tests {
         for s in 0..=600 {
             // Plugged at 120 s: the level stays where it was.
             let t = (s as f64).min(120.0);
-            estimates.extend(e.push(&sample(
+            estimates.extend(e.push_and_estimate(&sample(
                 s as f64,
                 torricelli_level(t) + 0.001 * noise.gaussian(),
             )));
@@ -1856,7 +1913,9 @@ mod tests {
         let mut estimates = Vec::new();
         for s in 0..=300 {
             let t = s as f64;
-            estimates.extend(e.push(&sample(t, torricelli_level(t) + 0.001 * noise.gaussian())));
+            estimates.extend(
+                e.push_and_estimate(&sample(t, torricelli_level(t) + 0.001 * noise.gaussian())),
+            );
         }
         let last = estimates.last().unwrap();
         // Analytic Torricelli release through the true hole at 0.3 m.
@@ -1905,7 +1964,7 @@ mod tests {
             let mut sample = sample(s as f64, 1.6);
             sample.pressure = Some(Reading::good(15_000.0));
             sample.temperature = Some(Reading::good(288.15));
-            last = e.push(&sample).or(last);
+            last = e.push_and_estimate(&sample).or(last);
         }
         let last = last.unwrap();
         // The subcritical ideal-gas orifice equation, written out here
@@ -1951,13 +2010,14 @@ mod tests {
         // analytic solution, which the simulated gauge sees at 0.5 s.
         let mut e = Estimator::new(&demo_tank(), params(Some(D_HOLE)), 0, 1000).unwrap();
         assert!(
-            e.push(&sample(-0.5, torricelli_level(0.0))).is_none(),
+            e.push_and_estimate(&sample(-0.5, torricelli_level(0.0)))
+                .is_none(),
             "before the start"
         );
         let mut estimates = Vec::new();
         for s in 0..60 {
             let t = s as f64 + 0.5;
-            estimates.extend(e.push(&sample(t, torricelli_level(t))));
+            estimates.extend(e.push_and_estimate(&sample(t, torricelli_level(t))));
         }
         let first = &estimates[0];
         // Analytic Torricelli release to the first sample; the interpolated
@@ -1981,10 +2041,13 @@ mod tests {
         // after it. The stretch is a gap, bridged by the forecast and
         // checked by the level, and counted once.
         let mut e = Estimator::new(&demo_tank(), params(Some(D_HOLE)), 0, 1000).unwrap();
-        assert!(e.push(&sample(-1.0, torricelli_level(0.0))).is_none());
+        assert!(
+            e.push_and_estimate(&sample(-1.0, torricelli_level(0.0)))
+                .is_none()
+        );
         let mut estimates = Vec::new();
         for s in 14..60 {
-            estimates.extend(e.push(&sample(s as f64, torricelli_level(s as f64))));
+            estimates.extend(e.push_and_estimate(&sample(s as f64, torricelli_level(s as f64))));
         }
         let first = &estimates[0];
         assert!(
@@ -2015,7 +2078,7 @@ mod tests {
         let mut e = Estimator::new(&demo_tank(), params(Some(D_HOLE)), 0, 1000).unwrap();
         let mut estimates = Vec::new();
         for s in 14..60 {
-            estimates.extend(e.push(&sample(s as f64, torricelli_level(s as f64))));
+            estimates.extend(e.push_and_estimate(&sample(s as f64, torricelli_level(s as f64))));
         }
         let first = &estimates[0];
         assert!(first.warnings.contains(Warning::StartBridged), "{first:?}");
@@ -2054,7 +2117,7 @@ mod tests {
             } else {
                 torricelli_level(s as f64)
             };
-            estimates.extend(e.push(&sample(s as f64, level)));
+            estimates.extend(e.push_and_estimate(&sample(s as f64, level)));
         }
         let last = estimates.last().unwrap();
         assert_eq!(last.quality.spikes_rejected, 1);
@@ -2086,16 +2149,19 @@ mod tests {
     #[test]
     fn a_level_that_moves_in_one_step_is_accepted_once_confirmed() {
         let mut e = Estimator::new(&demo_tank(), params(Some(D_HOLE)), 0, 1000).unwrap();
-        assert!(e.push(&sample(0.0, 4.0)).is_some());
-        assert!(e.push(&sample(1.0, 3.5)).is_none(), "held back");
+        assert!(e.push_and_estimate(&sample(0.0, 4.0)).is_some());
+        assert!(
+            e.push_and_estimate(&sample(1.0, 3.5)).is_none(),
+            "held back"
+        );
         let est = e
-            .push(&sample(2.0, 3.5))
+            .push_and_estimate(&sample(2.0, 3.5))
             .expect("confirmed by the next reading");
         assert_eq!(est.level_m, 3.5);
         let mut outside = sample(3.0, 6.0);
         outside.level = Reading::good(6.0);
         assert!(
-            e.push(&outside).is_none(),
+            e.push_and_estimate(&outside).is_none(),
             "a level above the tank's top is not data"
         );
     }
@@ -2214,7 +2280,7 @@ mod tests {
             sample.pressure = Some(Reading::good(15_000.0));
             sample.temperature = Some(Reading::good(t_c + 273.15));
             sample.transfer = None;
-            last = e.push(&sample).or(last);
+            last = e.push_and_estimate(&sample).or(last);
             naive = constant.push(&sample).or(naive);
         }
         let (last, naive) = (last.unwrap(), naive.unwrap());
@@ -2236,17 +2302,17 @@ mod tests {
     #[test]
     fn bad_levels_are_skipped_and_counted() {
         let mut e = Estimator::new(&demo_tank(), params(Some(D_HOLE)), 0, 1000).unwrap();
-        assert!(e.push(&sample(0.0, 4.0)).is_some());
+        assert!(e.push_and_estimate(&sample(0.0, 4.0)).is_some());
         let mut bad = sample(1.0, 4.0);
         bad.level = Reading::bad(Quality::Stuck);
-        assert!(e.push(&bad).is_none());
-        let est = e.push(&sample(2.0, 3.99)).unwrap();
+        assert!(e.push_and_estimate(&bad).is_none());
+        let est = e.push_and_estimate(&sample(2.0, 3.99)).unwrap();
         assert_eq!(
             (est.quality.samples_used, est.quality.samples_skipped),
             (2, 1)
         );
         assert!(
-            e.push(&sample(1.5, 3.99)).is_none(),
+            e.push_and_estimate(&sample(1.5, 3.99)).is_none(),
             "older than the last sample"
         );
     }

@@ -29,8 +29,12 @@
 //! Readers such as `status` open their own short-lived read-only
 //! connections, which WAL lets run beside the writer.
 
+pub mod actions;
+pub mod estimates;
+pub mod events;
 pub mod health;
-pub mod records;
+pub mod heartbeat;
+pub mod samples;
 pub mod schema;
 pub mod trim;
 pub(crate) mod unit;
@@ -40,7 +44,11 @@ use std::path::{Path, PathBuf};
 use std::time::Duration;
 use tokio::sync::{mpsc, oneshot};
 
-pub use records::*;
+pub use actions::*;
+pub use estimates::*;
+pub use events::*;
+pub use heartbeat::*;
+pub use samples::*;
 pub use trim::Retention;
 pub use unit::{Reader, Tx};
 

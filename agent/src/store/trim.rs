@@ -8,13 +8,16 @@
 //! time, inside the daemon's loop: 107,000 rows and 16 s at the first trim
 //! of a 1,000-tank site. Now:
 //!
-//! * Work goes by **time window** and **range**: per tank, one range delete
-//!   of what is too old, and for thinning one range scan of the window's
-//!   times and one range delete per run of doomed rows (the nine samples
-//!   after each kept one, at 1 Hz). The samples' primary key
-//!   (tank, at_ms) is the index these ranges use; the events' index on
-//!   (tank, start_ms) finds the windows to keep.
-//! * **Chunks**: a call ([`step`]) does whole tanks until its time budget is
+//! * Work goes by **time window** and **range**: samples are stored a poll
+//!   cycle of a sample set (a device's tanks) to a block (`store::samples`),
+//!   so per set, one range delete of what is too old, and for thinning one
+//!   range scan of the window's times and one range delete per run of
+//!   doomed blocks (the nine cycles after each kept one, at 1 Hz). The
+//!   blocks' index on (sample_set, at_ms) serves these ranges. A block is
+//!   kept whole inside the event window of any of its tanks: its other
+//!   tanks' samples stay at full rate with it, a little more kept than the
+//!   rule asks, never less.
+//! * **Chunks**: a call ([`step`]) does whole sets until its time budget is
 //!   spent, in the caller's one transaction, and says where to go on. The
 //!   daemon runs it in the store's background lane, so a poll batch, a
 //!   heartbeat or an operator action waits at most one chunk.
@@ -58,12 +61,13 @@ pub const MAX_THIN_WINDOW_MS: i64 = 10 * 60_000;
 /// The most history one pass removes: 6 h, 2,160 thinned samples per tank,
 /// in one range delete each.
 pub const MAX_REMOVE_WINDOW_MS: i64 = 6 * 3_600_000;
-/// The most rows a chunk deletes (finishing the tank it is on). The WAL
+/// The most samples a chunk deletes (finishing the set it is on). The WAL
 /// checkpoint after a chunk copies every page the chunk changed, so this
-/// bounds it too: measured on a 1,000-tank site, a chunk of about 13,000
-/// rows is followed by a checkpoint of under 100 ms, one of 127,000 by
-/// one of almost 500 ms.
-pub const MAX_ROWS_PER_CHUNK: usize = 15_000;
+/// bounds it too: measured on a 1,000-tank site with a row per sample, a
+/// chunk of about 13,000 samples was followed by a checkpoint of under
+/// 100 ms, one of 127,000 by one of almost 500 ms; packed, the same
+/// samples take about a third of the pages.
+pub const MAX_SAMPLES_PER_CHUNK: usize = 15_000;
 
 /// The time windows of one pass.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -80,14 +84,14 @@ pub struct Pass {
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub struct TrimState {
     pub pass: Pass,
-    /// The next tank (by id order) to do.
-    pub next_tank: usize,
+    /// The next sample set (by id order) to do.
+    pub next_set: usize,
 }
 
 /// What one chunk did.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub struct TrimStep {
-    /// Rows deleted.
+    /// Samples deleted (blocks times their set's tanks).
     pub removed: usize,
     /// Where to go on: `None` when the pass is finished (or there was
     /// nothing to do).
@@ -112,11 +116,7 @@ fn progress(conn: &Connection, now_ms: i64, retention: Retention) -> StoreResult
         return Ok(p);
     }
     let thinned = align(now_ms - retention.full_ms, retention.thin_every_ms);
-    let oldest: Option<i64> = conn.query_row(
-        "SELECT MIN((SELECT MIN(s.at_ms) FROM samples s WHERE s.tank = t.id)) FROM tanks t",
-        [],
-        |r| r.get(0),
-    )?;
+    let oldest = super::samples::oldest_sample_ms(conn)?;
     let removed = oldest.unwrap_or(now_ms - retention.keep_ms);
     Ok((thinned, removed))
 }
@@ -149,8 +149,8 @@ pub fn plan(conn: &Connection, now_ms: i64, retention: Retention) -> StoreResult
     }))
 }
 
-/// One chunk: goes on with `state` (or plans a pass), trims whole tanks
-/// until `budget` is spent or [`MAX_ROWS_PER_CHUNK`] rows are gone, and
+/// One chunk: goes on with `state` (or plans a pass), trims whole sets
+/// until `budget` is spent or [`MAX_SAMPLES_PER_CHUNK`] samples are gone, and
 /// records the progress when the pass is done. Runs inside the caller's
 /// transaction.
 pub fn step(
@@ -164,7 +164,7 @@ pub fn step(
     let state = match state {
         Some(s) => s,
         None => match plan(conn, now_ms, retention)? {
-            Some(pass) => TrimState { pass, next_tank: 0 },
+            Some(pass) => TrimState { pass, next_set: 0 },
             None => {
                 return Ok(TrimStep {
                     removed: 0,
@@ -175,25 +175,28 @@ pub fn step(
         },
     };
     let pass = state.pass;
-    let tanks: Vec<(i64, String)> = {
-        let mut stmt = conn.prepare_cached("SELECT id, tag FROM tanks ORDER BY id")?;
-        stmt.query_map([], |r| Ok((r.get(0)?, r.get(1)?)))?
+    let sets: Vec<(i64, usize)> = {
+        let mut stmt = conn.prepare_cached(
+            "SELECT sample_set, COUNT(*) FROM sample_set_slots GROUP BY sample_set ORDER BY sample_set",
+        )?;
+        stmt.query_map([], |r| Ok((r.get(0)?, r.get::<_, i64>(1)? as usize)))?
             .collect::<Result<_, _>>()?
     };
     let windows = event_windows(conn)?;
     let none = Vec::new();
     let mut removed = 0;
-    for (i, (id, tag)) in tanks.iter().enumerate().skip(state.next_tank) {
-        let kept = windows.get(tag).unwrap_or(&none);
-        removed += remove(conn, *id, pass.remove_from, pass.remove_to, kept)?;
-        removed += thin(conn, *id, &pass, retention.thin_every_ms, kept)?;
-        let spent = began.elapsed() >= budget || removed >= MAX_ROWS_PER_CHUNK;
-        if spent && i + 1 < tanks.len() {
+    for (i, (set, tanks)) in sets.iter().enumerate().skip(state.next_set) {
+        let kept = windows.get(set).unwrap_or(&none);
+        let blocks = remove(conn, *set, pass.remove_from, pass.remove_to, kept)?
+            + thin(conn, *set, &pass, retention.thin_every_ms, kept)?;
+        removed += blocks * tanks;
+        let spent = began.elapsed() >= budget || removed >= MAX_SAMPLES_PER_CHUNK;
+        if spent && i + 1 < sets.len() {
             return Ok(TrimStep {
                 removed,
                 next: Some(TrimState {
                     pass,
-                    next_tank: i + 1,
+                    next_set: i + 1,
                 }),
                 worked: true,
             });
@@ -211,16 +214,17 @@ pub fn step(
     })
 }
 
-/// The event windows of every tank, by tag: (start, close or never).
-fn event_windows(conn: &Connection) -> StoreResult<HashMap<String, Vec<(i64, i64)>>> {
-    let mut stmt =
-        conn.prepare_cached("SELECT tank, start_ms, COALESCE(closed_at_ms, ?1) FROM events")?;
-    let mut out: HashMap<String, Vec<(i64, i64)>> = HashMap::new();
-    for row in stmt.query_map([i64::MAX], |r| {
-        Ok((r.get::<_, String>(0)?, r.get(1)?, r.get(2)?))
-    })? {
-        let (tag, from, to) = row?;
-        out.entry(tag).or_default().push((from, to));
+/// The event windows of the tanks of every sample set, by set: (start,
+/// close or never).
+fn event_windows(conn: &Connection) -> StoreResult<HashMap<i64, Vec<(i64, i64)>>> {
+    let mut stmt = conn.prepare_cached(
+        "SELECT s.sample_set, e.start_ms, COALESCE(e.closed_at_ms, ?1)
+         FROM events e JOIN tanks t ON t.tag = e.tank JOIN sample_set_slots s ON s.tank = t.id",
+    )?;
+    let mut out: HashMap<i64, Vec<(i64, i64)>> = HashMap::new();
+    for row in stmt.query_map([i64::MAX], |r| Ok((r.get(0)?, r.get(1)?, r.get(2)?)))? {
+        let (set, from, to) = row?;
+        out.entry(set).or_default().push((from, to));
     }
     Ok(out)
 }
@@ -250,11 +254,11 @@ fn outside(from: i64, to: i64, kept: &[(i64, i64)]) -> Vec<(i64, i64)> {
     out
 }
 
-/// Deletes a tank's samples in [from, to) outside its event windows: one
-/// range delete per stretch between windows.
+/// Deletes a set's blocks in [from, to) outside its event windows: one
+/// range delete per stretch between windows. Returns the blocks deleted.
 fn remove(
     conn: &Connection,
-    tank: i64,
+    set: i64,
     from: i64,
     to: i64,
     kept: &[(i64, i64)],
@@ -262,21 +266,22 @@ fn remove(
     if from >= to {
         return Ok(0);
     }
-    let mut delete =
-        conn.prepare_cached("DELETE FROM samples WHERE tank = ?1 AND at_ms >= ?2 AND at_ms < ?3")?;
+    let mut delete = conn.prepare_cached(
+        "DELETE FROM sample_blocks WHERE sample_set = ?1 AND at_ms >= ?2 AND at_ms < ?3",
+    )?;
     let mut removed = 0;
     for (a, b) in outside(from, to, kept) {
-        removed += delete.execute(params![tank, a, b])?;
+        removed += delete.execute(params![set, a, b])?;
     }
     Ok(removed)
 }
 
-/// Thins a tank's samples in the pass's window to the first of each bucket,
+/// Thins a set's blocks in the pass's window to the first of each bucket,
 /// outside its event windows: one range scan, then one range delete per
-/// run of doomed samples.
+/// run of doomed blocks. Returns the blocks deleted.
 fn thin(
     conn: &Connection,
-    tank: i64,
+    set: i64,
     pass: &Pass,
     every_ms: i64,
     kept: &[(i64, i64)],
@@ -286,9 +291,9 @@ fn thin(
     }
     let times: Vec<i64> = {
         let mut stmt = conn.prepare_cached(
-            "SELECT at_ms FROM samples WHERE tank = ?1 AND at_ms >= ?2 AND at_ms < ?3 ORDER BY at_ms",
+            "SELECT at_ms FROM sample_blocks WHERE sample_set = ?1 AND at_ms >= ?2 AND at_ms < ?3 ORDER BY at_ms",
         )?;
-        stmt.query_map(params![tank, pass.thin_from, pass.thin_to], |r| r.get(0))?
+        stmt.query_map(params![set, pass.thin_from, pass.thin_to], |r| r.get(0))?
             .collect::<Result<_, _>>()?
     };
     let in_event = |at: i64| kept.iter().any(|&(a, b)| at >= a && at <= b);
@@ -306,11 +311,12 @@ fn thin(
         }
     }
     runs.extend(run);
-    let mut delete =
-        conn.prepare_cached("DELETE FROM samples WHERE tank = ?1 AND at_ms >= ?2 AND at_ms <= ?3")?;
+    let mut delete = conn.prepare_cached(
+        "DELETE FROM sample_blocks WHERE sample_set = ?1 AND at_ms >= ?2 AND at_ms <= ?3",
+    )?;
     let mut removed = 0;
     for (a, b) in runs {
-        removed += delete.execute(params![tank, a, b])?;
+        removed += delete.execute(params![set, a, b])?;
     }
     Ok(removed)
 }
@@ -320,7 +326,7 @@ mod tests {
     use super::*;
     use crate::acquire::sample::{Reading, TankSample};
     use crate::estimate::LeakParams;
-    use crate::store::records;
+    use crate::store as records;
 
     const HOUR: i64 = 3_600_000;
 
@@ -405,7 +411,7 @@ mod tests {
         // A zero budget does one tank per chunk.
         assert!(chunks >= 3 * 132, "{chunks} chunks");
         assert!(
-            most <= MAX_ROWS_PER_CHUNK + 2 * 3600,
+            most <= MAX_SAMPLES_PER_CHUNK + 2 * 3600,
             "a chunk removed {most} rows"
         );
         for tag in tags {
@@ -473,7 +479,7 @@ mod tests {
             &conn,
             now,
             Retention::DEFAULT,
-            Some(TrimState { pass, next_tank: 0 }),
+            Some(TrimState { pass, next_set: 0 }),
             Duration::from_secs(1),
         )
         .unwrap();
@@ -483,7 +489,7 @@ mod tests {
     }
 
     /// However long the budget, a chunk stops after the tank that takes it
-    /// past [`MAX_ROWS_PER_CHUNK`] rows, so the checkpoint after it stays
+    /// past [`MAX_SAMPLES_PER_CHUNK`] rows, so the checkpoint after it stays
     /// small.
     #[test]
     fn a_chunk_is_bounded_in_rows_too() {
@@ -523,7 +529,7 @@ mod tests {
         assert_eq!(sizes.iter().sum::<usize>(), 30_000, "{sizes:?}");
         assert!(sizes.len() >= 2, "{sizes:?}");
         assert!(
-            sizes.iter().all(|&n| n <= MAX_ROWS_PER_CHUNK + 3000),
+            sizes.iter().all(|&n| n <= MAX_SAMPLES_PER_CHUNK + 3000),
             "{sizes:?}"
         );
         drop(conn);

@@ -11,12 +11,13 @@
 //! In tests, [`Faults`] makes the database hang, report a held lock, or
 //! fail a unit part way.
 
-use super::records::{self, ActionRow, Beat, EventRow, Heartbeat};
 use super::trim::{self, Retention, TrimState, TrimStep};
+use super::{ActionRow, Beat, EventRow, Heartbeat};
 use super::{StoreError, StoreResult};
+use super::{actions, estimates, events, heartbeat, samples};
 use crate::acquire::sample::TankSample;
 use crate::clock::ClockStep;
-use crate::estimate::{Estimate, LeakParams};
+use crate::estimate::{Estimate, Figures, LeakParams};
 use rusqlite::Connection;
 use std::time::Duration;
 use tokio::sync::oneshot;
@@ -28,16 +29,16 @@ pub struct Reader<'c> {
 
 impl<'c> Reader<'c> {
     pub fn events(&self, open_only: bool) -> StoreResult<Vec<EventRow>> {
-        records::events(self.conn, open_only)
+        events::events(self.conn, open_only)
     }
 
     pub fn event(&self, id: i64) -> StoreResult<Option<EventRow>> {
-        records::event(self.conn, id)
+        events::event(self.conn, id)
     }
 
     /// The open event of a tank, if it has one.
     pub fn open_event_of_tank(&self, tank: &str) -> StoreResult<Option<EventRow>> {
-        records::open_event_of_tank(self.conn, tank)
+        events::open_event_of_tank(self.conn, tank)
     }
 
     pub fn samples_between(
@@ -46,45 +47,62 @@ impl<'c> Reader<'c> {
         from_ms: i64,
         to_ms: i64,
     ) -> StoreResult<Vec<TankSample>> {
-        records::samples_between(self.conn, tank, from_ms, to_ms)
+        samples::samples_between(self.conn, tank, from_ms, to_ms)
+    }
+
+    /// Calls `f` with each of a tank's samples in a time range, in order,
+    /// without holding them all.
+    pub fn for_each_sample(
+        &self,
+        tank: &str,
+        from_ms: i64,
+        to_ms: i64,
+        f: impl FnMut(&TankSample) -> StoreResult<()>,
+    ) -> StoreResult<()> {
+        samples::for_each_sample(self.conn, tank, from_ms, to_ms, f)
     }
 
     pub fn first_sample_ms(&self, tank: &str) -> StoreResult<Option<i64>> {
-        records::first_sample_ms(self.conn, tank)
+        samples::first_sample_ms(self.conn, tank)
     }
 
     /// Whether a good level of `tank` is stored within `slack_ms` of `at_ms`.
     pub fn good_level_near(&self, tank: &str, at_ms: i64, slack_ms: i64) -> StoreResult<bool> {
-        records::good_level_near(self.conn, tank, at_ms, slack_ms)
+        samples::good_level_near(self.conn, tank, at_ms, slack_ms)
     }
 
     /// The latest time anything stored carries, for anchoring the clock.
     pub fn latest_stored_ms(&self) -> StoreResult<Option<i64>> {
-        records::latest_stored_ms(self.conn)
+        heartbeat::latest_stored_ms(self.conn)
+    }
+
+    /// Whether an event revision has a latest whole estimate.
+    pub fn has_latest(&self, event: i64, revision: i64) -> StoreResult<bool> {
+        Ok(estimates::latest_estimate_with_version(self.conn, event, revision)?.is_some())
     }
 
     pub fn pending_actions(&self) -> StoreResult<Vec<ActionRow>> {
-        records::pending_actions(self.conn)
+        actions::pending_actions(self.conn)
     }
 
     pub fn action_is_pending(&self, id: i64) -> StoreResult<bool> {
-        records::action_is_pending(self.conn, id)
+        actions::action_is_pending(self.conn, id)
     }
 
     pub fn heartbeat(&self) -> StoreResult<Option<Heartbeat>> {
-        records::heartbeat(self.conn)
+        heartbeat::heartbeat(self.conn)
     }
 
     /// Why each open event that is not tracked is not.
     pub fn tracking_errors(&self) -> StoreResult<std::collections::HashMap<i64, String>> {
-        records::tracking_errors(self.conn)
+        events::tracking_errors(self.conn)
     }
 }
 
 /// Reads and writes, inside the unit's write transaction.
 pub struct Tx<'c> {
     reader: Reader<'c>,
-    writes: usize,
+    writes: std::cell::Cell<usize>,
     /// In tests: the write after this many fails with this SQLite code.
     fail_after: Option<(usize, i32)>,
 }
@@ -103,10 +121,10 @@ impl<'c> Tx<'c> {
     }
 
     /// Counts a write, and fails it when a test asked for that.
-    fn wrote(&mut self) -> StoreResult<()> {
-        self.writes += 1;
+    fn wrote(&self) -> StoreResult<()> {
+        self.writes.set(self.writes.get() + 1);
         match self.fail_after {
-            Some((after, code)) if self.writes > after => {
+            Some((after, code)) if self.writes.get() > after => {
                 Err(StoreError::Sql(rusqlite::Error::SqliteFailure(
                     rusqlite::ffi::Error::new(code),
                     Some("failure injected by a test".into()),
@@ -139,12 +157,24 @@ impl<'c> Tx<'c> {
         tags: impl IntoIterator<Item = &'a str>,
     ) -> StoreResult<()> {
         self.wrote()?;
-        records::register_tanks(self.conn(), tags)
+        samples::register_tanks(self.conn(), tags)
     }
 
     pub fn insert_samples(&mut self, samples: &[TankSample]) -> StoreResult<usize> {
         self.wrote()?;
-        records::insert_samples(self.conn(), samples)
+        samples::insert_samples(self.conn(), samples)
+    }
+
+    /// The sample set of these tanks in this order (see `store::samples`).
+    pub fn sample_set(&mut self, tags: &[&str]) -> StoreResult<i64> {
+        self.wrote()?;
+        samples::sample_set(self.conn(), tags)
+    }
+
+    /// One poll cycle of a set's tanks, packed (see `store::samples`).
+    pub fn insert_block(&mut self, set: i64, at_ms: i64, data: &[u8]) -> StoreResult<bool> {
+        self.wrote()?;
+        samples::insert_block(self.conn(), set, at_ms, data)
     }
 
     pub fn insert_estimates(
@@ -154,7 +184,29 @@ impl<'c> Tx<'c> {
         estimates: &[Estimate],
     ) -> StoreResult<()> {
         self.wrote()?;
-        records::insert_estimates(self.conn(), event, revision, estimates)
+        estimates::insert_estimates(self.conn(), event, revision, estimates)
+    }
+
+    /// (Shared: a rebuild stores figures while it reads the samples.)
+    pub fn insert_figures(
+        &self,
+        event: i64,
+        revision: i64,
+        figures: &[Figures],
+    ) -> StoreResult<()> {
+        self.wrote()?;
+        estimates::insert_figures(self.conn(), event, revision, figures)
+    }
+
+    /// The whole estimate of an event revision's latest sample.
+    pub fn put_latest(
+        &mut self,
+        event: i64,
+        revision: i64,
+        estimate: &Estimate,
+    ) -> StoreResult<()> {
+        self.wrote()?;
+        estimates::put_latest(self.conn(), event, revision, estimate)
     }
 
     pub fn create_event(
@@ -166,12 +218,12 @@ impl<'c> Tx<'c> {
         params: &LeakParams,
     ) -> StoreResult<i64> {
         self.wrote()?;
-        records::create_event(self.conn(), tank, opened_at_ms, start_ms, source, params)
+        events::create_event(self.conn(), tank, opened_at_ms, start_ms, source, params)
     }
 
     pub fn revise_event(&mut self, id: i64, params: &LeakParams) -> StoreResult<i64> {
         self.wrote()?;
-        records::revise_event(self.conn(), id, params)
+        events::revise_event(self.conn(), id, params)
     }
 
     /// Closes an event at `at_ms` and drops its estimates and crossings
@@ -179,13 +231,13 @@ impl<'c> Tx<'c> {
     /// part of it (and a replay, which ends at the close, agrees).
     pub fn close_event(&mut self, id: i64, at_ms: i64) -> StoreResult<()> {
         self.wrote()?;
-        records::close_event(self.conn(), id, at_ms)?;
-        records::drop_estimates_after(self.conn(), id, at_ms)
+        events::close_event(self.conn(), id, at_ms)?;
+        estimates::drop_estimates_after(self.conn(), id, at_ms)
     }
 
     pub fn set_tracking_error(&mut self, event: i64, why: Option<&str>) -> StoreResult<()> {
         self.wrote()?;
-        records::set_tracking_error(self.conn(), event, why)
+        events::set_tracking_error(self.conn(), event, why)
     }
 
     pub fn finish_action(
@@ -197,22 +249,22 @@ impl<'c> Tx<'c> {
         at_ms: i64,
     ) -> StoreResult<()> {
         self.wrote()?;
-        records::finish_action_at(self.conn(), id, event, done, outcome, at_ms)
+        actions::finish_action_at(self.conn(), id, event, done, outcome, at_ms)
     }
 
     pub fn beat(&mut self, beat: &Beat) -> StoreResult<()> {
         self.wrote()?;
-        records::beat_with(self.conn(), beat)
+        heartbeat::beat_with(self.conn(), beat)
     }
 
     pub fn mark_stopped(&mut self, at_ms: i64, wall_ms: i64) -> StoreResult<()> {
         self.wrote()?;
-        records::mark_stopped_at(self.conn(), at_ms, wall_ms)
+        heartbeat::mark_stopped_at(self.conn(), at_ms, wall_ms)
     }
 
     pub fn record_clock_step(&mut self, step: &ClockStep) -> StoreResult<()> {
         self.wrote()?;
-        records::record_clock_step(self.conn(), step)
+        heartbeat::record_clock_step(self.conn(), step)
     }
 
     /// One bounded chunk of trimming (see [`trim`]).
@@ -240,7 +292,7 @@ pub(super) fn in_write_transaction<T>(
     conn.execute_batch("BEGIN IMMEDIATE")?;
     let outcome = work(&mut Tx {
         reader: Reader { conn: &*conn },
-        writes: 0,
+        writes: std::cell::Cell::new(0),
         fail_after,
     });
     match outcome {

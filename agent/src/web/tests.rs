@@ -69,7 +69,7 @@ fn fixture_with_health() -> (Scratch, Router, i64, Arc<StoreHealth>) {
     let mut estimator = Estimator::new(&config.tanks[0], params, start, 1000).unwrap();
     let estimates: Vec<_> = (0..120)
         .filter_map(|i| {
-            estimator.push(&TankSample {
+            estimator.push_and_estimate(&TankSample {
                 tank: 0,
                 tank_id: HOSTILE_ID.into(),
                 at_ms: start + 1000 * i,
