@@ -47,7 +47,10 @@ rss_kb() { awk '/VmRSS/ {print $2}' /proc/$agent_pid/status; }
 count() { python3 - "$work/load.db" <<'PY'
 import sqlite3, sys
 c = sqlite3.connect(f"file:{sys.argv[1]}?mode=ro", uri=True)
-print(c.execute("select count(*) from samples").fetchone()[0])
+# Samples: every block's tanks (store::samples packs a poll cycle a row).
+print(c.execute("""SELECT COALESCE(SUM(s.n), 0) FROM sample_blocks b
+                   JOIN (SELECT sample_set, COUNT(*) n FROM sample_set_slots GROUP BY sample_set) s
+                   ON s.sample_set = b.sample_set""").fetchone()[0])
 PY
 }
 # The database's size as a reader sees it: pages in use, WAL included.

@@ -1,15 +1,20 @@
 #!/usr/bin/env python3
-"""The soak run's two halves (tools/soak_run.sh drives them).
+"""The soak run's halves (tools/soak_run.sh and tools/compare_run.sh drive
+them).
 
   python3 tools/soak.py preage DB HOURS
-      Fills DB (made by the agent, with its tanks registered) with HOURS of
-      history per tank ending 20 s ago, at the agent's own thinning: one
-      sample per 10 s before the last 2 h, one per second within them, each
-      with a good level and pressure as the load site's samples have. The
-      trim progress row is left as a daemon that kept up would leave it:
-      thinned up to 2 h ago, nothing removed, so the first trims must remove
-      everything older than 24 h. Plain SQL (a recursive CTE per tank), in
-      primary-key order, one transaction per tank.
+      Fills DB (made by the agent: its schema, tanks and sample sets) with
+      HOURS of history ending 20 s ago, at the agent's own thinning: a
+      block of every sample set every 10 s before the last 2 h, every second
+      within them, each tank with a good level and pressure as the load
+      site's samples have, packed as the agent packs them. The trim progress
+      row is left as a daemon that kept up would leave it: thinned up to
+      2 h ago, nothing removed, so the first trims must remove everything
+      older than 24 h. One transaction per sample set.
+
+  python3 tools/soak.py preage-rows DB SITE HOURS
+      The same history for the plain Python poller (tools/plain_poller.py):
+      a row per sample in its own table.
 
   python3 tools/soak.py watch DB AGENT_PID SECONDS NOTE_EVERY_S EVENT OUT.json
       Watches a running agent for SECONDS: its heartbeat (read 10 times a
@@ -22,6 +27,7 @@
 import json
 import os
 import sqlite3
+import struct
 import subprocess
 import sys
 import threading
@@ -30,46 +36,88 @@ import time
 HOUR = 3_600_000
 
 
+def block(levels, pressure_pa):
+    """A packed block as the agent stores it (store::samples): a format
+    byte, then per tank a leak-flag byte (0: not mapped), the level and
+    pressure qualities (good, good), the transfer and temperature qualities
+    (not mapped), then the two values as little-endian f64."""
+    out = bytearray(b"\x01")
+    for level in levels:
+        out += b"\x00\x11\x00" + struct.pack("<dd", level, pressure_pa)
+    return bytes(out)
+
+
 def preage(db, hours):
+    """Fills the agent's sample sets with HOURS of history ending 20 s ago,
+    at its thinning: a block per set every 10 s before the last 2 h, every
+    second within them. Also, with --rows TABLE, the plain poller's table
+    of a row per sample (tools/plain_poller.py) in another database."""
     now = int(time.time() * 1000) - 20_000
     c = sqlite3.connect(db)
     c.execute("PRAGMA synchronous = OFF")
-    tanks = c.execute("SELECT id, tag FROM tanks ORDER BY id").fetchall()
+    sets = c.execute("SELECT id FROM sample_sets ORDER BY id").fetchall()
     full_from = (now - 2 * HOUR) // 10_000 * 10_000
     thin_from = (now - hours * HOUR) // 10_000 * 10_000
-    sql = """
-        WITH RECURSIVE k(i) AS (SELECT 0 UNION ALL SELECT i + 1 FROM k WHERE i < :n - 1)
-        INSERT OR IGNORE INTO samples (tank, at_ms, level, level_q, pressure, pressure_q)
-        SELECT :tank, :start + i * :step,
-               :level + 0.001 * ((i * 7919) % 1000) / 1000.0, 'good',
-               5000.0 + ((i * 104729) % 40) - 20, 'good'
-        FROM k
-    """
     began = time.time()
-    for n, (tank, tag) in enumerate(tanks):
+    samples = 0
+    for n, (set_id,) in enumerate(sets):
+        slots = c.execute("SELECT COUNT(*) FROM sample_set_slots WHERE sample_set = ?", (set_id,)).fetchone()[0]
         # Each device polls at its own moment in the second.
-        offset = (tank % 20) * 37
-        level = 2.0 + 7.0 * ((n * 37) % 100) / 100.0
+        offset = (n % 20) * 37
+        times = list(range(thin_from + offset, full_from, 10_000)) + list(range(full_from + offset, now, 1000))
         with c:
-            c.execute(sql, {"n": (full_from - thin_from) // 10_000, "tank": tank,
-                            "start": thin_from + offset, "step": 10_000, "level": level})
-            c.execute(sql, {"n": (now - full_from) // 1000, "tank": tank,
-                            "start": full_from + offset, "step": 1000, "level": level})
+            c.executemany(
+                "INSERT OR IGNORE INTO sample_blocks (sample_set, at_ms, data) VALUES (?, ?, ?)",
+                ((set_id, at, block([2.0 + 7.0 * (((n * 50 + k) * 37) % 100) / 100.0 + 0.001 * ((i * 7919) % 1000) / 1000.0
+                                     for k in range(slots)], 5000.0 + ((i * 104729) % 40) - 20))
+                 for i, at in enumerate(times)),
+            )
+        samples += slots * len(times)
     with c:
         c.execute("""INSERT INTO trim_progress (id, thinned_before_ms, removed_before_ms) VALUES (1, ?, ?)
                      ON CONFLICT (id) DO UPDATE SET thinned_before_ms = excluded.thinned_before_ms,
                                                     removed_before_ms = excluded.removed_before_ms""",
                   (full_from, thin_from))
-    rows = c.execute("SELECT count(*) FROM samples").fetchone()[0]
     c.execute("PRAGMA wal_checkpoint(TRUNCATE)")
     c.close()
-    # Written with synchronous = OFF: flush it now, or the agent's first
-    # checkpoint pays for the whole file's fsync.
+    flush(db)
+    print(f"pre-aged {len(sets)} sample sets with {hours} h of history: {samples:,} samples, "
+          f"{os.path.getsize(db) / 1e9:.2f} GB, in {time.time() - began:.0f} s")
+
+
+def preage_rows(db, site, hours):
+    """The plain poller's database pre-aged the same way: a row per sample,
+    every 10 s before the last 2 h and every second within them."""
+    import tomllib
+    tanks = [t["id"] for t in tomllib.load(open(site, "rb"))["tank"]]
+    now = int(time.time() * 1000) - 20_000
+    c = sqlite3.connect(db)
+    c.execute("PRAGMA journal_mode = WAL")
+    c.execute("PRAGMA synchronous = OFF")
+    c.execute("CREATE TABLE IF NOT EXISTS readings (tank TEXT NOT NULL, at_ms INTEGER NOT NULL, level_m REAL, pressure_pa REAL)")
+    c.execute("CREATE INDEX IF NOT EXISTS readings_by_tank ON readings (tank, at_ms)")
+    full_from = (now - 2 * HOUR) // 10_000 * 10_000
+    thin_from = (now - hours * HOUR) // 10_000 * 10_000
+    times = list(range(thin_from, full_from, 10_000)) + list(range(full_from, now, 1000))
+    began = time.time()
+    # In time order, as the poller writes them.
+    with c:
+        for i, at in enumerate(times):
+            c.executemany("INSERT INTO readings VALUES (?, ?, ?, ?)",
+                          ((tag, at, 2.0 + 0.001 * ((i * 7919) % 1000) / 1000.0, 5000.0) for tag in tanks))
+    c.execute("PRAGMA wal_checkpoint(TRUNCATE)")
+    c.close()
+    flush(db)
+    print(f"pre-aged the plain poller's database with {hours} h of {len(tanks)} tanks: "
+          f"{len(times) * len(tanks):,} rows, {os.path.getsize(db) / 1e9:.2f} GB, in {time.time() - began:.0f} s")
+
+
+def flush(db):
+    """Written with synchronous = OFF: flush it now, or the first checkpoint
+    of whatever runs on it pays for the whole file's fsync."""
     fd = os.open(db, os.O_RDONLY)
     os.fsync(fd)
     os.close(fd)
-    print(f"pre-aged {len(tanks)} tanks with {hours} h of history: {rows:,} samples, "
-          f"{os.path.getsize(db) / 1e9:.2f} GB, in {time.time() - began:.0f} s")
 
 
 def proc_cpu_s(pid):
@@ -170,6 +218,8 @@ def watch(db, pid, seconds, note_every, event, out):
 if __name__ == "__main__":
     if len(sys.argv) >= 2 and sys.argv[1] == "preage" and len(sys.argv) == 4:
         preage(sys.argv[2], int(sys.argv[3]))
+    elif len(sys.argv) >= 2 and sys.argv[1] == "preage-rows" and len(sys.argv) == 5:
+        preage_rows(sys.argv[2], sys.argv[3], int(sys.argv[4]))
     elif len(sys.argv) >= 2 and sys.argv[1] == "watch" and len(sys.argv) == 8:
         watch(*sys.argv[2:])
     else:

@@ -430,6 +430,36 @@ impl Store {
         .await
     }
 
+    /// As [`Store::write`], for writes whose loss in a power cut costs
+    /// nothing (a heartbeat, which the next replaces; a trim chunk, which is
+    /// done again): the commit does not wait for the disk (SQLite's
+    /// `synchronous = NORMAL` in WAL mode), and the next durable commit
+    /// takes it to the disk with its own. A crash can lose it, never
+    /// corrupt the file. Samples, estimates and operator actions always go
+    /// by [`Store::write`].
+    pub async fn write_lax<T, F>(&self, lane: Lane, work: F) -> StoreResult<T>
+    where
+        T: Send + 'static,
+        F: FnOnce(&mut Tx<'_>) -> StoreResult<T> + Send + 'static,
+    {
+        #[cfg(test)]
+        let faults = std::sync::Arc::clone(&self.faults);
+        self.run(lane, move |conn| {
+            #[cfg(test)]
+            let fail_after = {
+                faults.before_unit()?;
+                faults.take_fail_after()
+            };
+            #[cfg(not(test))]
+            let fail_after = None;
+            conn.pragma_update(None, "synchronous", "NORMAL")?;
+            let done = unit::in_write_transaction(conn, fail_after, work);
+            conn.pragma_update(None, "synchronous", "FULL")?;
+            done
+        })
+        .await
+    }
+
     /// Runs `work` in one read transaction (a consistent view, no write
     /// lock taken) on the database thread, in the urgent lane.
     pub async fn read<T, F>(&self, work: F) -> StoreResult<T>
