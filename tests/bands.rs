@@ -179,7 +179,7 @@ fn simulate(scratch: &Scratch, c: &Conditions, given: bool) -> Vec<Point> {
             .unwrap();
         let sample = TankSample {
             tank: 0,
-            tank_id: tank.id.clone(),
+            tank_id: tank.id.as_str().into(),
             at_ms,
             level: flag(&tank.level, &words, false),
             pressure: None,

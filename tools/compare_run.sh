@@ -12,7 +12,7 @@
 #   bash tools/compare_run.sh [TANKS] [DEVICES] [SECONDS] [RUNS] [HOURS]
 #                             (default 1000 20 100 3 26)
 #
-# Needs release builds (cargo build --release --workspace --examples) and
+# Needs release builds (cargo build --release --workspace --bins --examples) and
 # builds target/bench-venv from tests/python/requirements.txt (pymodbus) on
 # first use. Run it on a quiet machine; it prints the load average. Uses
 # about 1.5 GB in the temp folder at 1,000 tanks and 26 h. Everything runs
@@ -20,10 +20,10 @@
 set -euo pipefail
 cd "$(dirname "${BASH_SOURCE[0]}")/.."
 tanks=${1:-1000}; devices=${2:-20}; seconds=${3:-100}; runs=${4:-3}; hours=${5:-26}
-warmup=15
+warmup=30
 bin=target/release
 for b in $bin/leaktally $bin/leaktally-sim $bin/examples/floor; do
-  [[ -x $b ]] || { echo "build first: cargo build --release --workspace --examples ($b is missing)" >&2; exit 1; }
+  [[ -x $b ]] || { echo "build first: cargo build --release --workspace --bins --examples ($b is missing)" >&2; exit 1; }
 done
 venv=target/bench-venv
 if ! cmp -s tests/python/requirements.txt "$venv/requirements.txt" 2>/dev/null; then
@@ -80,6 +80,8 @@ one() {  # NAME KIND DB COMMAND...
   local name=$1 kind=$2 db=$3; shift 3
   rm -f "$db" "$db-wal" "$db-shm"
   if [[ $kind == rows ]]; then cp "$work/pristine-rows.db" "$db"; else cp "$work/pristine.db" "$db"; fi
+  # The copy's dirty pages on disk first, so that no program pays for them.
+  sync
   "$@" 2> "$work/$name.log" &
   pid=$!
   if [[ $name == agent ]]; then

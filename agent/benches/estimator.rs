@@ -90,7 +90,7 @@ fn day_of_samples() -> (leaktally::config::Tank, Vec<TankSample>) {
             let level = 4.2 - 3.0e-5 * s as f64 + ((s * 7919) % 13) as f64 * 5e-5;
             TankSample {
                 tank: 0,
-                tank_id: tank.id.clone(),
+                tank_id: tank.id.as_str().into(),
                 at_ms: s * 1000,
                 level: Reading::good(level),
                 pressure: None,

@@ -403,7 +403,7 @@ mod tests {
                 let wobble = if i % 7 == 0 { 0.002 } else { 0.0 };
                 estimator.push(&TankSample {
                     tank: 0,
-                    tank_id: tank.id.clone(),
+                    tank_id: tank.id.as_str().into(),
                     at_ms: 1000 * i as i64,
                     level: Reading::good(4.2 - 0.0008 * i as f64 + wobble),
                     pressure: None,

@@ -1508,8 +1508,8 @@ impl Import {
                 Reading::good(v)
             }
         };
-        if sample.tank_id != self.tank_id {
-            sample.tank_id.clone_from(&self.tank_id);
+        if *sample.tank_id != *self.tank_id {
+            sample.tank_id = self.tank_id.as_str().into();
         }
         sample.tank = 0;
         sample.at_ms = row.at_ms;
@@ -1524,7 +1524,7 @@ impl Import {
     pub fn blank_sample(&self) -> TankSample {
         TankSample {
             tank: 0,
-            tank_id: self.tank_id.clone(),
+            tank_id: self.tank_id.as_str().into(),
             at_ms: 0,
             level: Reading::bad(Quality::DeviceError),
             pressure: None,

@@ -243,7 +243,14 @@ impl BlockWatch {
 
     /// The device refused `key` (described as `what`) or answered it
     /// wrongly.
-    pub fn refused(&mut self, key: BlockKey, what: &str, error: &LinkError, now: Instant) {
+    /// `what` names the read, for the log; it is made only when a line is.
+    pub fn refused(
+        &mut self,
+        key: BlockKey,
+        what: impl FnOnce() -> String,
+        error: &LinkError,
+        now: Instant,
+    ) {
         let kind = match self.troubled.get_mut(&key) {
             Some(t) if t.error == *error => {
                 t.cycles += 1;
@@ -268,17 +275,20 @@ impl BlockWatch {
         };
         self.changes.push(Change {
             kind,
-            what: what.to_owned(),
+            what: what(),
             error: error.clone(),
         });
     }
 
     /// The device answered `key` properly.
-    pub fn answered(&mut self, key: BlockKey, what: &str, now: Instant) {
+    /// `what` names the read, for the log; it is made only when a line is
+    /// (a read that was in trouble and is answered again), never on every
+    /// answered cycle.
+    pub fn answered(&mut self, key: BlockKey, what: impl FnOnce() -> String, now: Instant) {
         if let Some(t) = self.troubled.remove(&key) {
             self.changes.push(Change {
                 kind: ChangeKind::Cleared(now.duration_since(t.since), t.cycles),
-                what: what.to_owned(),
+                what: what(),
                 error: t.error,
             });
         }
@@ -361,10 +371,12 @@ impl BlockWatch {
     }
 }
 
-/// Readings flagged bad, per tank and sensor.
+/// Readings flagged bad, per sensor: a sensor is a small index the caller
+/// chooses (the poller: the tank's place on its device and the role), so
+/// that this, which runs for every reading, hashes nothing.
 #[derive(Debug, Default)]
 pub struct ReadingWatch {
-    sensors: HashMap<(usize, Role), Flagged>,
+    sensors: Vec<Flagged>,
 }
 
 #[derive(Debug, Default)]
@@ -380,20 +392,24 @@ struct Flagged {
 }
 
 impl ReadingWatch {
-    /// One reading of tank `tank` (named `tank_id`), sensor `role`.
+    /// One reading of sensor `sensor` (tank `tank_id`'s `role`).
     pub fn saw(
         &mut self,
-        tank: usize,
+        sensor: usize,
         tank_id: &str,
         role: Role,
         quality: Quality,
         now: Instant,
     ) -> Option<Notice> {
-        let f = self.sensors.entry((tank, role)).or_default();
+        if sensor >= self.sensors.len() {
+            self.sensors.resize_with(sensor + 1, Flagged::default);
+        }
+        let f = &mut self.sensors[sensor];
         let quiet = f
             .last_line
             .is_none_or(|t| now.duration_since(t) >= SUMMARY_EVERY);
-        let who = format!("{tank_id} {}", role.name());
+        // Named only when a line is said: this runs for every reading.
+        let who = || format!("{tank_id} {}", role.name());
         match quality {
             // The link and block watches say these, per device and read.
             Quality::CommunicationLost | Quality::DeviceError => None,
@@ -416,11 +432,12 @@ impl ReadingWatch {
                     f.good_since = None;
                     f.last_line = Some(now);
                     return Notice::info(format!(
-                        "{who}: readings good again for {}{more}",
+                        "{}: readings good again for {}{more}",
+                        who(),
                         spoken(now.duration_since(good_since))
                     ));
                 }
-                summary(f, &who, now)
+                summary(f, who, now)
             }
             bad => {
                 f.good_since = None;
@@ -429,26 +446,28 @@ impl ReadingWatch {
                 if starts && quiet {
                     f.last_line = Some(now);
                     return Notice::warn(format!(
-                        "{who}: reading flagged {} ({}); more are summarised at most once a minute",
+                        "{}: reading flagged {} ({}); more are summarised at most once a minute",
+                        who(),
                         bad.key(),
                         bad.reason()
                     ));
                 }
                 *f.pending.entry(bad.key()).or_default() += 1;
-                if quiet { summary(f, &who, now) } else { None }
+                if quiet { summary(f, who, now) } else { None }
             }
         }
     }
 }
 
 /// The summary line of a sensor's pending flagged readings, if any.
-fn summary(f: &mut Flagged, who: &str, now: Instant) -> Option<Notice> {
+fn summary(f: &mut Flagged, who: impl FnOnce() -> String, now: Instant) -> Option<Notice> {
     if f.pending.is_empty() {
         return None;
     }
     let over = f.last_line.map_or(SUMMARY_EVERY, |t| now.duration_since(t));
     let text = format!(
-        "{who}: {} in the last {} s",
+        "{}: {} in the last {} s",
+        who(),
         counted(&f.pending),
         over.as_secs()
     );
@@ -540,7 +559,7 @@ mod tests {
         };
         let what = "function 03 holding registers 10..13";
         let busy = LinkError::Exception { code: 6 };
-        blocks.refused(key(10), what, &busy, t0);
+        blocks.refused(key(10), || what.into(), &busy, t0);
         let first = blocks.flush();
         assert_eq!(first.len(), 1);
         assert_eq!(first[0].level, Level::Warn);
@@ -557,11 +576,11 @@ mod tests {
             first[0].text
         );
         for i in 1..10 {
-            blocks.refused(key(10), what, &busy, at(t0, f64::from(i)));
+            blocks.refused(key(10), || what.into(), &busy, at(t0, f64::from(i)));
             assert_eq!(blocks.flush(), []);
         }
         let gateway = LinkError::Exception { code: 11 };
-        blocks.refused(key(10), what, &gateway, at(t0, 10.0));
+        blocks.refused(key(10), || what.into(), &gateway, at(t0, 10.0));
         let changed = blocks.flush();
         assert!(
             changed[0]
@@ -575,7 +594,7 @@ mod tests {
             "{}",
             changed[0].text
         );
-        blocks.answered(key(10), what, at(t0, 12.0));
+        blocks.answered(key(10), || what.into(), at(t0, 12.0));
         let clear = blocks.flush();
         assert_eq!(clear[0].level, Level::Info);
         assert!(
@@ -585,14 +604,14 @@ mod tests {
             "{}",
             clear[0].text
         );
-        blocks.answered(key(10), what, at(t0, 13.0));
+        blocks.answered(key(10), || what.into(), at(t0, 13.0));
         assert_eq!(blocks.flush(), []);
         let long = LinkError::Malformed {
             got: 6,
             wanted: 4,
             what: "registers",
         };
-        blocks.refused(key(10), what, &long, at(t0, 14.0));
+        blocks.refused(key(10), || what.into(), &long, at(t0, 14.0));
         let text = &blocks.flush()[0].text;
         assert!(
             text.contains("answered 6 registers where 4 were asked for"),
@@ -614,7 +633,7 @@ mod tests {
                 start,
                 count: 2,
             };
-            blocks.refused(key, &format!("holding {start}"), &gateway, t0);
+            blocks.refused(key, || format!("holding {start}"), &gateway, t0);
         }
         let said = blocks.flush();
         assert_eq!(said.len(), 1, "{said:#?}");
@@ -632,7 +651,7 @@ mod tests {
             };
             blocks.answered(
                 key,
-                &format!("holding {start}"),
+                || format!("holding {start}"),
                 at(t0, 4.0 + f64::from(start) / 100.0),
             );
         }

@@ -50,15 +50,84 @@ const BACKOFF_CAP: Duration = Duration::from_secs(3);
 /// refused request and finds a fixed map soon enough.
 pub const RECOMBINE_AFTER: Duration = Duration::from_secs(600);
 
-/// The result of one poll cycle for one value.
+/// The result of one poll cycle for one value: its registers (one or two,
+/// held inline: this is made for every value of every cycle), its bit, or
+/// why there is none.
 #[derive(Debug, Clone, PartialEq)]
 enum Raw {
-    Registers(Vec<u16>),
+    Registers(RegisterWords),
     Bit(bool),
     Failed(Quality),
 }
 
-type RawMap = HashMap<(usize, Role), Raw>;
+/// The one or two registers of a value.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+struct RegisterWords {
+    words: [u16; 2],
+    len: u8,
+}
+
+impl RegisterWords {
+    /// `None` for more than two registers (no data type takes more).
+    fn of(words: &[u16]) -> Option<Self> {
+        let mut out = Self {
+            words: [0; 2],
+            len: u8::try_from(words.len()).ok().filter(|&n| n <= 2)?,
+        };
+        out.words[..words.len()].copy_from_slice(words);
+        Some(out)
+    }
+
+    fn as_slice(&self) -> &[u16] {
+        &self.words[..usize::from(self.len)]
+    }
+}
+
+/// What one cycle got for each value of the device, by the tank's place
+/// on the device and the role: a plain index (this is filled and read for
+/// every value of every cycle).
+struct RawMap {
+    /// The place of each of the config's tanks on this device (`NONE` for
+    /// another device's).
+    local_of: Arc<[u32]>,
+    values: Vec<Option<Raw>>,
+}
+
+/// Roles per tank, for the indexes of [`RawMap`] and the per-value state.
+const ROLES: usize = 5;
+/// Not a tank of this device.
+const NONE: u32 = u32::MAX;
+
+fn slot(local_of: &[u32], tank: usize, role: Role) -> Option<usize> {
+    let local = *local_of.get(tank)?;
+    (local != NONE).then(|| local as usize * ROLES + role as usize)
+}
+
+impl RawMap {
+    fn new(local_of: &Arc<[u32]>, tanks: usize) -> Self {
+        Self {
+            local_of: Arc::clone(local_of),
+            values: vec![None; tanks * ROLES],
+        }
+    }
+
+    fn insert(&mut self, (tank, role): (usize, Role), raw: Raw) {
+        if let Some(i) = slot(&self.local_of, tank, role) {
+            self.values[i] = Some(raw);
+        }
+    }
+
+    /// Sets a value only if the cycle got nothing for it yet.
+    fn insert_if_absent(&mut self, (tank, role): (usize, Role), raw: Raw) {
+        if let Some(i) = slot(&self.local_of, tank, role) {
+            self.values[i].get_or_insert(raw);
+        }
+    }
+
+    fn get(&self, (tank, role): (usize, Role)) -> Option<&Raw> {
+        slot(&self.local_of, tank, role).and_then(|i| self.values[i].as_ref())
+    }
+}
 
 /// Polls one device until cancelled or until nobody listens any more.
 ///
@@ -112,7 +181,7 @@ pub async fn poll_device(
 /// Tracks when a sensor's raw value last changed.
 #[derive(Debug, Clone)]
 struct LastChange {
-    words: Vec<u16>,
+    words: RegisterWords,
     since: Instant,
 }
 
@@ -140,7 +209,7 @@ struct DevicePoller {
     device: usize,
     clock: Arc<Clock>,
     /// The reads as the config plans them (coalesced where it allows).
-    plan: Vec<Read>,
+    plan: Vec<Arc<Read>>,
     /// Reads of `plan`, by index, that the device refused whole but
     /// answered in parts.
     split: HashMap<usize, Split>,
@@ -150,11 +219,18 @@ struct DevicePoller {
     links: LinkWatch,
     blocks: BlockWatch,
     readings: ReadingWatch,
-    last_change: HashMap<(usize, Role), LastChange>,
-    /// Per tank: the last good level (m) and when it was read.
-    last_good_level: HashMap<usize, (f64, Instant)>,
-    /// Per tank: how fast its level can move.
-    step_limits: HashMap<usize, StepLimit>,
+    /// The device's tanks (config indices), in config order, and each of
+    /// the config's tanks' place among them (see [`RawMap`]).
+    tanks: Vec<usize>,
+    local_of: Arc<[u32]>,
+    /// Per value (place * ROLES + role): when its raw value last changed.
+    last_change: Vec<Option<LastChange>>,
+    /// Per tank (by place): the last good level (m) and when it was read.
+    last_good_level: Vec<Option<(f64, Instant)>>,
+    /// Per tank (by place): how fast its level can move.
+    step_limits: Vec<StepLimit>,
+    /// Per tank (by place): its tag, shared by the samples.
+    names: Vec<Arc<str>>,
 }
 
 impl DevicePoller {
@@ -162,15 +238,18 @@ impl DevicePoller {
         let d = &config.devices[device];
         let link = Link::new(&d.address, d.unit_id, d.request_timeout);
         let name = format!("{} ({} unit {})", d.id, d.address, d.unit_id);
-        let step_limits = config
-            .tanks
-            .iter()
-            .enumerate()
-            .filter(|(_, t)| t.device == device)
-            .map(|(i, t)| (i, StepLimit::for_tank(t)))
+        let tanks: Vec<usize> = (0..config.tanks.len())
+            .filter(|&t| config.tanks[t].device == device)
             .collect();
+        let mut local_of = vec![NONE; config.tanks.len()];
+        for (place, &t) in tanks.iter().enumerate() {
+            local_of[t] = place as u32;
+        }
         Self {
-            plan: plan_reads(&config, device, d.bridge_gaps),
+            plan: plan_reads(&config, device, d.bridge_gaps)
+                .into_iter()
+                .map(Arc::new)
+                .collect(),
             split: HashMap::new(),
             link,
             failures: 0,
@@ -178,9 +257,18 @@ impl DevicePoller {
             links: LinkWatch::new(name),
             blocks: BlockWatch::new(d.id.clone(), d.unit_id),
             readings: ReadingWatch::default(),
-            last_change: HashMap::new(),
-            last_good_level: HashMap::new(),
-            step_limits,
+            last_change: vec![None; tanks.len() * ROLES],
+            last_good_level: vec![None; tanks.len()],
+            step_limits: tanks
+                .iter()
+                .map(|&t| StepLimit::for_tank(&config.tanks[t]))
+                .collect(),
+            names: tanks
+                .iter()
+                .map(|&t| Arc::from(config.tanks[t].id.as_str()))
+                .collect(),
+            local_of: local_of.into(),
+            tanks,
             config,
             device,
             clock,
@@ -207,7 +295,7 @@ impl DevicePoller {
     }
 
     async fn read_all(&mut self) -> (RawMap, Outcome) {
-        let mut raw = HashMap::new();
+        let mut raw = RawMap::new(&self.local_of, self.tanks.len());
         if !self.link.is_connected() {
             if Instant::now() < self.next_attempt {
                 lost(&mut raw, &self.plan);
@@ -240,7 +328,8 @@ impl DevicePoller {
     /// One read of the plan, whole or in its parts. `Err` only when the
     /// exchange failed (the link needs a reconnect).
     async fn read_planned(&mut self, index: usize, raw: &mut RawMap) -> Result<Answer, LinkError> {
-        let read = self.plan[index].clone();
+        // Shared: a read names every value it covers.
+        let read = Arc::clone(&self.plan[index]);
         let now = Instant::now();
         if let Some(split) = self.split.get(&index)
             && now < split.retry_at
@@ -417,14 +506,16 @@ impl DevicePoller {
     /// The device answered `read` properly.
     fn answered(&mut self, read: &Read) {
         self.links_answered();
-        let what = self.describe(read);
-        self.blocks.answered(key(read), &what, Instant::now());
+        let config = &self.config;
+        self.blocks
+            .answered(key(read), || describe_read(config, read), Instant::now());
     }
 
     /// The device refused `read` or answered it wrongly.
     fn refused(&mut self, read: &Read, error: &LinkError) {
-        let what = self.describe(read);
-        self.blocks.refused(key(read), &what, error, Instant::now());
+        let config = &self.config;
+        self.blocks
+            .refused(key(read), || describe_read(config, read), error, Instant::now());
     }
 
     /// The device answered something: the link is up.
@@ -462,7 +553,8 @@ impl DevicePoller {
                         let to = from + usize::from(s.data_type.width());
                         regs.get(from..to)
                             .map_or(Raw::Failed(Quality::DeviceError), |w| {
-                                Raw::Registers(w.to_vec())
+                                RegisterWords::of(w)
+                                    .map_or(Raw::Failed(Quality::DeviceError), Raw::Registers)
                             })
                     }
                     None => Raw::Failed(Quality::DeviceError),
@@ -476,23 +568,23 @@ impl DevicePoller {
     fn samples(&mut self, raw: &RawMap, at_ms: i64) -> Vec<TankSample> {
         let config = Arc::clone(&self.config);
         let now = Instant::now();
-        let device = self.device;
-        let mut out = Vec::new();
-        for (tank_index, tank) in config
-            .tanks
-            .iter()
-            .enumerate()
-            .filter(|(_, t)| t.device == device)
-        {
+        let mut out = Vec::with_capacity(self.tanks.len());
+        for place in 0..self.tanks.len() {
+            let tank_index = self.tanks[place];
+            let tank = &config.tanks[tank_index];
             let mut reading = |role: Role, sensor: &Sensor| -> Reading {
                 let r = raw
-                    .get(&(tank_index, role))
+                    .get((tank_index, role))
                     .cloned()
                     .unwrap_or(Raw::Failed(Quality::CommunicationLost));
-                let reading = self.reading(tank_index, role, sensor, r, now);
-                let notice = self
-                    .readings
-                    .saw(tank_index, &tank.id, role, reading.quality, now);
+                let reading = self.reading(place, role, sensor, r, now);
+                let notice = self.readings.saw(
+                    place * ROLES + role as usize,
+                    &tank.id,
+                    role,
+                    reading.quality,
+                    now,
+                );
                 emit(notice);
                 reading
             };
@@ -508,13 +600,13 @@ impl DevicePoller {
                 .map(|s| reading(Role::Temperature, s));
             let leak_flag = tank
                 .leak_flag
-                .map(|_| match raw.get(&(tank_index, Role::LeakFlag)) {
+                .map(|_| match raw.get((tank_index, Role::LeakFlag)) {
                     Some(Raw::Bit(b)) => Some(*b),
                     _ => None,
                 });
             out.push(TankSample {
                 tank: tank_index,
-                tank_id: tank.id.clone(),
+                tank_id: Arc::clone(&self.names[place]),
                 at_ms,
                 level,
                 pressure,
@@ -526,11 +618,12 @@ impl DevicePoller {
         out
     }
 
-    /// Decodes, scales and flags one value; a level is also checked
-    /// against the last good one ([`StepLimit`]).
+    /// Decodes, scales and flags one value of the tank at `place` on the
+    /// device; a level is also checked against the last good one
+    /// ([`StepLimit`]).
     fn reading(
         &mut self,
-        tank: usize,
+        place: usize,
         role: Role,
         sensor: &Sensor,
         raw: Raw,
@@ -541,22 +634,21 @@ impl DevicePoller {
             Raw::Failed(q) => return Reading::bad(q),
             Raw::Bit(_) => return Reading::bad(Quality::DeviceError),
         };
-        let stuck = self.note_change(tank, role, &words, now, sensor.stuck_after);
-        let reading = flag(sensor, &words, stuck);
+        let stuck = self.note_change(place * ROLES + role as usize, words, now, sensor.stuck_after);
+        let reading = flag(sensor, words.as_slice(), stuck);
         match (role, reading.value) {
             (Role::Level, Some(level)) if reading.is_good() => {
-                let plausible = match (self.last_good_level.get(&tank), self.step_limits.get(&tank))
-                {
-                    (Some(&(last, at)), Some(limit)) => limit.allows(
-                        &self.config.tanks[tank],
+                let plausible = match self.last_good_level[place] {
+                    Some((last, at)) => self.step_limits[place].allows(
+                        &self.config.tanks[self.tanks[place]],
                         last,
                         level,
                         now.duration_since(at).as_secs_f64(),
                     ),
-                    _ => true,
+                    None => true,
                 };
                 if plausible {
-                    self.last_good_level.insert(tank, (level, now));
+                    self.last_good_level[place] = Some((level, now));
                     reading
                 } else {
                     Reading::bad(Quality::ImplausibleStep)
@@ -566,25 +658,18 @@ impl DevicePoller {
         }
     }
 
-    /// Records the words and says whether they have been the same for longer
-    /// than `limit`.
+    /// Records the words of value `slot` and says whether they have been
+    /// the same for longer than `limit`.
     fn note_change(
         &mut self,
-        tank: usize,
-        role: Role,
-        words: &[u16],
+        slot: usize,
+        words: RegisterWords,
         now: Instant,
         limit: Option<Duration>,
     ) -> bool {
-        let entry = self
-            .last_change
-            .entry((tank, role))
-            .or_insert_with(|| LastChange {
-                words: words.to_vec(),
-                since: now,
-            });
+        let entry = self.last_change[slot].get_or_insert(LastChange { words, since: now });
         if entry.words != words {
-            entry.words = words.to_vec();
+            entry.words = words;
             entry.since = now;
         }
         limit.is_some_and(|limit| now.duration_since(entry.since) > limit)
@@ -613,11 +698,10 @@ pub fn describe_read(config: &Config, read: &Read) -> String {
 }
 
 /// Marks every value of `reads` lost with the link.
-fn lost(raw: &mut RawMap, reads: &[Read]) {
+fn lost(raw: &mut RawMap, reads: &[Arc<Read>]) {
     for read in reads {
         for &key in &read.values {
-            raw.entry(key)
-                .or_insert(Raw::Failed(Quality::CommunicationLost));
+            raw.insert_if_absent(key, Raw::Failed(Quality::CommunicationLost));
         }
     }
 }

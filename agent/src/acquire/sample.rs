@@ -107,7 +107,9 @@ pub struct TankSample {
     /// Index into the config's tanks.
     #[serde(skip)]
     pub tank: usize,
-    pub tank_id: String,
+    /// The tank's tag, shared (a sample is made for every tank every
+    /// cycle: a copy of the tag each time would cost an allocation).
+    pub tank_id: std::sync::Arc<str>,
     /// UTC, milliseconds since the Unix epoch: when the cycle's reads began.
     pub at_ms: i64,
     /// Liquid level above the tank bottom, m.
@@ -130,7 +132,7 @@ impl TankSample {
     pub fn empty(tank: &str) -> Self {
         Self {
             tank: 0,
-            tank_id: tank.to_owned(),
+            tank_id: tank.into(),
             at_ms: 0,
             level: Reading::bad(Quality::DeviceError),
             pressure: None,

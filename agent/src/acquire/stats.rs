@@ -264,7 +264,7 @@ mod tests {
         let stats = Stats::new(&config);
         let sample = |level: Reading, pressure: Option<Reading>, at_ms| TankSample {
             tank: 1,
-            tank_id: config.tanks[1].id.clone(),
+            tank_id: config.tanks[1].id.as_str().into(),
             at_ms,
             level,
             pressure,

@@ -100,10 +100,13 @@ impl ParamChangeArgs {
     }
 }
 
-/// The runtime for a command that runs async work (`check`, `poll`, `run`).
+/// The runtime for a command that runs async work (`check`, `poll`, `run`):
+/// one thread. The work is I/O (a device's reads, the database's thread)
+/// and a little arithmetic a second; worker threads would only hand tasks
+/// to each other, and every hand-over is a wake-up and a context switch.
+/// Blocking work goes to tokio's blocking pool or the store's own thread.
 pub fn runtime() -> anyhow::Result<tokio::runtime::Runtime> {
-    Ok(tokio::runtime::Builder::new_multi_thread()
-        .worker_threads(2)
+    Ok(tokio::runtime::Builder::new_current_thread()
         .enable_all()
         .build()?)
 }

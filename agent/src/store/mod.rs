@@ -452,9 +452,9 @@ impl Store {
             };
             #[cfg(not(test))]
             let fail_after = None;
-            conn.pragma_update(None, "synchronous", "NORMAL")?;
+            unit::run_cached(conn, "PRAGMA synchronous = NORMAL")?;
             let done = unit::in_write_transaction(conn, fail_after, work);
-            conn.pragma_update(None, "synchronous", "FULL")?;
+            unit::run_cached(conn, "PRAGMA synchronous = FULL")?;
             done
         })
         .await

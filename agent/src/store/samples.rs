@@ -223,7 +223,7 @@ pub fn insert_block(conn: &Connection, set: i64, at_ms: i64, data: &[u8]) -> Sto
 pub fn insert_samples(conn: &Connection, samples: &[TankSample]) -> StoreResult<usize> {
     let mut new = 0;
     for run in samples.chunk_by(|a, b| a.at_ms == b.at_ms) {
-        let tags: Vec<&str> = run.iter().map(|s| s.tank_id.as_str()).collect();
+        let tags: Vec<&str> = run.iter().map(|s| &*s.tank_id).collect();
         let set = sample_set(conn, &tags)?;
         if insert_block(conn, set, run[0].at_ms, &block_of(run))? {
             new += run.len();
@@ -457,7 +457,7 @@ pub(super) fn legacy_samples(conn: &Connection, tank: &str) -> StoreResult<Vec<T
         };
         out.push(TankSample {
             tank: 0,
-            tank_id: tank.to_owned(),
+            tank_id: tank.into(),
             at_ms,
             level: reading(level, &level_q)?,
             pressure: pressure_q
@@ -591,7 +591,7 @@ mod tests {
             .map(|s| (s.at_ms, s.level.value.unwrap()))
             .collect();
         assert_eq!(levels, [(1000, 1.0), (2000, 1.5), (3000, 1.25)]);
-        assert!(a.iter().all(|s| s.tank_id == "A"));
+        assert!(a.iter().all(|s| &*s.tank_id == "A"));
         let b = samples_between(&conn, "B", 1500, 10_000).unwrap();
         assert_eq!(b.len(), 1);
         assert_eq!(b[0].level.value, Some(2.5));

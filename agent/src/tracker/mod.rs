@@ -297,7 +297,7 @@ impl Tracker {
             let was = self.flags.insert(sample.tank, flag);
             if was == Some(false) && flag {
                 self.edges.push_back(FlagEdge {
-                    tank: sample.tank_id.clone(),
+                    tank: sample.tank_id.to_string(),
                     at_ms: sample.at_ms,
                 });
             }

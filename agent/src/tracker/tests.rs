@@ -30,7 +30,7 @@ level = {{ register = "input", address = {address}, type = "u16", raw = [4000, 2
 fn sample(tank: usize, at_ms: i64) -> TankSample {
     TankSample {
         tank,
-        tank_id: format!("T{}", tank + 1),
+        tank_id: format!("T{}", tank + 1).into(),
         at_ms,
         level: Reading::good(4.0 - 0.001 * (at_ms % 100_000) as f64 / 1000.0),
         pressure: None,
