@@ -514,8 +514,12 @@ impl DevicePoller {
     /// The device refused `read` or answered it wrongly.
     fn refused(&mut self, read: &Read, error: &LinkError) {
         let config = &self.config;
-        self.blocks
-            .refused(key(read), || describe_read(config, read), error, Instant::now());
+        self.blocks.refused(
+            key(read),
+            || describe_read(config, read),
+            error,
+            Instant::now(),
+        );
     }
 
     /// The device answered something: the link is up.
@@ -634,7 +638,12 @@ impl DevicePoller {
             Raw::Failed(q) => return Reading::bad(q),
             Raw::Bit(_) => return Reading::bad(Quality::DeviceError),
         };
-        let stuck = self.note_change(place * ROLES + role as usize, words, now, sensor.stuck_after);
+        let stuck = self.note_change(
+            place * ROLES + role as usize,
+            words,
+            now,
+            sensor.stuck_after,
+        );
         let reading = flag(sensor, words.as_slice(), stuck);
         match (role, reading.value) {
             (Role::Level, Some(level)) if reading.is_good() => {

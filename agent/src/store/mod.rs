@@ -129,6 +129,10 @@ pub const BUSY_TIMEOUT: Duration = Duration::from_secs(5);
 /// The daemon's writer waits less: its loop waits with it, and a failed
 /// commit is kept and retried anyway (see `track::tracker`).
 pub const WRITER_BUSY_TIMEOUT: Duration = Duration::from_secs(1);
+/// SQLite's page cache per connection, KiB.
+pub const PAGE_CACHE_KIB: i64 = 8192;
+/// Prepared statements kept per connection.
+pub const STATEMENT_CACHE: usize = 64;
 /// The WAL file is cut back to this size whenever it restarts from its
 /// beginning, so a burst (a catch-up after an outage, a large trim) does
 /// not leave a large file behind.
@@ -163,8 +167,19 @@ fn apply_pragmas(path: &Path, mut conn: Connection) -> StoreResult<Connection> {
         conn.pragma_update(None, "journal_mode", "WAL")?;
         conn.pragma_update(None, "synchronous", "FULL")?;
         conn.pragma_update(None, "foreign_keys", true)?;
+        // The pages a second of the daemon's work touches (the tail of
+        // every sample set's index and rows, the open events' rows, the
+        // heartbeat, the pending actions) stay in SQLite's own cache, not
+        // read back from the file: SQLite's default of 2 MB fell short at
+        // 1,000 tanks on a full rolling window, and re-reads showed in a
+        // profile (BENCHMARKS.md). Memory stays well under the 30 MB target.
+        conn.pragma_update(None, "cache_size", -PAGE_CACHE_KIB)?;
         Ok(())
     };
+    // Every statement the daemon runs stays prepared: rusqlite's default
+    // cache of 16 is fewer than it uses, and re-preparing showed in a
+    // profile too.
+    conn.set_prepared_statement_cache_capacity(STATEMENT_CACHE);
     set(&conn).map_err(|source| StoreError::Open {
         path: path.to_owned(),
         source,
