@@ -89,6 +89,13 @@ pub const COVERAGE_FACTOR: f64 = 2.0;
 /// Bridged gaps above this share of the total are said in every output.
 pub const BRIDGED_SHARE_WARNING: f64 = 0.25;
 
+/// The root sum of squares of two contributions: what `f64::hypot` gives,
+/// without its guard against overflow, which figures of this size never
+/// need and which costs more than the rest of a step's arithmetic.
+fn quad(a: f64, b: f64) -> f64 {
+    (a * a + b * b).sqrt()
+}
+
 /// The standard uncertainty of a value known only to lie within ±bound:
 /// bound / √3, the rectangular distribution of GUM 4.3.7.
 fn rectangular(bound: f64) -> f64 {
@@ -201,6 +208,8 @@ pub struct Estimator {
     /// Running mean square of second differences of the level (noise).
     second_diff_sq: f64,
     second_diff_n: u64,
+    /// The level noise, as `measure_noise` last found it.
+    noise: f64,
     previous_levels: [Option<f64>; 2],
     /// A level that jumped from the last one used, waiting for confirmation.
     pending_jump: Option<f64>,
@@ -227,6 +236,9 @@ pub struct Estimator {
     /// Whether the level has refuted the model's figure in this revision:
     /// from then on the figures follow the level.
     level_mode: bool,
+    /// Whether any of the tank's accuracies is a default (see
+    /// [`Estimator::tank_uses_default_accuracies`]).
+    default_accuracies: bool,
 }
 
 /// The state a forecast is made from.
@@ -344,7 +356,10 @@ impl Estimator {
             quality: DataQuality::default(),
             loss_seen: false,
             level_mode: false,
-        })
+            default_accuracies: false,
+            noise: 0.0,
+        }
+        .with_defaults_noted())
     }
 
     pub fn params(&self) -> &LeakParams {
@@ -475,6 +490,12 @@ impl Estimator {
     /// a replay asked once at its end gives the live run's last estimate.
     pub fn estimate(&mut self) -> Option<Estimate> {
         let mut e = self.latest.clone()?;
+        e.remaining_above_hole_kg = self
+            .vessel
+            .liquid_above(Length::metres(e.level_m), &self.unit_hole)
+            .si()
+            * e.density_kg_m3
+            / self.vessel.density().si();
         if let Some(input) = self.forecast_input
             && self
                 .forecast
@@ -793,8 +814,8 @@ impl Estimator {
                 g.area_si(before.state.level.si()),
                 g.area_si(after.state.level.si()),
             );
-            let u_level = rectangular(self.tank.level.accuracy.bound).hypot(self.level_noise());
-            let allowance = COVERAGE_FACTOR * after.density * a0.hypot(a1) * u_level;
+            let u_level = quad(rectangular(self.tank.level.accuracy.bound), self.level_noise());
+            let allowance = COVERAGE_FACTOR * after.density * quad(a0, a1) * u_level;
             if (forecast - seen).abs() <= allowance {
                 forecast
             } else {
@@ -805,7 +826,7 @@ impl Estimator {
                 if measured < forecast {
                     self.quality.bridge_cut_kg += forecast - measured;
                 }
-                self.bridge_uncertainty_kg = self.bridge_uncertainty_kg.hypot(allowance);
+                self.bridge_uncertainty_kg = quad(self.bridge_uncertainty_kg, allowance);
                 measured
             }
         } else {
@@ -858,14 +879,20 @@ impl Estimator {
             let d2 = level - 2.0 * b + a;
             self.second_diff_n += 1;
             self.second_diff_sq += (d2 * d2 - self.second_diff_sq) / self.second_diff_n as f64;
+            self.noise = self.measure_noise();
         }
         self.previous_levels = [self.previous_levels[1], Some(level)];
     }
 
     /// The level noise: white noise of standard deviation s gives second
     /// differences of variance 6 s²; never below the register's
-    /// quantisation (step / sqrt 12).
+    /// quantisation (step / sqrt 12). Kept up to date by `note_level`: it
+    /// is read several times a sample.
     fn level_noise(&self) -> f64 {
+        self.noise
+    }
+
+    fn measure_noise(&self) -> f64 {
         let measured = (self.second_diff_sq / 6.0).sqrt();
         measured
             .max(self.tank.level.resolution_si() / 12f64.sqrt())
@@ -900,11 +927,11 @@ impl Estimator {
         // of two: nonlinearity and drift need not cancel between the start
         // and now, so the two ends count as independent (conservative).
         let u_level = rectangular(self.tank.level.accuracy.bound);
-        let level_accuracy = k * rho * start.area.hypot(area_now) * u_level;
+        let level_accuracy = k * rho * quad(start.area, area_now) * u_level;
         // The start level is interpolated from readings either side, and
         // the present one is one reading.
         let noise = self.level_noise();
-        let level_noise = k * rho * (start.area * noise).hypot(area_now * noise * smoothing);
+        let level_noise = k * rho * quad(start.area * noise, area_now * noise * smoothing);
         let density = k * inventory.abs() * rectangular(self.tank.density_uncertainty.bound);
         let transfer = self.tank.transfer.as_ref().map_or(0.0, |meter| {
             k * self.transferred_magnitude.total() * rectangular(meter.accuracy.of(1.0))
@@ -1050,7 +1077,7 @@ impl Estimator {
             (None, Some((k, se))) if loss_seen => {
                 let total = k * pu.all.total();
                 let spread = COVERAGE_FACTOR * se * pu.all.total();
-                let half = spread.hypot(u);
+                let half = quad(spread, u);
                 band.fit_fraction = Some(COVERAGE_FACTOR * se / k);
                 let k_low = (k - COVERAGE_FACTOR * se).max(0.0);
                 let k_high = k + COVERAGE_FACTOR * se;
@@ -1231,7 +1258,7 @@ impl Estimator {
         // The fit, as an effective area first.
         let fit_state = match fit {
             Some((k, se)) => {
-                let relative = (COVERAGE_FACTOR * se / k).hypot(if inventory > 0.0 {
+                let relative = quad(COVERAGE_FACTOR * se / k, if inventory > 0.0 {
                     u / inventory
                 } else {
                     1.0
@@ -1292,25 +1319,19 @@ impl Estimator {
         if self.params.cd_assumed && self.params.hole_diameter_m.is_some() {
             warnings.insert(Warning::CdAssumed);
         }
-        if self.tank_uses_default_accuracies() {
+        if self.default_accuracies {
             warnings.insert(Warning::DefaultAccuracies);
         }
         if self.start_bridged {
             warnings.insert(Warning::StartBridged);
         }
 
-        let remaining = self
-            .vessel
-            .liquid_above(r.state.level, &self.unit_hole)
-            .si()
-            * r.density
-            / self.vessel.density().si();
-        let hole_cd = self.forecast_hole(unit_rate, (rate.0, rate.1));
         let due = entered_level_mode
             || self
                 .forecast_input
                 .is_none_or(|i| i.hole_cd.is_none() || r.at_ms - i.at_ms >= FORECAST_EVERY_MS);
         if due {
+            let hole_cd = self.forecast_hole(unit_rate, (rate.0, rate.1));
             self.forecast_input = Some(ForecastInput {
                 at_ms: r.at_ms,
                 state: r.state,
@@ -1350,7 +1371,8 @@ impl Estimator {
                 Phase::Vapour(regime) => Some(regime == crate::model::GasRegime::Choked),
                 _ => None,
             },
-            remaining_above_hole_kg: remaining,
+            // Made when the whole estimate is asked for.
+            remaining_above_hole_kg: 0.0,
             forecast: None,
             crossings: Vec::new(),
             quality: self.quality,
@@ -1361,6 +1383,12 @@ impl Estimator {
         let figures = latest.figures();
         self.latest = Some(latest);
         figures
+    }
+
+    fn with_defaults_noted(mut self) -> Self {
+        self.default_accuracies = self.tank_uses_default_accuracies();
+        self.noise = self.measure_noise();
+        self
     }
 
     /// Whether any of the tank's instrument accuracies (or its density's
