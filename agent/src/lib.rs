@@ -46,3 +46,110 @@ pub mod status;
 pub mod store;
 pub mod tracker;
 pub mod web;
+
+/// The layers of the crate, lowest first. A module may use the modules of
+/// lower layers (and its own files), never those of its own layer or
+/// higher: so the arrows of the module graph all point down, and a reader
+/// knows what a change to one module can touch. DEVELOPERS.md explains
+/// each layer; `layers_only_point_down` checks every `crate::` path.
+pub const LAYERS: &[&[&str]] = &[
+    &["model", "registers", "logging", "shutdown"],
+    &["config", "estimate"],
+    &["report"],
+    &["clock"],
+    &["acquire"],
+    &["estimator", "readings", "store"],
+    &["plot", "status", "actions"],
+    &["tracker", "web"],
+    &["daemon"],
+    &["commands"],
+    &["cli"],
+];
+
+#[cfg(test)]
+mod tests {
+    use super::LAYERS;
+    use std::path::{Path, PathBuf};
+
+    fn layer_of(module: &str) -> Option<usize> {
+        LAYERS.iter().position(|l| l.contains(&module))
+    }
+
+    fn sources(dir: &Path, out: &mut Vec<PathBuf>) {
+        for entry in std::fs::read_dir(dir).unwrap() {
+            let path = entry.unwrap().path();
+            if path.is_dir() {
+                sources(&path, out);
+            } else if path.extension().is_some_and(|e| e == "rs") {
+                out.push(path);
+            }
+        }
+    }
+
+    /// Reads every `crate::` path in the crate's sources (tests included:
+    /// a test may not reach up either) and checks it against the layers.
+    #[test]
+    fn layers_only_point_down() {
+        let src = Path::new(env!("CARGO_MANIFEST_DIR")).join("src");
+        let mut files = Vec::new();
+        sources(&src, &mut files);
+        let mut wrong = Vec::new();
+        let mut modules_seen = std::collections::BTreeSet::new();
+        for file in &files {
+            let rel = file.strip_prefix(&src).unwrap();
+            let first = rel.iter().next().unwrap().to_str().unwrap();
+            let module = first.trim_end_matches(".rs");
+            if matches!(module, "lib" | "main") {
+                continue;
+            }
+            modules_seen.insert(module.to_owned());
+            let Some(own) = layer_of(module) else {
+                wrong.push(format!("{}: module {module} is in no layer", rel.display()));
+                continue;
+            };
+            let text = std::fs::read_to_string(file).unwrap();
+            for (n, line) in text.lines().enumerate() {
+                // What a comment names is not a use.
+                if line.trim_start().starts_with("//") {
+                    continue;
+                }
+                let mut rest = line;
+                while let Some(at) = rest.find("crate::") {
+                    let after = &rest[at + "crate::".len()..];
+                    let used: String = after
+                        .chars()
+                        .take_while(|c| c.is_ascii_alphanumeric() || *c == '_')
+                        .collect();
+                    rest = &after[used.len()..];
+                    if used == module || used.is_empty() {
+                        continue;
+                    }
+                    match layer_of(&used) {
+                        Some(l) if l < own => {}
+                        Some(l) => wrong.push(format!(
+                            "{}:{}: {module} (layer {own}) uses {used} (layer {l})",
+                            rel.display(),
+                            n + 1
+                        )),
+                        None => {}
+                    }
+                }
+            }
+        }
+        // Every module of the crate has a layer, and every layer names real
+        // modules.
+        for layer in LAYERS {
+            for m in *layer {
+                assert!(
+                    modules_seen.contains(*m),
+                    "LAYERS names {m}, which is not a module"
+                );
+            }
+        }
+        assert!(
+            wrong.is_empty(),
+            "arrows that point up or sideways:\n{}",
+            wrong.join("\n")
+        );
+    }
+}
