@@ -383,7 +383,7 @@ fn event(s: &mut String, e: &EventStatus, extras: &EventExtras, now_ms: i64, sta
 <figure class="plot">"#,
     );
     match chart::svg(id, e.start_ms, &extras.series, &thresholds) {
-        Some(svg) => s.push_str(&svg),
+        Some(svg) => s.push_str(svg.as_str()),
         None => s.push_str(r#"<p class="fine">The chart appears with the second estimate.</p>"#),
     }
     let _ = write!(
