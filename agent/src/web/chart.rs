@@ -148,7 +148,7 @@ pub fn svg(event: i64, start_ms: i64, points: &[Point], thresholds: &[f64]) -> O
     while v <= y_max * (1.0 + 1e-9) {
         let yy = y(v);
         markup!(
-            into s,
+            &mut s,
             r#"<line class="grid" x1="{x1}" x2="{x2}" y1="{yy:.1}" y2="{yy:.1}"/><text class="tick" x="{tx}" y="{ty:.1}" text-anchor="end">{label}</text>"#,
             x1 = LEFT,
             x2 = WIDTH - RIGHT,
@@ -164,7 +164,7 @@ pub fn svg(event: i64, start_ms: i64, points: &[Point], thresholds: &[f64]) -> O
     while t <= span_s + 1e-9 {
         let xx = LEFT + t / span_s.max(1e-9) * plot_w;
         markup!(
-            into s,
+            &mut s,
             r#"<line class="tickmark" x1="{xx:.1}" x2="{xx:.1}" y1="{y1}" y2="{y2}"/><text class="tick" x="{xx:.1}" y="{ty}" text-anchor="middle">{label}</text>"#,
             xx = xx,
             y1 = TOP + plot_h,
@@ -175,7 +175,7 @@ pub fn svg(event: i64, start_ms: i64, points: &[Point], thresholds: &[f64]) -> O
         t += x_step_s;
     }
     markup!(
-        into s,
+        &mut s,
         r#"<text class="axis x" x="{ax}" y="{ay}" text-anchor="middle">{x_unit} since the leak started</text><text class="axis y" x="14" y="{ky}" text-anchor="middle" transform="rotate(-90 14 {ky})">kg released</text>"#,
         ax = LEFT + plot_w / 2.0,
         ay = HEIGHT - 4.0,
@@ -183,18 +183,18 @@ pub fn svg(event: i64, start_ms: i64, points: &[Point], thresholds: &[f64]) -> O
         ky = TOP + plot_h / 2.0,
     );
     // Band: along the high values, back along the low ones.
-    markup!(into s, r#"<polygon class="band" points=""#);
+    markup!(&mut s, r#"<polygon class="band" points=""#);
     for p in points {
-        markup!(into s, "{x:.1},{y:.1} ", x = x(p.at_ms), y = y(p.high_kg));
+        markup!(&mut s, "{x:.1},{y:.1} ", x = x(p.at_ms), y = y(p.high_kg));
     }
     for p in points.iter().rev() {
-        markup!(into s, "{x:.1},{y:.1} ", x = x(p.at_ms), y = y(p.low_kg));
+        markup!(&mut s, "{x:.1},{y:.1} ", x = x(p.at_ms), y = y(p.low_kg));
     }
-    markup!(into s, r#""/>"#);
+    markup!(&mut s, r#""/>"#);
     for q in &shown {
         let yy = y(*q);
         markup!(
-            into s,
+            &mut s,
             r#"<line class="threshold" x1="{x1}" x2="{x2}" y1="{yy:.1}" y2="{yy:.1}"/><text class="threshold-label" x="{tx}" y="{ty:.1}" text-anchor="start">reportable {q} kg</text>"#,
             x1 = LEFT,
             x2 = WIDTH - RIGHT,
@@ -204,14 +204,14 @@ pub fn svg(event: i64, start_ms: i64, points: &[Point], thresholds: &[f64]) -> O
             q = whole(*q)
         );
     }
-    markup!(into s, r#"<polyline class="best" points=""#);
+    markup!(&mut s, r#"<polyline class="best" points=""#);
     for p in points {
-        markup!(into s, "{x:.1},{y:.1} ", x = x(p.at_ms), y = y(p.best_kg));
+        markup!(&mut s, "{x:.1},{y:.1} ", x = x(p.at_ms), y = y(p.best_kg));
     }
-    markup!(into s, r#""/>"#);
+    markup!(&mut s, r#""/>"#);
     let last = points[points.len() - 1];
     markup!(
-        into s,
+        &mut s,
         r#"<circle class="now" cx="{cx:.1}" cy="{cy:.1}" r="4"/><line class="frame" x1="{x1}" x2="{x1}" y1="{top}" y2="{yb}"/><line class="frame" x1="{x1}" x2="{xr}" y1="{yb}" y2="{yb}"/></svg>"#,
         cx = x(last.at_ms),
         cy = y(last.best_kg),

@@ -145,14 +145,14 @@ impl<T: Render + ?Sized> fmt::Display for Arg<'_, T> {
 /// Fills a template of our markup, `format!`-like, into an [`Html`]:
 /// `markup!("<td data-event=\"{id}\">{tank}</td>", id = e.event, tank = e.tank)`.
 /// Every argument goes through [`Render`]: text is escaped, `Html` is not
-/// escaped again. `markup!(into out, "...", ...)` appends to the `Html`
+/// escaped again. `markup!(&mut out, "...", ...)` appends to the `Html`
 /// `out` instead of making a new one.
 ///
 /// The template must be a string literal, and its arguments named; a
 /// `{name}` with no `name = ...` does not compile (no implicit capture, as
 /// the template reaches `format_args!` through `concat!`).
 macro_rules! markup {
-    (into $out:expr, $template:literal $(, $name:ident = $value:expr)* $(,)?) => {
+    (&mut $out:expr, $template:literal $(, $name:ident = $value:expr)* $(,)?) => {
         $crate::web::html::Html::__push_template(
             &mut $out,
             ::std::format_args!(
@@ -262,7 +262,7 @@ mod tests {
     fn parts_join_and_append() {
         let mut all: Html = ["<", "&"].into_iter().map(Html::text).collect();
         all.push(markup!("<br>"));
-        markup!(into all, "<i>{t}</i>", t = "'");
+        markup!(&mut all, "<i>{t}</i>", t = "'");
         all.extend([Html::text(">")]);
         assert_eq!(all.as_str(), "&lt;&amp;<br><i>&#39;</i>&gt;");
         assert_eq!(Html::new().into_string(), "");
