@@ -4,15 +4,17 @@
 //! The SVG is written by hand rather than with plotters: it is a band, a
 //! line, two axes and a few dashed thresholds, and hand-written markup
 //! takes its colours from the page's style sheet (classes, not inline
-//! styles, which the page's content security policy forbids).
+//! styles, which the page's content security policy forbids). It is built
+//! as [`Html`] like the page around it, though it holds only numbers and
+//! our own words.
 //!
 //! Left out: interaction. The chart is a picture; the figures beside it
 //! are the numbers to read.
 
 use crate::report;
 use crate::store::EventRow;
+use crate::web::html::{Html, markup};
 use serde::Serialize;
-use std::fmt::Write as _;
 
 /// The most points a series carries: several per pixel of a phone-sized
 /// chart, and a few kilobytes of JSON however long the event runs.
@@ -112,7 +114,7 @@ const BOTTOM: f64 = 40.0;
 /// The chart of one event's cumulative release: the low–high band, the
 /// best estimate, and the reportable quantities as dashed lines where they
 /// fall inside (or just above) the data. `None` with fewer than 2 points.
-pub fn svg(event: i64, start_ms: i64, points: &[Point], thresholds: &[f64]) -> Option<String> {
+pub fn svg(event: i64, start_ms: i64, points: &[Point], thresholds: &[f64]) -> Option<Html> {
     if points.len() < 2 {
         return None;
     }
@@ -134,20 +136,23 @@ pub fn svg(event: i64, start_ms: i64, points: &[Point], thresholds: &[f64]) -> O
     let x = |at_ms: i64| LEFT + (at_ms - start_ms) as f64 / (end_ms - start_ms) as f64 * plot_w;
     let y = |kg: f64| TOP + plot_h - (kg / y_max).clamp(0.0, 1.0) * plot_h;
 
-    let mut s = String::new();
-    let _ = write!(
-        s,
-        r#"<svg class="chart" viewBox="0 0 {WIDTH} {HEIGHT}" role="img" aria-labelledby="chart-title-{event}" data-event="{event}" data-points="{n}" xmlns="http://www.w3.org/2000/svg"><title id="chart-title-{event}">Released since the leak started, kg: best estimate with the low to high band</title>"#,
+    let mut s = markup!(
+        r#"<svg class="chart" viewBox="0 0 {w} {h}" role="img" aria-labelledby="chart-title-{event}" data-event="{event}" data-points="{n}" xmlns="http://www.w3.org/2000/svg"><title id="chart-title-{event}">Released since the leak started, kg: best estimate with the low to high band</title>"#,
+        w = WIDTH,
+        h = HEIGHT,
+        event = event,
         n = points.len()
     );
     // Grid and y labels.
     let mut v = 0.0;
     while v <= y_max * (1.0 + 1e-9) {
         let yy = y(v);
-        let _ = write!(
-            s,
-            r#"<line class="grid" x1="{LEFT}" x2="{x2}" y1="{yy:.1}" y2="{yy:.1}"/><text class="tick" x="{tx}" y="{ty:.1}" text-anchor="end">{label}</text>"#,
+        markup!(
+            &mut s,
+            r#"<line class="grid" x1="{x1}" x2="{x2}" y1="{yy:.1}" y2="{yy:.1}"/><text class="tick" x="{tx}" y="{ty:.1}" text-anchor="end">{label}</text>"#,
+            x1 = LEFT,
             x2 = WIDTH - RIGHT,
+            yy = yy,
             tx = LEFT - 8.0,
             ty = yy + 4.0,
             label = whole(v)
@@ -158,9 +163,10 @@ pub fn svg(event: i64, start_ms: i64, points: &[Point], thresholds: &[f64]) -> O
     let mut t = 0.0;
     while t <= span_s + 1e-9 {
         let xx = LEFT + t / span_s.max(1e-9) * plot_w;
-        let _ = write!(
-            s,
+        markup!(
+            &mut s,
             r#"<line class="tickmark" x1="{xx:.1}" x2="{xx:.1}" y1="{y1}" y2="{y2}"/><text class="tick" x="{xx:.1}" y="{ty}" text-anchor="middle">{label}</text>"#,
+            xx = xx,
             y1 = TOP + plot_h,
             y2 = TOP + plot_h + 5.0,
             ty = TOP + plot_h + 19.0,
@@ -168,44 +174,49 @@ pub fn svg(event: i64, start_ms: i64, points: &[Point], thresholds: &[f64]) -> O
         );
         t += x_step_s;
     }
-    let _ = write!(
-        s,
+    markup!(
+        &mut s,
         r#"<text class="axis x" x="{ax}" y="{ay}" text-anchor="middle">{x_unit} since the leak started</text><text class="axis y" x="14" y="{ky}" text-anchor="middle" transform="rotate(-90 14 {ky})">kg released</text>"#,
         ax = LEFT + plot_w / 2.0,
         ay = HEIGHT - 4.0,
+        x_unit = x_unit,
         ky = TOP + plot_h / 2.0,
     );
     // Band: along the high values, back along the low ones.
-    s.push_str(r#"<polygon class="band" points=""#);
+    markup!(&mut s, r#"<polygon class="band" points=""#);
     for p in points {
-        let _ = write!(s, "{:.1},{:.1} ", x(p.at_ms), y(p.high_kg));
+        markup!(&mut s, "{x:.1},{y:.1} ", x = x(p.at_ms), y = y(p.high_kg));
     }
     for p in points.iter().rev() {
-        let _ = write!(s, "{:.1},{:.1} ", x(p.at_ms), y(p.low_kg));
+        markup!(&mut s, "{x:.1},{y:.1} ", x = x(p.at_ms), y = y(p.low_kg));
     }
-    s.push_str(r#""/>"#);
+    markup!(&mut s, r#""/>"#);
     for q in &shown {
         let yy = y(*q);
-        let _ = write!(
-            s,
-            r#"<line class="threshold" x1="{LEFT}" x2="{x2}" y1="{yy:.1}" y2="{yy:.1}"/><text class="threshold-label" x="{tx}" y="{ty:.1}" text-anchor="start">reportable {q} kg</text>"#,
+        markup!(
+            &mut s,
+            r#"<line class="threshold" x1="{x1}" x2="{x2}" y1="{yy:.1}" y2="{yy:.1}"/><text class="threshold-label" x="{tx}" y="{ty:.1}" text-anchor="start">reportable {q} kg</text>"#,
+            x1 = LEFT,
             x2 = WIDTH - RIGHT,
+            yy = yy,
             tx = LEFT + 6.0,
             ty = yy - 5.0,
             q = whole(*q)
         );
     }
-    s.push_str(r#"<polyline class="best" points=""#);
+    markup!(&mut s, r#"<polyline class="best" points=""#);
     for p in points {
-        let _ = write!(s, "{:.1},{:.1} ", x(p.at_ms), y(p.best_kg));
+        markup!(&mut s, "{x:.1},{y:.1} ", x = x(p.at_ms), y = y(p.best_kg));
     }
-    s.push_str(r#""/>"#);
+    markup!(&mut s, r#""/>"#);
     let last = points[points.len() - 1];
-    let _ = write!(
-        s,
-        r#"<circle class="now" cx="{:.1}" cy="{:.1}" r="4"/><line class="frame" x1="{LEFT}" x2="{LEFT}" y1="{TOP}" y2="{yb}"/><line class="frame" x1="{LEFT}" x2="{xr}" y1="{yb}" y2="{yb}"/></svg>"#,
-        x(last.at_ms),
-        y(last.best_kg),
+    markup!(
+        &mut s,
+        r#"<circle class="now" cx="{cx:.1}" cy="{cy:.1}" r="4"/><line class="frame" x1="{x1}" x2="{x1}" y1="{top}" y2="{yb}"/><line class="frame" x1="{x1}" x2="{xr}" y1="{yb}" y2="{yb}"/></svg>"#,
+        cx = x(last.at_ms),
+        cy = y(last.best_kg),
+        x1 = LEFT,
+        top = TOP,
         yb = TOP + plot_h,
         xr = WIDTH - RIGHT
     );
@@ -317,7 +328,9 @@ mod tests {
     #[test]
     fn the_chart_draws_band_line_and_thresholds() {
         let points = series(60, 1000);
-        let svg = svg(7, 1_000, &points, &[50.0, 2_000.0]).unwrap();
+        let svg = svg(7, 1_000, &points, &[50.0, 2_000.0])
+            .unwrap()
+            .into_string();
         assert!(svg.starts_with("<svg") && svg.ends_with("</svg>"));
         assert!(svg.contains(r#"class="band""#) && svg.contains(r#"class="best""#));
         assert!(svg.contains("reportable 50 kg"), "near the data: shown");

@@ -34,6 +34,7 @@
 //! (`allow_remote`); put a reverse proxy in front to publish it further.
 
 pub mod chart;
+pub mod html;
 pub mod metrics;
 pub mod page;
 pub mod server;

@@ -1,0 +1,134 @@
+//! How an estimate is made, below its figures: the warnings (the given
+//! hole's disagreement with the level first), the method and why, the level
+//! balance, the fitted hole, and the data quality.
+//!
+//! Left out: the figures themselves (`figures.rs`) and the wording of the
+//! warnings and reasons, which is `report::estimate`'s.
+
+use super::span;
+use crate::estimate::Warning;
+use crate::report::{self, estimate as words};
+use crate::status::EstimateView;
+use crate::web::html::{Html, markup};
+
+/// How the figure is made, after any warning the operator must see, and
+/// the data quality.
+pub(super) fn details(id: i64, est: &EstimateView, age_ms: i64) -> Html {
+    let mut out = markup!("<div class=\"details\">\n");
+    out.push(warnings(id, est));
+    out.push(basis(id, est));
+    out.push(quality(id, est, age_ms));
+    markup!(&mut out, "</div>\n");
+    out
+}
+
+/// The given hole's disagreement with the level first, then the other
+/// warnings.
+fn warnings(id: i64, est: &EstimateView) -> Html {
+    let mut out = est.consistency.as_ref().map_or(Html::new(), |warning| {
+        markup!(
+            r#"<p class="caution" data-field="consistency" data-event="{id}"><strong>Check the hole size:</strong> {warning}</p>
+"#,
+            id = id,
+            warning = warning
+        )
+    });
+    let others: Vec<&String> = est
+        .warnings
+        .iter()
+        .zip(&est.words.warnings_text)
+        .filter(|(w, _)| *w != Warning::HoleInconsistent)
+        .map(|(_, text)| text)
+        .collect();
+    if !others.is_empty() {
+        markup!(
+            &mut out,
+            r#"<ul class="warnings" data-field="warnings" data-event="{id}">
+"#,
+            id = id
+        );
+        out.extend(
+            others
+                .into_iter()
+                .map(|text| markup!("<li>{text}</li>\n", text = text)),
+        );
+        markup!(&mut out, "</ul>\n");
+    }
+    out
+}
+
+/// How it is estimated: the method and why, the level balance, the hole.
+fn basis(id: i64, est: &EstimateView) -> Html {
+    let g = report::grouped;
+    let mut out = markup!(
+        r#"<div class="panel basis">
+<h3>How it is estimated</h3>
+<dl>
+<dt>Best from</dt><dd data-field="method" data-event="{id}">{method}</dd>
+<dt>Why</dt><dd>{reason}</dd>
+"#,
+        id = id,
+        method = words::method_name(est.method),
+        reason = est.words.method_reason,
+    );
+    if let Some(inv) = est.inventory_kg {
+        markup!(
+            &mut out,
+            "<dt>Level balance</dt><dd>{inv} ± {band} kg lost from the tank</dd>\n",
+            inv = g(inv),
+            band = g(est.band.inventory_kg)
+        );
+    }
+    if let Some(text) = &est.words.implied_cd_text {
+        markup!(
+            &mut out,
+            "<dt>Implied Cd</dt><dd>{text}</dd>\n",
+            text = text
+        );
+    }
+    markup!(
+        &mut out,
+        r#"<dt>Fitted hole</dt><dd>{hole}</dd>
+<dt>Above the hole</dt><dd>{rem} kg still in the tank</dd>
+</dl>
+</div>
+"#,
+        hole = est.words.fit_status,
+        rem = g(est.remaining_above_hole_kg),
+    );
+    out
+}
+
+/// Data quality: the last sample, samples used and skipped, gaps.
+fn quality(id: i64, est: &EstimateView, age_ms: i64) -> Html {
+    let q = &est.quality;
+    let bridged = if q.gaps_bridged == 0 {
+        "in the data".to_owned()
+    } else {
+        format!(
+            "bridged by the model ({} kg, longest {:.0} s)",
+            report::grouped(q.bridged_kg),
+            q.longest_gap_s
+        )
+    };
+    markup!(
+        r#"<div class="panel quality">
+<h3>Data quality</h3>
+<dl>
+<dt>Last sample</dt><dd><time data-field="estimate-at" data-event="{id}">{last}</time> ({age} ago)</dd>
+<dt>Samples</dt><dd><span data-field="samples-used" data-event="{id}">{used}</span> used, <span data-field="samples-skipped" data-event="{id}">{skipped}</span> skipped as bad</dd>
+<dt>Pressure held</dt><dd>{held} samples on the last good pressure</dd>
+<dt>Gaps</dt><dd><span data-field="gaps-bridged" data-event="{id}">{gaps}</span> {bridged}</dd>
+</dl>
+</div>
+"#,
+        id = id,
+        last = report::utc(est.at_ms),
+        age = span(age_ms),
+        used = q.samples_used,
+        skipped = q.samples_skipped,
+        held = q.pressure_held,
+        gaps = q.gaps_bridged,
+        bridged = bridged,
+    )
+}

@@ -1,0 +1,98 @@
+//! The responder page: every open event on one server-rendered HTML page.
+//!
+//! Built for a phone at a command post as much as a desk: one column that
+//! widens into a grid, the figures large and each with its unit, the
+//! caution at the top. Every figure carries `data-field` and `data-event`
+//! attributes so that tests (and anyone scripting against the page) can
+//! find it without scraping the layout.
+//!
+//! The page is [`Html`], built section by section with `markup!`, which
+//! escapes every text it is given (tank ids, descriptions, operator notes,
+//! reasons, anything from the database or the config); a text that is not
+//! escaped does not compile.
+//!
+//! This file holds what the page is given ([`PageData`]) and the page's
+//! outline: the frame around `<main>`, then in `<main>` the top of the page
+//! and a card per event. The sections are in the files beside it:
+//!
+//! * `frame.rs`: the document head, the masthead and the footer.
+//! * `state.rs`: the stamp, the caution, the daemon's state, the summary.
+//! * `event.rs`: one event's card, its head and its alarms.
+//! * `figures.rs`: released so far, flowing now, the forecast.
+//! * `trend.rs`: the chart and the reportable quantities.
+//! * `details.rs`: the warnings, how it is estimated, the data quality.
+//! * `notes.rs`: the operators' notes, from the audit trail to the panel.
+//!
+//! Left out: client-side rendering. The refresh script only fetches this
+//! page again and swaps the fresh `<main>` in; nothing is computed in the
+//! browser. The chart's SVG is `web::chart`'s, the escaping `web::html`'s.
+
+mod details;
+mod event;
+mod figures;
+mod frame;
+mod notes;
+mod state;
+mod trend;
+
+pub use notes::{Note, notes};
+
+use crate::model::TimeSpan;
+use crate::report;
+use crate::status::StatusDocument;
+use crate::store::health::HealthSnapshot;
+use crate::web::chart::Point;
+use crate::web::html::{Html, markup};
+
+/// Everything the page shows.
+pub struct PageData {
+    pub site: String,
+    pub doc: StatusDocument,
+    /// Per event of `doc.events`, in the same order.
+    pub events: Vec<EventExtras>,
+    /// A latest estimate older than this is flagged as not current.
+    pub stale_after_ms: i64,
+    /// Whether the database takes the daemon's writes.
+    pub store: HealthSnapshot,
+}
+
+/// What the page shows beside an event's status document.
+pub struct EventExtras {
+    pub series: Vec<Point>,
+    pub notes: Vec<Note>,
+    pub description: String,
+    pub substance: String,
+}
+
+/// Renders the page.
+pub fn render(data: &PageData) -> String {
+    let doc = &data.doc;
+    let mut page = frame::head(doc.events.len(), &data.site);
+    page.push(live(data));
+    page.push(frame::foot(doc.caution));
+    page.into_string()
+}
+
+/// The `<main>` the refresh script swaps: the stamp, the caution, the
+/// daemon's state, and a card per event.
+fn live(data: &PageData) -> Html {
+    let doc = &data.doc;
+    let mut main = markup!(
+        "<main id=\"live\" data-generated-at-ms=\"{ms}\">\n",
+        ms = doc.generated_at_ms
+    );
+    main.push(state::top(doc, &data.store));
+    main.extend(
+        doc.events
+            .iter()
+            .zip(&data.events)
+            .map(|(e, extras)| event::card(e, extras, doc.generated_at_ms, data.stale_after_ms)),
+    );
+    markup!(&mut main, "</main>\n");
+    main
+}
+
+/// A span of time for people, from milliseconds.
+fn span(ms: i64) -> String {
+    report::duration(TimeSpan::seconds(ms.max(0) as f64 / 1000.0))
+}

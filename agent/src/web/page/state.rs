@@ -1,0 +1,78 @@
+//! The top of the live part: when the figures are from, the caution, an
+//! alarm when the figures are not being updated (the database takes no
+//! writes, or the daemon is not running), and how many events are open.
+//!
+//! Left out: the events themselves (`event.rs`) and any figure.
+
+use crate::report;
+use crate::status::StatusDocument;
+use crate::store::health::HealthSnapshot;
+use crate::web::html::{Html, markup};
+use std::fmt::Write as _;
+
+/// The top of `<main>`: when the figures are from, the caution, the
+/// daemon's state, and how many events are open.
+pub(super) fn top(doc: &StatusDocument, store: &HealthSnapshot) -> Html {
+    let mut top = markup!(
+        r#"<p class="stamp">Figures as of <time data-field="generated-at">{at}</time> · the page refreshes every 5 s</p>
+<aside class="caution" role="note"><strong>Caution</strong> {caution}</aside>
+"#,
+        at = doc.generated_at,
+        caution = doc.caution.strip_prefix("CAUTION: ").unwrap_or(doc.caution),
+    );
+    top.push(daemon_state(doc, store));
+    top.push(summary(doc.events.len()));
+    top
+}
+
+/// An alarm when the figures are not being updated: the database takes no
+/// writes, or the daemon is not running. Nothing while all is well.
+fn daemon_state(doc: &StatusDocument, store: &HealthSnapshot) -> Html {
+    if let Some((since, why)) = store.failing {
+        let mut text = format!(
+            "The database has taken none of the agent's writes since {}: {}. {} poll cycles ({} samples) wait in the agent's memory and will be stored when it does; the figures below stop at that time.",
+            report::utc(since),
+            why.describe(),
+            store.held_cycles,
+            store.held_samples
+        );
+        if store.dropped_samples > 0 {
+            let _ = write!(
+                text,
+                " To bound memory, {} samples of tanks with no open event were given up; every event sample is kept.",
+                store.dropped_samples
+            );
+        }
+        markup!(
+            r#"<p class="alarm" role="alert" data-field="store">{text}</p>
+"#,
+            text = text
+        )
+    } else if !doc.daemon_running {
+        // (While writes fail the heartbeat is stale too, but this page is
+        // served by the daemon itself, so the message above is the true one.)
+        markup!(
+            r#"<p class="alarm" role="alert">The agent's daemon is not running (last seen {seen}); these figures are not being updated.</p>
+"#,
+            seen = doc.daemon_last_seen.as_deref().unwrap_or("never")
+        )
+    } else {
+        Html::new()
+    }
+}
+
+/// How many events are open, or how one appears when none is.
+fn summary(open: usize) -> Html {
+    let text = match open {
+        0 => markup!(
+            "No open leak events. Events appear here as soon as an operator flags a leak (`leaktally leak open`) or the control system raises a tank's leak flag."
+        ),
+        1 => markup!("1 open leak event"),
+        n => markup!("{n} open leak events, newest first", n = n),
+    };
+    markup!(
+        r#"<p class="summary" data-field="open-events">{text}</p>
+"#,
+        text = text
+    )
+}
