@@ -259,6 +259,15 @@ async fn read_only(State(shared): State<Arc<Shared>>, request: Request, next: Ne
 /// this page (see the module doc).
 #[allow(clippy::result_large_err)] // a refusal is the rare path
 fn host_check(shared: &Shared, request: &Request) -> Result<(), Response> {
+    // More than one Host is a bad request (RFC 9112, 3.2): whichever one a
+    // check read, a proxy or the application might use the other.
+    if request.headers().get_all(header::HOST).iter().count() > 1 {
+        return Err(text(
+            StatusCode::BAD_REQUEST,
+            "the request has more than one Host header; HTTP/1.1 allows one (RFC 9112, 3.2)\n"
+                .into(),
+        ));
+    }
     // An absolute URI's authority stands for Host (RFC 9112, 3.2.2).
     let host = match request.uri().authority() {
         Some(authority) => Some(authority.as_str().to_owned()),

@@ -372,6 +372,20 @@ async fn a_foreign_host_is_refused_everywhere_and_the_page_names_are_answered() 
         assert_eq!(status, StatusCode::OK, "{host}: {body}");
         assert!(body.contains("\"events\""), "{body}");
     }
+    // Two Host headers, the page's first: refused, whichever a check read.
+    for hosts in [
+        ["127.0.0.1:8470", "evil.example"],
+        ["evil.example", "127.0.0.1:8470"],
+    ] {
+        let request = HttpRequest::builder()
+            .uri("/api/status")
+            .header(header::HOST, hosts[0])
+            .header(header::HOST, hosts[1])
+            .body(Body::empty())
+            .unwrap();
+        let response = router.clone().oneshot(request).await.unwrap();
+        assert_eq!(response.status(), StatusCode::BAD_REQUEST, "{hosts:?}");
+    }
     // An absolute URI's authority stands for Host.
     let (status, _, _) = call_for(
         &router,
