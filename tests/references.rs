@@ -158,7 +158,7 @@ fn discharge_coefficient_band_is_the_common_practice_one() {
 
 /// The running tally over clean 1 Hz samples of an analytic Torricelli
 /// history (source as above) against the analytic released mass
-/// rho A (h0 - h(t)). DESIGN.md asks for 0.1 %; the trapezoid's error on
+/// rho A (h0 - h(t)). The design target is 0.1 % (DEVELOPERS.md); the trapezoid's error on
 /// this smooth rate is far smaller.
 #[test]
 fn tally_of_clean_torricelli_samples_matches_the_analytic_total() {
@@ -177,7 +177,7 @@ fn tally_of_clean_torricelli_samples_matches_the_analytic_total() {
         if second % 600 == 0 && second > 0 {
             let exact = 850.0 * PI * d * d / 4.0 * (h0 - level(second as f64));
             let e = worst.record(f.released.best.si(), exact, || format!("after {second} s"));
-            assert!(e < 1e-3, "DESIGN.md target 0.1 %: {e}");
+            assert!(e < 1e-3, "the 0.1 % target: {e}");
         }
     }
 }

@@ -805,8 +805,8 @@ mod tests {
     ///   sqrt(h - z) = sqrt(h0 - z) - (Cd a / A) sqrt(g / 2) t,
     ///
     /// until the surface reaches the hole. Source: Torricelli's law
-    /// integrated for a draining tank, the check value named in the design
-    /// brief (DESIGN.md section 2) and the quasi-steady draining-tank example
+    /// integrated for a draining tank, the check value the design names
+    /// (DEVELOPERS.md) and the quasi-steady draining-tank example
     /// of the fluid-mechanics textbooks (recalled from memory; it follows
     /// from separating variables in the ODE above). The released mass is
     /// rho A (h0 - h).

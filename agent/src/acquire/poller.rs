@@ -41,8 +41,8 @@ use tracing::{debug, info, warn};
 
 /// Reconnect delays: the first retry after this, doubling per failure...
 const BACKOFF_START: Duration = Duration::from_millis(250);
-/// ...up to this. Low, because DESIGN.md wants readings back within seconds
-/// of a device's return, and a refused connect costs a device nothing.
+/// ...up to this. Low, because readings must be back within seconds of a
+/// device's return, and a refused connect costs a device nothing.
 const BACKOFF_CAP: Duration = Duration::from_secs(3);
 /// How long a read the device refused as a whole (but answered in parts) is
 /// read in parts before the whole is tried again. A device's register map

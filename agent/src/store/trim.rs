@@ -36,7 +36,7 @@ use rusqlite::{Connection, OptionalExtension, params};
 use std::collections::HashMap;
 use std::time::{Duration, Instant};
 
-/// How the rolling history is kept (DESIGN.md section 3): full rate for
+/// How the rolling history is kept (DEVELOPERS.md, "The design"): full rate for
 /// `full_ms`, one sample per `thin_every_ms` per tank back to `keep_ms`, none
 /// older. Samples inside an event (from its start to its close, or still
 /// open) are kept at full rate for as long as the event is kept.
