@@ -44,8 +44,8 @@ const ACTION_CHECK: Duration = Duration::from_millis(250);
 /// arrives: the devices of one tick answer within a few milliseconds of
 /// each other, so a tick's cycles commit together, one fsync a tick rather
 /// than one a device. A power cut loses at most what waits here and what
-/// the pollers are reading: under one tick of samples (README, "What a
-/// power cut can cost").
+/// the pollers are reading: under one tick of samples (README, "The
+/// database, and what a power cut can cost").
 pub const GATHER: Duration = Duration::from_millis(100);
 /// How often the heartbeat row is refreshed.
 const HEARTBEAT: Duration = Duration::from_secs(1);

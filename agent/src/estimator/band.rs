@@ -42,10 +42,14 @@ impl Estimator {
                 let head = r.density
                     * STANDARD_GRAVITY
                     * (r.state.level.si() - self.params.hole_height_m).max(0.0);
-                let level_term = r.density * STANDARD_GRAVITY * u_level / (2.0 * driving);
-                let pressure_term = u_pressure / (2.0 * driving);
-                let density_term = u_density * (0.5 + head / (2.0 * driving));
-                (level_term.powi(2) + pressure_term.powi(2) + density_term.powi(2)).sqrt()
+                let half_over = 0.5 / driving;
+                let level_term = r.density * STANDARD_GRAVITY * u_level * half_over;
+                let pressure_term = u_pressure * half_over;
+                let density_term = u_density * (0.5 + head * half_over);
+                (level_term * level_term
+                    + pressure_term * pressure_term
+                    + density_term * density_term)
+                    .sqrt()
             }
             Phase::Vapour(_) => {
                 let upstream = self.vessel.ambient().si() + r.state.headspace.si();

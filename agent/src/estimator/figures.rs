@@ -301,34 +301,14 @@ impl Estimator {
         }
 
         // The fit, as an effective area first.
-        let fit_state = match fit {
-            Some((k, se)) => {
-                let relative = quad(
-                    COVERAGE_FACTOR * se / k,
-                    if inventory > 0.0 { u / inventory } else { 1.0 },
-                );
-                Fit::Ready {
-                    area_m2: k,
-                    area_low_m2: (k * (1.0 - relative)).max(0.0),
-                    area_high_m2: k * (1.0 + relative),
-                }
-            }
-            None => Fit::NotYet {
-                level_drop_m: self.level_drop(),
-                needed_m: FIT_NOISE_MULTIPLE * self.level_noise(),
-            },
-        };
-        let implied_cd = match (area_given, fit_state.area()) {
-            (Some(area), Some((k_low, k, k_high))) if loss_seen => {
-                let best = k / area;
-                Some(ImpliedCd {
-                    best,
-                    low: k_low / area,
-                    high: k_high / area,
-                    in_range: c_overlaps(k_low / area, k_high / area, cd_low, cd_high),
-                })
-            }
-            _ => None,
+        // The fit's band and the implied Cd are made when the whole estimate
+        // is asked for (`Estimator::estimate`), from what they rest on.
+        self.fit_inputs = FitInputs {
+            fit,
+            inventory,
+            u,
+            area_given,
+            loss_seen,
         };
         if let (Some(area), Some((k, _))) = (area_given, fit) {
             let ratio = cd * area / k;
@@ -399,9 +379,9 @@ impl Estimator {
             reason,
             inventory_kg: Some(inventory),
             model_kg: model,
-            fit: fit_state,
-            fitted_diameter_m: fit.map(|(k, _)| (4.0 * k / (std::f64::consts::PI * cd)).sqrt()),
-            implied_cd,
+            fit: Fit::default(),
+            fitted_diameter_m: None,
+            implied_cd: None,
             level_m: r.state.level.si(),
             headspace_pa: r.state.headspace.si(),
             density_kg_m3: r.density,
@@ -471,5 +451,59 @@ impl Estimator {
             }
         };
         Some((hole, self.cd))
+    }
+}
+
+/// What the fit's band and the implied Cd rest on, at the latest sample.
+#[derive(Debug, Clone, Copy, Default)]
+pub(super) struct FitInputs {
+    pub(super) fit: Option<(f64, f64)>,
+    pub(super) inventory: f64,
+    pub(super) u: f64,
+    pub(super) area_given: Option<f64>,
+    pub(super) loss_seen: bool,
+}
+
+impl Estimator {
+    /// The fit as an effective area with its band (or how far it has to go),
+    /// the Cd the level implies at a given hole, and the fitted hole's
+    /// diameter at the chosen Cd, into `e`.
+    pub(super) fn fit_details(&self, e: &mut Estimate) {
+        let FitInputs {
+            fit,
+            inventory,
+            u,
+            area_given,
+            loss_seen,
+        } = self.fit_inputs;
+        e.fit = match fit {
+            Some((k, se)) => {
+                let relative = quad(
+                    COVERAGE_FACTOR * se / k,
+                    if inventory > 0.0 { u / inventory } else { 1.0 },
+                );
+                Fit::Ready {
+                    area_m2: k,
+                    area_low_m2: (k * (1.0 - relative)).max(0.0),
+                    area_high_m2: k * (1.0 + relative),
+                }
+            }
+            None => Fit::NotYet {
+                level_drop_m: self.level_drop(),
+                needed_m: FIT_NOISE_MULTIPLE * self.level_noise(),
+            },
+        };
+        let (cd_low, cd_high) = self.cd_band;
+        e.implied_cd = match (area_given, e.fit.area()) {
+            (Some(area), Some((k_low, k, k_high))) if loss_seen => Some(ImpliedCd {
+                best: k / area,
+                low: k_low / area,
+                high: k_high / area,
+                in_range: c_overlaps(k_low / area, k_high / area, cd_low, cd_high),
+            }),
+            _ => None,
+        };
+        e.fitted_diameter_m =
+            fit.map(|(k, _)| (4.0 * k / (std::f64::consts::PI * self.cd.get())).sqrt());
     }
 }

@@ -87,8 +87,17 @@ pub struct WindowLine {
     /// Its slope (y per second) and the slope's standard error.
     pub slope: f64,
     pub slope_se: f64,
+    /// The variance of the points about the line (its square root, the
+    /// scatter, is `scatter()`: a square root a sample costs, and only
+    /// tests want it).
+    pub variance: f64,
+}
+
+impl WindowLine {
     /// The standard deviation of the points about the line.
-    pub scatter: f64,
+    pub fn scatter(&self) -> f64 {
+        self.variance.sqrt()
+    }
 }
 
 impl Window {
@@ -152,23 +161,25 @@ impl Window {
         if s.n < 3.0 {
             return None;
         }
-        let sxx = s.xx - s.x * s.x / s.n;
-        let sxy = s.xy - s.x * s.y / s.n;
-        let syy = (s.yy - s.y * s.y / s.n).max(0.0);
+        // One division each for 1/n and 1/sxx (this runs every sample).
+        let inv_n = 1.0 / s.n;
+        let (mean_x, mean_y) = (s.x * inv_n, s.y * inv_n);
+        let sxx = s.xx - s.x * mean_x;
+        let sxy = s.xy - s.x * mean_y;
+        let syy = (s.yy - s.y * mean_y).max(0.0);
         if sxx <= 0.0 {
             return None;
         }
-        let slope = sxy / sxx;
-        let mean_x = s.x / s.n;
-        let mean_y = s.y / s.n;
+        let inv_sxx = 1.0 / sxx;
+        let slope = sxy * inv_sxx;
         let residual = (syy - slope * sxy).max(0.0);
         let variance = residual / (s.n - 2.0);
         Some(WindowLine {
             points: self.points.len(),
             value: mean_y + slope * (self.x(newest) - mean_x),
             slope,
-            slope_se: (variance / sxx).sqrt(),
-            scatter: variance.sqrt(),
+            slope_se: (variance * inv_sxx).sqrt(),
+            variance,
         })
     }
 }
@@ -190,7 +201,7 @@ mod tests {
         assert_eq!(line.points, 11);
         assert!((line.slope - 2.0).abs() < 1e-9, "{line:?}");
         assert!((line.value - 43.0).abs() < 1e-9, "{line:?}");
-        assert!(line.scatter < 1e-6);
+        assert!(line.scatter() < 1e-6);
     }
 
     #[test]

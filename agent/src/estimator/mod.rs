@@ -233,6 +233,8 @@ pub struct Estimator {
     /// Whether the level has refuted the model's figure in this revision:
     /// from then on the figures follow the level.
     level_mode: bool,
+    /// What the fit's band and the implied Cd rest on, at the latest sample.
+    fit_inputs: figures::FitInputs,
     /// Whether any of the tank's accuracies is a default (see
     /// [`Estimator::tank_uses_default_accuracies`]).
     default_accuracies: bool,
@@ -341,6 +343,7 @@ impl Estimator {
             level_mode: false,
             default_accuracies: false,
             noise: 0.0,
+            fit_inputs: figures::FitInputs::default(),
         }
         .with_defaults_noted())
     }
@@ -473,6 +476,7 @@ impl Estimator {
     /// a replay asked once at its end gives the live run's last estimate.
     pub fn estimate(&mut self) -> Option<Estimate> {
         let mut e = self.latest.clone()?;
+        self.fit_details(&mut e);
         e.remaining_above_hole_kg = self
             .vessel
             .liquid_above(Length::metres(e.level_m), &self.unit_hole)
