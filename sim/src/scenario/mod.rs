@@ -15,12 +15,17 @@
 //! beyond what validation needs (the tank height, for the hole and level
 //! checks).
 
+mod problems;
+mod raw;
+
+pub use problems::ScenarioError;
+
 use crate::physics::{self, Gas, Thermal, UllageSpec};
-use leaktally::config::{self, Config, ConfigError, Problem, line_col};
+use leaktally::config::{self, Config};
 use leaktally::model::Length;
+use raw::{Action, RawEvent, RawScenario, RawTank, ThermalKind, UllageKind};
 use serde::Deserialize;
 use std::collections::HashMap;
-use std::fmt;
 use std::ops::Range;
 use std::path::{Path, PathBuf};
 use toml::Spanned;
@@ -236,197 +241,30 @@ const DEFAULT_STEP_MS: i64 = 10;
 const MAX_BLANKET_KG_S: f64 = 1000.0;
 const DEFAULT_SEED: u64 = 1;
 
-/// A scenario that could not be read or is not valid.
-#[derive(Debug)]
-pub enum ScenarioError {
-    Read {
-        path: PathBuf,
-        source: std::io::Error,
-    },
-    /// The site config it names does not load; `at` locates the `site` key.
-    Site {
-        at: Problem,
-        source: ConfigError,
-    },
-    Invalid {
-        problems: Vec<Problem>,
-    },
-}
-
-impl fmt::Display for ScenarioError {
-    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+impl Action {
+    /// The keys besides `at_s` and `action` that the action requires,
+    /// and those it also accepts.
+    pub fn keys(self) -> (&'static [&'static str], &'static [&'static str]) {
         match self {
-            ScenarioError::Read { path, source } => {
-                write!(
-                    f,
-                    "cannot read the scenario file {}: {source}",
-                    path.display()
-                )
+            Action::LeakOpens => (&["tank", "diameter_mm", "height_m"], &["cd"]),
+            Action::TransferStarts => (&["tank", "flow_m3_h"], &[]),
+            Action::SensorSticks | Action::SensorGarbage | Action::SensorRecovers => {
+                (&["tank", "sensor"], &[])
             }
-            ScenarioError::Site { at, source } => write!(f, "{at}\n{source}"),
-            ScenarioError::Invalid { problems } => {
-                for (i, p) in problems.iter().enumerate() {
-                    if i > 0 {
-                        writeln!(f)?;
-                    }
-                    write!(f, "{p}")?;
-                }
-                Ok(())
-            }
-        }
-    }
-}
-
-impl std::error::Error for ScenarioError {}
-
-mod raw {
-    use super::{SensorRole, SimTable};
-    use serde::Deserialize;
-    use toml::Spanned;
-
-    #[derive(Debug, Deserialize)]
-    #[serde(deny_unknown_fields)]
-    pub struct RawScenario {
-        pub site: Spanned<String>,
-        pub step_ms: Option<Spanned<i64>>,
-        pub seed: Option<u64>,
-        #[serde(default, rename = "tank")]
-        pub tanks: Vec<RawTank>,
-        #[serde(default, rename = "event")]
-        pub events: Vec<RawEvent>,
-    }
-
-    #[derive(Debug, Deserialize)]
-    #[serde(deny_unknown_fields)]
-    pub struct RawTank {
-        pub id: Spanned<String>,
-        pub initial_level_m: Spanned<f64>,
-        pub headspace_kpa: Option<Spanned<f64>>,
-        pub level_noise_m: Option<Spanned<f64>>,
-        pub pressure_noise_pa: Option<Spanned<f64>>,
-        pub level_bias_m: Option<Spanned<f64>>,
-        pub level_drift_m_per_h: Option<Spanned<f64>>,
-        pub pressure_bias_pa: Option<Spanned<f64>>,
-        /// The liquid's temperature, °C, held for the whole run.
-        pub temperature_c: Option<Spanned<f64>>,
-        /// "held" (the default): the headspace pressure is held and no gas
-        /// is modelled; "gas": the ullage holds the site config's vapour,
-        /// which a hole above the surface lets out.
-        pub ullage: Option<Spanned<UllageKind>>,
-        /// With `ullage = "gas"`: "isothermal" (the default) or "adiabatic".
-        pub ullage_thermal: Option<Spanned<ThermalKind>>,
-        /// With `ullage = "gas"`: a blanket regulator holding the starting
-        /// pressure, feeding at most this much gas, kg/s or normal m³/h
-        /// (0 °C, 101.325 kPa); one of the two.
-        pub blanket_max_kg_s: Option<Spanned<f64>>,
-        pub blanket_max_nm3_h: Option<Spanned<f64>>,
-    }
-
-    #[derive(Debug, Clone, Copy, PartialEq, Eq, Deserialize)]
-    #[serde(rename_all = "snake_case")]
-    pub enum UllageKind {
-        Held,
-        Gas,
-    }
-
-    #[derive(Debug, Clone, Copy, PartialEq, Eq, Deserialize)]
-    #[serde(rename_all = "snake_case")]
-    pub enum ThermalKind {
-        Isothermal,
-        Adiabatic,
-    }
-
-    /// One `[[event]]`. Every action shares this flat type, and validation
-    /// checks which keys an action takes: serde's tagged enums buffer their
-    /// content, which would lose the spans that make the messages useful.
-    #[derive(Debug, Deserialize)]
-    #[serde(deny_unknown_fields)]
-    pub struct RawEvent {
-        pub at_s: Spanned<f64>,
-        pub action: Spanned<Action>,
-        pub tank: Option<Spanned<String>>,
-        pub device: Option<Spanned<String>>,
-        pub sensor: Option<Spanned<SensorRole>>,
-        pub diameter_mm: Option<Spanned<f64>>,
-        pub height_m: Option<Spanned<f64>>,
-        pub cd: Option<Spanned<f64>>,
-        pub flow_m3_h: Option<Spanned<f64>>,
-        pub duration_s: Option<Spanned<f64>>,
-        pub value_si: Option<Spanned<f64>>,
-        pub reply_delay_ms: Option<Spanned<u64>>,
-        pub exception_code: Option<Spanned<u8>>,
-        pub table: Option<Spanned<SimTable>>,
-        pub address: Option<Spanned<u16>>,
-        pub count: Option<Spanned<u16>>,
-        pub extra_values: Option<Spanned<i64>>,
-    }
-
-    #[derive(Debug, Clone, Copy, PartialEq, Eq, Deserialize)]
-    #[serde(rename_all = "snake_case")]
-    pub enum Action {
-        LeakOpens,
-        LeakCloses,
-        TransferStarts,
-        TransferStops,
-        SensorSticks,
-        SensorGarbage,
-        SensorReads,
-        SensorRecovers,
-        LinkDrops,
-        DeviceSlows,
-        RaiseFlag,
-        LowerFlag,
-        DeviceRefuses,
-        DeviceMiscounts,
-    }
-
-    impl Action {
-        pub fn name(self) -> &'static str {
-            match self {
-                Action::LeakOpens => "leak_opens",
-                Action::LeakCloses => "leak_closes",
-                Action::TransferStarts => "transfer_starts",
-                Action::TransferStops => "transfer_stops",
-                Action::SensorSticks => "sensor_sticks",
-                Action::SensorGarbage => "sensor_garbage",
-                Action::SensorReads => "sensor_reads",
-                Action::SensorRecovers => "sensor_recovers",
-                Action::LinkDrops => "link_drops",
-                Action::DeviceSlows => "device_slows",
-                Action::RaiseFlag => "raise_flag",
-                Action::LowerFlag => "lower_flag",
-                Action::DeviceRefuses => "device_refuses",
-                Action::DeviceMiscounts => "device_miscounts",
-            }
-        }
-
-        /// The keys besides `at_s` and `action` that the action requires,
-        /// and those it also accepts.
-        pub fn keys(self) -> (&'static [&'static str], &'static [&'static str]) {
-            match self {
-                Action::LeakOpens => (&["tank", "diameter_mm", "height_m"], &["cd"]),
-                Action::TransferStarts => (&["tank", "flow_m3_h"], &[]),
-                Action::SensorSticks | Action::SensorGarbage | Action::SensorRecovers => {
-                    (&["tank", "sensor"], &[])
-                }
-                Action::SensorReads => (&["tank", "sensor", "value_si"], &[]),
-                Action::LinkDrops => (&["device", "duration_s"], &[]),
-                Action::DeviceSlows => (&["device", "duration_s", "reply_delay_ms"], &[]),
-                Action::DeviceRefuses => (
-                    &["device", "exception_code"],
-                    &["duration_s", "table", "address", "count"],
-                ),
-                Action::DeviceMiscounts => (&["device", "extra_values"], &["duration_s"]),
-                Action::LeakCloses
-                | Action::TransferStops
-                | Action::RaiseFlag
-                | Action::LowerFlag => (&["tank"], &[]),
+            Action::SensorReads => (&["tank", "sensor", "value_si"], &[]),
+            Action::LinkDrops => (&["device", "duration_s"], &[]),
+            Action::DeviceSlows => (&["device", "duration_s", "reply_delay_ms"], &[]),
+            Action::DeviceRefuses => (
+                &["device", "exception_code"],
+                &["duration_s", "table", "address", "count"],
+            ),
+            Action::DeviceMiscounts => (&["device", "extra_values"], &["duration_s"]),
+            Action::LeakCloses | Action::TransferStops | Action::RaiseFlag | Action::LowerFlag => {
+                (&["tank"], &[])
             }
         }
     }
 }
-
-use raw::{Action, RawEvent, RawScenario, RawTank, ThermalKind, UllageKind};
 
 /// Reads and validates a scenario file, and the site config it names.
 pub fn load(path: &Path) -> Result<Scenario, ScenarioError> {
@@ -441,25 +279,17 @@ pub fn load(path: &Path) -> Result<Scenario, ScenarioError> {
 /// relative `site` path.
 pub fn parse(text: &str, path: &Path) -> Result<Scenario, ScenarioError> {
     let file = path.display().to_string();
-    let locate = |span: Range<usize>, message: String| {
-        let (line, column) = line_col(text, span.start);
-        Problem {
-            file: file.clone(),
-            line,
-            column,
-            message,
-        }
-    };
-    let raw: RawScenario = toml::from_str(text).map_err(|e| ScenarioError::Invalid {
-        problems: vec![locate(e.span().unwrap_or(0..0), hint(e.message()))],
-    })?;
+    let raw: RawScenario =
+        toml::from_str(text).map_err(|e| problems::unparsable(text, &file, &e))?;
 
     // The site path is relative to the scenario file, so a scenario and its
     // site can move together and the simulator runs from any directory.
     let base = path.parent().unwrap_or_else(|| Path::new(""));
     let site_path = base.join(raw.site.get_ref());
     let site = config::load(&site_path).map_err(|source| ScenarioError::Site {
-        at: locate(
+        at: problems::locate(
+            text,
+            &file,
             raw.site.span(),
             format!("the site config \"{}\" does not load:", raw.site.get_ref()),
         ),
@@ -481,25 +311,7 @@ pub fn parse(text: &str, path: &Path) -> Result<Scenario, ScenarioError> {
             site,
         })
     } else {
-        Err(ScenarioError::Invalid {
-            problems: checker
-                .problems
-                .into_iter()
-                .map(|(span, msg)| locate(span, msg))
-                .collect(),
-        })
-    }
-}
-
-/// Adds a way out to the TOML parser's messages where it gives none.
-fn hint(message: &str) -> String {
-    let message = message.trim_end();
-    if message.starts_with("unknown field") {
-        format!("{message}; check the spelling against sim/scenarios/demo.toml")
-    } else if message.starts_with("unknown variant") {
-        format!("{message}; use one of the listed values")
-    } else {
-        message.to_owned()
+        Err(problems::invalid(text, &file, checker.problems))
     }
 }
 
