@@ -7,7 +7,7 @@
 //! Left out: interpreting any value, and which keys an action takes (the
 //! checks in `tanks`, `events` and `faults` do both).
 
-use super::{SensorRole, SimTable};
+use super::faults::{SensorRole, SimTable};
 use serde::Deserialize;
 use toml::Spanned;
 
