@@ -3,45 +3,30 @@
 //! whose physics is checked against the analytic Torricelli solution in
 //! sim/src/physics.rs.
 
-use crate::util::{Scratch, Server, Truth, binary, demo_site, now_ms, start_sim, toml_path};
+use crate::util::{
+    ScenarioBuilder, ScenarioTank, Scratch, Server, Truth, binary, demo_site, now_ms, start_sim,
+};
 use serde_json::Value;
 use std::process::Command;
 use std::time::{Duration, Instant};
 
 /// A scenario for the demo site: FF-T12 leaking from 1 s, the others still.
-pub(crate) fn scenario(scratch: &Scratch, level_noise_m: f64) -> std::path::PathBuf {
-    let site = scratch.write("sim-site.toml", &demo_site("127.0.0.1:1"));
-    scratch.write(
-        "scenario.toml",
-        &format!(
-            r#"site = {site}
-seed = 5
-[[tank]]
-id = "FF-T12"
-initial_level_m = 4.2
-level_noise_m = {level_noise_m}
-[[tank]]
-id = "FF-T14"
-initial_level_m = 1.6
-headspace_kpa = 15.0
-level_noise_m = {level_noise_m}
-pressure_noise_pa = 30.0
-[[tank]]
-id = "FF-T20"
-initial_level_m = 5.1
-level_noise_m = {level_noise_m}
-pressure_noise_pa = 30.0
-[[event]]
-at_s = 1.0
-action = "leak_opens"
-tank = "FF-T12"
-diameter_mm = 40.0
-height_m = 0.3
-cd = 0.61
-"#,
-            site = toml_path(&site)
-        ),
-    )
+pub(crate) fn one_leak(level_noise_m: f64) -> ScenarioBuilder {
+    ScenarioBuilder::demo()
+        .seed(5)
+        .tank(ScenarioTank::new("FF-T12", 4.2).level_noise_m(level_noise_m))
+        .tank(
+            ScenarioTank::new("FF-T14", 1.6)
+                .headspace_kpa(15.0)
+                .level_noise_m(level_noise_m)
+                .pressure_noise_pa(30.0),
+        )
+        .tank(
+            ScenarioTank::new("FF-T20", 5.1)
+                .level_noise_m(level_noise_m)
+                .pressure_noise_pa(30.0),
+        )
+        .leak_opens(1.0, "FF-T12", 40.0, 0.3, 0.61)
 }
 
 /// Starts `leaktally poll` against `address`, its JSON lines on a channel.
@@ -75,7 +60,7 @@ fn collect(poll: &mut Server, limit: Duration) -> Vec<Value> {
 fn polled_values_match_the_simulator_truth() {
     let scratch = Scratch::new("acquire");
     let noise = 0.001;
-    let (sim, address) = start_sim(&scratch, &scenario(&scratch, noise), "127.0.0.1:0");
+    let (sim, address) = start_sim(&scratch, &one_leak(noise).write(&scratch), "127.0.0.1:0");
     let mut poll = start_poll(&scratch, &address, 11.0);
     let samples = collect(&mut poll, Duration::from_secs(25));
     drop(sim); // kills it; the truth file is flushed every simulated second
@@ -147,7 +132,7 @@ fn polled_values_match_the_simulator_truth() {
 #[test]
 fn the_agent_reconnects_after_the_simulator_restarts_and_marks_the_gap() {
     let scratch = Scratch::new("restart");
-    let scenario = scenario(&scratch, 0.0);
+    let scenario = one_leak(0.0).write(&scratch);
     let (sim, address) = start_sim(&scratch, &scenario, "127.0.0.1:0");
     let mut poll = start_poll(&scratch, &address, 22.0);
     std::thread::sleep(Duration::from_secs(5));
@@ -243,13 +228,10 @@ fn the_agent_reconnects_after_the_simulator_restarts_and_marks_the_gap() {
 #[test]
 fn check_reads_every_block_and_names_what_a_device_refuses() {
     let scratch = Scratch::new("check");
-    let scenario = scenario(&scratch, 0.001);
     // The simulated gateway has nothing at holding register 500 of rtu-east.
-    let mut text = std::fs::read_to_string(&scenario).unwrap();
-    text.push_str(
-        "[[event]]\nat_s = 0.0\naction = \"device_refuses\"\ndevice = \"rtu-east\"\nexception_code = 2\ntable = \"holding\"\naddress = 500\ncount = 2\n",
-    );
-    std::fs::write(&scenario, text).unwrap();
+    let scenario = one_leak(0.001)
+        .device_refuses_span(0.0, "rtu-east", 2, "holding", 500, Some(2))
+        .write(&scratch);
     let (_sim, address) = start_sim(&scratch, &scenario, "127.0.0.1:0");
     let check = |name: &str, site: &str, offline: bool| {
         let path = scratch.write(&format!("{name}.toml"), site);

@@ -15,13 +15,14 @@
 //! (acquisition, interop), and an hour of simulated time runs in a moment
 //! here, where it would take an hour of wall time through the daemon.
 
-use crate::util::Scratch;
+use crate::util::{ScenarioBuilder, ScenarioTank, Scratch};
 use leaktally::acquire::poller::flag;
 use leaktally::acquire::sample::TankSample;
 use leaktally::estimate::{Estimate, LeakParams, Method, Reason, Warning};
 use leaktally::estimator::Estimator;
 use leaktally_sim::plant::Plant;
 use leaktally_sim::registers::RegisterImage;
+use std::path::Path;
 
 /// An invented upright tank: 3 m across, 5 m tall, diesel, an open vent, a
 /// 4-20 mA level gauge of stated accuracy ±4 mm quantised to 0.3 mm.
@@ -112,23 +113,22 @@ impl Conditions {
     }
 
     fn scenario(&self) -> String {
-        let mut text = format!(
-            "site = \"site.toml\"\nstep_ms = 100\nseed = {}\n[[tank]]\nid = \"BC-1\"\ninitial_level_m = {}\nlevel_noise_m = {}\nlevel_bias_m = {}\nlevel_drift_m_per_h = {}\n",
-            self.seed, self.initial_level_m, self.noise_m, self.bias_m, self.drift_m_per_h
-        );
-        if let Some(mm) = self.hole_mm {
-            text += &format!(
-                "[[event]]\nat_s = {LEAK_AT_S}\naction = \"leak_opens\"\ntank = \"BC-1\"\ndiameter_mm = {mm}\nheight_m = 0.3\ncd = {}\n",
-                self.cd
+        let mut scenario = ScenarioBuilder::for_site(Path::new("site.toml"))
+            .step_ms(100)
+            .seed(self.seed)
+            .tank(
+                ScenarioTank::new("BC-1", self.initial_level_m)
+                    .level_noise_m(self.noise_m)
+                    .level_bias_m(self.bias_m)
+                    .level_drift_m_per_h(self.drift_m_per_h),
             );
+        if let Some(mm) = self.hole_mm {
+            scenario = scenario.leak_opens(LEAK_AT_S, "BC-1", mm, 0.3, self.cd);
         }
         if let Some(after) = self.stops_after_s {
-            text += &format!(
-                "[[event]]\nat_s = {}\naction = \"leak_closes\"\ntank = \"BC-1\"\n",
-                LEAK_AT_S + after
-            );
+            scenario = scenario.leak_closes(LEAK_AT_S + after, "BC-1");
         }
-        text
+        scenario.text()
     }
 }
 

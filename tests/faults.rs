@@ -6,8 +6,8 @@
 //! truth (its physics is checked against the analytic Torricelli solution in
 //! sim/src/physics.rs).
 
-use crate::tracking::{Plant, event_id, event_of, rel};
-use crate::util::{Server, free_port, http, now_ms, wait_for, with_web};
+use crate::tracking::{Plant, event_id, event_of, rel, three_leaks};
+use crate::util::{LeakOpen, ScenarioBuilder, Server, free_port, http, now_ms, wait_for, with_web};
 use leaktally::acquire::sample::{Quality, TankSample};
 use std::path::{Path, PathBuf};
 use std::process::Command;
@@ -16,53 +16,20 @@ use std::time::{Duration, Instant};
 /// The issue's bound on an event total once data is back.
 const TOTAL_BOUND: f64 = 0.02;
 
-/// Acquisition faults, one after another on a timeline (seconds into the
-/// simulator's run). The link and device faults hit devices, the sensor
-/// faults single transmitters.
-const ACQUISITION_FAULTS: &str = r#"
-[[event]]
-at_s = 10.0
-action = "link_drops"
-device = "rtu-west"
-duration_s = 6.0
-[[event]]
-at_s = 20.0
-action = "device_slows"
-device = "rtu-east"
-duration_s = 6.0
-reply_delay_ms = 1500
-[[event]]
-at_s = 30.0
-action = "sensor_garbage"
-tank = "FF-T14"
-sensor = "level"
-[[event]]
-at_s = 36.0
-action = "sensor_recovers"
-tank = "FF-T14"
-sensor = "level"
-[[event]]
-at_s = 40.0
-action = "sensor_reads"
-tank = "FF-T12"
-sensor = "level"
-value_si = 9.5
-[[event]]
-at_s = 46.0
-action = "sensor_recovers"
-tank = "FF-T12"
-sensor = "level"
-[[event]]
-at_s = 50.0
-action = "sensor_sticks"
-tank = "FF-T12"
-sensor = "level"
-[[event]]
-at_s = 62.0
-action = "sensor_recovers"
-tank = "FF-T12"
-sensor = "level"
-"#;
+/// The three leaks with acquisition faults, one after another on a
+/// timeline (seconds into the simulator's run). The link and device faults
+/// hit devices, the sensor faults single transmitters.
+fn acquisition_faults() -> ScenarioBuilder {
+    three_leaks()
+        .link_drops(10.0, "rtu-west", 6.0)
+        .device_slows(20.0, "rtu-east", 6.0, 1500)
+        .sensor_garbage(30.0, "FF-T14", "level")
+        .sensor_recovers(36.0, "FF-T14", "level")
+        .sensor_reads(40.0, "FF-T12", "level", 9.5)
+        .sensor_recovers(46.0, "FF-T12", "level")
+        .sensor_sticks(50.0, "FF-T12", "level")
+        .sensor_recovers(62.0, "FF-T12", "level")
+}
 
 /// The stored samples of `tank` from `from_ms` on.
 pub(crate) fn samples(db: &Path, tank: &str, from_ms: i64) -> Vec<TankSample> {
@@ -124,19 +91,20 @@ fn total_against_truth(plant: &Plant, id: i64, tank: &str) -> (f64, f64) {
 fn link_drops_a_slow_device_and_failed_sensors_are_flagged_and_ridden_out() {
     // A stuck level is declared after 5 s without change here (120 s in the
     // demo site), so the 12 s stuck spell shows.
-    let plant = Plant::start_with("faults-acquisition", ACQUISITION_FAULTS, |site| {
+    let plant = Plant::start_with("faults-acquisition", acquisition_faults(), |site| {
         site.replace("stuck_after_s = 120", "stuck_after_s = 5")
     });
     let mut daemon = plant.daemon("daemon");
     plant.wait_until(3.0);
     let mut events = Vec::new();
     for (tank, d, z) in [
-        ("FF-T12", "40", "0.3"),
-        ("FF-T14", "40", "0.2"),
-        ("FF-T20", "35", "0.5"),
+        ("FF-T12", 40.0, 0.3),
+        ("FF-T14", 40.0, 0.2),
+        ("FF-T20", 35.0, 0.5),
     ] {
         let since = plant.leak_start(tank);
-        events.push((tank, event_id(&plant.open_leak(tank, Some(d), z, &since))));
+        let request = LeakOpen::tank(tank).hole(d, z, 0.61).since(&since);
+        events.push((tank, event_id(&plant.open_leak(request))));
     }
     plant.wait_until(75.0);
     assert_running(&mut daemon);
@@ -302,7 +270,7 @@ pub(crate) fn get(web: &str, path: &str) -> String {
 #[test]
 fn a_locked_database_and_a_full_disk_lose_nothing_and_heal_by_themselves() {
     let web = format!("127.0.0.1:{}", free_port());
-    let mut plant = Plant::start_with("faults-store", "", |site| with_web(&site, &web));
+    let mut plant = Plant::start_with("faults-store", three_leaks(), |site| with_web(&site, &web));
     let disk = match SmallDisk::mount(plant.scratch.path("small-disk"), 16) {
         Ok(disk) => disk,
         // .ci/run sets this once it has seen that a mount works here, so in
@@ -317,7 +285,8 @@ fn a_locked_database_and_a_full_disk_lose_nothing_and_heal_by_themselves() {
     let mut daemon = plant.daemon("daemon");
     plant.wait_until(3.0);
     let since = plant.leak_start("FF-T12");
-    let id = event_id(&plant.open_leak("FF-T12", Some("40"), "0.3", &since));
+    let id =
+        event_id(&plant.open_leak(LeakOpen::tank("FF-T12").hole(40.0, 0.3, 0.61).since(&since)));
 
     // Another program holds the write lock for 8 s.
     plant.wait_until(8.0);
@@ -495,57 +464,21 @@ fn a_locked_database_and_a_full_disk_lose_nothing_and_heal_by_themselves() {
     drop(disk);
 }
 
-/// Modbus trouble, one kind after another: a busy device, a device that
-/// answers more registers than asked, a link that drops, an impossible
-/// level step, a NaN level, and a device that refuses a read spanning a
-/// register it does not have.
-const MODBUS_TROUBLE: &str = r#"
-[[event]]
-at_s = 8.0
-action = "device_refuses"
-device = "rtu-east"
-exception_code = 6
-duration_s = 3.0
-[[event]]
-at_s = 14.0
-action = "device_miscounts"
-device = "rtu-west"
-extra_values = 2
-duration_s = 3.0
-[[event]]
-at_s = 20.0
-action = "link_drops"
-device = "rtu-west"
-duration_s = 5.0
-[[event]]
-at_s = 20.0
-action = "sensor_reads"
-tank = "FF-T12"
-sensor = "level"
-value_si = 1.0
-[[event]]
-at_s = 23.0
-action = "sensor_recovers"
-tank = "FF-T12"
-sensor = "level"
-[[event]]
-at_s = 27.0
-action = "sensor_garbage"
-tank = "FF-T14"
-sensor = "level"
-[[event]]
-at_s = 30.0
-action = "sensor_recovers"
-tank = "FF-T14"
-sensor = "level"
-[[event]]
-at_s = 33.0
-action = "device_refuses"
-device = "rtu-east"
-exception_code = 2
-table = "holding"
-address = 15
-"#;
+/// The three leaks with Modbus trouble, one kind after another: a busy
+/// device, a device that answers more registers than asked, a link that
+/// drops, an impossible level step, a NaN level, and a device that refuses
+/// a read spanning a register it does not have.
+fn modbus_trouble() -> ScenarioBuilder {
+    three_leaks()
+        .device_refuses(8.0, "rtu-east", 6, Some(3.0))
+        .device_miscounts(14.0, "rtu-west", 2, 3.0)
+        .link_drops(20.0, "rtu-west", 5.0)
+        .sensor_reads(20.0, "FF-T12", "level", 1.0)
+        .sensor_recovers(23.0, "FF-T12", "level")
+        .sensor_garbage(27.0, "FF-T14", "level")
+        .sensor_recovers(30.0, "FF-T14", "level")
+        .device_refuses_span(33.0, "rtu-east", 2, "holding", 15, None)
+}
 
 /// Each kind of trouble is flagged in the stored samples for its window,
 /// and the log says it once when it starts and once when it ends, with
@@ -557,7 +490,7 @@ fn modbus_trouble_is_flagged_and_logged_once_per_change() {
     // read of rtu-east's holding registers (10..21: FF-T14's level, temperature
     // at 14 and pressure moved to 20) spans unmapped 15..19;
     // the simulator serves zeros there, and from 33 s refuses register 15.
-    let plant = Plant::start_with("faults-modbus", MODBUS_TROUBLE, |site| {
+    let plant = Plant::start_with("faults-modbus", modbus_trouble(), |site| {
         site.replacen("address = 12,", "address = 20,", 1)
     });
     let mut daemon = plant.daemon("daemon");

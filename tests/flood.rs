@@ -7,7 +7,7 @@
 //! not reconnect ("Too many open files").
 
 use crate::faults::{assert_running, get, longest_gap_s, metric, samples};
-use crate::tracking::Plant;
+use crate::tracking::{Plant, three_leaks};
 use crate::util::{free_port, http, start_sim, with_web};
 use leaktally::web::server::{HEADER_TIMEOUT, MAX_CONNECTIONS};
 use std::io::{Read, Write};
@@ -67,7 +67,7 @@ fn idle_and_slow_sockets_neither_lock_out_a_client_nor_starve_the_pollers() {
         / 2;
     let (idle_n, slow_n) = (IDLE.min(room), SLOW.min(room / 6));
     let web = format!("127.0.0.1:{}", free_port());
-    let mut plant = Plant::start_with("flood", "", |site| with_web(&site, &web));
+    let mut plant = Plant::start_with("flood", three_leaks(), |site| with_web(&site, &web));
     let sim_address = {
         let site = std::fs::read_to_string(&plant.site).unwrap();
         let line = site.lines().find(|l| l.starts_with("address = ")).unwrap();

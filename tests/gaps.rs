@@ -7,8 +7,8 @@
 //! and a hole plugged while the daemon is down. And a back-dated event's
 //! band must hold the truth from its first sample (issue 13).
 
-use crate::tracking::{Plant, event_id, event_of};
-use crate::util::Truth;
+use crate::tracking::{Plant, event_id, event_of, three_leaks};
+use crate::util::{LeakOpen, Truth};
 use leaktally::estimate::Figures;
 use serde_json::Value;
 use std::path::Path;
@@ -68,26 +68,20 @@ fn warnings(e: &Value) -> Vec<String> {
 fn a_leak_that_stops_during_a_link_drop_does_not_inflate_the_total() {
     let plant = Plant::start_with(
         "gap-drop",
-        r#"
-[[event]]
-at_s = 12.0
-action = "link_drops"
-device = "rtu-east"
-duration_s = 25.0
-[[event]]
-at_s = 15.0
-action = "leak_closes"
-tank = "FF-T12"
-"#,
+        three_leaks()
+            .link_drops(12.0, "rtu-east", 25.0)
+            .leak_closes(15.0, "FF-T12"),
         |site| site,
     );
     let _daemon = plant.daemon("daemon");
     plant.wait_until(3.0);
     let since = plant.leak_start("FF-T12");
-    let id = event_id(&plant.open_leak("FF-T12", Some("40"), "0.3", &since));
+    let id =
+        event_id(&plant.open_leak(LeakOpen::tank("FF-T12").hole(40.0, 0.3, 0.61).since(&since)));
     // FF-T20, on the other device, back-dated to its own leak's start.
     let since = plant.leak_start("FF-T20");
-    let back_dated = event_id(&plant.open_leak("FF-T20", Some("35"), "0.5", &since));
+    let back_dated =
+        event_id(&plant.open_leak(LeakOpen::tank("FF-T20").hole(35.0, 0.5, 0.61).since(&since)));
 
     // During the drop: the figures are said to be stale, in the JSON and
     // the text alike.
@@ -159,18 +153,14 @@ tank = "FF-T12"
 fn a_hole_plugged_while_the_daemon_is_down_is_not_bridged_on() {
     let plant = Plant::start_with(
         "gap-kill",
-        r#"
-[[event]]
-at_s = 17.0
-action = "leak_closes"
-tank = "FF-T12"
-"#,
+        three_leaks().leak_closes(17.0, "FF-T12"),
         |site| site,
     );
     let mut daemon = plant.daemon("daemon-1");
     plant.wait_until(3.0);
     let since = plant.leak_start("FF-T12");
-    let id = event_id(&plant.open_leak("FF-T12", Some("40"), "0.3", &since));
+    let id =
+        event_id(&plant.open_leak(LeakOpen::tank("FF-T12").hole(40.0, 0.3, 0.61).since(&since)));
     plant.wait_until(15.0);
     daemon.child.kill().expect("SIGKILL the daemon");
     let _ = daemon.child.wait();
@@ -212,19 +202,14 @@ tank = "FF-T12"
 fn a_long_gap_in_a_leak_is_bridged_and_said_so() {
     let plant = Plant::start_with(
         "gap-long",
-        r#"
-[[event]]
-at_s = 8.0
-action = "link_drops"
-device = "rtu-west"
-duration_s = 40.0
-"#,
+        three_leaks().link_drops(8.0, "rtu-west", 40.0),
         |site| site,
     );
     let _daemon = plant.daemon("daemon");
     plant.wait_until(3.0);
     let since = plant.leak_start("FF-T20");
-    let id = event_id(&plant.open_leak("FF-T20", Some("35"), "0.5", &since));
+    let id =
+        event_id(&plant.open_leak(LeakOpen::tank("FF-T20").hole(35.0, 0.5, 0.61).since(&since)));
     plant.wait_until(55.0);
     let status = plant.status(Some(id));
     let e = &event_of(&status, id)["estimate"];

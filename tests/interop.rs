@@ -18,7 +18,7 @@
 //! elsewhere) and serial Modbus.
 
 use crate::python_env::{python, script};
-use crate::util::{Scratch, Server, repo_root, run, toml_path};
+use crate::util::{ScenarioBuilder, ScenarioTank, Scratch, Server, repo_root, run};
 use leaktally::registers::WordOrder;
 use serde_json::Value;
 use std::path::Path;
@@ -220,34 +220,18 @@ const T12_LEVEL_M: f64 = 2.5;
 
 /// A scenario for the demo site: no leak, FF-T14 under a steady blanket with
 /// a little sensor noise, FF-T12 noise-free with its leak flag raised.
-fn demo_scenario(site: &Path) -> String {
-    format!(
-        r#"# Written by tests/interop.rs: the demo site at rest, for the pymodbus client.
-site = {site}
-seed = 7
-
-[[tank]]
-id = "FF-T12"
-initial_level_m = {T12_LEVEL_M:?}
-
-[[tank]]
-id = "FF-T14"
-initial_level_m = {T14_LEVEL_M:?}
-headspace_kpa = {T14_HEADSPACE_KPA:?}
-level_noise_m = {T14_LEVEL_NOISE_M:?}
-pressure_noise_pa = {T14_PRESSURE_NOISE_PA:?}
-
-[[tank]]
-id = "FF-T20"
-initial_level_m = 3.0
-
-[[event]]
-at_s = 0.0
-action = "raise_flag"
-tank = "FF-T12"
-"#,
-        site = toml_path(site)
-    )
+fn demo_scenario(site: &Path) -> ScenarioBuilder {
+    ScenarioBuilder::for_site(site)
+        .seed(7)
+        .tank(ScenarioTank::new("FF-T12", T12_LEVEL_M))
+        .tank(
+            ScenarioTank::new("FF-T14", T14_LEVEL_M)
+                .headspace_kpa(T14_HEADSPACE_KPA)
+                .level_noise_m(T14_LEVEL_NOISE_M)
+                .pressure_noise_pa(T14_PRESSURE_NOISE_PA),
+        )
+        .tank(ScenarioTank::new("FF-T20", 3.0))
+        .raise_flag(0.0, "FF-T12")
 }
 
 /// pymodbus's name for a word order.
@@ -286,7 +270,7 @@ fn pymodbus_client_reads_the_simulator() {
         .sensor;
     let coil = t12.leak_flag.expect("FF-T12 has a leak flag").address;
 
-    let scenario = scratch.write("scenario.toml", &demo_scenario(&site_path));
+    let scenario = demo_scenario(&site_path).write(&scratch);
     let mut server = Server::start(
         "leaktally-sim",
         Command::new(&sim)

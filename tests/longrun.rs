@@ -7,7 +7,7 @@
 //! sim/src/physics.rs).
 
 use crate::tracking::{Plant, event_id, event_of, rel};
-use crate::util::{Scratch, Server, binary, now_ms, run, wait_for};
+use crate::util::{LeakOpen, Scratch, Server, binary, now_ms, run, wait_for};
 use std::path::{Path, PathBuf};
 use std::process::Command;
 use std::time::{Duration, Instant};
@@ -82,20 +82,10 @@ fn a_wall_clock_stepped_back_and_forward_mid_event_changes_nothing() {
     };
     plant.wait_until(3.0);
     let since = plant.leak_start("FF-T12");
-    let opened = cli(&[
-        "leak",
-        "open",
-        "--tank",
-        "FF-T12",
-        "--hole-diameter",
-        "40",
-        "--hole-height",
-        "0.3",
-        "--cd",
-        "0.61",
-        "--since",
-        &since,
-    ]);
+    let opened = cli(&LeakOpen::tank("FF-T12")
+        .hole(40.0, 0.3, 0.61)
+        .since(&since)
+        .args());
     assert!(opened.status.success(), "{}", opened.stderr);
     let id = event_id(&opened.stdout);
 
@@ -181,18 +171,7 @@ fn a_request_made_as_the_daemon_dies_is_applied_with_its_time() {
     let _ = daemon.child.wait();
     let asked = now_ms();
     let began = Instant::now();
-    let open = plant.cli(&[
-        "leak",
-        "open",
-        "--tank",
-        "FF-T12",
-        "--hole-diameter",
-        "40",
-        "--hole-height",
-        "0.3",
-        "--cd",
-        "0.61",
-    ]);
+    let open = plant.cli(&LeakOpen::tank("FF-T12").hole(40.0, 0.3, 0.61).args());
     let waited = began.elapsed();
     assert!(!open.status.success(), "{}", open.stdout);
     assert!(
@@ -329,7 +308,7 @@ fn a_damaged_database_is_refused_and_left_untouched() {
         "the damaged file was written to"
     );
 
-    let leak = crate::util::leaktally(&scratch, &db, &["leak", "open", "--tank", "FF-T12"]);
+    let leak = crate::util::leaktally(&scratch, &db, &LeakOpen::tank("FF-T12").args());
     assert!(!leak.status.success());
     assert!(
         leak.stderr.contains("is damaged") && leak.stderr.contains("A damaged database"),

@@ -12,7 +12,7 @@
 //! and outputs that must never replace an input.
 
 use crate::tracking::{Plant, event_id, rel};
-use crate::util::{Scratch, binary, run};
+use crate::util::{LeakOpen, Scratch, binary, run};
 use serde_json::Value;
 use std::path::Path;
 use std::process::Command;
@@ -23,7 +23,14 @@ fn replays_reproduce_the_live_figures_and_the_truth() {
     let _daemon = plant.daemon("daemon");
     plant.wait_until(3.0);
     let since = plant.leak_start("FF-T12");
-    let id = event_id(&plant.open_leak("FF-T12", None, "0.3", &since));
+    let id = event_id(
+        &plant.open_leak(
+            LeakOpen::tank("FF-T12")
+                .height_m(0.3)
+                .cd(0.61)
+                .since(&since),
+        ),
+    );
     plant.wait_until(30.0);
     plant.ok(&["leak", "close", &id.to_string()]);
     let ev = id.to_string();

@@ -4,63 +4,35 @@
 //! sim/src/physics.rs).
 
 use crate::util::{
-    Finished, Scratch, Server, Truth, binary, demo_site, leaktally, leaktally_ok, now_ms,
-    start_sim, toml_path,
+    Finished, LeakOpen, ScenarioBuilder, ScenarioTank, Scratch, Server, Truth, binary, demo_site,
+    leaktally, leaktally_ok, now_ms, start_sim,
 };
 use serde_json::Value;
 use std::path::{Path, PathBuf};
 use std::process::Command;
 use std::time::{Duration, Instant};
 
-/// Every tank of the demo site leaking from 1 s into the run, then the
-/// `[[event]]` tables in `extra`.
-pub(crate) fn scenario(scratch: &Scratch, extra: &str) -> PathBuf {
-    let site = scratch.write("sim-site.toml", &demo_site("127.0.0.1:1"));
-    scratch.write(
-        "scenario.toml",
-        &format!(
-            r#"site = {site}
-seed = 11
-[[tank]]
-id = "FF-T12"
-initial_level_m = 4.2
-level_noise_m = 0.001
-[[tank]]
-id = "FF-T14"
-initial_level_m = 2.0
-headspace_kpa = 15.0
-level_noise_m = 0.001
-pressure_noise_pa = 30.0
-[[tank]]
-id = "FF-T20"
-initial_level_m = 6.0
-level_noise_m = 0.001
-pressure_noise_pa = 30.0
-[[event]]
-at_s = 1.0
-action = "leak_opens"
-tank = "FF-T12"
-diameter_mm = 40.0
-height_m = 0.3
-cd = 0.61
-[[event]]
-at_s = 1.0
-action = "leak_opens"
-tank = "FF-T14"
-diameter_mm = 40.0
-height_m = 0.2
-cd = 0.61
-[[event]]
-at_s = 1.0
-action = "leak_opens"
-tank = "FF-T20"
-diameter_mm = 35.0
-height_m = 0.5
-cd = 0.61
-{extra}"#,
-            site = toml_path(&site)
-        ),
-    )
+/// Every tank of the demo site leaking from 1 s into the run, through the
+/// holes the tests' `leak open` gives (Cd 0.61); tests add their own events
+/// after these.
+pub(crate) fn three_leaks() -> ScenarioBuilder {
+    ScenarioBuilder::demo()
+        .seed(11)
+        .tank(ScenarioTank::new("FF-T12", 4.2).level_noise_m(0.001))
+        .tank(
+            ScenarioTank::new("FF-T14", 2.0)
+                .headspace_kpa(15.0)
+                .level_noise_m(0.001)
+                .pressure_noise_pa(30.0),
+        )
+        .tank(
+            ScenarioTank::new("FF-T20", 6.0)
+                .level_noise_m(0.001)
+                .pressure_noise_pa(30.0),
+        )
+        .leak_opens(1.0, "FF-T12", 40.0, 0.3, 0.61)
+        .leak_opens(1.0, "FF-T14", 40.0, 0.2, 0.61)
+        .leak_opens(1.0, "FF-T20", 35.0, 0.5, 0.61)
 }
 
 /// The simulator and a database for a daemon, in a scratch folder.
@@ -73,19 +45,21 @@ pub(crate) struct Plant {
 }
 
 impl Plant {
+    /// The simulator playing [`three_leaks`].
     pub(crate) fn start(label: &str) -> Self {
-        Self::start_with(label, "", |site| site)
+        Self::start_with(label, three_leaks(), |site| site)
     }
 
-    /// As [`Plant::start`], with more simulator events (`[[event]]`
-    /// tables) and the daemon's site config passed through `edit`.
+    /// As [`Plant::start`], with the simulator playing `scenario` (usually
+    /// [`three_leaks`] with more events) and the daemon's site config
+    /// passed through `edit`.
     pub(crate) fn start_with(
         label: &str,
-        events: &str,
+        scenario: ScenarioBuilder,
         edit: impl FnOnce(String) -> String,
     ) -> Self {
         let scratch = Scratch::new(label);
-        let (sim, address) = start_sim(&scratch, &scenario(&scratch, events), "127.0.0.1:0");
+        let (sim, address) = start_sim(&scratch, &scenario.write(&scratch), "127.0.0.1:0");
         // The simulator's clock starts as it listens. Taken after the start,
         // not before: finding the binary may wait on a build.
         let started_ms = now_ms();
@@ -150,32 +124,9 @@ impl Plant {
         Truth::load(&self.scratch.path("truth.csv"))
     }
 
-    /// `leak open` on `tank` with Cd 0.61 (the simulator's), the hole's
-    /// diameter (mm; none to have it fitted) and height (m), back-dated to
-    /// `since`; returns the daemon's reply.
-    pub(crate) fn open_leak(
-        &self,
-        tank: &str,
-        diameter_mm: Option<&str>,
-        height_m: &str,
-        since: &str,
-    ) -> String {
-        let mut args = vec![
-            "leak",
-            "open",
-            "--tank",
-            tank,
-            "--hole-height",
-            height_m,
-            "--cd",
-            "0.61",
-            "--since",
-            since,
-        ];
-        if let Some(d) = diameter_mm {
-            args.extend(["--hole-diameter", d]);
-        }
-        self.ok(&args)
+    /// `leak open` as `request` says; the daemon's reply.
+    pub(crate) fn open_leak(&self, request: LeakOpen) -> String {
+        self.ok(&request.args())
     }
 
     /// Stops the simulator with SIGTERM and returns its request counts by
@@ -240,11 +191,19 @@ fn live_totals_match_the_truth_for_known_fitted_and_back_dated_holes() {
     let _daemon = plant.daemon("daemon");
     plant.wait_until(3.0);
     let since = plant.leak_start("FF-T12");
-    let known = event_id(&plant.open_leak("FF-T12", Some("40"), "0.3", &since));
+    let known =
+        event_id(&plant.open_leak(LeakOpen::tank("FF-T12").hole(40.0, 0.3, 0.61).since(&since)));
     let since = plant.leak_start("FF-T14");
-    let fitted = event_id(&plant.open_leak("FF-T14", None, "0.2", &since));
+    let fitted = event_id(
+        &plant.open_leak(
+            LeakOpen::tank("FF-T14")
+                .height_m(0.2)
+                .cd(0.61)
+                .since(&since),
+        ),
+    );
     plant.wait_until(36.0);
-    let reply = plant.open_leak("FF-T20", Some("35"), "0.5", "30s");
+    let reply = plant.open_leak(LeakOpen::tank("FF-T20").hole(35.0, 0.5, 0.61).since("30s"));
     assert!(reply.contains("back-dated"), "{reply}");
     let back_dated = event_id(&reply);
     plant.wait_until(70.0);
@@ -330,7 +289,7 @@ fn live_totals_match_the_truth_for_known_fitted_and_back_dated_holes() {
 #[test]
 fn a_killed_daemon_resumes_with_a_continuous_total_and_no_sample_twice() {
     let mut plant = Plant::start("kill");
-    let refused = plant.cli(&["leak", "open", "--tank", "FF-T12"]);
+    let refused = plant.cli(&LeakOpen::tank("FF-T12").args());
     assert!(!refused.status.success());
     assert!(
         refused
@@ -343,7 +302,8 @@ fn a_killed_daemon_resumes_with_a_continuous_total_and_no_sample_twice() {
     let mut daemon = plant.daemon("daemon-1");
     plant.wait_until(3.0);
     let since = plant.leak_start("FF-T12");
-    let id = event_id(&plant.open_leak("FF-T12", Some("40"), "0.3", &since));
+    let id =
+        event_id(&plant.open_leak(LeakOpen::tank("FF-T12").hole(40.0, 0.3, 0.61).since(&since)));
     plant.wait_until(25.0);
     let before = event_of(&plant.status(Some(id)), id)["estimate"]["released_best_kg"]
         .as_f64()

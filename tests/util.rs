@@ -566,3 +566,569 @@ pub fn wait_for(what: &str, limit: Duration, mut ready: impl FnMut() -> bool) {
         std::thread::sleep(Duration::from_millis(100));
     }
 }
+
+/// A simulator scenario file, built from what a test varies: the site, the
+/// seed, each tank's `[[tank]]` entry, and the `[[event]]` script in the
+/// order given (the simulator keeps same-time events in file order). Each
+/// event method is named after the action it writes and takes the time
+/// first, seconds into the run; sim/scenarios/demo.toml explains the keys.
+pub struct ScenarioBuilder {
+    site: ScenarioSite,
+    step_ms: Option<u64>,
+    seed: Option<u64>,
+    tanks: Vec<ScenarioTank>,
+    events: Vec<Vec<(&'static str, String)>>,
+}
+
+enum ScenarioSite {
+    /// config/demo.toml with its devices pointed at 127.0.0.1:1 (the
+    /// simulator serves them all on its own listener), written beside the
+    /// scenario by [`ScenarioBuilder::write`].
+    Demo,
+    /// A site config already on disk.
+    File(PathBuf),
+}
+
+impl ScenarioBuilder {
+    /// A scenario of the demo site; it needs a `[[tank]]` entry for each of
+    /// FF-T12, FF-T14 and FF-T20.
+    pub fn demo() -> Self {
+        Self::new(ScenarioSite::Demo)
+    }
+
+    /// A scenario of the site config at `path` (relative to the scenario
+    /// file, or absolute).
+    pub fn for_site(path: &Path) -> Self {
+        Self::new(ScenarioSite::File(path.to_owned()))
+    }
+
+    fn new(site: ScenarioSite) -> Self {
+        Self {
+            site,
+            step_ms: None,
+            seed: None,
+            tanks: Vec::new(),
+            events: Vec::new(),
+        }
+    }
+
+    pub fn step_ms(mut self, step_ms: u64) -> Self {
+        self.step_ms = Some(step_ms);
+        self
+    }
+
+    /// The seed of the sensor noise.
+    pub fn seed(mut self, seed: u64) -> Self {
+        self.seed = Some(seed);
+        self
+    }
+
+    pub fn tank(mut self, tank: ScenarioTank) -> Self {
+        self.tanks.push(tank);
+        self
+    }
+
+    fn event(mut self, at_s: f64, action: &str, keys: Vec<(&'static str, String)>) -> Self {
+        let mut event = vec![("at_s", toml_number(at_s)), ("action", toml_text(action))];
+        event.extend(keys);
+        self.events.push(event);
+        self
+    }
+
+    /// A hole of `diameter_mm` opens `height_m` above the tank's bottom,
+    /// with discharge coefficient `cd`.
+    pub fn leak_opens(
+        self,
+        at_s: f64,
+        tank: &str,
+        diameter_mm: f64,
+        height_m: f64,
+        cd: f64,
+    ) -> Self {
+        self.event(
+            at_s,
+            "leak_opens",
+            vec![
+                ("tank", toml_text(tank)),
+                ("diameter_mm", toml_number(diameter_mm)),
+                ("height_m", toml_number(height_m)),
+                ("cd", toml_number(cd)),
+            ],
+        )
+    }
+
+    pub fn leak_closes(self, at_s: f64, tank: &str) -> Self {
+        self.event(at_s, "leak_closes", vec![("tank", toml_text(tank))])
+    }
+
+    /// Requests for `device` get no reply for `duration_s`.
+    pub fn link_drops(self, at_s: f64, device: &str, duration_s: f64) -> Self {
+        self.event(
+            at_s,
+            "link_drops",
+            vec![
+                ("device", toml_text(device)),
+                ("duration_s", toml_number(duration_s)),
+            ],
+        )
+    }
+
+    /// For `duration_s`, `device` answers every request `reply_delay_ms` late.
+    pub fn device_slows(
+        self,
+        at_s: f64,
+        device: &str,
+        duration_s: f64,
+        reply_delay_ms: u64,
+    ) -> Self {
+        self.event(
+            at_s,
+            "device_slows",
+            vec![
+                ("device", toml_text(device)),
+                ("duration_s", toml_number(duration_s)),
+                ("reply_delay_ms", reply_delay_ms.to_string()),
+            ],
+        )
+    }
+
+    /// For `duration_s` (`None`: the rest of the run), `device` answers
+    /// every read with Modbus exception `exception_code`.
+    pub fn device_refuses(
+        self,
+        at_s: f64,
+        device: &str,
+        exception_code: u8,
+        duration_s: Option<f64>,
+    ) -> Self {
+        let mut keys = vec![
+            ("device", toml_text(device)),
+            ("exception_code", exception_code.to_string()),
+        ];
+        keys.extend(duration_s.map(|d| ("duration_s", toml_number(d))));
+        self.event(at_s, "device_refuses", keys)
+    }
+
+    /// For the rest of the run, `device` answers with Modbus exception
+    /// `exception_code` the reads of `table` ("holding", "input", "coil",
+    /// "discrete_input") that touch `address` and the `count` after it
+    /// (`None`: the simulator's default, one).
+    pub fn device_refuses_span(
+        self,
+        at_s: f64,
+        device: &str,
+        exception_code: u8,
+        table: &str,
+        address: u16,
+        count: Option<u16>,
+    ) -> Self {
+        let mut keys = vec![
+            ("device", toml_text(device)),
+            ("exception_code", exception_code.to_string()),
+            ("table", toml_text(table)),
+            ("address", address.to_string()),
+        ];
+        keys.extend(count.map(|c| ("count", c.to_string())));
+        self.event(at_s, "device_refuses", keys)
+    }
+
+    /// For `duration_s`, `device` answers reads with `extra_values` more
+    /// values (fewer, negative) than asked.
+    pub fn device_miscounts(
+        self,
+        at_s: f64,
+        device: &str,
+        extra_values: i16,
+        duration_s: f64,
+    ) -> Self {
+        self.event(
+            at_s,
+            "device_miscounts",
+            vec![
+                ("device", toml_text(device)),
+                ("extra_values", extra_values.to_string()),
+                ("duration_s", toml_number(duration_s)),
+            ],
+        )
+    }
+
+    /// The tank's `sensor` ("level", "pressure", ...) freezes at its words.
+    pub fn sensor_sticks(self, at_s: f64, tank: &str, sensor: &str) -> Self {
+        self.sensor(at_s, "sensor_sticks", tank, sensor)
+    }
+
+    /// The tank's `sensor` shows NaN (the type's largest value for integers).
+    pub fn sensor_garbage(self, at_s: f64, tank: &str, sensor: &str) -> Self {
+        self.sensor(at_s, "sensor_garbage", tank, sensor)
+    }
+
+    /// The tank's `sensor` shows `value_si` (m, Pa, m³/s), as encoded.
+    pub fn sensor_reads(self, at_s: f64, tank: &str, sensor: &str, value_si: f64) -> Self {
+        self.event(
+            at_s,
+            "sensor_reads",
+            vec![
+                ("tank", toml_text(tank)),
+                ("sensor", toml_text(sensor)),
+                ("value_si", toml_number(value_si)),
+            ],
+        )
+    }
+
+    /// The tank's `sensor` shows the live value again.
+    pub fn sensor_recovers(self, at_s: f64, tank: &str, sensor: &str) -> Self {
+        self.sensor(at_s, "sensor_recovers", tank, sensor)
+    }
+
+    fn sensor(self, at_s: f64, action: &str, tank: &str, sensor: &str) -> Self {
+        self.event(
+            at_s,
+            action,
+            vec![("tank", toml_text(tank)), ("sensor", toml_text(sensor))],
+        )
+    }
+
+    /// Sets the tank's leak flag bit.
+    pub fn raise_flag(self, at_s: f64, tank: &str) -> Self {
+        self.event(at_s, "raise_flag", vec![("tank", toml_text(tank))])
+    }
+
+    /// The scenario's text, for a site config already on disk.
+    pub fn text(&self) -> String {
+        match &self.site {
+            ScenarioSite::File(site) => self.render(site),
+            ScenarioSite::Demo => {
+                panic!("a demo-site scenario is written with its site by `write`")
+            }
+        }
+    }
+
+    /// Writes the scenario to scenario.toml in the scratch folder (and the
+    /// demo site, if it is one, to sim-site.toml beside it); its path.
+    pub fn write(&self, scratch: &Scratch) -> PathBuf {
+        let text = match &self.site {
+            ScenarioSite::Demo => {
+                self.render(&scratch.write("sim-site.toml", &demo_site("127.0.0.1:1")))
+            }
+            ScenarioSite::File(site) => self.render(site),
+        };
+        scratch.write("scenario.toml", &text)
+    }
+
+    fn render(&self, site: &Path) -> String {
+        let mut text = format!("site = {}\n", toml_path(site));
+        if let Some(step_ms) = self.step_ms {
+            text += &format!("step_ms = {step_ms}\n");
+        }
+        if let Some(seed) = self.seed {
+            text += &format!("seed = {seed}\n");
+        }
+        let tables = self.tanks.iter().map(|t| ("tank", &t.keys));
+        for (table, keys) in tables.chain(self.events.iter().map(|e| ("event", e))) {
+            text += &format!("[[{table}]]\n");
+            for (key, value) in keys {
+                text += &format!("{key} = {value}\n");
+            }
+        }
+        text
+    }
+}
+
+/// One `[[tank]]` entry of a [`ScenarioBuilder`]: the tank's id and
+/// starting level, and the keys a test gives it besides.
+pub struct ScenarioTank {
+    keys: Vec<(&'static str, String)>,
+}
+
+impl ScenarioTank {
+    pub fn new(id: &str, initial_level_m: f64) -> Self {
+        Self {
+            keys: vec![
+                ("id", toml_text(id)),
+                ("initial_level_m", toml_number(initial_level_m)),
+            ],
+        }
+    }
+
+    fn key(mut self, key: &'static str, value: f64) -> Self {
+        self.keys.push((key, toml_number(value)));
+        self
+    }
+
+    /// The headspace's gauge pressure, held for the whole run.
+    pub fn headspace_kpa(self, kpa: f64) -> Self {
+        self.key("headspace_kpa", kpa)
+    }
+
+    /// The standard deviation of the level reading's noise.
+    pub fn level_noise_m(self, m: f64) -> Self {
+        self.key("level_noise_m", m)
+    }
+
+    /// The standard deviation of the pressure reading's noise.
+    pub fn pressure_noise_pa(self, pa: f64) -> Self {
+        self.key("pressure_noise_pa", pa)
+    }
+
+    /// A fixed offset of the level gauge.
+    pub fn level_bias_m(self, m: f64) -> Self {
+        self.key("level_bias_m", m)
+    }
+
+    /// A drift of the level gauge, growing with time.
+    pub fn level_drift_m_per_h(self, m_per_h: f64) -> Self {
+        self.key("level_drift_m_per_h", m_per_h)
+    }
+}
+
+/// A number as TOML writes it: Rust's `Debug` form, which reads back to
+/// the same `f64` bit for bit ("40.0", "0.61", "1e-5").
+fn toml_number(x: f64) -> String {
+    assert!(x.is_finite(), "a scenario number must be finite: {x}");
+    format!("{x:?}")
+}
+
+/// A TOML basic string (ids, actions, sensor and table names).
+fn toml_text(text: &str) -> String {
+    assert!(
+        !text.chars().any(char::is_control),
+        "a control character in {text:?}"
+    );
+    format!("\"{}\"", text.replace('\\', "\\\\").replace('"', "\\\""))
+}
+
+/// `leaktally leak open`'s arguments, built from what a test gives: the
+/// tank, and as it chooses the hole (or only its height and Cd, to have
+/// the diameter fitted), `--since` and a note. Numbers are written as
+/// Rust's `Display` writes them ("40", "0.3", "0.61").
+pub struct LeakOpen {
+    tank: String,
+    options: Vec<(&'static str, String)>,
+}
+
+impl LeakOpen {
+    pub fn tank(id: &str) -> Self {
+        Self {
+            tank: id.to_owned(),
+            options: Vec::new(),
+        }
+    }
+
+    fn option(mut self, name: &'static str, value: String) -> Self {
+        self.options.push((name, value));
+        self
+    }
+
+    /// The whole hole: `--hole-diameter` (mm), `--hole-height` (m) and
+    /// `--cd`, in the order [`ScenarioBuilder::leak_opens`] takes them.
+    pub fn hole(self, diameter_mm: f64, height_m: f64, cd: f64) -> Self {
+        self.option("--hole-diameter", diameter_mm.to_string())
+            .height_m(height_m)
+            .cd(cd)
+    }
+
+    /// The hole's height alone (its diameter then fitted).
+    pub fn height_m(self, height_m: f64) -> Self {
+        self.option("--hole-height", height_m.to_string())
+    }
+
+    pub fn cd(self, cd: f64) -> Self {
+        self.option("--cd", cd.to_string())
+    }
+
+    /// `--since`: a time (RFC 3339) or how long ago ("30s").
+    pub fn since(self, since: &str) -> Self {
+        self.option("--since", since.to_owned())
+    }
+
+    pub fn note(self, note: &str) -> Self {
+        self.option("--note", note.to_owned())
+    }
+
+    /// `leak open --tank TANK` and the options, in the order given.
+    pub fn args(&self) -> Vec<&str> {
+        let mut args = vec!["leak", "open", "--tank", self.tank.as_str()];
+        for (name, value) in &self.options {
+            args.extend([*name, value.as_str()]);
+        }
+        args
+    }
+}
+
+/// The builders write what the simulator and the CLI read: every event
+/// method's action, in the order given, and `leak open`'s options as
+/// written by hand before.
+#[test]
+fn the_builders_write_what_the_simulator_and_the_cli_read() {
+    use leaktally_sim::scenario::{EventKind, Fault, HoleSpec, Refusal, SensorRole, SimTable};
+    let scratch = Scratch::new("builders");
+    let path = ScenarioBuilder::demo()
+        .step_ms(20)
+        .seed(3)
+        .tank(ScenarioTank::new("FF-T12", 4.2).level_noise_m(0.001))
+        .tank(
+            ScenarioTank::new("FF-T14", 1.6)
+                .headspace_kpa(15.0)
+                .pressure_noise_pa(30.0),
+        )
+        .tank(
+            ScenarioTank::new("FF-T20", 5.1)
+                .level_bias_m(-0.002)
+                .level_drift_m_per_h(1e-5),
+        )
+        .leak_opens(1.0, "FF-T12", 40.0, 0.3, 0.61)
+        .link_drops(2.0, "rtu-west", 6.0)
+        .device_slows(3.0, "rtu-east", 4.0, 1500)
+        .device_refuses(4.0, "rtu-east", 6, Some(3.0))
+        .device_refuses_span(4.0, "rtu-east", 2, "holding", 500, Some(2))
+        .device_miscounts(5.0, "rtu-west", -1, 2.0)
+        .sensor_sticks(6.0, "FF-T12", "level")
+        .sensor_garbage(6.0, "FF-T14", "pressure")
+        .sensor_reads(7.0, "FF-T12", "level", 9.5)
+        .sensor_recovers(8.0, "FF-T12", "level")
+        .raise_flag(9.0, "FF-T12")
+        .leak_closes(10.0, "FF-T12")
+        .write(&scratch);
+    let s = leaktally_sim::scenario::load(&path).unwrap_or_else(|e| panic!("{e}"));
+    assert_eq!((s.step_ms, s.seed), (20, 3));
+    assert_eq!(
+        (s.tanks[0].level_noise_m, s.tanks[1].headspace_pa),
+        (0.001, 15_000.0)
+    );
+    assert_eq!(
+        (s.tanks[2].level_bias_m, s.tanks[2].level_drift_m_per_h),
+        (-0.002, 1e-5)
+    );
+    let level = |fault| EventKind::SensorFault {
+        tank: 0,
+        sensor: SensorRole::Level,
+        fault,
+    };
+    let expected = [
+        (
+            1.0,
+            EventKind::LeakOpens {
+                tank: 0,
+                hole: HoleSpec {
+                    diameter_m: leaktally::model::Length::millimetres(40.0).si(),
+                    height_m: 0.3,
+                    cd: 0.61,
+                },
+            },
+        ),
+        (
+            2.0,
+            EventKind::LinkDrops {
+                device: 1,
+                duration_s: 6.0,
+            },
+        ),
+        (
+            3.0,
+            EventKind::DeviceSlows {
+                device: 0,
+                duration_s: 4.0,
+                reply_delay_ms: 1500,
+            },
+        ),
+        (
+            4.0,
+            EventKind::DeviceRefuses {
+                device: 0,
+                duration_s: Some(3.0),
+                refusal: Refusal {
+                    code: 6,
+                    only: None,
+                },
+            },
+        ),
+        (
+            4.0,
+            EventKind::DeviceRefuses {
+                device: 0,
+                duration_s: None,
+                refusal: Refusal {
+                    code: 2,
+                    only: Some((SimTable::Holding, 500, 2)),
+                },
+            },
+        ),
+        (
+            5.0,
+            EventKind::DeviceMiscounts {
+                device: 1,
+                duration_s: Some(2.0),
+                extra_values: -1,
+            },
+        ),
+        (6.0, level(Fault::Stuck)),
+        (
+            6.0,
+            EventKind::SensorFault {
+                tank: 1,
+                sensor: SensorRole::Pressure,
+                fault: Fault::Garbage,
+            },
+        ),
+        (7.0, level(Fault::Reads(9.5))),
+        (8.0, level(Fault::None)),
+        (
+            9.0,
+            EventKind::Flag {
+                tank: 0,
+                raised: true,
+            },
+        ),
+        (10.0, EventKind::LeakCloses { tank: 0 }),
+    ];
+    let got: Vec<(f64, EventKind)> = s.events.into_iter().map(|e| (e.at_s, e.kind)).collect();
+    assert_eq!(got, expected);
+    // The text itself, for a site on disk: keys in the order given.
+    let text = ScenarioBuilder::for_site(Path::new("site.toml"))
+        .seed(1)
+        .tank(ScenarioTank::new("BC-1", 4.0).level_bias_m(0.001))
+        .leak_closes(12.5, "BC-1")
+        .text();
+    assert_eq!(
+        text,
+        "site = 'site.toml'\nseed = 1\n[[tank]]\nid = \"BC-1\"\ninitial_level_m = 4.0\nlevel_bias_m = 0.001\n\
+         [[event]]\nat_s = 12.5\naction = \"leak_closes\"\ntank = \"BC-1\"\n"
+    );
+
+    assert_eq!(
+        LeakOpen::tank("FF-T12")
+            .hole(40.0, 0.3, 0.61)
+            .since("30s")
+            .note("isolated")
+            .args(),
+        [
+            "leak",
+            "open",
+            "--tank",
+            "FF-T12",
+            "--hole-diameter",
+            "40",
+            "--hole-height",
+            "0.3",
+            "--cd",
+            "0.61",
+            "--since",
+            "30s",
+            "--note",
+            "isolated"
+        ]
+    );
+    assert_eq!(
+        LeakOpen::tank("FF-T14").height_m(0.2).cd(0.61).args(),
+        [
+            "leak",
+            "open",
+            "--tank",
+            "FF-T14",
+            "--hole-height",
+            "0.2",
+            "--cd",
+            "0.61"
+        ]
+    );
+}

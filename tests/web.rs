@@ -10,10 +10,10 @@
 //! page's rounding. The screenshot is kept as target/test-artifacts/web.png.
 
 use crate::python_env::{python, script, target_dir};
-use crate::tracking::event_of;
+use crate::tracking::{event_id, event_of};
 use crate::util::{
-    Finished, Scratch, demo_site, free_port, http, leaktally_ok, run, run_for, start_daemon,
-    start_sim, wait_for, with_web,
+    Finished, LeakOpen, Scratch, demo_site, free_port, http, leaktally_ok, run, run_for,
+    start_daemon, start_sim, wait_for, with_web,
 };
 use serde_json::Value;
 use std::path::{Path, PathBuf};
@@ -85,12 +85,6 @@ fn dump_dom(scratch: &Scratch, name: &str, url: &str) -> String {
     let dom = browser(scratch, name, &["--dump-dom".into()], url).stdout;
     assert!(dom.contains("</html>"), "chromium returned no page:\n{dom}");
     dom
-}
-
-/// FF-T12 leaking from 1 s into the run, the other tanks steady, 1 mm of
-/// level noise: the acquisition tests' scenario.
-fn scenario(scratch: &Scratch) -> PathBuf {
-    crate::acquisition::scenario(scratch, 0.001)
 }
 
 struct Cli<'a> {
@@ -294,7 +288,10 @@ fn the_page_in_chromium_matches_status_json_and_metrics_parse() {
     let started = Instant::now();
     chromium();
     let scratch = Scratch::new("web");
-    let (sim, address) = start_sim(&scratch, &scenario(&scratch), "127.0.0.1:0");
+    // FF-T12 leaking from 1 s into the run, the other tanks steady, 1 mm of
+    // level noise: the acquisition tests' scenario.
+    let scenario = crate::acquisition::one_leak(0.001).write(&scratch);
+    let (sim, address) = start_sim(&scratch, &scenario, "127.0.0.1:0");
     let web = format!("127.0.0.1:{}", free_port());
     let site = scratch.write("site.toml", &with_web(&demo_site(&address), &web));
     let db = scratch.path("leaktally.db");
@@ -308,26 +305,11 @@ fn the_page_in_chromium_matches_status_json_and_metrics_parse() {
     });
     let url = format!("http://{web}/");
 
-    let reply = cli.ok(&[
-        "leak",
-        "open",
-        "--tank",
-        "FF-T12",
-        "--hole-diameter",
-        "40",
-        "--hole-height",
-        "0.3",
-        "--cd",
-        "0.61",
-        "--note",
-        NOTE,
-    ]);
-    let id: i64 = reply
-        .split_whitespace()
-        .skip_while(|w| *w != "event")
-        .nth(1)
-        .and_then(|w| w.parse().ok())
-        .unwrap_or_else(|| panic!("no event id in {reply:?}"));
+    let reply = cli.ok(&LeakOpen::tank("FF-T12")
+        .hole(40.0, 0.3, 0.61)
+        .note(NOTE)
+        .args());
+    let id = event_id(&reply);
     // About 20 s of the leak on record.
     wait_for(
         "20 samples in the estimate",

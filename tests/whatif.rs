@@ -4,8 +4,8 @@
 //! tank, the options and their refusals, and the JSON document.
 
 use crate::util::{
-    Finished, Scratch, Truth, binary, demo_site, now_ms, run, start_daemon, start_sim, toml_path,
-    wait_for,
+    Finished, ScenarioBuilder, ScenarioTank, Scratch, Truth, binary, demo_site, now_ms, run,
+    start_daemon, start_sim, wait_for,
 };
 use leaktally::model::GAS_CONSTANT;
 use serde_json::Value;
@@ -67,29 +67,20 @@ fn demo_config() -> std::path::PathBuf {
 #[test]
 fn whatif_takes_the_headspace_from_the_last_logged_reading() {
     let scratch = Scratch::new("whatif-db");
-    let site = scratch.write("sim-site.toml", &demo_site("127.0.0.1:1"));
-    let scenario = scratch.write(
-        "scenario.toml",
-        &format!(
-            r#"site = {site}
-seed = 5
-[[tank]]
-id = "FF-T12"
-initial_level_m = 4.0
-[[tank]]
-id = "FF-T14"
-initial_level_m = 1.6
-headspace_kpa = 22.0
-pressure_noise_pa = 30.0
-[[tank]]
-id = "FF-T20"
-initial_level_m = 5.1
-headspace_kpa = 3.0
-pressure_noise_pa = 30.0
-"#,
-            site = toml_path(&site)
-        ),
-    );
+    let scenario = ScenarioBuilder::demo()
+        .seed(5)
+        .tank(ScenarioTank::new("FF-T12", 4.0))
+        .tank(
+            ScenarioTank::new("FF-T14", 1.6)
+                .headspace_kpa(22.0)
+                .pressure_noise_pa(30.0),
+        )
+        .tank(
+            ScenarioTank::new("FF-T20", 5.1)
+                .headspace_kpa(3.0)
+                .pressure_noise_pa(30.0),
+        )
+        .write(&scratch);
     let (_sim, address) = start_sim(&scratch, &scenario, "127.0.0.1:0");
     let config = scratch.write("site.toml", &demo_site(&address));
     let db = scratch.path("leaktally.db");
