@@ -39,6 +39,28 @@ substance = { name = "diesel", density_kg_m3 = 840.0, reportable_kg = [500.0] }
 level = { register = "input", address = 0, type = "u16", raw = [4000, 20000], range = [0.0, 5.0], unit = "m", accuracy_mm = 4.0 }
 "#;
 
+/// The same tank blanketed (20 kPa gauge of nitrogen, the hole under the
+/// liquid feeling it), with a headspace pressure transmitter of stated
+/// accuracy ±0.5 kPa: its noise and a fixed offset within that accuracy
+/// go into the flow through the hole, so the band must carry them.
+const BLANKETED_SITE: &str = r#"[site]
+name = "Band check, blanketed (invented)"
+[[device]]
+id = "rtu"
+address = "127.0.0.1:1"
+[[tank]]
+id = "BC-1"
+device = "rtu"
+geometry = { shape = "vertical_cylinder", diameter_m = 3.0, height_m = 5.0 }
+substance = { name = "diesel", density_kg_m3 = 840.0, reportable_kg = [500.0] }
+level = { register = "input", address = 0, type = "u16", raw = [4000, 20000], range = [0.0, 5.0], unit = "m", accuracy_mm = 4.0 }
+pressure = { register = "holding", address = 10, type = "f32", range = [-10.0, 100.0], unit = "kPa", reference = "gauge", accuracy_kpa = 0.5 }
+"#;
+
+/// The blanket's pressure and the transmitter's stated accuracy, Pa.
+const BLANKET_PA: f64 = 20_000.0;
+const PRESSURE_ACCURACY_PA: f64 = 500.0;
+
 /// The gauge's stated accuracy, m (the site above).
 const ACCURACY_M: f64 = 0.004;
 /// When the hole opens and the event starts, s of simulated time.
@@ -74,6 +96,9 @@ struct Conditions {
     given_factor: f64,
     /// When the leak stops (plugged, isolated), s after it opened.
     stops_after_s: Option<f64>,
+    /// A blanketed tank: the pressure transmitter's noise and fixed
+    /// offset, Pa.
+    blanket: Option<(f64, f64)>,
 }
 
 impl Conditions {
@@ -96,6 +121,27 @@ impl Conditions {
             seconds,
             given_factor: 1.0,
             stops_after_s: None,
+            blanket: None,
+        }
+    }
+
+    /// As [`Conditions::draw`], on the blanketed tank: pressure noise 20 to
+    /// 200 Pa and an offset within half the stated accuracy.
+    fn draw_blanketed(seed: u64, seconds: u32) -> Self {
+        let mut c = Self::draw(seed, seconds, true);
+        let mut d = Draw(seed ^ 0x2545_F491_4F6C_DD1D);
+        c.blanket = Some((
+            d.uniform(20.0, 200.0),
+            d.uniform(-0.5, 0.5) * PRESSURE_ACCURACY_PA,
+        ));
+        c
+    }
+
+    fn site(&self) -> &'static str {
+        if self.blanket.is_some() {
+            BLANKETED_SITE
+        } else {
+            SITE
         }
     }
 
@@ -113,15 +159,20 @@ impl Conditions {
     }
 
     fn scenario(&self) -> String {
+        let mut tank = ScenarioTank::new("BC-1", self.initial_level_m)
+            .level_noise_m(self.noise_m)
+            .level_bias_m(self.bias_m)
+            .level_drift_m_per_h(self.drift_m_per_h);
+        if let Some((noise, bias)) = self.blanket {
+            tank = tank
+                .headspace_kpa(BLANKET_PA / 1000.0)
+                .pressure_noise_pa(noise)
+                .pressure_bias_pa(bias);
+        }
         let mut scenario = ScenarioBuilder::for_site(Path::new("site.toml"))
             .step_ms(100)
             .seed(self.seed)
-            .tank(
-                ScenarioTank::new("BC-1", self.initial_level_m)
-                    .level_noise_m(self.noise_m)
-                    .level_bias_m(self.bias_m)
-                    .level_drift_m_per_h(self.drift_m_per_h),
-            );
+            .tank(tank);
         if let Some(mm) = self.hole_mm {
             scenario = scenario.leak_opens(LEAK_AT_S, "BC-1", mm, 0.3, self.cd);
         }
@@ -142,7 +193,7 @@ struct Point {
 /// Plays a run and feeds the estimator; `given` says whether the operator
 /// gives the true hole diameter (else it is fitted).
 fn simulate(scratch: &Scratch, c: &Conditions, given: bool) -> Vec<Point> {
-    scratch.write("site.toml", SITE);
+    scratch.write("site.toml", c.site());
     let path = scratch.write(&format!("run-{}.toml", c.seed), &c.scenario());
     let scenario = leaktally_sim::scenario::parse(&c.scenario(), &path).expect("a valid scenario");
     let tank = scenario.site.tanks[0].clone();
@@ -177,12 +228,23 @@ fn simulate(scratch: &Scratch, c: &Conditions, given: bool) -> Vec<Point> {
                 tank.level.data_type.width(),
             )
             .unwrap();
+        let pressure = tank.pressure.as_ref().map(|p| {
+            let words = image
+                .read_registers(
+                    tank.device,
+                    p.sensor.register,
+                    p.sensor.address,
+                    p.sensor.data_type.width(),
+                )
+                .unwrap();
+            flag(&p.sensor, &words, false)
+        });
         let sample = TankSample {
             tank: 0,
             tank_id: tank.id.as_str().into(),
             at_ms,
             level: flag(&tank.level, &words, false),
-            pressure: None,
+            pressure,
             transfer: None,
             temperature: None,
             leak_flag: None,
@@ -216,15 +278,25 @@ fn median(mut xs: Vec<f64>) -> f64 {
 /// Runs `runs` seeded leaks and checks the coverage at every whole minute
 /// and at the final sample.
 fn coverage(label: &str, given: bool, hard: bool, runs: u64) {
-    let scratch = Scratch::new("bands");
-    let seconds = 600;
-    let draw = |seed| {
+    coverage_of(label, given, hard, runs, |seed, seconds| {
         if hard {
             Conditions::draw_hard(seed, seconds)
         } else {
             Conditions::draw(seed, seconds, true)
         }
-    };
+    });
+}
+
+fn coverage_of(
+    label: &str,
+    given: bool,
+    hard: bool,
+    runs: u64,
+    draw: impl Fn(u64, u32) -> Conditions,
+) {
+    let scratch = Scratch::new("bands");
+    let seconds = 600;
+    let draw = |seed| draw(seed, seconds);
     let results: Vec<Vec<Point>> = (1..=runs)
         .map(|seed| simulate(&scratch, &draw(seed), given))
         .collect();
@@ -288,6 +360,27 @@ fn coverage(label: &str, given: bool, hard: bool, runs: u64) {
 #[test]
 fn the_band_holds_the_truth_with_a_given_hole() {
     coverage("given hole", true, false, 100);
+}
+
+/// Issue 14: the band holds the truth on a blanketed tank, whose flow
+/// depends on the headspace pressure: the transmitter's noise and offset
+/// within its stated accuracy, the hole given and fitted.
+#[test]
+fn the_band_holds_the_truth_on_a_blanketed_tank() {
+    coverage_of(
+        "blanketed, given hole",
+        true,
+        false,
+        100,
+        Conditions::draw_blanketed,
+    );
+    coverage_of(
+        "blanketed, fitted hole",
+        false,
+        false,
+        100,
+        Conditions::draw_blanketed,
+    );
 }
 
 /// Issue 14: the band holds the truth, with the hole fitted.

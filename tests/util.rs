@@ -870,6 +870,11 @@ impl ScenarioTank {
         self.key("pressure_noise_pa", pa)
     }
 
+    /// A fixed offset of the pressure transmitter.
+    pub fn pressure_bias_pa(self, pa: f64) -> Self {
+        self.key("pressure_bias_pa", pa)
+    }
+
     /// A fixed offset of the level gauge.
     pub fn level_bias_m(self, m: f64) -> Self {
         self.key("level_bias_m", m)

@@ -220,11 +220,8 @@ impl Estimator {
                         self.level_mode = true;
                         entered_level_mode = true;
                     }
-                    rate = if loss_seen {
-                        inventory_rate
-                    } else {
-                        significant_rate(inventory_rate)
-                    };
+                    // Only a flow the level's slope can tell from zero.
+                    rate = significant_rate(inventory_rate);
                     level_best
                 };
             let (b_low, b_high) = if method == Method::FittedHole {
