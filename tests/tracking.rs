@@ -230,6 +230,22 @@ fn live_totals_match_the_truth_for_known_fitted_and_back_dated_holes() {
     );
     assert_eq!(est["method"], "orifice_given_hole");
     assert!(rel(best, exact) < 0.02, "known hole {best} vs {exact}");
+    // 250 kg crossed: the text gives both ends, the band's high end first,
+    // at or before the best figure (issue 14).
+    let crossing = &est["crossings"][0];
+    assert_eq!(crossing["quantity_kg"], 250.0, "{est}");
+    let (high_at, best_at) = (
+        crossing["high_at_ms"]
+            .as_i64()
+            .expect("the high end crossed"),
+        crossing["at_ms"].as_i64().expect("the best figure crossed"),
+    );
+    assert!(high_at <= best_at, "{crossing}");
+    let text = plant.ok(&["status", &known.to_string()]);
+    assert!(
+        text.contains("reached at") && text.contains("may have been reached from"),
+        "{text}"
+    );
 
     // No hole given: the fitted diameter within 10 % of the true 40 mm.
     let (at, best, _, est) = figures(fitted);

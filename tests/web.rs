@@ -484,6 +484,43 @@ fn the_page_in_chromium_matches_status_json_and_metrics_parse() {
         &[("event", &event), ("estimate", "best")],
     );
     assert_eq!(rate, num(&est["rate_best_kg_s"]));
+    // Both ends of each reportable quantity's crossing (issue 14): the
+    // band's high end crosses no later than the best figure, and the
+    // metrics say each as the JSON does.
+    let crossings = est["crossings"].as_array().expect("crossings");
+    assert!(!crossings.is_empty());
+    for c in crossings {
+        let q = c["quantity_kg"].as_f64().unwrap();
+        let labels = |which| {
+            [
+                ("event", event.clone()),
+                ("tank", "FF-T12".to_owned()),
+                ("quantity_kg", format!("{q}")),
+                ("estimate", which),
+            ]
+        };
+        for (which, key) in [("best", "at_ms"), ("high", "high_at_ms")] {
+            let l = labels(which.to_owned());
+            let l: Vec<(&str, &str)> = l.iter().map(|(k, v)| (*k, v.as_str())).collect();
+            let crossed = sample(&parsed, "leaktally_event_reportable_crossed", &l);
+            assert_eq!(
+                crossed,
+                if c[key].is_null() { 0.0 } else { 1.0 },
+                "{which} {c}"
+            );
+            if let Some(at) = c[key].as_i64() {
+                let t = sample(
+                    &parsed,
+                    "leaktally_event_reportable_crossed_timestamp_seconds",
+                    &l,
+                );
+                assert!((t - at as f64 / 1000.0).abs() < 1e-6, "{which} {c}");
+            }
+        }
+        if let (Some(high), Some(best)) = (c["high_at_ms"].as_i64(), c["at_ms"].as_i64()) {
+            assert!(high <= best, "{c}");
+        }
+    }
 
     // Read-only: other methods are refused, unknown paths are not there.
     for (method, path) in [
