@@ -46,6 +46,65 @@ pub fn phase_text(e: &Estimate) -> &'static str {
     }
 }
 
+/// The phase's code, as the JSON writes it: `liquid`, `vapour` or `none`.
+pub fn phase_code(phase: PhaseName) -> &'static str {
+    match phase {
+        PhaseName::Liquid => "liquid",
+        PhaseName::Vapour => "vapour",
+        PhaseName::None => "none",
+    }
+}
+
+/// A warning's code, as the JSON writes it (`hole_inconsistent`, ...).
+pub fn warning_code(w: Warning) -> &'static str {
+    match w {
+        Warning::HoleInconsistent => "hole_inconsistent",
+        Warning::LevelContradictsModel => "level_contradicts_model",
+        Warning::NoLossSeen => "no_loss_seen",
+        Warning::BridgedGapsDominate => "bridged_gaps_dominate",
+        Warning::BridgeCutByLevel => "bridge_cut_by_level",
+        Warning::TotalRevisedDown => "total_revised_down",
+        Warning::PressureHeld => "pressure_held",
+        Warning::TransferHeld => "transfer_held",
+        Warning::TemperatureHeld => "temperature_held",
+        Warning::HoleHeightAssumed => "hole_height_assumed",
+        Warning::CdAssumed => "cd_assumed",
+        Warning::DefaultAccuracies => "default_accuracies",
+        Warning::ForecastCapped => "forecast_capped",
+        Warning::VapourNotChecked => "vapour_not_checked",
+        Warning::StartBridged => "start_bridged",
+        Warning::HoleHeightRefuted => "hole_height_refuted",
+    }
+}
+
+/// Where the density of an estimate comes from.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub enum DensityBasis {
+    /// Given for the event or the replay (`--density`), held fixed.
+    Given,
+    /// The liquid's measured temperature, K, through the config's
+    /// expansion coefficient or density table.
+    Temperature(f64),
+    /// The density follows temperature, but no temperature was read: the
+    /// config's density at its reference temperature.
+    Reference,
+    /// The config's one density.
+    Fixed,
+}
+
+/// The density the figures use, and why that one.
+pub fn density_text(density_kg_m3: f64, basis: DensityBasis) -> String {
+    let why = match basis {
+        DensityBasis::Given => " (given, fixed)".to_owned(),
+        DensityBasis::Temperature(t) => format!(" at the liquid's {} °C", significant(t - 273.15)),
+        DensityBasis::Reference => {
+            " (the config's, at its reference temperature: no temperature reading)".to_owned()
+        }
+        DensityBasis::Fixed => " (fixed)".to_owned(),
+    };
+    format!("{} kg/m³{why}", significant(density_kg_m3))
+}
+
 /// Why the best figure comes from where it does.
 pub fn reason_text(e: &Estimate, p: &LeakParams) -> String {
     let (cd_low, cd_high) = p.cd_band();
@@ -337,6 +396,39 @@ pub fn crossing_text(c: &Crossing) -> String {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn codes_are_the_json_codes() {
+        for w in Warning::ALL {
+            assert_eq!(
+                serde_json::to_value(w).unwrap(),
+                serde_json::Value::from(warning_code(w))
+            );
+        }
+        for phase in [PhaseName::Liquid, PhaseName::Vapour, PhaseName::None] {
+            assert_eq!(
+                serde_json::to_value(phase).unwrap(),
+                serde_json::Value::from(phase_code(phase))
+            );
+        }
+    }
+
+    #[test]
+    fn the_density_says_where_it_comes_from() {
+        assert_eq!(
+            density_text(782.71, DensityBasis::Temperature(298.15)),
+            "783 kg/m³ at the liquid's 25.0 °C"
+        );
+        assert_eq!(
+            density_text(840.0, DensityBasis::Fixed),
+            "840 kg/m³ (fixed)"
+        );
+        assert_eq!(
+            density_text(800.0, DensityBasis::Given),
+            "800 kg/m³ (given, fixed)"
+        );
+        assert!(density_text(792.0, DensityBasis::Reference).contains("reference temperature"));
+    }
 
     #[test]
     fn a_fitted_hole_is_an_area_first_with_diameters_at_stated_cds() {
