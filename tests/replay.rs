@@ -694,6 +694,97 @@ fn outputs_never_replace_inputs_and_are_written_whole() {
     assert!(left.is_empty(), "temporary files left: {left:?}");
 }
 
+/// `leaktally replay --readings FILE --tank TANK --config demo.toml ARGS`
+/// in the scratch folder, which must succeed; its stdout.
+fn replay_readings_ok(scratch: &Scratch, tank: &str, file: &Path, args: &[&str]) -> String {
+    let mut cmd = Command::new(binary("leaktally"));
+    cmd.current_dir(&scratch.0)
+        .arg("replay")
+        .arg("--readings")
+        .arg(file)
+        .args(["--tank", tank, "--config"])
+        .arg(repo_config())
+        .args(args);
+    let done = run("replay", &mut cmd, scratch);
+    assert!(done.status.success(), "{args:?}: {}", done.stderr);
+    done.stdout
+}
+
+/// FF-T12's level falling for five minutes at 1 s, a ten-minute gap, then
+/// another hundred seconds: most of the total is bridged across the gap.
+/// Replayed with a 40 mm hole at 0.3 m (Cd not given) and `outputs`; the
+/// JSON summary and its warning codes.
+fn replay_across_a_gap(scratch: &Scratch, outputs: &[&str]) -> (Value, Vec<String>) {
+    let mut text = String::from("utc,level_m\n");
+    for i in (0..300).chain(900..1000) {
+        text += &format!("{},{}\n", 1_796_119_200 + i, 4.2 - 0.0005 * i as f64);
+    }
+    let readings = scratch.write("gap.csv", &text);
+    let mut args = vec!["--hole-diameter", "40", "--hole-height", "0.3", "--json"];
+    args.extend(outputs);
+    let doc: Value =
+        serde_json::from_str(&replay_readings_ok(scratch, "FF-T12", &readings, &args)).unwrap();
+    let codes: Vec<String> = doc["replayed"]["warnings"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|w| w.as_str().unwrap().to_owned())
+        .collect();
+    assert!(
+        codes.iter().any(|c| c == "bridged_gaps_dominate")
+            && codes.iter().any(|c| c == "cd_assumed"),
+        "{codes:?}"
+    );
+    (doc, codes)
+}
+
+/// The time series: the first format's columns first, then each
+/// estimate's phase, whether vapour is choked, and its warning codes.
+#[test]
+fn the_time_series_carries_every_warning_and_the_phase() {
+    let scratch = Scratch::new("replay-csv-warnings");
+    let (_, codes) = replay_across_a_gap(&scratch, &["--csv", "gap-series.csv"]);
+    let series = std::fs::read_to_string(scratch.path("gap-series.csv")).unwrap();
+    // No field holds a comma or a quote: a plain split reads it.
+    let mut lines = series.lines().map(|l| l.split(',').collect::<Vec<_>>());
+    let header = lines.next().unwrap();
+    assert_eq!(
+        header,
+        [
+            "time",
+            "at_ms",
+            "level_m",
+            "driving_pressure_pa",
+            "rate_kg_s",
+            "released_best_kg",
+            "released_low_kg",
+            "released_high_kg",
+            "inventory_kg",
+            "method",
+            "samples_used",
+            "samples_skipped",
+            "gaps_bridged",
+            "after_gap",
+            "phase",
+            "choked",
+            "warnings",
+        ]
+    );
+    let records: Vec<Vec<&str>> = lines.collect();
+    assert_eq!(records.len(), 400);
+    assert!(records.iter().all(|r| r.len() == header.len()));
+    // The last row's warnings are the final estimate's, in its order.
+    let last = records.last().unwrap();
+    assert_eq!(last[14], "liquid");
+    assert_eq!(last[15], "", "choked is for vapour only");
+    assert_eq!(last[16].split(';').collect::<Vec<_>>(), codes);
+    assert!(
+        records[0][16].split(';').any(|w| w == "no_loss_seen"),
+        "each row carries its own estimate's warnings: {:?}",
+        records[0]
+    );
+}
+
 fn repo_config() -> std::path::PathBuf {
     crate::util::repo_root().join("config/demo.toml")
 }

@@ -840,6 +840,14 @@ struct Row<'a> {
     samples_skipped: u64,
     gaps_bridged: u64,
     after_gap: bool,
+    // Appended after the first format's columns, so readers that take the
+    // columns by position keep working.
+    /// `liquid`, `vapour` or `none`.
+    phase: &'a str,
+    /// For vapour, whether the flow is choked; empty otherwise.
+    choked: Option<bool>,
+    /// The estimate's warning codes, joined by `;`.
+    warnings: String,
 }
 
 /// Where each estimate goes as it comes: the CSV, the chart's thinned
@@ -962,6 +970,14 @@ fn write_row(w: &mut csv::Writer<File>, e: &Estimate, hole_height_m: f64) -> any
         samples_skipped: e.quality.samples_skipped,
         gaps_bridged: e.quality.gaps_bridged,
         after_gap: e.after_gap,
+        phase: report::estimate::phase_code(e.phase),
+        choked: e.choked,
+        warnings: e
+            .warnings
+            .iter()
+            .map(report::estimate::warning_code)
+            .collect::<Vec<_>>()
+            .join(";"),
     })?;
     Ok(())
 }
