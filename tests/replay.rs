@@ -785,6 +785,40 @@ fn the_time_series_carries_every_warning_and_the_phase() {
     );
 }
 
+/// The chart: each of the final estimate's warnings in words below the
+/// lower panel's axis, and the share bridged across the gap above the
+/// panels.
+#[test]
+fn the_chart_says_the_warnings_under_it() {
+    let scratch = Scratch::new("replay-chart-warnings");
+    let (doc, _) = replay_across_a_gap(&scratch, &["--plot", "gap.svg"]);
+    let svg = std::fs::read_to_string(scratch.path("gap.svg")).unwrap();
+    let chart = roxmltree::Document::parse(&svg).expect("well-formed XML");
+    let y_of = |starts: &str| -> f64 {
+        chart
+            .descendants()
+            .filter(|n| n.has_tag_name("text"))
+            .find(|n| n.text().is_some_and(|t| t.contains(starts)))
+            .unwrap_or_else(|| panic!("no {starts:?} in the chart"))
+            .attribute("y")
+            .unwrap()
+            .parse()
+            .unwrap()
+    };
+    let axis = chart
+        .descendants()
+        .filter(|n| n.text() == Some("time since the event start (min)"))
+        .filter_map(|n| n.attribute("y")?.parse::<f64>().ok())
+        .fold(0.0, f64::max);
+    let words = doc["replayed_words"]["warnings_text"].as_array().unwrap();
+    assert!(words.len() >= 3, "{words:?}");
+    for w in words {
+        let first: Vec<&str> = w.as_str().unwrap().split_whitespace().take(5).collect();
+        assert!(y_of(&first.join(" ")) > axis, "{w} in the data area");
+    }
+    assert!(y_of("was bridged across 1 data gap(s), not measured") < y_of("Release rate"));
+}
+
 fn repo_config() -> std::path::PathBuf {
     crate::util::repo_root().join("config/demo.toml")
 }

@@ -931,6 +931,8 @@ impl Sink {
                 tank: &summary.tank,
                 event: summary.event,
                 params: &summary.params_text,
+                last: &summary.replayed,
+                leak: &summary.params,
             };
             let svg = plot::render_svg(&series, reportable, &labels)?;
             let mut file = File::options()
