@@ -636,6 +636,30 @@ fn outputs_never_replace_inputs_and_are_written_whole() {
         "is the same file as --csv",
     );
     refused(&["--csv", "sub"], "that is a folder");
+    // The name the readings' columns file would have, which the next
+    // replay of readings.csv would find by itself: refused before it
+    // exists, however spelled, and once it does.
+    let columns_name = "the name of the readings file's columns file";
+    refused(&["--csv", "readings.csv.columns.toml"], columns_name);
+    refused(
+        &["--csv", "./sub/../readings.csv.columns.toml"],
+        columns_name,
+    );
+    let columns = "[columns]\n\"utc\" = \"time\"\n";
+    scratch.write("other.columns.toml", columns);
+    refused(
+        &[
+            "--csv",
+            "readings.csv.columns.toml",
+            "--columns",
+            "other.columns.toml",
+        ],
+        columns_name,
+    );
+    assert!(!scratch.path("readings.csv.columns.toml").exists());
+    scratch.write("readings.csv.columns.toml", columns);
+    refused(&["--csv", "readings.csv.columns.toml"], input);
+    std::fs::remove_file(scratch.path("readings.csv.columns.toml")).unwrap();
     // Nothing was replaced, and no temporary file is left behind.
     assert_eq!(std::fs::read_to_string(&readings).unwrap(), text);
     assert_eq!(

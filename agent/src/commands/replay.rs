@@ -539,6 +539,7 @@ fn replay_readings(
     // Checked before the work starts, so a refusal costs nothing; the
     // sink itself is made per pass below.
     check_outputs(outputs, &inputs)?;
+    refuse_columns_file_name(outputs, file)?;
     let config = crate::config::load(config_path)?;
     let (tank, interval) = tank_of(&config, tank_id)?;
     let params = LeakParams::default().with(&overrides.change);
@@ -1036,6 +1037,26 @@ fn check_outputs(outputs: &Outputs, inputs: &[(String, PathBuf)]) -> anyhow::Res
             bail!(
                 "{flag} {}: the file exists and was left as it is; give --force to replace it, or another name",
                 path.display()
+            );
+        }
+    }
+    Ok(())
+}
+
+/// Refuses an output named as the readings file's columns file
+/// (`FILE.columns.toml` beside it), whether or not that exists: the next
+/// replay of the readings would take the output for its columns file.
+fn refuse_columns_file_name(outputs: &Outputs, readings: &Path) -> anyhow::Result<()> {
+    let beside = readings::columns_file_beside(readings);
+    for (flag, path) in [("--csv", &outputs.csv), ("--plot", &outputs.plot)] {
+        if let Some(path) = path
+            && same_file(path, &beside)
+        {
+            bail!(
+                "{flag} {}: that is the name of the readings file's columns file ({}), which every replay of {} reads by itself when it exists; an output never takes an input's name, so give another file name",
+                path.display(),
+                beside.display(),
+                readings.display()
             );
         }
     }
