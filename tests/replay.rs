@@ -843,6 +843,65 @@ fn the_chart_says_the_warnings_under_it() {
     assert!(y_of("was bridged across 1 data gap(s), not measured") < y_of("Release rate"));
 }
 
+/// The density, said as status says it: fixed for FF-T12, from the
+/// liquid's temperature for FF-T14 (methanol, 792 kg/m³ at 15 °C, 1.19e-3
+/// per °C), from the reference where no temperature is read, and given.
+#[test]
+fn the_replay_says_which_density_it_uses() {
+    let scratch = Scratch::new("replay-density");
+    let mut fixed = String::from("utc,level_m\n");
+    let mut warm = String::from("utc,level_m,pressure_kpa_g,temperature_c\n");
+    let mut bare = String::from("utc,level_m,pressure_kpa_g\n");
+    for i in 0..120 {
+        let t = 1_796_119_200 + i;
+        fixed += &format!("{t},{}\n", 4.2 - 0.0005 * i as f64);
+        let level = 1.6 - 0.0002 * i as f64;
+        warm += &format!("{t},{level},15.0,25.0\n");
+        bare += &format!("{t},{level},15.0\n");
+    }
+    let fixed = scratch.write("fixed.csv", &fixed);
+    let warm = scratch.write("warm.csv", &warm);
+    let bare = scratch.write("bare.csv", &bare);
+    let says = |tank: &str, file: &Path, args: &[&str], expected: &str| {
+        let text = replay_readings_ok(&scratch, tank, file, args);
+        assert!(text.contains(expected), "{expected:?} not in:\n{text}");
+        let mut json = args.to_vec();
+        json.push("--json");
+        let doc: Value =
+            serde_json::from_str(&replay_readings_ok(&scratch, tank, file, &json)).unwrap();
+        assert!(
+            expected.ends_with(doc["density_text"].as_str().unwrap()),
+            "{:#}",
+            doc["density_text"]
+        );
+    };
+    says(
+        "FF-T12",
+        &fixed,
+        &["--hole-height", "0.3"],
+        "density      840 kg/m³ (fixed)",
+    );
+    // 792 / (1 + 1.19e-3 * 10) = 782.7
+    says(
+        "FF-T14",
+        &warm,
+        &["--hole-height", "0.2"],
+        "density      783 kg/m³ at the liquid's 25.0 °C",
+    );
+    says(
+        "FF-T14",
+        &bare,
+        &["--hole-height", "0.2"],
+        "density      792 kg/m³ (the config's, at its reference temperature: no temperature reading)",
+    );
+    says(
+        "FF-T14",
+        &warm,
+        &["--hole-height", "0.2", "--density", "800"],
+        "density      800 kg/m³ (given, fixed)",
+    );
+}
+
 fn repo_config() -> std::path::PathBuf {
     crate::util::repo_root().join("config/demo.toml")
 }

@@ -280,6 +280,8 @@ pub struct Summary {
     pub replayed: Estimate,
     /// The same in words: why, the fit, the band, every warning.
     pub replayed_words: report::estimate::Words,
+    /// The density the replayed figures use, and why that one, in words.
+    pub density_text: String,
     /// The final logged live estimate, for an event.
     pub live: Option<Estimate>,
     /// The estimator version that logged the live figures (absent: an
@@ -430,6 +432,7 @@ fn replay_event(
         from: report::utc(from),
         to: report::utc(replayed.at_ms),
         replayed_words: report::estimate::Words::of(&replayed, &params),
+        density_text: density_text(tank, &params, &replayed),
         replayed,
         live: live_last,
         live_estimator_version: live_version,
@@ -443,6 +446,21 @@ fn replay_event(
     let reportable: Vec<f64> = tank.reportable.iter().map(|m| m.si()).collect();
     sink.finish(&mut summary, &reportable)?;
     Ok(summary)
+}
+
+/// The density an estimate uses, and why: given with `--density` (or
+/// logged with the event), the liquid's temperature through the config's
+/// expansion data, the config's reference density where no temperature was
+/// read, or the config's one density.
+fn density_text(tank: &Tank, params: &LeakParams, e: &Estimate) -> String {
+    use report::estimate::DensityBasis;
+    let basis = match (params.density_kg_m3, e.temperature_k) {
+        (Some(_), _) => DensityBasis::Given,
+        _ if !tank.density.follows_temperature() => DensityBasis::Fixed,
+        (None, Some(t)) => DensityBasis::Temperature(t),
+        (None, None) => DensityBasis::Reference,
+    };
+    report::estimate::density_text(e.density_kg_m3, basis)
 }
 
 /// The database and the files SQLite keeps beside it.
@@ -667,6 +685,7 @@ fn replay_readings(
         from: report::utc(from),
         to: report::utc(replayed.at_ms),
         replayed_words: report::estimate::Words::of(&replayed, &params),
+        density_text: density_text(tank, &params, &replayed),
         replayed,
         live: None,
         live_estimator_version: None,
@@ -1256,6 +1275,7 @@ pub fn human(s: &Summary) -> String {
         live.map(|l| l.inventory_kg.map_or("-".into(), kg)),
     );
     let _ = writeln!(out, "phase        {}", w.phase_text);
+    let _ = writeln!(out, "density      {}", s.density_text);
     let _ = writeln!(out, "best from    {}", w.method_reason);
     let _ = writeln!(out, "band from    {}", w.band_text);
     let _ = writeln!(out, "fitted hole  {}", w.fit_status);
