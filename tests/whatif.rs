@@ -63,7 +63,8 @@ fn demo_config() -> std::path::PathBuf {
 /// The headspace from the last good reading in the database: FF-T14's
 /// gauge transmitter in the headspace, and FF-T20's absolute transmitter low
 /// on the shell, which also reads the liquid column above it and must come
-/// out at the simulator's headspace (the truth file) once that is taken off.
+/// out at the simulator's headspace (the truth file) once that is taken off;
+/// and FF-T14's density at its last logged temperature, said as such.
 #[test]
 fn whatif_takes_the_headspace_from_the_last_logged_reading() {
     let scratch = Scratch::new("whatif-db");
@@ -81,6 +82,7 @@ id = "FF-T14"
 initial_level_m = 1.6
 headspace_kpa = 22.0
 pressure_noise_pa = 30.0
+temperature_c = 25.0
 [[tank]]
 id = "FF-T20"
 initial_level_m = 5.1
@@ -139,6 +141,41 @@ pressure_noise_pa = 30.0
             "{tank}: the text names the reading and its time:\n{text}"
         );
     }
+    // FF-T14's methanol follows its temperature (792 kg/m³ at 15 °C,
+    // 1.19e-3 per °C): with --db, at the liquid's last logged temperature,
+    // read as 25 °C to the register's tenth of a degree, and said.
+    let doc = json(&scratch, &config, &["--tank", "FF-T14", "--db", db_text]);
+    let density = &doc["density"];
+    assert_eq!(density["source"], "logged_temperature", "{density:#}");
+    let logged_c = density["logged"]["temperature_c"].as_f64().unwrap();
+    assert!((logged_c - 25.0).abs() < 0.051, "{density:#}");
+    let expected = 792.0 / (1.0 + 1.19e-3 * (logged_c - 15.0));
+    assert!((density["kg_m3"].as_f64().unwrap() / expected - 1.0).abs() < 1e-12);
+    assert_eq!(doc["density_kg_m3"], density["kg_m3"]);
+    assert!(
+        doc["assumptions"].as_array().unwrap().iter().any(|a| a
+            .as_str()
+            .unwrap()
+            .contains("last good logged temperature, 25.0 °C")),
+        "{doc:#}"
+    );
+    let text = whatif_ok(&scratch, &config, &["--tank", "FF-T14", "--db", db_text]);
+    assert!(
+        text.contains("density    783 kg/m³: at the liquid's last good logged temperature"),
+        "{text}"
+    );
+    // Without --db, the reference density, said to be one.
+    let doc = json(&scratch, &config, &["--tank", "FF-T14"]);
+    assert_eq!(doc["density"]["source"], "reference_temperature");
+    assert_eq!(doc["density_kg_m3"], 792.0);
+    assert!(
+        doc["density"]["explanation"]
+            .as_str()
+            .unwrap()
+            .contains("NOT at the liquid's temperature"),
+        "{doc:#}"
+    );
+
     let t20 = json(&scratch, &config, &["--tank", "FF-T20", "--db", db_text]);
     assert_eq!(t20["headspace"]["logged"]["tap"], "submerged");
     assert_eq!(t20["headspace"]["logged"]["reference"], "absolute");

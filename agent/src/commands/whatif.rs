@@ -29,9 +29,10 @@ use crate::estimate::{
 };
 use crate::model::blowdown::{Blowdown, BlowdownEnd, BlowdownForecast, Thermal, Ullage};
 use crate::model::{
-    AbsolutePressure, DischargeCoefficient, GAS_CONSTANT, GasProperties, GasRegime, Hole, Length,
-    Mass, MassRate, Pressure, PressureReading, PressureTap, TankState, TimeSpan,
-    blowdown::ullage_volume, forecast::time_to_release, forecast_liquid,
+    AbsolutePressure, Density, DensityModel, DischargeCoefficient, GAS_CONSTANT, GasProperties,
+    GasRegime, Hole, Length, Mass, MassRate, Pressure, PressureReading, PressureTap, TankState,
+    Temperature, TimeSpan, Vessel, blowdown::ullage_volume, forecast::time_to_release,
+    forecast_liquid,
 };
 use crate::report;
 use crate::store;
@@ -136,6 +137,8 @@ pub struct Request {
     /// Empty: the representative sizes.
     pub holes: Vec<HoleSize>,
     pub headspace: Headspace,
+    /// The liquid density, and why that one.
+    pub density: DensityUsed,
     /// `None`: +15 min and +1 h.
     pub horizons: Option<Vec<TimeSpan>>,
     pub to_level: Option<Length>,
@@ -151,6 +154,7 @@ impl Request {
             cd: None,
             holes: Vec::new(),
             headspace: headspace_from_config(tank, Vec::new()),
+            density: density_from_config(tank, None),
             horizons: None,
             to_level: None,
             supply: None,
@@ -428,6 +432,152 @@ fn last_logged_headspace(
 }
 
 // ---------------------------------------------------------------------------
+// The liquid density and where it comes from
+
+/// The liquid density a study uses, and why that one.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct DensityUsed {
+    pub kg_m3: f64,
+    /// `fixed` (the config's one density), `logged_temperature` (at the
+    /// liquid's last good logged temperature, through the config's
+    /// expansion_per_c or density_table) or `reference_temperature` (the
+    /// config's density_kg_m3, not at the liquid's temperature).
+    pub source: &'static str,
+    pub explanation: String,
+    pub logged: Option<LoggedTemperature>,
+    /// What the user should know about it (an old reading).
+    #[serde(skip)]
+    pub warnings: Vec<String>,
+}
+
+/// A temperature reading taken from the database.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct LoggedTemperature {
+    pub database: String,
+    pub at_ms: i64,
+    pub at: String,
+    /// How old it was when the study was made.
+    pub age_s: f64,
+    pub temperature_c: f64,
+}
+
+/// What the config's density follows, for the explanations.
+fn density_model_name(model: &DensityModel) -> &'static str {
+    match model {
+        DensityModel::Constant(_) => "density_kg_m3",
+        DensityModel::Expansion { .. } => "expansion_per_c",
+        DensityModel::Table(_) => "density_table",
+    }
+}
+
+/// The density from the config alone: its one density, or, where the
+/// density follows the liquid's temperature, density_kg_m3 at the config's
+/// reference temperature, said as such with `why_not` the liquid's.
+pub fn density_from_config(tank: &Tank, why_not: Option<String>) -> DensityUsed {
+    let rho = tank.vessel.density().si();
+    let (source, explanation) = match &tank.density {
+        DensityModel::Constant(_) if tank.temperature.is_some() => (
+            "fixed",
+            "the config's density_kg_m3, fixed: the config gives no expansion_per_c or density_table, so the liquid's temperature does not change it".to_owned(),
+        ),
+        DensityModel::Constant(_) => ("fixed", "the config's density_kg_m3".to_owned()),
+        model => {
+            let at = match model {
+                DensityModel::Expansion { at, .. } => format!(
+                    "at its reference temperature, {} °C",
+                    report::significant(at.si() - 273.15)
+                ),
+                _ => "as given, not through its density_table".to_owned(),
+            };
+            (
+                "reference_temperature",
+                format!(
+                    "the config's density_kg_m3 {at}, NOT at the liquid's temperature: {}",
+                    why_not.unwrap_or_else(|| {
+                        "give --db FILE for the last logged temperature".to_owned()
+                    })
+                ),
+            )
+        }
+    };
+    DensityUsed {
+        kg_m3: rho,
+        source,
+        explanation,
+        logged: None,
+        warnings: Vec::new(),
+    }
+}
+
+/// The density a study uses: with `--db` and a tank whose density follows
+/// its temperature sensor, at the liquid's last good logged temperature
+/// (read-only, like the pressure); else from the config, said as such.
+pub fn liquid_density(tank: &Tank, db: Option<&Path>, now_ms: i64) -> anyhow::Result<DensityUsed> {
+    let (Some(db), Some(sensor)) = (db, &tank.temperature) else {
+        return Ok(density_from_config(tank, None));
+    };
+    if !tank.density.follows_temperature() {
+        return Ok(density_from_config(tank, None));
+    }
+    let conn = store::open_read_only(db)
+        .with_context(|| format!("--db {}: reading the last logged temperature", db.display()))?;
+    // The recent samples first, as for the pressure.
+    for from_ms in [now_ms.saturating_sub(15 * 60 * 1000), i64::MIN] {
+        let samples = store::samples_between(&conn, &tank.id, from_ms, i64::MAX)?;
+        let last = samples.iter().rev().find_map(|sample| {
+            let kelvin = sample
+                .temperature
+                .and_then(|r| r.value.filter(|&v| r.is_good() && sensor.accepts(v)))?;
+            Some((sample.at_ms, kelvin))
+        });
+        if let Some((at_ms, kelvin)) = last {
+            let logged = LoggedTemperature {
+                database: db.display().to_string(),
+                at_ms,
+                at: report::utc(at_ms),
+                age_s: (now_ms - at_ms) as f64 / 1000.0,
+                temperature_c: kelvin - 273.15,
+            };
+            let mut warnings = Vec::new();
+            if logged.age_s > OLD_READING_S {
+                warnings.push(format!(
+                    "the last good temperature reading of tank {} in {} is {} old ({}); the liquid's density may have changed since",
+                    tank.id,
+                    logged.database,
+                    report::duration(TimeSpan::seconds(logged.age_s)),
+                    logged.at
+                ));
+            }
+            return Ok(DensityUsed {
+                kg_m3: tank.density.at(Some(Temperature::kelvin(kelvin))).si(),
+                source: "logged_temperature",
+                explanation: format!(
+                    "at the liquid's last good logged temperature, {} °C, in {} at {} ({} old), through the config's {}",
+                    report::significant(logged.temperature_c),
+                    logged.database,
+                    logged.at,
+                    report::duration(TimeSpan::seconds(logged.age_s)),
+                    density_model_name(&tank.density)
+                ),
+                logged: Some(logged),
+                warnings,
+            });
+        }
+        if from_ms == i64::MIN {
+            break;
+        }
+    }
+    Ok(density_from_config(
+        tank,
+        Some(format!(
+            "{} holds no good temperature reading of tank {}",
+            db.display(),
+            tank.id
+        )),
+    ))
+}
+
+// ---------------------------------------------------------------------------
 // The study as figures (the JSON document)
 
 /// A figure at the chosen Cd and at the band's two ends.
@@ -475,6 +625,8 @@ pub struct Study {
     pub tank: String,
     pub substance: String,
     pub density_kg_m3: f64,
+    /// The density and why that one (also in `assumptions`).
+    pub density: DensityUsed,
     pub ambient_pa: f64,
     pub level_m: f64,
     /// `given` or `default` (90 % of the tank's height).
@@ -675,6 +827,23 @@ pub fn study(
 
 /// Computes a study.
 pub fn compute(tank: &Tank, request: &Request) -> anyhow::Result<Study> {
+    // The tank as the study sees it: its liquid at the density the
+    // request says (the config's, or at the last logged temperature).
+    let with_density;
+    let tank = if request.density.kg_m3 == tank.vessel.density().si() {
+        tank
+    } else {
+        let v = &tank.vessel;
+        let mut t = tank.clone();
+        t.vessel = Vessel::new(
+            v.geometry().clone(),
+            Density::kg_per_cubic_metre(request.density.kg_m3),
+            v.ambient(),
+            v.vapour().copied(),
+        )?;
+        with_density = t;
+        &with_density
+    };
     let vessel = &tank.vessel;
     let geometry = vessel.geometry();
     let ambient = vessel.ambient();
@@ -716,6 +885,7 @@ pub fn compute(tank: &Tank, request: &Request) -> anyhow::Result<Study> {
     }
 
     let mut warnings = request.headspace.warnings.clone();
+    warnings.extend(request.density.warnings.iter().cloned());
     let mut assumptions = Vec::new();
     let gas = vessel.vapour().copied();
     let supply = match (request.supply, &gas) {
@@ -842,6 +1012,11 @@ pub fn compute(tank: &Tank, request: &Request) -> anyhow::Result<Study> {
                 .to_owned(),
         );
     }
+    assumptions.push(format!(
+        "Density of the liquid: {} kg/m³, {}.",
+        report::significant(rho),
+        request.density.explanation
+    ));
     assumptions.push(
         "Times run from the moment the hole opens; figures in brackets are the band from the lowest to the highest Cd.".to_owned(),
     );
@@ -852,6 +1027,7 @@ pub fn compute(tank: &Tank, request: &Request) -> anyhow::Result<Study> {
         tank: tank.id.clone(),
         substance: tank.substance.clone(),
         density_kg_m3: rho,
+        density: request.density.clone(),
         ambient_pa: ambient.si(),
         level_m: level.si(),
         level_source: if request.level.is_some() {
@@ -1283,6 +1459,12 @@ pub fn human(s: &Study) -> String {
         "90 % of the tank's height, the default; give --level"
     };
     let _ = writeln!(out, "  level      {:.2} m ({level_note})", s.level_m);
+    let _ = writeln!(
+        out,
+        "  density    {} kg/m³: {}",
+        report::significant(s.density.kg_m3),
+        s.density.explanation
+    );
     let _ = writeln!(
         out,
         "  headspace  {} kPa gauge = {} kPa absolute: {}",
@@ -1736,6 +1918,7 @@ pub fn command(args: WhatifArgs) -> anyhow::Result<()> {
         (None, Some(kpa)) => Some(HeadspaceGiven::Absolute(kpa)),
         (None, None) => None,
     };
+    let now_ms = crate::store::now_ms();
     let request = Request {
         level: metres(level, "--level")?,
         hole_height: hole_height
@@ -1748,7 +1931,8 @@ pub fn command(args: WhatifArgs) -> anyhow::Result<()> {
             .map(DischargeCoefficient::new)
             .transpose()?,
         holes,
-        headspace: headspace(t, given, db.as_deref(), crate::store::now_ms())?,
+        headspace: headspace(t, given, db.as_deref(), now_ms)?,
+        density: liquid_density(t, db.as_deref(), now_ms)?,
         horizons: horizons.as_deref().map(parse_horizons).transpose()?,
         to_level: metres(to_level, "--to-level")?,
         supply: blanket_supply.as_deref().map(parse_supply).transpose()?,
@@ -2000,6 +2184,72 @@ mod tests {
             assert!(headspace(t14, Some(HeadspaceGiven::Gauge(bad)), None, 0).is_err());
         }
         assert!(headspace(t14, Some(HeadspaceGiven::Absolute(0.0)), None, 0).is_err());
+    }
+
+    #[test]
+    fn the_density_says_which_and_why() {
+        let config = demo();
+        let (t12, t14) = (&config.tanks[0], &config.tanks[1]);
+        // FF-T12: one density, no temperature sensor.
+        let d = liquid_density(t12, None, 0).unwrap();
+        assert_eq!((d.kg_m3, d.source), (840.0, "fixed"));
+        // FF-T14 follows its temperature; without --db the study says it
+        // takes the reference density, and why.
+        let d = liquid_density(t14, None, 0).unwrap();
+        assert_eq!((d.kg_m3, d.source), (792.0, "reference_temperature"));
+        assert!(
+            d.explanation
+                .contains("15.0 °C, NOT at the liquid's temperature")
+                && d.explanation.contains("--db"),
+            "{}",
+            d.explanation
+        );
+        let study = compute(
+            t14,
+            &Request {
+                level: Some(Length::metres(2.0)),
+                holes: vec![HoleSize::Diameter(25.0)],
+                ..Request::for_tank(t14)
+            },
+        )
+        .unwrap();
+        assert!(
+            study
+                .assumptions
+                .iter()
+                .any(|a| a.starts_with("Density of the liquid: 792 kg/m³") && a.contains("NOT")),
+            "{:?}",
+            study.assumptions
+        );
+        assert!(human(&study).contains("density    792 kg/m³: the config's density_kg_m3"));
+        // At another density the liquid figures follow it: the mass rate
+        // goes as sqrt(rho dP), the column's dP as rho.
+        let warm = DensityUsed {
+            kg_m3: 780.0,
+            ..study.density.clone()
+        };
+        let other = compute(
+            t14,
+            &Request {
+                level: Some(Length::metres(2.0)),
+                holes: vec![HoleSize::Diameter(25.0)],
+                density: warm,
+                ..Request::for_tank(t14)
+            },
+        )
+        .unwrap();
+        assert_eq!(other.density_kg_m3, 780.0);
+        let rate = |s: &Study| {
+            s.holes[0]
+                .liquid
+                .as_ref()
+                .unwrap()
+                .initial_rate_kg_s
+                .cd_chosen
+        };
+        let dp = |rho: f64| 15_000.0 + rho * crate::model::STANDARD_GRAVITY * 2.0;
+        let expected = ((780.0 * dp(780.0)) / (792.0 * dp(792.0))).sqrt();
+        assert!((rate(&other) / rate(&study) / expected - 1.0).abs() < 1e-12);
     }
 
     #[test]
