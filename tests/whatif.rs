@@ -302,6 +302,84 @@ fn a_hole_above_the_liquid_of_the_blanketed_tank_vents_its_gas() {
     let text = whatif_ok(&scratch, &config, &on);
     assert!(text.contains("blanket supply on at 50 Nm³/h"), "{text}");
     assert!(text.contains("steady at"), "{text}");
+
+    // The supply keeps feeding the adiabatic bound's cooler, denser gas:
+    // it ends later and has released more by then, so neither "less,
+    // sooner" nor one band "by the end" over both would be true. Each
+    // bound's own end and total are given, and the horizons compare them.
+    let (iso, adi) = (&v["isothermal"]["cd_chosen"], &v["adiabatic"]["cd_chosen"]);
+    let f = |x: &Value, key: &str| x[key].as_f64().unwrap();
+    assert!(
+        f(adi, "end_after_s") > f(iso, "end_after_s")
+            && f(adi, "released_by_end_kg") > f(iso, "released_by_end_kg"),
+        "{v:#}"
+    );
+    for (bound, end) in [
+        ("isothermal", &v["isothermal_end"]),
+        ("adiabatic", &v["adiabatic_end"]),
+    ] {
+        let runs: Vec<&Value> = ["cd_low", "cd_chosen", "cd_high"]
+            .iter()
+            .map(|cd| &v[bound][*cd])
+            .collect();
+        let over = |key: &str, pick: fn(f64, f64) -> f64| {
+            runs.iter().map(|r| f(r, key)).reduce(pick).unwrap()
+        };
+        assert_eq!(
+            f(end, "after_low_s"),
+            over("end_after_s", f64::min),
+            "{bound}"
+        );
+        assert_eq!(
+            f(end, "after_high_s"),
+            over("end_after_s", f64::max),
+            "{bound}"
+        );
+        assert_eq!(
+            f(end, "released_low_kg"),
+            over("released_by_end_kg", f64::min)
+        );
+        assert_eq!(
+            f(end, "released_high_kg"),
+            over("released_by_end_kg", f64::max)
+        );
+    }
+    assert!(
+        v["bounds_compared"]
+            .as_str()
+            .unwrap()
+            .contains("the adiabatic bound ends later and releases more by its end"),
+        "{v:#}"
+    );
+    // Every horizon's band spans both bounds at that same time.
+    for (k, band) in v["band"].as_array().unwrap().iter().enumerate() {
+        for bound in ["isothermal", "adiabatic"] {
+            let at = f(&v[bound]["cd_chosen"]["horizons"][k], "released_kg");
+            assert!(
+                f(band, "low_kg") <= at && at <= f(band, "high_kg"),
+                "{band:#}"
+            );
+        }
+    }
+    assert!(
+        !text.contains("less, sooner") && !text.contains("by the end"),
+        "{text}"
+    );
+    for expected in [
+        "neither bound releases more throughout",
+        "isothermal, by its end",
+        "adiabatic, by its end",
+        "ends later and releases more by its end",
+    ] {
+        assert!(text.contains(expected), "missing {expected:?} in:\n{text}");
+    }
+    // Without a supply nothing is released after the end: the totals
+    // compare, and the text may say which bound releases less, sooner.
+    let text = whatif_ok(&scratch, &config, &args);
+    assert!(
+        text.contains("in total") && text.contains("less, sooner"),
+        "{text}"
+    );
 }
 
 /// Liquid holes: rates in kg/s and m³/h, user horizons, time to a level,

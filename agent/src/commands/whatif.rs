@@ -10,7 +10,10 @@
 //! * gas: the blowdown of the gas space to ambient (or to the pressure a
 //!   blanket supply holds) between its isothermal and adiabatic bounds, by
 //!   `model::blowdown`: the initial rate, how long the flow stays choked,
-//!   when it ends, the release by each horizon and in total;
+//!   when each bound ends, the release by each horizon (like with like)
+//!   and by each bound's own end (with a supply the bounds end at
+//!   different times, and the adiabatic one may end later and release
+//!   more);
 //!
 //! and when each reportable quantity (and a given level) is reached.
 //! Everything the figures rest on is said with where it came from: above
@@ -744,9 +747,19 @@ pub struct VapourFigures {
     pub supply: &'static str,
     pub isothermal: AtCd<BlowdownFigures>,
     pub adiabatic: AtCd<BlowdownFigures>,
-    /// Over both bounds and the Cd band.
+    /// Over both bounds and the Cd band, at each horizon: like with like.
     pub band: Vec<ReleasedBand>,
+    /// Over both bounds and the Cd band, by each one's end. Without a
+    /// supply that is the release in total; with one the bounds end at
+    /// different times and the release goes on after each, so this mixes
+    /// end times: read `isothermal_end` and `adiabatic_end`, or `band`.
     pub released_by_end_band: ReleasedBand,
+    /// Each bound's own end over the Cd band: when, and how much by then.
+    pub isothermal_end: EndRange,
+    pub adiabatic_end: EndRange,
+    /// How the two bounds compare at the chosen Cd, in words (also in the
+    /// text): with a supply, which ends later and releases more by its end.
+    pub bounds_compared: String,
     /// Over both bounds and the Cd band.
     pub reportable: Vec<ReportableRange>,
 }
@@ -784,6 +797,39 @@ pub struct BlowdownHorizon {
 pub struct ReportableTime {
     pub quantity_kg: f64,
     pub reached_after_s: Option<f64>,
+}
+
+/// One bound's end over the Cd band: when it ends (the pressure at
+/// ambient, or steady against a supply) and what it has released by then.
+/// `None` where it never ends (a supply holds the pressure) or nothing flows.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
+pub struct EndRange {
+    pub after_low_s: Option<f64>,
+    pub after_high_s: Option<f64>,
+    pub released_low_kg: Option<f64>,
+    pub released_high_kg: Option<f64>,
+}
+
+impl EndRange {
+    fn of(runs: &[BlowdownForecast]) -> Self {
+        let ends: Vec<(f64, f64)> = runs
+            .iter()
+            .filter_map(|f| match f.end {
+                BlowdownEnd::Ambient { after } | BlowdownEnd::Steady { after, .. } => {
+                    Some((after.si(), f.released_by_end.si()))
+                }
+                BlowdownEnd::Held | BlowdownEnd::NoFlow => None,
+            })
+            .collect();
+        let low = |f: fn(&(f64, f64)) -> f64| ends.iter().map(f).reduce(f64::min);
+        let high = |f: fn(&(f64, f64)) -> f64| ends.iter().map(f).reduce(f64::max);
+        Self {
+            after_low_s: low(|e| e.0),
+            after_high_s: high(|e| e.0),
+            released_low_kg: low(|e| e.1),
+            released_high_kg: high(|e| e.1),
+        }
+    }
 }
 
 #[derive(Debug, Clone, Copy, Serialize)]
@@ -995,9 +1041,11 @@ pub fn compute(tank: &Tank, request: &Request) -> anyhow::Result<Study> {
         }
     }
     if any_vapour {
-        assumptions.push(
-            "Gas: the ideal-gas nozzle equations, the gas space fixed (the liquid does not move), between two bounds a real tank lies within: isothermal (the walls keep the gas at its temperature; the most released, the longest) and adiabatic (no heat reaches the gas, which cools; less, sooner). Evaporation from the liquid into the gas space is not included.".to_owned(),
-        );
+        assumptions.push(if supply.is_some() {
+            "Gas: the ideal-gas nozzle equations, the gas space fixed (the liquid does not move), between two bounds on the heat that reaches the gas: isothermal (the walls keep the gas at its temperature) and adiabatic (no heat reaches the gas, which cools). With a blanket supply neither bound releases more throughout: the supply keeps feeding a gas the adiabatic bound holds cooler and denser, so it can flow longer and release more; each bound's end and total by then are its own, and the release by each horizon compares them like with like. Evaporation from the liquid into the gas space is not included.".to_owned()
+        } else {
+            "Gas: the ideal-gas nozzle equations, the gas space fixed (the liquid does not move), between two bounds a real tank lies within: isothermal (the walls keep the gas at its temperature; the most released, the longest) and adiabatic (no heat reaches the gas, which cools; less, sooner). Evaporation from the liquid into the gas space is not included.".to_owned()
+        });
         assumptions.push(match &supply {
             Some(s) => format!(
                 "Blanket supply on: pad gas of the configured vapour at its temperature, at up to {} ({} kg/s), by a regulator whose set point is the headspace pressure; steady means the outflow within 1 % of the supply for good.",
@@ -1282,6 +1330,13 @@ fn vapour_figures(
         .collect();
     let chosen = &runs[0].1[1];
     let rates = AtCd::from_fn(|i| runs[0].1[i].initial.rate.si());
+    let isothermal = at_cd(&runs[0].1);
+    let adiabatic = at_cd(&runs[1].1);
+    let bounds_compared = compare_bounds(
+        &isothermal.cd_chosen,
+        &adiabatic.cd_chosen,
+        supply.is_some(),
+    );
     Ok((
         VapourFigures {
             molar_mass_g_mol: gas.molar_mass().si() * 1000.0,
@@ -1293,18 +1348,63 @@ fn vapour_figures(
             initial_rate_kg_s: rates,
             initial_rate_nm3_h: rates.map(|r| r * 3600.0 / normal_density),
             supply: if supply.is_some() { "on" } else { "off" },
-            isothermal: at_cd(&runs[0].1),
-            adiabatic: at_cd(&runs[1].1),
+            isothermal,
+            adiabatic,
             band: band_out,
             released_by_end_band: ReleasedBand {
                 after_s: None,
                 low_kg: end_low,
                 high_kg: end_high,
             },
+            isothermal_end: EndRange::of(&runs[0].1),
+            adiabatic_end: EndRange::of(&runs[1].1),
+            bounds_compared,
             reportable,
         },
         chosen.initial.regime,
     ))
+}
+
+/// The two bounds at one Cd, compared by what they do rather than by what
+/// they usually do: with a supply the adiabatic bound, whose gas is cooler
+/// and denser, can end later and release more by its end than the
+/// isothermal one, and the release goes on after either end.
+fn compare_bounds(iso: &BlowdownFigures, adi: &BlowdownFigures, supply: bool) -> String {
+    let ends = |f: &BlowdownFigures| matches!(f.end, "ambient" | "steady");
+    if !(ends(iso) && ends(adi)) {
+        return match (iso.end, adi.end) {
+            ("no_flow", _) | (_, "no_flow") => "nothing flows".to_owned(),
+            _ => "the supply holds the pressure in at least one bound: the release goes on at its initial rate, and the bounds compare only at the horizons".to_owned(),
+        };
+    }
+    let said = |f: &BlowdownFigures| {
+        format!(
+            "ends after {} having released {} kg",
+            hms_tenths(f.end_after_s),
+            kg(f.released_by_end_kg)
+        )
+    };
+    let facts = format!(
+        "the isothermal bound {}, the adiabatic {}",
+        said(iso),
+        said(adi)
+    );
+    if !supply {
+        return format!("{facts}; nothing is released after the end, so these are the totals");
+    }
+    let later = adi.end_after_s > iso.end_after_s;
+    let more = adi.released_by_end_kg > iso.released_by_end_kg;
+    let how = match (later, more) {
+        (true, true) => {
+            "the adiabatic bound ends later and releases more by its end: the supply keeps feeding a gas that it holds cooler and denser"
+        }
+        (false, false) => "the adiabatic bound ends sooner and releases less by its end",
+        (true, false) => "the adiabatic bound ends later but releases less by its end",
+        (false, true) => "the adiabatic bound ends sooner but releases more by its end",
+    };
+    format!(
+        "{facts}; {how}. The release goes on after each end (at the supply rate once steady), so totals by ends at different times do not compare: the horizons do"
+    )
 }
 
 // ---------------------------------------------------------------------------
@@ -1701,6 +1801,17 @@ fn vapour_tables(s: &Study, out: &mut String) {
         }
     }
     table.render(out);
+    if s.blanket_supply.is_some() {
+        for (h, v) in &holes {
+            let _ = writeln!(
+                out,
+                "  {} mm, at Cd {:.2}: {}.",
+                hole_label(h),
+                s.cd.chosen,
+                v.bounds_compared
+            );
+        }
+    }
     let _ = writeln!(
         out,
         "\nGas released, band over both bounds and Cd {:.2} to {:.2}:",
@@ -1710,19 +1821,56 @@ fn vapour_tables(s: &Study, out: &mut String) {
     for &t in &s.horizons_s {
         header.push((format!("in {}", horizon_label(t)), "kg".to_owned()));
     }
-    header.push(("by the end".to_owned(), "kg".to_owned()));
+    // Without a supply the release by the end is the release in all; with
+    // one, each bound ends at its own time and the release goes on, so each
+    // bound gets its own column, with its end times.
+    let supply = s.blanket_supply.is_some();
+    if supply {
+        for bound in ["isothermal", "adiabatic"] {
+            header.push((format!("{bound}, by its end"), "kg at h:mm:ss.s".to_owned()));
+        }
+    } else {
+        header.push(("in total".to_owned(), "kg".to_owned()));
+    }
     let mut table = Table::new(header);
+    let range = |low: String, high: String| {
+        if low == high {
+            low
+        } else {
+            format!("{low}–{high}")
+        }
+    };
     for (h, v) in &holes {
         let mut row = vec![hole_label(h)];
         for b in &v.band {
             row.push(format!("{}–{}", kg(b.low_kg), kg(b.high_kg)));
         }
-        let e = &v.released_by_end_band;
-        row.push(if v.isothermal.cd_chosen.end == "held" {
-            "—".to_owned()
+        if supply {
+            for e in [&v.isothermal_end, &v.adiabatic_end] {
+                row.push(
+                    match (
+                        e.released_low_kg,
+                        e.released_high_kg,
+                        e.after_low_s,
+                        e.after_high_s,
+                    ) {
+                        (Some(m0), Some(m1), Some(t0), Some(t1)) => format!(
+                            "{} at {}",
+                            range(kg(m0), kg(m1)),
+                            range(hms_tenths(t0), hms_tenths(t1))
+                        ),
+                        _ => "— (held)".to_owned(),
+                    },
+                );
+            }
         } else {
-            format!("{}–{}", kg(e.low_kg), kg(e.high_kg))
-        });
+            let e = &v.released_by_end_band;
+            row.push(if v.isothermal.cd_chosen.end == "held" {
+                "—".to_owned()
+            } else {
+                format!("{}–{}", kg(e.low_kg), kg(e.high_kg))
+            });
+        }
         table.rows.push(row);
     }
     table.render(out);
