@@ -169,6 +169,25 @@ pub fn fit_text(e: &Estimate, p: &LeakParams) -> String {
     }
 }
 
+/// The fit in a few words, for a line that updates in place: the effective
+/// area Cd·A first, then the round hole's diameters at the ends of the Cd
+/// range, as [`fit_text`] says it at length.
+pub fn fit_brief(e: &Estimate, p: &LeakParams) -> String {
+    match e.fit {
+        Fit::Ready { area_m2, .. } => {
+            let (cd_low, cd_high) = p.cd_band();
+            let diameter = |cd: f64| (4.0 * area_m2 / (std::f64::consts::PI * cd)).sqrt();
+            format!(
+                "fitted Cd·A {} (round: {} at Cd {cd_high} to {} at Cd {cd_low})",
+                mm2(area_m2),
+                mm(diameter(cd_high)),
+                mm(diameter(cd_low)),
+            )
+        }
+        Fit::NotYet { .. } => "hole: not enough level drop yet to fit".into(),
+    }
+}
+
 /// With a given hole: the Cd the level implies, and whether it is inside
 /// the range the band spans.
 pub fn implied_cd_text(e: &Estimate, p: &LeakParams) -> Option<String> {
