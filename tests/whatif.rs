@@ -4,8 +4,8 @@
 //! tank, the options and their refusals, and the JSON document.
 
 use crate::util::{
-    Finished, Scratch, Truth, binary, demo_site, now_ms, run, start_daemon, start_sim, toml_path,
-    wait_for,
+    Finished, Scratch, Truth, binary, demo_site, leaktally, now_ms, run, start_daemon, start_sim,
+    toml_path, wait_for,
 };
 use leaktally::model::GAS_CONSTANT;
 use serde_json::Value;
@@ -581,5 +581,61 @@ fn an_assumed_zero_headspace_is_said_in_the_text_and_the_json() {
     assert!(
         text.contains("WARNING:") && text.contains("ASSUMED"),
         "{text}"
+    );
+}
+
+/// `leak open` on a tank with an open event is refused by the daemon; the
+/// refusal is one line on stderr, ended, so that whatever the shell prints
+/// next starts a line of its own. (The end-to-end `leak` tests live in
+/// `tracking`; this one sits beside `whatif`'s other daemon.)
+#[test]
+fn a_refused_leak_open_ends_its_line() {
+    let scratch = Scratch::new("leak-refused");
+    let site = scratch.write("sim-site.toml", &demo_site("127.0.0.1:1"));
+    let scenario = scratch.write(
+        "scenario.toml",
+        &format!(
+            "site = {}\nseed = 5\n[[tank]]\nid = \"FF-T12\"\ninitial_level_m = 4.0\n\
+             [[tank]]\nid = \"FF-T14\"\ninitial_level_m = 1.6\n\
+             [[tank]]\nid = \"FF-T20\"\ninitial_level_m = 5.1\n",
+            toml_path(&site)
+        ),
+    );
+    let (_sim, address) = start_sim(&scratch, &scenario, "127.0.0.1:0");
+    let config = scratch.write("site.toml", &demo_site(&address));
+    let db = scratch.path("leaktally.db");
+    let _daemon = start_daemon(&scratch, "daemon", &config, &db);
+    let open = [
+        "leak",
+        "open",
+        "--tank",
+        "FF-T12",
+        "--hole-height",
+        "0.3",
+        "--cd",
+        "0.61",
+    ];
+    let first = leaktally(&scratch, &db, &open);
+    assert!(first.status.success(), "{}", first.stderr);
+    assert!(first.stdout.ends_with('\n'), "{:?}", first.stdout);
+    let refused = leaktally(&scratch, &db, &open);
+    assert!(!refused.status.success(), "{}", refused.stdout);
+    assert_eq!(refused.stdout, "");
+    assert!(
+        refused
+            .stderr
+            .ends_with("already has open event 1; revise or close it first\n"),
+        "{:?}",
+        refused.stderr
+    );
+    assert_eq!(
+        refused
+            .stderr
+            .lines()
+            .filter(|l| l.starts_with("error: "))
+            .count(),
+        1,
+        "{:?}",
+        refused.stderr
     );
 }
