@@ -643,6 +643,30 @@ fn outputs_never_replace_inputs_and_are_written_whole() {
         "is the same file as --csv",
     );
     refused(&["--csv", "sub"], "that is a folder");
+    // The name the readings' columns file would have, which the next
+    // replay of readings.csv would find by itself: refused before it
+    // exists, however spelled, and once it does.
+    let columns_name = "the name of the readings file's columns file";
+    refused(&["--csv", "readings.csv.columns.toml"], columns_name);
+    refused(
+        &["--csv", "./sub/../readings.csv.columns.toml"],
+        columns_name,
+    );
+    let columns = "[columns]\n\"utc\" = \"time\"\n";
+    scratch.write("other.columns.toml", columns);
+    refused(
+        &[
+            "--csv",
+            "readings.csv.columns.toml",
+            "--columns",
+            "other.columns.toml",
+        ],
+        columns_name,
+    );
+    assert!(!scratch.path("readings.csv.columns.toml").exists());
+    scratch.write("readings.csv.columns.toml", columns);
+    refused(&["--csv", "readings.csv.columns.toml"], input);
+    std::fs::remove_file(scratch.path("readings.csv.columns.toml")).unwrap();
     // Nothing was replaced, and no temporary file is left behind.
     assert_eq!(std::fs::read_to_string(&readings).unwrap(), text);
     assert_eq!(
@@ -699,6 +723,190 @@ fn outputs_never_replace_inputs_and_are_written_whole() {
         .filter(|n| n.ends_with(".tmp"))
         .collect();
     assert!(left.is_empty(), "temporary files left: {left:?}");
+}
+
+/// `leaktally replay --readings FILE --tank TANK --config demo.toml ARGS`
+/// in the scratch folder, which must succeed; its stdout.
+fn replay_readings_ok(scratch: &Scratch, tank: &str, file: &Path, args: &[&str]) -> String {
+    let mut cmd = Command::new(binary("leaktally"));
+    cmd.current_dir(&scratch.0)
+        .arg("replay")
+        .arg("--readings")
+        .arg(file)
+        .args(["--tank", tank, "--config"])
+        .arg(repo_config())
+        .args(args);
+    let done = run("replay", &mut cmd, scratch);
+    assert!(done.status.success(), "{args:?}: {}", done.stderr);
+    done.stdout
+}
+
+/// FF-T12's level falling for five minutes at 1 s, a ten-minute gap, then
+/// another hundred seconds: most of the total is bridged across the gap.
+/// Replayed with a 40 mm hole at 0.3 m (Cd not given) and `outputs`; the
+/// JSON summary and its warning codes.
+fn replay_across_a_gap(scratch: &Scratch, outputs: &[&str]) -> (Value, Vec<String>) {
+    let mut text = String::from("utc,level_m\n");
+    for i in (0..300).chain(900..1000) {
+        text += &format!("{},{}\n", 1_796_119_200 + i, 4.2 - 0.0005 * i as f64);
+    }
+    let readings = scratch.write("gap.csv", &text);
+    let mut args = vec!["--hole-diameter", "40", "--hole-height", "0.3", "--json"];
+    args.extend(outputs);
+    let doc: Value =
+        serde_json::from_str(&replay_readings_ok(scratch, "FF-T12", &readings, &args)).unwrap();
+    let codes: Vec<String> = doc["replayed"]["warnings"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|w| w.as_str().unwrap().to_owned())
+        .collect();
+    assert!(
+        codes.iter().any(|c| c == "bridged_gaps_dominate")
+            && codes.iter().any(|c| c == "cd_assumed"),
+        "{codes:?}"
+    );
+    (doc, codes)
+}
+
+/// The time series: the first format's columns first, then each
+/// estimate's phase, whether vapour is choked, and its warning codes.
+#[test]
+fn the_time_series_carries_every_warning_and_the_phase() {
+    let scratch = Scratch::new("replay-csv-warnings");
+    let (_, codes) = replay_across_a_gap(&scratch, &["--csv", "gap-series.csv"]);
+    let series = std::fs::read_to_string(scratch.path("gap-series.csv")).unwrap();
+    // No field holds a comma or a quote: a plain split reads it.
+    let mut lines = series.lines().map(|l| l.split(',').collect::<Vec<_>>());
+    let header = lines.next().unwrap();
+    assert_eq!(
+        header,
+        [
+            "time",
+            "at_ms",
+            "level_m",
+            "driving_pressure_pa",
+            "rate_kg_s",
+            "released_best_kg",
+            "released_low_kg",
+            "released_high_kg",
+            "inventory_kg",
+            "method",
+            "samples_used",
+            "samples_skipped",
+            "gaps_bridged",
+            "after_gap",
+            "phase",
+            "choked",
+            "warnings",
+        ]
+    );
+    let records: Vec<Vec<&str>> = lines.collect();
+    assert_eq!(records.len(), 400);
+    assert!(records.iter().all(|r| r.len() == header.len()));
+    // The last row's warnings are the final estimate's, in its order.
+    let last = records.last().unwrap();
+    assert_eq!(last[14], "liquid");
+    assert_eq!(last[15], "", "choked is for vapour only");
+    assert_eq!(last[16].split(';').collect::<Vec<_>>(), codes);
+    assert!(
+        records[0][16].split(';').any(|w| w == "no_loss_seen"),
+        "each row carries its own estimate's warnings: {:?}",
+        records[0]
+    );
+}
+
+/// The chart: each of the final estimate's warnings in words below the
+/// lower panel's axis, and the share bridged across the gap above the
+/// panels.
+#[test]
+fn the_chart_says_the_warnings_under_it() {
+    let scratch = Scratch::new("replay-chart-warnings");
+    let (doc, _) = replay_across_a_gap(&scratch, &["--plot", "gap.svg"]);
+    let svg = std::fs::read_to_string(scratch.path("gap.svg")).unwrap();
+    let chart = roxmltree::Document::parse(&svg).expect("well-formed XML");
+    let y_of = |starts: &str| -> f64 {
+        chart
+            .descendants()
+            .filter(|n| n.has_tag_name("text"))
+            .find(|n| n.text().is_some_and(|t| t.contains(starts)))
+            .unwrap_or_else(|| panic!("no {starts:?} in the chart"))
+            .attribute("y")
+            .unwrap()
+            .parse()
+            .unwrap()
+    };
+    let axis = chart
+        .descendants()
+        .filter(|n| n.text() == Some("time since the event start (min)"))
+        .filter_map(|n| n.attribute("y")?.parse::<f64>().ok())
+        .fold(0.0, f64::max);
+    let words = doc["replayed_words"]["warnings_text"].as_array().unwrap();
+    assert!(words.len() >= 3, "{words:?}");
+    for w in words {
+        let first: Vec<&str> = w.as_str().unwrap().split_whitespace().take(5).collect();
+        assert!(y_of(&first.join(" ")) > axis, "{w} in the data area");
+    }
+    assert!(y_of("was bridged across 1 data gap(s), not measured") < y_of("Release rate"));
+}
+
+/// The density, said as status says it: fixed for FF-T12, from the
+/// liquid's temperature for FF-T14 (methanol, 792 kg/m³ at 15 °C, 1.19e-3
+/// per °C), from the reference where no temperature is read, and given.
+#[test]
+fn the_replay_says_which_density_it_uses() {
+    let scratch = Scratch::new("replay-density");
+    let mut fixed = String::from("utc,level_m\n");
+    let mut warm = String::from("utc,level_m,pressure_kpa_g,temperature_c\n");
+    let mut bare = String::from("utc,level_m,pressure_kpa_g\n");
+    for i in 0..120 {
+        let t = 1_796_119_200 + i;
+        fixed += &format!("{t},{}\n", 4.2 - 0.0005 * i as f64);
+        let level = 1.6 - 0.0002 * i as f64;
+        warm += &format!("{t},{level},15.0,25.0\n");
+        bare += &format!("{t},{level},15.0\n");
+    }
+    let fixed = scratch.write("fixed.csv", &fixed);
+    let warm = scratch.write("warm.csv", &warm);
+    let bare = scratch.write("bare.csv", &bare);
+    let says = |tank: &str, file: &Path, args: &[&str], expected: &str| {
+        let text = replay_readings_ok(&scratch, tank, file, args);
+        assert!(text.contains(expected), "{expected:?} not in:\n{text}");
+        let mut json = args.to_vec();
+        json.push("--json");
+        let doc: Value =
+            serde_json::from_str(&replay_readings_ok(&scratch, tank, file, &json)).unwrap();
+        assert!(
+            expected.ends_with(doc["density_text"].as_str().unwrap()),
+            "{:#}",
+            doc["density_text"]
+        );
+    };
+    says(
+        "FF-T12",
+        &fixed,
+        &["--hole-height", "0.3"],
+        "density      840 kg/m³ (fixed)",
+    );
+    // 792 / (1 + 1.19e-3 * 10) = 782.7
+    says(
+        "FF-T14",
+        &warm,
+        &["--hole-height", "0.2"],
+        "density      783 kg/m³ at the liquid's 25.0 °C",
+    );
+    says(
+        "FF-T14",
+        &bare,
+        &["--hole-height", "0.2"],
+        "density      792 kg/m³ (the config's, at its reference temperature: no temperature reading)",
+    );
+    says(
+        "FF-T14",
+        &warm,
+        &["--hole-height", "0.2", "--density", "800"],
+        "density      800 kg/m³ (given, fixed)",
+    );
 }
 
 fn repo_config() -> std::path::PathBuf {

@@ -870,6 +870,11 @@ impl ScenarioTank {
         self.key("pressure_noise_pa", pa)
     }
 
+    /// The liquid's temperature, held for the whole run.
+    pub fn temperature_c(self, c: f64) -> Self {
+        self.key("temperature_c", c)
+    }
+
     /// A fixed offset of the pressure transmitter.
     pub fn pressure_bias_pa(self, pa: f64) -> Self {
         self.key("pressure_bias_pa", pa)

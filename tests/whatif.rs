@@ -4,8 +4,8 @@
 //! tank, the options and their refusals, and the JSON document.
 
 use crate::util::{
-    Finished, ScenarioBuilder, ScenarioTank, Scratch, Truth, binary, demo_site, now_ms, run,
-    start_daemon, start_sim, wait_for,
+    Finished, ScenarioBuilder, ScenarioTank, Scratch, Truth, binary, demo_site, leaktally, now_ms,
+    run, start_daemon, start_sim, toml_path, wait_for,
 };
 use leaktally::model::GAS_CONSTANT;
 use serde_json::Value;
@@ -63,7 +63,8 @@ fn demo_config() -> std::path::PathBuf {
 /// The headspace from the last good reading in the database: FF-T14's
 /// gauge transmitter in the headspace, and FF-T20's absolute transmitter low
 /// on the shell, which also reads the liquid column above it and must come
-/// out at the simulator's headspace (the truth file) once that is taken off.
+/// out at the simulator's headspace (the truth file) once that is taken off;
+/// and FF-T14's density at its last logged temperature, said as such.
 #[test]
 fn whatif_takes_the_headspace_from_the_last_logged_reading() {
     let scratch = Scratch::new("whatif-db");
@@ -73,7 +74,8 @@ fn whatif_takes_the_headspace_from_the_last_logged_reading() {
         .tank(
             ScenarioTank::new("FF-T14", 1.6)
                 .headspace_kpa(22.0)
-                .pressure_noise_pa(30.0),
+                .pressure_noise_pa(30.0)
+                .temperature_c(25.0),
         )
         .tank(
             ScenarioTank::new("FF-T20", 5.1)
@@ -130,6 +132,41 @@ fn whatif_takes_the_headspace_from_the_last_logged_reading() {
             "{tank}: the text names the reading and its time:\n{text}"
         );
     }
+    // FF-T14's methanol follows its temperature (792 kg/m³ at 15 °C,
+    // 1.19e-3 per °C): with --db, at the liquid's last logged temperature,
+    // read as 25 °C to the register's tenth of a degree, and said.
+    let doc = json(&scratch, &config, &["--tank", "FF-T14", "--db", db_text]);
+    let density = &doc["density"];
+    assert_eq!(density["source"], "logged_temperature", "{density:#}");
+    let logged_c = density["logged"]["temperature_c"].as_f64().unwrap();
+    assert!((logged_c - 25.0).abs() < 0.051, "{density:#}");
+    let expected = 792.0 / (1.0 + 1.19e-3 * (logged_c - 15.0));
+    assert!((density["kg_m3"].as_f64().unwrap() / expected - 1.0).abs() < 1e-12);
+    assert_eq!(doc["density_kg_m3"], density["kg_m3"]);
+    assert!(
+        doc["assumptions"].as_array().unwrap().iter().any(|a| a
+            .as_str()
+            .unwrap()
+            .contains("last good logged temperature, 25.0 °C")),
+        "{doc:#}"
+    );
+    let text = whatif_ok(&scratch, &config, &["--tank", "FF-T14", "--db", db_text]);
+    assert!(
+        text.contains("density    783 kg/m³: at the liquid's last good logged temperature"),
+        "{text}"
+    );
+    // Without --db, the reference density, said to be one.
+    let doc = json(&scratch, &config, &["--tank", "FF-T14"]);
+    assert_eq!(doc["density"]["source"], "reference_temperature");
+    assert_eq!(doc["density_kg_m3"], 792.0);
+    assert!(
+        doc["density"]["explanation"]
+            .as_str()
+            .unwrap()
+            .contains("NOT at the liquid's temperature"),
+        "{doc:#}"
+    );
+
     let t20 = json(&scratch, &config, &["--tank", "FF-T20", "--db", db_text]);
     assert_eq!(t20["headspace"]["logged"]["tap"], "submerged");
     assert_eq!(t20["headspace"]["logged"]["reference"], "absolute");
@@ -256,6 +293,84 @@ fn a_hole_above_the_liquid_of_the_blanketed_tank_vents_its_gas() {
     let text = whatif_ok(&scratch, &config, &on);
     assert!(text.contains("blanket supply on at 50 Nm³/h"), "{text}");
     assert!(text.contains("steady at"), "{text}");
+
+    // The supply keeps feeding the adiabatic bound's cooler, denser gas:
+    // it ends later and has released more by then, so neither "less,
+    // sooner" nor one band "by the end" over both would be true. Each
+    // bound's own end and total are given, and the horizons compare them.
+    let (iso, adi) = (&v["isothermal"]["cd_chosen"], &v["adiabatic"]["cd_chosen"]);
+    let f = |x: &Value, key: &str| x[key].as_f64().unwrap();
+    assert!(
+        f(adi, "end_after_s") > f(iso, "end_after_s")
+            && f(adi, "released_by_end_kg") > f(iso, "released_by_end_kg"),
+        "{v:#}"
+    );
+    for (bound, end) in [
+        ("isothermal", &v["isothermal_end"]),
+        ("adiabatic", &v["adiabatic_end"]),
+    ] {
+        let runs: Vec<&Value> = ["cd_low", "cd_chosen", "cd_high"]
+            .iter()
+            .map(|cd| &v[bound][*cd])
+            .collect();
+        let over = |key: &str, pick: fn(f64, f64) -> f64| {
+            runs.iter().map(|r| f(r, key)).reduce(pick).unwrap()
+        };
+        assert_eq!(
+            f(end, "after_low_s"),
+            over("end_after_s", f64::min),
+            "{bound}"
+        );
+        assert_eq!(
+            f(end, "after_high_s"),
+            over("end_after_s", f64::max),
+            "{bound}"
+        );
+        assert_eq!(
+            f(end, "released_low_kg"),
+            over("released_by_end_kg", f64::min)
+        );
+        assert_eq!(
+            f(end, "released_high_kg"),
+            over("released_by_end_kg", f64::max)
+        );
+    }
+    assert!(
+        v["bounds_compared"]
+            .as_str()
+            .unwrap()
+            .contains("the adiabatic bound ends later and releases more by its end"),
+        "{v:#}"
+    );
+    // Every horizon's band spans both bounds at that same time.
+    for (k, band) in v["band"].as_array().unwrap().iter().enumerate() {
+        for bound in ["isothermal", "adiabatic"] {
+            let at = f(&v[bound]["cd_chosen"]["horizons"][k], "released_kg");
+            assert!(
+                f(band, "low_kg") <= at && at <= f(band, "high_kg"),
+                "{band:#}"
+            );
+        }
+    }
+    assert!(
+        !text.contains("less, sooner") && !text.contains("by the end"),
+        "{text}"
+    );
+    for expected in [
+        "neither bound releases more throughout",
+        "isothermal, by its end",
+        "adiabatic, by its end",
+        "ends later and releases more by its end",
+    ] {
+        assert!(text.contains(expected), "missing {expected:?} in:\n{text}");
+    }
+    // Without a supply nothing is released after the end: the totals
+    // compare, and the text may say which bound releases less, sooner.
+    let text = whatif_ok(&scratch, &config, &args);
+    assert!(
+        text.contains("in total") && text.contains("less, sooner"),
+        "{text}"
+    );
 }
 
 /// Liquid holes: rates in kg/s and m³/h, user horizons, time to a level,
@@ -457,5 +572,61 @@ fn an_assumed_zero_headspace_is_said_in_the_text_and_the_json() {
     assert!(
         text.contains("WARNING:") && text.contains("ASSUMED"),
         "{text}"
+    );
+}
+
+/// `leak open` on a tank with an open event is refused by the daemon; the
+/// refusal is one line on stderr, ended, so that whatever the shell prints
+/// next starts a line of its own. (The end-to-end `leak` tests live in
+/// `tracking`; this one sits beside `whatif`'s other daemon.)
+#[test]
+fn a_refused_leak_open_ends_its_line() {
+    let scratch = Scratch::new("leak-refused");
+    let site = scratch.write("sim-site.toml", &demo_site("127.0.0.1:1"));
+    let scenario = scratch.write(
+        "scenario.toml",
+        &format!(
+            "site = {}\nseed = 5\n[[tank]]\nid = \"FF-T12\"\ninitial_level_m = 4.0\n\
+             [[tank]]\nid = \"FF-T14\"\ninitial_level_m = 1.6\n\
+             [[tank]]\nid = \"FF-T20\"\ninitial_level_m = 5.1\n",
+            toml_path(&site)
+        ),
+    );
+    let (_sim, address) = start_sim(&scratch, &scenario, "127.0.0.1:0");
+    let config = scratch.write("site.toml", &demo_site(&address));
+    let db = scratch.path("leaktally.db");
+    let _daemon = start_daemon(&scratch, "daemon", &config, &db);
+    let open = [
+        "leak",
+        "open",
+        "--tank",
+        "FF-T12",
+        "--hole-height",
+        "0.3",
+        "--cd",
+        "0.61",
+    ];
+    let first = leaktally(&scratch, &db, &open);
+    assert!(first.status.success(), "{}", first.stderr);
+    assert!(first.stdout.ends_with('\n'), "{:?}", first.stdout);
+    let refused = leaktally(&scratch, &db, &open);
+    assert!(!refused.status.success(), "{}", refused.stdout);
+    assert_eq!(refused.stdout, "");
+    assert!(
+        refused
+            .stderr
+            .ends_with("already has open event 1; revise or close it first\n"),
+        "{:?}",
+        refused.stderr
+    );
+    assert_eq!(
+        refused
+            .stderr
+            .lines()
+            .filter(|l| l.starts_with("error: "))
+            .count(),
+        1,
+        "{:?}",
+        refused.stderr
     );
 }

@@ -13,7 +13,7 @@
 //! lowest low and highest high, so the shaded band still covers every
 //! estimate; the best line passes through the last estimate of each point.
 
-use crate::estimate::Figures;
+use crate::estimate::{Estimate, Figures, LeakParams, Warning};
 use crate::report;
 use anyhow::Context;
 use plotters::prelude::*;
@@ -24,11 +24,23 @@ pub struct ChartLabels<'a> {
     pub event: Option<i64>,
     /// One line on the parameters, e.g. "hole 40.0 mm at 0.30 m, Cd 0.61".
     pub params: &'a str,
+    /// The final estimate and the parameters it rests on: its warnings are
+    /// listed under the chart, in words.
+    pub last: &'a Estimate,
+    pub leak: &'a LeakParams,
 }
+
+/// The width of the chart, and the most characters of a note line under
+/// it (12 px sans-serif averages well under 7 px a character).
+const WIDTH: u32 = 1000;
+const NOTE_CHARS: usize = 160;
+/// The height of a line of notes under the chart, px.
+const NOTE_LINE: i32 = 16;
 
 const BAND: RGBColor = RGBColor(0xf2, 0xb8, 0x6b);
 const BEST: RGBColor = RGBColor(0x1d, 0x3c, 0x6e);
 const THRESHOLD: RGBColor = RGBColor(0xa8, 0x1c, 0x1c);
+const WARNING: RGBColor = RGBColor(0x9a, 0x4a, 0x00);
 
 /// One point of the chart: one estimate, or several neighbouring ones
 /// thinned into one.
@@ -202,17 +214,53 @@ pub fn render_svg(
         ),
     };
 
+    // Under the chart, outside the data area: the final estimate's
+    // warnings in words, then the caution.
+    let warnings = report::estimate::warnings_text(labels.last, labels.leak);
+    // (text, a warning's colour, its indent in px)
+    let mut notes: Vec<(String, bool, i32)> = Vec::new();
+    if warnings.is_empty() {
+        notes.push(("No warnings at the end of the replay.".to_owned(), false, 0));
+    } else {
+        notes.push(("Warnings at the end of the replay:".to_owned(), true, 0));
+        for w in &warnings {
+            for (i, line) in wrap(w, NOTE_CHARS - 4).into_iter().enumerate() {
+                match i {
+                    0 => notes.push((format!("• {line}"), true, 0)),
+                    _ => notes.push((line, true, 10)),
+                }
+            }
+        }
+    }
+    for line in wrap(report::CAUTION, NOTE_CHARS) {
+        notes.push((line, false, 0));
+    }
+    // Above it, when most of the total (or a large part: the warning's
+    // threshold) was bridged across data gaps rather than measured.
+    let bridged = bridged_headline(labels.last);
+    let header = if bridged.is_some() { 80 } else { 60 };
+    let footer = 14 + NOTE_LINE * notes.len() as i32;
+    let height = header as u32 + 660 + footer as u32;
+
     let mut svg = String::new();
     {
-        let root = SVGBackend::with_string(&mut svg, (1000, 760)).into_drawing_area();
+        let root = SVGBackend::with_string(&mut svg, (WIDTH, height)).into_drawing_area();
         root.fill(&WHITE).map_err(plot_error)?;
-        let (top, rest) = root.split_vertically(60);
+        let (top, rest) = root.split_vertically(header);
         top.draw(&Text::new(
             title,
             (20, 15),
             ("sans-serif", 22).into_font().color(&BLACK),
         ))
         .map_err(plot_error)?;
+        if let Some(line) = bridged {
+            top.draw(&Text::new(
+                line,
+                (20, 60),
+                ("sans-serif", 14).into_font().color(&WARNING),
+            ))
+            .map_err(plot_error)?;
+        }
         let thinned = if series.per_point() > 1 {
             format!(
                 "; {} estimates, up to {} a point",
@@ -224,7 +272,7 @@ pub fn render_svg(
         };
         top.draw(&Text::new(
             format!(
-                "from {}; band: shaded{thinned}; caution below",
+                "from {}; band: shaded{thinned}; warnings and caution below",
                 report::utc(t0)
             ),
             (20, 40),
@@ -279,16 +327,61 @@ pub fn render_svg(
             &lines,
         )?;
 
-        footer
-            .draw(&Text::new(
-                report::CAUTION.to_owned(),
-                (20, 10),
-                ("sans-serif", 12).into_font().color(&RGBColor(120, 20, 20)),
-            ))
-            .map_err(plot_error)?;
+        for (i, (line, warning, indent)) in notes.into_iter().enumerate() {
+            let color = if warning {
+                WARNING
+            } else {
+                RGBColor(120, 20, 20)
+            };
+            footer
+                .draw(&Text::new(
+                    line,
+                    (20 + indent, 6 + NOTE_LINE * i as i32),
+                    ("sans-serif", 12).into_font().color(&color),
+                ))
+                .map_err(plot_error)?;
+        }
         root.present().map_err(plot_error)?;
     }
     Ok(svg)
+}
+
+/// The line above the chart when the final total rests largely on data
+/// gaps bridged by the forecast (the warning `bridged_gaps_dominate`).
+fn bridged_headline(last: &Estimate) -> Option<String> {
+    if !last.warnings.contains(Warning::BridgedGapsDominate) {
+        return None;
+    }
+    let q = &last.quality;
+    let share = 100.0 * q.bridged_kg / last.released_best_kg.max(1e-9);
+    let how_much = if share > 50.0 {
+        format!("Most of the final total ({} %)", report::significant(share))
+    } else {
+        format!("{} % of the final total", report::significant(share))
+    };
+    Some(format!(
+        "{how_much} was bridged across {} data gap(s), not measured: see the warnings below",
+        q.gaps_bridged
+    ))
+}
+
+/// `text` in lines of at most about `width` characters, broken at spaces.
+fn wrap(text: &str, width: usize) -> Vec<String> {
+    let mut lines = Vec::new();
+    let mut line = String::new();
+    for word in text.split_whitespace() {
+        if !line.is_empty() && line.chars().count() + 1 + word.chars().count() > width {
+            lines.push(std::mem::take(&mut line));
+        }
+        if !line.is_empty() {
+            line.push(' ');
+        }
+        line.push_str(word);
+    }
+    if !line.is_empty() {
+        lines.push(line);
+    }
+    lines
 }
 
 /// One of the two panels: what it shows of each estimate.
@@ -384,6 +477,11 @@ mod tests {
     /// Estimates of a real estimator on a draining tank: `n` samples, 1 s
     /// apart, with a little level noise so the band moves.
     fn estimates(n: usize) -> Vec<Figures> {
+        run(n).0
+    }
+
+    /// The same, with the final whole estimate and the parameters.
+    fn run(n: usize) -> (Vec<Figures>, Estimate, LeakParams) {
         let text = std::fs::read_to_string(
             std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("../config/demo.toml"),
         )
@@ -398,7 +496,7 @@ mod tests {
             ..LeakParams::default()
         };
         let mut estimator = Estimator::new(tank, params, 0, 1000).unwrap();
-        (0..n)
+        let figures = (0..n)
             .filter_map(|i| {
                 let wobble = if i % 7 == 0 { 0.002 } else { 0.0 };
                 estimator.push(&TankSample {
@@ -412,7 +510,19 @@ mod tests {
                     leak_flag: None,
                 })
             })
-            .collect()
+            .collect();
+        (figures, estimator.estimate().unwrap(), params)
+    }
+
+    /// The y coordinate of the SVG text element that holds `text`.
+    fn text_y(svg: &str, text: &str) -> f64 {
+        let text = text.replace('\'', "&apos;");
+        let at = svg
+            .find(&text)
+            .unwrap_or_else(|| panic!("no {text:?} in the chart"));
+        let tag = svg[..at].rfind("<text").unwrap();
+        let y = svg[tag..at].find(" y=\"").unwrap() + tag + 4;
+        svg[y..y + svg[y..].find('"').unwrap()].parse().unwrap()
     }
 
     #[test]
@@ -450,7 +560,7 @@ mod tests {
 
     #[test]
     fn a_short_series_keeps_every_estimate() {
-        let all = estimates(30);
+        let (all, last, leak) = run(30);
         let mut series = ChartSeries::new(ChartSeries::DEFAULT_MAX_POINTS);
         for e in &all {
             series.push(e);
@@ -462,9 +572,70 @@ mod tests {
             tank: "FF-T12",
             event: None,
             params: "hole 40.0 mm",
+            last: &last,
+            leak: &leak,
         };
         let svg = render_svg(&series, &[250.0], &labels).unwrap();
         assert!(svg.contains("Cumulative release") && !svg.contains("estimates, up to"));
         assert!(render_svg(&ChartSeries::new(10), &[], &labels).is_err());
+    }
+
+    /// Every warning of the final estimate is said in words under the
+    /// chart, below its data area, and a total that rests mostly on
+    /// bridged gaps is said above it.
+    #[test]
+    fn the_chart_lists_the_final_warnings_and_a_bridged_total() {
+        let (all, mut last, leak) = run(30);
+        let mut series = ChartSeries::new(ChartSeries::DEFAULT_MAX_POINTS);
+        for e in &all {
+            series.push(e);
+        }
+        last.warnings.insert(Warning::BridgedGapsDominate);
+        last.warnings.insert(Warning::HoleHeightAssumed);
+        last.quality.gaps_bridged = 2;
+        last.quality.longest_gap_s = 300.0;
+        last.quality.bridged_kg = 0.8 * last.released_best_kg;
+        let labels = ChartLabels {
+            tank: "FF-T12",
+            event: Some(3),
+            params: "hole 40.0 mm",
+            last: &last,
+            leak: &leak,
+        };
+        let svg = render_svg(&series, &[250.0], &labels).unwrap();
+        let bottom_axis = text_y(&svg, "time since the event start (min)");
+        let words = report::estimate::warnings_text(&last, &leak);
+        assert!(words.len() >= 2, "{words:?}");
+        for w in &words {
+            // Long warnings are wrapped: their first words start a line.
+            let start: String = w.split_whitespace().take(6).collect::<Vec<_>>().join(" ");
+            assert!(
+                text_y(&svg, &start) > bottom_axis,
+                "{start:?} in the data area"
+            );
+        }
+        assert!(text_y(&svg, "CAUTION") > text_y(&svg, "Warnings at the end"));
+        let headline = "Most of the final total (80.0 %) was bridged across 2 data gap(s)";
+        assert!(text_y(&svg, headline) < text_y(&svg, "Release rate"));
+
+        // Without the warning, no headline; without warnings, said so.
+        last.warnings = Default::default();
+        let labels = ChartLabels {
+            tank: "FF-T12",
+            event: Some(3),
+            params: "hole 40.0 mm",
+            last: &last,
+            leak: &leak,
+        };
+        let svg = render_svg(&series, &[], &labels).unwrap();
+        assert!(!svg.contains("was bridged across"));
+        assert!(svg.contains("No warnings at the end of the replay."));
+    }
+
+    #[test]
+    fn notes_wrap_at_spaces() {
+        let lines = wrap("aaa bbb ccc ddd", 7);
+        assert_eq!(lines, vec!["aaa bbb", "ccc ddd"]);
+        assert_eq!(wrap("", 10), Vec::<String>::new());
     }
 }

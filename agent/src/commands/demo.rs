@@ -11,6 +11,7 @@
 
 use crate::actions::{self, Request};
 use crate::commands::{status::read as read_status, whatif};
+use crate::estimate::{Estimate, LeakParams};
 use crate::model::{DischargeCoefficient, Length, Mass, MassRate, TimeSpan};
 use crate::report;
 use crate::status::{self, StatusDocument};
@@ -231,7 +232,12 @@ async fn narrate(
     for second in 1..=seconds {
         sleep_or_stop(Duration::from_secs(1), stop).await?;
         let doc = read_status(db, Some(event))?;
-        let line = progress_line(second, &doc);
+        let line = progress_line(
+            second,
+            doc.events
+                .first()
+                .and_then(|e| e.estimate.as_ref().map(|est| (&est.estimate, &e.params))),
+        );
         if terminal {
             print!("\r\x1b[2K{line}");
             std::io::stdout().flush()?;
@@ -285,15 +291,15 @@ fn web_address(dir: &Path) -> Option<String> {
         .map(str::to_owned)
 }
 
-fn progress_line(second: u64, doc: &StatusDocument) -> String {
-    let Some(est) = doc.events.first().and_then(|e| e.estimate.as_ref()) else {
+/// The live line: the total with its band, the rate, the method, the
+/// fitted hole as an effective area first (a fitted hole is an area, not a
+/// measured diameter), and when the flow stops.
+fn progress_line(second: u64, latest: Option<(&Estimate, &LeakParams)>) -> String {
+    let Some((est, params)) = latest else {
         return format!("+{second:>3} s  waiting for the first sample");
     };
     let kg = |x: f64| report::mass(Mass::kilograms(x));
-    let hole = match est.fitted_diameter_m {
-        Some(d) => format!("fitted hole {:.1} mm", d * 1000.0),
-        None => "hole: not enough data yet".to_owned(),
-    };
+    let hole = report::estimate::fit_brief(est, params);
     let stops = est.forecast.map_or(String::new(), |f| {
         format!(
             " | stops in {}",
@@ -366,4 +372,49 @@ fn print_what_if(dir: &Path, doc: &StatusDocument) -> anyhow::Result<()> {
     )?;
     print!("{}", whatif::human(&study));
     Ok(())
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::estimate::Fit;
+
+    /// The live line says the fitted hole as an effective area first, with
+    /// round-hole diameters only at the ends of the Cd range, never the
+    /// first format's single diameter.
+    #[test]
+    fn the_live_line_gives_the_fitted_hole_as_an_area_first() {
+        // Cd·A = 754 mm² is a 40 mm hole at Cd 0.6 (π/4 · 40² · 0.6 = 754).
+        let area = 0.6 * std::f64::consts::FRAC_PI_4 * 0.04 * 0.04;
+        let est = Estimate {
+            fit: Fit::Ready {
+                area_m2: area,
+                area_low_m2: 0.95 * area,
+                area_high_m2: 1.05 * area,
+            },
+            fitted_diameter_m: Some(0.04),
+            ..Estimate::blank()
+        };
+        let params = LeakParams {
+            cd_range: Some((0.6, 1.0)),
+            cd: 0.6,
+            ..LeakParams::default()
+        };
+        let line = progress_line(30, Some((&est, &params)));
+        assert!(!line.contains("fitted hole 40.0 mm"), "{line}");
+        let area_at = line.find("Cd·A 754 mm²").expect(&line);
+        let diameters = line
+            .find("31.0 mm at Cd 1 to 40.0 mm at Cd 0.6")
+            .expect(&line);
+        assert!(area_at < diameters, "{line}");
+        let waiting = Estimate {
+            fit: Fit::NotYet {
+                level_drop_m: 0.001,
+                needed_m: 0.01,
+            },
+            ..Estimate::blank()
+        };
+        let line = progress_line(5, Some((&waiting, &params)));
+        assert!(line.contains("not enough level drop yet"), "{line}");
+    }
 }

@@ -280,6 +280,8 @@ pub struct Summary {
     pub replayed: Estimate,
     /// The same in words: why, the fit, the band, every warning.
     pub replayed_words: report::estimate::Words,
+    /// The density the replayed figures use, and why that one, in words.
+    pub density_text: String,
     /// The final logged live estimate, for an event.
     pub live: Option<Estimate>,
     /// The estimator version that logged the live figures (absent: an
@@ -430,6 +432,7 @@ fn replay_event(
         from: report::utc(from),
         to: report::utc(replayed.at_ms),
         replayed_words: report::estimate::Words::of(&replayed, &params),
+        density_text: density_text(tank, &params, &replayed),
         replayed,
         live: live_last,
         live_estimator_version: live_version,
@@ -443,6 +446,21 @@ fn replay_event(
     let reportable: Vec<f64> = tank.reportable.iter().map(|m| m.si()).collect();
     sink.finish(&mut summary, &reportable)?;
     Ok(summary)
+}
+
+/// The density an estimate uses, and why: given with `--density` (or
+/// logged with the event), the liquid's temperature through the config's
+/// expansion data, the config's reference density where no temperature was
+/// read, or the config's one density.
+fn density_text(tank: &Tank, params: &LeakParams, e: &Estimate) -> String {
+    use report::estimate::DensityBasis;
+    let basis = match (params.density_kg_m3, e.temperature_k) {
+        (Some(_), _) => DensityBasis::Given,
+        _ if !tank.density.follows_temperature() => DensityBasis::Fixed,
+        (None, Some(t)) => DensityBasis::Temperature(t),
+        (None, None) => DensityBasis::Reference,
+    };
+    report::estimate::density_text(e.density_kg_m3, basis)
 }
 
 /// The database and the files SQLite keeps beside it.
@@ -539,6 +557,7 @@ fn replay_readings(
     // Checked before the work starts, so a refusal costs nothing; the
     // sink itself is made per pass below.
     check_outputs(outputs, &inputs)?;
+    refuse_columns_file_name(outputs, file)?;
     let config = crate::config::load(config_path)?;
     let (tank, interval) = tank_of(&config, tank_id)?;
     let params = LeakParams::default().with(&overrides.change);
@@ -666,6 +685,7 @@ fn replay_readings(
         from: report::utc(from),
         to: report::utc(replayed.at_ms),
         replayed_words: report::estimate::Words::of(&replayed, &params),
+        density_text: density_text(tank, &params, &replayed),
         replayed,
         live: None,
         live_estimator_version: None,
@@ -840,6 +860,14 @@ struct Row<'a> {
     samples_skipped: u64,
     gaps_bridged: u64,
     after_gap: bool,
+    // Appended after the first format's columns, so readers that take the
+    // columns by position keep working.
+    /// `liquid`, `vapour` or `none`.
+    phase: &'a str,
+    /// For vapour, whether the flow is choked; empty otherwise.
+    choked: Option<bool>,
+    /// The estimate's warning codes, joined by `;`.
+    warnings: String,
 }
 
 /// Where each estimate goes as it comes: the CSV, the chart's thinned
@@ -923,6 +951,8 @@ impl Sink {
                 tank: &summary.tank,
                 event: summary.event,
                 params: &summary.params_text,
+                last: &summary.replayed,
+                leak: &summary.params,
             };
             let svg = plot::render_svg(&series, reportable, &labels)?;
             let mut file = File::options()
@@ -962,6 +992,14 @@ fn write_row(w: &mut csv::Writer<File>, e: &Estimate, hole_height_m: f64) -> any
         samples_skipped: e.quality.samples_skipped,
         gaps_bridged: e.quality.gaps_bridged,
         after_gap: e.after_gap,
+        phase: report::estimate::phase_code(e.phase),
+        choked: e.choked,
+        warnings: e
+            .warnings
+            .iter()
+            .map(report::estimate::warning_code)
+            .collect::<Vec<_>>()
+            .join(";"),
     })?;
     Ok(())
 }
@@ -1018,6 +1056,26 @@ fn check_outputs(outputs: &Outputs, inputs: &[(String, PathBuf)]) -> anyhow::Res
             bail!(
                 "{flag} {}: the file exists and was left as it is; give --force to replace it, or another name",
                 path.display()
+            );
+        }
+    }
+    Ok(())
+}
+
+/// Refuses an output named as the readings file's columns file
+/// (`FILE.columns.toml` beside it), whether or not that exists: the next
+/// replay of the readings would take the output for its columns file.
+fn refuse_columns_file_name(outputs: &Outputs, readings: &Path) -> anyhow::Result<()> {
+    let beside = readings::columns_file_beside(readings);
+    for (flag, path) in [("--csv", &outputs.csv), ("--plot", &outputs.plot)] {
+        if let Some(path) = path
+            && same_file(path, &beside)
+        {
+            bail!(
+                "{flag} {}: that is the name of the readings file's columns file ({}), which every replay of {} reads by itself when it exists; an output never takes an input's name, so give another file name",
+                path.display(),
+                beside.display(),
+                readings.display()
             );
         }
     }
@@ -1217,6 +1275,7 @@ pub fn human(s: &Summary) -> String {
         live.map(|l| l.inventory_kg.map_or("-".into(), kg)),
     );
     let _ = writeln!(out, "phase        {}", w.phase_text);
+    let _ = writeln!(out, "density      {}", s.density_text);
     let _ = writeln!(out, "best from    {}", w.method_reason);
     let _ = writeln!(out, "band from    {}", w.band_text);
     let _ = writeln!(out, "fitted hole  {}", w.fit_status);

@@ -10,7 +10,10 @@
 //! * gas: the blowdown of the gas space to ambient (or to the pressure a
 //!   blanket supply holds) between its isothermal and adiabatic bounds, by
 //!   `model::blowdown`: the initial rate, how long the flow stays choked,
-//!   when it ends, the release by each horizon and in total;
+//!   when each bound ends, the release by each horizon (like with like)
+//!   and by each bound's own end (with a supply the bounds end at
+//!   different times, and the adiabatic one may end later and release
+//!   more);
 //!
 //! and when each reportable quantity (and a given level) is reached.
 //! Everything the figures rest on is said with where it came from: above
@@ -29,9 +32,10 @@ use crate::estimate::{
 };
 use crate::model::blowdown::{Blowdown, BlowdownEnd, BlowdownForecast, Thermal, Ullage};
 use crate::model::{
-    AbsolutePressure, DischargeCoefficient, GAS_CONSTANT, GasProperties, GasRegime, Hole, Length,
-    Mass, MassRate, Pressure, PressureReading, PressureTap, TankState, TimeSpan,
-    blowdown::ullage_volume, forecast::time_to_release, forecast_liquid,
+    AbsolutePressure, Density, DensityModel, DischargeCoefficient, GAS_CONSTANT, GasProperties,
+    GasRegime, Hole, Length, Mass, MassRate, Pressure, PressureReading, PressureTap, TankState,
+    Temperature, TimeSpan, Vessel, blowdown::ullage_volume, forecast::time_to_release,
+    forecast_liquid,
 };
 use crate::report;
 use crate::store;
@@ -136,6 +140,8 @@ pub struct Request {
     /// Empty: the representative sizes.
     pub holes: Vec<HoleSize>,
     pub headspace: Headspace,
+    /// The liquid density, and why that one.
+    pub density: DensityUsed,
     /// `None`: +15 min and +1 h.
     pub horizons: Option<Vec<TimeSpan>>,
     pub to_level: Option<Length>,
@@ -151,6 +157,7 @@ impl Request {
             cd: None,
             holes: Vec::new(),
             headspace: headspace_from_config(tank, Vec::new()),
+            density: density_from_config(tank, None),
             horizons: None,
             to_level: None,
             supply: None,
@@ -428,6 +435,152 @@ fn last_logged_headspace(
 }
 
 // ---------------------------------------------------------------------------
+// The liquid density and where it comes from
+
+/// The liquid density a study uses, and why that one.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct DensityUsed {
+    pub kg_m3: f64,
+    /// `fixed` (the config's one density), `logged_temperature` (at the
+    /// liquid's last good logged temperature, through the config's
+    /// expansion_per_c or density_table) or `reference_temperature` (the
+    /// config's density_kg_m3, not at the liquid's temperature).
+    pub source: &'static str,
+    pub explanation: String,
+    pub logged: Option<LoggedTemperature>,
+    /// What the user should know about it (an old reading).
+    #[serde(skip)]
+    pub warnings: Vec<String>,
+}
+
+/// A temperature reading taken from the database.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct LoggedTemperature {
+    pub database: String,
+    pub at_ms: i64,
+    pub at: String,
+    /// How old it was when the study was made.
+    pub age_s: f64,
+    pub temperature_c: f64,
+}
+
+/// What the config's density follows, for the explanations.
+fn density_model_name(model: &DensityModel) -> &'static str {
+    match model {
+        DensityModel::Constant(_) => "density_kg_m3",
+        DensityModel::Expansion { .. } => "expansion_per_c",
+        DensityModel::Table(_) => "density_table",
+    }
+}
+
+/// The density from the config alone: its one density, or, where the
+/// density follows the liquid's temperature, density_kg_m3 at the config's
+/// reference temperature, said as such with `why_not` the liquid's.
+pub fn density_from_config(tank: &Tank, why_not: Option<String>) -> DensityUsed {
+    let rho = tank.vessel.density().si();
+    let (source, explanation) = match &tank.density {
+        DensityModel::Constant(_) if tank.temperature.is_some() => (
+            "fixed",
+            "the config's density_kg_m3, fixed: the config gives no expansion_per_c or density_table, so the liquid's temperature does not change it".to_owned(),
+        ),
+        DensityModel::Constant(_) => ("fixed", "the config's density_kg_m3".to_owned()),
+        model => {
+            let at = match model {
+                DensityModel::Expansion { at, .. } => format!(
+                    "at its reference temperature, {} °C",
+                    report::significant(at.si() - 273.15)
+                ),
+                _ => "as given, not through its density_table".to_owned(),
+            };
+            (
+                "reference_temperature",
+                format!(
+                    "the config's density_kg_m3 {at}, NOT at the liquid's temperature: {}",
+                    why_not.unwrap_or_else(|| {
+                        "give --db FILE for the last logged temperature".to_owned()
+                    })
+                ),
+            )
+        }
+    };
+    DensityUsed {
+        kg_m3: rho,
+        source,
+        explanation,
+        logged: None,
+        warnings: Vec::new(),
+    }
+}
+
+/// The density a study uses: with `--db` and a tank whose density follows
+/// its temperature sensor, at the liquid's last good logged temperature
+/// (read-only, like the pressure); else from the config, said as such.
+pub fn liquid_density(tank: &Tank, db: Option<&Path>, now_ms: i64) -> anyhow::Result<DensityUsed> {
+    let (Some(db), Some(sensor)) = (db, &tank.temperature) else {
+        return Ok(density_from_config(tank, None));
+    };
+    if !tank.density.follows_temperature() {
+        return Ok(density_from_config(tank, None));
+    }
+    let conn = store::open_read_only(db)
+        .with_context(|| format!("--db {}: reading the last logged temperature", db.display()))?;
+    // The recent samples first, as for the pressure.
+    for from_ms in [now_ms.saturating_sub(15 * 60 * 1000), i64::MIN] {
+        let samples = store::samples_between(&conn, &tank.id, from_ms, i64::MAX)?;
+        let last = samples.iter().rev().find_map(|sample| {
+            let kelvin = sample
+                .temperature
+                .and_then(|r| r.value.filter(|&v| r.is_good() && sensor.accepts(v)))?;
+            Some((sample.at_ms, kelvin))
+        });
+        if let Some((at_ms, kelvin)) = last {
+            let logged = LoggedTemperature {
+                database: db.display().to_string(),
+                at_ms,
+                at: report::utc(at_ms),
+                age_s: (now_ms - at_ms) as f64 / 1000.0,
+                temperature_c: kelvin - 273.15,
+            };
+            let mut warnings = Vec::new();
+            if logged.age_s > OLD_READING_S {
+                warnings.push(format!(
+                    "the last good temperature reading of tank {} in {} is {} old ({}); the liquid's density may have changed since",
+                    tank.id,
+                    logged.database,
+                    report::duration(TimeSpan::seconds(logged.age_s)),
+                    logged.at
+                ));
+            }
+            return Ok(DensityUsed {
+                kg_m3: tank.density.at(Some(Temperature::kelvin(kelvin))).si(),
+                source: "logged_temperature",
+                explanation: format!(
+                    "at the liquid's last good logged temperature, {} °C, in {} at {} ({} old), through the config's {}",
+                    report::significant(logged.temperature_c),
+                    logged.database,
+                    logged.at,
+                    report::duration(TimeSpan::seconds(logged.age_s)),
+                    density_model_name(&tank.density)
+                ),
+                logged: Some(logged),
+                warnings,
+            });
+        }
+        if from_ms == i64::MIN {
+            break;
+        }
+    }
+    Ok(density_from_config(
+        tank,
+        Some(format!(
+            "{} holds no good temperature reading of tank {}",
+            db.display(),
+            tank.id
+        )),
+    ))
+}
+
+// ---------------------------------------------------------------------------
 // The study as figures (the JSON document)
 
 /// A figure at the chosen Cd and at the band's two ends.
@@ -475,6 +628,8 @@ pub struct Study {
     pub tank: String,
     pub substance: String,
     pub density_kg_m3: f64,
+    /// The density and why that one (also in `assumptions`).
+    pub density: DensityUsed,
     pub ambient_pa: f64,
     pub level_m: f64,
     /// `given` or `default` (90 % of the tank's height).
@@ -592,9 +747,19 @@ pub struct VapourFigures {
     pub supply: &'static str,
     pub isothermal: AtCd<BlowdownFigures>,
     pub adiabatic: AtCd<BlowdownFigures>,
-    /// Over both bounds and the Cd band.
+    /// Over both bounds and the Cd band, at each horizon: like with like.
     pub band: Vec<ReleasedBand>,
+    /// Over both bounds and the Cd band, by each one's end. Without a
+    /// supply that is the release in total; with one the bounds end at
+    /// different times and the release goes on after each, so this mixes
+    /// end times: read `isothermal_end` and `adiabatic_end`, or `band`.
     pub released_by_end_band: ReleasedBand,
+    /// Each bound's own end over the Cd band: when, and how much by then.
+    pub isothermal_end: EndRange,
+    pub adiabatic_end: EndRange,
+    /// How the two bounds compare at the chosen Cd, in words (also in the
+    /// text): with a supply, which ends later and releases more by its end.
+    pub bounds_compared: String,
     /// Over both bounds and the Cd band.
     pub reportable: Vec<ReportableRange>,
 }
@@ -632,6 +797,39 @@ pub struct BlowdownHorizon {
 pub struct ReportableTime {
     pub quantity_kg: f64,
     pub reached_after_s: Option<f64>,
+}
+
+/// One bound's end over the Cd band: when it ends (the pressure at
+/// ambient, or steady against a supply) and what it has released by then.
+/// `None` where it never ends (a supply holds the pressure) or nothing flows.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
+pub struct EndRange {
+    pub after_low_s: Option<f64>,
+    pub after_high_s: Option<f64>,
+    pub released_low_kg: Option<f64>,
+    pub released_high_kg: Option<f64>,
+}
+
+impl EndRange {
+    fn of(runs: &[BlowdownForecast]) -> Self {
+        let ends: Vec<(f64, f64)> = runs
+            .iter()
+            .filter_map(|f| match f.end {
+                BlowdownEnd::Ambient { after } | BlowdownEnd::Steady { after, .. } => {
+                    Some((after.si(), f.released_by_end.si()))
+                }
+                BlowdownEnd::Held | BlowdownEnd::NoFlow => None,
+            })
+            .collect();
+        let low = |f: fn(&(f64, f64)) -> f64| ends.iter().map(f).reduce(f64::min);
+        let high = |f: fn(&(f64, f64)) -> f64| ends.iter().map(f).reduce(f64::max);
+        Self {
+            after_low_s: low(|e| e.0),
+            after_high_s: high(|e| e.0),
+            released_low_kg: low(|e| e.1),
+            released_high_kg: high(|e| e.1),
+        }
+    }
 }
 
 #[derive(Debug, Clone, Copy, Serialize)]
@@ -675,6 +873,23 @@ pub fn study(
 
 /// Computes a study.
 pub fn compute(tank: &Tank, request: &Request) -> anyhow::Result<Study> {
+    // The tank as the study sees it: its liquid at the density the
+    // request says (the config's, or at the last logged temperature).
+    let with_density;
+    let tank = if request.density.kg_m3 == tank.vessel.density().si() {
+        tank
+    } else {
+        let v = &tank.vessel;
+        let mut t = tank.clone();
+        t.vessel = Vessel::new(
+            v.geometry().clone(),
+            Density::kg_per_cubic_metre(request.density.kg_m3),
+            v.ambient(),
+            v.vapour().copied(),
+        )?;
+        with_density = t;
+        &with_density
+    };
     let vessel = &tank.vessel;
     let geometry = vessel.geometry();
     let ambient = vessel.ambient();
@@ -716,6 +931,7 @@ pub fn compute(tank: &Tank, request: &Request) -> anyhow::Result<Study> {
     }
 
     let mut warnings = request.headspace.warnings.clone();
+    warnings.extend(request.density.warnings.iter().cloned());
     let mut assumptions = Vec::new();
     let gas = vessel.vapour().copied();
     let supply = match (request.supply, &gas) {
@@ -825,9 +1041,11 @@ pub fn compute(tank: &Tank, request: &Request) -> anyhow::Result<Study> {
         }
     }
     if any_vapour {
-        assumptions.push(
-            "Gas: the ideal-gas nozzle equations, the gas space fixed (the liquid does not move), between two bounds a real tank lies within: isothermal (the walls keep the gas at its temperature; the most released, the longest) and adiabatic (no heat reaches the gas, which cools; less, sooner). Evaporation from the liquid into the gas space is not included.".to_owned(),
-        );
+        assumptions.push(if supply.is_some() {
+            "Gas: the ideal-gas nozzle equations, the gas space fixed (the liquid does not move), between two bounds on the heat that reaches the gas: isothermal (the walls keep the gas at its temperature) and adiabatic (no heat reaches the gas, which cools). With a blanket supply neither bound releases more throughout: the supply keeps feeding a gas the adiabatic bound holds cooler and denser, so it can flow longer and release more; each bound's end and total by then are its own, and the release by each horizon compares them like with like. Evaporation from the liquid into the gas space is not included.".to_owned()
+        } else {
+            "Gas: the ideal-gas nozzle equations, the gas space fixed (the liquid does not move), between two bounds a real tank lies within: isothermal (the walls keep the gas at its temperature; the most released, the longest) and adiabatic (no heat reaches the gas, which cools; less, sooner). Evaporation from the liquid into the gas space is not included.".to_owned()
+        });
         assumptions.push(match &supply {
             Some(s) => format!(
                 "Blanket supply on: pad gas of the configured vapour at its temperature, at up to {} ({} kg/s), by a regulator whose set point is the headspace pressure; steady means the outflow within 1 % of the supply for good.",
@@ -842,6 +1060,11 @@ pub fn compute(tank: &Tank, request: &Request) -> anyhow::Result<Study> {
                 .to_owned(),
         );
     }
+    assumptions.push(format!(
+        "Density of the liquid: {} kg/m³, {}.",
+        report::significant(rho),
+        request.density.explanation
+    ));
     assumptions.push(
         "Times run from the moment the hole opens; figures in brackets are the band from the lowest to the highest Cd.".to_owned(),
     );
@@ -852,6 +1075,7 @@ pub fn compute(tank: &Tank, request: &Request) -> anyhow::Result<Study> {
         tank: tank.id.clone(),
         substance: tank.substance.clone(),
         density_kg_m3: rho,
+        density: request.density.clone(),
         ambient_pa: ambient.si(),
         level_m: level.si(),
         level_source: if request.level.is_some() {
@@ -1106,6 +1330,13 @@ fn vapour_figures(
         .collect();
     let chosen = &runs[0].1[1];
     let rates = AtCd::from_fn(|i| runs[0].1[i].initial.rate.si());
+    let isothermal = at_cd(&runs[0].1);
+    let adiabatic = at_cd(&runs[1].1);
+    let bounds_compared = compare_bounds(
+        &isothermal.cd_chosen,
+        &adiabatic.cd_chosen,
+        supply.is_some(),
+    );
     Ok((
         VapourFigures {
             molar_mass_g_mol: gas.molar_mass().si() * 1000.0,
@@ -1117,18 +1348,63 @@ fn vapour_figures(
             initial_rate_kg_s: rates,
             initial_rate_nm3_h: rates.map(|r| r * 3600.0 / normal_density),
             supply: if supply.is_some() { "on" } else { "off" },
-            isothermal: at_cd(&runs[0].1),
-            adiabatic: at_cd(&runs[1].1),
+            isothermal,
+            adiabatic,
             band: band_out,
             released_by_end_band: ReleasedBand {
                 after_s: None,
                 low_kg: end_low,
                 high_kg: end_high,
             },
+            isothermal_end: EndRange::of(&runs[0].1),
+            adiabatic_end: EndRange::of(&runs[1].1),
+            bounds_compared,
             reportable,
         },
         chosen.initial.regime,
     ))
+}
+
+/// The two bounds at one Cd, compared by what they do rather than by what
+/// they usually do: with a supply the adiabatic bound, whose gas is cooler
+/// and denser, can end later and release more by its end than the
+/// isothermal one, and the release goes on after either end.
+fn compare_bounds(iso: &BlowdownFigures, adi: &BlowdownFigures, supply: bool) -> String {
+    let ends = |f: &BlowdownFigures| matches!(f.end, "ambient" | "steady");
+    if !(ends(iso) && ends(adi)) {
+        return match (iso.end, adi.end) {
+            ("no_flow", _) | (_, "no_flow") => "nothing flows".to_owned(),
+            _ => "the supply holds the pressure in at least one bound: the release goes on at its initial rate, and the bounds compare only at the horizons".to_owned(),
+        };
+    }
+    let said = |f: &BlowdownFigures| {
+        format!(
+            "ends after {} having released {} kg",
+            hms_tenths(f.end_after_s),
+            kg(f.released_by_end_kg)
+        )
+    };
+    let facts = format!(
+        "the isothermal bound {}, the adiabatic {}",
+        said(iso),
+        said(adi)
+    );
+    if !supply {
+        return format!("{facts}; nothing is released after the end, so these are the totals");
+    }
+    let later = adi.end_after_s > iso.end_after_s;
+    let more = adi.released_by_end_kg > iso.released_by_end_kg;
+    let how = match (later, more) {
+        (true, true) => {
+            "the adiabatic bound ends later and releases more by its end: the supply keeps feeding a gas that it holds cooler and denser"
+        }
+        (false, false) => "the adiabatic bound ends sooner and releases less by its end",
+        (true, false) => "the adiabatic bound ends later but releases less by its end",
+        (false, true) => "the adiabatic bound ends sooner but releases more by its end",
+    };
+    format!(
+        "{facts}; {how}. The release goes on after each end (at the supply rate once steady), so totals by ends at different times do not compare: the horizons do"
+    )
 }
 
 // ---------------------------------------------------------------------------
@@ -1283,6 +1559,12 @@ pub fn human(s: &Study) -> String {
         "90 % of the tank's height, the default; give --level"
     };
     let _ = writeln!(out, "  level      {:.2} m ({level_note})", s.level_m);
+    let _ = writeln!(
+        out,
+        "  density    {} kg/m³: {}",
+        report::significant(s.density.kg_m3),
+        s.density.explanation
+    );
     let _ = writeln!(
         out,
         "  headspace  {} kPa gauge = {} kPa absolute: {}",
@@ -1519,6 +1801,17 @@ fn vapour_tables(s: &Study, out: &mut String) {
         }
     }
     table.render(out);
+    if s.blanket_supply.is_some() {
+        for (h, v) in &holes {
+            let _ = writeln!(
+                out,
+                "  {} mm, at Cd {:.2}: {}.",
+                hole_label(h),
+                s.cd.chosen,
+                v.bounds_compared
+            );
+        }
+    }
     let _ = writeln!(
         out,
         "\nGas released, band over both bounds and Cd {:.2} to {:.2}:",
@@ -1528,19 +1821,56 @@ fn vapour_tables(s: &Study, out: &mut String) {
     for &t in &s.horizons_s {
         header.push((format!("in {}", horizon_label(t)), "kg".to_owned()));
     }
-    header.push(("by the end".to_owned(), "kg".to_owned()));
+    // Without a supply the release by the end is the release in all; with
+    // one, each bound ends at its own time and the release goes on, so each
+    // bound gets its own column, with its end times.
+    let supply = s.blanket_supply.is_some();
+    if supply {
+        for bound in ["isothermal", "adiabatic"] {
+            header.push((format!("{bound}, by its end"), "kg at h:mm:ss.s".to_owned()));
+        }
+    } else {
+        header.push(("in total".to_owned(), "kg".to_owned()));
+    }
     let mut table = Table::new(header);
+    let range = |low: String, high: String| {
+        if low == high {
+            low
+        } else {
+            format!("{low}–{high}")
+        }
+    };
     for (h, v) in &holes {
         let mut row = vec![hole_label(h)];
         for b in &v.band {
             row.push(format!("{}–{}", kg(b.low_kg), kg(b.high_kg)));
         }
-        let e = &v.released_by_end_band;
-        row.push(if v.isothermal.cd_chosen.end == "held" {
-            "—".to_owned()
+        if supply {
+            for e in [&v.isothermal_end, &v.adiabatic_end] {
+                row.push(
+                    match (
+                        e.released_low_kg,
+                        e.released_high_kg,
+                        e.after_low_s,
+                        e.after_high_s,
+                    ) {
+                        (Some(m0), Some(m1), Some(t0), Some(t1)) => format!(
+                            "{} at {}",
+                            range(kg(m0), kg(m1)),
+                            range(hms_tenths(t0), hms_tenths(t1))
+                        ),
+                        _ => "— (held)".to_owned(),
+                    },
+                );
+            }
         } else {
-            format!("{}–{}", kg(e.low_kg), kg(e.high_kg))
-        });
+            let e = &v.released_by_end_band;
+            row.push(if v.isothermal.cd_chosen.end == "held" {
+                "—".to_owned()
+            } else {
+                format!("{}–{}", kg(e.low_kg), kg(e.high_kg))
+            });
+        }
         table.rows.push(row);
     }
     table.render(out);
@@ -1736,6 +2066,7 @@ pub fn command(args: WhatifArgs) -> anyhow::Result<()> {
         (None, Some(kpa)) => Some(HeadspaceGiven::Absolute(kpa)),
         (None, None) => None,
     };
+    let now_ms = crate::store::now_ms();
     let request = Request {
         level: metres(level, "--level")?,
         hole_height: hole_height
@@ -1748,7 +2079,8 @@ pub fn command(args: WhatifArgs) -> anyhow::Result<()> {
             .map(DischargeCoefficient::new)
             .transpose()?,
         holes,
-        headspace: headspace(t, given, db.as_deref(), crate::store::now_ms())?,
+        headspace: headspace(t, given, db.as_deref(), now_ms)?,
+        density: liquid_density(t, db.as_deref(), now_ms)?,
         horizons: horizons.as_deref().map(parse_horizons).transpose()?,
         to_level: metres(to_level, "--to-level")?,
         supply: blanket_supply.as_deref().map(parse_supply).transpose()?,
@@ -2000,6 +2332,72 @@ mod tests {
             assert!(headspace(t14, Some(HeadspaceGiven::Gauge(bad)), None, 0).is_err());
         }
         assert!(headspace(t14, Some(HeadspaceGiven::Absolute(0.0)), None, 0).is_err());
+    }
+
+    #[test]
+    fn the_density_says_which_and_why() {
+        let config = demo();
+        let (t12, t14) = (&config.tanks[0], &config.tanks[1]);
+        // FF-T12: one density, no temperature sensor.
+        let d = liquid_density(t12, None, 0).unwrap();
+        assert_eq!((d.kg_m3, d.source), (840.0, "fixed"));
+        // FF-T14 follows its temperature; without --db the study says it
+        // takes the reference density, and why.
+        let d = liquid_density(t14, None, 0).unwrap();
+        assert_eq!((d.kg_m3, d.source), (792.0, "reference_temperature"));
+        assert!(
+            d.explanation
+                .contains("15.0 °C, NOT at the liquid's temperature")
+                && d.explanation.contains("--db"),
+            "{}",
+            d.explanation
+        );
+        let study = compute(
+            t14,
+            &Request {
+                level: Some(Length::metres(2.0)),
+                holes: vec![HoleSize::Diameter(25.0)],
+                ..Request::for_tank(t14)
+            },
+        )
+        .unwrap();
+        assert!(
+            study
+                .assumptions
+                .iter()
+                .any(|a| a.starts_with("Density of the liquid: 792 kg/m³") && a.contains("NOT")),
+            "{:?}",
+            study.assumptions
+        );
+        assert!(human(&study).contains("density    792 kg/m³: the config's density_kg_m3"));
+        // At another density the liquid figures follow it: the mass rate
+        // goes as sqrt(rho dP), the column's dP as rho.
+        let warm = DensityUsed {
+            kg_m3: 780.0,
+            ..study.density.clone()
+        };
+        let other = compute(
+            t14,
+            &Request {
+                level: Some(Length::metres(2.0)),
+                holes: vec![HoleSize::Diameter(25.0)],
+                density: warm,
+                ..Request::for_tank(t14)
+            },
+        )
+        .unwrap();
+        assert_eq!(other.density_kg_m3, 780.0);
+        let rate = |s: &Study| {
+            s.holes[0]
+                .liquid
+                .as_ref()
+                .unwrap()
+                .initial_rate_kg_s
+                .cd_chosen
+        };
+        let dp = |rho: f64| 15_000.0 + rho * crate::model::STANDARD_GRAVITY * 2.0;
+        let expected = ((780.0 * dp(780.0)) / (792.0 * dp(792.0))).sqrt();
+        assert!((rate(&other) / rate(&study) / expected - 1.0).abs() < 1e-12);
     }
 
     #[test]

@@ -352,7 +352,7 @@ impl Estimator {
                 .forecast_input
                 .is_none_or(|i| i.hole_cd.is_none() || r.at_ms - i.at_ms >= FORECAST_EVERY_MS);
         if due {
-            let hole_cd = self.forecast_hole(unit_rate, (rate.0, rate.1));
+            let hole_cd = self.forecast_hole(unit_rate, rate.1);
             self.forecast_input = Some(ForecastInput {
                 at_ms: r.at_ms,
                 state: r.state,

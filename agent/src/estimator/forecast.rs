@@ -25,14 +25,14 @@ impl Estimator {
     pub(super) fn forecast_hole(
         &self,
         unit_rate: f64,
-        (rate_low, rate_best): (f64, f64),
+        rate_best: f64,
     ) -> Option<(Hole, DischargeCoefficient)> {
         if !self.level_mode {
             return self.hole_and_cd();
         }
-        if rate_best <= 0.0 || rate_low <= 0.0 || unit_rate <= 0.0 {
-            // No flow the level's slope can tell from zero: nothing to
-            // forecast.
+        // The rate here is the level's, shown only where its slope is clear
+        // of zero: none shown, nothing to forecast.
+        if rate_best <= 0.0 || unit_rate <= 0.0 {
             return None;
         }
         let cd = self.cd;

@@ -46,6 +46,65 @@ pub fn phase_text(e: &Estimate) -> &'static str {
     }
 }
 
+/// The phase's code, as the JSON writes it: `liquid`, `vapour` or `none`.
+pub fn phase_code(phase: PhaseName) -> &'static str {
+    match phase {
+        PhaseName::Liquid => "liquid",
+        PhaseName::Vapour => "vapour",
+        PhaseName::None => "none",
+    }
+}
+
+/// A warning's code, as the JSON writes it (`hole_inconsistent`, ...).
+pub fn warning_code(w: Warning) -> &'static str {
+    match w {
+        Warning::HoleInconsistent => "hole_inconsistent",
+        Warning::LevelContradictsModel => "level_contradicts_model",
+        Warning::NoLossSeen => "no_loss_seen",
+        Warning::BridgedGapsDominate => "bridged_gaps_dominate",
+        Warning::BridgeCutByLevel => "bridge_cut_by_level",
+        Warning::TotalRevisedDown => "total_revised_down",
+        Warning::PressureHeld => "pressure_held",
+        Warning::TransferHeld => "transfer_held",
+        Warning::TemperatureHeld => "temperature_held",
+        Warning::HoleHeightAssumed => "hole_height_assumed",
+        Warning::CdAssumed => "cd_assumed",
+        Warning::DefaultAccuracies => "default_accuracies",
+        Warning::ForecastCapped => "forecast_capped",
+        Warning::VapourNotChecked => "vapour_not_checked",
+        Warning::StartBridged => "start_bridged",
+        Warning::HoleHeightRefuted => "hole_height_refuted",
+    }
+}
+
+/// Where the density of an estimate comes from.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub enum DensityBasis {
+    /// Given for the event or the replay (`--density`), held fixed.
+    Given,
+    /// The liquid's measured temperature, K, through the config's
+    /// expansion coefficient or density table.
+    Temperature(f64),
+    /// The density follows temperature, but no temperature was read: the
+    /// config's density at its reference temperature.
+    Reference,
+    /// The config's one density.
+    Fixed,
+}
+
+/// The density the figures use, and why that one.
+pub fn density_text(density_kg_m3: f64, basis: DensityBasis) -> String {
+    let why = match basis {
+        DensityBasis::Given => " (given, fixed)".to_owned(),
+        DensityBasis::Temperature(t) => format!(" at the liquid's {} °C", significant(t - 273.15)),
+        DensityBasis::Reference => {
+            " (the config's, at its reference temperature: no temperature reading)".to_owned()
+        }
+        DensityBasis::Fixed => " (fixed)".to_owned(),
+    };
+    format!("{} kg/m³{why}", significant(density_kg_m3))
+}
+
 /// Why the best figure comes from where it does.
 pub fn reason_text(e: &Estimate, p: &LeakParams) -> String {
     let (cd_low, cd_high) = p.cd_band();
@@ -107,6 +166,25 @@ pub fn fit_text(e: &Estimate, p: &LeakParams) -> String {
             mm(level_drop_m.max(0.0)),
             mm(needed_m)
         ),
+    }
+}
+
+/// The fit in a few words, for a line that updates in place: the effective
+/// area Cd·A first, then the round hole's diameters at the ends of the Cd
+/// range, as [`fit_text`] says it at length.
+pub fn fit_brief(e: &Estimate, p: &LeakParams) -> String {
+    match e.fit {
+        Fit::Ready { area_m2, .. } => {
+            let (cd_low, cd_high) = p.cd_band();
+            let diameter = |cd: f64| (4.0 * area_m2 / (std::f64::consts::PI * cd)).sqrt();
+            format!(
+                "fitted Cd·A {} (round: {} at Cd {cd_high} to {} at Cd {cd_low})",
+                mm2(area_m2),
+                mm(diameter(cd_high)),
+                mm(diameter(cd_low)),
+            )
+        }
+        Fit::NotYet { .. } => "hole: not enough level drop yet to fit".into(),
     }
 }
 
@@ -337,6 +415,39 @@ pub fn crossing_text(c: &Crossing) -> String {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn codes_are_the_json_codes() {
+        for w in Warning::ALL {
+            assert_eq!(
+                serde_json::to_value(w).unwrap(),
+                serde_json::Value::from(warning_code(w))
+            );
+        }
+        for phase in [PhaseName::Liquid, PhaseName::Vapour, PhaseName::None] {
+            assert_eq!(
+                serde_json::to_value(phase).unwrap(),
+                serde_json::Value::from(phase_code(phase))
+            );
+        }
+    }
+
+    #[test]
+    fn the_density_says_where_it_comes_from() {
+        assert_eq!(
+            density_text(782.71, DensityBasis::Temperature(298.15)),
+            "783 kg/m³ at the liquid's 25.0 °C"
+        );
+        assert_eq!(
+            density_text(840.0, DensityBasis::Fixed),
+            "840 kg/m³ (fixed)"
+        );
+        assert_eq!(
+            density_text(800.0, DensityBasis::Given),
+            "800 kg/m³ (given, fixed)"
+        );
+        assert!(density_text(792.0, DensityBasis::Reference).contains("reference temperature"));
+    }
 
     #[test]
     fn a_fitted_hole_is_an_area_first_with_diameters_at_stated_cds() {

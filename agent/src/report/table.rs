@@ -9,7 +9,7 @@
 //! (`crate::web::page`, which lays out the same words as HTML).
 
 use super::estimate::{self, Words};
-use super::{duration, mass, rate, significant, utc, volumes};
+use super::{duration, mass, rate, utc, volumes};
 use crate::estimate::Estimate;
 use crate::model::{Density, Mass, MassRate, TimeSpan};
 use std::fmt::Write as _;
@@ -185,12 +185,14 @@ fn event_text(out: &mut String, e: &Event<'_>) {
     }
     let _ = writeln!(
         out,
-        "  density      {} kg/m³{}",
-        significant(est.density_kg_m3),
-        est.temperature_k.map_or(" (fixed)".to_owned(), |t| format!(
-            " at the liquid's {} °C",
-            significant(t - 273.15)
-        ))
+        "  density      {}",
+        estimate::density_text(
+            est.density_kg_m3,
+            est.temperature_k.map_or(
+                estimate::DensityBasis::Fixed,
+                estimate::DensityBasis::Temperature
+            )
+        )
     );
     let _ = writeln!(
         out,
