@@ -47,10 +47,10 @@ pub enum Command {
     /// Run the agent: poll, track open leak events, log to the database.
     Run {
         /// The site config (TOML).
-        #[arg(long, short)]
+        #[arg(value_parser = crate::commands::args::path_arg, long, short)]
         config: PathBuf,
         /// The SQLite database the daemon writes.
-        #[arg(long, default_value = DEFAULT_DB)]
+        #[arg(value_parser = crate::commands::args::path_arg, long, default_value = DEFAULT_DB)]
         db: PathBuf,
     },
     /// Flag, revise, annotate or close a leak event (the daemon applies it).
@@ -78,5 +78,34 @@ pub fn run(cli: Cli) -> anyhow::Result<()> {
         }
         Command::Leak(command) => leak::command(command),
         Command::Status(args) => status::command(args),
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::Cli;
+    use clap::Parser;
+
+    /// Issue 11: every command refuses a path with a control character in
+    /// it (commands::args::path_arg), so no echo of it can forge a line.
+    #[test]
+    fn every_path_option_refuses_control_characters() {
+        for args in [
+            &[
+                "leaktally",
+                "check",
+                "--config",
+                "/tmp/none\nOK: config valid",
+            ][..],
+            &["leaktally", "poll", "--config", "a\u{1b}[2Jb"][..],
+            &["leaktally", "status", "--db", "a\nb.db"][..],
+            &["leaktally", "run", "--config", "s.toml", "--db", "a\nb.db"][..],
+            &["leaktally", "replay", "1", "--csv", "out\n.csv"][..],
+            &["leaktally", "whatif", "--tank", "T", "--config", "a\nb"][..],
+            &["leaktally", "leak", "note", "1", "text", "--db", "a\nb"][..],
+        ] {
+            let e = Cli::try_parse_from(args).unwrap_err().to_string();
+            assert!(e.contains("control character"), "{args:?}: {e}");
+        }
     }
 }

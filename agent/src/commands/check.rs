@@ -53,7 +53,7 @@ pub struct Checked {
 #[derive(Debug, clap::Args)]
 pub struct CheckArgs {
     /// The site config (TOML).
-    #[arg(long, short)]
+    #[arg(value_parser = crate::commands::args::path_arg, long, short)]
     pub config: PathBuf,
     /// Only validate and describe: do not read the devices.
     #[arg(long)]

@@ -31,7 +31,7 @@ pub enum LeakCommand {
         #[arg(long)]
         note: Option<String>,
         /// The SQLite database the daemon writes.
-        #[arg(long, default_value = DEFAULT_DB)]
+        #[arg(value_parser = crate::commands::args::path_arg, long, default_value = DEFAULT_DB)]
         db: PathBuf,
     },
     /// Recompute an event from its start with new parameters (logged).
@@ -43,7 +43,7 @@ pub enum LeakCommand {
         #[arg(long)]
         note: Option<String>,
         /// The SQLite database the daemon writes.
-        #[arg(long, default_value = DEFAULT_DB)]
+        #[arg(value_parser = crate::commands::args::path_arg, long, default_value = DEFAULT_DB)]
         db: PathBuf,
     },
     /// Add a note to an event's audit trail.
@@ -51,7 +51,7 @@ pub enum LeakCommand {
         event: i64,
         text: String,
         /// The SQLite database the daemon writes.
-        #[arg(long, default_value = DEFAULT_DB)]
+        #[arg(value_parser = crate::commands::args::path_arg, long, default_value = DEFAULT_DB)]
         db: PathBuf,
     },
     /// Close an event once the leak is isolated; its total no longer changes.
@@ -60,7 +60,7 @@ pub enum LeakCommand {
         #[arg(long)]
         note: Option<String>,
         /// The SQLite database the daemon writes.
-        #[arg(long, default_value = DEFAULT_DB)]
+        #[arg(value_parser = crate::commands::args::path_arg, long, default_value = DEFAULT_DB)]
         db: PathBuf,
     },
 }

@@ -19,7 +19,7 @@ use tokio_util::task::TaskTracker;
 #[derive(Debug, clap::Args)]
 pub struct PollArgs {
     /// The site config (TOML).
-    #[arg(long, short)]
+    #[arg(value_parser = crate::commands::args::path_arg, long, short)]
     pub config: PathBuf,
     /// Stop after this many seconds (default: until Ctrl-C).
     #[arg(long)]

@@ -48,7 +48,7 @@ pub struct ReplayArgs {
     pub event: Option<i64>,
     /// A CSV of timestamped readings instead of a logged event (see the
     /// README for the columns); needs --tank and --config.
-    #[arg(long, requires_all = ["tank", "config"], conflicts_with = "event")]
+    #[arg(value_parser = crate::commands::args::path_arg, long, requires_all = ["tank", "config"], conflicts_with = "event")]
     pub readings: Option<PathBuf>,
     #[command(flatten)]
     pub layout: Box<ReadingsArgs>,
@@ -56,7 +56,7 @@ pub struct ReplayArgs {
     #[arg(long)]
     pub tank: Option<String>,
     /// The site config (default for an event: the one its daemon ran with).
-    #[arg(long, short)]
+    #[arg(value_parser = crate::commands::args::path_arg, long, short)]
     pub config: Option<PathBuf>,
     #[command(flatten)]
     pub changes: ParamChangeArgs,
@@ -68,10 +68,10 @@ pub struct ReplayArgs {
     #[arg(long)]
     pub to: Option<String>,
     /// Write the time series to this CSV file.
-    #[arg(long, value_name = "FILE")]
+    #[arg(value_parser = crate::commands::args::path_arg, long, value_name = "FILE")]
     pub csv: Option<PathBuf>,
     /// Write a chart of rate and cumulative release to this SVG file.
-    #[arg(long, value_name = "FILE.svg")]
+    #[arg(value_parser = crate::commands::args::path_arg, long, value_name = "FILE.svg")]
     pub plot: Option<PathBuf>,
     /// Print the summary as JSON.
     #[arg(long)]
@@ -80,7 +80,7 @@ pub struct ReplayArgs {
     #[arg(long)]
     pub force: bool,
     /// The SQLite database the daemon writes.
-    #[arg(long, default_value = DEFAULT_DB)]
+    #[arg(value_parser = crate::commands::args::path_arg, long, default_value = DEFAULT_DB)]
     pub db: PathBuf,
 }
 
@@ -101,7 +101,7 @@ pub struct ReadingsArgs {
     pub column: Vec<String>,
     /// A TOML file describing the readings' columns and format (default:
     /// <readings file>.columns.toml beside it, when there is one).
-    #[arg(long = "columns", value_name = "FILE.toml", requires = "readings")]
+    #[arg(value_parser = crate::commands::args::path_arg, long = "columns", value_name = "FILE.toml", requires = "readings")]
     pub columns_file: Option<PathBuf>,
     /// The readings' field separator: , ; tab | or space (default: read
     /// from the header line).

@@ -19,7 +19,7 @@ pub struct StatusArgs {
     #[arg(long)]
     pub json: bool,
     /// The SQLite database the daemon writes.
-    #[arg(long, default_value = DEFAULT_DB)]
+    #[arg(value_parser = crate::commands::args::path_arg, long, default_value = DEFAULT_DB)]
     pub db: PathBuf,
 }
 

@@ -1964,7 +1964,7 @@ pub struct WhatifArgs {
     #[arg(long)]
     pub tank: String,
     /// The site config (TOML).
-    #[arg(long, short, default_value = "leaktally.toml")]
+    #[arg(value_parser = crate::commands::args::path_arg, long, short, default_value = "leaktally.toml")]
     pub config: PathBuf,
     /// Hole diameters in mm, comma-separated (default: 6.35,25.4,101.6,
     /// the small, medium and large holes of risk-based inspection).
@@ -1999,7 +1999,7 @@ pub struct WhatifArgs {
     pub headspace_abs: Option<f64>,
     /// Read the tank's last good pressure from this database (read-only)
     /// for the headspace.
-    #[arg(long, value_name = "FILE")]
+    #[arg(value_parser = crate::commands::args::path_arg, long, value_name = "FILE")]
     pub db: Option<PathBuf>,
     /// Horizons for the released totals, comma-separated (default:
     /// 15m,1h), like 5m,30m,2h.
