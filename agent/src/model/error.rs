@@ -7,13 +7,28 @@
 
 use thiserror::Error;
 
+/// A number as a message quotes it: to 7 significant digits, plain when it
+/// is of everyday size, in exponent form when Display would print hundreds
+/// of digits (1e300 has 301).
+pub fn short(x: f64) -> String {
+    if !x.is_finite() || x == 0.0 {
+        return format!("{x}");
+    }
+    let rounded: f64 = format!("{x:.6e}").parse().unwrap_or(x);
+    if (1e-4..1e6).contains(&rounded.abs()) {
+        format!("{rounded}")
+    } else {
+        format!("{rounded:e}")
+    }
+}
+
 /// Something the model was asked to work with is not physically meaningful.
 #[derive(Debug, Clone, PartialEq, Error)]
 pub enum ModelError {
-    #[error("{what} is {value}, which is not a number; give a finite value")]
+    #[error("{what} is {}, which is not a number; give a finite value", short(*value))]
     NotFinite { what: &'static str, value: f64 },
 
-    #[error("{what} must be greater than zero (got {value} {unit}); give a positive value")]
+    #[error("{what} must be greater than zero (got {} {unit}); give a positive value", short(*value))]
     NotPositive {
         what: &'static str,
         value: f64,
@@ -21,7 +36,8 @@ pub enum ModelError {
     },
 
     #[error(
-        "{what} must not be negative (got {value} {unit}); measure it from the tank's lowest point"
+        "{what} must not be negative (got {} {unit}); measure it from the tank's lowest point",
+        short(*value)
     )]
     Negative {
         what: &'static str,
@@ -30,7 +46,10 @@ pub enum ModelError {
     },
 
     #[error(
-        "{what} is {value} {unit}, outside the plausible range {min} to {max} {unit}; check the value and its unit"
+        "{what} is {} {unit}, outside the plausible range {} to {} {unit}; check the value and its unit",
+        short(*value),
+        short(*min),
+        short(*max)
     )]
     OutOfRange {
         what: &'static str,
@@ -41,22 +60,28 @@ pub enum ModelError {
     },
 
     #[error(
-        "discharge coefficient {0} is outside 0.1 to 1; use 0.61 for a sharp-edged hole or 1.0 for the conservative figure"
+        "discharge coefficient {} is outside 0.1 to 1; use 0.61 for a sharp-edged hole or 1.0 for the conservative figure", short(*_0)
     )]
     DischargeCoefficient(f64),
 
     #[error(
-        "the hole is at {hole_m} m but the tank is only {top_m} m tall; give the hole height above the tank bottom"
+        "the hole is at {} m but the tank is only {} m tall; give the hole height above the tank bottom",
+        short(*hole_m),
+        short(*top_m)
     )]
     HoleAboveTank { hole_m: f64, top_m: f64 },
 
     #[error(
-        "the level {level_m} m is above the top of the tank ({top_m} m); check the level sensor's scaling"
+        "the level {} m is above the top of the tank ({} m); check the level sensor's scaling",
+        short(*level_m),
+        short(*top_m)
     )]
     LevelAboveTank { level_m: f64, top_m: f64 },
 
     #[error(
-        "the volume {volume_m3} m³ is more than the tank holds ({capacity_m3} m³); check the volume and the geometry"
+        "the volume {} m³ is more than the tank holds ({} m³); check the volume and the geometry",
+        short(*volume_m3),
+        short(*capacity_m3)
     )]
     VolumeAboveCapacity { volume_m3: f64, capacity_m3: f64 },
 
@@ -66,13 +91,15 @@ pub enum ModelError {
     TableTooShort(usize),
 
     #[error(
-        "the calibration table must start at level 0 m (it starts at {0} m); add the volume at the bottom as the first point"
+        "the calibration table must start at level 0 m (it starts at {} m); add the volume at the bottom as the first point", short(*_0)
     )]
     TableStart(f64),
 
     #[error(
-        "the calibration table is not increasing at point {index}: {what} goes from {previous} to {next}; \
-         levels and volumes must both rise strictly from one point to the next"
+        "the calibration table is not increasing at point {index}: {what} goes from {} to {}; \
+         levels and volumes must both rise strictly from one point to the next",
+        short(*previous),
+        short(*next)
     )]
     TableNotIncreasing {
         index: usize,
@@ -82,7 +109,9 @@ pub enum ModelError {
     },
 
     #[error(
-        "the heat capacity ratio must be greater than 1 (got {0}); air is 1.40, methane 1.31, propane 1.13"
+        ",
+        short(*previous),
+        short(*next)the heat capacity ratio must be greater than 1 (got {0}); air is 1.40, methane 1.31, propane 1.13"
     )]
     HeatCapacityRatio(f64),
 
@@ -153,5 +182,31 @@ pub(crate) fn within(
             max,
             unit,
         })
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// Issue 11: an absurd value is quoted short, not as hundreds of digits.
+    #[test]
+    fn messages_quote_numbers_short() {
+        assert_eq!(short(1e300), "1e300");
+        assert_eq!(short(1e-300), "1e-300");
+        assert_eq!(short(840.0), "840");
+        assert_eq!(short(0.61), "0.61");
+        assert_eq!(short(1.0 / 3.0), "0.3333333");
+        let e = ModelError::OutOfRange {
+            what: "liquid density",
+            value: 1e300,
+            min: 50.0,
+            max: 15_000.0,
+            unit: "kg/m³",
+        };
+        assert_eq!(
+            e.to_string(),
+            "liquid density is 1e300 kg/m³, outside the plausible range 50 to 15000 kg/m³; check the value and its unit"
+        );
     }
 }
