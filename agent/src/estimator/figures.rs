@@ -38,17 +38,13 @@ impl Estimator {
         // truth, which is just when the band must hold. The smoothed line
         // serves for the inventory's rate, and for its best figure when
         // nothing else has one (it is less noisy there, and held inside the
-        // band).
-        let line = self.recent_inventory.line().filter(|l| l.points >= 5);
+        // band): `level_line`, made only where a figure uses it.
         let inventory = inventory_raw;
         let mut band = self.inventory_causes(r, inventory, 1.0);
         band.rate_fraction = fraction;
         band.bridge_kg = self.bridge_uncertainty_kg;
         let u = band.inventory_kg;
         let (level_low, level_high) = (inventory - u, inventory + u);
-        let smoothed = line
-            .map_or(inventory, |l| l.value)
-            .clamp(level_low, level_high);
         // A loss is seen once the level has fallen beyond what the
         // instruments allow, and stays seen for the rest of the revision: a
         // reading that dips back inside the noise does not unsee it.
@@ -90,7 +86,6 @@ impl Estimator {
         } else {
             1.0
         };
-        let inventory_rate = self.inventory_rate(line);
         let area_given = self
             .params
             .hole_diameter_m
@@ -139,17 +134,20 @@ impl Estimator {
                     Some(total),
                 )
             }
-            (None, _) => (
-                Method::InventoryBalance,
-                if loss_seen {
-                    Reason::NotEnoughDrop
-                } else {
-                    Reason::NoLossSeen
-                },
-                (level_low.max(0.0), smoothed.max(0.0), level_high.max(0.0)),
-                inventory_rate,
-                None,
-            ),
+            (None, _) => {
+                let (smoothed, inventory_rate) = self.level_line(inventory, u);
+                (
+                    Method::InventoryBalance,
+                    if loss_seen {
+                        Reason::NotEnoughDrop
+                    } else {
+                        Reason::NoLossSeen
+                    },
+                    (level_low.max(0.0), smoothed.max(0.0), level_high.max(0.0)),
+                    inventory_rate,
+                    None,
+                )
+            }
         };
 
         // Hold the model's liquid part to what the level allows, and to the
@@ -205,9 +203,6 @@ impl Estimator {
                     entered_level_mode = true;
                 }
             }
-            // The level's own figure: the last minute's line (less noisy
-            // than one reading), inside the level's band.
-            let level_best = (smoothed + lead_in).clamp(bound_low, bound_high);
             let b_best =
                 if consistent && (bound_low..=bound_high).contains(&l_best) && !self.level_mode {
                     l_best
@@ -220,9 +215,12 @@ impl Estimator {
                         self.level_mode = true;
                         entered_level_mode = true;
                     }
+                    let (smoothed, inventory_rate) = self.level_line(inventory, u);
                     // Only a flow the level's slope can tell from zero.
                     rate = significant_rate(inventory_rate);
-                    level_best
+                    // The level's own figure: the last minute's line (less
+                    // noisy than one reading), inside the level's band.
+                    (smoothed + lead_in).clamp(bound_low, bound_high)
                 };
             let (b_low, b_high) = if method == Method::FittedHole {
                 // The fit's spread about its best figure, and never less
@@ -406,11 +404,23 @@ impl Estimator {
         figures
     }
 
+    /// The level's line over the last minute (from five points on): its
+    /// value at this sample, held inside the level's band (`inventory` ±
+    /// `u`), and the inventory balance's rate from its slope. Made only
+    /// where a figure uses it: two divisions and a square root a sample.
+    fn level_line(&self, inventory: f64, u: f64) -> (f64, (f64, f64, f64)) {
+        let line = self.recent_inventory.line().filter(|l| l.points >= 5);
+        let smoothed = line
+            .map_or(inventory, |l| l.value)
+            .clamp(inventory - u, inventory + u);
+        (smoothed, Self::inventory_rate(line))
+    }
+
     /// The inventory balance's own rate: the least-squares slope of the
     /// inventory over the last minute, with a two-sigma band (low clamped at
     /// zero). Noisy, but a leak in progress never shows as zero flow just
     /// because no hole size is known yet.
-    pub(super) fn inventory_rate(&self, line: Option<fit::WindowLine>) -> (f64, f64, f64) {
+    pub(super) fn inventory_rate(line: Option<fit::WindowLine>) -> (f64, f64, f64) {
         match line {
             Some(l) => (
                 (l.slope - COVERAGE_FACTOR * l.slope_se).max(0.0),
