@@ -1,7 +1,7 @@
 //! Operator actions: the requests the CLI writes and what the daemon made
 //! of them (the audit trail).
 
-use super::{StoreError, StoreResult};
+use super::{StoreError, StoreResult, unit};
 use rusqlite::{Connection, OptionalExtension, params};
 use serde::{Deserialize, Serialize};
 
@@ -57,9 +57,17 @@ pub fn request_action(
     request: &serde_json::Value,
     who: &(String, String),
 ) -> StoreResult<i64> {
-    conn.execute(
+    unit::execute(
+        conn,
         "INSERT INTO actions (requested_at_ms, os_user, host, kind, event, request) VALUES (?1, ?2, ?3, ?4, ?5, ?6)",
-        params![super::now_ms(), who.0, who.1, kind, event, request.to_string()],
+        params![
+            super::now_ms(),
+            who.0,
+            who.1,
+            kind,
+            event,
+            request.to_string()
+        ],
     )?;
     Ok(conn.last_insert_rowid())
 }
@@ -74,7 +82,7 @@ pub fn pending_actions(conn: &Connection) -> StoreResult<Vec<ActionRow>> {
 
 pub fn action(conn: &Connection, id: i64) -> StoreResult<Option<ActionRow>> {
     let sql = format!("SELECT {ACTION_COLUMNS} FROM actions WHERE id = ?1");
-    conn.query_row(&sql, [id], action_from_row)
+    unit::query_row(conn, &sql, [id], action_from_row)
         .optional()?
         .map(parse_action)
         .transpose()
@@ -108,9 +116,16 @@ pub fn finish_action_at(
     outcome: &str,
     at_ms: i64,
 ) -> StoreResult<()> {
-    conn.execute(
+    unit::execute(
+        conn,
         "UPDATE actions SET state = ?2, handled_at_ms = ?3, outcome = ?4, event = COALESCE(event, ?5) WHERE id = ?1 AND state = 'pending'",
-        params![id, if done { "done" } else { "refused" }, at_ms, outcome, event],
+        params![
+            id,
+            if done { "done" } else { "refused" },
+            at_ms,
+            outcome,
+            event
+        ],
     )?;
     Ok(())
 }

@@ -11,7 +11,7 @@
 //! be recomputed from the stored samples, which an event's window keeps at
 //! full rate.
 
-use super::{StoreError, StoreResult};
+use super::{StoreError, StoreResult, unit};
 use crate::estimate::{ESTIMATOR_VERSION, Estimate, Figures, Method, PhaseName, Reason, Warnings};
 use rusqlite::{Connection, OptionalExtension, params};
 
@@ -168,15 +168,18 @@ pub fn insert_estimates(
 /// Drops an event's estimates and crossings after `at_ms` (a close at the
 /// time of the request, which the daemon took late), in every revision.
 pub fn drop_estimates_after(conn: &Connection, event: i64, at_ms: i64) -> StoreResult<()> {
-    conn.execute(
+    unit::execute(
+        conn,
         "DELETE FROM estimate_rows WHERE event = ?1 AND at_ms > ?2",
         params![event, at_ms],
     )?;
-    conn.execute(
+    unit::execute(
+        conn,
         "DELETE FROM latest_estimates WHERE event = ?1 AND at_ms > ?2",
         params![event, at_ms],
     )?;
-    conn.execute(
+    unit::execute(
+        conn,
         "DELETE FROM crossings WHERE event = ?1 AND at_ms > ?2",
         params![event, at_ms],
     )?;

@@ -1,6 +1,6 @@
 //! Leak events: their rows, revisions, closes and tracking state.
 
-use super::{StoreError, StoreResult};
+use super::{StoreError, StoreResult, unit};
 use crate::estimate::LeakParams;
 use rusqlite::{Connection, OptionalExtension, params};
 use serde::{Deserialize, Serialize};
@@ -62,7 +62,7 @@ pub fn events(conn: &Connection, open_only: bool) -> StoreResult<Vec<EventRow>> 
 /// One event by id.
 pub fn event(conn: &Connection, id: i64) -> StoreResult<Option<EventRow>> {
     let sql = format!("SELECT {EVENT_COLUMNS} FROM events WHERE id = ?1");
-    conn.query_row(&sql, [id], event_from_row)
+    unit::query_row(conn, &sql, [id], event_from_row)
         .optional()?
         .map(parse_params)
         .transpose()
@@ -77,7 +77,8 @@ pub fn create_event(
     source: &str,
     params: &LeakParams,
 ) -> StoreResult<i64> {
-    conn.execute(
+    unit::execute(
+        conn,
         "INSERT INTO events (tank, opened_at_ms, start_ms, source, revision, params) VALUES (?1, ?2, ?3, ?4, 1, ?5)",
         params![tank, opened_at_ms, start_ms, source, json(params)?],
     )?;
@@ -86,19 +87,22 @@ pub fn create_event(
 
 /// Gives an event new parameters as its next revision; returns the revision.
 pub fn revise_event(conn: &Connection, id: i64, params: &LeakParams) -> StoreResult<i64> {
-    conn.execute(
+    unit::execute(
+        conn,
         "UPDATE events SET revision = revision + 1, params = ?2 WHERE id = ?1",
         params![id, json(params)?],
     )?;
-    Ok(
-        conn.query_row("SELECT revision FROM events WHERE id = ?1", [id], |r| {
-            r.get(0)
-        })?,
-    )
+    Ok(unit::query_row(
+        conn,
+        "SELECT revision FROM events WHERE id = ?1",
+        [id],
+        |r| r.get(0),
+    )?)
 }
 
 pub fn close_event(conn: &Connection, id: i64, at_ms: i64) -> StoreResult<()> {
-    conn.execute(
+    unit::execute(
+        conn,
         "UPDATE events SET closed_at_ms = ?2, tracking_error = NULL WHERE id = ?1 AND closed_at_ms IS NULL",
         params![id, at_ms],
     )?;
@@ -110,7 +114,7 @@ pub fn open_event_of_tank(conn: &Connection, tank: &str) -> StoreResult<Option<E
     let sql = format!(
         "SELECT {EVENT_COLUMNS} FROM events WHERE tank = ?1 AND closed_at_ms IS NULL ORDER BY id DESC LIMIT 1"
     );
-    conn.query_row(&sql, [tank], event_from_row)
+    unit::query_row(conn, &sql, [tank], event_from_row)
         .optional()?
         .map(parse_params)
         .transpose()
@@ -118,7 +122,8 @@ pub fn open_event_of_tank(conn: &Connection, tank: &str) -> StoreResult<Option<E
 
 /// Marks an open event as not tracked, and why; None clears it.
 pub fn set_tracking_error(conn: &Connection, event: i64, why: Option<&str>) -> StoreResult<()> {
-    conn.execute(
+    unit::execute(
+        conn,
         "UPDATE events SET tracking_error = ?2 WHERE id = ?1",
         params![event, why],
     )?;

@@ -2,7 +2,7 @@
 //! gone daemon by), the recorded clock steps, and the latest time anything
 //! stored carries.
 
-use super::StoreResult;
+use super::{StoreResult, unit};
 use rusqlite::{Connection, OptionalExtension, params};
 use serde::Serialize;
 
@@ -143,7 +143,7 @@ pub fn beat(conn: &Connection, pid: u32, started_at_ms: i64, config: &str) -> St
 }
 
 pub fn beat_with(conn: &Connection, b: &Beat) -> StoreResult<()> {
-    conn.execute(
+    unit::execute(conn, 
         "INSERT INTO daemon (id, pid, started_at_ms, beat_at_ms, config, beat_wall_ms, clock_offset_ms, loop_wall_ms, activity)
          VALUES (1, ?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8)
          ON CONFLICT (id) DO UPDATE SET pid = ?1, started_at_ms = ?2, beat_at_ms = ?3, config = ?4, stopped_at_ms = NULL,
@@ -168,7 +168,8 @@ pub fn mark_stopped(conn: &Connection) -> StoreResult<()> {
 }
 
 pub fn mark_stopped_at(conn: &Connection, at_ms: i64, wall_ms: i64) -> StoreResult<()> {
-    conn.execute(
+    unit::execute(
+        conn,
         "UPDATE daemon SET stopped_at_ms = ?1, beat_wall_ms = ?2, activity = 'stopped' WHERE id = 1",
         params![at_ms, wall_ms],
     )?;
@@ -216,9 +217,16 @@ pub fn latest_stored_ms(conn: &Connection) -> StoreResult<Option<i64>> {
 
 /// Records a step of the wall clock (or what the timeline did about one).
 pub fn record_clock_step(conn: &Connection, step: &crate::clock::ClockStep) -> StoreResult<()> {
-    conn.execute(
+    unit::execute(
+        conn,
         "INSERT INTO clock_steps (kind, at_ms, wall_ms, step_ms, offset_ms) VALUES (?1, ?2, ?3, ?4, ?5)",
-        params![step.kind.name(), step.at_ms, step.wall_ms, step.step_ms, step.offset_ms],
+        params![
+            step.kind.name(),
+            step.at_ms,
+            step.wall_ms,
+            step.step_ms,
+            step.offset_ms
+        ],
     )?;
     Ok(())
 }

@@ -5,8 +5,10 @@
 //! disk before it returns. An acknowledged operator action and every logged
 //! estimate then survive kill -9 and power loss, which NORMAL does not
 //! promise (it may roll back the last commits after a power cut). FULL costs
-//! an fsync per commit; the daemon commits once per poll cycle, so that is
-//! a few milliseconds a second.
+//! an fsync per commit; the daemon gathers every device's cycle of a tick
+//! into one commit (`daemon::GATHER`), so that is one fsync a tick. Writes
+//! whose loss costs nothing (the heartbeat, trim chunks) go by
+//! [`Store::write_lax`] without waiting for the disk.
 //!
 //! Units of work: the daemon's connection lives on a thread of its own
 //! ([`Store`]), and everything the daemon writes goes there as one closure
@@ -130,7 +132,7 @@ pub const BUSY_TIMEOUT: Duration = Duration::from_secs(5);
 /// commit is kept and retried anyway (see `track::tracker`).
 pub const WRITER_BUSY_TIMEOUT: Duration = Duration::from_secs(1);
 /// SQLite's page cache per connection, KiB.
-pub const PAGE_CACHE_KIB: i64 = 8192;
+pub const PAGE_CACHE_KIB: i64 = 4096;
 /// Prepared statements kept per connection.
 pub const STATEMENT_CACHE: usize = 64;
 /// The WAL file is cut back to this size whenever it restarts from its
@@ -492,13 +494,18 @@ impl Store {
     /// the WAL into the database without waiting for readers or writers.
     pub async fn checkpoint(&self) -> StoreResult<Checkpoint> {
         self.run(Lane::Background, |conn| {
-            Ok(conn.query_row("PRAGMA wal_checkpoint(PASSIVE)", [], |r| {
-                Ok(Checkpoint {
-                    busy: r.get::<_, i64>(0)? != 0,
-                    wal_frames: r.get(1)?,
-                    copied_frames: r.get(2)?,
-                })
-            })?)
+            Ok(unit::query_row(
+                conn,
+                "PRAGMA wal_checkpoint(PASSIVE)",
+                [],
+                |r| {
+                    Ok(Checkpoint {
+                        busy: r.get::<_, i64>(0)? != 0,
+                        wal_frames: r.get(1)?,
+                        copied_frames: r.get(2)?,
+                    })
+                },
+            )?)
         })
         .await
     }

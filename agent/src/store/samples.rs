@@ -24,7 +24,7 @@
 //! Values go in and come out bit for bit, so a replay of stored samples
 //! reproduces the live figures exactly.
 
-use super::{StoreError, StoreResult};
+use super::{StoreError, StoreResult, unit};
 use crate::acquire::sample::{Quality, Reading, TankSample};
 use rusqlite::{Connection, OptionalExtension, params};
 
@@ -379,7 +379,8 @@ pub fn sample_count(conn: &Connection, tank: &str) -> StoreResult<(i64, i64)> {
 
 /// The newest time of any stored sample (one index lookup per set).
 pub fn newest_sample_ms(conn: &Connection) -> StoreResult<Option<i64>> {
-    Ok(conn.query_row(
+    Ok(unit::query_row(
+        conn,
         "SELECT MAX((SELECT MAX(b.at_ms) FROM sample_blocks b WHERE b.sample_set = s.id)) FROM sample_sets s",
         [],
         |r| r.get(0),
@@ -388,7 +389,8 @@ pub fn newest_sample_ms(conn: &Connection) -> StoreResult<Option<i64>> {
 
 /// The oldest time of any stored sample (one index lookup per set).
 pub fn oldest_sample_ms(conn: &Connection) -> StoreResult<Option<i64>> {
-    Ok(conn.query_row(
+    Ok(unit::query_row(
+        conn,
         "SELECT MIN((SELECT MIN(b.at_ms) FROM sample_blocks b WHERE b.sample_set = s.id)) FROM sample_sets s",
         [],
         |r| r.get(0),

@@ -141,14 +141,12 @@ impl<'c> Tx<'c> {
         &mut self,
         f: impl FnOnce(&mut Tx<'c>) -> StoreResult<Result<T, R>>,
     ) -> StoreResult<Result<T, R>> {
-        self.conn().execute_batch("SAVEPOINT attempt")?;
+        run_cached(self.conn(), "SAVEPOINT attempt")?;
         let outcome = f(self);
-        let end = if matches!(outcome, Ok(Ok(_))) {
-            "RELEASE attempt"
-        } else {
-            "ROLLBACK TO attempt; RELEASE attempt"
-        };
-        self.conn().execute_batch(end)?;
+        if !matches!(outcome, Ok(Ok(_))) {
+            run_cached(self.conn(), "ROLLBACK TO attempt")?;
+        }
+        run_cached(self.conn(), "RELEASE attempt")?;
         outcome
     }
 
@@ -329,6 +327,31 @@ pub(super) fn in_read_transaction<T>(
 /// profile.
 pub(super) fn run_cached(conn: &Connection, sql: &str) -> rusqlite::Result<()> {
     conn.prepare_cached(sql)?.raw_execute().map(|_| ())
+}
+
+/// `Connection::execute` through the statement cache. The daemon runs the
+/// same few statements every second (the heartbeat, the action check, the
+/// savepoints of a unit), and parsing one costs more than running it.
+pub(super) fn execute<P: rusqlite::Params>(
+    conn: &Connection,
+    sql: &str,
+    params: P,
+) -> rusqlite::Result<usize> {
+    conn.prepare_cached(sql)?.execute(params)
+}
+
+/// `Connection::query_row` through the statement cache (see [`execute`]).
+pub(super) fn query_row<T, P, F>(
+    conn: &Connection,
+    sql: &str,
+    params: P,
+    f: F,
+) -> rusqlite::Result<T>
+where
+    P: rusqlite::Params,
+    F: FnOnce(&rusqlite::Row<'_>) -> rusqlite::Result<T>,
+{
+    conn.prepare_cached(sql)?.query_row(params, f)
 }
 
 fn end_stray_transaction(conn: &Connection) {
