@@ -143,7 +143,7 @@ pub fn beat(conn: &Connection, pid: u32, started_at_ms: i64, config: &str) -> St
 }
 
 pub fn beat_with(conn: &Connection, b: &Beat) -> StoreResult<()> {
-    unit::execute(conn, 
+    unit::execute(conn,
         "INSERT INTO daemon (id, pid, started_at_ms, beat_at_ms, config, beat_wall_ms, clock_offset_ms, loop_wall_ms, activity)
          VALUES (1, ?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8)
          ON CONFLICT (id) DO UPDATE SET pid = ?1, started_at_ms = ?2, beat_at_ms = ?3, config = ?4, stopped_at_ms = NULL,

@@ -202,7 +202,7 @@ pub fn step(
             });
         }
     }
-    unit::execute(conn, 
+    unit::execute(conn,
         "INSERT INTO trim_progress (id, thinned_before_ms, removed_before_ms) VALUES (1, ?1, ?2)
          ON CONFLICT (id) DO UPDATE SET thinned_before_ms = MAX(thinned_before_ms, ?1), removed_before_ms = MAX(removed_before_ms, ?2)",
         params![pass.thin_to, pass.remove_to],
