@@ -8,7 +8,7 @@
 //! FF-T12 of config/demo.toml drains through a 10 mm hole, one sample a
 //! second, by the analytic Torricelli solution with 1 mm of level noise from
 //! a fixed-seed generator. Invented data for measuring memory, not a
-//! reference. A million samples make a database of about 4.7 GB.
+//! reference. A million samples make a database of about 160 MB.
 
 use leaktally::acquire::sample::{Reading, TankSample};
 use leaktally::estimate::LeakParams;
