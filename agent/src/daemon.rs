@@ -24,6 +24,7 @@ use crate::acquire;
 use crate::acquire::stats::Stats;
 use crate::clock::{Clock, WallSource};
 use crate::config::Config;
+use crate::doorbell::Doorbell;
 use crate::store::health::StoreHealth;
 use crate::store::{Beat, Lane, Retention, Store};
 use crate::tracker::{Counts, Tracker};
@@ -37,9 +38,12 @@ use tokio_util::sync::CancellationToken;
 use tokio_util::task::TaskTracker;
 use tracing::{debug, error, info, warn};
 
-/// How often pending operator actions are looked for: well inside one poll
-/// cycle, so an action is picked up in the cycle it was made in.
-const ACTION_CHECK: Duration = Duration::from_millis(250);
+/// How often pending operator actions are looked for unasked. The CLI rings
+/// the doorbell when it records one (`crate::doorbell`), and the daemon
+/// looks at once; this look is for a ring that could not be made. Four
+/// looks a second, as before the bell, were most of the agent's fixed cost
+/// on a small site.
+const ACTION_CHECK: Duration = Duration::from_secs(2);
 /// How long the loop gathers poll cycles into one commit after the first
 /// arrives: the devices of one tick answer within a few milliseconds of
 /// each other, so a tick's cycles commit together, one fsync a tick rather
@@ -214,6 +218,18 @@ async fn daemon(
         .await
         .ok_or_else(starting_gave_up)?;
     let store = Arc::new(opened??);
+    // Listening before anything else, so that no ring is missed from here
+    // on; without the bell, actions are still looked for every ACTION_CHECK.
+    let doorbell = match Doorbell::listen(db) {
+        Ok(bell) => Some(bell),
+        Err(e) => {
+            warn!(
+                "operator actions will be looked for every {} s, not at once: cannot listen for the CLI's doorbell ({e})",
+                ACTION_CHECK.as_secs()
+            );
+            None
+        }
+    };
     // Bound before the heartbeat: a port in use is a startup error, before
     // the heartbeat says a daemon runs.
     let listener = match &config.web {
@@ -368,15 +384,21 @@ async fn daemon(
                     abandoned = true;
                     break;
                 }
+                // Once a tick: a wall-clock step is seen within a second.
+                for step in clock.check(tracker.open_events() == 0) {
+                    warn!("clock: {}", step.describe());
+                }
+            }
+            () = rung(doorbell.as_ref()) => {
+                if !look_for_actions(&mut tracker, &signals).await {
+                    abandoned = true;
+                    break;
+                }
             }
             _ = actions.tick() => {
-                match signals.bounded(tracker.on_actions()).await {
-                    None => {
-                        abandoned = true;
-                        break;
-                    }
-                    Some(Err(e)) => warn!("operator actions: {e}"),
-                    Some(Ok(())) => {}
+                if !look_for_actions(&mut tracker, &signals).await {
+                    abandoned = true;
+                    break;
                 }
                 for step in clock.check(tracker.open_events() == 0) {
                     warn!("clock: {}", step.describe());
@@ -478,6 +500,27 @@ async fn daemon(
         counts.acquired
     );
     Ok(counts)
+}
+
+/// Applies the pending operator actions; false when the database did not
+/// answer within the stop signal's bound.
+async fn look_for_actions(tracker: &mut Tracker, signals: &Signals) -> bool {
+    match signals.bounded(tracker.on_actions()).await {
+        None => false,
+        Some(Err(e)) => {
+            warn!("operator actions: {e}");
+            true
+        }
+        Some(Ok(())) => true,
+    }
+}
+
+/// A ring of the doorbell; never, without one.
+async fn rung(doorbell: Option<&Doorbell>) {
+    match doorbell {
+        Some(bell) => bell.rung().await,
+        None => std::future::pending().await,
+    }
 }
 
 /// The error of a start that the stop signal cut short while the database

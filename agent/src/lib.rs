@@ -19,6 +19,7 @@
 //!   database connection.
 //! * [`actions`]: the operator-actions client: the requests, sending them,
 //!   the daemon's replies.
+//! * [`doorbell`]: how the CLI tells the daemon it recorded an action.
 //! * [`tracker`]: the daemon's open events, operator actions and writes.
 //! * [`web`]: the daemon's read-only responder page, JSON and metrics.
 //! * [`commands`]: each subcommand's arguments and what it does.
@@ -33,6 +34,7 @@ pub mod clock;
 pub mod commands;
 pub mod config;
 pub mod daemon;
+pub mod doorbell;
 pub mod estimate;
 pub mod estimator;
 pub mod logging;
@@ -53,7 +55,7 @@ pub mod web;
 /// knows what a change to one module can touch. DEVELOPERS.md explains
 /// each layer; `layers_only_point_down` checks every `crate::` path.
 pub const LAYERS: &[&[&str]] = &[
-    &["model", "registers", "logging", "shutdown"],
+    &["model", "registers", "logging", "shutdown", "doorbell"],
     &["config", "estimate"],
     &["report"],
     &["clock"],

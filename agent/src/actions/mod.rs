@@ -104,6 +104,7 @@ pub fn send(db: &Path, request: &Request) -> anyhow::Result<Reply> {
                 db.display()
             ))
         })?;
+    crate::doorbell::ring(db);
     let action = store::action(&conn, id)?
         .ok_or_else(|| StoreError::Corrupt(format!("action {id} vanished")))?;
     let made = report::utc(action.requested_at_ms);

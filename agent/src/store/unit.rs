@@ -354,8 +354,10 @@ where
     conn.prepare_cached(sql)?.query_row(params, f)
 }
 
+/// Ends a transaction left open; every read ends here, so the ROLLBACK
+/// comes from the statement cache too.
 fn end_stray_transaction(conn: &Connection) {
-    if !conn.is_autocommit() {
+    if !conn.is_autocommit() && run_cached(conn, "ROLLBACK").is_err() {
         let _ = conn.execute_batch("ROLLBACK");
     }
 }

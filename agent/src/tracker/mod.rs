@@ -489,6 +489,13 @@ impl Tracker {
         if self.retry_at.is_some_and(|at| Instant::now() < at) {
             return Ok(());
         }
+        // Most looks find nothing to do: then the samples taken so far wait
+        // for their tick's one commit (`daemon::GATHER`) instead of going in
+        // early, in a commit and an fsync of their own. A failed commit
+        // whose retry is due is retried whatever the look finds.
+        if !self.store_failing() && self.store.read(|r| r.pending_actions()).await?.is_empty() {
+            return Ok(());
+        }
         self.flush().await;
         if !self.backlog.is_empty() {
             return Ok(());
