@@ -51,8 +51,14 @@ const ACTION_CHECK: Duration = Duration::from_secs(2);
 /// the pollers are reading: under one tick of samples (README, "The
 /// database, and what a power cut can cost").
 pub const GATHER: Duration = Duration::from_millis(100);
-/// How often the heartbeat row is refreshed.
+/// How often the heartbeat row is refreshed: each tick's commit carries a
+/// beat (one transaction fewer a second), and the heartbeat task beats on
+/// its own when the loop has not for [`HEARTBEAT_LATE`] (a loop that is busy,
+/// or has no samples to commit), or every [`HEARTBEAT`] while it beats alone.
 const HEARTBEAT: Duration = Duration::from_secs(1);
+/// How long after the last beat the heartbeat task beats itself: a tick and
+/// room for its gather and commit.
+const HEARTBEAT_LATE: Duration = Duration::from_millis(1250);
 /// How often the rolling history is trimmed, and the first time after start.
 const TRIM_EVERY: Duration = Duration::from_secs(60);
 const TRIM_FIRST_AFTER: Duration = Duration::from_secs(10);
@@ -252,22 +258,27 @@ async fn daemon(
         .unwrap_or_else(|| Box::new(crate::clock::system_wall_ms));
     let clock = Arc::new(Clock::anchored(wall, floor));
     let started = clock.now_ms();
-    let identity = Identity {
-        pid: std::process::id(),
-        started,
-        config: config.path.display().to_string(),
-    };
-    let state = Arc::new(LoopState {
-        turned_wall_ms: AtomicI64::new(clock.wall_ms()),
-        activity: Mutex::new("resuming open events".into()),
+    let pulse = Arc::new(Pulse {
+        identity: Identity {
+            pid: std::process::id(),
+            started,
+            config: config.path.display().to_string(),
+        },
+        clock: Arc::clone(&clock),
+        state: LoopState {
+            turned_wall_ms: AtomicI64::new(clock.wall_ms()),
+            activity: Mutex::new("resuming open events".into()),
+        },
+        last_ms: AtomicI64::new(i64::MIN),
     });
+    let state = &pulse.state;
     {
         let tags: Vec<String> = config.tanks.iter().map(|t| t.id.clone()).collect();
         let steps = clock.take_pending();
         for step in &steps {
             warn!("clock: {}", step.describe());
         }
-        let beat = identity.beat(&clock, &state);
+        let beat = pulse.beat();
         let written = store.write(Lane::Urgent, move |tx| {
             tx.register_tanks(tags.iter().map(String::as_str))?;
             for step in &steps {
@@ -286,10 +297,8 @@ async fn daemon(
     let background = TaskTracker::new();
     background.spawn(heartbeat(
         Arc::clone(&store),
-        Arc::clone(&clock),
         Arc::clone(&health),
-        Arc::clone(&state),
-        identity,
+        Arc::clone(&pulse),
         signals.stopping.clone(),
     ));
     let resumed = Tracker::resume(
@@ -380,9 +389,15 @@ async fn daemon(
             },
             () = tokio::time::sleep_until(commit_at.unwrap_or_else(Instant::now)), if commit_at.is_some() => {
                 commit_at = None;
-                if signals.bounded(tracker.commit()).await.is_none() {
-                    abandoned = true;
-                    break;
+                let beat = pulse.beat();
+                let at_ms = beat.at_ms;
+                match signals.bounded(tracker.commit_beating(beat)).await {
+                    None => {
+                        abandoned = true;
+                        break;
+                    }
+                    Some(true) => pulse.beaten(at_ms),
+                    Some(false) => {}
                 }
                 // Once a tick: a wall-clock step is seen within a second.
                 for step in clock.check(tracker.open_events() == 0) {
@@ -539,46 +554,75 @@ struct Identity {
     config: String,
 }
 
-impl Identity {
-    fn beat(&self, clock: &Clock, state: &LoopState) -> Beat {
+/// The heartbeat's makings, shared by the main loop (whose tick commits
+/// carry a beat) and the heartbeat task (which beats when the loop has not).
+struct Pulse {
+    identity: Identity,
+    clock: Arc<Clock>,
+    state: LoopState,
+    /// The timeline's time of the last beat written, by either.
+    last_ms: AtomicI64,
+}
+
+impl Pulse {
+    fn beat(&self) -> Beat {
         Beat {
-            pid: self.pid,
-            started_at_ms: self.started,
-            config: self.config.clone(),
-            at_ms: clock.now_ms(),
-            wall_ms: clock.wall_ms(),
-            loop_wall_ms: state.turned_wall_ms.load(Ordering::Relaxed),
-            activity: state.activity(),
+            pid: self.identity.pid,
+            started_at_ms: self.identity.started,
+            config: self.identity.config.clone(),
+            at_ms: self.clock.now_ms(),
+            wall_ms: self.clock.wall_ms(),
+            loop_wall_ms: self.state.turned_wall_ms.load(Ordering::Relaxed),
+            activity: self.state.activity(),
         }
+    }
+
+    /// A beat made at `at_ms` is in the database.
+    fn beaten(&self, at_ms: i64) {
+        self.last_ms.fetch_max(at_ms, Ordering::Relaxed);
+    }
+
+    /// How long since the last beat written.
+    fn since_last(&self) -> Duration {
+        let last = self.last_ms.load(Ordering::Relaxed);
+        let ms = self.clock.now_ms().saturating_sub(last).max(0);
+        Duration::from_millis(u64::try_from(ms).unwrap_or(u64::MAX))
     }
 }
 
-/// Beats every second, with what the loop is doing and any clock steps
-/// seen, until the stop signal. While commits fail it waits: the tracker
-/// paces the retries, and extra writes would only queue on the same lock
-/// or disk; a stale heartbeat is then what readers see, rightly.
+/// Beats with what the loop is doing, and records any clock steps seen,
+/// whenever the loop's tick commits have not beaten for [`HEARTBEAT_LATE`]
+/// (or every [`HEARTBEAT`] while they do not beat at all), until the stop
+/// signal. While commits fail it waits: the tracker paces the retries, and
+/// extra writes would only queue on the same lock or disk; a stale
+/// heartbeat is then what readers see, rightly.
 async fn heartbeat(
     store: Arc<Store>,
-    clock: Arc<Clock>,
     health: Arc<StoreHealth>,
-    state: Arc<LoopState>,
-    identity: Identity,
+    pulse: Arc<Pulse>,
     stopping: CancellationToken,
 ) {
-    let mut tick = tokio::time::interval(HEARTBEAT);
-    tick.set_missed_tick_behavior(MissedTickBehavior::Delay);
+    let mut due = Instant::now();
     loop {
         tokio::select! {
             biased;
             () = stopping.cancelled() => return,
-            _ = tick.tick() => {}
+            () = tokio::time::sleep_until(due) => {}
         }
+        due = Instant::now() + HEARTBEAT;
         if health.snapshot().failing.is_some() {
             continue;
         }
-        let steps = clock.take_pending();
+        let steps = pulse.clock.take_pending();
+        let since = pulse.since_last();
+        if steps.is_empty() && since < HEARTBEAT_LATE {
+            // The loop beat lately: look again when its next beat is late.
+            due = Instant::now() + (HEARTBEAT_LATE - since);
+            continue;
+        }
         let kept = steps.clone();
-        let beat = identity.beat(&clock, &state);
+        let beat = pulse.beat();
+        let at_ms = beat.at_ms;
         let written = store
             .write_lax(Lane::Urgent, move |tx| {
                 for step in &steps {
@@ -587,9 +631,12 @@ async fn heartbeat(
                 tx.beat(&beat)
             })
             .await;
-        if let Err(e) = written {
-            clock.restore_pending(kept);
-            warn!("heartbeat: {e}");
+        match written {
+            Ok(()) => pulse.beaten(at_ms),
+            Err(e) => {
+                pulse.clock.restore_pending(kept);
+                warn!("heartbeat: {e}");
+            }
         }
     }
 }
