@@ -279,6 +279,7 @@ async fn daemon(
             warn!("clock: {}", step.describe());
         }
         let beat = pulse.beat();
+        let at_ms = beat.at_ms;
         let written = store.write(Lane::Urgent, move |tx| {
             tx.register_tanks(tags.iter().map(String::as_str))?;
             for step in &steps {
@@ -290,6 +291,7 @@ async fn daemon(
             .bounded(written)
             .await
             .ok_or_else(starting_gave_up)??;
+        pulse.beaten(at_ms);
     }
     let health = Arc::new(StoreHealth::default());
     // Beating from here on: a start that resumes long events is busy, not
@@ -391,7 +393,7 @@ async fn daemon(
                 commit_at = None;
                 let beat = pulse.beat();
                 let at_ms = beat.at_ms;
-                match signals.bounded(tracker.commit_beating(beat)).await {
+                match signals.bounded(tracker.commit(Some(beat))).await {
                     None => {
                         abandoned = true;
                         break;
@@ -400,24 +402,19 @@ async fn daemon(
                     Some(false) => {}
                 }
                 // Once a tick: a wall-clock step is seen within a second.
-                for step in clock.check(tracker.open_events() == 0) {
-                    warn!("clock: {}", step.describe());
-                }
+                check_clock(&clock, &tracker);
             }
-            () = rung(doorbell.as_ref()) => {
-                if !look_for_actions(&mut tracker, &signals).await {
-                    abandoned = true;
-                    break;
+            () = actions_wanted(doorbell.as_ref(), &mut actions) => {
+                match signals.bounded(tracker.on_actions()).await {
+                    None => {
+                        abandoned = true;
+                        break;
+                    }
+                    Some(Err(e)) => warn!("operator actions: {e}"),
+                    Some(Ok(())) => {}
                 }
-            }
-            _ = actions.tick() => {
-                if !look_for_actions(&mut tracker, &signals).await {
-                    abandoned = true;
-                    break;
-                }
-                for step in clock.check(tracker.open_events() == 0) {
-                    warn!("clock: {}", step.describe());
-                }
+                // Also here: a loop without samples has no ticks.
+                check_clock(&clock, &tracker);
             }
         }
     }
@@ -517,24 +514,25 @@ async fn daemon(
     Ok(counts)
 }
 
-/// Applies the pending operator actions; false when the database did not
-/// answer within the stop signal's bound.
-async fn look_for_actions(tracker: &mut Tracker, signals: &Signals) -> bool {
-    match signals.bounded(tracker.on_actions()).await {
-        None => false,
-        Some(Err(e)) => {
-            warn!("operator actions: {e}");
-            true
+/// When to look for operator actions: at a ring of the doorbell, or at the
+/// periodic look (the only one without a bell).
+async fn actions_wanted(doorbell: Option<&Doorbell>, every: &mut tokio::time::Interval) {
+    match doorbell {
+        Some(bell) => tokio::select! {
+            () = bell.rung() => {}
+            _ = every.tick() => {}
+        },
+        None => {
+            every.tick().await;
         }
-        Some(Ok(())) => true,
     }
 }
 
-/// A ring of the doorbell; never, without one.
-async fn rung(doorbell: Option<&Doorbell>) {
-    match doorbell {
-        Some(bell) => bell.rung().await,
-        None => std::future::pending().await,
+/// Looks for a wall-clock step, realigning the timeline only while no event
+/// is open, and logs what it saw.
+fn check_clock(clock: &Clock, tracker: &Tracker) {
+    for step in clock.check(tracker.open_events() == 0) {
+        warn!("clock: {}", step.describe());
     }
 }
 

@@ -262,27 +262,23 @@ impl Tracker {
     /// Feeds one poll cycle's samples to the open events and commits both.
     pub async fn on_batch(&mut self, batch: Vec<TankSample>) {
         self.take(batch);
-        self.commit().await;
+        self.commit(None).await;
     }
 
     /// Commits what has been taken (every device's cycle of a tick in one
     /// unit: see `daemon`), unless a failed commit is waiting out its
     /// retry; then opens the events of raised leak flags.
-    pub async fn commit(&mut self) {
-        self.commit_beating(None).await;
-    }
-
-    /// As [`Tracker::commit`], with the daemon's heartbeat in the first
-    /// commit: one transaction a tick rather than two. Returns whether the
-    /// beat was committed.
-    pub async fn commit_beating(&mut self, beat: impl Into<Option<Beat>>) -> bool {
+    ///
+    /// `beat`, the daemon's heartbeat, goes in the first commit (one
+    /// transaction a tick rather than two); returns whether it was committed.
+    pub async fn commit(&mut self, beat: Option<Beat>) -> bool {
         if self.retry_at.is_some_and(|at| Instant::now() < at) {
             self.bound_backlog();
             self.health
                 .set_held(self.backlog.cycles(), self.backlog.samples());
             return false;
         }
-        let beaten = self.flush_beating(beat.into()).await;
+        let beaten = self.flush(beat).await;
         self.open_on_flags().await;
         beaten
     }
@@ -356,7 +352,7 @@ impl Tracker {
     pub async fn finish(&mut self, until: Instant) -> usize {
         loop {
             if self.retry_at.is_none_or(|at| Instant::now() >= at) {
-                self.flush().await;
+                self.flush(None).await;
             }
             if self.backlog.is_empty() {
                 return 0;
@@ -382,13 +378,9 @@ impl Tracker {
     /// outage the catch-up spreads over the next cycles, and the daemon's
     /// loop keeps serving the pollers, the stop signal and the operators
     /// meanwhile.
-    async fn flush(&mut self) {
-        self.flush_beating(None).await;
-    }
-
-    /// Commits what the backlog holds, `beat` with the first commit; returns
-    /// whether the beat went in.
-    async fn flush_beating(&mut self, mut beat: Option<Beat>) -> bool {
+    ///
+    /// `beat` goes in with the first commit; returns whether it went in.
+    async fn flush(&mut self, mut beat: Option<Beat>) -> bool {
         if self.backlog.is_empty() {
             return false;
         }
@@ -518,7 +510,7 @@ impl Tracker {
         if !self.store_failing() && self.store.read(|r| r.pending_actions()).await?.is_empty() {
             return Ok(());
         }
-        self.flush().await;
+        self.flush(None).await;
         if !self.backlog.is_empty() {
             return Ok(());
         }
