@@ -18,6 +18,72 @@ pub(super) fn rectangular(bound: f64) -> f64 {
     bound / 3f64.sqrt()
 }
 
+/// The standard uncertainties of a tank's instruments and density, made
+/// once per estimator: every sample uses them, and each is a division.
+#[derive(Debug, Clone, Copy, Default)]
+pub(super) struct Standard {
+    pub(super) level: f64,
+    pub(super) pressure: f64,
+    pub(super) density: f64,
+    /// The transfer meter's, per unit of flow magnitude.
+    pub(super) meter: f64,
+    pub(super) temperature: f64,
+    /// The level register's quantisation (step / √12): the level noise is
+    /// never taken below it.
+    pub(super) level_quantisation: f64,
+}
+
+impl Standard {
+    pub(super) fn of(tank: &Tank) -> Self {
+        Self {
+            level: rectangular(tank.level.accuracy.bound),
+            pressure: tank
+                .pressure
+                .as_ref()
+                .map_or(0.0, |p| rectangular(p.sensor.accuracy.bound)),
+            density: rectangular(tank.density_uncertainty.bound),
+            meter: tank
+                .transfer
+                .as_ref()
+                .map_or(0.0, |meter| rectangular(meter.accuracy.of(1.0))),
+            temperature: tank
+                .temperature
+                .as_ref()
+                .map_or(0.0, |sensor| rectangular(sensor.accuracy.bound)),
+            level_quantisation: tank.level.resolution_si() / 12f64.sqrt(),
+        }
+    }
+}
+
+/// The inventory balance's uncertainty at one sample by cause, each
+/// expanded and squared (kg²).
+#[derive(Debug, Clone, Copy, Default)]
+pub(super) struct InventorySquares {
+    level_accuracy: f64,
+    level_noise: f64,
+    density: f64,
+    transfer: f64,
+    temperature: f64,
+}
+
+impl InventorySquares {
+    /// All the causes combined, root sum of squares (kg).
+    pub(super) fn combined(&self) -> f64 {
+        (self.level_accuracy + self.level_noise + self.density + self.transfer + self.temperature)
+            .sqrt()
+    }
+
+    /// Writes each cause (kg) and the combined figure into the band.
+    pub(super) fn write_causes(&self, band: &mut BandCauses) {
+        band.level_accuracy_kg = self.level_accuracy.sqrt();
+        band.level_noise_kg = self.level_noise.sqrt();
+        band.density_kg = self.density.sqrt();
+        band.transfer_kg = self.transfer.sqrt();
+        band.temperature_kg = self.temperature.sqrt();
+        band.inventory_kg = self.combined();
+    }
+}
+
 impl Estimator {
     /// The expanded relative uncertainty of the model's rate from the
     /// instruments and the density, by first-order propagation through the
@@ -29,13 +95,12 @@ impl Estimator {
     /// Vapour: m ∝ p_upstream (choked, and nearly so below), so
     /// ∂ln m/∂p = 1 / p_upstream.
     pub(super) fn rate_fraction(&self, r: &Reading, unit: &Outflow) -> f64 {
-        let u_level = rectangular(self.tank.level.accuracy.bound);
-        let u_pressure = self
-            .tank
-            .pressure
-            .as_ref()
-            .map_or(0.0, |p| rectangular(p.sensor.accuracy.bound));
-        let u_density = rectangular(self.tank.density_uncertainty.bound);
+        let Standard {
+            level: u_level,
+            pressure: u_pressure,
+            density: u_density,
+            ..
+        } = self.standard;
         let relative = match unit.phase {
             Phase::Liquid => {
                 let driving = unit.driving.si().max(1.0);
@@ -60,36 +125,33 @@ impl Estimator {
         (COVERAGE_FACTOR * relative).min(0.9)
     }
 
-    /// The inventory balance's uncertainty at this sample, by cause;
-    /// `smoothing` is the share of one reading's noise left on the present
-    /// level (1 for a single reading).
-    pub(super) fn inventory_causes(
-        &self,
-        r: &Reading,
-        inventory: f64,
-        smoothing: f64,
-    ) -> BandCauses {
+    /// The inventory balance's uncertainty at this sample, by cause, each
+    /// squared: their sum's square root is the combined figure every
+    /// sample needs, and the causes themselves are wanted only when the
+    /// whole estimate is (`InventorySquares::causes`).
+    pub(super) fn inventory_squares(&self, r: &Reading, inventory: f64) -> InventorySquares {
         let start = self.start.expect("set by begin");
         let rho = r.density;
         let area_now = self.vessel.geometry().area_si(r.state.level.si());
+        let areas = start.area * start.area + area_now * area_now;
         let k = COVERAGE_FACTOR;
         // A data sheet's accuracy bounds each reading, not the difference
         // of two: nonlinearity and drift need not cancel between the start
         // and now, so the two ends count as independent (conservative).
-        let u_level = rectangular(self.tank.level.accuracy.bound);
-        let level_accuracy = k * rho * quad(start.area, area_now) * u_level;
+        let per_area = k * rho * self.standard.level;
         // The start level is interpolated from readings either side, and
-        // the present one is one reading.
-        let noise = self.level_noise();
-        let level_noise = k * rho * quad(start.area * noise, area_now * noise * smoothing);
-        let density = k * inventory.abs() * rectangular(self.tank.density_uncertainty.bound);
-        let transfer = self.tank.transfer.as_ref().map_or(0.0, |meter| {
-            k * self.transferred_magnitude.total() * rectangular(meter.accuracy.of(1.0))
-        });
+        // the present one is one reading; both carry the level's noise.
+        let per_area_noise = k * rho * self.level_noise();
+        let density = k * inventory.abs() * self.standard.density;
+        let transfer = if self.tank.transfer.is_some() {
+            k * self.transferred_magnitude.total() * self.standard.meter
+        } else {
+            0.0
+        };
         // A temperature error shifts the density at both ends alike, so it
         // acts on the mass that left, through the expansion coefficient.
         let temperature = match (&self.tank.temperature, r.temperature) {
-            (Some(sensor), Some(t)) if self.tank.density.follows_temperature() => {
+            (Some(_), Some(t)) if self.tank.density.follows_temperature() => {
                 let rho_up = self
                     .tank
                     .density
@@ -101,29 +163,16 @@ impl Estimator {
                     .at(Some(Temperature::kelvin(t - 1.0)))
                     .si();
                 let per_kelvin = ((rho_down - rho_up) / 2.0 / rho).abs();
-                k * inventory.abs() * per_kelvin * rectangular(sensor.accuracy.bound)
+                k * inventory.abs() * per_kelvin * self.standard.temperature
             }
             _ => 0.0,
         };
-        let combined = [level_accuracy, level_noise, density, transfer, temperature]
-            .iter()
-            .map(|c| c * c)
-            .sum::<f64>()
-            .sqrt();
-        BandCauses {
-            cd_low: self.cd_band.0,
-            cd_high: self.cd_band.1,
-            level_accuracy_kg: level_accuracy,
-            level_noise_kg: level_noise,
-            density_kg: density,
-            transfer_kg: transfer,
-            temperature_kg: temperature,
-            inventory_kg: combined,
-            rate_fraction: 0.0,
-            fit_fraction: None,
-            model_low_kg: 0.0,
-            model_high_kg: 0.0,
-            bridge_kg: 0.0,
+        InventorySquares {
+            level_accuracy: per_area * per_area * areas,
+            level_noise: per_area_noise * per_area_noise * areas,
+            density: density * density,
+            transfer: transfer * transfer,
+            temperature: temperature * temperature,
         }
     }
 

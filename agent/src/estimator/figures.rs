@@ -21,17 +21,46 @@ pub(super) fn c_overlaps(low: f64, high: f64, range_low: f64, range_high: f64) -
     low <= range_high && high >= range_low
 }
 
+/// A figure's three values: low, best, high.
+type Triple = (f64, f64, f64);
+
+/// What one view of the release gives before the level holds it: the
+/// method and why, the released total and the present rate (each low,
+/// best, high), and the orifice model's best total, when a hole is known.
+struct View {
+    method: Method,
+    reason: Reason,
+    released: Triple,
+    rate: Triple,
+    model: Option<f64>,
+}
+
+/// How the per-unit integral splits between liquid (which the level
+/// checks) and vapour (which it cannot).
+#[derive(Clone, Copy)]
+struct Shares {
+    /// The vapour part per unit Cd·A; zero when it is round-off.
+    vapour_part: f64,
+    /// The liquid share of the whole, 0 to 1.
+    liquid_share: f64,
+}
+
 impl Estimator {
+    /// The figures after a sample, from its reading, the flow through the
+    /// unit hole, the rate's relative band, the inventory balance, and
+    /// where the gap before it (if any) began. In order: the level's
+    /// uncertainty, the view (given hole, fitted hole or the level alone),
+    /// the level's hold on it, the ratchet, the crossings, the warnings and
+    /// the forecast's schedule.
     pub(super) fn compute(
         &mut self,
         r: &Reading,
         unit: Outflow,
         fraction: f64,
-        inventory_raw: f64,
+        inventory: f64,
         gap_from: Option<i64>,
     ) -> Figures {
         let after_gap = gap_from.is_some();
-        let start = self.start.expect("set by begin");
         // The level's own figure is the inventory at this sample, with its
         // full noise: a line smoothed over the last minute would be less
         // noisy, but at a kink (a leak that stops) it runs on past the
@@ -39,12 +68,19 @@ impl Estimator {
         // serves for the inventory's rate, and for its best figure when
         // nothing else has one (it is less noisy there, and held inside the
         // band): `level_line`, made only where a figure uses it.
-        let inventory = inventory_raw;
-        let mut band = self.inventory_causes(r, inventory, 1.0);
-        band.rate_fraction = fraction;
-        band.bridge_kg = self.bridge_uncertainty_kg;
-        let u = band.inventory_kg;
-        let (level_low, level_high) = (inventory - u, inventory + u);
+        let squares = self.inventory_squares(r, inventory);
+        let u = squares.combined();
+        self.latest_squares = squares;
+        let mut band = BandCauses {
+            cd_low: self.cd_band.0,
+            cd_high: self.cd_band.1,
+            inventory_kg: u,
+            rate_fraction: fraction,
+            bridge_kg: self.bridge_uncertainty_kg,
+            // The causes one by one are written when the whole estimate is
+            // asked for.
+            ..BandCauses::default()
+        };
         // A loss is seen once the level has fallen beyond what the
         // instruments allow, and stays seen for the rest of the revision: a
         // reading that dips back inside the noise does not unsee it.
@@ -52,131 +88,261 @@ impl Estimator {
         let loss_seen = self.loss_seen;
         let mut warnings = Warnings::default();
         let fit = self.fit_ready();
-
-        // What the level lets through: the liquid above the hole at the
-        // start plus what was pumped in; nothing can release more liquid.
-        // A level that fell further than that, beyond its own uncertainty,
-        // says the hole is lower than given (or the gauge is wrong): the cap
-        // rests on an assumption the measurement refutes, so it is dropped
-        // and the figures follow the level.
-        let cap = start.above_hole + self.transferred.total().max(0.0);
-        let cap = if inventory - u > cap {
-            warnings.insert(Warning::HoleHeightRefuted);
-            f64::INFINITY
-        } else {
-            cap
-        };
-
-        // The per-unit integrals, split into the liquid part (which the
-        // level checks) and the vapour part (which it cannot).
-        let pu = &self.per_unit;
-        // A liquid lead-in before the first level is liquid too, though the
-        // level did not see it: it belongs to the liquid share, never to the
-        // vapour part, or it would be counted twice.
-        let liquid_part = pu.liquid.total() + self.lead_in_per_unit;
-        // (Relative to the whole: the two sums add in different orders.)
-        let vapour_part = (pu.all.total() - liquid_part).max(0.0);
-        let vapour_part = if vapour_part > 1e-9 * pu.all.total() {
-            vapour_part
-        } else {
-            0.0
-        };
-        let liquid_share = if pu.all.total() > 0.0 {
-            (liquid_part / pu.all.total()).min(1.0)
-        } else {
-            1.0
-        };
+        let cap = self.liquid_cap(inventory, u, &mut warnings);
+        let shares = self.shares();
         let area_given = self
             .params
             .hole_diameter_m
             .map(|d| std::f64::consts::FRAC_PI_4 * d * d);
-        let (cd_low, cd_high) = self.cd_band;
-        let cd = self.cd.get();
-        let unit_rate = unit.rate.si();
-
-        let (method, mut reason, released, rate, model) = match (area_given, fit) {
-            (Some(area), _) => {
-                let model = (
-                    cd_low * area * pu.low.total(),
-                    cd * area * pu.all.total(),
-                    cd_high * area * pu.high.total(),
-                );
-                let rate = (
-                    cd_low * area * unit_rate * (1.0 - fraction).max(0.0),
-                    cd * area * unit_rate,
-                    cd_high * area * unit_rate * (1.0 + fraction),
-                );
-                (
-                    Method::OrificeGivenHole,
-                    Reason::GivenHole,
-                    model,
-                    rate,
-                    Some(model.1),
-                )
-            }
-            (None, Some((k, se))) if loss_seen => {
-                let total = k * pu.all.total();
-                let spread = COVERAGE_FACTOR * se * pu.all.total();
-                let half = quad(spread, u);
-                band.fit_fraction = Some(COVERAGE_FACTOR * se / k);
-                let k_low = (k - COVERAGE_FACTOR * se).max(0.0);
-                let k_high = k + COVERAGE_FACTOR * se;
-                let rate = (
-                    k_low * unit_rate * (1.0 - fraction).max(0.0),
-                    k * unit_rate,
-                    k_high * unit_rate * (1.0 + fraction),
-                );
-                (
-                    Method::FittedHole,
-                    Reason::FittedHole,
-                    ((total - half).max(0.0), total, total + half),
-                    rate,
-                    Some(total),
-                )
-            }
-            (None, _) => {
-                let (smoothed, inventory_rate) = self.level_line(inventory, u);
-                (
-                    Method::InventoryBalance,
-                    if loss_seen {
-                        Reason::NotEnoughDrop
-                    } else {
-                        Reason::NoLossSeen
-                    },
-                    (level_low.max(0.0), smoothed.max(0.0), level_high.max(0.0)),
-                    inventory_rate,
-                    None,
-                )
-            }
-        };
-
-        // Hold the model's liquid part to what the level allows, and to the
-        // liquid there was above the hole: a liquid cannot leave without
-        // the level showing it. The level is a measurement; a hole size and
-        // a Cd are assumptions, and a model run on a wrong one (a hole that
-        // was plugged in a data gap, a leak that slowed, a guess at the
-        // size) does not know it is wrong. So the band of the liquid
-        // figure is what the level allows (the inventory balance with its
-        // uncertainty), and the model sets the best figure within it: its
-        // own, as far as the level allows, while their bands overlap; the
-        // level's, when they do not (the model is refuted). The model's own
-        // band is kept beside it (`band.model_*`). A fitted hole's band is
-        // the fit's spread combined with the level's, so never narrower.
-        // The lead-in before the first level is the model's alone (the
-        // inventory starts after it), so the bound allows for it.
-        let (mut low, mut best, mut high) = released;
-        let mut rate = rate;
+        let view = self.view(
+            area_given,
+            fit,
+            inventory,
+            u,
+            unit.rate.si(),
+            fraction,
+            &mut band,
+        );
+        let (model, method) = (view.model, view.method);
         // Whether the level can speak for the figure at all: not when all
         // of it is vapour. With no hole to go on, a level that has not
         // fallen beyond the instruments is all there is: no loss, no flow.
         // (A hole someone has seen is evidence of its own: its figure stands
-        // until the level refutes it, below.)
-        let level_sees = model.is_none() || liquid_share > 0.0;
+        // until the level refutes it.)
+        let level_sees = model.is_none() || shares.liquid_share > 0.0;
         let no_loss = model.is_none() && !loss_seen;
+        let (released, rate, mut reason, entered_level_mode) =
+            self.hold_to_level(view, inventory, u, cap, shares, &mut band, &mut warnings);
+        // (All vapour: the liquid cap does not apply, and the level cannot
+        // check the figure.)
+        if shares.vapour_part > 0.0 || matches!(unit.phase, Phase::Vapour(_)) {
+            warnings.insert(Warning::VapourNotChecked);
+            if matches!(unit.phase, Phase::Vapour(_)) && model.is_some() {
+                reason = Reason::Vapour;
+            }
+        }
+        let (low, best, high) = released;
+        let (low, best, high) = self.ratchet(
+            (low.max(0.0), best, high),
+            u,
+            no_loss,
+            after_gap || entered_level_mode,
+        );
+        self.note_crossings(r.at_ms, best, high, no_loss, gap_from);
+
+        // The fit's band and the implied Cd are made when the whole estimate
+        // is asked for (`Estimator::estimate`), from what they rest on.
+        self.fit_inputs = FitInputs {
+            fit,
+            inventory,
+            u,
+            area_given,
+            loss_seen,
+        };
+        if let (Some(area), Some((k, _))) = (area_given, fit) {
+            let ratio = self.cd.get() * area / k;
+            if !(1.0 / CONSISTENCY_RATIO..=CONSISTENCY_RATIO).contains(&ratio) {
+                warnings.insert(Warning::HoleInconsistent);
+            }
+        }
+        if level_sees && !loss_seen {
+            warnings.insert(Warning::NoLossSeen);
+        }
+        self.standing_warnings(r, best, &mut warnings);
+        self.schedule_forecast(r, &unit, entered_level_mode, rate.1, best, cap, u);
+
+        let (rate_low, rate_best, rate_high) = rate;
+        let figures = Figures {
+            at_ms: r.at_ms,
+            released_best_kg: best,
+            released_low_kg: low,
+            released_high_kg: high,
+            rate_best_kg_s: rate_best.max(0.0),
+            rate_low_kg_s: rate_low.clamp(0.0, rate_best.max(0.0)),
+            rate_high_kg_s: rate_high.max(rate_best).max(0.0),
+            inventory_kg: Some(inventory),
+            model_kg: model,
+            method,
+            reason,
+            phase: match unit.phase {
+                Phase::Liquid => PhaseName::Liquid,
+                Phase::Vapour(_) => PhaseName::Vapour,
+                Phase::None => PhaseName::None,
+            },
+            after_gap,
+            warnings,
+        };
+        self.latest = Some(Latest {
+            figures,
+            band,
+            state: r.state,
+            density: r.density,
+            temperature: r.temperature,
+            choked: match unit.phase {
+                Phase::Vapour(regime) => Some(regime == crate::model::GasRegime::Choked),
+                _ => None,
+            },
+            quality: self.quality,
+        });
+        figures
+    }
+
+    /// What the level lets through: the liquid above the hole at the
+    /// start plus what was pumped in; nothing can release more liquid. A
+    /// level that fell further than that, beyond its own uncertainty, says
+    /// the hole is lower than given (or the gauge is wrong): the cap rests
+    /// on an assumption the measurement refutes, so it is dropped (and
+    /// said) and the figures follow the level.
+    fn liquid_cap(&self, inventory: f64, u: f64, warnings: &mut Warnings) -> f64 {
+        let start = self.start.expect("set by begin");
+        let cap = start.above_hole + self.transferred.total().max(0.0);
+        if inventory - u > cap {
+            warnings.insert(Warning::HoleHeightRefuted);
+            f64::INFINITY
+        } else {
+            cap
+        }
+    }
+
+    /// The per-unit integrals, split into the liquid part (which the
+    /// level checks) and the vapour part (which it cannot).
+    fn shares(&self) -> Shares {
+        let pu = &self.per_unit;
+        // A liquid lead-in before the first level is liquid too, though the
+        // level did not see it: it belongs to the liquid share, never to the
+        // vapour part, or it would be counted twice.
+        let liquid_part = pu.liquid() + self.lead_in_per_unit;
+        // (Relative to the whole: the two sums add in different orders.)
+        let vapour_part = (pu.all() - liquid_part).max(0.0);
+        let vapour_part = if vapour_part > 1e-9 * pu.all() {
+            vapour_part
+        } else {
+            0.0
+        };
+        let liquid_share = if pu.all() > 0.0 {
+            (liquid_part / pu.all()).min(1.0)
+        } else {
+            1.0
+        };
+        Shares {
+            vapour_part,
+            liquid_share,
+        }
+    }
+
+    /// The view the figures come from: the orifice model with the given
+    /// hole; else the fitted hole, once a loss is seen and the fit is
+    /// ready; else the inventory balance alone.
+    #[allow(clippy::too_many_arguments)]
+    fn view(
+        &self,
+        area_given: Option<f64>,
+        fit: Option<(f64, f64)>,
+        inventory: f64,
+        u: f64,
+        unit_rate: f64,
+        fraction: f64,
+        band: &mut BandCauses,
+    ) -> View {
+        let pu = &self.per_unit;
+        let (cd_low, cd_high) = self.cd_band;
+        let cd = self.cd.get();
+        match (area_given, fit) {
+            (Some(area), _) => {
+                let model = (
+                    cd_low * area * pu.low(),
+                    cd * area * pu.all(),
+                    cd_high * area * pu.high(),
+                );
+                View {
+                    method: Method::OrificeGivenHole,
+                    reason: Reason::GivenHole,
+                    released: model,
+                    rate: (
+                        cd_low * area * unit_rate * (1.0 - fraction).max(0.0),
+                        cd * area * unit_rate,
+                        cd_high * area * unit_rate * (1.0 + fraction),
+                    ),
+                    model: Some(model.1),
+                }
+            }
+            (None, Some((k, se))) if self.loss_seen => {
+                let total = k * pu.all();
+                let spread = COVERAGE_FACTOR * se * pu.all();
+                let half = quad(spread, u);
+                band.fit_fraction = Some(COVERAGE_FACTOR * se / k);
+                let k_low = (k - COVERAGE_FACTOR * se).max(0.0);
+                let k_high = k + COVERAGE_FACTOR * se;
+                View {
+                    method: Method::FittedHole,
+                    reason: Reason::FittedHole,
+                    released: ((total - half).max(0.0), total, total + half),
+                    rate: (
+                        k_low * unit_rate * (1.0 - fraction).max(0.0),
+                        k * unit_rate,
+                        k_high * unit_rate * (1.0 + fraction),
+                    ),
+                    model: Some(total),
+                }
+            }
+            (None, _) => {
+                let (smoothed, inventory_rate) = self.level_line(inventory, u);
+                let (level_low, level_high) = (inventory - u, inventory + u);
+                View {
+                    method: Method::InventoryBalance,
+                    reason: if self.loss_seen {
+                        Reason::NotEnoughDrop
+                    } else {
+                        Reason::NoLossSeen
+                    },
+                    released: (level_low.max(0.0), smoothed.max(0.0), level_high.max(0.0)),
+                    rate: inventory_rate,
+                    model: None,
+                }
+            }
+        }
+    }
+
+    /// Holds the model's liquid part to what the level allows, and to the
+    /// liquid there was above the hole: a liquid cannot leave without
+    /// the level showing it. The level is a measurement; a hole size and
+    /// a Cd are assumptions, and a model run on a wrong one (a hole that
+    /// was plugged in a data gap, a leak that slowed, a guess at the
+    /// size) does not know it is wrong. So the band of the liquid
+    /// figure is what the level allows (the inventory balance with its
+    /// uncertainty), and the model sets the best figure within it: its
+    /// own, as far as the level allows, while their bands overlap; the
+    /// level's, when they do not (the model is refuted). The model's own
+    /// band is kept beside it (`band.model_*`). A fitted hole's band is
+    /// the fit's spread combined with the level's, so never narrower.
+    /// The lead-in before the first level is the model's alone (the
+    /// inventory starts after it), so the bound allows for it. Returns the
+    /// released total and the rate (low, best, high), the reason, and
+    /// whether the level refuted the model for the first time here.
+    #[allow(clippy::too_many_arguments)]
+    fn hold_to_level(
+        &mut self,
+        view: View,
+        inventory: f64,
+        u: f64,
+        cap: f64,
+        shares: Shares,
+        band: &mut BandCauses,
+        warnings: &mut Warnings,
+    ) -> (Triple, Triple, Reason, bool) {
+        let View {
+            method,
+            mut reason,
+            released: (mut low, mut best, mut high),
+            mut rate,
+            model,
+        } = view;
+        let Shares { liquid_share, .. } = shares;
+        let no_loss = model.is_none() && !self.loss_seen;
         let mut entered_level_mode = false;
         if let Some(model_best) = model.filter(|_| liquid_share > 0.0) {
-            let k_used = if pu.all.total() > 0.0 {
-                model_best / pu.all.total()
+            let k_used = if self.per_unit.all() > 0.0 {
+                model_best / self.per_unit.all()
             } else {
                 0.0
             };
@@ -249,29 +415,25 @@ impl Estimator {
                 rate = significant_rate(rate);
             }
         }
-        // (All vapour: the liquid cap does not apply, and the level cannot
-        // check the figure.)
-        if vapour_part > 0.0 || matches!(unit.phase, Phase::Vapour(_)) {
-            warnings.insert(Warning::VapourNotChecked);
-            if matches!(unit.phase, Phase::Vapour(_)) && model.is_some() {
-                reason = Reason::Vapour;
-            }
-        }
-        low = low.max(0.0);
+        ((low, best, high), rate, reason, entered_level_mode)
+    }
 
-        // Ratchet: a total shown once is never lower later in this
-        // revision, except by a recorded reconciliation: when a gap ends
-        // and the level on its far side shows less, or when the level first
-        // refutes the model's figure. Its high end likewise. Its low end is
-        // not ratcheted: the highest of many lower bounds is not a lower
-        // bound at the same confidence, and a low end held up by an
-        // earlier, refuted model would rule out the truth. While no loss is
-        // seen the figures move with the level: ratcheting its noise would
-        // build a release out of nothing.
+    /// The ratchet: a total shown once is never lower later in this
+    /// revision, except by a recorded reconciliation: when a gap ends
+    /// and the level on its far side shows less, or when the level first
+    /// refutes the model's figure. Its high end likewise. Its low end is
+    /// not ratcheted: the highest of many lower bounds is not a lower
+    /// bound at the same confidence, and a low end held up by an
+    /// earlier, refuted model would rule out the truth. While no loss is
+    /// seen the figures move with the level: ratcheting its noise would
+    /// build a release out of nothing. `reconciling`: this sample ends a
+    /// gap, or is the first at which the level refutes the model.
+    fn ratchet(&mut self, figures: Triple, u: f64, no_loss: bool, reconciling: bool) -> Triple {
         let shown = self.shown;
+        let (low, best, high) = figures;
         if no_loss {
             self.shown = (low, best, high);
-        } else if (after_gap || entered_level_mode) && best < shown.1 - 0.5 * u {
+        } else if reconciling && best < shown.1 - 0.5 * u {
             self.quality.revisions_down += 1;
             self.quality.revised_down_kg += shown.1 - best;
             self.shown = (low, best, high);
@@ -279,41 +441,38 @@ impl Estimator {
             self.shown = (low, shown.1.max(best), shown.2.max(high));
         }
         let (low, best, high) = self.shown;
-        let low = low.min(best);
-        let high = high.max(best);
+        (low.min(best), best, high.max(best))
+    }
+
+    /// Notes the reportable quantities this sample's figures reach: the
+    /// best figure's crossing and the high end's (from the gap's start,
+    /// when reached across one).
+    fn note_crossings(
+        &mut self,
+        at_ms: i64,
+        best: f64,
+        high: f64,
+        no_loss: bool,
+        gap_from: Option<i64>,
+    ) {
         for c in &mut self.crossings {
             // The best figure's crossing once a loss is seen: before, it is
             // the level's noise, which may cross a small quantity and fall
             // back.
             if c.at_ms.is_none() && !no_loss && best >= c.quantity_kg {
-                c.at_ms = Some(r.at_ms);
+                c.at_ms = Some(at_ms);
             }
             // Reached across a gap: it may have been reached anywhere in
             // the gap, so from its start.
             if c.high_at_ms.is_none() && high >= c.quantity_kg {
-                c.high_at_ms = Some(gap_from.unwrap_or(r.at_ms));
+                c.high_at_ms = Some(gap_from.unwrap_or(at_ms));
             }
         }
+    }
 
-        // The fit, as an effective area first.
-        // The fit's band and the implied Cd are made when the whole estimate
-        // is asked for (`Estimator::estimate`), from what they rest on.
-        self.fit_inputs = FitInputs {
-            fit,
-            inventory,
-            u,
-            area_given,
-            loss_seen,
-        };
-        if let (Some(area), Some((k, _))) = (area_given, fit) {
-            let ratio = cd * area / k;
-            if !(1.0 / CONSISTENCY_RATIO..=CONSISTENCY_RATIO).contains(&ratio) {
-                warnings.insert(Warning::HoleInconsistent);
-            }
-        }
-        if level_sees && !loss_seen {
-            warnings.insert(Warning::NoLossSeen);
-        }
+    /// The warnings that stand for the event as a whole (its data
+    /// quality and assumptions) and for this reading's held values.
+    fn standing_warnings(&self, r: &Reading, best: f64, warnings: &mut Warnings) {
         if self.quality.bridged_kg > BRIDGED_SHARE_WARNING * best && self.quality.bridged_kg > 0.0 {
             warnings.insert(Warning::BridgedGapsDominate);
         }
@@ -344,13 +503,28 @@ impl Estimator {
         if self.start_bridged {
             warnings.insert(Warning::StartBridged);
         }
+    }
 
+    /// Picks the state the forecast is made from, by sample time: every
+    /// `FORECAST_EVERY_MS`, at once while no hole is known, and when the
+    /// level first refutes the model.
+    #[allow(clippy::too_many_arguments)]
+    fn schedule_forecast(
+        &mut self,
+        r: &Reading,
+        unit: &Outflow,
+        entered_level_mode: bool,
+        rate_best: f64,
+        best: f64,
+        cap: f64,
+        u: f64,
+    ) {
         let due = entered_level_mode
             || self
                 .forecast_input
                 .is_none_or(|i| i.hole_cd.is_none() || r.at_ms - i.at_ms >= FORECAST_EVERY_MS);
         if due {
-            let hole_cd = self.forecast_hole(unit_rate, rate.1);
+            let hole_cd = self.forecast_hole(unit.rate.si(), rate_best);
             self.forecast_input = Some(ForecastInput {
                 at_ms: r.at_ms,
                 state: r.state,
@@ -361,47 +535,6 @@ impl Estimator {
                 uncertainty: u,
             });
         }
-        let (rate_low, rate_best, rate_high) = rate;
-        let latest = Estimate {
-            at_ms: r.at_ms,
-            released_best_kg: best,
-            released_low_kg: low,
-            released_high_kg: high,
-            rate_best_kg_s: rate_best.max(0.0),
-            rate_low_kg_s: rate_low.clamp(0.0, rate_best.max(0.0)),
-            rate_high_kg_s: rate_high.max(rate_best).max(0.0),
-            method,
-            reason,
-            inventory_kg: Some(inventory),
-            model_kg: model,
-            fit: Fit::default(),
-            fitted_diameter_m: None,
-            implied_cd: None,
-            level_m: r.state.level.si(),
-            headspace_pa: r.state.headspace.si(),
-            density_kg_m3: r.density,
-            temperature_k: r.temperature,
-            phase: match unit.phase {
-                Phase::Liquid => PhaseName::Liquid,
-                Phase::Vapour(_) => PhaseName::Vapour,
-                Phase::None => PhaseName::None,
-            },
-            choked: match unit.phase {
-                Phase::Vapour(regime) => Some(regime == crate::model::GasRegime::Choked),
-                _ => None,
-            },
-            // Made when the whole estimate is asked for.
-            remaining_above_hole_kg: 0.0,
-            forecast: None,
-            crossings: Vec::new(),
-            quality: self.quality,
-            after_gap,
-            band,
-            warnings,
-        };
-        let figures = latest.figures();
-        self.latest = Some(latest);
-        figures
     }
 
     /// The level's line over the last minute (from five points on): its
@@ -458,6 +591,59 @@ impl Estimator {
             }
         };
         Some((hole, self.cd))
+    }
+}
+
+/// The latest sample's estimate as `compute` leaves it: its figures and
+/// what the whole estimate needs beyond them, in a third of an
+/// `Estimate`'s size (this is written every sample). The rest (the band's
+/// causes one by one, the fit, the forecast, the crossings) is made when
+/// the whole estimate is asked for.
+#[derive(Debug, Clone, Copy)]
+pub(super) struct Latest {
+    figures: Figures,
+    band: BandCauses,
+    state: TankState,
+    density: f64,
+    temperature: Option<f64>,
+    choked: Option<bool>,
+    quality: DataQuality,
+}
+
+impl Latest {
+    /// The estimate of this sample, with the parts made on asking left
+    /// empty.
+    pub(super) fn estimate(&self) -> Estimate {
+        let f = &self.figures;
+        Estimate {
+            at_ms: f.at_ms,
+            released_best_kg: f.released_best_kg,
+            released_low_kg: f.released_low_kg,
+            released_high_kg: f.released_high_kg,
+            rate_best_kg_s: f.rate_best_kg_s,
+            rate_low_kg_s: f.rate_low_kg_s,
+            rate_high_kg_s: f.rate_high_kg_s,
+            method: f.method,
+            reason: f.reason,
+            inventory_kg: f.inventory_kg,
+            model_kg: f.model_kg,
+            fit: Fit::default(),
+            fitted_diameter_m: None,
+            implied_cd: None,
+            level_m: self.state.level.si(),
+            headspace_pa: self.state.headspace.si(),
+            density_kg_m3: self.density,
+            temperature_k: self.temperature,
+            phase: f.phase,
+            choked: self.choked,
+            remaining_above_hole_kg: 0.0,
+            forecast: None,
+            crossings: Vec::new(),
+            quality: self.quality,
+            after_gap: f.after_gap,
+            band: self.band,
+            warnings: f.warnings,
+        }
     }
 }
 

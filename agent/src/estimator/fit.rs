@@ -22,11 +22,11 @@ pub struct LineFit {
 impl LineFit {
     pub fn push(&mut self, x: f64, y: f64) {
         self.n += 1;
-        let n = self.n as f64;
+        let inv_n = 1.0 / self.n as f64;
         let dx = x - self.mean_x;
         let dy = y - self.mean_y;
-        self.mean_x += dx / n;
-        self.mean_y += dy / n;
+        self.mean_x += dx * inv_n;
+        self.mean_y += dy * inv_n;
         self.sxx += dx * (x - self.mean_x);
         self.syy += dy * (y - self.mean_y);
         self.sxy += dx * (y - self.mean_y);
@@ -37,9 +37,11 @@ impl LineFit {
         if self.n < 3 || self.sxx <= 0.0 {
             return None;
         }
-        let slope = self.sxy / self.sxx;
+        // One division for 1/sxx (this runs every sample).
+        let inv_sxx = 1.0 / self.sxx;
+        let slope = self.sxy * inv_sxx;
         let residual = (self.syy - slope * self.sxy).max(0.0);
-        let se = (residual / (self.n as f64 - 2.0) / self.sxx).sqrt();
+        let se = (residual * inv_sxx / (self.n as f64 - 2.0)).sqrt();
         Some((slope, se))
     }
 }
@@ -51,7 +53,9 @@ impl LineFit {
 #[derive(Debug, Clone)]
 pub struct Window {
     span_ms: i64,
-    points: VecDeque<(i64, f64)>,
+    /// (time, x, y): x is kept with its point, so the point's leaving
+    /// takes back exactly what its coming added, without a division.
+    points: VecDeque<(i64, f64, f64)>,
     origin_ms: i64,
     sums: Sums,
     since_rebuild: usize,
@@ -112,7 +116,7 @@ impl Window {
     }
 
     fn x(&self, at_ms: i64) -> f64 {
-        (at_ms - self.origin_ms) as f64 / 1000.0
+        (at_ms - self.origin_ms) as f64 * 0.001
     }
 
     pub fn push(&mut self, at_ms: i64, y: f64) {
@@ -120,15 +124,15 @@ impl Window {
             self.origin_ms = at_ms;
             self.sums = Sums::default();
         }
-        self.points.push_back((at_ms, y));
-        self.sums.add(self.x(at_ms), y, 1.0);
-        while let Some(&(t, old)) = self.points.front() {
+        let x = self.x(at_ms);
+        self.points.push_back((at_ms, x, y));
+        self.sums.add(x, y, 1.0);
+        while let Some(&(t, old_x, old)) = self.points.front() {
             if at_ms - t <= self.span_ms {
                 break;
             }
             self.points.pop_front();
-            let x = self.x(t);
-            self.sums.add(x, old, -1.0);
+            self.sums.add(old_x, old, -1.0);
         }
         self.since_rebuild += 1;
         if self.since_rebuild >= 1024 {
@@ -147,16 +151,18 @@ impl Window {
     fn rebuild(&mut self) {
         self.since_rebuild = 0;
         self.origin_ms = self.points.front().map_or(0, |p| p.0);
+        let origin_ms = self.origin_ms;
         let mut sums = Sums::default();
-        for &(t, y) in &self.points {
-            sums.add(self.x(t), y, 1.0);
+        for (t, x, y) in &mut self.points {
+            *x = (*t - origin_ms) as f64 * 0.001;
+            sums.add(*x, *y, 1.0);
         }
         self.sums = sums;
     }
 
     /// The line through the window, from three points on.
     pub fn line(&self) -> Option<WindowLine> {
-        let &(newest, _) = self.points.back()?;
+        let &(_, newest_x, _) = self.points.back()?;
         let s = self.sums;
         if s.n < 3.0 {
             return None;
@@ -176,7 +182,7 @@ impl Window {
         let variance = residual / (s.n - 2.0);
         Some(WindowLine {
             points: self.points.len(),
-            value: mean_y + slope * (self.x(newest) - mean_x),
+            value: mean_y + slope * (newest_x - mean_x),
             slope,
             slope_se: (variance * inv_sxx).sqrt(),
             variance,

@@ -39,10 +39,7 @@ impl Estimator {
                 g.area_si(before.state.level.si()),
                 g.area_si(after.state.level.si()),
             );
-            let u_level = quad(
-                rectangular(self.tank.level.accuracy.bound),
-                self.level_noise(),
-            );
+            let u_level = quad(self.standard.level, self.level_noise());
             let allowance = COVERAGE_FACTOR * after.density * quad(a0, a1) * u_level;
             if (forecast - seen).abs() <= allowance {
                 forecast

@@ -50,7 +50,7 @@ mod start;
 #[cfg(test)]
 mod tests;
 
-use band::{quad, rectangular};
+use band::quad;
 use forecast::ForecastInput;
 
 use crate::acquire::sample::TankSample;
@@ -133,19 +133,39 @@ struct Start {
 /// one integral serves the given, the fitted and the band figures.
 #[derive(Debug, Clone, Default)]
 struct PerUnitArea {
-    all: Trapezoid,
-    liquid: Trapezoid,
-    low: Trapezoid,
-    high: Trapezoid,
+    /// The last point's time and its rates, in the order of `totals`.
+    last: Option<(i64, [f64; 4])>,
+    /// The trapezoid integrals of the rate (kg per m² of Cd·A): at the
+    /// best values, its liquid part, and at the low and high ends. Four
+    /// lanes of one time axis, so a sample is one pass over them.
+    totals: [f64; 4],
 }
 
 impl PerUnitArea {
+    const ALL: usize = 0;
+    const LIQUID: usize = 1;
+    const LOW: usize = 2;
+    const HIGH: usize = 3;
+
+    /// The rate at `at_ms` (times never go back: `push` is called only
+    /// after the estimator has checked them). Each lane integrates as
+    /// `Trapezoid` does, to the same bit.
     fn push(&mut self, at_ms: i64, rate: f64, liquid: bool, fraction: f64) {
-        // Times are checked before any push, so these cannot fail.
-        let _ = self.all.push(at_ms, rate);
-        let _ = self.liquid.push(at_ms, if liquid { rate } else { 0.0 });
-        let _ = self.low.push(at_ms, rate * (1.0 - fraction).max(0.0));
-        let _ = self.high.push(at_ms, rate * (1.0 + fraction));
+        let rates = [
+            rate,
+            if liquid { rate } else { 0.0 },
+            rate * (1.0 - fraction).max(0.0),
+            rate * (1.0 + fraction),
+        ];
+        if let Some((previous_ms, previous)) = self.last {
+            // Half the interval in seconds, by a multiplication: a division
+            // a lane would be the slowest arithmetic of the sample.
+            let half_dt_s = (at_ms - previous_ms) as f64 * 0.0005;
+            for ((total, before), now) in self.totals.iter_mut().zip(previous).zip(rates) {
+                *total += (before + now) * half_dt_s;
+            }
+        }
+        self.last = Some((at_ms, rates));
     }
 
     /// Adds an amount integrated elsewhere: a bridge (which the level on
@@ -153,19 +173,34 @@ impl PerUnitArea {
     /// first level (which the inventory cannot see, so the fit leaves it
     /// out).
     fn add(&mut self, amount: f64, seen_by_level: bool) {
-        self.all.add(amount);
+        self.totals[Self::ALL] += amount;
         if seen_by_level {
-            self.liquid.add(amount);
+            self.totals[Self::LIQUID] += amount;
         }
-        self.low.add(amount);
-        self.high.add(amount);
+        self.totals[Self::LOW] += amount;
+        self.totals[Self::HIGH] += amount;
     }
 
+    /// Forgets the last point, so the next starts a new piece (a gap
+    /// bridged some other way).
     fn break_here(&mut self) {
-        self.all.break_here();
-        self.liquid.break_here();
-        self.low.break_here();
-        self.high.break_here();
+        self.last = None;
+    }
+
+    fn all(&self) -> f64 {
+        self.totals[Self::ALL]
+    }
+
+    fn liquid(&self) -> f64 {
+        self.totals[Self::LIQUID]
+    }
+
+    fn low(&self) -> f64 {
+        self.totals[Self::LOW]
+    }
+
+    fn high(&self) -> f64 {
+        self.totals[Self::HIGH]
     }
 }
 
@@ -223,9 +258,9 @@ pub struct Estimator {
     /// (the input's time, the forecast made from it).
     forecast: Option<(i64, Option<ForecastSummary>)>,
     crossings: Vec<Crossing>,
-    /// The whole estimate after the latest sample, its forecast and
-    /// crossings aside (see [`Estimator::estimate`]).
-    latest: Option<Estimate>,
+    /// The latest sample's figures and what the whole estimate needs
+    /// beyond them (see [`Estimator::estimate`]).
+    latest: Option<figures::Latest>,
     quality: DataQuality,
     /// Whether the level has fallen beyond what the instruments allow, at
     /// any sample of this revision.
@@ -238,6 +273,10 @@ pub struct Estimator {
     /// Whether any of the tank's accuracies is a default (see
     /// [`Estimator::tank_uses_default_accuracies`]).
     default_accuracies: bool,
+    /// The inventory balance's causes at the latest sample, squared.
+    latest_squares: band::InventorySquares,
+    /// The instruments' standard uncertainties, made once.
+    standard: band::Standard,
 }
 
 /// What one sample brings, converted.
@@ -344,6 +383,8 @@ impl Estimator {
             default_accuracies: false,
             noise: 0.0,
             fit_inputs: figures::FitInputs::default(),
+            standard: band::Standard::of(tank),
+            latest_squares: band::InventorySquares::default(),
         }
         .with_defaults_noted())
     }
@@ -438,7 +479,7 @@ impl Estimator {
             let before = inventory_before_gap.unwrap_or(0.0);
             self.bridge(gap_ms, &last, inventory - before, &reading);
         }
-        self.fit.push(self.per_unit.liquid.total(), inventory);
+        self.fit.push(self.per_unit.liquid(), inventory);
         self.note_level(reading.state.level.si());
         if gap.is_some() {
             // The level's own line (its rate, its smoothed figure) starts
@@ -475,7 +516,8 @@ impl Estimator {
     /// its schedule picked, so asking more or less often changes nothing:
     /// a replay asked once at its end gives the live run's last estimate.
     pub fn estimate(&mut self) -> Option<Estimate> {
-        let mut e = self.latest.clone()?;
+        let mut e = self.latest?.estimate();
+        self.latest_squares.write_causes(&mut e.band);
         self.fit_details(&mut e);
         e.remaining_above_hole_kg = self
             .vessel
@@ -639,9 +681,7 @@ impl Estimator {
 
     fn measure_noise(&self) -> f64 {
         let measured = (self.second_diff_sq / 6.0).sqrt();
-        measured
-            .max(self.tank.level.resolution_si() / 12f64.sqrt())
-            .max(1e-6)
+        measured.max(self.standard.level_quantisation).max(1e-6)
     }
 }
 
