@@ -90,10 +90,7 @@ impl Estimator {
         let fit = self.fit_ready();
         let cap = self.liquid_cap(inventory, u, &mut warnings);
         let shares = self.shares();
-        let area_given = self
-            .params
-            .hole_diameter_m
-            .map(|d| std::f64::consts::FRAC_PI_4 * d * d);
+        let area_given = self.area_given;
         let view = self.view(
             area_given,
             fit,

@@ -161,9 +161,12 @@ impl PerUnitArea {
             // Half the interval in seconds, by a multiplication: a division
             // a lane would be the slowest arithmetic of the sample.
             let half_dt_s = (at_ms - previous_ms) as f64 * 0.0005;
-            for ((total, before), now) in self.totals.iter_mut().zip(previous).zip(rates) {
-                *total += (before + now) * half_dt_s;
-            }
+            // (Lane by lane: as one vector operation the totals would be
+            // stored whole and read back one by one at once, which stalls.)
+            self.totals[0] += (previous[0] + rates[0]) * half_dt_s;
+            self.totals[1] += (previous[1] + rates[1]) * half_dt_s;
+            self.totals[2] += (previous[2] + rates[2]) * half_dt_s;
+            self.totals[3] += (previous[3] + rates[3]) * half_dt_s;
         }
         self.last = Some((at_ms, rates));
     }
@@ -273,6 +276,11 @@ pub struct Estimator {
     /// Whether any of the tank's accuracies is a default (see
     /// [`Estimator::tank_uses_default_accuracies`]).
     default_accuracies: bool,
+    /// The given hole's area (m²), if a diameter was given: made once, as
+    /// a branch. (Made every sample from the `Option`, the compiler
+    /// multiplied the payload of a `None` too, and uninitialised bytes
+    /// read as a subnormal number cost a microcode assist a sample.)
+    area_given: Option<f64>,
     /// The inventory balance's causes at the latest sample, squared.
     latest_squares: band::InventorySquares,
     /// The instruments' standard uncertainties, made once.
@@ -385,6 +393,9 @@ impl Estimator {
             fit_inputs: figures::FitInputs::default(),
             standard: band::Standard::of(tank),
             latest_squares: band::InventorySquares::default(),
+            area_given: params
+                .hole_diameter_m
+                .map(|d| std::f64::consts::FRAC_PI_4 * d * d),
         }
         .with_defaults_noted())
     }
