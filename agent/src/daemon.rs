@@ -21,6 +21,7 @@
 //! (config/leaktally.service) gives it [`STOP_WITHIN`] plus a margin.
 
 use crate::acquire;
+use crate::acquire::sample::TankSample;
 use crate::acquire::stats::Stats;
 use crate::clock::{Clock, WallSource};
 use crate::config::Config;
@@ -38,16 +39,18 @@ use tokio_util::sync::CancellationToken;
 use tokio_util::task::TaskTracker;
 use tracing::{debug, error, info, warn};
 
-/// How often pending operator actions are looked for unasked. The CLI rings
-/// the doorbell when it records one (`crate::doorbell`), and the daemon
-/// looks at once; this look is for a ring that could not be made. Four
-/// looks a second, as before the bell, were most of the agent's fixed cost
-/// on a small site.
+/// How often pending operator actions are looked for unasked while no tick
+/// commits. The CLI rings the doorbell when it records one
+/// (`crate::doorbell`), and the daemon looks at once; each tick's commit
+/// looks too, in its own transaction; this look is for a ring that could
+/// not be made on a daemon with nothing to commit. Four looks a second, as
+/// before the bell, were most of the agent's fixed cost on a small site.
 const ACTION_CHECK: Duration = Duration::from_secs(2);
 /// How long the loop gathers poll cycles into one commit after the first
-/// arrives: the devices of one tick answer within a few milliseconds of
-/// each other, so a tick's cycles commit together, one fsync a tick rather
-/// than one a device. A power cut loses at most what waits here and what
+/// arrives, unless every device's cycle comes sooner (then it commits at
+/// once): the devices of one tick answer within a few milliseconds of each
+/// other, so a tick's cycles commit together, one fsync a tick rather than
+/// one a device. A power cut loses at most what waits here and what
 /// the pollers are reading: under one tick of samples (README, "The
 /// database, and what a power cut can cost").
 pub const GATHER: Duration = Duration::from_millis(100);
@@ -270,6 +273,7 @@ async fn daemon(
             activity: Mutex::new("resuming open events".into()),
         },
         last_ms: AtomicI64::new(i64::MIN),
+        wake: tokio::sync::Notify::new(),
     });
     let state = &pulse.state;
     {
@@ -370,6 +374,9 @@ async fn daemon(
     let mut abandoned = false;
     // When the poll cycles taken so far are committed (see GATHER).
     let mut commit_at: Option<Instant> = None;
+    // The devices whose cycle of this tick has come: once every device's
+    // has, the tick commits at once rather than at the end of GATHER.
+    let mut tick = TickCycles::new(&config);
     loop {
         state.turn(clock.wall_ms(), tracker.activity());
         tokio::select! {
@@ -380,41 +387,44 @@ async fn daemon(
             }
             batch = samples.recv() => match batch {
                 Some(batch) => {
+                    tick.came(&batch);
                     tracker.take(batch);
                     // Whatever else is waiting joins the same commit.
                     while let Ok(more) = samples.try_recv() {
+                        tick.came(&more);
                         tracker.take(more);
                     }
-                    commit_at.get_or_insert(Instant::now() + GATHER);
+                    if !tick.all_came() {
+                        commit_at.get_or_insert(Instant::now() + GATHER);
+                        continue;
+                    }
+                    // (At once, not by a timer due now: tokio's timers
+                    // round up to the next millisecond, a wake-up of its
+                    // own.)
+                    commit_at = None;
+                    tick.committed();
+                    if !commit_tick(&mut tracker, &pulse, &signals, &mut actions).await {
+                        abandoned = true;
+                        break;
+                    }
                 }
                 None => break,
             },
             () = tokio::time::sleep_until(commit_at.unwrap_or_else(Instant::now)), if commit_at.is_some() => {
                 commit_at = None;
-                let beat = pulse.beat();
-                let at_ms = beat.at_ms;
-                match signals.bounded(tracker.commit(Some(beat))).await {
-                    None => {
-                        abandoned = true;
-                        break;
-                    }
-                    Some(true) => pulse.beaten(at_ms),
-                    Some(false) => {}
+                tick.committed();
+                if !commit_tick(&mut tracker, &pulse, &signals, &mut actions).await {
+                    abandoned = true;
+                    break;
                 }
-                // Once a tick: a wall-clock step is seen within a second.
-                check_clock(&clock, &tracker);
             }
             () = actions_wanted(doorbell.as_ref(), &mut actions) => {
-                match signals.bounded(tracker.on_actions()).await {
-                    None => {
-                        abandoned = true;
-                        break;
-                    }
-                    Some(Err(e)) => warn!("operator actions: {e}"),
-                    Some(Ok(())) => {}
+                if !apply_actions(&mut tracker, &signals).await {
+                    abandoned = true;
+                    break;
                 }
                 // Also here: a loop without samples has no ticks.
-                check_clock(&clock, &tracker);
+                check_clock(&clock, &tracker, &pulse);
             }
         }
     }
@@ -516,6 +526,85 @@ async fn daemon(
 
 /// When to look for operator actions: at a ring of the doorbell, or at the
 /// periodic look (the only one without a bell).
+/// Commits the tick's cycles with a heartbeat, applies the operator
+/// requests the commit found waiting, and looks at the clock; false when
+/// the stop signal's deadline cut it short (the loop then abandons).
+async fn commit_tick(
+    tracker: &mut Tracker,
+    pulse: &Pulse,
+    signals: &Signals,
+    actions: &mut tokio::time::Interval,
+) -> bool {
+    let beat = pulse.beat();
+    let at_ms = beat.at_ms;
+    let Some(done) = signals.bounded(tracker.commit(Some(beat))).await else {
+        return false;
+    };
+    if done.beaten {
+        pulse.beaten(at_ms);
+        // The commit looked for operator requests: the periodic look
+        // starts again from here.
+        actions.reset();
+    }
+    // Once a tick: a wall-clock step is seen within a second.
+    check_clock(&pulse.clock, tracker, pulse);
+    !done.actions_waiting || apply_actions(tracker, signals).await
+}
+
+/// Applies the waiting operator requests; false when the stop signal's
+/// deadline cut it short (the loop then abandons).
+async fn apply_actions(tracker: &mut Tracker, signals: &Signals) -> bool {
+    match signals.bounded(tracker.on_actions()).await {
+        None => false,
+        Some(Err(e)) => {
+            warn!("operator actions: {e}");
+            true
+        }
+        Some(Ok(())) => true,
+    }
+}
+
+/// Which devices' poll cycles have come since the last tick's commit.
+struct TickCycles {
+    /// Each tank's device.
+    device_of: Vec<usize>,
+    came: Vec<bool>,
+    waiting_for: usize,
+}
+
+impl TickCycles {
+    fn new(config: &Config) -> Self {
+        Self {
+            device_of: config.tanks.iter().map(|t| t.device).collect(),
+            came: vec![false; config.devices.len()],
+            waiting_for: config.devices.len(),
+        }
+    }
+
+    fn came(&mut self, batch: &[TankSample]) {
+        let Some(device) = batch.first().and_then(|s| self.device_of.get(s.tank)) else {
+            return;
+        };
+        if let Some(came) = self.came.get_mut(*device)
+            && !*came
+        {
+            *came = true;
+            self.waiting_for -= 1;
+        }
+    }
+
+    /// Every device's cycle has come (devices on longer intervals than
+    /// others make the tick wait for GATHER instead).
+    fn all_came(&self) -> bool {
+        self.waiting_for == 0
+    }
+
+    fn committed(&mut self) {
+        self.came.fill(false);
+        self.waiting_for = self.came.len();
+    }
+}
+
 async fn actions_wanted(doorbell: Option<&Doorbell>, every: &mut tokio::time::Interval) {
     match doorbell {
         Some(bell) => tokio::select! {
@@ -530,9 +619,14 @@ async fn actions_wanted(doorbell: Option<&Doorbell>, every: &mut tokio::time::In
 
 /// Looks for a wall-clock step, realigning the timeline only while no event
 /// is open, and logs what it saw.
-fn check_clock(clock: &Clock, tracker: &Tracker) {
-    for step in clock.check(tracker.open_events() == 0) {
+fn check_clock(clock: &Clock, tracker: &Tracker, pulse: &Pulse) {
+    let steps = clock.check(tracker.open_events() == 0);
+    for step in &steps {
         warn!("clock: {}", step.describe());
+    }
+    if !steps.is_empty() {
+        // The heartbeat task records them.
+        pulse.wake.notify_one();
     }
 }
 
@@ -560,6 +654,11 @@ struct Pulse {
     state: LoopState,
     /// The timeline's time of the last beat written, by either.
     last_ms: AtomicI64,
+    /// Wakes the heartbeat task to look again: a beat was written (its
+    /// wait starts again) or a clock step was seen (to be recorded).
+    /// Without it the task would wake on a timer every second only to find
+    /// the loop had beaten.
+    wake: tokio::sync::Notify,
 }
 
 impl Pulse {
@@ -578,6 +677,7 @@ impl Pulse {
     /// A beat made at `at_ms` is in the database.
     fn beaten(&self, at_ms: i64) {
         self.last_ms.fetch_max(at_ms, Ordering::Relaxed);
+        self.wake.notify_one();
     }
 
     /// How long since the last beat written.
@@ -605,6 +705,7 @@ async fn heartbeat(
         tokio::select! {
             biased;
             () = stopping.cancelled() => return,
+            () = pulse.wake.notified() => {}
             () = tokio::time::sleep_until(due) => {}
         }
         due = Instant::now() + HEARTBEAT;
@@ -813,6 +914,37 @@ level = {{ register = "input", address = {}, type = "u16", raw = [4000, 20000], 
             );
         }
         site
+    }
+
+    #[test]
+    fn a_tick_is_whole_once_every_device_has_sent_its_cycle() {
+        let config = crate::config::parse(&site(), Path::new("site.toml")).unwrap();
+        let sample = |tank: usize| TankSample {
+            tank,
+            tank_id: config.tanks[tank].id.as_str().into(),
+            at_ms: 0,
+            level: crate::acquire::sample::Reading::good(1.0),
+            pressure: None,
+            transfer: None,
+            temperature: None,
+            leak_flag: None,
+        };
+        let mut tick = TickCycles::new(&config);
+        // Tanks 0 and 2 are on d1, 1 and 3 on d2.
+        tick.came(&[sample(0), sample(2)]);
+        assert!(!tick.all_came());
+        // A second cycle of the same device does not make the tick whole.
+        tick.came(&[sample(2)]);
+        assert!(!tick.all_came());
+        tick.came(&[]);
+        assert!(!tick.all_came());
+        tick.came(&[sample(1), sample(3)]);
+        assert!(tick.all_came());
+        tick.committed();
+        assert!(!tick.all_came());
+        tick.came(&[sample(3)]);
+        tick.came(&[sample(0)]);
+        assert!(tick.all_came());
     }
 
     struct Run {

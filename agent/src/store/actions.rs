@@ -80,6 +80,16 @@ pub fn pending_actions(conn: &Connection) -> StoreResult<Vec<ActionRow>> {
     rows.map(|r| parse_action(r?)).collect()
 }
 
+/// Whether any operator request waits (the partial index answers it).
+pub fn any_pending(conn: &Connection) -> StoreResult<bool> {
+    Ok(unit::query_row(
+        conn,
+        "SELECT EXISTS (SELECT 1 FROM actions WHERE state = 'pending')",
+        [],
+        |r| r.get(0),
+    )?)
+}
+
 pub fn action(conn: &Connection, id: i64) -> StoreResult<Option<ActionRow>> {
     let sql = format!("SELECT {ACTION_COLUMNS} FROM actions WHERE id = ?1");
     unit::query_row(conn, &sql, [id], action_from_row)

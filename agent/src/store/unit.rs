@@ -81,6 +81,11 @@ impl<'c> Reader<'c> {
         Ok(estimates::latest_estimate_with_version(self.conn, event, revision)?.is_some())
     }
 
+    /// Whether any operator request waits.
+    pub fn any_pending_action(&self) -> StoreResult<bool> {
+        actions::any_pending(self.conn)
+    }
+
     pub fn pending_actions(&self) -> StoreResult<Vec<ActionRow>> {
         actions::pending_actions(self.conn)
     }

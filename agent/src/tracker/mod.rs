@@ -101,6 +101,16 @@ pub struct Counts {
     pub stored: u64,
 }
 
+/// What a tick's commit did.
+#[derive(Debug, Clone, Copy, Default, PartialEq, Eq)]
+pub struct Committed {
+    /// The heartbeat went in with the samples; then the waiting operator
+    /// requests were also looked for, in the same transaction.
+    pub beaten: bool,
+    /// Operator requests wait to be applied.
+    pub actions_waiting: bool,
+}
+
 /// The tracker of every open event of a site.
 pub struct Tracker {
     config: Arc<Config>,
@@ -270,17 +280,19 @@ impl Tracker {
     /// retry; then opens the events of raised leak flags.
     ///
     /// `beat`, the daemon's heartbeat, goes in the first commit (one
-    /// transaction a tick rather than two); returns whether it was committed.
-    pub async fn commit(&mut self, beat: Option<Beat>) -> bool {
+    /// transaction a tick rather than two), and the same transaction looks
+    /// for waiting operator requests, so that a daemon whose ticks commit
+    /// needs no look of its own.
+    pub async fn commit(&mut self, beat: Option<Beat>) -> Committed {
         if self.retry_at.is_some_and(|at| Instant::now() < at) {
             self.bound_backlog();
             self.health
                 .set_held(self.backlog.cycles(), self.backlog.samples());
-            return false;
+            return Committed::default();
         }
-        let beaten = self.flush(beat).await;
+        let committed = self.flush(beat).await;
         self.open_on_flags().await;
-        beaten
+        committed
     }
 
     /// Whether samples wait to be committed.
@@ -380,12 +392,12 @@ impl Tracker {
     /// meanwhile.
     ///
     /// `beat` goes in with the first commit; returns whether it went in.
-    async fn flush(&mut self, mut beat: Option<Beat>) -> bool {
+    async fn flush(&mut self, mut beat: Option<Beat>) -> Committed {
+        let mut done = Committed::default();
         if self.backlog.is_empty() {
-            return false;
+            return done;
         }
         let held = self.backlog.cycles();
-        let mut beaten = false;
         for _ in 0..COMMITS_PER_FLUSH {
             // Shared, not copied: a poll cycle of a large site is thousands
             // of samples, and it stays in the backlog until it is committed.
@@ -403,16 +415,24 @@ impl Tracker {
                         write.store(tx)?;
                     }
                     match &beat {
-                        Some(beat) => tx.beat(beat),
-                        None => Ok(()),
+                        Some(beat) => {
+                            tx.beat(beat)?;
+                            tx.any_pending_action()
+                        }
+                        None => Ok(false),
                     }
                 })
                 .await;
-            if let Err(e) = result {
-                self.on_write_failure(&e);
-                return beaten;
+            match result {
+                Ok(waiting) => {
+                    done.beaten |= beating;
+                    done.actions_waiting |= waiting;
+                }
+                Err(e) => {
+                    self.on_write_failure(&e);
+                    return done;
+                }
             }
-            beaten |= beating;
             self.counts.stored += self.backlog.committed(committed) as u64;
         }
         if self.retry_at.take().is_some() {
@@ -425,7 +445,7 @@ impl Tracker {
         self.health.record_success();
         self.health
             .set_held(self.backlog.cycles(), self.backlog.samples());
-        beaten
+        done
     }
 
     fn on_write_failure(&mut self, e: &StoreError) {
