@@ -419,12 +419,12 @@ async fn daemon(
                 }
             }
             () = actions_wanted(doorbell.as_ref(), &mut actions) => {
-                if !apply_actions(&mut tracker, &signals).await {
+                if !actions_done(&signals, tracker.on_actions()).await {
                     abandoned = true;
                     break;
                 }
                 // Also here: a loop without samples has no ticks.
-                check_clock(&clock, &tracker, &pulse);
+                check_clock(&tracker, &pulse);
             }
         }
     }
@@ -524,8 +524,6 @@ async fn daemon(
     Ok(counts)
 }
 
-/// When to look for operator actions: at a ring of the doorbell, or at the
-/// periodic look (the only one without a bell).
 /// Commits the tick's cycles with a heartbeat, applies the operator
 /// requests the commit found waiting, and looks at the clock; false when
 /// the stop signal's deadline cut it short (the loop then abandons).
@@ -547,14 +545,17 @@ async fn commit_tick(
         actions.reset();
     }
     // Once a tick: a wall-clock step is seen within a second.
-    check_clock(&pulse.clock, tracker, pulse);
-    !done.actions_waiting || apply_actions(tracker, signals).await
+    check_clock(tracker, pulse);
+    !done.actions_waiting || actions_done(signals, tracker.apply_actions()).await
 }
 
-/// Applies the waiting operator requests; false when the stop signal's
-/// deadline cut it short (the loop then abandons).
-async fn apply_actions(tracker: &mut Tracker, signals: &Signals) -> bool {
-    match signals.bounded(tracker.on_actions()).await {
+/// Waits for the operator actions' work, and logs what failed; false when
+/// the stop signal's deadline cut it short (the loop then abandons).
+async fn actions_done(
+    signals: &Signals,
+    work: impl std::future::Future<Output = crate::store::StoreResult<()>>,
+) -> bool {
+    match signals.bounded(work).await {
         None => false,
         Some(Err(e)) => {
             warn!("operator actions: {e}");
@@ -565,46 +566,44 @@ async fn apply_actions(tracker: &mut Tracker, signals: &Signals) -> bool {
 }
 
 /// Which devices' poll cycles have come since the last tick's commit.
-struct TickCycles {
-    /// Each tank's device.
-    device_of: Vec<usize>,
+struct TickCycles<'c> {
+    config: &'c Config,
+    /// By device.
     came: Vec<bool>,
-    waiting_for: usize,
 }
 
-impl TickCycles {
-    fn new(config: &Config) -> Self {
+impl<'c> TickCycles<'c> {
+    fn new(config: &'c Config) -> Self {
         Self {
-            device_of: config.tanks.iter().map(|t| t.device).collect(),
+            config,
             came: vec![false; config.devices.len()],
-            waiting_for: config.devices.len(),
         }
     }
 
+    /// Notes a device's cycle (a batch is one device's).
     fn came(&mut self, batch: &[TankSample]) {
-        let Some(device) = batch.first().and_then(|s| self.device_of.get(s.tank)) else {
-            return;
-        };
-        if let Some(came) = self.came.get_mut(*device)
-            && !*came
-        {
+        let device = batch
+            .first()
+            .and_then(|s| self.config.tanks.get(s.tank))
+            .map(|t| t.device);
+        if let Some(came) = device.and_then(|d| self.came.get_mut(d)) {
             *came = true;
-            self.waiting_for -= 1;
         }
     }
 
     /// Every device's cycle has come (devices on longer intervals than
     /// others make the tick wait for GATHER instead).
     fn all_came(&self) -> bool {
-        self.waiting_for == 0
+        self.came.iter().all(|&c| c)
     }
 
     fn committed(&mut self) {
         self.came.fill(false);
-        self.waiting_for = self.came.len();
     }
 }
 
+/// When to look for operator actions: at a ring of the doorbell, or at the
+/// periodic look (the only one without a bell).
 async fn actions_wanted(doorbell: Option<&Doorbell>, every: &mut tokio::time::Interval) {
     match doorbell {
         Some(bell) => tokio::select! {
@@ -619,8 +618,8 @@ async fn actions_wanted(doorbell: Option<&Doorbell>, every: &mut tokio::time::In
 
 /// Looks for a wall-clock step, realigning the timeline only while no event
 /// is open, and logs what it saw.
-fn check_clock(clock: &Clock, tracker: &Tracker, pulse: &Pulse) {
-    let steps = clock.check(tracker.open_events() == 0);
+fn check_clock(tracker: &Tracker, pulse: &Pulse) {
+    let steps = pulse.clock.check(tracker.open_events() == 0);
     for step in &steps {
         warn!("clock: {}", step.describe());
     }

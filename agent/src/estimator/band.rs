@@ -128,7 +128,7 @@ impl Estimator {
     /// The inventory balance's uncertainty at this sample, by cause, each
     /// squared: their sum's square root is the combined figure every
     /// sample needs, and the causes themselves are wanted only when the
-    /// whole estimate is (`InventorySquares::causes`).
+    /// whole estimate is (`InventorySquares::write_causes`).
     pub(super) fn inventory_squares(&self, r: &Reading, inventory: f64) -> InventorySquares {
         let start = self.start.expect("set by begin");
         let rho = r.density;

@@ -70,7 +70,6 @@ impl Estimator {
         // band): `level_line`, made only where a figure uses it.
         let squares = self.inventory_squares(r, inventory);
         let u = squares.combined();
-        self.latest_squares = squares;
         let mut band = BandCauses {
             cd_low: self.cd_band.0,
             cd_high: self.cd_band.1,
@@ -172,6 +171,7 @@ impl Estimator {
         self.latest = Some(Latest {
             figures,
             band,
+            squares,
             state: r.state,
             density: r.density,
             temperature: r.temperature,
@@ -599,7 +599,9 @@ impl Estimator {
 #[derive(Debug, Clone, Copy)]
 pub(super) struct Latest {
     figures: Figures,
+    /// The band's per-sample parts; its causes one by one are `squares`'.
     band: BandCauses,
+    squares: band::InventorySquares,
     state: TankState,
     density: f64,
     temperature: Option<f64>,
@@ -608,10 +610,12 @@ pub(super) struct Latest {
 }
 
 impl Latest {
-    /// The estimate of this sample, with the parts made on asking left
-    /// empty.
+    /// The estimate of this sample, with the band's causes written out and
+    /// the parts made on asking (fit, forecast, crossings) left empty.
     pub(super) fn estimate(&self) -> Estimate {
         let f = &self.figures;
+        let mut band = self.band;
+        self.squares.write_causes(&mut band);
         Estimate {
             at_ms: f.at_ms,
             released_best_kg: f.released_best_kg,
@@ -638,7 +642,7 @@ impl Latest {
             crossings: Vec::new(),
             quality: self.quality,
             after_gap: f.after_gap,
-            band: self.band,
+            band,
             warnings: f.warnings,
         }
     }

@@ -148,8 +148,8 @@ impl PerUnitArea {
     const HIGH: usize = 3;
 
     /// The rate at `at_ms` (times never go back: `push` is called only
-    /// after the estimator has checked them). Each lane integrates as
-    /// `Trapezoid` does, to the same bit.
+    /// after the estimator has checked them), each lane by the trapezoid
+    /// rule.
     fn push(&mut self, at_ms: i64, rate: f64, liquid: bool, fraction: f64) {
         let rates = [
             rate,
@@ -161,12 +161,9 @@ impl PerUnitArea {
             // Half the interval in seconds, by a multiplication: a division
             // a lane would be the slowest arithmetic of the sample.
             let half_dt_s = (at_ms - previous_ms) as f64 * 0.0005;
-            // (Lane by lane: as one vector operation the totals would be
-            // stored whole and read back one by one at once, which stalls.)
-            self.totals[0] += (previous[0] + rates[0]) * half_dt_s;
-            self.totals[1] += (previous[1] + rates[1]) * half_dt_s;
-            self.totals[2] += (previous[2] + rates[2]) * half_dt_s;
-            self.totals[3] += (previous[3] + rates[3]) * half_dt_s;
+            for ((total, before), now) in self.totals.iter_mut().zip(previous).zip(rates) {
+                *total += (before + now) * half_dt_s;
+            }
         }
         self.last = Some((at_ms, rates));
     }
@@ -281,8 +278,6 @@ pub struct Estimator {
     /// multiplied the payload of a `None` too, and uninitialised bytes
     /// read as a subnormal number cost a microcode assist a sample.)
     area_given: Option<f64>,
-    /// The inventory balance's causes at the latest sample, squared.
-    latest_squares: band::InventorySquares,
     /// The instruments' standard uncertainties, made once.
     standard: band::Standard,
 }
@@ -392,7 +387,6 @@ impl Estimator {
             noise: 0.0,
             fit_inputs: figures::FitInputs::default(),
             standard: band::Standard::of(tank),
-            latest_squares: band::InventorySquares::default(),
             area_given: params
                 .hole_diameter_m
                 .map(|d| std::f64::consts::FRAC_PI_4 * d * d),
@@ -528,7 +522,6 @@ impl Estimator {
     /// a replay asked once at its end gives the live run's last estimate.
     pub fn estimate(&mut self) -> Option<Estimate> {
         let mut e = self.latest?.estimate();
-        self.latest_squares.write_causes(&mut e.band);
         self.fit_details(&mut e);
         e.remaining_above_hole_kg = self
             .vessel

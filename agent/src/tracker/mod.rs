@@ -391,7 +391,8 @@ impl Tracker {
     /// loop keeps serving the pollers, the stop signal and the operators
     /// meanwhile.
     ///
-    /// `beat` goes in with the first commit; returns whether it went in.
+    /// `beat` goes in with the first commit, and its transaction looks for
+    /// waiting operator actions; returns what went in and what it saw.
     async fn flush(&mut self, mut beat: Option<Beat>) -> Committed {
         let mut done = Committed::default();
         if self.backlog.is_empty() {
@@ -515,7 +516,8 @@ impl Tracker {
         }
     }
 
-    /// Applies every pending operator action, each in a unit of its own.
+    /// Looks for pending operator actions and applies them, each in a unit
+    /// of its own.
     pub async fn on_actions(&mut self) -> StoreResult<()> {
         // Make sure every acquired sample is stored before an action reads
         // the history (back-dating, revisions). Until it is, actions wait
@@ -527,7 +529,18 @@ impl Tracker {
         // for their tick's one commit (`daemon::GATHER`) instead of going in
         // early, in a commit and an fsync of their own. A failed commit
         // whose retry is due is retried whatever the look finds.
-        if !self.store_failing() && self.store.read(|r| r.pending_actions()).await?.is_empty() {
+        if !self.store_failing() && !self.store.read(|r| r.any_pending_action()).await? {
+            return Ok(());
+        }
+        self.apply_actions().await
+    }
+
+    /// Applies every pending operator action, each in a unit of its own,
+    /// once what was taken is committed: for a caller that has seen
+    /// actions waiting (a tick's commit looks; [`Tracker::on_actions`]
+    /// looks first).
+    pub async fn apply_actions(&mut self) -> StoreResult<()> {
+        if self.retry_at.is_some_and(|at| Instant::now() < at) {
             return Ok(());
         }
         self.flush(None).await;
