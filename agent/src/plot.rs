@@ -216,7 +216,8 @@ pub fn render_svg(
 
     // Under the chart, outside the data area: the final estimate's
     // warnings in words, then the caution.
-    let warnings = report::estimate::warnings_text(labels.last, labels.leak);
+    let warnings =
+        report::estimate::warnings_text(labels.last, labels.leak, &report::Presentation::default());
     // (text, a warning's colour, its indent in px)
     let mut notes: Vec<(String, bool, i32)> = Vec::new();
     if warnings.is_empty() {
@@ -355,9 +356,9 @@ fn bridged_headline(last: &Estimate) -> Option<String> {
     let q = &last.quality;
     let share = 100.0 * q.bridged_kg / last.released_best_kg.max(1e-9);
     let how_much = if share > 50.0 {
-        format!("Most of the final total ({} %)", report::significant(share))
+        format!("Most of the final total ({} %)", report::number(share))
     } else {
-        format!("{} % of the final total", report::significant(share))
+        format!("{} % of the final total", report::number(share))
     };
     Some(format!(
         "{how_much} was bridged across {} data gap(s), not measured: see the warnings below",
@@ -604,7 +605,7 @@ mod tests {
         };
         let svg = render_svg(&series, &[250.0], &labels).unwrap();
         let bottom_axis = text_y(&svg, "time since the event start (min)");
-        let words = report::estimate::warnings_text(&last, &leak);
+        let words = report::estimate::warnings_text(&last, &leak, &report::Presentation::default());
         assert!(words.len() >= 2, "{words:?}");
         for w in &words {
             // Long warnings are wrapped: their first words start a line.

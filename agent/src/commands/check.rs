@@ -402,7 +402,7 @@ fn sensor_line(role: &str, s: &Sensor) -> String {
         0.0 => String::new(),
         step => format!(
             ", step {} {}",
-            report::significant(step / s.si_per_unit),
+            report::number(step / s.si_per_unit),
             one_line(&s.unit)
         ),
     };
@@ -419,40 +419,40 @@ fn accuracy_line(tank: &crate::config::Tank) -> String {
     let mark = |stated: bool| if stated { "" } else { " (default)" };
     let mut parts = vec![format!(
         "level ±{} mm{}",
-        report::significant(tank.level.accuracy.bound * 1000.0),
+        report::number(tank.level.accuracy.bound * 1000.0),
         mark(tank.level.accuracy.stated)
     )];
     if let Some(p) = &tank.pressure {
         parts.push(format!(
             "pressure ±{} kPa{}",
-            report::significant(p.sensor.accuracy.bound / 1000.0),
+            report::number(p.sensor.accuracy.bound / 1000.0),
             mark(p.sensor.accuracy.stated)
         ));
     }
     if let Some(s) = &tank.transfer {
         parts.push(format!(
             "transfer ±{} % of the reading{}",
-            report::significant(s.accuracy.bound * 100.0),
+            report::number(s.accuracy.bound * 100.0),
             mark(s.accuracy.stated)
         ));
     }
     if let Some(s) = &tank.temperature {
         parts.push(format!(
             "temperature ±{} °C{}",
-            report::significant(s.accuracy.bound),
+            report::number(s.accuracy.bound),
             mark(s.accuracy.stated)
         ));
     }
     parts.push(format!(
         "density ±{} %{}",
-        report::significant(tank.density_uncertainty.bound * 100.0),
+        report::number(tank.density_uncertainty.bound * 100.0),
         mark(tank.density_uncertainty.stated)
     ));
     let density = match &tank.density {
         crate::model::DensityModel::Constant(_) => "; density fixed".to_owned(),
         crate::model::DensityModel::Expansion { at, per_kelvin, .. } => format!(
             "; density follows the temperature ({per_kelvin} per °C from {} °C)",
-            report::significant(at.si() - 273.15)
+            report::number(at.si() - 273.15)
         ),
         crate::model::DensityModel::Table(points) => {
             format!(

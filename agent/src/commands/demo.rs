@@ -299,7 +299,7 @@ fn progress_line(second: u64, latest: Option<(&Estimate, &LeakParams)>) -> Strin
         return format!("+{second:>3} s  waiting for the first sample");
     };
     let kg = |x: f64| report::mass(Mass::kilograms(x));
-    let hole = report::estimate::fit_brief(est, params);
+    let hole = report::estimate::fit_brief(est, params, &report::Presentation::default());
     let stops = est.forecast.map_or(String::new(), |f| {
         format!(
             " | stops in {}",

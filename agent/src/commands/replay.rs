@@ -431,7 +431,11 @@ fn replay_event(
         readings: None,
         from: report::utc(from),
         to: report::utc(replayed.at_ms),
-        replayed_words: report::estimate::Words::of(&replayed, &params),
+        replayed_words: report::estimate::Words::of(
+            &replayed,
+            &params,
+            &report::Presentation::default(),
+        ),
         density_text: density_text(tank, &params, &replayed),
         replayed,
         live: live_last,
@@ -684,7 +688,11 @@ fn replay_readings(
         readings: Some(report),
         from: report::utc(from),
         to: report::utc(replayed.at_ms),
-        replayed_words: report::estimate::Words::of(&replayed, &params),
+        replayed_words: report::estimate::Words::of(
+            &replayed,
+            &params,
+            &report::Presentation::default(),
+        ),
         density_text: density_text(tank, &params, &replayed),
         replayed,
         live: None,
@@ -1265,7 +1273,7 @@ pub fn human(s: &Summary) -> String {
     );
     let area = |e: &Estimate| {
         e.fit.area().map_or("-".to_owned(), |(_, k, _)| {
-            format!("Cd·A {} mm²", report::significant(k * 1e6))
+            format!("Cd·A {} mm²", report::number(k * 1e6))
         })
     };
     out += &column("fitted hole", area(r), live.map(area));
@@ -1314,7 +1322,7 @@ pub fn human(s: &Summary) -> String {
             out,
             "reportable   {}: {}",
             kg(c.quantity_kg),
-            report::estimate::crossing_text(c)
+            report::estimate::crossing_text(c, &report::Presentation::default())
         );
     }
     match s.identical {

@@ -27,7 +27,7 @@ pub struct StatusArgs {
 /// the database at `db`.
 pub fn read(db: &Path, event: Option<i64>) -> anyhow::Result<StatusDocument> {
     let conn = store::open_read_only(db)?;
-    status::document(&conn, event).map_err(|e| match e {
+    status::document(&conn, event, &crate::report::Presentation::default()).map_err(|e| match e {
         StatusError::NoEvent(id) => anyhow::anyhow!(
             "there is no event {id} in {}; `leaktally status` lists the open events",
             db.display()

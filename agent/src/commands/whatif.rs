@@ -488,7 +488,7 @@ pub fn density_from_config(tank: &Tank, why_not: Option<String>) -> DensityUsed 
             let at = match model {
                 DensityModel::Expansion { at, .. } => format!(
                     "at its reference temperature, {} °C",
-                    report::significant(at.si() - 273.15)
+                    report::number(at.si() - 273.15)
                 ),
                 _ => "as given, not through its density_table".to_owned(),
             };
@@ -556,7 +556,7 @@ pub fn liquid_density(tank: &Tank, db: Option<&Path>, now_ms: i64) -> anyhow::Re
                 source: "logged_temperature",
                 explanation: format!(
                     "at the liquid's last good logged temperature, {} °C, in {} at {} ({} old), through the config's {}",
-                    report::significant(logged.temperature_c),
+                    report::number(logged.temperature_c),
                     logged.database,
                     logged.at,
                     report::duration(TimeSpan::seconds(logged.age_s)),
@@ -1032,9 +1032,9 @@ pub fn compute(tank: &Tank, request: &Request) -> anyhow::Result<Study> {
                     warnings.push(format!(
                         "a blanket supply of {} replaces the liquid only up to {} m³/h at the headspace pressure, and the {} mm hole starts at {} m³/h: the headspace would fall, so its liquid figures are high (the safe side)",
                         s.given,
-                        report::significant(holds_m3_h),
+                        report::number(holds_m3_h),
                         self::size(h.diameter_mm),
-                        report::significant(l.initial_rate_m3_h.cd_chosen)
+                        report::number(l.initial_rate_m3_h.cd_chosen)
                     ));
                 }
             }
@@ -1050,7 +1050,7 @@ pub fn compute(tank: &Tank, request: &Request) -> anyhow::Result<Study> {
             Some(s) => format!(
                 "Blanket supply on: pad gas of the configured vapour at its temperature, at up to {} ({} kg/s), by a regulator whose set point is the headspace pressure; steady means the outflow within 1 % of the supply for good.",
                 s.given,
-                report::significant(s.kg_s)
+                report::number(s.kg_s)
             ),
             None => "Blanket supply off (give --blanket-supply for a regulator that keeps feeding pad gas).".to_owned(),
         });
@@ -1062,7 +1062,7 @@ pub fn compute(tank: &Tank, request: &Request) -> anyhow::Result<Study> {
     }
     assumptions.push(format!(
         "Density of the liquid: {} kg/m³, {}.",
-        report::significant(rho),
+        report::number(rho),
         request.density.explanation
     ));
     assumptions.push(
@@ -1498,7 +1498,7 @@ impl Table {
 }
 
 fn kg(x: f64) -> String {
-    report::grouped(x)
+    report::number(x)
 }
 
 /// A hole size as given (6.35, 25.4, 101.6): up to four significant
@@ -1520,7 +1520,7 @@ fn kpa(pa: f64) -> String {
     let kpa = pa / 1000.0;
     if kpa != 0.0 && kpa.abs() < 1.0 {
         // A pressure a small supply holds just above ambient.
-        report::significant(kpa)
+        report::number(kpa)
     } else {
         format!("{kpa:.1}")
     }
@@ -1551,7 +1551,7 @@ pub fn human(s: &Study) -> String {
         "What-if for tank {} ({}, {} kg/m³)",
         s.tank,
         s.substance,
-        report::significant(s.density_kg_m3)
+        report::number(s.density_kg_m3)
     );
     let level_note = if s.level_source == "given" {
         "given"
@@ -1562,7 +1562,7 @@ pub fn human(s: &Study) -> String {
     let _ = writeln!(
         out,
         "  density    {} kg/m³: {}",
-        report::significant(s.density.kg_m3),
+        report::number(s.density.kg_m3),
         s.density.explanation
     );
     let _ = writeln!(
@@ -1606,7 +1606,7 @@ pub fn human(s: &Study) -> String {
     let _ = writeln!(
         out,
         "  gas space  {} m³ above the liquid",
-        report::significant(s.ullage_volume_m3)
+        report::number(s.ullage_volume_m3)
     );
     if !s.warnings.is_empty() {
         let _ = writeln!(out);
@@ -1648,7 +1648,7 @@ fn liquid_tables(s: &Study, out: &mut String) {
     if holes.is_empty() {
         return;
     }
-    let sig = |x: f64| report::significant(x);
+    let sig = |x: f64| report::number(x);
     let _ = writeln!(
         out,
         "\nLiquid through the hole (orifice equation), at Cd {:.2} [band]:",
@@ -1706,7 +1706,7 @@ fn vapour_tables(s: &Study, out: &mut String) {
     let Some((_, first)) = holes.first() else {
         return;
     };
-    let sig = |x: f64| report::significant(x);
+    let sig = |x: f64| report::number(x);
     let supply = match &s.blanket_supply {
         Some(supply) => format!(
             "blanket supply on at {} = {} kg/s",
@@ -2131,7 +2131,7 @@ pub fn parse_hole_areas(text: &str) -> anyhow::Result<Vec<f64>> {
                 given_figure(mm2),
                 // Plain digits would run to 150 places for a 1e-300 area.
                 if diameter >= 1e-4 {
-                    report::significant(diameter)
+                    report::number(diameter)
                 } else {
                     format!("{diameter:.2e}")
                 }

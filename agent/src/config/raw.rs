@@ -42,6 +42,13 @@ pub struct RawSite {
     pub name: String,
     /// Absolute ambient pressure in kPa; the standard atmosphere if absent.
     pub ambient_pressure_kpa: Option<Spanned<f64>>,
+    /// The database the daemon writes and every command reads, relative to
+    /// the config file's folder.
+    pub database: Option<Spanned<String>>,
+    /// The IANA time zone people's times are shown in, or `local`.
+    pub time_zone: Option<Spanned<String>>,
+    /// `metric` or `us`: the units people's figures are shown in.
+    pub units: Option<Spanned<String>>,
 }
 
 #[derive(Debug, Deserialize)]

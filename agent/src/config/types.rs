@@ -16,6 +16,60 @@ use std::ops::Range;
 use std::path::PathBuf;
 use std::time::Duration;
 
+/// The units a site's people read figures in (`[site] units`). Only what
+/// people read changes: the database, JSON and CSV stay SI.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+pub enum Units {
+    /// kg, m, mm, m³ and L, kPa.
+    #[default]
+    Metric,
+    /// lb, ft, in, US gal and bbl, psi.
+    UsCustomary,
+}
+
+impl Units {
+    /// The config's word for these units.
+    pub fn name(self) -> &'static str {
+        match self {
+            Units::Metric => "metric",
+            Units::UsCustomary => "us",
+        }
+    }
+
+    /// The units a config word names.
+    pub fn from_name(name: &str) -> Option<Units> {
+        match name {
+            "metric" => Some(Units::Metric),
+            "us" => Some(Units::UsCustomary),
+            _ => None,
+        }
+    }
+}
+
+/// Why a time zone name could not be used.
+#[derive(Debug, thiserror::Error)]
+#[error(
+    "\"{name}\" is not a time zone this machine knows; give an IANA name such as \"Europe/Berlin\", \"America/Chicago\" or \"UTC\" (the names are in /usr/share/zoneinfo), or \"local\" for this machine's zone"
+)]
+pub struct UnknownZone {
+    pub name: String,
+}
+
+/// The zone a config names (`UTC`, `Europe/Oslo`, or `local` for the
+/// machine's own), with the name reports show for it.
+pub fn time_zone(name: &str) -> Result<(String, jiff::tz::TimeZone), UnknownZone> {
+    let unknown = || UnknownZone {
+        name: name.to_owned(),
+    };
+    if name == "local" {
+        let zone = jiff::tz::TimeZone::try_system().map_err(|_| unknown())?;
+        let shown = zone.iana_name().unwrap_or("local").to_owned();
+        return Ok((shown, zone));
+    }
+    let zone = jiff::tz::TimeZone::get(name).map_err(|_| unknown())?;
+    Ok((name.to_owned(), zone))
+}
+
 /// A validated site config.
 #[derive(Debug, Clone)]
 pub struct Config {
@@ -23,6 +77,15 @@ pub struct Config {
     pub path: PathBuf,
     pub site_name: String,
     pub ambient: AbsolutePressure,
+    /// The database from `[site] database`, resolved against the config
+    /// file's folder; commands use it when no `--db` names another.
+    pub database: Option<PathBuf>,
+    /// The zone people's times are shown in (`[site] time_zone`; UTC if
+    /// absent), and its name as written (or the machine's, for `local`).
+    pub time_zone: jiff::tz::TimeZone,
+    pub time_zone_name: String,
+    /// The units people's figures are shown in (`[site] units`).
+    pub units: Units,
     pub devices: Vec<Device>,
     pub tanks: Vec<Tank>,
     /// The read-only web page, when the config has a `[web]` section.

@@ -671,8 +671,12 @@ fn a_given_hole_the_level_contradicts_is_flagged_and_held_to_the_level() {
         (implied.best - 0.271).abs() < 0.01 && !implied.in_range,
         "{implied:?}"
     );
-    let text =
-        crate::report::estimate::warning_text(Warning::HoleInconsistent, last, &params(Some(0.06)));
+    let text = crate::report::estimate::warning_text(
+        Warning::HoleInconsistent,
+        last,
+        &params(Some(0.06)),
+        &crate::report::Presentation::default(),
+    );
     assert!(text.contains("too high by a factor of 2."), "{text}");
     let right = run(params(Some(D_HOLE)), 200, 0.001, |_| false);
     assert!(

@@ -9,7 +9,7 @@
 //!
 //! Left out: layout (each report lays out its own lines).
 
-use super::{duration, mass, significant, utc};
+use super::{Presentation, duration, number};
 use crate::estimate::{Crossing, Estimate, Fit, LeakParams, Method, PhaseName, Reason, Warning};
 use crate::model::{Mass, TimeSpan};
 
@@ -23,16 +23,12 @@ pub fn method_name(method: Method) -> &'static str {
     }
 }
 
-fn kg(x: f64) -> String {
-    mass(Mass::kilograms(x))
-}
-
-fn mm(metres: f64) -> String {
-    format!("{} mm", significant(metres * 1000.0))
+fn kg(people: &Presentation, x: f64) -> String {
+    people.mass(Mass::kilograms(x))
 }
 
 fn mm2(square_metres: f64) -> String {
-    format!("{} mm²", significant(square_metres * 1e6))
+    format!("{} mm²", number(square_metres * 1e6))
 }
 
 /// The phase, with the regime for vapour.
@@ -96,21 +92,21 @@ pub enum DensityBasis {
 pub fn density_text(density_kg_m3: f64, basis: DensityBasis) -> String {
     let why = match basis {
         DensityBasis::Given => " (given, fixed)".to_owned(),
-        DensityBasis::Temperature(t) => format!(" at the liquid's {} °C", significant(t - 273.15)),
+        DensityBasis::Temperature(t) => format!(" at the liquid's {} °C", number(t - 273.15)),
         DensityBasis::Reference => {
             " (the config's, at its reference temperature: no temperature reading)".to_owned()
         }
         DensityBasis::Fixed => " (fixed)".to_owned(),
     };
-    format!("{} kg/m³{why}", significant(density_kg_m3))
+    format!("{} kg/m³{why}", number(density_kg_m3))
 }
 
 /// Why the best figure comes from where it does.
-pub fn reason_text(e: &Estimate, p: &LeakParams) -> String {
+pub fn reason_text(e: &Estimate, p: &LeakParams, people: &Presentation) -> String {
     let (cd_low, cd_high) = p.cd_band();
     let hole = p
         .hole_diameter_m
-        .map_or("a".into(), |d| format!("a {}", mm(d)));
+        .map_or("a".into(), |d| format!("a {}", people.diameter(d)));
     match e.reason {
         Reason::GivenHole => format!(
             "the operator gave {hole} hole; band from Cd {cd_low} to {cd_high} and the instruments, held to what the level allows"
@@ -140,7 +136,7 @@ pub fn reason_text(e: &Estimate, p: &LeakParams) -> String {
 
 /// The fit: the effective area Cd·A first, and diameters only at stated
 /// Cds, so that nobody takes a fitted figure for a measured hole.
-pub fn fit_text(e: &Estimate, p: &LeakParams) -> String {
+pub fn fit_text(e: &Estimate, p: &LeakParams, people: &Presentation) -> String {
     match e.fit {
         Fit::Ready {
             area_m2,
@@ -154,8 +150,8 @@ pub fn fit_text(e: &Estimate, p: &LeakParams) -> String {
                 mm2(area_m2),
                 mm2(area_low_m2),
                 mm2(area_high_m2),
-                mm(diameter(cd_high)),
-                mm(diameter(cd_low)),
+                people.diameter(diameter(cd_high)),
+                people.diameter(diameter(cd_low)),
             )
         }
         Fit::NotYet {
@@ -163,8 +159,8 @@ pub fn fit_text(e: &Estimate, p: &LeakParams) -> String {
             needed_m,
         } => format!(
             "not enough data yet: the level has fallen {}, the fit needs {}",
-            mm(level_drop_m.max(0.0)),
-            mm(needed_m)
+            people.diameter(level_drop_m.max(0.0)),
+            people.diameter(needed_m)
         ),
     }
 }
@@ -172,7 +168,7 @@ pub fn fit_text(e: &Estimate, p: &LeakParams) -> String {
 /// The fit in a few words, for a line that updates in place: the effective
 /// area Cd·A first, then the round hole's diameters at the ends of the Cd
 /// range, as [`fit_text`] says it at length.
-pub fn fit_brief(e: &Estimate, p: &LeakParams) -> String {
+pub fn fit_brief(e: &Estimate, p: &LeakParams, people: &Presentation) -> String {
     match e.fit {
         Fit::Ready { area_m2, .. } => {
             let (cd_low, cd_high) = p.cd_band();
@@ -180,8 +176,8 @@ pub fn fit_brief(e: &Estimate, p: &LeakParams) -> String {
             format!(
                 "fitted Cd·A {} (round: {} at Cd {cd_high} to {} at Cd {cd_low})",
                 mm2(area_m2),
-                mm(diameter(cd_high)),
-                mm(diameter(cd_low)),
+                people.diameter(diameter(cd_high)),
+                people.diameter(diameter(cd_low)),
             )
         }
         Fit::NotYet { .. } => "hole: not enough level drop yet to fit".into(),
@@ -195,62 +191,62 @@ pub fn implied_cd_text(e: &Estimate, p: &LeakParams) -> Option<String> {
     let (cd_low, cd_high) = p.cd_band();
     Some(format!(
         "the level implies Cd {} ({} to {}) at the given hole: {} the range {cd_low} to {cd_high}",
-        significant(c.best),
-        significant(c.low),
-        significant(c.high),
+        number(c.best),
+        number(c.low),
+        number(c.high),
         if c.in_range { "inside" } else { "OUTSIDE" }
     ))
 }
 
 /// What widens the band, in one line.
-pub fn band_text(e: &Estimate) -> String {
+pub fn band_text(e: &Estimate, people: &Presentation) -> String {
     let b = &e.band;
     let mut parts = Vec::new();
     if matches!(e.method, Method::OrificeGivenHole) && b.model_high_kg > 0.0 {
         parts.push(format!(
             "the orifice model alone {} to {} (Cd {} to {}, a bound)",
-            kg(b.model_low_kg),
-            kg(b.model_high_kg),
+            kg(people, b.model_low_kg),
+            kg(people, b.model_high_kg),
             b.cd_low,
             b.cd_high
         ));
     }
     if let Some(f) = b.fit_fraction {
-        parts.push(format!("the fit's spread ±{} %", significant(f * 100.0)));
+        parts.push(format!("the fit's spread ±{} %", number(f * 100.0)));
     }
     let mut causes = vec![
-        format!("level accuracy {}", kg(b.level_accuracy_kg)),
-        format!("level noise {}", kg(b.level_noise_kg)),
-        format!("density {}", kg(b.density_kg)),
+        format!("level accuracy {}", kg(people, b.level_accuracy_kg)),
+        format!("level noise {}", kg(people, b.level_noise_kg)),
+        format!("density {}", kg(people, b.density_kg)),
     ];
     if b.transfer_kg > 0.0 {
-        causes.push(format!("transfer meter {}", kg(b.transfer_kg)));
+        causes.push(format!("transfer meter {}", kg(people, b.transfer_kg)));
     }
     if b.temperature_kg > 0.0 {
-        causes.push(format!("temperature {}", kg(b.temperature_kg)));
+        causes.push(format!("temperature {}", kg(people, b.temperature_kg)));
     }
     parts.push(format!(
         "the level balance ±{} ({}; 95 %)",
-        kg(b.inventory_kg),
+        kg(people, b.inventory_kg),
         causes.join(", ")
     ));
     if b.bridge_kg > 0.0 {
         parts.push(format!(
             "data gaps bridged from the level ±{}",
-            kg(b.bridge_kg)
+            kg(people, b.bridge_kg)
         ));
     }
     if b.rate_fraction > 0.0 {
         parts.push(format!(
             "instruments ±{} % on the rate",
-            significant(b.rate_fraction * 100.0)
+            number(b.rate_fraction * 100.0)
         ));
     }
     parts.join("; ")
 }
 
 /// One warning in words, with the figures it refers to.
-pub fn warning_text(w: Warning, e: &Estimate, p: &LeakParams) -> String {
+pub fn warning_text(w: Warning, e: &Estimate, p: &LeakParams, people: &Presentation) -> String {
     let q = &e.quality;
     match w {
         Warning::HoleInconsistent => {
@@ -266,7 +262,7 @@ pub fn warning_text(w: Warning, e: &Estimate, p: &LeakParams) -> String {
                         mm2(given),
                         p.cd,
                         if ratio > 1.0 { "too high" } else { "too low" },
-                        significant(ratio.max(1.0 / ratio))
+                        number(ratio.max(1.0 / ratio))
                     )
                 }
                 _ => "the given hole does not agree with the level drop".into(),
@@ -274,30 +270,30 @@ pub fn warning_text(w: Warning, e: &Estimate, p: &LeakParams) -> String {
         }
         Warning::LevelContradictsModel => format!(
             "the level does not agree with the orifice model: the model gives {}, the level balance {} ± {}; the best figure follows the level (check the hole size, and that the gauge is live)",
-            e.model_kg.map_or("-".into(), kg),
-            e.inventory_kg.map_or("-".into(), kg),
-            kg(e.band.inventory_kg)
+            e.model_kg.map_or("-".into(), |x| kg(people, x)),
+            e.inventory_kg.map_or("-".into(), |x| kg(people, x)),
+            kg(people, e.band.inventory_kg)
         ),
         Warning::NoLossSeen => format!(
             "no loss seen yet: the level has not fallen beyond what the instruments allow (level balance {} ± {})",
-            e.inventory_kg.map_or("-".into(), kg),
-            kg(e.band.inventory_kg)
+            e.inventory_kg.map_or("-".into(), |x| kg(people, x)),
+            kg(people, e.band.inventory_kg)
         ),
         Warning::BridgedGapsDominate => format!(
             "{} of the total ({} %) was bridged across {} data gap(s) (longest {}), not measured",
-            kg(q.bridged_kg),
-            significant(100.0 * q.bridged_kg / e.released_best_kg.max(1e-9)),
+            kg(people, q.bridged_kg),
+            number(100.0 * q.bridged_kg / e.released_best_kg.max(1e-9)),
             q.gaps_bridged,
             duration(TimeSpan::seconds(q.longest_gap_s))
         ),
         Warning::BridgeCutByLevel => format!(
             "the forecast across data gaps was cut by {} to what the level on the far side allows",
-            kg(q.bridge_cut_kg)
+            kg(people, q.bridge_cut_kg)
         ),
         Warning::TotalRevisedDown => format!(
             "the total was revised down {} time(s), by {} in all, to what the level allows (after a data gap, or when the level showed the model's figure to be wrong)",
             q.revisions_down,
-            kg(q.revised_down_kg)
+            kg(people, q.revised_down_kg)
         ),
         Warning::PressureHeld => {
             "the pressure reading is bad: the last good one is held".into()
@@ -326,14 +322,17 @@ pub fn warning_text(w: Warning, e: &Estimate, p: &LeakParams) -> String {
         }
         Warning::HoleHeightRefuted => format!(
             "the level has fallen further than the liquid there was above the given hole height ({} m): the hole is lower than given, or the gauge is wrong; the figures follow the level (check the hole height: leak revise --hole-height)",
-            significant(p.hole_height_m)
+            number(p.hole_height_m)
         ),
     }
 }
 
 /// Every warning of an estimate, in words.
-pub fn warnings_text(e: &Estimate, p: &LeakParams) -> Vec<String> {
-    e.warnings.iter().map(|w| warning_text(w, e, p)).collect()
+pub fn warnings_text(e: &Estimate, p: &LeakParams, people: &Presentation) -> Vec<String> {
+    e.warnings
+        .iter()
+        .map(|w| warning_text(w, e, p, people))
+        .collect()
 }
 
 /// An estimate said in words, for the JSON documents beside the numbers
@@ -355,14 +354,14 @@ pub struct Words {
 }
 
 impl Words {
-    pub fn of(e: &Estimate, p: &LeakParams) -> Self {
+    pub fn of(e: &Estimate, p: &LeakParams, people: &Presentation) -> Self {
         Self {
-            method_reason: reason_text(e, p),
-            fit_status: fit_text(e, p),
+            method_reason: reason_text(e, p, people),
+            fit_status: fit_text(e, p, people),
             implied_cd_text: implied_cd_text(e, p),
-            band_text: band_text(e),
+            band_text: band_text(e, people),
             phase_text: phase_text(e),
-            warnings_text: warnings_text(e, p),
+            warnings_text: warnings_text(e, p, people),
         }
     }
 }
@@ -392,21 +391,21 @@ pub fn describe_params(p: &LeakParams) -> String {
 
 /// A reportable quantity's crossings: when it may have been reached (the
 /// band's high end) and when the best estimate reached it.
-pub fn crossing_text(c: &Crossing) -> String {
+pub fn crossing_text(c: &Crossing, people: &Presentation) -> String {
     match (c.high_at_ms, c.at_ms) {
         (_, Some(best)) => format!(
             "reached at {} (best estimate){}",
-            utc(best),
+            people.time(best),
             c.high_at_ms
                 .filter(|&h| h < best)
                 .map_or(String::new(), |h| format!(
                     "; may have been reached from {} (band's high end)",
-                    utc(h)
+                    people.time(h)
                 ))
         ),
         (Some(high), None) => format!(
             "MAY HAVE BEEN REACHED from {} (band's high end); the best estimate is below it",
-            utc(high)
+            people.time(high)
         ),
         (None, None) => "not reached".into(),
     }
@@ -466,7 +465,7 @@ mod tests {
             cd: 0.6,
             ..LeakParams::default()
         };
-        let text = fit_text(&e, &p);
+        let text = fit_text(&e, &p, &Presentation::default());
         assert!(text.starts_with("effective area Cd·A 754 mm²"), "{text}");
         assert!(
             text.contains("31.0 mm at Cd 1") && text.contains("40.0 mm at Cd 0.6"),

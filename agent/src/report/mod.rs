@@ -10,7 +10,10 @@
 //! * [`table`]: the status table for a terminal.
 
 pub mod estimate;
+pub mod presentation;
 pub mod table;
+
+pub use presentation::{Presentation, number, rfc3339};
 
 use crate::model::{Density, Mass, MassRate, TimeSpan, Volume};
 
@@ -27,16 +30,16 @@ pub const LITRES_PER_BARREL: f64 = 42.0 * LITRES_PER_US_GALLON;
 /// A mass in kg, with three significant figures or more and thousands
 /// separated for reading at a glance.
 pub fn mass(m: Mass) -> String {
-    format!("{} kg", grouped(m.si()))
+    format!("{} kg", number(m.si()))
 }
 
 /// A mass rate in kg/s (and kg/h under 1 kg/s, where kg/s reads as 0.0).
 pub fn rate(r: MassRate) -> String {
     let kg_s = r.si();
     if kg_s != 0.0 && kg_s.abs() < 1.0 {
-        format!("{} kg/h", grouped(kg_s * 3600.0))
+        format!("{} kg/h", number(kg_s * 3600.0))
     } else {
-        format!("{} kg/s", significant(kg_s))
+        format!("{} kg/s", number(kg_s))
     }
 }
 
@@ -46,10 +49,10 @@ pub fn volumes(m: Mass, density: Density) -> String {
     let litres = v.si() * 1000.0;
     format!(
         "{} m³ = {} L = {} US gal = {} bbl",
-        significant(v.si()),
-        grouped(litres),
-        grouped(litres / LITRES_PER_US_GALLON),
-        grouped(litres / LITRES_PER_BARREL)
+        number(v.si()),
+        number(litres),
+        number(litres / LITRES_PER_US_GALLON),
+        number(litres / LITRES_PER_BARREL)
     )
 }
 
@@ -77,49 +80,13 @@ pub fn utc(at_ms: i64) -> String {
     }
 }
 
-/// Three significant figures, without exponent notation for everyday sizes.
-pub fn significant(x: f64) -> String {
-    if x == 0.0 || !x.is_finite() {
-        return format!("{x}");
-    }
-    let magnitude = x.abs().log10().floor() as i32;
-    let decimals = (2 - magnitude).max(0) as usize;
-    format!("{x:.decimals$}")
-}
-
-/// Three significant figures with thousands separated by a thin space.
-pub fn grouped(x: f64) -> String {
-    let text = significant(x);
-    if x.abs() < 10_000.0 {
-        return text;
-    }
-    let rounded = {
-        let magnitude = x.abs().log10().floor() as i32;
-        let unit = 10f64.powi(magnitude - 2);
-        (x / unit).round() * unit
-    };
-    let digits = format!("{:.0}", rounded.abs());
-    let mut out = String::new();
-    for (i, c) in digits.chars().enumerate() {
-        if i > 0 && (digits.len() - i) % 3 == 0 {
-            out.push(',');
-        }
-        out.push(c);
-    }
-    if rounded < 0.0 {
-        format!("-{out}")
-    } else {
-        out
-    }
-}
-
 #[cfg(test)]
 mod tests {
     use super::*;
 
     #[test]
     fn figures_carry_units_and_sensible_digits() {
-        assert_eq!(mass(Mass::kilograms(1234.6)), "1235 kg");
+        assert_eq!(mass(Mass::kilograms(1234.6)), "1,230 kg");
         assert_eq!(mass(Mass::kilograms(123_456.0)), "123,000 kg");
         assert_eq!(mass(Mass::kilograms(0.01234)), "0.0123 kg");
         assert_eq!(rate(MassRate::kg_per_second(2.345)), "2.35 kg/s");
@@ -135,6 +102,6 @@ mod tests {
         // 1 m³ of water: 1000 L, 264.172 US gal, 6.28981 bbl (exact
         // definitions of the gallon and the barrel).
         let text = volumes(Mass::kilograms(1000.0), Density::kg_per_cubic_metre(1000.0));
-        assert_eq!(text, "1.00 m³ = 1000 L = 264 US gal = 6.29 bbl");
+        assert_eq!(text, "1.00 m³ = 1,000 L = 264 US gal = 6.29 bbl");
     }
 }

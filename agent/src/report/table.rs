@@ -9,15 +9,17 @@
 //! (`crate::web::page`, which lays out the same words as HTML).
 
 use super::estimate::{self, Words};
-use super::{duration, mass, rate, utc, volumes};
+use super::{Presentation, duration};
 use crate::estimate::Estimate;
 use crate::model::{Density, Mass, MassRate, TimeSpan};
 use std::fmt::Write as _;
 
 /// What the table shows.
 pub struct Table<'a> {
-    /// When the figures were read, as people read a time.
-    pub generated_at: &'a str,
+    /// When the figures were read.
+    pub generated_at_ms: i64,
+    /// How times and figures are shown.
+    pub presentation: &'a Presentation,
     pub daemon: Daemon<'a>,
     pub events: Vec<Event<'a>>,
     pub caution: &'a str,
@@ -31,8 +33,8 @@ pub struct Daemon<'a> {
     pub stalled: bool,
     /// What a busy daemon is busy with.
     pub busy_with: Option<&'a str>,
-    /// When it last beat, as people read a time.
-    pub last_seen: Option<&'a str>,
+    /// When it last beat.
+    pub last_seen_ms: Option<i64>,
     /// Its timeline minus the wall clock, ms.
     pub clock_offset_ms: Option<i64>,
 }
@@ -44,8 +46,8 @@ pub struct Event<'a> {
     /// Who flagged it: `operator` or `leak flag`.
     pub source: &'a str,
     pub revision: i64,
-    /// The leak's start, as people read a time.
-    pub start: &'a str,
+    /// The leak's start.
+    pub start_ms: i64,
     pub closed_at_ms: Option<i64>,
     pub params_text: &'a str,
     /// Why an open event is not being tracked.
@@ -62,12 +64,20 @@ pub struct Event<'a> {
 pub fn render(table: &Table<'_>) -> String {
     let mut out = String::new();
     let daemon = &table.daemon;
-    let _ = writeln!(out, "leaktally status at {}", table.generated_at);
+    let people = table.presentation;
+    let last_seen = daemon
+        .last_seen_ms
+        .map_or("never".into(), |at| people.time(at));
+    let _ = writeln!(
+        out,
+        "leaktally status at {}",
+        people.time(table.generated_at_ms)
+    );
     if daemon.stalled {
         let _ = writeln!(
             out,
             "WARNING: the daemon is running but stalled on the database: it has not written to it since {}. Its writes fail or wait (another program holding the write lock, a full disk, or a disk that does not answer; its log and web page say which). These figures are behind; it catches up by itself once it can write.",
-            daemon.last_seen.unwrap_or("never")
+            last_seen
         );
     } else if let Some(activity) = daemon.busy_with {
         let _ = writeln!(
@@ -78,7 +88,7 @@ pub fn render(table: &Table<'_>) -> String {
         let _ = writeln!(
             out,
             "WARNING: no daemon is running (last seen {}); these figures are not being updated.",
-            daemon.last_seen.unwrap_or("never")
+            last_seen
         );
     }
     if let Some(offset) = daemon.clock_offset_ms.filter(|o| o.abs() >= 1000) {
@@ -93,17 +103,24 @@ pub fn render(table: &Table<'_>) -> String {
         let _ = writeln!(out, "No open leak events.");
     }
     for e in &table.events {
-        event_text(&mut out, e);
+        event_text(&mut out, e, people);
     }
     let _ = writeln!(out, "\n{}", table.caution);
     out
 }
 
 /// One event's lines.
-fn event_text(out: &mut String, e: &Event<'_>) {
+fn event_text(out: &mut String, e: &Event<'_>, people: &Presentation) {
+    let start = people.time(e.start_ms);
     let span = match e.closed_at_ms {
-        Some(closed) => format!("closed; leaked from {} to {}", e.start, utc(closed)),
-        None => format!("open since {}", e.start),
+        Some(closed) => format!(
+            "closed; leaked from {start} to {} ({})",
+            people.time(closed),
+            duration(TimeSpan::seconds(
+                (closed - e.start_ms).max(0) as f64 / 1000.0
+            ))
+        ),
+        None => format!("open since {start}"),
     };
     let _ = writeln!(
         out,
@@ -133,8 +150,8 @@ fn event_text(out: &mut String, e: &Event<'_>) {
         return;
     };
     let rho = Density::kg_per_cubic_metre(est.density_kg_m3);
-    let kg = |x: f64| mass(Mass::kilograms(x));
-    let flow = |x: f64| rate(MassRate::kg_per_second(x));
+    let kg = |x: f64| people.mass(Mass::kilograms(x));
+    let flow = |x: f64| people.rate(MassRate::kg_per_second(x));
     let _ = writeln!(
         out,
         "  released     {}  (band {} to {})",
@@ -145,7 +162,7 @@ fn event_text(out: &mut String, e: &Event<'_>) {
     let _ = writeln!(
         out,
         "               {}",
-        volumes(Mass::kilograms(est.released_best_kg), rho)
+        people.volume(Mass::kilograms(est.released_best_kg), rho)
     );
     let _ = writeln!(out, "  band from    {}", said.band_text);
     let closed = e.closed_at_ms.is_some();
@@ -196,9 +213,9 @@ fn event_text(out: &mut String, e: &Event<'_>) {
     );
     let _ = writeln!(
         out,
-        "  remaining    {} above the hole (level {:.3} m)",
+        "  remaining    {} above the hole (level {})",
         kg(est.remaining_above_hole_kg),
-        est.level_m
+        people.length(est.level_m)
     );
     match &est.forecast {
         _ if closed => {
@@ -210,9 +227,9 @@ fn event_text(out: &mut String, e: &Event<'_>) {
         Some(f) => {
             let _ = writeln!(
                 out,
-                "  forecast     flow stops in {} at {:.2} m; total then {}; total by 15 min from now {}; by 1 h {}",
+                "  forecast     flow stops in {} at {}; total then {}; total released by 15 min from now {}, by 1 h from now {}",
                 duration(TimeSpan::seconds(f.stops_after_s)),
-                f.stop_level_m,
+                people.length(f.stop_level_m),
                 kg(f.total_at_stop_kg),
                 kg(f.total_in_15_min_kg),
                 kg(f.total_in_1_h_kg)
@@ -227,7 +244,7 @@ fn event_text(out: &mut String, e: &Event<'_>) {
             out,
             "  reportable   {}: {}",
             kg(c.quantity_kg),
-            estimate::crossing_text(c)
+            estimate::crossing_text(c, people)
         );
     }
     let q = &est.quality;
@@ -241,5 +258,5 @@ fn event_text(out: &mut String, e: &Event<'_>) {
         kg(q.bridged_kg),
         q.longest_gap_s
     );
-    let _ = writeln!(out, "  last sample  {}", utc(est.at_ms));
+    let _ = writeln!(out, "  last sample  {}", people.time(est.at_ms));
 }

@@ -13,18 +13,31 @@
 //! its messages) and any writing.
 
 use crate::estimate::{Estimate, LeakParams};
-use crate::report::{self, estimate as words, table};
+use crate::report::{self, Presentation, estimate as words, table};
 use crate::store::{self, DaemonState, EventRow, StoreError};
 use serde::Serialize;
 use std::path::Path;
 
+/// The status document's layout version. 2: machine times are RFC 3339
+/// UTC (they were "2026-12-01 13:42:07 UTC"), and `time_zone` and `units`
+/// say how people's renderings show them.
+pub const FORMAT: u32 = 2;
+
 /// The status document: every event asked for, with its latest estimate.
 #[derive(Debug, Clone, Serialize)]
 pub struct StatusDocument {
-    /// Version of this document's layout.
+    /// Version of this document's layout (README, "Formats").
     pub format: u32,
+    /// RFC 3339, UTC, as every time in the document.
     pub generated_at: String,
     pub generated_at_ms: i64,
+    /// The site's time zone, which people's renderings of this document
+    /// use (`[site] time_zone`), and its units (`metric` or `us`).
+    pub time_zone: String,
+    pub units: &'static str,
+    /// How the document's renderings for people show times and figures.
+    #[serde(skip)]
+    pub presentation: Presentation,
     pub caution: &'static str,
     /// Whether a daemon has beaten its heartbeat in the last 5 s.
     pub daemon_running: bool,
@@ -38,6 +51,7 @@ pub struct StatusDocument {
     /// What a busy daemon is busy with.
     pub daemon_busy_with: Option<String>,
     pub daemon_last_seen: Option<String>,
+    pub daemon_last_seen_ms: Option<i64>,
     /// The daemon's timeline minus the wall clock, ms, at its last beat: not
     /// 0 after the wall clock stepped (the README's "Clock steps").
     pub daemon_clock_offset_ms: Option<i64>,
@@ -88,15 +102,15 @@ pub struct EstimateView {
 }
 
 impl EstimateView {
-    pub fn new(estimate: Estimate, params: &LeakParams) -> Self {
+    pub fn new(estimate: Estimate, params: &LeakParams, people: &Presentation) -> Self {
         let e = &estimate;
         let hole = crate::estimate::Warning::HoleInconsistent;
         Self {
-            words: words::Words::of(e, params),
+            words: words::Words::of(e, params, people),
             consistency: e
                 .warnings
                 .contains(hole)
-                .then(|| words::warning_text(hole, e, params)),
+                .then(|| words::warning_text(hole, e, params, people)),
             estimate,
         }
     }
@@ -163,6 +177,7 @@ pub enum StatusError {
 pub fn document(
     conn: &rusqlite::Connection,
     event: Option<i64>,
+    presentation: &Presentation,
 ) -> Result<StatusDocument, StatusError> {
     let heartbeat = store::heartbeat(conn)?;
     let stale_after = heartbeat
@@ -189,7 +204,7 @@ pub fn document(
                 "open"
             },
             source: row.source.clone(),
-            start: report::utc(row.start_ms),
+            start: report::rfc3339(row.start_ms),
             start_ms: row.start_ms,
             opened_at_ms: row.opened_at_ms,
             closed_at_ms: row.closed_at_ms,
@@ -201,7 +216,7 @@ pub fn document(
                 .map(|e| Volumes::of(e.released_best_kg, e.density_kg_m3)),
             data_age_ms,
             stale: open && data_age_ms.unwrap_or(now - row.opened_at_ms) > stale_after,
-            estimate: estimate.map(|e| EstimateView::new(e, &row.params)),
+            estimate: estimate.map(|e| EstimateView::new(e, &row.params, presentation)),
             tracking_error: untracked.get(&row.id).cloned(),
         });
     }
@@ -210,9 +225,12 @@ pub fn document(
         .map_or(DaemonState::NotRunning, |h| h.state(now));
     let running = matches!(state, DaemonState::Running | DaemonState::Busy { .. });
     Ok(StatusDocument {
-        format: 1,
-        generated_at: report::utc(now),
+        format: FORMAT,
+        generated_at: report::rfc3339(now),
         generated_at_ms: now,
+        time_zone: presentation.zone_name.clone(),
+        units: presentation.units.name(),
+        presentation: presentation.clone(),
         caution: report::CAUTION,
         daemon_running: running,
         daemon_stalled: state == DaemonState::Stalled,
@@ -225,7 +243,8 @@ pub fn document(
             .as_ref()
             .filter(|_| running)
             .and_then(|h| h.clock_offset_ms),
-        daemon_last_seen: heartbeat.map(|h| report::utc(h.beat_at_ms)),
+        daemon_last_seen: heartbeat.as_ref().map(|h| report::rfc3339(h.beat_at_ms)),
+        daemon_last_seen_ms: heartbeat.map(|h| h.beat_at_ms),
         events,
     })
 }
@@ -235,12 +254,13 @@ impl StatusDocument {
     /// [`report::table::render`].
     pub fn table(&self) -> table::Table<'_> {
         table::Table {
-            generated_at: &self.generated_at,
+            generated_at_ms: self.generated_at_ms,
+            presentation: &self.presentation,
             daemon: table::Daemon {
                 running: self.daemon_running,
                 stalled: self.daemon_stalled,
                 busy_with: self.daemon_busy_with.as_deref(),
-                last_seen: self.daemon_last_seen.as_deref(),
+                last_seen_ms: self.daemon_last_seen_ms,
                 clock_offset_ms: self.daemon_clock_offset_ms,
             },
             events: self.events.iter().map(EventStatus::table).collect(),
@@ -256,7 +276,7 @@ impl EventStatus {
             tank: &self.tank,
             source: &self.source,
             revision: self.revision,
-            start: &self.start,
+            start_ms: self.start_ms,
             closed_at_ms: self.closed_at_ms,
             params_text: &self.params_text,
             tracking_error: self.tracking_error.as_deref(),
@@ -302,7 +322,7 @@ mod tests {
         drop(conn);
 
         let conn = store::open_read_only(&db).unwrap();
-        let doc = document(&conn, None).unwrap();
+        let doc = document(&conn, None, &Presentation::default()).unwrap();
         assert_eq!(doc.daemon_state, "not_running");
         let [e] = doc.events.as_slice() else {
             panic!("{:?}", doc.events)
@@ -323,7 +343,7 @@ mod tests {
             assert!(text.contains(expected), "{expected:?} not in:\n{text}");
         }
         assert!(matches!(
-            document(&conn, Some(id + 1)),
+            document(&conn, Some(id + 1), &Presentation::default()),
             Err(StatusError::NoEvent(missing)) if missing == id + 1
         ));
     }

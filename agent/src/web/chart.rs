@@ -263,10 +263,10 @@ fn time_axis(span_s: f64) -> (f64, &'static str, f64) {
     }
 }
 
-/// A round quantity as people write it: 50, 2.5, 12,000 (`report::grouped`
+/// A round quantity as people write it: 50, 2.5, 12,000 (`report::number`
 /// would say 50.0, its three significant figures).
 pub fn whole(x: f64) -> String {
-    let text = report::grouped(x);
+    let text = report::number(x);
     if text.contains('.') {
         text.trim_end_matches('0').trim_end_matches('.').to_owned()
     } else {

@@ -41,6 +41,7 @@ pub mod server;
 
 use crate::acquire::stats::Stats;
 use crate::config::{Config, HostName, Web};
+use crate::report::Presentation;
 use crate::status::{self, StatusError};
 use crate::store::health::StoreHealth;
 use crate::store::{self, StoreError};
@@ -497,7 +498,7 @@ async fn index(State(shared): State<Arc<Shared>>) -> Response {
 /// Everything the page shows, read in one go through one connection.
 fn page_data(shared: &Shared) -> Result<page::PageData, Failure> {
     let conn = open_for_document(shared)?;
-    let doc = status::document(&conn, None)?;
+    let doc = status::document(&conn, None, &Presentation::of(&shared.config))?;
     let mut events = Vec::with_capacity(doc.events.len());
     for e in &doc.events {
         let series = chart::thin(
@@ -532,7 +533,11 @@ fn open_for_document(shared: &Shared) -> Result<rusqlite::Connection, Failure> {
 
 async fn api_status(State(shared): State<Arc<Shared>>) -> Response {
     let doc = read(&shared, |s| {
-        Ok(status::document(&open_for_document(s)?, None)?)
+        Ok(status::document(
+            &open_for_document(s)?,
+            None,
+            &Presentation::of(&s.config),
+        )?)
     });
     match doc.await {
         Ok(doc) => json(StatusCode::OK, &doc),
@@ -545,7 +550,11 @@ async fn api_event(State(shared): State<Arc<Shared>>, UrlPath(id): UrlPath<Strin
         let id = event_id(&id)?;
         let conn = store::open_read_only(&s.db)?;
         find_event(&conn, id)?;
-        Ok(status::document(&conn, Some(id))?)
+        Ok(status::document(
+            &conn,
+            Some(id),
+            &Presentation::of(&s.config),
+        )?)
     })
     .await;
     match found {
@@ -571,7 +580,11 @@ async fn api_series(State(shared): State<Arc<Shared>>, UrlPath(id): UrlPath<Stri
 
 async fn metrics_text(State(shared): State<Arc<Shared>>) -> Response {
     let doc = read(&shared, |s| {
-        Ok(status::document(&open_for_document(s)?, None)?)
+        Ok(status::document(
+            &open_for_document(s)?,
+            None,
+            &Presentation::of(&s.config),
+        )?)
     })
     .await;
     match doc {

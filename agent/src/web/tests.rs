@@ -240,7 +240,7 @@ async fn the_json_is_the_status_document_and_the_series_is_thin() {
     assert_eq!(status, StatusCode::OK);
     assert_eq!(content_type(&headers), "application/json");
     let doc: serde_json::Value = serde_json::from_str(&body).unwrap();
-    assert_eq!(doc["format"], 1);
+    assert_eq!(doc["format"], 2);
     assert_eq!(doc["events"][0]["tank"], HOSTILE_ID);
     assert_eq!(doc["events"][0]["event"], id);
 

@@ -21,12 +21,12 @@ mod tank;
 use super::problems::Problems;
 use super::raw::{self, RawConfig, RawTank};
 use super::register_map::overlaps;
-use super::types::{Config, DEFAULT_WEB_LISTEN, Device, HostName, Role, Tank, Web};
+use super::types::{Config, DEFAULT_WEB_LISTEN, Device, HostName, Role, Tank, Units, Web};
 use crate::model::{AbsolutePressure, ModelError};
 use std::collections::HashMap;
 use std::net::SocketAddr;
 use std::ops::Range;
-use std::path::Path;
+use std::path::{Path, PathBuf};
 use std::time::Duration;
 use toml::Spanned;
 
@@ -139,14 +139,65 @@ impl Checker {
         let (devices, device_index) = self.devices(raw.devices);
         let tanks = self.tanks(raw.tanks, &device_index, &devices, ambient);
         let web = raw.web.map(|w| self.web(w));
+        let database = raw.site.database.as_ref().map(|d| self.database(d, path));
+        let (time_zone_name, time_zone) = self.time_zone(raw.site.time_zone.as_ref());
+        let units = self.units(raw.site.units.as_ref());
         Config {
             path: path.to_owned(),
             site_name: raw.site.name,
             ambient,
+            database,
+            time_zone,
+            time_zone_name,
+            units,
             devices,
             tanks,
             web,
         }
+    }
+
+    /// `[site] database`, relative to the config file's folder.
+    fn database(&mut self, name: &Spanned<String>, config: &Path) -> PathBuf {
+        let text = name.get_ref();
+        if text.is_empty() || crate::logging::one_line(text) != *text {
+            self.problem(
+                name.span(),
+                "database must be a file path without control characters, for example \"/var/lib/leaktally/site.db\"",
+            );
+        }
+        let folder = config.parent().unwrap_or(Path::new(""));
+        folder.join(text)
+    }
+
+    /// `[site] time_zone`: UTC if absent.
+    fn time_zone(&mut self, name: Option<&Spanned<String>>) -> (String, jiff::tz::TimeZone) {
+        let Some(name) = name else {
+            return ("UTC".into(), jiff::tz::TimeZone::UTC);
+        };
+        match super::types::time_zone(name.get_ref()) {
+            Ok(zone) => zone,
+            Err(e) => {
+                self.problem(name.span(), format!("time_zone: {e}"));
+                ("UTC".into(), jiff::tz::TimeZone::UTC)
+            }
+        }
+    }
+
+    /// `[site] units`: metric if absent.
+    fn units(&mut self, name: Option<&Spanned<String>>) -> Units {
+        let Some(name) = name else {
+            return Units::Metric;
+        };
+        Units::from_name(name.get_ref()).unwrap_or_else(|| {
+            self.problem(
+                name.span(),
+                format!(
+                    "units = \"{}\" is not known; give \"metric\" (kg, m, kPa) or \"us\" (lb, ft, in, US gal, bbl, psi)",
+                    crate::logging::one_line(name.get_ref())
+                ),
+            );
+            Units::Metric
+        })
     }
 
     /// `ambient_pressure_kpa`, absolute: the standard atmosphere if absent.

@@ -59,7 +59,7 @@ fn warnings(id: i64, est: &EstimateView) -> Html {
 
 /// How it is estimated: the method and why, the level balance, the hole.
 fn basis(id: i64, est: &EstimateView) -> Html {
-    let g = report::grouped;
+    let g = report::number;
     let mut out = markup!(
         r#"<div class="panel basis">
 <h3>How it is estimated</h3>
@@ -107,7 +107,7 @@ fn quality(id: i64, est: &EstimateView, age_ms: i64) -> Html {
     } else {
         format!(
             "bridged by the model ({} kg, longest {:.0} s)",
-            report::grouped(q.bridged_kg),
+            report::number(q.bridged_kg),
             q.longest_gap_s
         )
     };

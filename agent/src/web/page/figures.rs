@@ -15,9 +15,9 @@ use crate::web::html::{Html, markup};
 /// 0.0), kg/s above, as `report::rate` does.
 fn rate_parts(kg_s: f64) -> (String, &'static str) {
     if kg_s != 0.0 && kg_s.abs() < 1.0 {
-        (report::grouped(kg_s * 3600.0), "kg/h")
+        (report::number(kg_s * 3600.0), "kg/h")
     } else {
-        (report::significant(kg_s), "kg/s")
+        (report::number(kg_s), "kg/s")
     }
 }
 
@@ -40,8 +40,8 @@ fn released(id: i64, est: &EstimateView) -> Html {
         vol(est.released_low_kg),
         vol(est.released_high_kg),
     );
-    let g = report::grouped;
-    let m3 = report::significant;
+    let g = report::number;
+    let m3 = report::number;
     markup!(
         r#"
 <div class="figure released">
@@ -86,8 +86,8 @@ fn flowing(id: i64, est: &EstimateView) -> Html {
 <p class="fine">{phase} phase · at level {level:.3} m</p>
 </div>"#,
         rate = figure_with_unit("rate-best", id, &rate, rate_unit),
-        m3h = report::significant(rate_m3_h),
-        lmin = report::grouped(rate_m3_h * 1000.0 / 60.0),
+        m3h = report::number(rate_m3_h),
+        lmin = report::number(rate_m3_h * 1000.0 / 60.0),
         lo = figure_with_unit("rate-low", id, &rate_lo, rate_lo_unit),
         hi = figure_with_unit("rate-high", id, &rate_hi, rate_hi_unit),
         phase = words::phase_text(est),
@@ -98,7 +98,7 @@ fn flowing(id: i64, est: &EstimateView) -> Html {
 /// The forecast: when the flow stops and the total then, or why there is
 /// none.
 fn forecast(id: i64, est: &EstimateView, now_ms: i64) -> Html {
-    let g = report::grouped;
+    let g = report::number;
     let body = match &est.forecast {
         Some(f) if f.stops_after_s.is_finite() => {
             let stop_ms = f.made_at_ms + (f.stops_after_s * 1000.0) as i64;
@@ -115,7 +115,7 @@ fn forecast(id: i64, est: &EstimateView, now_ms: i64) -> Html {
                 inn = span(stop_ms - now_ms),
                 lvl = f.stop_level_m,
                 total = figure("forecast-total-kg", id, &g(f.total_at_stop_kg), "kg"),
-                tm3 = report::significant(total.m3),
+                tm3 = report::number(total.m3),
                 tl = g(total.litres),
                 q = figure("forecast-15min-kg", id, &g(f.total_in_15_min_kg), "kg"),
                 h = figure("forecast-1h-kg", id, &g(f.total_in_1_h_kg), "kg"),

@@ -53,7 +53,7 @@ fn crossing(id: i64, c: &Crossing, released_kg: f64) -> Html {
             id = id,
             qty = c.quantity_kg,
             q = q,
-            left = report::grouped((c.quantity_kg - released_kg).max(0.0))
+            left = report::number((c.quantity_kg - released_kg).max(0.0))
         );
     }
     let crossed = c.at_ms.map_or(Html::new(), |at| {
@@ -70,6 +70,6 @@ fn crossing(id: i64, c: &Crossing, released_kg: f64) -> Html {
         crossed = crossed,
         high = high,
         q = q,
-        text = words::crossing_text(c)
+        text = words::crossing_text(c, &report::Presentation::default())
     )
 }
