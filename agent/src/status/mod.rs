@@ -12,6 +12,10 @@
 //! Left out: opening the database (the caller's, with the path it names in
 //! its messages) and any writing.
 
+pub mod history;
+
+pub use history::{EventFilter, EventsDocument};
+
 use crate::estimate::{Estimate, LeakParams};
 use crate::report::{self, Presentation, estimate as words, table};
 use crate::store::{self, DaemonState, EventRow, StoreError};
