@@ -594,7 +594,7 @@ mod command_line {
     }
 
     fn check_since(text: &str, now_ms: i64) -> Result<(), TestCaseError> {
-        if let Ok(at) = parse_since(text, now_ms) {
+        if let Ok(at) = parse_since(text, now_ms, &jiff::tz::TimeZone::system()) {
             // An instant jiff (and so every report) can show, not a
             // wrapped-around integer.
             prop_assert!(
@@ -816,7 +816,7 @@ mod command_line {
             text in r"[0-9]{0,22}(\.[0-9]{0,4})?(s|m|h|sec|min|hr)([0-9]{0,4}(s|m|h))?",
             now in now_ms(),
         ) {
-            if let Ok(at) = parse_since(&text, now) {
+            if let Ok(at) = parse_since(&text, now, &jiff::tz::TimeZone::system()) {
                 prop_assert!(at <= now, "--since {text:?} at now {now} gave {at}, after now");
             }
         }

@@ -3,26 +3,35 @@
 //!
 //! Left out: what any command does, and how its options are checked.
 
-use crate::commands::args::{DEFAULT_DB, runtime};
+use crate::commands::args::{SiteArgs, runtime};
 use crate::commands::check::CheckArgs;
 use crate::commands::demo::DemoArgs;
+use crate::commands::docs::{CompletionsArgs, ManualArgs};
+use crate::commands::events::EventsArgs;
 use crate::commands::leak::LeakCommand;
 use crate::commands::poll::PollArgs;
 use crate::commands::replay::ReplayArgs;
 use crate::commands::status::StatusArgs;
 use crate::commands::whatif::WhatifArgs;
-use crate::commands::{check, demo, leak, poll, replay, status, whatif};
+use crate::commands::{check, demo, docs, events, leak, poll, replay, status, whatif};
 // Re-exported so that code outside the crate (the property tests in the root
 // package, which has no clap dependency of its own) can bring the trait into
 // scope and call `Cli::try_parse_from`.
 pub use clap::Parser;
-use clap::Subcommand;
-use std::path::PathBuf;
+use clap::{CommandFactory, Subcommand};
 
 /// Running released-quantity estimates for leaking tanks. Estimates for
 /// emergency planning, not measurements.
 #[derive(Debug, Parser)]
-#[command(name = "leaktally", version, about, long_about = None)]
+#[command(
+    name = "leaktally",
+    version,
+    about,
+    long_about = None,
+    // Our own `help` command, which takes --help itself (clap's does not).
+    disable_help_subcommand = true,
+    after_help = "Exit codes: 0 done; 1 failed; 2 the command line is wrong; 3 a device did not answer (check, poll); 4 no daemon is running (status, events, leak); 5 a request is recorded but not yet acknowledged (leak). Environment: LEAKTALLY_CONFIG, LEAKTALLY_DB, NO_COLOR, RUST_LOG."
+)]
 pub struct Cli {
     #[command(subcommand)]
     pub command: Command,
@@ -45,19 +54,53 @@ pub enum Command {
     /// Read the configured devices and print each sample as a JSON line.
     Poll(PollArgs),
     /// Run the agent: poll, track open leak events, log to the database.
-    Run {
-        /// The site config (TOML).
-        #[arg(value_parser = crate::commands::args::path_arg, long, short)]
-        config: PathBuf,
-        /// The SQLite database the daemon writes.
-        #[arg(value_parser = crate::commands::args::path_arg, long, default_value = DEFAULT_DB)]
-        db: PathBuf,
-    },
+    Run(SiteArgs),
     /// Flag, revise, annotate or close a leak event (the daemon applies it).
     #[command(subcommand)]
     Leak(LeakCommand),
-    /// Show the running totals of the open events (or of one event).
+    /// Show the running totals of the open events, or one event's (open
+    /// or closed) in full.
     Status(StatusArgs),
+    /// List the events, open and closed, with their final or latest totals.
+    Events(EventsArgs),
+    /// Print the shell completion script (bash, zsh, fish, elvish,
+    /// powershell).
+    Completions(CompletionsArgs),
+    /// Print the man page, or write one per command with --dir.
+    Manual(ManualArgs),
+    /// Print the help of leaktally, or of one of its commands
+    /// (`leaktally help leak open`).
+    Help(HelpArgs),
+}
+
+/// `leaktally help`'s options.
+#[derive(Debug, clap::Args)]
+pub struct HelpArgs {
+    /// The command (and subcommand) to explain.
+    #[arg(value_name = "COMMAND")]
+    pub command: Vec<String>,
+}
+
+/// Prints the long help of the command `path` names.
+fn help(path: &[String]) -> anyhow::Result<()> {
+    let mut command = Cli::command();
+    command.build();
+    for name in path {
+        let names: Vec<String> = command
+            .get_subcommands()
+            .map(|c| c.get_name().to_owned())
+            .collect();
+        let Some(sub) = command.find_subcommand(name).cloned() else {
+            anyhow::bail!(
+                "there is no command \"{}\" here; the commands are: {}",
+                crate::logging::one_line(name),
+                names.join(", ")
+            );
+        };
+        command = sub;
+    }
+    print!("{}", command.render_long_help());
+    Ok(())
 }
 
 /// Runs one parsed command.
@@ -68,8 +111,9 @@ pub fn run(cli: Cli) -> anyhow::Result<()> {
         Command::Whatif(args) => whatif::command(args),
         Command::Check(args) => check::command(args),
         Command::Poll(args) => poll::command(args),
-        Command::Run { config, db } => {
-            let config = crate::config::load(&config)?;
+        Command::Run(site) => {
+            let config = site.config.load()?;
+            let (db, _) = site.database()?;
             runtime()?.block_on(crate::daemon::run(
                 config,
                 &db,
@@ -78,13 +122,52 @@ pub fn run(cli: Cli) -> anyhow::Result<()> {
         }
         Command::Leak(command) => leak::command(command),
         Command::Status(args) => status::command(args),
+        Command::Events(args) => events::command(args),
+        Command::Completions(args) => docs::completions(args, Cli::command()),
+        Command::Manual(args) => docs::manual(args, Cli::command()),
+        Command::Help(args) => help(&args.command),
     }
 }
 
 #[cfg(test)]
 mod tests {
     use super::Cli;
-    use clap::Parser;
+    use clap::{CommandFactory, Parser};
+
+    /// Issue 16: every command and every option says what it is for in
+    /// --help (and so in the man pages and completions made from it).
+    #[test]
+    fn every_command_and_option_has_help_text() {
+        fn walk(command: &clap::Command, path: &str, missing: &mut Vec<String>) {
+            let path = format!("{path} {}", command.get_name());
+            if command.get_about().is_none() {
+                missing.push(format!("{path}: no about"));
+            }
+            for arg in command.get_arguments() {
+                let id = arg.get_id().as_str();
+                if id != "help" && id != "version" && arg.get_help().is_none() {
+                    missing.push(format!("{path}: {id}"));
+                }
+            }
+            for sub in command.get_subcommands() {
+                walk(sub, &path, missing);
+            }
+        }
+        let mut command = Cli::command();
+        command.build();
+        let mut missing = Vec::new();
+        walk(&command, "", &mut missing);
+        assert!(missing.is_empty(), "no help text: {missing:#?}");
+    }
+
+    /// `leaktally help --help` is help, not a usage error.
+    #[test]
+    fn help_takes_help() {
+        let e = Cli::try_parse_from(["leaktally", "help", "--help"]).unwrap_err();
+        assert_eq!(e.kind(), clap::error::ErrorKind::DisplayHelp);
+        assert_eq!(e.exit_code(), 0);
+        assert!(Cli::try_parse_from(["leaktally", "help", "leak", "open"]).is_ok());
+    }
 
     /// Issue 11: every command refuses a path with a control character in
     /// it (commands::args::path_arg), so no echo of it can forge a line.

@@ -24,17 +24,28 @@ use tracing_subscriber::fmt::format::Writer;
 /// Logs to standard error, so that standard output stays clean for reports,
 /// JSON and the simulator's `listening on` line. RUST_LOG adjusts the level
 /// (default: info); colour only for a person at a terminal, not in captured
-/// logs. Every field is escaped ([`escaped_fields`]).
+/// logs, and never under NO_COLOR. Every field is escaped
+/// ([`escaped_fields`]).
 pub fn to_stderr() {
     tracing_subscriber::fmt()
         .with_writer(std::io::stderr)
-        .with_ansi(std::io::stderr().is_terminal())
+        .with_ansi(colour_allowed(
+            std::io::stderr().is_terminal(),
+            std::env::var_os("NO_COLOR"),
+        ))
         .fmt_fields(escaped_fields())
         .with_env_filter(
             tracing_subscriber::EnvFilter::try_from_default_env()
                 .unwrap_or_else(|_| tracing_subscriber::EnvFilter::new("info")),
         )
         .init();
+}
+
+/// Whether output to a stream may be coloured: only at a terminal, and not
+/// when NO_COLOR is set to anything but the empty string (no-color.org).
+/// (clap's help follows NO_COLOR by itself.)
+pub fn colour_allowed(terminal: bool, no_color: Option<std::ffi::OsString>) -> bool {
+    terminal && no_color.is_none_or(|v| v.is_empty())
 }
 
 /// The field formatter every subscriber of ours uses: the message as it

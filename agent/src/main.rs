@@ -1,6 +1,7 @@
 //! The `leaktally` binary: parse the command line, set up logging, run,
 //! turn the outcome into an exit code. The work itself lives in the library.
 
+use leaktally::commands::exit;
 use std::process::ExitCode;
 
 fn main() -> ExitCode {
@@ -12,14 +13,14 @@ fn main() -> ExitCode {
     }
     match leaktally::cli::run(cli) {
         Ok(()) => ExitCode::SUCCESS,
-        // A valid config whose devices did not all answer: a code of its
-        // own, so that scripts can tell it from an invalid config.
-        Err(err) if err.is::<leaktally::commands::check::DevicesFailed>() => {
+        // Outcomes with codes of their own (README, "Exit codes"), so that
+        // scripts can tell them from a plain failure.
+        Err(err) if exit::code_of(&err) != exit::FAILED => {
             eprintln!(
                 "warning: {}",
                 leaktally::logging::lines(&format!("{err:#}"))
             );
-            ExitCode::from(leaktally::commands::check::EXIT_DEVICES_FAILED)
+            ExitCode::from(exit::code_of(&err))
         }
         Err(err) => {
             // Errors quote config text, device replies and file names; their

@@ -22,11 +22,35 @@ pub mod since;
 pub use request::Request;
 pub use since::{parse_duration, parse_since};
 
-use crate::report;
+use crate::report::Presentation;
 use crate::store::{self, DaemonState, SILENT_AFTER_MS, StoreError};
 use anyhow::bail;
 use std::path::Path;
 use std::time::{Duration, Instant};
+
+/// No daemon is running to act on a request, so nothing was written; a
+/// code of its own (`commands::exit::NO_DAEMON`).
+#[derive(Debug, thiserror::Error)]
+#[error("{0}")]
+pub struct NoDaemon(pub String);
+
+/// The request is recorded but the daemon has not acknowledged it (it will
+/// apply it later); a code of its own (`commands::exit::NOT_ACKNOWLEDGED`).
+#[derive(Debug, thiserror::Error)]
+#[error("{0}")]
+pub struct Unacknowledged(pub String);
+
+macro_rules! no_daemon {
+    ($($arg:tt)*) => {
+        return Err(NoDaemon(format!($($arg)*)).into())
+    };
+}
+
+macro_rules! unacknowledged {
+    ($($arg:tt)*) => {
+        return Err(Unacknowledged(format!($($arg)*)).into())
+    };
+}
 
 /// How long to wait for the daemon's acknowledgement.
 const ACK_WAIT: Duration = Duration::from_secs(20);
@@ -54,9 +78,9 @@ pub struct Reply {
 /// heartbeat still fresh) stays in its row and is applied, with the time it
 /// was made, by the next daemon or once the daemon can write; the wait says
 /// so as soon as the heartbeat goes stale.
-pub fn send(db: &Path, request: &Request) -> anyhow::Result<Reply> {
+pub fn send(db: &Path, request: &Request, people: &Presentation) -> anyhow::Result<Reply> {
     if !db.exists() {
-        bail!(
+        no_daemon!(
             "the database {} does not exist, so no daemon is running on it; start one with `leaktally run --config FILE --db {}`",
             db.display(),
             db.display()
@@ -65,7 +89,7 @@ pub fn send(db: &Path, request: &Request) -> anyhow::Result<Reply> {
     let conn = store::open_for_requests(db)?;
     let heartbeat = store::heartbeat(&conn).map_err(|e| damage_said(e, db))?;
     let Some(h) = heartbeat else {
-        bail!(
+        no_daemon!(
             "no leaktally daemon has ever run on {}; start it with `leaktally run --config FILE --db {}`; nothing was changed",
             db.display(),
             db.display()
@@ -76,10 +100,10 @@ pub fn send(db: &Path, request: &Request) -> anyhow::Result<Reply> {
             // Why it is not running may be the file itself: the daemon
             // refuses to start on a damaged one.
             store::check_integrity(db, &conn)?;
-            bail!(
+            no_daemon!(
                 "no leaktally daemon is running on {} (last seen {}); start it with `leaktally run --config {} --db {}`; nothing was changed",
                 db.display(),
-                report::utc(h.beat_at_ms),
+                people.time(h.beat_at_ms),
                 h.config,
                 db.display()
             )
@@ -91,7 +115,7 @@ pub fn send(db: &Path, request: &Request) -> anyhow::Result<Reply> {
                 "warning: the leaktally daemon on {} (pid {}) is running but stalled on the database: it has not written to it since {}; it takes this request once it can write again",
                 db.display(),
                 h.pid,
-                report::utc(h.beat_at_ms)
+                people.time(h.beat_at_ms)
             )
         }
         DaemonState::Running | DaemonState::Busy { .. } => {}
@@ -107,7 +131,7 @@ pub fn send(db: &Path, request: &Request) -> anyhow::Result<Reply> {
     crate::doorbell::ring(db);
     let action = store::action(&conn, id)?
         .ok_or_else(|| StoreError::Corrupt(format!("action {id} vanished")))?;
-    let made = report::utc(action.requested_at_ms);
+    let made = people.time(action.requested_at_ms);
     let restart = format!(
         "`leaktally run --config {} --db {}`",
         h.config,
@@ -136,21 +160,21 @@ pub fn send(db: &Path, request: &Request) -> anyhow::Result<Reply> {
         let state = store::heartbeat(&conn)?.map_or(DaemonState::NotRunning, |h| h.state(now));
         let waited = started.elapsed() > ACK_WAIT;
         match state {
-            DaemonState::NotRunning => bail!(
+            DaemonState::NotRunning => unacknowledged!(
                 "the daemon stopped before it took request {id}; the request is recorded and will be applied, with the time it was made ({made}), when a daemon next starts on {}: {restart}",
                 db.display()
             ),
             // As soon as it shows (a heartbeat 5 s stale): it will not
             // take the request until it can write, however long that is.
-            DaemonState::Stalled => bail!(
+            DaemonState::Stalled => unacknowledged!(
                 "the daemon is running but stalled on the database (it has not written to it for over {} s: another program holding the write lock, a full disk, or a disk that does not answer; its log says which); request {id} is recorded and will be applied, with the time it was made ({made}), once it can write again; `leaktally status` shows when",
                 SILENT_AFTER_MS / 1000
             ),
-            DaemonState::Busy { for_ms, activity } if waited => bail!(
+            DaemonState::Busy { for_ms, activity } if waited => unacknowledged!(
                 "the daemon is running but busy ({activity}, for {} s), and has not taken request {id} yet; the request is recorded and it will apply it, with the time it was made ({made}), as soon as it gets to it; `leaktally status` shows when",
                 for_ms / 1000
             ),
-            _ if waited => bail!(
+            _ if waited => unacknowledged!(
                 "the daemon is running but has not taken request {id} within {} s; the request is recorded and will be applied, with the time it was made ({made}); see the daemon's log, and `leaktally status`",
                 ACK_WAIT.as_secs()
             ),
@@ -249,7 +273,7 @@ mod tests {
             since_ms: None,
             note: None,
         };
-        let reply = send(&db, &request).unwrap();
+        let reply = send(&db, &request, &Presentation::default()).unwrap();
         let action = daemon.join().unwrap();
         assert_eq!(
             reply,

@@ -8,10 +8,10 @@ use anyhow::bail;
 use std::time::Duration;
 
 /// Parses `--since`: an RFC 3339 time (`2026-12-01T13:42:00Z`), a time of
-/// day today in this machine's time zone (`13:42` or `13:42:30`; yesterday
-/// only when that is less than 3 h ago, as just after midnight), or a
-/// duration ago (`90s`, `5m`, `1h30m`).
-pub fn parse_since(text: &str, now_ms: i64) -> anyhow::Result<i64> {
+/// day today in the site's time zone `zone` (`13:42` or `13:42:30`;
+/// yesterday only when that is less than 3 h ago, as just after midnight),
+/// or a duration ago (`90s`, `5m`, `1h30m`).
+pub fn parse_since(text: &str, now_ms: i64, zone: &jiff::tz::TimeZone) -> anyhow::Result<i64> {
     let text = text.trim();
     if let Some(ago) = parse_duration(text) {
         if ago > MAX_AGO {
@@ -26,8 +26,7 @@ pub fn parse_since(text: &str, now_ms: i64) -> anyhow::Result<i64> {
         return Ok(t.as_millisecond());
     }
     if let Ok(time) = text.parse::<jiff::civil::Time>() {
-        let now = jiff::Timestamp::from_millisecond(now_ms)?
-            .to_zoned_datetime(jiff::tz::TimeZone::system());
+        let now = jiff::Timestamp::from_millisecond(now_ms)?.to_zoned_datetime(zone.clone());
         let mut at = now
             .date()
             .to_datetime(time)
@@ -47,7 +46,7 @@ pub fn parse_since(text: &str, now_ms: i64) -> anyhow::Result<i64> {
         return Ok(at.timestamp().as_millisecond());
     }
     bail!(
-        "--since {text:?} is not a time or a duration; write a time today like 13:42, a UTC time like 2026-12-01T13:42:00Z, or how long ago like 90s, 5m or 1h30m"
+        "--since {text:?} is not a time or a duration; write a time today like 13:42 (in the site's time zone), an RFC 3339 time like 2026-12-01T13:42:00Z, or how long ago like 90s, 5m or 1h30m"
     )
 }
 
@@ -55,7 +54,7 @@ pub fn parse_since(text: &str, now_ms: i64) -> anyhow::Result<i64> {
 /// history (the rolling window keeps 24 h; event samples are kept).
 const MAX_AGO: Duration = Duration::from_secs(366 * 86_400);
 
-/// `90s`, `5m`, `1h30m`, `2h`: a duration from number-and-unit parts.
+/// `90s`, `5m`, `1h30m`, `2h`, `7d`: a duration from number-and-unit parts.
 pub fn parse_duration(text: &str) -> Option<Duration> {
     let mut total = 0.0;
     let mut number = String::new();
@@ -81,6 +80,7 @@ pub fn parse_duration(text: &str) -> Option<Duration> {
             "s" | "sec" => 1.0,
             "m" | "min" => 60.0,
             "h" | "hr" => 3600.0,
+            "d" | "day" | "days" => 86_400.0,
             _ => return None,
         };
         total += value * seconds;
@@ -102,15 +102,21 @@ mod tests {
         let now = jiff::Timestamp::from_second(1_780_000_000)
             .unwrap()
             .as_millisecond();
-        assert_eq!(parse_since("90s", now).unwrap(), now - 90_000);
-        assert_eq!(parse_since("1h30m", now).unwrap(), now - 5_400_000);
+        let utc = jiff::tz::TimeZone::UTC;
+        assert_eq!(parse_since("90s", now, &utc).unwrap(), now - 90_000);
+        assert_eq!(parse_since("1h30m", now, &utc).unwrap(), now - 5_400_000);
         assert_eq!(
-            parse_since("2026-05-28T20:00:00Z", now).unwrap(),
+            parse_since("2026-05-28T20:00:00Z", now, &utc).unwrap(),
             1_779_998_400_000
         );
-        let today = parse_since("00:00", now).unwrap();
+        let today = parse_since("00:00", now, &utc).unwrap();
         assert!(today <= now && now - today < 86_400_000);
-        let err = parse_since("9000h", now).unwrap_err().to_string();
+        // A time of day is read in the site's zone: 1_780_000_000 s is
+        // 2026-05-28T20:26:40Z, 22:26:40 in Oslo (UTC+02:00 in May, tz
+        // database), so 22:00 there is 20:00 UTC that day.
+        let oslo = jiff::tz::TimeZone::get("Europe/Oslo").unwrap();
+        assert_eq!(parse_since("22:00", now, &oslo).unwrap(), 1_779_998_400_000);
+        let err = parse_since("9000h", now, &utc).unwrap_err().to_string();
         assert!(err.contains("more than 366 days ago"), "{err}");
         for bad in [
             "soon",
@@ -120,7 +126,7 @@ mod tests {
             "",
             "99999999999999999999s",
         ] {
-            let err = parse_since(bad, now).unwrap_err().to_string();
+            let err = parse_since(bad, now, &utc).unwrap_err().to_string();
             assert!(err.contains("is not a time or a duration"), "{bad}: {err}");
         }
     }

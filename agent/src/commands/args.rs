@@ -9,28 +9,139 @@
 //!
 //! Left out: each command's own arguments, which live with the command.
 
+use crate::config::Config;
 use crate::estimate::{
     ParamChange, ParamError, check_cd, check_cd_range, check_density_kg_m3, check_hole_diameter_mm,
     check_hole_height_m,
 };
+use crate::report::Presentation;
+use anyhow::bail;
+use std::path::{Path, PathBuf};
 
-/// The database file when `--db` is not given.
-pub const DEFAULT_DB: &str = "leaktally.db";
+/// Where the site config is looked for when neither `--config` nor
+/// `LEAKTALLY_CONFIG` names one (the systemd unit's `--config`).
+pub const STANDARD_CONFIG: &str = "/etc/leaktally/site.toml";
+
+/// Where a command finds the site: its config and its database. Each is
+/// taken from the option, else its environment variable, else (the config)
+/// the standard path or (the database) the config's `[site] database`, so
+/// that on a set-up site an operator types `leaktally leak open --tank
+/// T-104` and nothing more.
+#[derive(Debug, Clone, Default, clap::Args)]
+pub struct SiteArgs {
+    #[command(flatten)]
+    pub config: ConfigArg,
+    /// The SQLite database the daemon writes [default: the config's
+    /// [site] database].
+    #[arg(long, value_name = "FILE", env = "LEAKTALLY_DB", value_parser = path_arg)]
+    pub db: Option<PathBuf>,
+}
+
+/// How to name a config, said wherever none was found.
+const NAME_A_CONFIG: &str =
+    "give --config FILE, set LEAKTALLY_CONFIG=FILE, or install it as /etc/leaktally/site.toml";
+
+/// The site config, for commands that need no database.
+#[derive(Debug, Clone, Default, clap::Args)]
+pub struct ConfigArg {
+    /// The site config (TOML) [default: /etc/leaktally/site.toml, when it
+    /// exists].
+    #[arg(long, short, value_name = "FILE", env = "LEAKTALLY_CONFIG", value_parser = path_arg)]
+    pub config: Option<PathBuf>,
+}
+
+impl ConfigArg {
+    /// The config file named, or the standard one if it exists.
+    pub fn path(&self) -> Option<PathBuf> {
+        self.config.clone().or_else(|| {
+            let standard = Path::new(STANDARD_CONFIG);
+            standard.exists().then(|| standard.to_owned())
+        })
+    }
+
+    /// The config file, which the command needs.
+    pub fn required_path(&self) -> anyhow::Result<PathBuf> {
+        match self.path() {
+            Some(path) => Ok(path),
+            None => bail!("no site config: {NAME_A_CONFIG}"),
+        }
+    }
+
+    /// The site config, which the command needs.
+    pub fn load(&self) -> anyhow::Result<Config> {
+        Ok(crate::config::load(&self.required_path()?)?)
+    }
+}
+
+impl SiteArgs {
+    /// The config file named, or the standard one if it exists.
+    pub fn config_path(&self) -> Option<PathBuf> {
+        self.config.path()
+    }
+
+    /// The database, and the site's presentation for what the command
+    /// prints. A config that was named but cannot be read is an error when
+    /// the database must come from it; with `--db` given, it only costs the
+    /// site's zone and units, and a warning says so.
+    pub fn database(&self) -> anyhow::Result<(PathBuf, Presentation)> {
+        let config = self.config_path().map(|path| crate::config::load(&path));
+        match (&self.db, config) {
+            (Some(db), None) => Ok((db.clone(), Presentation::default())),
+            (Some(db), Some(Ok(config))) => Ok((db.clone(), Presentation::of(&config))),
+            (Some(db), Some(Err(e))) => {
+                eprintln!(
+                    "warning: {}; times are shown in UTC and figures in metric units",
+                    crate::logging::lines(&format!("{e}"))
+                );
+                Ok((db.clone(), Presentation::default()))
+            }
+            (None, Some(Ok(config))) => match &config.database {
+                Some(db) => Ok((db.clone(), Presentation::of(&config))),
+                None => bail!(
+                    "{} names no database; add `database = \"/var/lib/leaktally/site.db\"` to its [site] table, or give --db FILE (or set LEAKTALLY_DB)",
+                    config.path.display()
+                ),
+            },
+            (None, Some(Err(e))) => Err(e.into()),
+            (None, None) => bail!(
+                "no database named: give --db FILE, set LEAKTALLY_DB=FILE, or name the site config whose [site] database it is ({NAME_A_CONFIG})"
+            ),
+        }
+    }
+
+    /// The site's presentation, if a config is found and valid; UTC and
+    /// metric otherwise (for commands that read the database only).
+    pub fn presentation(&self) -> Presentation {
+        self.config_path()
+            .and_then(|path| crate::config::load(&path).ok())
+            .map_or_else(Presentation::default, |c| Presentation::of(&c))
+    }
+}
 
 /// What is known of the hole.
 #[derive(Debug, Clone, clap::Args)]
 pub struct HoleArgs {
     /// Hole diameter in mm, if known; without it the hole is fitted to the
-    /// level drop.
-    #[arg(long, value_name = "MM", allow_negative_numbers = true)]
+    /// level drop. (The unit is in the name; --hole-diameter still works.)
+    #[arg(
+        long = "hole-diameter-mm",
+        alias = "hole-diameter",
+        value_name = "MM",
+        allow_negative_numbers = true
+    )]
     pub hole_diameter: Option<f64>,
-    /// Height of the hole above the tank bottom, m (default: the bottom, the
-    /// conservative choice).
-    #[arg(long, value_name = "M", allow_negative_numbers = true)]
+    /// Height of the hole above the tank bottom in m (default: the bottom,
+    /// the conservative choice). (--hole-height still works.)
+    #[arg(
+        long = "hole-height-m",
+        alias = "hole-height",
+        value_name = "M",
+        allow_negative_numbers = true
+    )]
     pub hole_height: Option<f64>,
     /// Discharge coefficient, 0.1 to 1 (default 1.0, conservative; the
     /// band runs from 0.61 to 1.0 unless --cd-range says otherwise).
-    #[arg(long, allow_negative_numbers = true)]
+    #[arg(long, value_name = "CD", allow_negative_numbers = true)]
     pub cd: Option<f64>,
     /// The range the discharge coefficient may lie in, LOW..HIGH (for
     /// example 0.60..0.65 for a hole someone has measured); it must include
@@ -47,8 +158,9 @@ pub struct ParamChangeArgs {
     /// Forget the hole diameter and fit the hole to the level drop instead.
     #[arg(long, conflicts_with = "hole_diameter")]
     pub unknown_diameter: bool,
-    /// Liquid density, kg/m³, if the config's is wrong for this event.
-    #[arg(long)]
+    /// Liquid density in kg/m³, if the config's is wrong for this event.
+    /// (--density still works.)
+    #[arg(long = "density-kg-m3", alias = "density", value_name = "KG/M3")]
     pub density: Option<f64>,
 }
 

@@ -24,12 +24,8 @@ use crate::registers::Table;
 use crate::registers::{DataType, WordOrder};
 use crate::report;
 use std::fmt::Write as _;
-use std::path::{Path, PathBuf};
+use std::path::Path;
 use std::time::Instant;
-
-/// The exit code of `leaktally check` when the config is valid but a device
-/// or one of its reads failed.
-pub const EXIT_DEVICES_FAILED: u8 = 2;
 
 /// The config is valid, but devices or reads failed; the text says which.
 #[derive(Debug, thiserror::Error)]
@@ -52,9 +48,8 @@ pub struct Checked {
 /// `leaktally check`'s options.
 #[derive(Debug, clap::Args)]
 pub struct CheckArgs {
-    /// The site config (TOML).
-    #[arg(value_parser = crate::commands::args::path_arg, long, short)]
-    pub config: PathBuf,
+    #[command(flatten)]
+    pub config: super::args::ConfigArg,
     /// Only validate and describe: do not read the devices.
     #[arg(long)]
     pub offline: bool,
@@ -64,10 +59,11 @@ pub struct CheckArgs {
 /// account; a valid config whose devices did not all answer is a
 /// [`DevicesFailed`] error, for the binary's exit code.
 pub fn command(args: CheckArgs) -> anyhow::Result<()> {
-    let checked = super::args::runtime()?.block_on(run(&args.config, args.offline))?;
+    let path = args.config.required_path()?;
+    let checked = super::args::runtime()?.block_on(run(&path, args.offline))?;
     print!("{}", checked.text);
     match checked.failed {
-        // The binary exits with EXIT_DEVICES_FAILED for this.
+        // The binary exits with exit::DEVICES_FAILED for this.
         Some(failed) => Err(failed.into()),
         None => Ok(()),
     }

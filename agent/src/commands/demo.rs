@@ -13,7 +13,7 @@ use crate::actions::{self, Request};
 use crate::commands::{status::read as read_status, whatif};
 use crate::estimate::{Estimate, LeakParams};
 use crate::model::{DischargeCoefficient, Length, Mass, MassRate, TimeSpan};
-use crate::report;
+use crate::report::{self, Presentation};
 use crate::status::{self, StatusDocument};
 use crate::store;
 use anyhow::{Context, bail};
@@ -85,6 +85,7 @@ pub fn run(seconds: u64) -> anyhow::Result<()> {
         SITE.replace("127.0.0.1:15020", &address),
     )?;
     let config = crate::config::load(&dir.join("site.toml"))?;
+    let people = Presentation::of(&config);
     init_logging(&dir.join("agent.log"))?;
 
     let runtime = tokio::runtime::Builder::new_multi_thread()
@@ -105,7 +106,7 @@ pub fn run(seconds: u64) -> anyhow::Result<()> {
                 async move { crate::daemon::run(config, &db, stop.cancelled_owned()).await },
             )
         };
-        let result = narrate(&dir, &db, sim_started_ms, seconds, &stop).await;
+        let result = narrate(&dir, &db, sim_started_ms, seconds, &stop, &people).await;
         stop.cancel();
         let stopped = daemon.await;
         result.and(stopped.map_err(anyhow::Error::from).and_then(|r| r))
@@ -194,7 +195,13 @@ async fn narrate(
     sim_started_ms: i64,
     seconds: u64,
     stop: &CancellationToken,
+    people: &Presentation,
 ) -> anyhow::Result<()> {
+    // The commands as the reader can type them: this binary, by its path,
+    // with the demo's database.
+    let me =
+        std::env::current_exe().map_or_else(|_| "leaktally".into(), |p| p.display().to_string());
+    let on_db = format!("--db {}", db.display());
     until_sim_time(sim_started_ms, FLAGGED_AT_S, stop).await?;
     // The simulator's clock, from its truth file, so that the back-dated
     // start is the moment the scenario opens the hole even on a busy machine.
@@ -205,7 +212,7 @@ async fn narrate(
         "\nAt {FLAGGED_AT_S:.0} s the operator sees the level falling and flags the leak, back-dated to when it began:"
     );
     println!(
-        "  $ leaktally leak open --tank FF-T12 --hole-height 0.3 --cd 0.61 --since {since_text}"
+        "  $ {me} leak open {on_db} --tank FF-T12 --hole-height-m 0.3 --cd 0.61 --since {since_text}"
     );
     let request = Request::Open {
         tank: "FF-T12".into(),
@@ -217,13 +224,12 @@ async fn narrate(
         note: Some("demo: level falling, hole not yet seen".into()),
     };
     let db_owned = db.to_owned();
-    let reply = tokio::task::spawn_blocking(move || actions::send(&db_owned, &request)).await??;
+    let sent_with = people.clone();
+    let reply = tokio::task::spawn_blocking(move || actions::send(&db_owned, &request, &sent_with))
+        .await??;
     println!("  {}", reply.text);
     let event = reply.event.context("the daemon's reply names no event")?;
-    println!(
-        "\nRunning totals (a responder sees the same with `leaktally status --db {}`",
-        db.display()
-    );
+    println!("\nRunning totals (a responder sees the same with `{me} status {on_db}`");
     match web_address(dir) {
         Some(url) => println!("or in a browser at {url}):"),
         None => println!("):"),
@@ -231,8 +237,9 @@ async fn narrate(
     let terminal = std::io::stdout().is_terminal();
     for second in 1..=seconds {
         sleep_or_stop(Duration::from_secs(1), stop).await?;
-        let doc = read_status(db, Some(event))?;
+        let doc = read_status(db, Some(event), people)?;
         let line = progress_line(
+            people,
             second,
             doc.events
                 .first()
@@ -250,8 +257,9 @@ async fn narrate(
     }
 
     println!("\nThe leak is isolated; the operator closes the event:");
-    println!("  $ leaktally leak close {event}");
+    println!("  $ {me} leak close {on_db} {event}");
     let db_owned = db.to_owned();
+    let sent_with = people.clone();
     let reply = tokio::task::spawn_blocking(move || {
         actions::send(
             &db_owned,
@@ -259,11 +267,12 @@ async fn narrate(
                 event,
                 note: Some("demo: isolated".into()),
             },
+            &sent_with,
         )
     })
     .await??;
     println!("  {}\n", reply.text);
-    let doc = read_status(db, Some(event))?;
+    let doc = read_status(db, Some(event), people)?;
     print!("{}", status::text(&doc));
     compare_with_truth(dir, &doc);
     print_what_if(dir, &doc)?;
@@ -294,12 +303,16 @@ fn web_address(dir: &Path) -> Option<String> {
 /// The live line: the total with its band, the rate, the method, the
 /// fitted hole as an effective area first (a fitted hole is an area, not a
 /// measured diameter), and when the flow stops.
-fn progress_line(second: u64, latest: Option<(&Estimate, &LeakParams)>) -> String {
+fn progress_line(
+    people: &Presentation,
+    second: u64,
+    latest: Option<(&Estimate, &LeakParams)>,
+) -> String {
     let Some((est, params)) = latest else {
         return format!("+{second:>3} s  waiting for the first sample");
     };
-    let kg = |x: f64| report::mass(Mass::kilograms(x));
-    let hole = report::estimate::fit_brief(est, params, &report::Presentation::default());
+    let kg = |x: f64| people.mass(Mass::kilograms(x));
+    let hole = report::estimate::fit_brief(est, params, people);
     let stops = est.forecast.map_or(String::new(), |f| {
         format!(
             " | stops in {}",
@@ -311,7 +324,7 @@ fn progress_line(second: u64, latest: Option<(&Estimate, &LeakParams)>) -> Strin
         kg(est.released_best_kg),
         kg(est.released_low_kg),
         kg(est.released_high_kg),
-        report::rate(MassRate::kg_per_second(est.rate_best_kg_s)),
+        people.rate(MassRate::kg_per_second(est.rate_best_kg_s)),
         report::estimate::method_name(est.method)
     )
 }
@@ -343,7 +356,7 @@ fn compare_with_truth(dir: &Path, doc: &StatusDocument) {
     if let Some((_, truth)) = best.filter(|(_, t)| *t > 0.0) {
         println!(
             "The simulator's ground truth at the last sample: {} released; the estimate is {:+.1} % from it.",
-            report::mass(Mass::kilograms(truth)),
+            doc.presentation.mass(Mass::kilograms(truth)),
             100.0 * (est.released_best_kg - truth) / truth
         );
     }
@@ -400,7 +413,7 @@ mod tests {
             cd: 0.6,
             ..LeakParams::default()
         };
-        let line = progress_line(30, Some((&est, &params)));
+        let line = progress_line(&Presentation::default(), 30, Some((&est, &params)));
         assert!(!line.contains("fitted hole 40.0 mm"), "{line}");
         let area_at = line.find("Cd·A 754 mm²").expect(&line);
         let diameters = line
@@ -414,7 +427,7 @@ mod tests {
             },
             ..Estimate::blank()
         };
-        let line = progress_line(5, Some((&waiting, &params)));
+        let line = progress_line(&Presentation::default(), 5, Some((&waiting, &params)));
         assert!(line.contains("not enough level drop yet"), "{line}");
     }
 }

@@ -2,11 +2,16 @@
 //! types) and the work. `cli` only composes them into the top-level parser
 //! and dispatches; nothing here imports it.
 //!
-//! * [`args`]: the arguments more than one command takes.
+//! * [`args`]: the arguments more than one command takes, and where a
+//!   command finds the site's config and database.
+//! * [`exit`]: the exit codes.
 
 pub mod args;
 pub mod check;
 pub mod demo;
+pub mod docs;
+pub mod events;
+pub mod exit;
 pub mod leak;
 pub mod poll;
 pub mod replay;

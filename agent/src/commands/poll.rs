@@ -9,7 +9,7 @@ use crate::acquire;
 use crate::acquire::sample::Quality;
 use std::collections::BTreeMap;
 use std::io::Write as _;
-use std::path::{Path, PathBuf};
+use std::path::Path;
 use std::sync::Arc;
 use std::time::Duration;
 use tokio_util::sync::CancellationToken;
@@ -18,9 +18,8 @@ use tokio_util::task::TaskTracker;
 /// `leaktally poll`'s options.
 #[derive(Debug, clap::Args)]
 pub struct PollArgs {
-    /// The site config (TOML).
-    #[arg(value_parser = crate::commands::args::path_arg, long, short)]
-    pub config: PathBuf,
+    #[command(flatten)]
+    pub config: super::args::ConfigArg,
     /// Stop after this many seconds (default: until Ctrl-C).
     #[arg(long)]
     pub seconds: Option<f64>,
@@ -30,7 +29,7 @@ pub struct PollArgs {
 /// or the process is told to stop.
 pub fn command(args: PollArgs) -> anyhow::Result<()> {
     super::args::runtime()?.block_on(run(
-        &args.config,
+        &args.config.required_path()?,
         args.seconds,
         crate::shutdown::signalled(),
     ))

@@ -21,7 +21,7 @@
 //! file beside it and renamed into place when the replay has succeeded, so
 //! an interrupted replay never leaves half a file under the final name.
 
-use super::args::{DEFAULT_DB, ParamChangeArgs};
+use super::args::{ParamChangeArgs, SiteArgs};
 use crate::acquire::sample::TankSample;
 use crate::actions::parse_since;
 use crate::config::{Config, Tank};
@@ -47,17 +47,14 @@ pub struct ReplayArgs {
     #[arg(required_unless_present = "readings")]
     pub event: Option<i64>,
     /// A CSV of timestamped readings instead of a logged event (see the
-    /// README for the columns); needs --tank and --config.
-    #[arg(value_parser = crate::commands::args::path_arg, long, requires_all = ["tank", "config"], conflicts_with = "event")]
+    /// README for the columns); needs --tank and the site config.
+    #[arg(value_parser = crate::commands::args::path_arg, long, requires = "tank", conflicts_with = "event")]
     pub readings: Option<PathBuf>,
     #[command(flatten)]
     pub layout: Box<ReadingsArgs>,
     /// The tank the readings are from.
     #[arg(long)]
     pub tank: Option<String>,
-    /// The site config (default for an event: the one its daemon ran with).
-    #[arg(value_parser = crate::commands::args::path_arg, long, short)]
-    pub config: Option<PathBuf>,
     #[command(flatten)]
     pub changes: ParamChangeArgs,
     /// Start the replay here instead of at the event's start (a time, a
@@ -79,9 +76,10 @@ pub struct ReplayArgs {
     /// Replace the --csv and --plot files if they exist.
     #[arg(long)]
     pub force: bool,
-    /// The SQLite database the daemon writes.
-    #[arg(value_parser = crate::commands::args::path_arg, long, default_value = DEFAULT_DB)]
-    pub db: PathBuf,
+    /// The site config (for an event, default: the site's, else the one
+    /// its daemon ran with) and the database.
+    #[command(flatten)]
+    pub site: SiteArgs,
 }
 
 /// How to read a readings file (`replay --readings`), beyond its header.
@@ -137,7 +135,7 @@ pub fn command(args: ReplayArgs) -> anyhow::Result<()> {
         readings,
         layout,
         tank,
-        config,
+
         changes,
         from,
         to,
@@ -145,10 +143,12 @@ pub fn command(args: ReplayArgs) -> anyhow::Result<()> {
         plot,
         json,
         force,
-        db,
+        site,
     } = args;
     let now = store::now_ms();
-    let when = |t: Option<String>| t.map(|t| parse_since(&t, now)).transpose();
+    let zone = site.presentation().zone;
+    let when = |t: Option<String>| t.map(|t| parse_since(&t, now, &zone)).transpose();
+    let config = site.config_path();
     let overrides = Overrides {
         change: changes.change()?,
         from_ms: when(from)?,
@@ -165,11 +165,13 @@ pub fn command(args: ReplayArgs) -> anyhow::Result<()> {
     let mut protect = Vec::new();
     let source = match (event, readings) {
         (_, Some(file)) => {
-            protect.push(db);
+            if let Ok((db, _)) = site.database() {
+                protect.push(db);
+            }
             Source::Readings {
                 file,
                 tank: tank.unwrap_or_default(),
-                config: config.unwrap_or_default(),
+                config: site.config.required_path()?,
                 options: ReadingsOptions {
                     columns: layout.column,
                     columns_file: layout.columns_file,
@@ -181,9 +183,15 @@ pub fn command(args: ReplayArgs) -> anyhow::Result<()> {
                 },
             }
         }
-        (Some(event), None) => Source::Event { db, event, config },
+        (Some(event), None) => Source::Event {
+            db: site.database()?.0,
+            event,
+            config,
+        },
         (None, None) => {
-            anyhow::bail!("give an event id, or --readings FILE with --tank and --config")
+            anyhow::bail!(
+                "give an event id (`leaktally events` lists them), or --readings FILE with --tank"
+            )
         }
     };
     let outputs = Outputs {

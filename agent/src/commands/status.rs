@@ -5,31 +5,37 @@
 //! model (`crate::status`) build the document, and prints it as the table
 //! (`crate::report::table`) or as JSON.
 
-use super::args::DEFAULT_DB;
+use super::args::SiteArgs;
+use super::exit::{self, Coded};
+use crate::report::Presentation;
 use crate::status::{self, StatusDocument, StatusError};
 use crate::store;
-use std::path::{Path, PathBuf};
+use std::path::Path;
 
 /// `leaktally status`'s options.
 #[derive(Debug, clap::Args)]
 pub struct StatusArgs {
-    /// One event's id; all open events if absent.
+    /// One event's id, open or closed (`leaktally events` lists them); all
+    /// open events if absent.
     pub event: Option<i64>,
     /// Print the JSON document for machines instead of the table.
     #[arg(long)]
     pub json: bool,
-    /// The SQLite database the daemon writes.
-    #[arg(value_parser = crate::commands::args::path_arg, long, default_value = DEFAULT_DB)]
-    pub db: PathBuf,
+    #[command(flatten)]
+    pub site: SiteArgs,
 }
 
-/// The status document of one event, or of every open event, read from
-/// the database at `db`.
-pub fn read(db: &Path, event: Option<i64>) -> anyhow::Result<StatusDocument> {
+/// The status document of one event (open or closed), or of every open
+/// event, read from the database at `db`.
+pub fn read(
+    db: &Path,
+    event: Option<i64>,
+    people: &Presentation,
+) -> anyhow::Result<StatusDocument> {
     let conn = store::open_read_only(db)?;
-    status::document(&conn, event, &crate::report::Presentation::default()).map_err(|e| match e {
+    status::document(&conn, event, people).map_err(|e| match e {
         StatusError::NoEvent(id) => anyhow::anyhow!(
-            "there is no event {id} in {}; `leaktally status` lists the open events",
+            "there is no event {id} in {}; `leaktally events` lists every event, open and closed",
             db.display()
         ),
         StatusError::Store(e) => e.into(),
@@ -37,13 +43,23 @@ pub fn read(db: &Path, event: Option<i64>) -> anyhow::Result<StatusDocument> {
 }
 
 /// Runs `leaktally status` as the command line gave it: prints the
-/// document of one event, or of every open event.
+/// document of one event, or of every open event. Exits with
+/// `exit::NO_DAEMON` when no daemon is running (the figures are not being
+/// updated), after printing them.
 pub fn command(args: StatusArgs) -> anyhow::Result<()> {
-    let doc = read(&args.db, args.event)?;
+    let (db, people) = args.site.database()?;
+    let doc = read(&db, args.event, &people)?;
     if args.json {
         println!("{}", serde_json::to_string_pretty(&doc)?);
     } else {
         print!("{}", status::text(&doc));
     }
-    Ok(())
+    if doc.daemon_running {
+        Ok(())
+    } else {
+        Err(Coded::said(
+            exit::NO_DAEMON,
+            "no daemon is running: these figures are not being updated",
+        ))
+    }
 }

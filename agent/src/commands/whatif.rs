@@ -1963,9 +1963,8 @@ pub struct WhatifArgs {
     /// The tank's id (tag) in the config.
     #[arg(long)]
     pub tank: String,
-    /// The site config (TOML).
-    #[arg(value_parser = crate::commands::args::path_arg, long, short, default_value = "leaktally.toml")]
-    pub config: PathBuf,
+    #[command(flatten)]
+    pub config: super::args::ConfigArg,
     /// Hole diameters in mm, comma-separated (default: 6.35,25.4,101.6,
     /// the small, medium and large holes of risk-based inspection).
     #[arg(long, value_name = "MM[,MM...]", conflicts_with = "hole_area")]
@@ -2037,7 +2036,7 @@ pub fn command(args: WhatifArgs) -> anyhow::Result<()> {
         cd,
         json,
     } = args;
-    let config = crate::config::load(&config)?;
+    let config = config.load()?;
     let Some(t) = config.tanks.iter().find(|t| t.id == tank) else {
         let known: Vec<&str> = config.tanks.iter().map(|t| t.id.as_str()).collect();
         bail!(

@@ -145,12 +145,12 @@ pub const HOLE_DIAMETER_RANGE_MM: (f64, f64) = (0.1, 5000.0);
 #[derive(Debug, Clone, PartialEq, thiserror::Error)]
 pub enum ParamError {
     #[error(
-        "--hole-diameter {} mm {why}; the option takes millimetres (25 for a one-inch hole)",
+        "--hole-diameter-mm {} {why}; the option takes millimetres (25 for a one-inch hole)",
         given_figure(*mm)
     )]
     HoleDiameter { mm: f64, why: &'static str },
     #[error(
-        "--hole-height {} must be the height above the tank bottom in metres, 0 or more",
+        "--hole-height-m {} must be the height above the tank bottom in metres, 0 or more",
         given_figure(*m)
     )]
     HoleHeight { m: f64 },
@@ -177,7 +177,7 @@ pub enum ParamError {
         defaulted: bool,
     },
     #[error(
-        "--density {} is outside {} to {} kg/m³; give the liquid's density in kg/m³ (diesel is about 840)",
+        "--density-kg-m3 {} is outside {} to {} kg/m³; give the liquid's density in kg/m³ (diesel is about 840)",
         given_figure(*kg_m3),
         DENSITY_RANGE.0,
         DENSITY_RANGE.1
@@ -316,15 +316,15 @@ mod tests {
     fn a_refusal_says_what_where_and_how_to_fix_in_few_digits() {
         assert_eq!(
             check_hole_diameter_mm(1e-300).unwrap_err().to_string(),
-            "--hole-diameter 1e-300 mm is below 0.1 mm, smaller than any hole a tank leaks through; the option takes millimetres (25 for a one-inch hole)"
+            "--hole-diameter-mm 1e-300 is below 0.1 mm, smaller than any hole a tank leaks through; the option takes millimetres (25 for a one-inch hole)"
         );
         assert_eq!(
             check_hole_diameter_mm(6000.0).unwrap_err().to_string(),
-            "--hole-diameter 6000 mm is over 5 m; the option takes millimetres (25 for a one-inch hole)"
+            "--hole-diameter-mm 6000 is over 5 m; the option takes millimetres (25 for a one-inch hole)"
         );
         assert_eq!(
             check_hole_height_m(-1.0).unwrap_err().to_string(),
-            "--hole-height -1 must be the height above the tank bottom in metres, 0 or more"
+            "--hole-height-m -1 must be the height above the tank bottom in metres, 0 or more"
         );
         assert_eq!(
             check_cd(2.0).unwrap_err().to_string(),
@@ -332,7 +332,7 @@ mod tests {
         );
         assert_eq!(
             check_density_kg_m3(5.0).unwrap_err().to_string(),
-            "--density 5 is outside 50 to 15000 kg/m³; give the liquid's density in kg/m³ (diesel is about 840)"
+            "--density-kg-m3 5 is outside 50 to 15000 kg/m³; give the liquid's density in kg/m³ (diesel is about 840)"
         );
         assert_eq!(given_figure(0.05), "0.05");
         assert_eq!(given_figure(5e-324), "5e-324");

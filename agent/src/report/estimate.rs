@@ -257,7 +257,7 @@ pub fn warning_text(w: Warning, e: &Estimate, p: &LeakParams, people: &Presentat
                 (Some((_, fitted, _)), Some(given)) => {
                     let ratio = given / fitted;
                     format!(
-                        "the level falls as through an effective area Cd·A of {}, not the {} of the given hole at Cd {}: the orifice figure may be {} by a factor of {}; check the hole size (leak revise --hole-diameter, or --unknown-diameter to fit it)",
+                        "the level falls as through an effective area Cd·A of {}, not the {} of the given hole at Cd {}: the orifice figure may be {} by a factor of {}; check the hole size (leak revise --hole-diameter-mm, or --unknown-diameter to fit it)",
                         mm2(fitted),
                         mm2(given),
                         p.cd,
@@ -321,7 +321,7 @@ pub fn warning_text(w: Warning, e: &Estimate, p: &LeakParams, people: &Presentat
             "the event starts before the first logged level: that stretch is counted at the first sample's rate, not measured".into()
         }
         Warning::HoleHeightRefuted => format!(
-            "the level has fallen further than the liquid there was above the given hole height ({} m): the hole is lower than given, or the gauge is wrong; the figures follow the level (check the hole height: leak revise --hole-height)",
+            "the level has fallen further than the liquid there was above the given hole height ({} m): the hole is lower than given, or the gauge is wrong; the figures follow the level (check the hole height: leak revise --hole-height-m)",
             number(p.hole_height_m)
         ),
     }
