@@ -4,6 +4,8 @@
 //!   the Python package `fluids`, scipy quadrature), fixtures in tests/fixtures.
 //! * `properties`: invariants over random inputs (proptest).
 //! * `acquisition`: the simulator and `leaktally poll` as real processes.
+//! * `daily`: a site found through LEAKTALLY_CONFIG alone, the event
+//!   history, closed events, the exit codes, completions and the man page.
 //! * `bands`: whether the band holds the truth, over seeded runs of the
 //!   simulator's plant in simulated time.
 //! * `interop`: the agent and the simulator against pymodbus, an independent
@@ -29,6 +31,7 @@
 
 mod acquisition;
 mod bands;
+mod daily;
 mod faults;
 mod flood;
 mod gaps;
