@@ -32,8 +32,8 @@ fn an_operator_needs_no_paths_and_closed_events_keep_their_final_figures() {
     let site = scratch.write(
         "site.toml",
         &demo_site(&address).replace(
-            "ambient_pressure_kpa = 101.325\n",
-            "ambient_pressure_kpa = 101.325\ndatabase = \"records/site.db\"\ntime_zone = \"Europe/Oslo\"\n",
+            "time_zone = \"local\"\n",
+            "database = \"records/site.db\"\ntime_zone = \"Europe/Oslo\"\n",
         ),
     );
     std::fs::create_dir_all(scratch.path("records")).unwrap();

@@ -131,7 +131,7 @@ mod tests {
     fn control_characters_are_escaped_and_plain_text_is_left_alone() {
         // (input, one line, several lines)
         let cases: &[(&str, &str, &str)] = &[
-            ("foam on the bund", "foam on the bund", "foam on the bund"),
+            ("foam on the dike", "foam on the dike", "foam on the dike"),
             (
                 "Ünïcødé ok, 13:55 m³",
                 "Ünïcødé ok, 13:55 m³",

@@ -43,6 +43,8 @@ pub struct DevicesFailed {
 pub struct Checked {
     pub text: String,
     pub failed: Option<DevicesFailed>,
+    /// How many devices the config has.
+    pub devices: usize,
 }
 
 /// `leaktally check`'s options.
@@ -53,6 +55,27 @@ pub struct CheckArgs {
     /// Only validate and describe: do not read the devices.
     #[arg(long)]
     pub offline: bool,
+    /// Print a JSON summary for machines instead of the account (the
+    /// account's text is in its `text` field).
+    #[arg(long)]
+    pub json: bool,
+}
+
+/// What `check --json` prints. An invalid config prints no document: the
+/// problems go to standard error, with exit code 1, as without --json.
+#[derive(Debug, serde::Serialize)]
+struct CheckDocument<'a> {
+    /// Version of this document's layout (README, "Formats").
+    format: u32,
+    config: String,
+    valid: bool,
+    /// Whether the devices were read (not with --offline).
+    devices_read: bool,
+    /// Devices that failed, of how many, and reads not answered properly.
+    devices_failed: usize,
+    devices: usize,
+    reads_failed: usize,
+    text: &'a str,
 }
 
 /// Runs `leaktally check` as the command line gave it and prints the
@@ -61,7 +84,21 @@ pub struct CheckArgs {
 pub fn command(args: CheckArgs) -> anyhow::Result<()> {
     let path = args.config.required_path()?;
     let checked = super::args::runtime()?.block_on(run(&path, args.offline))?;
-    print!("{}", checked.text);
+    if args.json {
+        let doc = CheckDocument {
+            format: 1,
+            config: path.display().to_string(),
+            valid: true,
+            devices_read: !args.offline,
+            devices_failed: checked.failed.as_ref().map_or(0, |f| f.devices),
+            devices: checked.devices,
+            reads_failed: checked.failed.as_ref().map_or(0, |f| f.blocks),
+            text: &checked.text,
+        };
+        println!("{}", serde_json::to_string_pretty(&doc)?);
+    } else {
+        print!("{}", checked.text);
+    }
     match checked.failed {
         // The binary exits with exit::DEVICES_FAILED for this.
         Some(failed) => Err(failed.into()),
@@ -78,6 +115,7 @@ pub async fn run(path: &Path, offline: bool) -> anyhow::Result<Checked> {
         return Ok(Checked {
             text: out,
             failed: None,
+            devices: config.devices.len(),
         });
     }
     let (mut failed_devices, mut failed_blocks) = (0, 0);
@@ -98,7 +136,11 @@ pub async fn run(path: &Path, offline: bool) -> anyhow::Result<Checked> {
         of: config.devices.len(),
         blocks: failed_blocks,
     });
-    Ok(Checked { text: out, failed })
+    Ok(Checked {
+        text: out,
+        failed,
+        devices: config.devices.len(),
+    })
 }
 
 /// Reads each block of one device once and writes what came back; returns
@@ -296,6 +338,19 @@ pub fn describe(config: &Config) -> String {
         config.devices.len(),
         config.tanks.len(),
         config.ambient.si() / 1000.0
+    );
+    let people = crate::report::Presentation::of(config);
+    let _ = writeln!(
+        out,
+        "Times shown in {}; figures in {} units; database {}.",
+        people.zone_text(crate::store::now_ms()),
+        config.units.name(),
+        config
+            .database
+            .as_ref()
+            .map_or("not named (give --db, or set LEAKTALLY_DB)".into(), |db| {
+                one_line(&db.display().to_string()).into_owned()
+            })
     );
     for (d, device) in config.devices.iter().enumerate() {
         let _ = writeln!(

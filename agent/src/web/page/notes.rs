@@ -89,7 +89,7 @@ mod tests {
             action(
                 "open",
                 "done",
-                serde_json::json!({"note": "seen by the bund"}),
+                serde_json::json!({"note": "seen by the dike wall"}),
             ),
             action(
                 "note",
@@ -104,7 +104,7 @@ mod tests {
             action("close", "done", serde_json::json!({"note": null})),
         ]);
         let texts: Vec<&str> = notes.iter().map(|n| n.text.as_str()).collect();
-        assert_eq!(texts, ["seen by the bund", "foam on its way"]);
+        assert_eq!(texts, ["seen by the dike wall", "foam on its way"]);
         assert_eq!(notes[0].who, "op@cr1");
     }
 }
