@@ -379,7 +379,11 @@ pub fn describe(config: &Config) -> String {
                 v.density()
             );
             if !tank.reportable.is_empty() {
-                let list: Vec<String> = tank.reportable.iter().map(|m| report::mass(*m)).collect();
+                let list: Vec<String> = tank
+                    .reportable
+                    .iter()
+                    .map(|m| report::Presentation::of(config).mass(*m))
+                    .collect();
                 let _ = writeln!(out, "    reportable quantities: {}", list.join(", "));
             }
             let _ = writeln!(out, "    {}", sensor_line("level", &tank.level));

@@ -8,6 +8,7 @@ use crate::clock::Clock;
 use crate::config::Config;
 use crate::estimate::LeakParams;
 use crate::estimator::Estimator;
+use crate::report::Presentation;
 use crate::report::estimate::describe_params;
 use crate::store::{ActionRow, StoreError, StoreResult, Tx};
 use std::collections::HashMap;
@@ -161,7 +162,7 @@ fn apply(
                     "the leak cannot start in the future; check --since".into(),
                 );
             }
-            if let Err(why) = check_history(tx, &tank, start, now)? {
+            if let Err(why) = check_history(tx, &tank, start, now, &Presentation::of(&cx.config))? {
                 return refuse(None, why);
             }
             let params = LeakParams {
@@ -185,7 +186,7 @@ fn apply(
             let id = event.row.id;
             let text = format!(
                 "opened event {id} on {tank} from {}{}; {}{}{}",
-                crate::report::utc(start),
+                Presentation::of(&cx.config).time(start),
                 if since_ms.is_some() {
                     " (back-dated)"
                 } else {
@@ -280,7 +281,7 @@ fn apply(
                 event: Some(event),
                 text: format!(
                     "closed event {event} at {}{}",
-                    crate::report::utc(at),
+                    Presentation::of(&cx.config).time(at),
                     lateness(requested, now)
                 ),
                 change: Some(Change::Closed(event)),
@@ -292,7 +293,13 @@ fn apply(
 /// Refuses a start that the logged history does not cover: a good level
 /// must be logged within `HISTORY_SLACK_MS` of it (before or after), or the
 /// total would rest on a guess of what flowed outside the record.
-fn check_history(tx: &Tx<'_>, tank: &str, start: i64, now: i64) -> StoreResult<Result<(), String>> {
+fn check_history(
+    tx: &Tx<'_>,
+    tank: &str,
+    start: i64,
+    now: i64,
+    people: &Presentation,
+) -> StoreResult<Result<(), String>> {
     if now - start <= HISTORY_SLACK_MS || tx.good_level_near(tank, start, HISTORY_SLACK_MS)? {
         return Ok(Ok(()));
     }
@@ -300,15 +307,15 @@ fn check_history(tx: &Tx<'_>, tank: &str, start: i64, now: i64) -> StoreResult<R
     Ok(Err(match earliest {
         Some(at) if at > start => format!(
             "the logged history of {tank} begins at {}, after the start asked for ({}); open it --since {} or later",
-            crate::report::utc(at),
-            crate::report::utc(start),
+            people.time(at),
+            people.time(start),
             jiff::Timestamp::from_millisecond(at)
                 .map(|t| t.to_string())
                 .unwrap_or_default()
         ),
         _ => format!(
             "there is no good level of {tank} logged within a minute of {}; choose a start the history covers",
-            crate::report::utc(start)
+            people.time(start)
         ),
     }))
 }
