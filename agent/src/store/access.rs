@@ -215,13 +215,15 @@ fn message(db: &Path, blocked: &Path, want: Want) -> String {
         // Even the group may not: a mode from an older install or a
         // stricter umask.
         let chmod = if meta.is_dir() {
-            format!("chmod 2770 {}", blocked.display())
+            format!("`chmod 2770 {}`", blocked.display())
         } else {
-            format!("chmod 0660 {}", blocked.display())
-                + &format!(" (and the same for {0}-wal and {0}-shm)", db.display())
+            format!(
+                "`chmod 0660 {}`, and the same for its -wal and -shm files",
+                blocked.display()
+            )
         };
         format!(
-            "its group may not either; the shipped unit makes the folder 2770 and the files 0660 (UMask=0007); as root: `{chmod}`; README, \"Running it on a site\", has the set-up"
+            "its group may not either; the shipped unit makes the folder 2770 and the files 0660 (UMask=0007); as root: {chmod}; README, \"Running it on a site\", has the set-up"
         )
     } else if ids::session_has_group(meta.gid()) {
         "ask the administrator to check its access control list".to_owned()
