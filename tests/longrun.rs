@@ -7,7 +7,7 @@
 //! sim/src/physics.rs).
 
 use crate::tracking::{Plant, event_id, event_of, rel};
-use crate::util::{LeakOpen, Scratch, Server, binary, now_ms, run, wait_for};
+use crate::util::{LeakOpen, Scratch, Server, binary, now_ms, run, skipped, wait_for};
 use std::path::{Path, PathBuf};
 use std::process::Command;
 use std::time::{Duration, Instant};
@@ -50,7 +50,10 @@ fn a_wall_clock_stepped_back_and_forward_mid_event_changes_nothing() {
             std::env::var_os("LEAKTALLY_REQUIRE_FAKETIME").is_none(),
             "the clock-step test needs Debian's faketime (apt-get install faketime)"
         );
-        println!("SKIPPED: the clock-step test needs Debian's faketime (apt-get install faketime)");
+        skipped(
+            "the clock-step test",
+            "it needs Debian's faketime (apt-get install faketime)",
+        );
         return;
     };
     let plant = Plant::start("clock-steps");

@@ -19,6 +19,8 @@
 //!   replies and impossible level steps, flagged and logged once.
 //! * `flood`: thousands of idle and slow sockets on the web port while a
 //!   client, the pollers and a simulator restart carry on.
+//! * `operators`: an operator in the daemon's group acts without root, and
+//!   a user outside it is told how to join (real users; needs root).
 //! * `longrun`: wall-clock steps under the daemon (faketime), a damaged
 //!   database, a request made as the daemon dies.
 //! * `tracking`: the simulator, the daemon and the operator CLI as real
@@ -37,6 +39,7 @@ mod flood;
 mod gaps;
 mod interop;
 mod longrun;
+mod operators;
 mod properties;
 mod python_env;
 mod references;

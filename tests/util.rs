@@ -72,6 +72,18 @@ impl Drop for WorstError {
     }
 }
 
+/// Says that a test skipped part or all of itself, and why, where the
+/// person running the tests sees it: libtest captures what `println!` and
+/// `eprintln!` print in a passing test and shows nothing of it, but a write
+/// straight to the process's stderr is not captured, so the line shows in
+/// a plain `cargo test` too. Every skip in tests/ goes through here, so
+/// `grep SKIPPED` finds them all.
+pub fn skipped(test: &str, why: &str) {
+    use std::io::Write;
+    let line = format!("SKIPPED: {test}: {why}\n");
+    let _ = std::io::stderr().lock().write_all(line.as_bytes());
+}
+
 /// The path of one of the workspace's binaries (`leaktally`,
 /// `leaktally-sim`), built on first use.
 ///

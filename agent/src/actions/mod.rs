@@ -79,7 +79,11 @@ pub struct Reply {
 /// was made, by the next daemon or once the daemon can write; the wait says
 /// so as soon as the heartbeat goes stale.
 pub fn send(db: &Path, request: &Request, people: &Presentation) -> anyhow::Result<Reply> {
-    if !db.exists() {
+    // A permission in the way is said as such, not as a missing file.
+    if let Err(e) = store::access::check(db, store::access::Need::ReadWrite) {
+        if !matches!(e, StoreError::Missing(_)) {
+            return Err(e.into());
+        }
         no_daemon!(
             "the database {} does not exist, so no daemon is running on it; start one with `leaktally run --config FILE --db {}`",
             db.display(),

@@ -31,6 +31,7 @@
 //! Readers such as `status` open their own short-lived read-only
 //! connections, which WAL lets run beside the writer.
 
+pub mod access;
 pub mod actions;
 pub mod estimates;
 pub mod events;
@@ -72,6 +73,10 @@ pub enum StoreError {
         "the database {0} does not exist; start the daemon with `leaktally run --config FILE --db {0}` first"
     )]
     Missing(PathBuf),
+    /// A permission stands between this user and the database: which
+    /// path, and the way out (`access`).
+    #[error("{}", .0.message)]
+    Denied(Box<access::Denied>),
     #[error(transparent)]
     Schema(#[from] schema::SchemaError),
     #[error("database error: {0}{hint}", hint = sql_hint(.0))]
@@ -231,9 +236,7 @@ fn damaged_or(e: rusqlite::Error, path: &Path) -> StoreError {
 
 /// Opens an existing database read-only, for reports.
 pub fn open_read_only(path: &Path) -> StoreResult<Connection> {
-    if !path.exists() {
-        return Err(StoreError::Missing(path.to_owned()));
-    }
+    access::check(path, access::Need::Read)?;
     let conn = Connection::open_with_flags(
         path,
         OpenFlags::SQLITE_OPEN_READ_ONLY | OpenFlags::SQLITE_OPEN_NO_MUTEX,
@@ -265,9 +268,7 @@ pub fn open_read_only(path: &Path) -> StoreResult<Connection> {
 /// never migrated or otherwise changed here (that is the daemon's job), and
 /// refused when SQLite cannot read its header and schema.
 pub fn open_for_requests(path: &Path) -> StoreResult<Connection> {
-    if !path.exists() {
-        return Err(StoreError::Missing(path.to_owned()));
-    }
+    access::check(path, access::Need::ReadWrite)?;
     let conn = Connection::open_with_flags(
         path,
         OpenFlags::SQLITE_OPEN_READ_WRITE | OpenFlags::SQLITE_OPEN_NO_MUTEX,
@@ -291,9 +292,13 @@ pub fn open_for_requests(path: &Path) -> StoreResult<Connection> {
     Ok(conn)
 }
 
-/// Creates the database file readable by its owner and group only, before
-/// SQLite creates it with the umask's wider default. SQLite gives the -wal
-/// and -shm files the main file's permissions.
+/// Creates the database file readable and writable by its owner and group
+/// and nobody else (0660, less what the umask takes), before SQLite
+/// creates it with the umask's wider default. Operators act through the
+/// daemon's group: `leak` writes its request into the file. SQLite gives
+/// the -wal and -shm files the main file's permissions, and in a setgid
+/// folder (the shipped unit's, 2770) every file takes the folder's group,
+/// whoever creates it.
 fn create_private(path: &Path) {
     #[cfg(unix)]
     {
@@ -301,7 +306,7 @@ fn create_private(path: &Path) {
         let _ = std::fs::OpenOptions::new()
             .write(true)
             .create_new(true)
-            .mode(0o640)
+            .mode(0o660)
             .open(path);
     }
 }
