@@ -262,18 +262,21 @@ fn an_operator_in_the_group_acts_and_an_outsider_is_told_how_to_join() {
     let db_arg = db.to_string_lossy().into_owned();
     let open = run(
         "operator-open",
-        as_user(OPERATOR, true, &program).args([
-            "leak",
-            "open",
-            "--tank",
-            "FF-T12",
-            "--since",
-            "5s",
-            "--note",
-            "seen from the control room",
-            "--db",
-            &db_arg,
-        ]),
+        as_user(OPERATOR, true, &program)
+            .args([
+                "leak",
+                "open",
+                "--tank",
+                "FF-T12",
+                "--since",
+                "5s",
+                "--note",
+                "seen from the control room",
+                "--db",
+                &db_arg,
+            ])
+            // USER is the operator's to set; the audit trail names the real uid.
+            .env("USER", "somebody-else"),
         &scratch,
     );
     assert!(
@@ -287,6 +290,7 @@ fn an_operator_in_the_group_acts_and_an_outsider_is_told_how_to_join() {
     let actions = leaktally::store::actions_of(&conn, id).unwrap();
     assert_eq!(actions.len(), 1, "{actions:?}");
     assert_eq!(actions[0].state, "done", "{actions:?}");
+    assert_eq!(actions[0].os_user, OPERATOR, "{actions:?}");
     drop(conn);
 
     let status = run(

@@ -202,10 +202,11 @@ fn damage_said(e: StoreError, db: &Path) -> StoreError {
 
 /// The operating-system user and host, for the audit trail.
 pub fn who() -> (String, String) {
-    let user = std::env::var("USER")
-        .or_else(|_| std::env::var("LOGNAME"))
-        .ok()
-        .or_else(user_from_uid)
+    // The real uid's name first: USER is the operator's to set, and the
+    // audit trail must name who made the request.
+    let user = user_from_uid()
+        .or_else(|| std::env::var("USER").ok())
+        .or_else(|| std::env::var("LOGNAME").ok())
         .unwrap_or_else(|| "unknown".into());
     let host = std::fs::read_to_string("/proc/sys/kernel/hostname")
         .map(|h| h.trim().to_owned())
@@ -214,8 +215,8 @@ pub fn who() -> (String, String) {
     (user, host)
 }
 
-/// The login name of this process's real uid, from /proc and /etc/passwd,
-/// for sessions (services, sudo, cron) that set no USER.
+/// The login name of this process's real uid, from /proc and /etc/passwd
+/// (none for a uid with no entry there).
 fn user_from_uid() -> Option<String> {
     let status = std::fs::read_to_string("/proc/self/status").ok()?;
     let uid = status
