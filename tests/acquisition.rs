@@ -286,7 +286,7 @@ fn check_reads_every_block_and_names_what_a_device_refuses() {
         "check against a wrong unit id and an unmapped register:\n{}",
         bad.stdout
     );
-    assert_eq!(bad.status.code(), Some(2), "{}\n{}", bad.stdout, bad.stderr);
+    assert_eq!(bad.status.code(), Some(3), "{}\n{}", bad.stdout, bad.stderr);
     assert!(
         bad.stderr
             .contains("2 of 2 device(s) failed the check (2 read(s)"),
