@@ -122,9 +122,10 @@ const RIGHT: f64 = 24.0;
 const TOP: f64 = 18.0;
 const BOTTOM: f64 = 64.0;
 
-/// The most time ticks: five clock times, which fit a phone's width at
-/// the labels' phone size.
+/// The most time ticks: five clock times (`14:40`), or three with seconds
+/// (`14:40:15`), which fit the chart's width at the labels' phone size.
 const TIME_TICKS: f64 = 5.0;
+const TIME_TICKS_WITH_SECONDS: f64 = 3.0;
 
 /// The chart of one event's cumulative release: the low–high band, the
 /// best estimate, and the reportable quantities as dashed lines where they
@@ -270,8 +271,9 @@ fn nice_axis(top: f64) -> (f64, f64) {
 }
 
 /// The step between clock ticks for a span, ms, giving at most
-/// [`TIME_TICKS`] of them, and the `strftime` pattern of their labels
-/// (seconds only when the step is under a minute).
+/// [`TIME_TICKS`] of them ([`TIME_TICKS_WITH_SECONDS`] for the longer
+/// labels of a step under a minute), and the `strftime` pattern of their
+/// labels (seconds only when the step is under a minute).
 pub fn clock_step(span_ms: i64) -> (i64, &'static str) {
     const STEPS_S: [i64; 17] = [
         1, 2, 5, 10, 15, 30, 60, 120, 300, 600, 900, 1800, 3600, 7200, 10_800, 21_600, 43_200,
@@ -279,7 +281,14 @@ pub fn clock_step(span_ms: i64) -> (i64, &'static str) {
     let step_s = STEPS_S
         .iter()
         .copied()
-        .find(|&s| span_ms as f64 / (s as f64 * 1000.0) <= TIME_TICKS)
+        .find(|&s| {
+            let most = if s < 60 {
+                TIME_TICKS_WITH_SECONDS
+            } else {
+                TIME_TICKS
+            };
+            span_ms as f64 / (s as f64 * 1000.0) <= most
+        })
         .unwrap_or_else(|| {
             // Whole days beyond.
             let days = (span_ms as f64 / 86_400_000.0 / TIME_TICKS).ceil().max(1.0) as i64;
@@ -384,8 +393,8 @@ mod tests {
         assert!(svg.contains("reportable 50.0 kg"), "near the data: shown");
         assert!(!svg.contains("2,000 kg"), "far above the data: left out");
         assert!(svg.contains("time, UTC"), "{svg}");
-        // 1 s to 60 s after the epoch, ticks every 15 s of the clock.
-        for label in ["00:00:15", "00:00:30", "00:00:45", "00:01:00"] {
+        // 1 s to 60 s after the epoch, ticks every 30 s of the clock.
+        for label in ["00:00:30", "00:01:00"] {
             assert!(svg.contains(&format!(">{label}</text>")), "{label}: {svg}");
         }
         assert!(super::svg(7, 1_000, &points[..1], &[], &people).is_none());
@@ -395,7 +404,8 @@ mod tests {
     fn axes_get_round_steps() {
         assert_eq!(nice_axis(93.0), (25.0, 100.0));
         assert_eq!(nice_axis(1_234.0), (500.0, 1_500.0));
-        assert_eq!(clock_step(20_000), (5_000, "%H:%M:%S"));
+        assert_eq!(clock_step(20_000), (10_000, "%H:%M:%S"));
+        assert_eq!(clock_step(59_000), (30_000, "%H:%M:%S"));
         assert_eq!(clock_step(600_000), (120_000, "%H:%M"));
         assert_eq!(clock_step(10 * 3_600_000), (7_200_000, "%H:%M"));
         // Ticks fall on round clock times of the site's zone: in Kolkata
