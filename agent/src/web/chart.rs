@@ -13,6 +13,7 @@
 
 use crate::config::Units;
 use crate::model::Mass;
+use crate::plot::clock_ticks;
 use crate::report::{self, Presentation, presentation::POUNDS_PER_KG};
 use crate::store::EventRow;
 use crate::web::html::{Html, markup};
@@ -270,59 +271,11 @@ fn nice_axis(top: f64) -> (f64, f64) {
     (step, (top / step).ceil() * step)
 }
 
-/// The step between clock ticks for a span, ms, giving at most
-/// [`TIME_TICKS`] of them ([`TIME_TICKS_WITH_SECONDS`] for the longer
-/// labels of a step under a minute), and the `strftime` pattern of their
-/// labels (seconds only when the step is under a minute).
-pub fn clock_step(span_ms: i64) -> (i64, &'static str) {
-    const STEPS_S: [i64; 17] = [
-        1, 2, 5, 10, 15, 30, 60, 120, 300, 600, 900, 1800, 3600, 7200, 10_800, 21_600, 43_200,
-    ];
-    let step_s = STEPS_S
-        .iter()
-        .copied()
-        .find(|&s| {
-            let most = if s < 60 {
-                TIME_TICKS_WITH_SECONDS
-            } else {
-                TIME_TICKS
-            };
-            span_ms as f64 / (s as f64 * 1000.0) <= most
-        })
-        .unwrap_or_else(|| {
-            // Whole days beyond.
-            let days = (span_ms as f64 / 86_400_000.0 / TIME_TICKS).ceil().max(1.0) as i64;
-            days * 86_400
-        });
-    let pattern = if step_s < 60 {
-        "%H:%M:%S"
-    } else if step_s < 86_400 {
-        "%H:%M"
-    } else {
-        "%b %d %H:%M"
-    };
-    (step_s * 1000, pattern)
-}
-
-/// The round clock times (multiples of `step_ms` in the site's local time,
-/// at the offset it has at `start_ms`) from `start_ms` to `end_ms`.
-pub fn clock_ticks(start_ms: i64, end_ms: i64, step_ms: i64, people: &Presentation) -> Vec<i64> {
-    let offset_ms = jiff::Timestamp::from_millisecond(start_ms)
-        .map_or(0, |t| i64::from(people.zone.to_offset(t).seconds()) * 1000);
-    let local_start = start_ms + offset_ms;
-    let first = local_start.div_euclid(step_ms) * step_ms
-        + if local_start.rem_euclid(step_ms) == 0 {
-            0
-        } else {
-            step_ms
-        };
-    let mut ticks = Vec::new();
-    let mut at = first - offset_ms;
-    while at <= end_ms {
-        ticks.push(at);
-        at += step_ms;
-    }
-    ticks
+/// The step between clock ticks for a span, ms, and their labels' pattern
+/// (`crate::plot::clock_step`, the replay chart's, with this chart's
+/// limits).
+fn clock_step(span_ms: i64) -> (i64, &'static str) {
+    crate::plot::clock_step(span_ms, TIME_TICKS, TIME_TICKS_WITH_SECONDS)
 }
 
 /// A round quantity as people write it: 50, 2.5, 12,000 (`report::number`
