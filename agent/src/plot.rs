@@ -554,7 +554,6 @@ struct Threshold {
 
 /// Draws a panel: axes, the shaded low–high band, the best line, the
 /// horizontal `lines`, and beside the data area the legend.
-#[allow(clippy::too_many_arguments)] // one panel's parts; a struct would only rename them
 fn panel<DB: DrawingBackend>(
     area: &DrawingArea<DB, plotters::coord::Shift>,
     spec: &Panel,
