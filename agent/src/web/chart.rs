@@ -226,11 +226,15 @@ pub fn svg(
         markup!(&mut s, "{x:.1},{y:.1} ", x = x(p.at_ms), y = y(p.low_kg));
     }
     markup!(&mut s, r#""/>"#);
-    for q in &shown {
+    // Each quantity its own colour and dash (classes q0 to q2, cycling), so
+    // that two lines close together still read apart; each is labelled.
+    for (i, q) in shown.iter().enumerate() {
         let yy = y(*q);
+        let style = i % 3;
         markup!(
             &mut s,
-            r#"<line class="threshold" x1="{x1}" x2="{x2}" y1="{yy:.1}" y2="{yy:.1}"/><text class="threshold-label" x="{tx}" y="{ty:.1}" text-anchor="start">reportable {q}</text>"#,
+            r#"<line class="threshold q{style}" x1="{x1}" x2="{x2}" y1="{yy:.1}" y2="{yy:.1}"/><text class="threshold-label q{style}" x="{tx}" y="{ty:.1}" text-anchor="start">reportable {q}</text>"#,
+            style = style,
             x1 = LEFT,
             x2 = WIDTH - RIGHT,
             yy = yy,
@@ -346,6 +350,20 @@ mod tests {
         assert!(svg.contains("reportable 50.0 kg"), "near the data: shown");
         assert!(!svg.contains("2,000 kg"), "far above the data: left out");
         assert!(svg.contains("time, UTC"), "{svg}");
+        // Two quantities near the data: two styles.
+        let two = super::svg(7, 1_000, &points, &[30.0, 60.0], &people)
+            .unwrap()
+            .into_string();
+        assert!(two.contains(r#"class="threshold q0""#) && two.contains(r#"class="threshold q1""#));
+        // Masses in the site's units.
+        let us = Presentation {
+            units: Units::UsCustomary,
+            ..Presentation::default()
+        };
+        let pounds = super::svg(7, 1_000, &points, &[50.0], &us)
+            .unwrap()
+            .into_string();
+        assert!(pounds.contains("reportable 110 lb") && pounds.contains("lb released"));
         // 1 s to 60 s after the epoch, ticks every 30 s of the clock.
         for label in ["00:00:30", "00:01:00"] {
             assert!(svg.contains(&format!(">{label}</text>")), "{label}: {svg}");
