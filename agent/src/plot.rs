@@ -13,10 +13,13 @@
 //! lowest low and highest high, so the shaded band still covers every
 //! estimate; the best line passes through the last estimate of each point.
 
+use crate::config::Units;
 use crate::estimate::{Estimate, Figures, LeakParams, Warning};
-use crate::report;
+use crate::model::{Mass, MassRate};
+use crate::report::{self, Presentation, presentation::POUNDS_PER_KG};
 use anyhow::Context;
 use plotters::prelude::*;
+use plotters::style::text_anchor::{HPos, Pos, VPos};
 
 /// What the chart is about, for its title.
 pub struct ChartLabels<'a> {
@@ -36,11 +39,32 @@ const WIDTH: u32 = 1000;
 const NOTE_CHARS: usize = 160;
 /// The height of a line of notes under the chart, px.
 const NOTE_LINE: i32 = 16;
+/// The width of the legend beside each panel, right of its data area, px:
+/// outside the data, so that it never covers the latest estimates (which
+/// end at the right edge).
+const LEGEND_WIDTH: u32 = 260;
+/// The most time ticks on a panel's axis, and the most when their labels
+/// carry seconds.
+const TIME_TICKS: f64 = 8.0;
+const TIME_TICKS_WITH_SECONDS: f64 = 6.0;
 
 const BAND: RGBColor = RGBColor(0xf2, 0xb8, 0x6b);
 const BEST: RGBColor = RGBColor(0x1d, 0x3c, 0x6e);
-const THRESHOLD: RGBColor = RGBColor(0xa8, 0x1c, 0x1c);
 const WARNING: RGBColor = RGBColor(0x9a, 0x4a, 0x00);
+const GRID: RGBColor = RGBColor(0xe4, 0xe4, 0xe4);
+/// The legend's frame (a colour of its own, so tests can find it).
+const LEGEND_FRAME: RGBColor = RGBColor(0x5a, 0x5a, 0x5a);
+
+/// The reportable quantities' lines: each its own colour and its own dash
+/// pattern (SVG `stroke-dasharray`), so that two lines read apart in
+/// print, in grey and for a reader who does not tell the colours apart.
+/// The best estimate is the one solid line. Cycles beyond four quantities.
+const THRESHOLD_STYLES: [(RGBColor, &str); 4] = [
+    (RGBColor(0xa8, 0x1c, 0x1c), "10 5"),
+    (RGBColor(0x6a, 0x1b, 0x9a), "3 4"),
+    (RGBColor(0x1b, 0x6e, 0x3a), "14 4 3 4"),
+    (RGBColor(0x8a, 0x5a, 0x00), "6 3"),
+];
 
 /// One point of the chart: one estimate, or several neighbouring ones
 /// thinned into one.
@@ -171,11 +195,14 @@ impl ChartSeries {
     }
 }
 
-/// The chart as SVG text.
+/// The chart as SVG text: masses and rates in the site's units, the time
+/// axis in clock time in its zone (with the time since the start under
+/// each tick), each panel's legend beside its data area.
 pub fn render_svg(
     series: &ChartSeries,
     reportable_kg: &[f64],
     labels: &ChartLabels,
+    people: &Presentation,
 ) -> anyhow::Result<String> {
     let estimates = series.points();
     let estimates = estimates.as_slice();
@@ -183,11 +210,19 @@ pub fn render_svg(
         .first()
         .context("nothing to plot: the replay produced no estimate")?;
     let t0 = first.at_ms;
-    let minutes = |e: &ChartPoint| (e.at_ms - t0) as f64 / 60_000.0;
-    let t_end = estimates.last().map_or(1.0, minutes).max(1.0 / 60.0);
+    let seconds = |e: &ChartPoint| (e.at_ms - t0) as f64 / 1000.0;
+    let t_end = estimates.last().map_or(1.0, seconds).max(1.0);
+    // The site's units: masses in kg or lb, rates in kg/s or lb/s.
+    let per_kg = match people.units {
+        Units::Metric => 1.0,
+        Units::UsCustomary => POUNDS_PER_KG,
+    };
+    let unit_of = |text: String| text.split_once(' ').map(|(_, u)| u.to_owned());
+    let mass_unit = unit_of(people.mass(Mass::kilograms(1.0))).unwrap_or_default();
+    let rate_unit = unit_of(people.rate(MassRate::kg_per_second(1.0))).unwrap_or_default();
     let max_rate = estimates
         .iter()
-        .map(|e| e.rate_high_kg_s)
+        .map(|e| e.rate_high_kg_s * per_kg)
         .fold(0.0, f64::max)
         .max(1e-6)
         * 1.1;
@@ -202,6 +237,7 @@ pub fn render_svg(
         )
         .fold(0.0, f64::max)
         .max(1e-3)
+        * per_kg
         * 1.1;
     let title = match labels.event {
         Some(id) => format!(
@@ -216,8 +252,7 @@ pub fn render_svg(
 
     // Under the chart, outside the data area: the final estimate's
     // warnings in words, then the caution.
-    let warnings =
-        report::estimate::warnings_text(labels.last, labels.leak, &report::Presentation::default());
+    let warnings = report::estimate::warnings_text(labels.last, labels.leak, people);
     // (text, a warning's colour, its indent in px)
     let mut notes: Vec<(String, bool, i32)> = Vec::new();
     if warnings.is_empty() {
@@ -241,7 +276,30 @@ pub fn render_svg(
     let bridged = bridged_headline(labels.last);
     let header = if bridged.is_some() { 80 } else { 60 };
     let footer = 14 + NOTE_LINE * notes.len() as i32;
-    let height = header as u32 + 660 + footer as u32;
+    let height = header as u32 + 700 + footer as u32;
+    let end_ms = estimates.last().map_or(t0, |e| e.at_ms).max(t0 + 1000);
+    let (step_ms, pattern) = clock_step(end_ms - t0, TIME_TICKS, TIME_TICKS_WITH_SECONDS);
+    let axis = TimeAxis {
+        ticks: clock_ticks(t0, end_ms, step_ms, people)
+            .into_iter()
+            .map(|at| {
+                let after_s = (at - t0) as f64 / 1000.0;
+                // Minutes; as minutes and seconds (`+1:05`) when the
+                // ticks are under a minute apart.
+                let since = if step_ms < 60_000 {
+                    let whole = after_s.round() as i64;
+                    format!("+{}:{:02}", whole / 60, whole % 60)
+                } else {
+                    format!("+{}", tick(after_s / 60.0))
+                };
+                (after_s, people.strftime(at, pattern), since)
+            })
+            .collect(),
+        description: format!(
+            "clock time ({}); under it, time since the event start (min)",
+            people.zone_text(t0)
+        ),
+    };
 
     let mut svg = String::new();
     {
@@ -274,57 +332,62 @@ pub fn render_svg(
         top.draw(&Text::new(
             format!(
                 "from {}; band: shaded{thinned}; warnings and caution below",
-                report::utc(t0)
+                people.time(t0)
             ),
             (20, 40),
             ("sans-serif", 14).into_font().color(&RGBColor(90, 90, 90)),
         ))
         .map_err(plot_error)?;
-        let (charts, footer) = rest.split_vertically(660);
-        let (upper, lower) = charts.split_vertically(310);
+        let (charts, footer) = rest.split_vertically(700);
+        let (upper, lower) = charts.split_vertically(350);
 
-        let minutes: &dyn Fn(&ChartPoint) -> f64 = &minutes;
+        let seconds: &dyn Fn(&ChartPoint) -> f64 = &seconds;
+        let rate_desc = format!("rate ({rate_unit})");
+        let rate_best = format!("best estimate ({rate_unit})");
         panel(
             &upper,
             &Panel {
                 caption: "Release rate",
-                y_desc: "rate (kg/s)",
+                y_desc: &rate_desc,
                 y_max: max_rate,
-                band: &|e| (e.rate_low_kg_s, e.rate_high_kg_s),
+                band: &|e| (e.rate_low_kg_s * per_kg, e.rate_high_kg_s * per_kg),
                 band_label: "rate band",
-                best: &|e| e.rate_best_kg_s,
-                best_label: "best estimate (kg/s)",
+                best: &|e| e.rate_best_kg_s * per_kg,
+                best_label: &rate_best,
             },
             estimates,
-            minutes,
+            seconds,
             t_end,
+            &axis,
             &[],
         )?;
-        let lines: Vec<(f64, String)> = reportable_kg
+        let lines: Vec<Threshold> = reportable_kg
             .iter()
-            .filter(|q| **q <= max_total)
-            .map(|&q| {
-                let label = format!(
-                    "reportable quantity {}",
-                    report::mass(crate::model::Mass::kilograms(q))
-                );
-                (q, label)
+            .filter(|q| **q * per_kg <= max_total)
+            .enumerate()
+            .map(|(i, &q)| Threshold {
+                value: q * per_kg,
+                label: format!("reportable quantity {}", people.mass(Mass::kilograms(q))),
+                color: THRESHOLD_STYLES[i % THRESHOLD_STYLES.len()].0,
             })
             .collect();
+        let released_desc = format!("released ({mass_unit})");
+        let released_best = format!("best estimate ({mass_unit})");
         panel(
             &lower,
             &Panel {
                 caption: "Cumulative release",
-                y_desc: "released (kg)",
+                y_desc: &released_desc,
                 y_max: max_total,
-                band: &|e| (e.released_low_kg, e.released_high_kg),
+                band: &|e| (e.released_low_kg * per_kg, e.released_high_kg * per_kg),
                 band_label: "released band",
-                best: &|e| e.released_best_kg,
-                best_label: "best estimate (kg)",
+                best: &|e| e.released_best_kg * per_kg,
+                best_label: &released_best,
             },
             estimates,
-            minutes,
+            seconds,
             t_end,
+            &axis,
             &lines,
         )?;
 
@@ -344,7 +407,85 @@ pub fn render_svg(
         }
         root.present().map_err(plot_error)?;
     }
-    Ok(svg)
+    Ok(dashed(svg))
+}
+
+/// Gives the reportable quantities' lines (and their legend samples) their
+/// dash patterns. plotters' SVG backend writes no `stroke-dasharray`, and
+/// its dashed series cuts a line into hundreds of short ones (and leaves
+/// the legend's sample solid), so each dashed style is drawn in a colour
+/// of its own and its pattern is added here to the lines of that colour.
+fn dashed(svg: String) -> String {
+    THRESHOLD_STYLES.iter().fold(svg, |svg, (color, pattern)| {
+        let stroke = format!(
+            r##"stroke="#{:02X}{:02X}{:02X}""##,
+            color.0, color.1, color.2
+        );
+        svg.replace(
+            &stroke,
+            &format!(r#"{stroke} stroke-dasharray="{pattern}""#),
+        )
+    })
+}
+
+/// A tick value as people write it: three significant figures at most
+/// ([`report::number`]) without trailing zeros: `4,000`, `2.5`, `0.3`.
+fn tick(v: f64) -> String {
+    let text = report::number(v);
+    if text.contains('.') {
+        text.trim_end_matches('0').trim_end_matches('.').to_owned()
+    } else {
+        text
+    }
+}
+
+/// The step between clock ticks for a span, ms, giving at most `most` of
+/// them (`most_with_seconds` for the wider labels of a step under a
+/// minute), and the `strftime` pattern of their labels: seconds only when
+/// the step is under a minute, the date when it is a day or more. Shared
+/// with the web page's chart.
+pub fn clock_step(span_ms: i64, most: f64, most_with_seconds: f64) -> (i64, &'static str) {
+    const STEPS_S: [i64; 17] = [
+        1, 2, 5, 10, 15, 30, 60, 120, 300, 600, 900, 1800, 3600, 7200, 10_800, 21_600, 43_200,
+    ];
+    let step_s = STEPS_S
+        .iter()
+        .copied()
+        .find(|&s| {
+            let most = if s < 60 { most_with_seconds } else { most };
+            span_ms as f64 / (s as f64 * 1000.0) <= most
+        })
+        .unwrap_or_else(|| {
+            // Whole days beyond.
+            let days = (span_ms as f64 / 86_400_000.0 / most).ceil().max(1.0) as i64;
+            days * 86_400
+        });
+    let pattern = if step_s < 60 {
+        "%H:%M:%S"
+    } else if step_s < 86_400 {
+        "%H:%M"
+    } else {
+        "%b %d %H:%M"
+    };
+    (step_s * 1000, pattern)
+}
+
+/// The round clock times (multiples of `step_ms` in the site's local time,
+/// at the offset it has at `start_ms`) from `start_ms` to `end_ms`.
+pub fn clock_ticks(start_ms: i64, end_ms: i64, step_ms: i64, people: &Presentation) -> Vec<i64> {
+    let offset_ms = jiff::Timestamp::from_millisecond(start_ms)
+        .map_or(0, |t| i64::from(people.zone.to_offset(t).seconds()) * 1000);
+    let local_start = start_ms + offset_ms;
+    let mut at = local_start.div_euclid(step_ms) * step_ms - offset_ms;
+    if at < start_ms {
+        at += step_ms;
+    }
+    let mut ticks = Vec::new();
+    while at <= end_ms {
+        ticks.push(at);
+        at += step_ms;
+    }
+    ticks
 }
 
 /// The line above the chart when the final total rests largely on data
@@ -396,71 +537,153 @@ struct Panel<'a> {
     best_label: &'a str,
 }
 
+/// The time axis both panels share: each tick's seconds since the first
+/// estimate, its clock time and its time since the start; and what the
+/// axis says it is.
+struct TimeAxis {
+    ticks: Vec<(f64, String, String)>,
+    description: String,
+}
+
+/// A horizontal line across a panel: a reportable quantity.
+struct Threshold {
+    value: f64,
+    label: String,
+    color: RGBColor,
+}
+
 /// Draws a panel: axes, the shaded low–high band, the best line, the
-/// horizontal `lines` (value, legend) and the legend.
+/// horizontal `lines`, and beside the data area the legend.
 fn panel<DB: DrawingBackend>(
     area: &DrawingArea<DB, plotters::coord::Shift>,
     spec: &Panel,
     estimates: &[ChartPoint],
-    minutes: &dyn Fn(&ChartPoint) -> f64,
+    seconds: &dyn Fn(&ChartPoint) -> f64,
     t_end: f64,
-    lines: &[(f64, String)],
+    axis: &TimeAxis,
+    lines: &[Threshold],
 ) -> anyhow::Result<()> {
-    let mut chart = ChartBuilder::on(area)
+    let (data_area, legend_area) = area.split_horizontally(WIDTH - LEGEND_WIDTH);
+    let mut chart = ChartBuilder::on(&data_area)
         .margin(12)
-        .x_label_area_size(40)
-        .y_label_area_size(70)
+        .x_label_area_size(62)
+        .y_label_area_size(80)
         .caption(spec.caption, ("sans-serif", 18))
         .build_cartesian_2d(0.0..t_end, 0.0..spec.y_max)
         .map_err(plot_error)?;
     chart
         .configure_mesh()
-        .x_desc("time since the event start (min)")
+        .disable_x_mesh()
+        .x_labels(0)
+        .y_labels(6)
+        .y_label_formatter(&|v| tick(*v))
+        .x_desc(axis.description.as_str())
         .y_desc(spec.y_desc)
+        .label_style(("sans-serif", 14))
         .draw()
         .map_err(plot_error)?;
+    // The clock-time ticks, with the time since the start under each.
+    let tick_font = ("sans-serif", 14)
+        .into_font()
+        .color(&BLACK)
+        .pos(Pos::new(HPos::Center, VPos::Top));
+    let since_font = ("sans-serif", 12)
+        .into_font()
+        .color(&RGBColor(90, 90, 90))
+        .pos(Pos::new(HPos::Center, VPos::Top));
+    for (at_s, clock, since) in &axis.ticks {
+        chart
+            .draw_series(std::iter::once(PathElement::new(
+                vec![(*at_s, 0.0), (*at_s, spec.y_max)],
+                GRID.stroke_width(1),
+            )))
+            .map_err(plot_error)?;
+        chart
+            .plotting_area()
+            .draw(
+                &(EmptyElement::at((*at_s, 0.0))
+                    + PathElement::new(vec![(0, 0), (0, 5)], BLACK.stroke_width(1))
+                    + Text::new(clock.clone(), (0, 8), tick_font.clone())
+                    + Text::new(since.clone(), (0, 25), since_font.clone())),
+            )
+            .map_err(plot_error)?;
+    }
     let mut outline: Vec<(f64, f64)> = estimates
         .iter()
-        .map(|e| (minutes(e), (spec.band)(e).1))
+        .map(|e| (seconds(e), (spec.band)(e).1))
         .collect();
     outline.extend(
         estimates
             .iter()
             .rev()
-            .map(|e| (minutes(e), (spec.band)(e).0)),
+            .map(|e| (seconds(e), (spec.band)(e).0)),
     );
     chart
         .draw_series(std::iter::once(Polygon::new(
             outline,
             BAND.mix(0.6).filled(),
         )))
-        .map_err(plot_error)?
-        .label(spec.band_label)
-        .legend(|(x, y)| Rectangle::new([(x, y - 5), (x + 20, y + 5)], BAND.mix(0.6).filled()));
-    chart
-        .draw_series(LineSeries::new(
-            estimates.iter().map(|e| (minutes(e), (spec.best)(e))),
-            BEST.stroke_width(2),
-        ))
-        .map_err(plot_error)?
-        .label(spec.best_label)
-        .legend(|(x, y)| PathElement::new(vec![(x, y), (x + 20, y)], BEST.stroke_width(2)));
-    for (value, label) in lines {
+        .map_err(plot_error)?;
+    for line in lines {
         chart
             .draw_series(LineSeries::new(
-                vec![(0.0, *value), (t_end, *value)],
-                THRESHOLD.stroke_width(1),
+                vec![(0.0, line.value), (t_end, line.value)],
+                line.color.stroke_width(2),
             ))
-            .map_err(plot_error)?
-            .label(label.as_str())
-            .legend(|(x, y)| PathElement::new(vec![(x, y), (x + 20, y)], THRESHOLD));
+            .map_err(plot_error)?;
     }
     chart
-        .configure_series_labels()
-        .background_style(WHITE.mix(0.8))
-        .border_style(BLACK)
-        .draw()
+        .draw_series(LineSeries::new(
+            estimates.iter().map(|e| (seconds(e), (spec.best)(e))),
+            BEST.stroke_width(2),
+        ))
         .map_err(plot_error)?;
+
+    // The legend, right of the data area.
+    let entries = 2 + lines.len() as i32;
+    let (left, right, top, row) = (10, LEGEND_WIDTH as i32 - 10, 44, 24);
+    legend_area
+        .draw(&Rectangle::new(
+            [(left, top), (right, top + 14 + row * entries)],
+            LEGEND_FRAME.stroke_width(1),
+        ))
+        .map_err(plot_error)?;
+    let text = ("sans-serif", 13)
+        .into_font()
+        .color(&BLACK)
+        .pos(Pos::new(HPos::Left, VPos::Center));
+    let sample = |i: i32| (left + 10, top + 19 + row * i);
+    let (x, y) = sample(0);
+    legend_area
+        .draw(&Rectangle::new(
+            [(x, y - 6), (x + 30, y + 6)],
+            BAND.mix(0.6).filled(),
+        ))
+        .map_err(plot_error)?;
+    let mut labels = vec![(spec.band_label.to_owned(), (x, y))];
+    let (x, y) = sample(1);
+    legend_area
+        .draw(&PathElement::new(
+            vec![(x, y), (x + 30, y)],
+            BEST.stroke_width(2),
+        ))
+        .map_err(plot_error)?;
+    labels.push((spec.best_label.to_owned(), (x, y)));
+    for (i, line) in lines.iter().enumerate() {
+        let (x, y) = sample(2 + i as i32);
+        legend_area
+            .draw(&PathElement::new(
+                vec![(x, y), (x + 30, y)],
+                line.color.stroke_width(2),
+            ))
+            .map_err(plot_error)?;
+        labels.push((line.label.clone(), (x, y)));
+    }
+    for (label, (x, y)) in labels {
+        legend_area
+            .draw(&Text::new(label, (x + 38, y), text.clone()))
+            .map_err(plot_error)?;
+    }
     Ok(())
 }
 
@@ -576,9 +799,10 @@ mod tests {
             last: &last,
             leak: &leak,
         };
-        let svg = render_svg(&series, &[250.0], &labels).unwrap();
+        let people = Presentation::default();
+        let svg = render_svg(&series, &[250.0], &labels, &people).unwrap();
         assert!(svg.contains("Cumulative release") && !svg.contains("estimates, up to"));
-        assert!(render_svg(&ChartSeries::new(10), &[], &labels).is_err());
+        assert!(render_svg(&ChartSeries::new(10), &[], &labels, &people).is_err());
     }
 
     /// Every warning of the final estimate is said in words under the
@@ -603,9 +827,10 @@ mod tests {
             last: &last,
             leak: &leak,
         };
-        let svg = render_svg(&series, &[250.0], &labels).unwrap();
+        let people = Presentation::default();
+        let svg = render_svg(&series, &[250.0], &labels, &people).unwrap();
         let bottom_axis = text_y(&svg, "time since the event start (min)");
-        let words = report::estimate::warnings_text(&last, &leak, &report::Presentation::default());
+        let words = report::estimate::warnings_text(&last, &leak, &people);
         assert!(words.len() >= 2, "{words:?}");
         for w in &words {
             // Long warnings are wrapped: their first words start a line.
@@ -628,9 +853,204 @@ mod tests {
             last: &last,
             leak: &leak,
         };
-        let svg = render_svg(&series, &[], &labels).unwrap();
+        let svg = render_svg(&series, &[], &labels, &people).unwrap();
         assert!(!svg.contains("was bridged across"));
         assert!(svg.contains("No warnings at the end of the replay."));
+    }
+
+    /// The tags named `name` in `svg`, each as the text between `<name`
+    /// and its `>` (plotters writes one tag per element, attributes in
+    /// double quotes).
+    fn tags<'a>(svg: &'a str, name: &str) -> Vec<&'a str> {
+        let open = format!("<{name} ");
+        svg.match_indices(&open)
+            .map(|(at, _)| &svg[at..at + svg[at..].find('>').unwrap()])
+            .collect()
+    }
+
+    fn attribute<'a>(tag: &'a str, name: &str) -> Option<&'a str> {
+        let key = format!(" {name}=\"");
+        let at = tag.find(&key)? + key.len();
+        Some(&tag[at..at + tag[at..].find('"')?])
+    }
+
+    fn number(tag: &str, name: &str) -> f64 {
+        attribute(tag, name).unwrap().parse().unwrap()
+    }
+
+    /// The points of a polyline or polygon.
+    fn points(tag: &str) -> Vec<(f64, f64)> {
+        attribute(tag, "points")
+            .unwrap()
+            .split_whitespace()
+            .map(|p| {
+                let (x, y) = p.split_once(',').unwrap();
+                (x.parse().unwrap(), y.parse().unwrap())
+            })
+            .collect()
+    }
+
+    /// The texts of the chart's `<text>` elements.
+    fn texts(svg: &str) -> Vec<&str> {
+        svg.match_indices("<text ")
+            .map(|(at, _)| {
+                let start = at + svg[at..].find('>').unwrap() + 1;
+                svg[start..start + svg[start..].find('<').unwrap()].trim()
+            })
+            .collect()
+    }
+
+    /// A chart of 30 s of a draining tank with two reportable quantities
+    /// inside the data, in a zone of a half-hour offset.
+    fn two_quantities() -> String {
+        let (all, last, leak) = run(30);
+        let mut series = ChartSeries::new(ChartSeries::DEFAULT_MAX_POINTS);
+        for e in &all {
+            series.push(e);
+        }
+        let high = all.last().unwrap().released_high_kg;
+        let labels = ChartLabels {
+            tank: "FF-T12",
+            event: Some(3),
+            params: "hole 40.0 mm",
+            last: &last,
+            leak: &leak,
+        };
+        let kolkata = Presentation::new("Asia/Kolkata", crate::config::Units::Metric).unwrap();
+        render_svg(&series, &[0.4 * high, 0.8 * high], &labels, &kolkata).unwrap()
+    }
+
+    /// The legends sit beside the data areas: nothing drawn in a data area
+    /// (band, best line, reportable lines, grid) reaches into a legend's
+    /// box, so the legend covers none of the latest estimates.
+    #[test]
+    fn the_legends_are_outside_the_data() {
+        let svg = two_quantities();
+        let frame = r##"stroke="#5A5A5A""##;
+        let legends: Vec<(f64, f64, f64, f64)> = tags(&svg, "rect")
+            .into_iter()
+            .filter(|t| t.contains(frame))
+            .map(|t| {
+                let (x, y) = (number(t, "x"), number(t, "y"));
+                (x, y, x + number(t, "width"), y + number(t, "height"))
+            })
+            .collect();
+        assert_eq!(legends.len(), 2, "one legend a panel");
+        let inside = |(x, y): (f64, f64), (x0, y0, x1, y1): (f64, f64, f64, f64)| {
+            x >= x0 && x <= x1 && y >= y0 && y <= y1
+        };
+        let mut data_right: f64 = 0.0;
+        for tag in tags(&svg, "polyline")
+            .into_iter()
+            .chain(tags(&svg, "polygon"))
+        {
+            let points = points(tag);
+            // A legend's own samples lie inside its box.
+            if legends
+                .iter()
+                .any(|&l| points.iter().all(|&p| inside(p, l)))
+            {
+                continue;
+            }
+            for &(x, y) in &points {
+                data_right = data_right.max(x);
+                for &legend in &legends {
+                    assert!(
+                        !inside((x, y), legend),
+                        "({x}, {y}) under a legend {legend:?}"
+                    );
+                }
+            }
+        }
+        for (x0, ..) in &legends {
+            assert!(
+                *x0 > data_right,
+                "a legend at {x0} over data up to {data_right}"
+            );
+        }
+    }
+
+    /// The best estimate is the one solid line; the two reportable
+    /// quantities differ from it and from each other in dash and colour.
+    #[test]
+    fn the_lines_differ_by_dash_as_well_as_colour() {
+        let svg = two_quantities();
+        let lines = tags(&svg, "polyline");
+        let best = r##"stroke="#1D3C6E""##;
+        assert!(lines.iter().filter(|t| t.contains(best)).count() >= 4);
+        assert!(
+            lines
+                .iter()
+                .filter(|t| t.contains(best))
+                .all(|t| attribute(t, "stroke-dasharray").is_none()),
+            "the best line is solid"
+        );
+        let mut styles: Vec<(&str, &str)> = lines
+            .iter()
+            .filter_map(|t| Some((attribute(t, "stroke")?, attribute(t, "stroke-dasharray")?)))
+            .collect();
+        styles.sort();
+        styles.dedup();
+        assert_eq!(styles.len(), 2, "{styles:?}");
+        assert_ne!(styles[0].0, styles[1].0, "colours");
+        assert_ne!(styles[0].1, styles[1].1, "dashes");
+    }
+
+    /// Tick values are round and said as people write them (no `4000.0`),
+    /// and the time axis shows clock times in the site's zone.
+    #[test]
+    fn ticks_are_round_and_the_time_axis_is_the_site_clock() {
+        let svg = two_quantities();
+        let texts = texts(&svg);
+        let numbers: Vec<&str> = texts
+            .iter()
+            .copied()
+            .filter(|t| t.replace(',', "").parse::<f64>().is_ok())
+            .collect();
+        assert!(numbers.len() >= 6, "{texts:?}");
+        for n in &numbers {
+            assert!(
+                !n.contains('.') || !n.ends_with('0'),
+                "{n:?} has trailing zeros"
+            );
+            let plain = n.replace(',', "");
+            if plain.len() > 3 && !plain.contains('.') {
+                assert!(n.contains(','), "{n:?} not grouped");
+            }
+        }
+        // The estimates run 0 to 29 s after 1970-01-01T00:00:00Z, 05:30 in
+        // Kolkata (UTC+05:30): ticks every 5 s of its clock.
+        for clock in ["05:30:00", "05:30:05", "05:30:25"] {
+            assert!(texts.contains(&clock), "{clock} not in {texts:?}");
+        }
+        assert!(
+            texts.contains(&"+0:05"),
+            "the time since the start: {texts:?}"
+        );
+        assert!(
+            texts
+                .iter()
+                .any(|t| t.contains("clock time (Asia/Kolkata, UTC+05:30)")),
+            "{texts:?}"
+        );
+        assert!(
+            texts
+                .iter()
+                .any(|t| t.starts_with("from 1970-01-01 05:30:00 IST")),
+            "{texts:?}"
+        );
+    }
+
+    #[test]
+    fn clock_ticks_fall_on_round_times_of_the_zone() {
+        assert_eq!(clock_step(29_000, 8.0, 6.0), (5_000, "%H:%M:%S"));
+        assert_eq!(clock_step(3_600_000, 8.0, 6.0), (600_000, "%H:%M"));
+        let kolkata = Presentation::new("Asia/Kolkata", crate::config::Units::Metric).unwrap();
+        // 23:40 UTC is 05:10 in Kolkata: 15-minute ticks from 05:15 there.
+        let start = 1_796_082_000_000; // 2026-11-30T23:40:00Z
+        let ticks = clock_ticks(start, start + 3_600_000, 900_000, &kolkata);
+        let clocks: Vec<String> = ticks.iter().map(|&t| kolkata.clock(t)).collect();
+        assert_eq!(clocks, ["05:15:00", "05:30:00", "05:45:00", "06:00:00"]);
     }
 
     #[test]

@@ -970,7 +970,12 @@ impl Sink {
                 last: &summary.replayed,
                 leak: &summary.params,
             };
-            let svg = plot::render_svg(&series, reportable, &labels)?;
+            let svg = plot::render_svg(
+                &series,
+                reportable,
+                &labels,
+                &report::Presentation::default(),
+            )?;
             let mut file = File::options()
                 .write(true)
                 .open(&out.temporary)

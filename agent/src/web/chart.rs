@@ -11,7 +11,10 @@
 //! Left out: interaction. The chart is a picture; the figures beside it
 //! are the numbers to read.
 
-use crate::report;
+use crate::config::Units;
+use crate::model::Mass;
+use crate::plot::clock_ticks;
+use crate::report::{self, Presentation, presentation::POUNDS_PER_KG};
 use crate::store::EventRow;
 use crate::web::html::{Html, markup};
 use serde::Serialize;
@@ -29,9 +32,14 @@ pub struct Point {
     pub high_kg: f64,
 }
 
+/// The series document's layout version.
+pub const SERIES_FORMAT: u32 = 1;
+
 /// The `/api/events/{id}/series` document.
 #[derive(Debug, Clone, Serialize)]
 pub struct Series {
+    /// Version of this document's layout ([`SERIES_FORMAT`]).
+    pub format: u32,
     pub event: i64,
     pub tank: String,
     pub revision: i64,
@@ -45,6 +53,7 @@ pub struct Series {
 impl Series {
     pub fn new(row: &EventRow, all: Vec<Point>) -> Self {
         Self {
+            format: SERIES_FORMAT,
             event: row.id,
             tank: row.tank.clone(),
             revision: row.revision,
@@ -103,84 +112,110 @@ pub fn thin(points: Vec<Point>, max: usize) -> Vec<Point> {
     out
 }
 
-/// Chart size in SVG user units; the page scales it to its column.
+/// Chart size in SVG user units; the page scales it to its column. On a
+/// phone the column is about 340 px, a little over half of this, so the
+/// style sheet sets the labels in user units large enough to read there
+/// (and the margins below leave room for them).
 const WIDTH: f64 = 640.0;
-const HEIGHT: f64 = 250.0;
-const LEFT: f64 = 70.0;
-const RIGHT: f64 = 18.0;
-const TOP: f64 = 16.0;
-const BOTTOM: f64 = 40.0;
+const HEIGHT: f64 = 300.0;
+const LEFT: f64 = 96.0;
+const RIGHT: f64 = 24.0;
+const TOP: f64 = 18.0;
+const BOTTOM: f64 = 64.0;
+
+/// The most time ticks: five clock times (`14:40`), or three with seconds
+/// (`14:40:15`), which fit the chart's width at the labels' phone size.
+const TIME_TICKS: f64 = 5.0;
+const TIME_TICKS_WITH_SECONDS: f64 = 3.0;
 
 /// The chart of one event's cumulative release: the low–high band, the
 /// best estimate, and the reportable quantities as dashed lines where they
-/// fall inside (or just above) the data. `None` with fewer than 2 points.
-pub fn svg(event: i64, start_ms: i64, points: &[Point], thresholds: &[f64]) -> Option<Html> {
+/// fall inside (or just above) the data; masses in the site's units, the
+/// time axis in clock time in its zone. `None` with fewer than 2 points.
+pub fn svg(
+    event: i64,
+    start_ms: i64,
+    points: &[Point],
+    thresholds: &[f64],
+    people: &Presentation,
+) -> Option<Html> {
     if points.len() < 2 {
         return None;
     }
+    // The site's mass unit: kg, or lb.
+    let per_kg = people.mass(Mass::kilograms(1.0));
+    let unit = per_kg.split_once(' ').map_or("kg", |(_, u)| u).to_owned();
+    let scale = match people.units {
+        Units::Metric => 1.0,
+        Units::UsCustomary => POUNDS_PER_KG,
+    };
     let end_ms = points[points.len() - 1].at_ms.max(start_ms + 1);
-    let data_max = points.iter().map(|p| p.high_kg).fold(0.0, f64::max);
+    let data_max = points.iter().map(|p| p.high_kg).fold(0.0, f64::max) * scale;
     // Show a threshold the release is approaching too, not only one passed.
     let shown: Vec<f64> = thresholds
         .iter()
         .copied()
-        .filter(|&q| q > 0.0 && q <= (data_max * 1.5).max(1.0))
+        .filter(|&q| q > 0.0 && q * scale <= (data_max * 1.5).max(1.0))
         .collect();
-    let top_value = shown.iter().copied().fold(data_max, f64::max).max(1.0);
+    let top_value = shown
+        .iter()
+        .map(|q| q * scale)
+        .fold(data_max, f64::max)
+        .max(1.0);
     let (y_step, y_max) = nice_axis(top_value);
-    let span_s = (end_ms - start_ms) as f64 / 1000.0;
-    let (x_step_s, x_unit, x_per_unit) = time_axis(span_s);
 
     let plot_w = WIDTH - LEFT - RIGHT;
     let plot_h = HEIGHT - TOP - BOTTOM;
     let x = |at_ms: i64| LEFT + (at_ms - start_ms) as f64 / (end_ms - start_ms) as f64 * plot_w;
-    let y = |kg: f64| TOP + plot_h - (kg / y_max).clamp(0.0, 1.0) * plot_h;
+    let y = |kg: f64| TOP + plot_h - (kg * scale / y_max).clamp(0.0, 1.0) * plot_h;
 
     let mut s = markup!(
-        r#"<svg class="chart" viewBox="0 0 {w} {h}" role="img" aria-labelledby="chart-title-{event}" data-event="{event}" data-points="{n}" xmlns="http://www.w3.org/2000/svg"><title id="chart-title-{event}">Released since the leak started, kg: best estimate with the low to high band</title>"#,
+        r#"<svg class="chart" viewBox="0 0 {w} {h}" role="img" aria-labelledby="chart-title-{event}" data-event="{event}" data-points="{n}" xmlns="http://www.w3.org/2000/svg"><title id="chart-title-{event}">Released since the leak started, {unit}: best estimate with the low to high band</title>"#,
         w = WIDTH,
         h = HEIGHT,
         event = event,
-        n = points.len()
+        n = points.len(),
+        unit = unit.as_str(),
     );
     // Grid and y labels.
     let mut v = 0.0;
     while v <= y_max * (1.0 + 1e-9) {
-        let yy = y(v);
+        let yy = TOP + plot_h - v / y_max * plot_h;
         markup!(
             &mut s,
-            r#"<line class="grid" x1="{x1}" x2="{x2}" y1="{yy:.1}" y2="{yy:.1}"/><text class="tick" x="{tx}" y="{ty:.1}" text-anchor="end">{label}</text>"#,
+            r#"<line class="grid" x1="{x1}" x2="{x2}" y1="{yy:.1}" y2="{yy:.1}"/><text class="tick y" x="{tx}" y="{ty:.1}" text-anchor="end">{label}</text>"#,
             x1 = LEFT,
             x2 = WIDTH - RIGHT,
             yy = yy,
             tx = LEFT - 8.0,
-            ty = yy + 4.0,
+            ty = yy + 5.0,
             label = whole(v)
         );
         v += y_step;
     }
-    // x labels.
-    let mut t = 0.0;
-    while t <= span_s + 1e-9 {
-        let xx = LEFT + t / span_s.max(1e-9) * plot_w;
+    // Time ticks: round clock times in the site's zone.
+    let (step_ms, pattern) = clock_step(end_ms - start_ms);
+    for at in clock_ticks(start_ms, end_ms, step_ms, people) {
+        let xx = x(at);
         markup!(
             &mut s,
-            r#"<line class="tickmark" x1="{xx:.1}" x2="{xx:.1}" y1="{y1}" y2="{y2}"/><text class="tick" x="{xx:.1}" y="{ty}" text-anchor="middle">{label}</text>"#,
+            r#"<line class="tickmark" x1="{xx:.1}" x2="{xx:.1}" y1="{y1}" y2="{y2}"/><text class="tick x" x="{xx:.1}" y="{ty}" text-anchor="middle" data-at-ms="{at}">{label}</text>"#,
             xx = xx,
             y1 = TOP + plot_h,
-            y2 = TOP + plot_h + 5.0,
-            ty = TOP + plot_h + 19.0,
-            label = trim_number(t / x_per_unit)
+            y2 = TOP + plot_h + 6.0,
+            ty = TOP + plot_h + 26.0,
+            at = at,
+            label = people.strftime(at, pattern)
         );
-        t += x_step_s;
     }
     markup!(
         &mut s,
-        r#"<text class="axis x" x="{ax}" y="{ay}" text-anchor="middle">{x_unit} since the leak started</text><text class="axis y" x="14" y="{ky}" text-anchor="middle" transform="rotate(-90 14 {ky})">kg released</text>"#,
+        r#"<text class="axis x" x="{ax}" y="{ay}" text-anchor="middle">time, {zone}</text><text class="axis y" x="16" y="{ky}" text-anchor="middle" transform="rotate(-90 16 {ky})">{unit} released</text>"#,
         ax = LEFT + plot_w / 2.0,
-        ay = HEIGHT - 4.0,
-        x_unit = x_unit,
+        ay = HEIGHT - 6.0,
+        zone = people.zone_text(start_ms),
         ky = TOP + plot_h / 2.0,
+        unit = unit.as_str(),
     );
     // Band: along the high values, back along the low ones.
     markup!(&mut s, r#"<polygon class="band" points=""#);
@@ -191,17 +226,21 @@ pub fn svg(event: i64, start_ms: i64, points: &[Point], thresholds: &[f64]) -> O
         markup!(&mut s, "{x:.1},{y:.1} ", x = x(p.at_ms), y = y(p.low_kg));
     }
     markup!(&mut s, r#""/>"#);
-    for q in &shown {
+    // Each quantity its own colour and dash (classes q0 to q2, cycling), so
+    // that two lines close together still read apart; each is labelled.
+    for (i, q) in shown.iter().enumerate() {
         let yy = y(*q);
+        let style = i % 3;
         markup!(
             &mut s,
-            r#"<line class="threshold" x1="{x1}" x2="{x2}" y1="{yy:.1}" y2="{yy:.1}"/><text class="threshold-label" x="{tx}" y="{ty:.1}" text-anchor="start">reportable {q} kg</text>"#,
+            r#"<line class="threshold q{style}" x1="{x1}" x2="{x2}" y1="{yy:.1}" y2="{yy:.1}"/><text class="threshold-label q{style}" x="{tx}" y="{ty:.1}" text-anchor="start">reportable {q}</text>"#,
+            style = style,
             x1 = LEFT,
             x2 = WIDTH - RIGHT,
             yy = yy,
             tx = LEFT + 6.0,
-            ty = yy - 5.0,
-            q = whole(*q)
+            ty = yy - 6.0,
+            q = people.mass(Mass::kilograms(*q))
         );
     }
     markup!(&mut s, r#"<polyline class="best" points=""#);
@@ -212,7 +251,7 @@ pub fn svg(event: i64, start_ms: i64, points: &[Point], thresholds: &[f64]) -> O
     let last = points[points.len() - 1];
     markup!(
         &mut s,
-        r#"<circle class="now" cx="{cx:.1}" cy="{cy:.1}" r="4"/><line class="frame" x1="{x1}" x2="{x1}" y1="{top}" y2="{yb}"/><line class="frame" x1="{x1}" x2="{xr}" y1="{yb}" y2="{yb}"/></svg>"#,
+        r#"<circle class="now" cx="{cx:.1}" cy="{cy:.1}" r="5"/><line class="frame" x1="{x1}" x2="{x1}" y1="{top}" y2="{yb}"/><line class="frame" x1="{x1}" x2="{xr}" y1="{yb}" y2="{yb}"/></svg>"#,
         cx = x(last.at_ms),
         cy = y(last.best_kg),
         x1 = LEFT,
@@ -236,31 +275,11 @@ fn nice_axis(top: f64) -> (f64, f64) {
     (step, (top / step).ceil() * step)
 }
 
-/// Tick step in seconds, the unit's name, and seconds per unit, for a time
-/// span: seconds under 2 min, minutes under 3 h, hours beyond.
-fn time_axis(span_s: f64) -> (f64, &'static str, f64) {
-    let pick = |steps: &[f64], per: f64| {
-        steps
-            .iter()
-            .map(|s| s * per)
-            .find(|&s| span_s / s <= 6.0)
-            .unwrap_or(steps[steps.len() - 1] * per)
-    };
-    if span_s < 120.0 {
-        (pick(&[5.0, 10.0, 15.0, 20.0, 30.0], 1.0), "seconds", 1.0)
-    } else if span_s < 3.0 * 3600.0 {
-        (
-            pick(&[1.0, 2.0, 5.0, 10.0, 15.0, 20.0, 30.0], 60.0),
-            "minutes",
-            60.0,
-        )
-    } else {
-        (
-            pick(&[1.0, 2.0, 3.0, 6.0, 12.0, 24.0, 48.0], 3600.0),
-            "hours",
-            3600.0,
-        )
-    }
+/// The step between clock ticks for a span, ms, and their labels' pattern
+/// (`crate::plot::clock_step`, the replay chart's, with this chart's
+/// limits).
+fn clock_step(span_ms: i64) -> (i64, &'static str) {
+    crate::plot::clock_step(span_ms, TIME_TICKS, TIME_TICKS_WITH_SECONDS)
 }
 
 /// A round quantity as people write it: 50, 2.5, 12,000 (`report::number`
@@ -272,12 +291,6 @@ pub fn whole(x: f64) -> String {
     } else {
         text
     }
-}
-
-/// A tick value without trailing zeros: 5, 2.5.
-fn trim_number(x: f64) -> String {
-    let text = format!("{x:.2}");
-    text.trim_end_matches('0').trim_end_matches('.').to_owned()
 }
 
 #[cfg(test)]
@@ -328,26 +341,51 @@ mod tests {
     #[test]
     fn the_chart_draws_band_line_and_thresholds() {
         let points = series(60, 1000);
-        let svg = svg(7, 1_000, &points, &[50.0, 2_000.0])
+        let people = Presentation::default();
+        let svg = svg(7, 1_000, &points, &[50.0, 2_000.0], &people)
             .unwrap()
             .into_string();
         assert!(svg.starts_with("<svg") && svg.ends_with("</svg>"));
         assert!(svg.contains(r#"class="band""#) && svg.contains(r#"class="best""#));
-        assert!(svg.contains("reportable 50 kg"), "near the data: shown");
-        assert!(!svg.contains("2000 kg"), "far above the data: left out");
-        assert!(svg.contains("seconds since the leak started"));
-        assert!(super::svg(7, 1_000, &points[..1], &[]).is_none());
+        assert!(svg.contains("reportable 50.0 kg"), "near the data: shown");
+        assert!(!svg.contains("2,000 kg"), "far above the data: left out");
+        assert!(svg.contains("time, UTC"), "{svg}");
+        // Two quantities near the data: two styles.
+        let two = super::svg(7, 1_000, &points, &[30.0, 60.0], &people)
+            .unwrap()
+            .into_string();
+        assert!(two.contains(r#"class="threshold q0""#) && two.contains(r#"class="threshold q1""#));
+        // Masses in the site's units.
+        let us = Presentation {
+            units: Units::UsCustomary,
+            ..Presentation::default()
+        };
+        let pounds = super::svg(7, 1_000, &points, &[50.0], &us)
+            .unwrap()
+            .into_string();
+        assert!(pounds.contains("reportable 110 lb") && pounds.contains("lb released"));
+        // 1 s to 60 s after the epoch, ticks every 30 s of the clock.
+        for label in ["00:00:30", "00:01:00"] {
+            assert!(svg.contains(&format!(">{label}</text>")), "{label}: {svg}");
+        }
+        assert!(super::svg(7, 1_000, &points[..1], &[], &people).is_none());
     }
 
     #[test]
     fn axes_get_round_steps() {
         assert_eq!(nice_axis(93.0), (25.0, 100.0));
         assert_eq!(nice_axis(1_234.0), (500.0, 1_500.0));
-        assert_eq!(time_axis(20.0).0, 5.0);
-        assert_eq!(time_axis(600.0), (120.0, "minutes", 60.0));
-        assert_eq!(time_axis(10.0 * 3600.0), (7_200.0, "hours", 3600.0));
-        assert_eq!(trim_number(2.5), "2.5");
-        assert_eq!(trim_number(10.0), "10");
+        assert_eq!(clock_step(20_000), (10_000, "%H:%M:%S"));
+        assert_eq!(clock_step(59_000), (30_000, "%H:%M:%S"));
+        assert_eq!(clock_step(600_000), (120_000, "%H:%M"));
+        assert_eq!(clock_step(10 * 3_600_000), (7_200_000, "%H:%M"));
+        // Ticks fall on round clock times of the site's zone: in Kolkata
+        // (UTC+05:30) an hour's step ticks at 05:00 local, 23:30 UTC.
+        let kolkata = Presentation::new("Asia/Kolkata", Units::Metric).unwrap();
+        let start = 1_796_081_400_000; // 2026-11-30T23:30:00Z, 05:00 there
+        let ticks = clock_ticks(start - 600_000, start + 3 * 3_600_000, 3_600_000, &kolkata);
+        assert_eq!(ticks[0], start);
+        assert_eq!(kolkata.clock(ticks[1]), "06:00:00");
         assert_eq!(
             (whole(50.0), whole(2.5), whole(12_000.0)),
             ("50".into(), "2.5".into(), "12,000".into())

@@ -6,6 +6,8 @@
 //!
 //! * `/`: the page for people, every open event ([`page`]).
 //! * `/api/status`: the `leaktally status --json` document, open events.
+//! * `/api/events`: the event history (`crate::status::history`), open and
+//!   closed, newest first; `?tank=`, `?state=open|closed`, `?limit=`.
 //! * `/api/events/{id}`: the same document for one event, open or closed.
 //! * `/api/events/{id}/series`: the cumulative release for the chart,
 //!   thinned to at most [`chart::MAX_POINTS`] points ([`chart`]).
@@ -42,13 +44,13 @@ pub mod server;
 use crate::acquire::stats::Stats;
 use crate::config::{Config, HostName, Web};
 use crate::report::Presentation;
-use crate::status::{self, StatusError};
+use crate::status::{self, EventFilter, StatusError};
 use crate::store::health::StoreHealth;
 use crate::store::{self, StoreError};
 use axum::Router;
 use axum::body::Body;
 use axum::extract::{Path as UrlPath, Request, State};
-use axum::http::{HeaderValue, Method, StatusCode, header};
+use axum::http::{HeaderValue, Method, StatusCode, Uri, header};
 use axum::middleware::{self, Next};
 use axum::response::{IntoResponse, Response};
 use axum::routing::get;
@@ -211,6 +213,7 @@ pub fn router(shared: Arc<Shared>) -> Router {
     Router::new()
         .route("/", get(index))
         .route("/api/status", get(api_status))
+        .route("/api/events", get(api_events))
         .route("/api/events/{id}", get(api_event))
         .route("/api/events/{id}/series", get(api_series))
         .route("/metrics", get(metrics_text))
@@ -363,6 +366,7 @@ pub fn host_allowed(
 /// Why a request could not be answered.
 #[derive(Debug)]
 enum Failure {
+    BadRequest(String),
     NotFound(String),
     Unavailable(String),
 }
@@ -389,6 +393,7 @@ impl From<StatusError> for Failure {
 impl Failure {
     fn status(&self) -> StatusCode {
         match self {
+            Failure::BadRequest(_) => StatusCode::BAD_REQUEST,
             Failure::NotFound(_) => StatusCode::NOT_FOUND,
             Failure::Unavailable(_) => StatusCode::SERVICE_UNAVAILABLE,
         }
@@ -396,7 +401,7 @@ impl Failure {
 
     fn message(&self) -> &str {
         match self {
-            Failure::NotFound(m) | Failure::Unavailable(m) => m,
+            Failure::BadRequest(m) | Failure::NotFound(m) | Failure::Unavailable(m) => m,
         }
     }
 
@@ -413,13 +418,16 @@ impl Failure {
 
     fn as_json(&self) -> Response {
         self.log();
+        /// Every JSON document the server sends carries its `format`.
         #[derive(Serialize)]
         struct Error<'a> {
+            format: u32,
             error: &'a str,
         }
         json(
             self.status(),
             &Error {
+                format: 1,
                 error: self.message(),
             },
         )
@@ -498,7 +506,8 @@ async fn index(State(shared): State<Arc<Shared>>) -> Response {
 /// Everything the page shows, read in one go through one connection.
 fn page_data(shared: &Shared) -> Result<page::PageData, Failure> {
     let conn = open_for_document(shared)?;
-    let doc = status::document(&conn, None, &Presentation::of(&shared.config))?;
+    let presentation = Presentation::of(&shared.config);
+    let doc = status::document(&conn, None, &presentation)?;
     let mut events = Vec::with_capacity(doc.events.len());
     for e in &doc.events {
         let series = chart::thin(
@@ -514,14 +523,28 @@ fn page_data(shared: &Shared) -> Result<page::PageData, Failure> {
             substance: tank.map(|t| t.substance.clone()).unwrap_or_default(),
         });
     }
+    let closed =
+        status::history::history(&conn, &recently_closed(doc.generated_at_ms), &presentation)?;
     let stale_after_ms = status::stale_after_ms(&shared.config);
     Ok(page::PageData {
         site: shared.config.site_name.clone(),
         doc,
         events,
+        closed: closed.events,
         stale_after_ms,
         store: shared.health.snapshot(),
     })
+}
+
+/// The closed events the page lists: the last [`page::CLOSED_SHOWN`]
+/// closed within [`page::CLOSED_WITHIN_MS`] of `now_ms`.
+fn recently_closed(now_ms: i64) -> EventFilter {
+    EventFilter {
+        open: Some(false),
+        since_ms: Some(now_ms - page::CLOSED_WITHIN_MS),
+        limit: Some(page::CLOSED_SHOWN),
+        ..EventFilter::default()
+    }
 }
 
 /// The read-only connection a request reads the status document (and
@@ -540,6 +563,92 @@ async fn api_status(State(shared): State<Arc<Shared>>) -> Response {
         )?)
     });
     match doc.await {
+        Ok(doc) => json(StatusCode::OK, &doc),
+        Err(f) => f.as_json(),
+    }
+}
+
+/// The filter `/api/events` takes from its query: `tank=TAG`,
+/// `state=open|closed` and `limit=N`. Anything else is refused, so a typo
+/// is not silently ignored. (Parsed here: axum's query extractor is a
+/// feature the build leaves out, and three keys need no crate.)
+fn events_filter(query: Option<&str>) -> Result<EventFilter, Failure> {
+    let usage = "/api/events takes tank=TAG, state=open|closed and limit=N";
+    let mut filter = EventFilter::default();
+    for pair in query.unwrap_or("").split('&').filter(|p| !p.is_empty()) {
+        let (key, value) = pair.split_once('=').unwrap_or((pair, ""));
+        let value = percent_decoded(value).ok_or_else(|| {
+            Failure::BadRequest(format!("{key}: not valid percent-encoded UTF-8; {usage}"))
+        })?;
+        match key {
+            "tank" => filter.tank = Some(value),
+            "state" => {
+                filter.open = match value.as_str() {
+                    "open" => Some(true),
+                    "closed" => Some(false),
+                    other => {
+                        return Err(Failure::BadRequest(format!(
+                            "state={other:?} is not a state; {usage}"
+                        )));
+                    }
+                }
+            }
+            "limit" => {
+                filter.limit = Some(value.parse().map_err(|_| {
+                    Failure::BadRequest(format!("limit={value:?} is not a count; {usage}"))
+                })?)
+            }
+            other => {
+                return Err(Failure::BadRequest(format!(
+                    "{other:?} is not a filter; {usage}"
+                )));
+            }
+        }
+    }
+    Ok(filter)
+}
+
+/// A query value with its `%XX` escapes and `+` (a space, in a form's
+/// query) decoded; `None` for a bad escape or text that is not UTF-8.
+fn percent_decoded(value: &str) -> Option<String> {
+    let bytes = value.as_bytes();
+    let mut out = Vec::with_capacity(bytes.len());
+    let mut i = 0;
+    while i < bytes.len() {
+        match bytes[i] {
+            b'%' => {
+                let hex = std::str::from_utf8(bytes.get(i + 1..i + 3)?).ok()?;
+                out.push(u8::from_str_radix(hex, 16).ok()?);
+                i += 3;
+            }
+            b'+' => {
+                out.push(b' ');
+                i += 1;
+            }
+            b => {
+                out.push(b);
+                i += 1;
+            }
+        }
+    }
+    String::from_utf8(out).ok()
+}
+
+async fn api_events(State(shared): State<Arc<Shared>>, uri: Uri) -> Response {
+    let filter = match events_filter(uri.query()) {
+        Ok(f) => f,
+        Err(f) => return f.as_json(),
+    };
+    let found = read(&shared, move |s| {
+        let conn = open_for_document(s)?;
+        Ok(status::history::history(
+            &conn,
+            &filter,
+            &Presentation::of(&s.config),
+        )?)
+    })
+    .await;
+    match found {
         Ok(doc) => json(StatusCode::OK, &doc),
         Err(f) => f.as_json(),
     }
@@ -638,7 +747,7 @@ async fn not_found(request: Request) -> Response {
     text(
         StatusCode::NOT_FOUND,
         format!(
-            "nothing at {}; try / (the page), /api/status, /api/events/ID, /api/events/ID/series or /metrics\n",
+            "nothing at {}; try / (the page), /api/status, /api/events, /api/events/ID, /api/events/ID/series or /metrics\n",
             request.uri().path()
         ),
     )

@@ -36,7 +36,9 @@ impl Drop for Scratch {
     }
 }
 
-/// A site, a database with one open event of 120 estimates, and the router.
+/// A site, a database with one open event of 120 estimates, one event
+/// closed two days ago with a final total and one closed eight days ago
+/// (older than the page lists), and the router.
 fn fixture() -> (Scratch, Router, i64) {
     let (scratch, router, id, _) = fixture_with_health();
     (scratch, router, id)
@@ -83,6 +85,28 @@ fn fixture_with_health() -> (Scratch, Router, i64, Arc<StoreHealth>) {
         .collect();
     assert_eq!(estimates.len(), 120);
     store::insert_estimates(&conn, id, 1, &estimates).unwrap();
+    let day = 86_400_000;
+    let recent = store::create_event(
+        &conn,
+        HOSTILE_ID,
+        start - 2 * day,
+        start - 2 * day,
+        "leak flag",
+        &params,
+    )
+    .unwrap();
+    store::insert_estimates(&conn, recent, 1, &estimates[..60]).unwrap();
+    store::close_event(&conn, recent, start - 2 * day + 5_400_000).unwrap();
+    let old = store::create_event(
+        &conn,
+        HOSTILE_ID,
+        start - 8 * day,
+        start - 8 * day,
+        "operator",
+        &params,
+    )
+    .unwrap();
+    store::close_event(&conn, old, start - 8 * day + 60_000).unwrap();
     let who = ("op".to_owned(), "cr1".to_owned());
     let note = store::request_action(
         &conn,
@@ -164,7 +188,7 @@ async fn every_method_but_get_and_head_is_refused_on_every_path() {
 #[tokio::test]
 async fn unknown_paths_and_events_are_404() {
     let (_scratch, router, _) = fixture();
-    for path in ["/nope", "/api", "/api/events", "/index.html"] {
+    for path in ["/nope", "/api", "/api/event", "/index.html"] {
         let (status, headers, _) = call(&router, "GET", path).await;
         assert_eq!(status, StatusCode::NOT_FOUND, "{path}");
         assert!(content_type(&headers).starts_with("text/plain"));
@@ -214,8 +238,7 @@ async fn the_page_escapes_every_text_from_the_site_and_the_operators() {
         "released-best-kg",
         "released-low-kg",
         "released-high-kg",
-        "released-best-m3",
-        "released-best-l",
+        "released-best-volume",
         "rate-best",
         "forecast-stop-at",
         "forecast-total-kg",
@@ -225,12 +248,92 @@ async fn the_page_escapes_every_text_from_the_site_and_the_operators() {
             "{field}"
         );
     }
-    assert!(page.contains("estimates for emergency planning, not measurements"));
+    assert_eq!(
+        page.matches("estimates for emergency planning, not measurements")
+            .count(),
+        1,
+        "the caution, once"
+    );
     assert!(
         page.contains(r#"class="crossed" data-field="reportable""#),
         "50 kg passed"
     );
     assert!(page.contains("<svg class=\"chart\""));
+    // Site time (UTC here, the site names no zone) with the zone said.
+    assert!(page.contains("times in <span data-field=\"time-zone\">UTC</span>"));
+    assert!(page.contains(" UTC</time>"));
+    // The event closed two days ago is listed with its final total; the
+    // one closed eight days ago is not.
+    let closed = page
+        .split_once(r#"data-field="closed-events""#)
+        .expect("the closed events")
+        .1;
+    assert_eq!(
+        closed.matches(r#"data-field="closed-total""#).count(),
+        1,
+        "{closed}"
+    );
+    assert!(closed.contains("1 h 30 min"), "{closed}");
+    assert!(
+        closed.contains(" kg</span> <span class=\"band\">band "),
+        "{closed}"
+    );
+}
+
+#[tokio::test]
+async fn the_event_history_is_served_with_its_format_and_filters() {
+    let (_scratch, router, id) = fixture();
+    let (status, headers, body) = call(&router, "GET", "/api/events").await;
+    assert_eq!(status, StatusCode::OK, "{body}");
+    assert_eq!(content_type(&headers), "application/json");
+    let doc: serde_json::Value = serde_json::from_str(&body).unwrap();
+    assert_eq!(doc["format"], status::history::FORMAT);
+    let events = doc["events"].as_array().unwrap();
+    assert_eq!(events.len(), 3, "{body}");
+    let open: Vec<_> = events.iter().filter(|e| e["state"] == "open").collect();
+    assert_eq!((open.len(), &open[0]["event"]), (1, &serde_json::json!(id)));
+    let closed = events
+        .iter()
+        .find(|e| e["state"] == "closed" && !e["released_best_kg"].is_null())
+        .expect("the closed event with a total");
+    assert!(closed["released_best_kg"].as_f64().unwrap() > 0.0);
+    assert!(closed["end"].as_str().unwrap().ends_with('Z'), "RFC 3339");
+
+    let (_, _, body) = call(&router, "GET", "/api/events?state=closed&limit=1").await;
+    let doc: serde_json::Value = serde_json::from_str(&body).unwrap();
+    let events = doc["events"].as_array().unwrap();
+    assert_eq!(events.len(), 1);
+    assert_eq!(events[0]["state"], "closed");
+    let (_, _, body) = call(
+        &router,
+        "GET",
+        "/api/events?tank=T%3C1%3E%26%22x%22&state=open",
+    )
+    .await;
+    let doc: serde_json::Value = serde_json::from_str(&body).unwrap();
+    assert_eq!(doc["events"].as_array().unwrap().len(), 1, "{body}");
+    let (_, _, body) = call(&router, "GET", "/api/events?tank=T2").await;
+    let doc: serde_json::Value = serde_json::from_str(&body).unwrap();
+    assert_eq!(doc["events"].as_array().unwrap().len(), 0, "{body}");
+
+    for bad in ["state=shut", "limit=ten", "tanks=T1", "tank=%zz"] {
+        let (status, headers, body) = call(&router, "GET", &format!("/api/events?{bad}")).await;
+        assert_eq!(status, StatusCode::BAD_REQUEST, "{bad}: {body}");
+        assert_eq!(content_type(&headers), "application/json");
+        let error: serde_json::Value = serde_json::from_str(&body).unwrap();
+        assert_eq!(error["format"], 1);
+        assert!(
+            error["error"]
+                .as_str()
+                .unwrap()
+                .contains("/api/events takes"),
+            "{body}"
+        );
+    }
+    // The series carries its format too.
+    let (_, _, body) = call(&router, "GET", &format!("/api/events/{id}/series")).await;
+    let series: serde_json::Value = serde_json::from_str(&body).unwrap();
+    assert_eq!(series["format"], chart::SERIES_FORMAT);
 }
 
 #[tokio::test]

@@ -1,22 +1,23 @@
 //! One event's card: the section with its head (tank, what it holds, since
-//! when, the parameters), the alarms that say its figures are not current
-//! (not tracked, no sample yet, no new sample), and the sections of its
-//! estimate and notes in order.
+//! when), the alarms that say its figures are not current (not tracked, no
+//! sample yet, no new sample), the headline tiles, the parameters, and the
+//! sections of its estimate and notes in order.
 //!
 //! Left out: the sections' own markup, in `figures.rs`, `trend.rs`,
 //! `details.rs` and `notes.rs`.
 
 use super::{EventExtras, details, figures, notes, span, trend};
-use crate::report;
+use crate::report::{self, Presentation};
 use crate::status::EventStatus;
 use crate::web::html::{Html, markup};
 
 /// One event's card: its head, why its figures may not be current, the
-/// figures, the chart and the reportable quantities, how the figures are
-/// made, and the operators' notes.
+/// headline figures with the reportable quantities, the parameters, the
+/// chart, how the figures are made, and the operators' notes.
 pub(super) fn card(
     e: &EventStatus,
     extras: &EventExtras,
+    people: &Presentation,
     now_ms: i64,
     stale_after_ms: i64,
 ) -> Html {
@@ -31,7 +32,7 @@ pub(super) fn card(
         tank = e.tank,
         at_ms = at_ms,
     );
-    card.push(head(e, extras, now_ms));
+    card.push(head(e, extras, people, now_ms));
     if let Some(why) = &e.tracking_error {
         markup!(
             &mut card,
@@ -57,21 +58,35 @@ pub(super) fn card(
 "#,
                     id = id,
                     age = span(age),
-                    at = report::utc(est.at_ms)
+                    at = people.time(est.at_ms)
                 );
             }
-            card.push(figures::figures(id, est, now_ms));
-            card.push(trend::trend(id, e.start_ms, est, &extras.series));
-            card.push(details::details(id, est, age));
+            card.push(figures::figures(id, est, people, now_ms));
+            card.push(params(e));
+            card.push(trend::trend(id, e.start_ms, est, &extras.series, people));
+            card.push(details::details(id, est, people, age));
         }
     }
-    card.push(notes::panel(id, &extras.notes));
+    if e.estimate.is_none() {
+        card.push(params(e));
+    }
+    card.push(notes::panel(id, &extras.notes, people));
     markup!(&mut card, "</section>\n");
     card
 }
 
-/// The tank, what it holds, when the leak started and the parameters.
-fn head(e: &EventStatus, extras: &EventExtras, now_ms: i64) -> Html {
+/// The parameters the figures rest on, after the headline figures (on a
+/// phone they would push those below the fold).
+fn params(e: &EventStatus) -> Html {
+    markup!(
+        r#"<p class="params">Parameters: {params}</p>
+"#,
+        params = e.params_text
+    )
+}
+
+/// The tank, what it holds, and when the leak started.
+fn head(e: &EventStatus, extras: &EventExtras, people: &Presentation, now_ms: i64) -> Html {
     let id = e.event;
     let what: Vec<&str> = [extras.description.as_str(), extras.substance.as_str()]
         .into_iter()
@@ -88,17 +103,16 @@ fn head(e: &EventStatus, extras: &EventExtras, now_ms: i64) -> Html {
     markup!(
         r#"<header class="event-head">
 <h2><span data-field="tank" data-event="{id}">{tank}</span>{what}</h2>
-<p class="meta">Event <span data-field="event" data-event="{id}">{id}</span> · leaking since <time data-field="since" data-event="{id}">{since}</time> ({ago} ago) · flagged by {source} · revision {revision}</p>
-<p class="params">Parameters: {params}</p>
+<p class="meta">Event <span data-field="event" data-event="{id}">{id}</span> · leaking since <time data-field="since" data-event="{id}" datetime="{machine}">{since}</time> ({ago} ago) · flagged by {source} · revision {revision}</p>
 </header>
 "#,
         id = id,
         tank = e.tank,
         what = what,
-        since = e.start,
+        machine = report::rfc3339(e.start_ms),
+        since = people.time(e.start_ms),
         ago = span(now_ms - e.start_ms),
         source = e.source,
         revision = e.revision,
-        params = e.params_text,
     )
 }

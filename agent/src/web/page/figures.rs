@@ -1,124 +1,102 @@
-//! The three headline figures of an estimate: released so far (mass,
-//! volumes, the band and what makes it), flowing now (the rate, its band,
-//! the phase) and the forecast (when the flow stops, the total then). Each
-//! number is a `<span>` with `data-field` and `data-event` for scripts.
+//! The four headline tiles of an estimate, the first thing on a card and
+//! all above the fold on a phone: released so far (with its band), flowing
+//! now, the forecast, and the reportable quantities. Each number is a
+//! `<span>` with `data-field` and `data-event` for scripts; what is not
+//! needed at a glance (volumes of the band, what makes the band, the phase)
+//! is in `details.rs`.
+//!
+//! Every quantity is said by the site's `Presentation` (its units, one unit
+//! a figure: a rate is always per second) and every time in its zone.
 //!
 //! Left out: how the figures are made (`details.rs`) and the chart
 //! (`trend.rs`).
 
 use super::span;
-use crate::report::{self, estimate as words};
-use crate::status::{EstimateView, Volumes};
+use crate::estimate::Crossing;
+use crate::model::{Density, Mass, MassRate};
+use crate::report::Presentation;
+use crate::status::EstimateView;
 use crate::web::html::{Html, markup};
 
-/// A rate as its number and unit: kg/h under 1 kg/s (where kg/s would read
-/// 0.0), kg/s above, as `report::rate` does.
-fn rate_parts(kg_s: f64) -> (String, &'static str) {
-    if kg_s != 0.0 && kg_s.abs() < 1.0 {
-        (report::number(kg_s * 3600.0), "kg/h")
-    } else {
-        (report::number(kg_s), "kg/s")
-    }
+/// A quantity as the presentation says it (`1,230 kg`), cut into its
+/// number and its unit, so that the page can set the unit smaller.
+fn parts(text: &str) -> (&str, &str) {
+    text.split_once(' ').unwrap_or((text, ""))
 }
 
-/// The three headline figures: released so far, flowing now, forecast.
-pub(super) fn figures(id: i64, est: &EstimateView, now_ms: i64) -> Html {
+/// The four headline tiles: released so far, flowing now, the forecast,
+/// and the reportable quantities.
+pub(super) fn figures(id: i64, est: &EstimateView, people: &Presentation, now_ms: i64) -> Html {
     let mut out = markup!(r#"<div class="figures">"#);
-    out.push(released(id, est));
-    out.push(flowing(id, est));
-    out.push(forecast(id, est, now_ms));
+    out.push(released(id, est, people));
+    out.push(flowing(id, est, people));
+    out.push(forecast(id, est, people, now_ms));
+    out.push(reportable(id, est, people));
     markup!(&mut out, "\n</div>\n");
     out
 }
 
-/// Released so far: mass, volumes, the band and what makes it.
-fn released(id: i64, est: &EstimateView) -> Html {
-    let rho = est.density_kg_m3;
-    let vol = |kg: f64| Volumes::of(kg, rho);
-    let (best, low, high) = (
-        vol(est.released_best_kg),
-        vol(est.released_low_kg),
-        vol(est.released_high_kg),
-    );
-    let g = report::number;
-    let m3 = report::number;
+/// Released so far: the best total, its band, and its volume.
+fn released(id: i64, est: &EstimateView, people: &Presentation) -> Html {
+    let mass = |kg: f64| people.mass(Mass::kilograms(kg));
+    let rho = Density::kg_per_cubic_metre(est.density_kg_m3);
     markup!(
         r#"
 <div class="figure released">
 <h3>Released so far</h3>
-<p class="big">{kg}</p>
-<p class="volume">{vm3} · {vl}</p>
-<p class="band">band {lo} – {hi}</p>
-<p class="band">{lom3} – {him3} m³ · {lol} – {hil} L</p>
-<p class="fine" data-field="band-causes" data-event="{id}">band from {causes}</p>
-<p class="fine">= {gal} US gal = {bbl} bbl at {rho} kg/m³</p>
+<p class="big">{best}</p>
+<p class="band">band {low} – {high}</p>
+<p class="volume" data-field="released-best-volume" data-event="{id}">{volume}</p>
 </div>"#,
-        kg = figure("released-best-kg", id, &g(est.released_best_kg), "kg"),
-        vm3 = figure("released-best-m3", id, &m3(best.m3), "m³"),
-        vl = figure("released-best-l", id, &g(best.litres), "L"),
-        lo = figure("released-low-kg", id, &g(est.released_low_kg), ""),
-        hi = figure("released-high-kg", id, &g(est.released_high_kg), "kg"),
-        lom3 = m3(low.m3),
-        him3 = m3(high.m3),
-        lol = g(low.litres),
-        hil = g(high.litres),
+        best = figure("released-best-kg", id, &mass(est.released_best_kg), true),
+        low = figure("released-low-kg", id, &mass(est.released_low_kg), false),
+        high = figure("released-high-kg", id, &mass(est.released_high_kg), true),
+        volume = people.volume(Mass::kilograms(est.released_best_kg), rho),
         id = id,
-        causes = est.words.band_text,
-        gal = g(best.us_gallons),
-        bbl = g(best.barrels),
-        rho = g(rho),
     )
 }
 
-/// Flowing now: the rate, as volumes too, its band, the phase and level.
-fn flowing(id: i64, est: &EstimateView) -> Html {
-    let (rate, rate_unit) = rate_parts(est.rate_best_kg_s);
-    let (rate_lo, rate_lo_unit) = rate_parts(est.rate_low_kg_s);
-    let (rate_hi, rate_hi_unit) = rate_parts(est.rate_high_kg_s);
-    let rate_m3_h = est.rate_best_kg_s / est.density_kg_m3 * 3600.0;
+/// Flowing now: the rate, its band, and the volume it makes in an hour.
+fn flowing(id: i64, est: &EstimateView, people: &Presentation) -> Html {
+    let rate = |kg_s: f64| people.rate(MassRate::kg_per_second(kg_s));
+    let rho = Density::kg_per_cubic_metre(est.density_kg_m3);
     markup!(
         r#"
 <div class="figure rate">
 <h3>Flowing now</h3>
-<p class="big">{rate}</p>
-<p class="volume">{m3h} m³/h · {lmin} L/min</p>
-<p class="band">band {lo} – {hi}</p>
-<p class="fine">{phase} phase · at level {level:.3} m</p>
+<p class="big">{best}</p>
+<p class="band">band {low} – {high}</p>
+<p class="volume">{hourly} an hour</p>
 </div>"#,
-        rate = figure_with_unit("rate-best", id, &rate, rate_unit),
-        m3h = report::number(rate_m3_h),
-        lmin = report::number(rate_m3_h * 1000.0 / 60.0),
-        lo = figure_with_unit("rate-low", id, &rate_lo, rate_lo_unit),
-        hi = figure_with_unit("rate-high", id, &rate_hi, rate_hi_unit),
-        phase = words::phase_text(est),
-        level = est.level_m,
+        best = figure("rate-best", id, &rate(est.rate_best_kg_s), true),
+        low = figure("rate-low", id, &rate(est.rate_low_kg_s), false),
+        high = figure("rate-high", id, &rate(est.rate_high_kg_s), true),
+        hourly = people.volume(Mass::kilograms(est.rate_best_kg_s * 3600.0), rho),
     )
 }
 
-/// The forecast: when the flow stops and the total then, or why there is
-/// none.
-fn forecast(id: i64, est: &EstimateView, now_ms: i64) -> Html {
-    let g = report::number;
+/// The forecast: the total when the flow stops, when that is, and the
+/// totals at two times ahead; or why there is none.
+fn forecast(id: i64, est: &EstimateView, people: &Presentation, now_ms: i64) -> Html {
+    let mass = |kg: f64| people.mass(Mass::kilograms(kg));
+    let at = |ms: i64| people.strftime(ms, "%H:%M %Z");
     let body = match &est.forecast {
         Some(f) if f.stops_after_s.is_finite() => {
             let stop_ms = f.made_at_ms + (f.stops_after_s * 1000.0) as i64;
-            let total = Volumes::of(f.total_at_stop_kg, est.density_kg_m3);
             markup!(
                 r#"
-<p class="mid">flow stops at <time data-field="forecast-stop-at" data-event="{id}">{at}</time></p>
-<p>in <span data-field="forecast-stop-in" data-event="{id}">{inn}</span>, at level {lvl:.2} m</p>
-<p class="mid">total then {total}</p>
-<p class="volume">{tm3} m³ · {tl} L</p>
-<p class="fine">in 15 min: {q} · in 1 h: {h}</p>"#,
+<p class="big">{total}</p>
+<p class="band">total when the flow stops in <span data-field="forecast-stop-in" data-event="{id}">{inn}</span>, at <time data-field="forecast-stop-at" data-event="{id}" datetime="{machine}">{stop}</time></p>
+<p class="fine">total by {at15}: {q} · by {at60}: {h}</p>"#,
                 id = id,
-                at = report::utc(stop_ms),
+                total = figure("forecast-total-kg", id, &mass(f.total_at_stop_kg), true),
                 inn = span(stop_ms - now_ms),
-                lvl = f.stop_level_m,
-                total = figure("forecast-total-kg", id, &g(f.total_at_stop_kg), "kg"),
-                tm3 = report::number(total.m3),
-                tl = g(total.litres),
-                q = figure("forecast-15min-kg", id, &g(f.total_in_15_min_kg), "kg"),
-                h = figure("forecast-1h-kg", id, &g(f.total_in_1_h_kg), "kg"),
+                machine = crate::report::rfc3339(stop_ms),
+                stop = people.strftime(stop_ms, "%H:%M:%S %Z"),
+                at15 = at(f.made_at_ms + 15 * 60_000),
+                q = figure("forecast-15min-kg", id, &mass(f.total_in_15_min_kg), true),
+                at60 = at(f.made_at_ms + 60 * 60_000),
+                h = figure("forecast-1h-kg", id, &mass(f.total_in_1_h_kg), true),
             )
         }
         Some(_) => markup!(r#"<p class="mid">the flow is not forecast to stop</p>"#),
@@ -138,40 +116,120 @@ fn forecast(id: i64, est: &EstimateView, now_ms: i64) -> Html {
     )
 }
 
-/// One figure: `<span data-field=.. data-event=..>number</span>` and its unit.
-fn figure(field: &str, event: i64, number: &str, unit: &str) -> Html {
+/// The reportable quantities: each crossed (by the best estimate, or by
+/// the band's high end), or how far off.
+fn reportable(id: i64, est: &EstimateView, people: &Presentation) -> Html {
     let mut out = markup!(
-        r#"<span class="num" data-field="{field}" data-event="{event}">{number}</span>"#,
+        r#"
+<div class="figure reportable">
+<h3>Reportable quantities</h3>
+"#
+    );
+    if est.crossings.is_empty() {
+        markup!(
+            &mut out,
+            r#"<p class="fine">None configured for this tank.</p>"#
+        );
+    } else {
+        markup!(&mut out, "<ul>\n");
+        out.extend(
+            est.crossings
+                .iter()
+                .map(|c| crossing(id, c, est.released_best_kg, people)),
+        );
+        markup!(&mut out, "</ul>");
+    }
+    markup!(&mut out, "\n</div>");
+    out
+}
+
+/// One reportable quantity: when the best estimate crossed it, or when the
+/// band's high end did, or how far off it is. Times as a clock in the
+/// site's zone (the full time is in the element's `datetime`).
+fn crossing(id: i64, c: &Crossing, released_kg: f64, people: &Presentation) -> Html {
+    let q = people.mass(Mass::kilograms(c.quantity_kg));
+    let clock = |ms: i64| {
+        markup!(
+            r#"<time datetime="{machine}">{clock}</time>"#,
+            machine = crate::report::rfc3339(ms),
+            clock = people.strftime(ms, "%H:%M:%S %Z")
+        )
+    };
+    let crossed = c.at_ms.map_or(Html::new(), |at| {
+        markup!(r#" data-crossed-at-ms="{at}""#, at = at)
+    });
+    let high = c.high_at_ms.map_or(Html::new(), |at| {
+        markup!(r#" data-high-at-ms="{at}""#, at = at)
+    });
+    let (class, text) = match (c.at_ms, c.high_at_ms) {
+        (Some(best), _) => ("crossed", markup!("reached at {at}", at = clock(best))),
+        (None, Some(high)) => (
+            "crossed",
+            markup!(
+                "may have been reached at {at} (the band's high end; the best estimate is below)",
+                at = clock(high)
+            ),
+        ),
+        (None, None) => (
+            "pending",
+            markup!(
+                "not reached: {left} to go",
+                left = people.mass(Mass::kilograms((c.quantity_kg - released_kg).max(0.0)))
+            ),
+        ),
+    };
+    markup!(
+        r#"<li class="{class}" data-field="reportable" data-event="{id}" data-quantity-kg="{qty}"{crossed}{high}><strong>{q}</strong> {text}</li>
+"#,
+        class = class,
+        id = id,
+        qty = c.quantity_kg,
+        crossed = crossed,
+        high = high,
+        q = q,
+        text = text
+    )
+}
+
+/// One figure: `<span data-field=.. data-event=.. data-unit=..>number</span>`
+/// from a quantity the presentation said, with its unit after it when
+/// `with_unit` (a band's low end leaves it to the high end's).
+fn figure(field: &str, event: i64, quantity: &str, with_unit: bool) -> Html {
+    let (number, unit) = parts(quantity);
+    let mut out = markup!(
+        r#"<span class="num" data-field="{field}" data-event="{event}" data-unit="{unit}">{number}</span>"#,
         field = field,
         event = event,
+        unit = unit,
         number = number
     );
-    if !unit.is_empty() {
+    if with_unit && !unit.is_empty() {
         markup!(&mut out, r#"<span class="unit">{unit}</span>"#, unit = unit);
     }
     out
 }
 
-/// A figure whose unit may change with its size (kg/s or kg/h): the unit
-/// is in `data-unit` too, for scripts.
-fn figure_with_unit(field: &str, event: i64, number: &str, unit: &str) -> Html {
-    markup!(
-        r#"<span class="num" data-field="{field}" data-event="{event}" data-unit="{unit}">{number}</span><span class="unit">{unit}</span>"#,
-        field = field,
-        event = event,
-        unit = unit,
-        number = number
-    )
-}
-
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::config::Units;
 
     #[test]
-    fn rates_switch_to_kg_per_hour_below_one_kg_per_second() {
-        assert_eq!(rate_parts(5.614), ("5.61".to_owned(), "kg/s"));
-        assert_eq!(rate_parts(0.1), ("360".to_owned(), "kg/h"));
-        assert_eq!(rate_parts(0.0), ("0".to_owned(), "kg/s"));
+    fn figures_take_the_site_units_and_keep_their_unit_apart() {
+        let metric = Presentation::default();
+        let us = Presentation {
+            units: Units::UsCustomary,
+            ..Presentation::default()
+        };
+        let kg = metric.mass(Mass::kilograms(1234.6));
+        assert_eq!(parts(&kg), ("1,230", "kg"));
+        let lb = us.rate(MassRate::kg_per_second(0.1));
+        assert_eq!(parts(&lb), ("0.220", "lb/s"));
+        let html = figure("rate-best", 3, &lb, true).into_string();
+        assert!(html.contains(r#"data-unit="lb/s">0.220</span>"#), "{html}");
+        assert!(
+            html.ends_with(r#"<span class="unit">lb/s</span>"#),
+            "{html}"
+        );
     }
 }

@@ -1,7 +1,8 @@
 //! The document around the live part: the head (title, style sheet,
 //! refresh script), the masthead with the site's name, the offline notice
-//! the refresh script shows, and the footer with the links for machines and
-//! the caution in full.
+//! the refresh script shows, and the footer with the links for machines.
+//! (The caution is said once, at the top of the live part: said twice it
+//! took a quarter of a phone's screen.)
 //!
 //! Left out: everything inside `<main>`, which the refresh script swaps.
 
@@ -38,16 +39,14 @@ pub(super) fn head(open: usize, site: &str) -> Html {
     )
 }
 
-/// The links for machines and the caution in full, closing the document.
-pub(super) fn foot(caution: &str) -> Html {
+/// The links for machines, closing the document.
+pub(super) fn foot() -> Html {
     markup!(
         r#"<footer class="foot">
-<p>For machines: <a href="/api/status">/api/status</a> (the document of <code>leaktally status --json</code>), <code>/api/events/ID</code>, <code>/api/events/ID/series</code>, <a href="/metrics">/metrics</a>.</p>
-<p>{caution}</p>
+<p>For machines: <a href="/api/status">/api/status</a> (the document of <code>leaktally status --json</code>), <a href="/api/events">/api/events</a> (every event, open and closed), <code>/api/events/ID</code>, <code>/api/events/ID/series</code>, <a href="/metrics">/metrics</a>. Times there are RFC 3339 UTC and figures SI.</p>
 </footer>
 </body>
 </html>
-"#,
-        caution = caution
+"#
     )
 }

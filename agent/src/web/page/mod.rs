@@ -2,7 +2,11 @@
 //!
 //! Built for a phone at a command post as much as a desk: one column that
 //! widens into a grid, the figures large and each with its unit, the
-//! caution at the top. Every figure carries `data-field` and `data-event`
+//! caution once, at the top. On a phone (390 by 844 CSS pixels) the released
+//! total with its band, the rate, the forecast and the reportable
+//! quantities of the newest event are all above the fold; the chart and how
+//! the figures are made follow. Every time is in the site's zone and every
+//! quantity in the site's units (`report::Presentation`). Every figure carries `data-field` and `data-event`
 //! attributes so that tests (and anyone scripting against the page) can
 //! find it without scraping the layout.
 //!
@@ -22,11 +26,13 @@
 //! * `trend.rs`: the chart and the reportable quantities.
 //! * `details.rs`: the warnings, how it is estimated, the data quality.
 //! * `notes.rs`: the operators' notes, from the audit trail to the panel.
+//! * `closed.rs`: the events closed lately, with their final figures.
 //!
 //! Left out: client-side rendering. The refresh script only fetches this
 //! page again and swaps the fresh `<main>` in; nothing is computed in the
 //! browser. The chart's SVG is `web::chart`'s, the escaping `web::html`'s.
 
+mod closed;
 mod details;
 mod event;
 mod figures;
@@ -40,6 +46,7 @@ pub use notes::{Note, notes};
 use crate::model::TimeSpan;
 use crate::report;
 use crate::status::StatusDocument;
+use crate::status::history::EventSummary;
 use crate::store::health::HealthSnapshot;
 use crate::web::chart::Point;
 use crate::web::html::{Html, markup};
@@ -50,11 +57,20 @@ pub struct PageData {
     pub doc: StatusDocument,
     /// Per event of `doc.events`, in the same order.
     pub events: Vec<EventExtras>,
+    /// The events closed lately, newest first: at most [`CLOSED_SHOWN`],
+    /// closed within [`CLOSED_WITHIN_MS`].
+    pub closed: Vec<EventSummary>,
     /// A latest estimate older than this is flagged as not current.
     pub stale_after_ms: i64,
     /// Whether the database takes the daemon's writes.
     pub store: HealthSnapshot,
 }
+
+/// How many closed events the page lists, at most.
+pub const CLOSED_SHOWN: usize = 10;
+/// How long ago an event may have closed to be listed: a week, so that the
+/// next shift and the week's review still find its final total.
+pub const CLOSED_WITHIN_MS: i64 = 7 * 24 * 3_600_000;
 
 /// What the page shows beside an event's status document.
 pub struct EventExtras {
@@ -69,12 +85,12 @@ pub fn render(data: &PageData) -> String {
     let doc = &data.doc;
     let mut page = frame::head(doc.events.len(), &data.site);
     page.push(live(data));
-    page.push(frame::foot(doc.caution));
+    page.push(frame::foot());
     page.into_string()
 }
 
 /// The `<main>` the refresh script swaps: the stamp, the caution, the
-/// daemon's state, and a card per event.
+/// daemon's state, a card per open event, and the events closed lately.
 fn live(data: &PageData) -> Html {
     let doc = &data.doc;
     let mut main = markup!(
@@ -82,12 +98,11 @@ fn live(data: &PageData) -> Html {
         ms = doc.generated_at_ms
     );
     main.push(state::top(doc, &data.store));
-    main.extend(
-        doc.events
-            .iter()
-            .zip(&data.events)
-            .map(|(e, extras)| event::card(e, extras, doc.generated_at_ms, data.stale_after_ms)),
-    );
+    let people = &doc.presentation;
+    main.extend(doc.events.iter().zip(&data.events).map(|(e, extras)| {
+        event::card(e, extras, people, doc.generated_at_ms, data.stale_after_ms)
+    }));
+    main.push(closed::list(&data.closed, people));
     markup!(&mut main, "</main>\n");
     main
 }

@@ -5,7 +5,7 @@
 //! Left out: reading the actions from the database (`web`'s, through the
 //! request's connection) and writing them (the operator CLI's).
 
-use crate::report;
+use crate::report::Presentation;
 use crate::store::ActionRow;
 use crate::web::html::{Html, markup};
 
@@ -42,17 +42,18 @@ pub fn notes(actions: &[ActionRow]) -> Vec<Note> {
 }
 
 /// The operators' notes, oldest first; nothing when there are none.
-pub(super) fn panel(id: i64, notes: &[Note]) -> Html {
+pub(super) fn panel(id: i64, notes: &[Note], people: &Presentation) -> Html {
     if notes.is_empty() {
         return Html::new();
     }
     let mut out = markup!("<div class=\"panel notes\">\n<h3>Operator notes</h3>\n<ol>\n");
     out.extend(notes.iter().map(|n| {
         markup!(
-            r#"<li data-field="note" data-event="{id}"><time>{at}</time> <span class="who">{who}{doing}</span> {text}</li>
+            r#"<li data-field="note" data-event="{id}"><time datetime="{machine}">{at}</time> <span class="who">{who}{doing}</span> {text}</li>
 "#,
             id = id,
-            at = report::utc(n.at_ms),
+            machine = crate::report::rfc3339(n.at_ms),
+            at = people.time(n.at_ms),
             who = n.who,
             doing = match n.kind.as_str() {
                 "open" => ", opening the event:",

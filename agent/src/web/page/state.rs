@@ -4,7 +4,6 @@
 //!
 //! Left out: the events themselves (`event.rs`) and any figure.
 
-use crate::report;
 use crate::status::StatusDocument;
 use crate::store::health::HealthSnapshot;
 use crate::web::html::{Html, markup};
@@ -13,11 +12,14 @@ use std::fmt::Write as _;
 /// The top of `<main>`: when the figures are from, the caution, the
 /// daemon's state, and how many events are open.
 pub(super) fn top(doc: &StatusDocument, store: &HealthSnapshot) -> Html {
+    let people = &doc.presentation;
     let mut top = markup!(
-        r#"<p class="stamp">Figures as of <time data-field="generated-at">{at}</time> · the page refreshes every 5 s</p>
-<aside class="caution" role="note"><strong>Caution</strong> {caution}</aside>
+        r#"<p class="stamp">Figures as of <time data-field="generated-at" datetime="{machine}">{at}</time> · times in <span data-field="time-zone">{zone}</span> · refreshed every 5 s</p>
+<aside class="caution" role="note" data-field="caution"><strong>Caution</strong> {caution}</aside>
 "#,
-        at = doc.generated_at,
+        machine = doc.generated_at,
+        at = people.time(doc.generated_at_ms),
+        zone = people.zone_text(doc.generated_at_ms),
         caution = doc.caution.strip_prefix("CAUTION: ").unwrap_or(doc.caution),
     );
     top.push(daemon_state(doc, store));
@@ -31,7 +33,7 @@ fn daemon_state(doc: &StatusDocument, store: &HealthSnapshot) -> Html {
     if let Some((since, why)) = store.failing {
         let mut text = format!(
             "The database has taken none of the agent's writes since {}: {}. {} poll cycles ({} samples) wait in the agent's memory and will be stored when it does; the figures below stop at that time.",
-            report::utc(since),
+            doc.presentation.time(since),
             why.describe(),
             store.held_cycles,
             store.held_samples
@@ -54,7 +56,9 @@ fn daemon_state(doc: &StatusDocument, store: &HealthSnapshot) -> Html {
         markup!(
             r#"<p class="alarm" role="alert">The agent's daemon is not running (last seen {seen}); these figures are not being updated.</p>
 "#,
-            seen = doc.daemon_last_seen.as_deref().unwrap_or("never")
+            seen = doc
+                .daemon_last_seen_ms
+                .map_or("never".to_owned(), |ms| doc.presentation.time(ms))
         )
     } else {
         Html::new()
