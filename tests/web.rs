@@ -52,7 +52,6 @@ fn chromium_path() -> PathBuf {
 /// it) when it is missing and LEAKTALLY_REQUIRE_BROWSER is not set; a
 /// failure that says how to get it when it is missing and required.
 fn chromium() -> Option<PathBuf> {
-    use std::io::Write;
     let path = chromium_path();
     if path.is_file() {
         return Some(path);
@@ -66,12 +65,9 @@ fn chromium() -> Option<PathBuf> {
             path.display()
         );
     }
-    // Straight to the standard error handle: libtest captures println! and
-    // eprintln!, so a SKIPPED said through them would not be seen.
-    let _ = writeln!(
-        std::io::stderr(),
-        "SKIPPED: the browser test (tests/web.rs) needs chromium at {}; {how}",
-        path.display()
+    crate::util::skipped(
+        "the browser test (tests/web.rs)",
+        &format!("it needs chromium at {}; {how}", path.display()),
     );
     None
 }
