@@ -197,6 +197,12 @@ fn the_agent_reconnects_after_the_simulator_restarts_and_marks_the_gap() {
     // once when it ends, with its length.
     let log = poll.stderr();
     println!("the outage in the log:\n{log}");
+    // Readings the device did not answer: poll says so at the end, and
+    // exits 3 as check does (the binary's warning line).
+    assert!(
+        log.contains("reading(s) not answered properly by their device"),
+        "{log}"
+    );
     assert!(!log.contains("in progress"), "{log}");
     for device in ["rtu-east", "rtu-west"] {
         let lines: Vec<&str> = log

@@ -4,7 +4,8 @@
 //! daemon, without the store or any leak tracking, and writes one JSON
 //! document per tank per cycle to standard output ([`Line`], one per line,
 //! each with its `format`). A summary of how many readings were good goes
-//! to standard error at the end.
+//! to standard error at the end; when a device did not answer properly
+//! for any reading, the command exits with code 3, as `check` does.
 
 use crate::acquire;
 use crate::acquire::sample::{Quality, Reading, TankSample};
@@ -159,5 +160,18 @@ pub async fn run(
         "poll: {total} readings, {good} good ({})",
         detail.join(", ")
     );
+    // As `check` does: a device that did not answer, or answered wrongly,
+    // is exit code 3 (the config was valid); a reading flagged for its
+    // value (out of range, stuck) is the sensor's, not the device's.
+    let failed: u64 = [Quality::CommunicationLost, Quality::DeviceError]
+        .iter()
+        .map(|q| counts.get(q.name()).copied().unwrap_or(0))
+        .sum();
+    if failed > 0 {
+        return Err(super::exit::Coded::said(
+            super::exit::DEVICES_FAILED,
+            &format!("{failed} reading(s) not answered properly by their device"),
+        ));
+    }
     Ok(())
 }
