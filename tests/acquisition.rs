@@ -76,10 +76,18 @@ fn polled_values_match_the_simulator_truth() {
     let rho_g_t20 = 860.0 * 9.806_65;
     let mut worst = [0.0f64; 3];
     for s in &samples {
-        let tank = s["tank_id"].as_str().unwrap();
+        assert_eq!(s["format"], 2, "{s}");
+        let tank = s["tank"].as_str().unwrap();
         let at = s["at_ms"].as_i64().unwrap();
-        assert_eq!(s["level"]["quality"], "good", "{s}");
-        let level = s["level"]["value"].as_f64().unwrap();
+        // The time RFC 3339 UTC, the same instant as at_ms.
+        let stamp = s["at"].as_str().unwrap();
+        assert!(stamp.ends_with('Z'), "{s}");
+        assert_eq!(
+            stamp.parse::<jiff::Timestamp>().unwrap().as_millisecond(),
+            at
+        );
+        assert_eq!(s["level_m"]["quality"], "good", "{s}");
+        let level = s["level_m"]["value"].as_f64().unwrap();
         let t = truth.at(tank, at);
         // Within the sensor noise: 5 sigma plus the register's step, plus
         // what the level moves in the 10 ms between register updates.
@@ -98,7 +106,9 @@ fn polled_values_match_the_simulator_truth() {
         match tank {
             "FF-T14" => {
                 // Gauge transmitter in the headspace: the blanket pressure.
-                let p = s["pressure"]["value"].as_f64().unwrap();
+                assert_eq!(s["pressure_pa_absolute"], Value::Null, "{s}");
+                assert_eq!(s["pressure_tap"], "headspace", "{s}");
+                let p = s["pressure_pa_gauge"]["value"].as_f64().unwrap();
                 worst[1] = worst[1].max((p - t.headspace_pa).abs());
                 assert!(
                     (p - t.headspace_pa).abs() <= 5.0 * 30.0,
@@ -109,7 +119,9 @@ fn polled_values_match_the_simulator_truth() {
             "FF-T20" => {
                 // Absolute transmitter at 0.2 m: ambient plus the column
                 // above it, quantised to 250 kPa / 65535.
-                let p = s["pressure"]["value"].as_f64().unwrap();
+                assert_eq!(s["pressure_pa_gauge"], Value::Null, "{s}");
+                assert_eq!(s["pressure_tap"], "submerged", "{s}");
+                let p = s["pressure_pa_absolute"]["value"].as_f64().unwrap();
                 let expected = 101_325.0 + t.headspace_pa + rho_g_t20 * (t.level_m - 0.2);
                 worst[2] = worst[2].max((p - expected).abs());
                 assert!(
@@ -146,11 +158,11 @@ fn the_agent_reconnects_after_the_simulator_restarts_and_marks_the_gap() {
 
     let t12: Vec<(i64, String)> = samples
         .iter()
-        .filter(|s| s["tank_id"] == "FF-T12")
+        .filter(|s| s["tank"] == "FF-T12")
         .map(|s| {
             (
                 s["at_ms"].as_i64().unwrap(),
-                s["level"]["quality"].as_str().unwrap().to_owned(),
+                s["level_m"]["quality"].as_str().unwrap().to_owned(),
             )
         })
         .collect();
@@ -185,6 +197,12 @@ fn the_agent_reconnects_after_the_simulator_restarts_and_marks_the_gap() {
     // once when it ends, with its length.
     let log = poll.stderr();
     println!("the outage in the log:\n{log}");
+    // Readings the device did not answer: poll says so at the end, and
+    // exits 3 as check does (the binary's warning line).
+    assert!(
+        log.contains("reading(s) not answered properly by their device"),
+        "{log}"
+    );
     assert!(!log.contains("in progress"), "{log}");
     for device in ["rtu-east", "rtu-west"] {
         let lines: Vec<&str> = log

@@ -172,6 +172,11 @@ fn replays_reproduce_the_live_figures_and_the_truth() {
     // Loaded after the replay, so it reaches at least as far as the file did.
     let truth = plant.truth();
     let end = readings["replayed"]["at_ms"].as_i64().unwrap();
+    // The document's version, and its times RFC 3339 UTC.
+    assert_eq!(readings["format"], 1);
+    let to: jiff::Timestamp = readings["to"].as_str().unwrap().parse().unwrap();
+    assert_eq!(to.as_millisecond(), end);
+    assert!(readings["from"].as_str().unwrap().ends_with('Z'));
     let (got, exact) = (
         readings["replayed"]["released_best_kg"].as_f64().unwrap(),
         truth.at("FF-T12", end).released_kg - truth.at("FF-T12", start).released_kg,
@@ -799,11 +804,28 @@ fn the_time_series_carries_every_warning_and_the_phase() {
             "phase",
             "choked",
             "warnings",
+            "method_text",
         ]
     );
     let records: Vec<Vec<&str>> = lines.collect();
     assert_eq!(records.len(), 400);
     assert!(records.iter().all(|r| r.len() == header.len()));
+    // The method is a code, the one the JSON uses, with its words beside it;
+    // the time is RFC 3339 UTC, the same instant as at_ms.
+    for r in &records {
+        let (method, text) = (r[9], r[17]);
+        let words = match method {
+            "orifice_given_hole" => "orifice model: given hole",
+            "fitted_hole" => "orifice model: fitted hole",
+            "inventory_balance" => "inventory balance",
+            "no_data" => "no data yet",
+            other => panic!("method {other:?} is not a code"),
+        };
+        assert_eq!(text, words);
+        assert!(r[0].ends_with('Z'), "{}", r[0]);
+        let at: jiff::Timestamp = r[0].parse().unwrap();
+        assert_eq!(at.as_millisecond().to_string(), r[1]);
+    }
     // The last row's warnings are the final estimate's, in its order.
     let last = records.last().unwrap();
     assert_eq!(last[14], "liquid");

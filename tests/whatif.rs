@@ -102,6 +102,10 @@ fn whatif_takes_the_headspace_from_the_last_logged_reading() {
         assert_eq!(headspace["source"], "logged", "{tank}: {headspace:#}");
         let logged = &headspace["logged"];
         let at_ms = logged["at_ms"].as_i64().unwrap();
+        // Machine times are RFC 3339 UTC, the same instant as at_ms.
+        let at: jiff::Timestamp = logged["at"].as_str().unwrap().parse().unwrap();
+        assert_eq!(at.as_millisecond(), at_ms, "{tank}");
+        assert!(logged["at"].as_str().unwrap().ends_with('Z'), "{tank}");
         assert!(
             now_ms() - at_ms < 10_000,
             "{tank}: the reading is the latest"
@@ -180,7 +184,7 @@ fn whatif_takes_the_headspace_from_the_last_logged_reading() {
             "FF-T14",
             "--db",
             db_text,
-            "--headspace-abs",
+            "--headspace-kpa-abs",
             "130",
         ],
     );
@@ -213,11 +217,11 @@ fn a_hole_above_the_liquid_of_the_blanketed_tank_vents_its_gas() {
     let args = [
         "--tank",
         "FF-T14",
-        "--level",
+        "--level-m",
         "1.6",
-        "--hole-height",
+        "--hole-height-m",
         "2.3",
-        "--hole-diameter",
+        "--hole-diameters-mm",
         "25.4",
         "--horizons",
         "5s,1m,30m",
@@ -225,7 +229,7 @@ fn a_hole_above_the_liquid_of_the_blanketed_tank_vents_its_gas() {
     let text = whatif_ok(&scratch, &config, &args);
     println!("{text}");
     for expected in [
-        "15.0 kPa gauge = 116.3 kPa absolute: the nominal blanket pressure in the config",
+        "15.0 kPa(g) = 116 kPa(a): the nominal blanket pressure in the config",
         "vapour, subcritical",
         "isothermal",
         "adiabatic",
@@ -238,7 +242,9 @@ fn a_hole_above_the_liquid_of_the_blanketed_tank_vents_its_gas() {
     assert!(!text.contains("flow stops after"), "{text}");
 
     let doc = json(&scratch, &config, &args);
-    assert_eq!(doc["format"], 1);
+    assert_eq!(doc["format"], 2);
+    let generated: jiff::Timestamp = doc["generated_at"].as_str().unwrap().parse().unwrap();
+    assert!((now_ms() - generated.as_millisecond()).abs() < 60_000);
     let hole = &doc["holes"][0];
     assert_eq!(hole["phase"], "vapour");
     assert_eq!(hole["regime"], "subcritical");
@@ -267,7 +273,11 @@ fn a_hole_above_the_liquid_of_the_blanketed_tank_vents_its_gas() {
     // The bands are named, the horizons labelled.
     let band = &v["band"][1];
     assert_eq!(band["after_s"], 60.0);
-    assert!(band["low_kg"].as_f64().unwrap() <= band["high_kg"].as_f64().unwrap());
+    assert!(
+        band["released_low_kg"].as_f64().unwrap() <= band["released_high_kg"].as_f64().unwrap()
+    );
+    assert!((hole["hole_diameter_m"].as_f64().unwrap() - 0.0254).abs() < 1e-12);
+    assert_eq!(hole["diameter_mm"], Value::Null, "lengths in m only");
     assert!(v["initial_rate_kg_s"]["cd_low"].as_f64().unwrap() > 0.0);
     assert_eq!(doc["horizons_s"], serde_json::json!([5.0, 60.0, 1800.0]));
 
@@ -282,7 +292,7 @@ fn a_hole_above_the_liquid_of_the_blanketed_tank_vents_its_gas() {
     // 50 normal m³/h of nitrogen: 50 * 101325 * 0.02801 / (R * 273.15) / 3600
     // kg/s (the ideal gas law at 0 °C and 101.325 kPa).
     let kg_s = 50.0 * 101_325.0 * 0.028_01 / (GAS_CONSTANT * 273.15) / 3600.0;
-    assert!((supply["kg_s"].as_f64().unwrap() / kg_s - 1.0).abs() < 1e-12);
+    assert!((supply["rate_kg_s"].as_f64().unwrap() / kg_s - 1.0).abs() < 1e-12);
     for bound in ["isothermal", "adiabatic"] {
         let run = &v[bound]["cd_chosen"];
         assert_eq!(run["end"], "steady", "{bound}: {run:#}");
@@ -347,7 +357,7 @@ fn a_hole_above_the_liquid_of_the_blanketed_tank_vents_its_gas() {
         for bound in ["isothermal", "adiabatic"] {
             let at = f(&v[bound]["cd_chosen"]["horizons"][k], "released_kg");
             assert!(
-                f(band, "low_kg") <= at && at <= f(band, "high_kg"),
+                f(band, "released_low_kg") <= at && at <= f(band, "released_high_kg"),
                 "{band:#}"
             );
         }
@@ -383,15 +393,15 @@ fn liquid_holes_with_horizons_a_level_and_an_area() {
     let args = [
         "--tank",
         "FF-T14",
-        "--level",
+        "--level-m",
         "2.0",
-        "--hole-height",
+        "--hole-height-m",
         "0.5",
-        "--hole-area",
+        "--hole-areas-mm2",
         "506.7,8107",
         "--horizons",
         "5m,30m,2h",
-        "--to-level",
+        "--to-level-m",
         "1.0",
         "--cd",
         "0.8",
@@ -416,7 +426,7 @@ fn liquid_holes_with_horizons_a_level_and_an_area() {
         }
         // Torricelli for the headspace held: the orifice equation at the
         // start, Cd A sqrt(2 rho dP), dP = 15 kPa + rho g (2.0 - 0.5).
-        let area = hole["area_mm2"].as_f64().unwrap() * 1e-6;
+        let area = hole["hole_area_m2"].as_f64().unwrap();
         let dp = 15_000.0 + rho * 9.806_65 * 1.5;
         let expected = 0.8 * area * (2.0 * rho * dp).sqrt();
         let got = l["initial_rate_kg_s"]["cd_chosen"].as_f64().unwrap();
@@ -426,9 +436,9 @@ fn liquid_holes_with_horizons_a_level_and_an_area() {
     let text = whatif_ok(&scratch, &config, &args);
     println!("{text}");
     for expected in [
-        "in 5 min",
-        "in 30 min",
-        "in 2 h",
+        "released by 5 min",
+        "released by 30 min",
+        "released by 2 h",
         "level 1.00 m",
         "m³/h",
         "(506.7 mm²)",
@@ -437,7 +447,7 @@ fn liquid_holes_with_horizons_a_level_and_an_area() {
         assert!(text.contains(expected), "missing {expected:?} in:\n{text}");
     }
     assert!(
-        !text.contains("in 15 min"),
+        !text.contains("by 15 min") && !text.contains("in 15 min"),
         "user horizons replace the default:\n{text}"
     );
     // One unit per column: no kg/h anywhere in the rate columns.
@@ -451,19 +461,19 @@ fn whatif_refuses_what_makes_no_sense_and_says_why() {
     let scratch = Scratch::new("whatif-refusals");
     let config = demo_config();
     let cases: &[(&[&str], &str)] = &[
-        (&["--hole-diameter", "1e-300"], "below 0.1 mm"),
-        (&["--hole-diameter", "6000"], "is over 5 m"),
-        (&["--hole-area", "0.001"], "below 0.1 mm"),
+        (&["--hole-diameters-mm", "1e-300"], "below 0.1 mm"),
+        (&["--hole-diameters-mm", "6000"], "is over 5 m"),
+        (&["--hole-areas-mm2", "0.001"], "below 0.1 mm"),
         (
-            &["--hole-area", "5", "--hole-diameter", "5"],
+            &["--hole-areas-mm2", "5", "--hole-diameters-mm", "5"],
             "cannot be used with",
         ),
         (
-            &["--headspace", "10", "--headspace-abs", "110"],
+            &["--headspace-kpa", "10", "--headspace-kpa-abs", "110"],
             "cannot be used with",
         ),
         (
-            &["--headspace", "-150"],
+            &["--headspace-kpa", "-150"],
             "not a gauge pressure the tank can hold",
         ),
         (
@@ -471,9 +481,9 @@ fn whatif_refuses_what_makes_no_sense_and_says_why() {
             "the unit \"m3/h\" is not one",
         ),
         (&["--horizons", "5m,soon"], "is not a duration"),
-        (&["--to-level", "2.4"], "is not below the level"),
-        (&["--level", "3.0"], "above the top of the tank"),
-        (&["--hole-height", "3.0"], "the tank is only 2.5 m tall"),
+        (&["--to-level-m", "2.4"], "is not below the level"),
+        (&["--level-m", "3.0"], "above the top of the tank"),
+        (&["--hole-height-m", "3.0"], "the tank is only 2.5 m tall"),
         (&["--db", "/nonexistent/x.db"], "x.db"),
     ];
     for (extra, expected) in cases {
@@ -539,7 +549,7 @@ fn whatif_refuses_a_tiny_hole_in_the_words_of_leak() {
         "open",
         "--tank",
         "FF-T14",
-        "--hole-diameter",
+        "--hole-diameter-mm",
         "1e-300",
     ])
     .arg("--db")
@@ -548,7 +558,7 @@ fn whatif_refuses_a_tiny_hole_in_the_words_of_leak() {
     assert_eq!(whatif, leak);
     assert_eq!(
         whatif,
-        "error: --hole-diameter 1e-300 mm is below 0.1 mm, smaller than any hole a tank leaks through; the option takes millimetres (25 for a one-inch hole)"
+        "error: --hole-diameter-mm 1e-300 is below 0.1 mm, smaller than any hole a tank leaks through; the option takes millimetres (25 for a one-inch hole)"
     );
 }
 
@@ -601,7 +611,7 @@ fn a_refused_leak_open_ends_its_line() {
         "open",
         "--tank",
         "FF-T12",
-        "--hole-height",
+        "--hole-height-m",
         "0.3",
         "--cd",
         "0.61",
@@ -629,4 +639,64 @@ fn a_refused_leak_open_ends_its_line() {
         "{:?}",
         refused.stderr
     );
+}
+
+/// A site that works in US customary units and its own time zone: the
+/// tables and prose in lb, lb/s, in, ft and psi, one unit per column,
+/// cumulative totals said as such, while the JSON stays SI with the unit in
+/// each name. The old option names still work.
+#[test]
+fn a_us_site_reads_its_own_units_and_the_json_stays_si() {
+    let scratch = Scratch::new("whatif-us");
+    let demo = std::fs::read_to_string(demo_config()).unwrap();
+    let us = demo.replacen(
+        "[site]\n",
+        "[site]\ntime_zone = \"America/Chicago\"\nunits = \"us\"\n",
+        1,
+    );
+    assert_ne!(us, demo, "the demo config has a [site] table");
+    let config = scratch.path("us.toml");
+    std::fs::write(&config, us).unwrap();
+    // The old names, now hidden aliases.
+    let args = [
+        "--tank",
+        "FF-T14",
+        "--level",
+        "2.0",
+        "--hole-height",
+        "0.5",
+        "--hole-diameter",
+        "25.4",
+        "--to-level",
+        "1.0",
+    ];
+    let text = whatif_ok(&scratch, &config, &args);
+    println!("{text}");
+    for expected in [
+        "level      6.56 ft (given)",
+        "1.64 ft above the bottom",
+        "psig = ",
+        "psia",
+        "US gal",
+        "released by 15 min",
+        "released by 1 h",
+        "lb/s",
+        "US gal/min",
+        "level 3.28 ft",
+    ] {
+        assert!(text.contains(expected), "missing {expected:?} in:\n{text}");
+    }
+    for unexpected in [" kg ", "kg/s", "kg/h", "kPa", " mm ", "in 15 min"] {
+        assert!(
+            !text.contains(unexpected),
+            "{unexpected:?} in a US site's text:\n{text}"
+        );
+    }
+    let doc = json(&scratch, &config, &args);
+    assert_eq!(doc["format"], 2);
+    let hole = &doc["holes"][0];
+    assert!((hole["hole_diameter_m"].as_f64().unwrap() - 0.0254).abs() < 1e-12);
+    assert!((doc["level_m"].as_f64().unwrap() - 2.0).abs() < 1e-12);
+    assert!(hole["liquid"]["horizons"][0]["released_kg"]["cd_chosen"].is_f64());
+    assert!(doc["generated_at"].as_str().unwrap().ends_with('Z'));
 }

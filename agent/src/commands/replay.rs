@@ -266,9 +266,20 @@ pub struct Outputs {
     pub protect: Vec<PathBuf>,
 }
 
+/// The version of the summary document (`replay --json`); fields are only
+/// ever added within a version. 1: `from` and `to` RFC 3339 UTC.
+pub const FORMAT: u32 = 1;
+
+/// The version of the time series CSV (`replay --csv`): columns are only
+/// ever appended. 2: `time` RFC 3339 UTC with milliseconds, `method` a code
+/// (`orifice_given_hole`, `fitted_hole`, `inventory_balance`, `no_data`, as
+/// in the JSON) and `method_text` its words.
+pub const CSV_FORMAT: u32 = 2;
+
 /// The replay's summary document (`--json`).
 #[derive(Debug, Clone, Serialize)]
 pub struct Summary {
+    pub format: u32,
     pub event: Option<i64>,
     pub tank: String,
     pub revision: Option<i64>,
@@ -282,8 +293,18 @@ pub struct Summary {
     /// How a readings file was read: every column used or unused, the
     /// pressure conversion, repeated and out-of-order times, warnings.
     pub readings: Option<ImportReport>,
+    /// RFC 3339 UTC.
     pub from: String,
+    /// RFC 3339 UTC.
     pub to: String,
+    /// The same, ms since 1970 UTC, for the text.
+    #[serde(skip)]
+    pub from_ms: i64,
+    #[serde(skip)]
+    pub to_ms: i64,
+    /// The site's zone and units, for the text; not in the document.
+    #[serde(skip)]
+    pub site: report::Presentation,
     /// The final replayed estimate.
     pub replayed: Estimate,
     /// The same in words: why, the fit, the band, every warning.
@@ -427,7 +448,9 @@ fn replay_event(
         }
         None => (None, 0, 0),
     };
+    let site = report::Presentation::of(&config);
     let mut summary = Summary {
+        format: FORMAT,
         event: Some(row.id),
         tank: row.tank.clone(),
         revision: Some(row.revision),
@@ -437,13 +460,12 @@ fn replay_event(
         samples,
         skipped_rows: Vec::new(),
         readings: None,
-        from: report::utc(from),
-        to: report::utc(replayed.at_ms),
-        replayed_words: report::estimate::Words::of(
-            &replayed,
-            &params,
-            &report::Presentation::default(),
-        ),
+        from: report::rfc3339(from),
+        to: report::rfc3339(replayed.at_ms),
+        from_ms: from,
+        to_ms: replayed.at_ms,
+        replayed_words: report::estimate::Words::of(&replayed, &params, &site),
+        site,
         density_text: density_text(tank, &params, &replayed),
         replayed,
         live: live_last,
@@ -684,7 +706,9 @@ fn replay_readings(
         }
     })?;
     let from = feed.from.unwrap_or(replayed.at_ms);
+    let site = report::Presentation::of(&config);
     let mut summary = Summary {
+        format: FORMAT,
         event: None,
         tank: tank_id.to_owned(),
         revision: None,
@@ -694,13 +718,12 @@ fn replay_readings(
         samples: feed.samples,
         skipped_rows: report.skipped.clone(),
         readings: Some(report),
-        from: report::utc(from),
-        to: report::utc(replayed.at_ms),
-        replayed_words: report::estimate::Words::of(
-            &replayed,
-            &params,
-            &report::Presentation::default(),
-        ),
+        from: report::rfc3339(from),
+        to: report::rfc3339(replayed.at_ms),
+        from_ms: from,
+        to_ms: replayed.at_ms,
+        replayed_words: report::estimate::Words::of(&replayed, &params, &site),
+        site,
         density_text: density_text(tank, &params, &replayed),
         replayed,
         live: None,
@@ -884,6 +907,9 @@ struct Row<'a> {
     choked: Option<bool>,
     /// The estimate's warning codes, joined by `;`.
     warnings: String,
+    /// `method` in words, for people reading the file (its comma a colon,
+    /// so that no field needs quoting: `orifice model: given hole`).
+    method_text: String,
 }
 
 /// Where each estimate goes as it comes: the CSV, the chart's thinned
@@ -997,9 +1023,7 @@ fn write_row(w: &mut csv::Writer<File>, e: &Estimate, hole_height_m: f64) -> any
         e.headspace_pa.max(0.0)
     };
     w.serialize(Row {
-        time: jiff::Timestamp::from_millisecond(e.at_ms)
-            .map(|t| t.to_string())
-            .unwrap_or_default(),
+        time: report::rfc3339(e.at_ms),
         at_ms: e.at_ms,
         level_m: e.level_m,
         driving_pressure_pa: driving,
@@ -1021,6 +1045,7 @@ fn write_row(w: &mut csv::Writer<File>, e: &Estimate, hole_height_m: f64) -> any
             .map(report::estimate::warning_code)
             .collect::<Vec<_>>()
             .join(";"),
+        method_text: report::estimate::method_name(e.method).replace(", ", ": "),
     })?;
     Ok(())
 }
@@ -1227,7 +1252,8 @@ impl Drop for OutputFile {
 
 /// The summary for people.
 pub fn human(s: &Summary) -> String {
-    let kg = |x: f64| report::mass(Mass::kilograms(x));
+    let p = &s.site;
+    let kg = |x: f64| p.mass(Mass::kilograms(x));
     let mut out = String::new();
     let what = match s.event {
         Some(id) => format!(
@@ -1240,7 +1266,9 @@ pub fn human(s: &Summary) -> String {
     let _ = writeln!(
         out,
         "Replay of {what}: {} samples from {} to {}",
-        s.samples, s.from, s.to
+        s.samples,
+        p.time(s.from_ms),
+        p.time(s.to_ms)
     );
     let _ = writeln!(
         out,
@@ -1276,8 +1304,8 @@ pub fn human(s: &Summary) -> String {
     out += &column("orifice model", model(r), live.map(model));
     out += &column(
         "rate at end",
-        report::rate(MassRate::kg_per_second(r.rate_best_kg_s)),
-        live.map(|l| report::rate(MassRate::kg_per_second(l.rate_best_kg_s))),
+        p.rate(MassRate::kg_per_second(r.rate_best_kg_s)),
+        live.map(|l| p.rate(MassRate::kg_per_second(l.rate_best_kg_s))),
     );
     out += &column(
         "method",
@@ -1285,9 +1313,17 @@ pub fn human(s: &Summary) -> String {
         live.map(|l| report::estimate::method_name(l.method).into()),
     );
     let area = |e: &Estimate| {
-        e.fit.area().map_or("-".to_owned(), |(_, k, _)| {
-            format!("Cd·A {} mm²", report::number(k * 1e6))
-        })
+        e.fit
+            .area()
+            .map_or("-".to_owned(), |(_, k, _)| match p.units {
+                report::presentation::Units::Metric => {
+                    format!("Cd·A {} mm²", report::number(k * 1e6))
+                }
+                report::presentation::Units::UsCustomary => format!(
+                    "Cd·A {} in²",
+                    report::number(k * report::presentation::INCHES_PER_M.powi(2))
+                ),
+            })
     };
     out += &column("fitted hole", area(r), live.map(area));
     out += &column(
@@ -1315,7 +1351,7 @@ pub fn human(s: &Summary) -> String {
         let _ = writeln!(
             out,
             "volume       {}",
-            report::volumes(
+            p.volume(
                 Mass::kilograms(r.released_best_kg),
                 Density::kg_per_cubic_metre(r.density_kg_m3)
             )
@@ -1324,9 +1360,9 @@ pub fn human(s: &Summary) -> String {
     if let Some(f) = &r.forecast {
         let _ = writeln!(
             out,
-            "forecast     at the end: flow stops {} later at {:.2} m, total then {}",
+            "forecast     at the end: flow stops {} later at {}, total then {}",
             report::duration(TimeSpan::seconds(f.stops_after_s)),
-            f.stop_level_m,
+            p.length(f.stop_level_m),
             kg(f.total_at_stop_kg)
         );
     }
@@ -1335,7 +1371,7 @@ pub fn human(s: &Summary) -> String {
             out,
             "reportable   {}: {}",
             kg(c.quantity_kg),
-            report::estimate::crossing_text(c, &report::Presentation::default())
+            report::estimate::crossing_text(c, p)
         );
     }
     match s.identical {

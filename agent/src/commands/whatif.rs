@@ -37,7 +37,8 @@ use crate::model::{
     Temperature, TimeSpan, Vessel, blowdown::ullage_volume, forecast::time_to_release,
     forecast_liquid,
 };
-use crate::report;
+use crate::report::presentation::Units;
+use crate::report::{self, Presentation};
 use crate::store;
 use anyhow::{Context, bail};
 use serde::Serialize;
@@ -45,8 +46,10 @@ use std::f64::consts::FRAC_PI_4;
 use std::fmt::Write as _;
 use std::path::{Path, PathBuf};
 
-/// The version of the JSON document; fields are only ever added.
-pub const FORMAT: u32 = 1;
+/// The version of the JSON document; fields are only ever added within a
+/// version. 2: hole sizes in m (`hole_diameter_m`, `hole_area_m2`), the
+/// unit in every field's name, machine times RFC 3339 UTC, `generated_at`.
+pub const FORMAT: u32 = 2;
 
 /// Representative hole sizes for pre-planning: the small, medium and large
 /// release holes of 1/4 in, 1 in and 4 in used in risk-based inspection
@@ -146,6 +149,8 @@ pub struct Request {
     pub horizons: Option<Vec<TimeSpan>>,
     pub to_level: Option<Length>,
     pub supply: Option<SupplyGiven>,
+    /// The site's zone and units, for the prose (warnings, assumptions).
+    pub site: Presentation,
 }
 
 impl Request {
@@ -161,6 +166,7 @@ impl Request {
             horizons: None,
             to_level: None,
             supply: None,
+            site: Presentation::default(),
         }
     }
 }
@@ -199,7 +205,11 @@ pub enum HeadspaceSource {
 pub struct LoggedReading {
     pub database: String,
     pub at_ms: i64,
+    /// RFC 3339 UTC.
     pub at: String,
+    /// The same time in the site's zone, for the prose.
+    #[serde(skip)]
+    pub at_site: String,
     /// How old it was when the study was made.
     pub age_s: f64,
     /// The transmitter's value, Pa, in its own reference.
@@ -226,14 +236,14 @@ impl HeadspaceSource {
 
     fn explain(&self) -> String {
         match self {
-            HeadspaceSource::GivenGauge => "given with --headspace".to_owned(),
+            HeadspaceSource::GivenGauge => "given with --headspace-kpa".to_owned(),
             HeadspaceSource::GivenAbsolute => {
-                "given with --headspace-abs, less the site's ambient pressure".to_owned()
+                "given with --headspace-kpa-abs, less the site's ambient pressure".to_owned()
             }
             HeadspaceSource::Logged(r) => format!(
                 "the last good pressure reading in {}, at {} ({} old)",
                 r.database,
-                r.at,
+                r.at_site,
                 report::duration(TimeSpan::seconds(r.age_s))
             ),
             HeadspaceSource::ConfigNominal => {
@@ -268,7 +278,7 @@ pub fn headspace_from_config(tank: &Tank, mut warnings: Vec<String>) -> Headspac
         },
         (Some(_), None) => {
             warnings.push(format!(
-                "the headspace pressure of tank {} is taken as 0 kPa gauge, but the tank has a pressure transmitter, so it may be blanketed or pressurised: the figures may be low (the unsafe side). Give --headspace KPA, --db FILE for the last logged reading, or nominal_headspace_kpa in the config",
+                "the headspace pressure of tank {} is taken as 0 kPa gauge, but the tank has a pressure transmitter, so it may be blanketed or pressurised: the figures may be low (the unsafe side). Give --headspace-kpa KPA, --db FILE for the last logged reading, or nominal_headspace_kpa in the config",
                 tank.id
             ));
             Headspace {
@@ -287,6 +297,7 @@ pub fn headspace(
     given: Option<HeadspaceGiven>,
     db: Option<&Path>,
     now_ms: i64,
+    site: &Presentation,
 ) -> anyhow::Result<Headspace> {
     let ambient_kpa = tank.vessel.ambient().si() / 1000.0;
     let mut warnings = Vec::new();
@@ -295,12 +306,12 @@ pub fn headspace(
             HeadspaceGiven::Gauge(kpa) => {
                 if !(kpa.is_finite() && kpa > -ambient_kpa && kpa <= 10_000.0) {
                     bail!(
-                        "--headspace {kpa} kPa is not a gauge pressure the tank can hold: give kPa above ambient, from above -{ambient_kpa} (a full vacuum) to 10000"
+                        "--headspace-kpa {kpa} kPa is not a gauge pressure the tank can hold: give kPa above ambient, from above -{ambient_kpa} (a full vacuum) to 10000"
                     );
                 }
                 if (kpa - ambient_kpa).abs() < 5.0 {
                     warnings.push(format!(
-                        "--headspace {kpa} kPa gauge is about the ambient pressure ({ambient_kpa} kPa absolute); if you meant an absolute pressure, use --headspace-abs {kpa}"
+                        "--headspace-kpa {kpa} kPa gauge is about the ambient pressure ({ambient_kpa} kPa absolute); if you meant an absolute pressure, use --headspace-kpa-abs {kpa}"
                     ));
                 }
                 (kpa, HeadspaceSource::GivenGauge)
@@ -308,13 +319,13 @@ pub fn headspace(
             HeadspaceGiven::Absolute(kpa) => {
                 if !(kpa.is_finite() && kpa > 0.0 && kpa <= 10_000.0 + ambient_kpa) {
                     bail!(
-                        "--headspace-abs {kpa} kPa is not an absolute pressure the tank can hold: give kPa above a full vacuum, more than 0 and at most {}",
+                        "--headspace-kpa-abs {kpa} kPa is not an absolute pressure the tank can hold: give kPa above a full vacuum, more than 0 and at most {}",
                         10_000.0 + ambient_kpa
                     );
                 }
                 if kpa < ambient_kpa - 30.0 {
                     warnings.push(format!(
-                        "--headspace-abs {kpa} kPa absolute is a deep vacuum ({:.1} kPa gauge); if you meant a gauge pressure, use --headspace {kpa}",
+                        "--headspace-kpa-abs {kpa} kPa absolute is a deep vacuum ({:.1} kPa gauge); if you meant a gauge pressure, use --headspace-kpa {kpa}",
                         kpa - ambient_kpa
                     ));
                 }
@@ -341,7 +352,7 @@ pub fn headspace(
                 db.display()
             ));
         } else {
-            match last_logged_headspace(tank, db, now_ms)? {
+            match last_logged_headspace(tank, db, now_ms, site)? {
                 Some((gauge, reading)) => {
                     if reading.age_s > OLD_READING_S {
                         warnings.push(format!(
@@ -349,7 +360,7 @@ pub fn headspace(
                             tank.id,
                             reading.database,
                             report::duration(TimeSpan::seconds(reading.age_s)),
-                            reading.at
+                            reading.at_site
                         ));
                     }
                     return Ok(Headspace {
@@ -377,6 +388,7 @@ fn last_logged_headspace(
     tank: &Tank,
     db: &Path,
     now_ms: i64,
+    site: &Presentation,
 ) -> anyhow::Result<Option<(Pressure, LoggedReading)>> {
     let Some(sensor) = &tank.pressure else {
         return Ok(None);
@@ -417,7 +429,8 @@ fn last_logged_headspace(
                 LoggedReading {
                     database: db.display().to_string(),
                     at_ms: sample.at_ms,
-                    at: report::utc(sample.at_ms),
+                    at: report::rfc3339(sample.at_ms),
+                    at_site: site.time(sample.at_ms),
                     age_s: (now_ms - sample.at_ms) as f64 / 1000.0,
                     reading_pa: value,
                     reference: if sensor.absolute { "absolute" } else { "gauge" },
@@ -458,7 +471,11 @@ pub struct DensityUsed {
 pub struct LoggedTemperature {
     pub database: String,
     pub at_ms: i64,
+    /// RFC 3339 UTC.
     pub at: String,
+    /// The same time in the site's zone, for the prose.
+    #[serde(skip)]
+    pub at_site: String,
     /// How old it was when the study was made.
     pub age_s: f64,
     pub temperature_c: f64,
@@ -515,7 +532,12 @@ pub fn density_from_config(tank: &Tank, why_not: Option<String>) -> DensityUsed 
 /// The density a study uses: with `--db` and a tank whose density follows
 /// its temperature sensor, at the liquid's last good logged temperature
 /// (read-only, like the pressure); else from the config, said as such.
-pub fn liquid_density(tank: &Tank, db: Option<&Path>, now_ms: i64) -> anyhow::Result<DensityUsed> {
+pub fn liquid_density(
+    tank: &Tank,
+    db: Option<&Path>,
+    now_ms: i64,
+    site: &Presentation,
+) -> anyhow::Result<DensityUsed> {
     let (Some(db), Some(sensor)) = (db, &tank.temperature) else {
         return Ok(density_from_config(tank, None));
     };
@@ -537,7 +559,8 @@ pub fn liquid_density(tank: &Tank, db: Option<&Path>, now_ms: i64) -> anyhow::Re
             let logged = LoggedTemperature {
                 database: db.display().to_string(),
                 at_ms,
-                at: report::utc(at_ms),
+                at: report::rfc3339(at_ms),
+                at_site: site.time(at_ms),
                 age_s: (now_ms - at_ms) as f64 / 1000.0,
                 temperature_c: kelvin - 273.15,
             };
@@ -548,7 +571,7 @@ pub fn liquid_density(tank: &Tank, db: Option<&Path>, now_ms: i64) -> anyhow::Re
                     tank.id,
                     logged.database,
                     report::duration(TimeSpan::seconds(logged.age_s)),
-                    logged.at
+                    logged.at_site
                 ));
             }
             return Ok(DensityUsed {
@@ -558,7 +581,7 @@ pub fn liquid_density(tank: &Tank, db: Option<&Path>, now_ms: i64) -> anyhow::Re
                     "at the liquid's last good logged temperature, {} °C, in {} at {} ({} old), through the config's {}",
                     report::number(logged.temperature_c),
                     logged.database,
-                    logged.at,
+                    logged.at_site,
                     report::duration(TimeSpan::seconds(logged.age_s)),
                     density_model_name(&tank.density)
                 ),
@@ -621,10 +644,15 @@ pub struct CdUsed {
     pub given: bool,
 }
 
-/// A what-if study of one tank (the JSON document, `format` 1).
+/// A what-if study of one tank (the JSON document, `format` 2).
 #[derive(Debug, Clone, Serialize)]
 pub struct Study {
     pub format: u32,
+    /// When the study was made, RFC 3339 UTC.
+    pub generated_at: String,
+    /// The site's presentation, for the text; not in the document.
+    #[serde(skip)]
+    pub site: Presentation,
     pub tank: String,
     pub substance: String,
     pub density_kg_m3: f64,
@@ -669,8 +697,8 @@ pub struct HeadspaceUsed {
 
 #[derive(Debug, Clone, Serialize)]
 pub struct SupplyUsed {
-    pub kg_s: f64,
-    pub nm3_h: f64,
+    pub rate_kg_s: f64,
+    pub rate_nm3_h: f64,
     /// As given, e.g. `50 Nm3/h`.
     pub given: String,
 }
@@ -678,7 +706,12 @@ pub struct SupplyUsed {
 /// The figures for one hole size.
 #[derive(Debug, Clone, Serialize)]
 pub struct HoleStudy {
+    pub hole_diameter_m: f64,
+    pub hole_area_m2: f64,
+    /// The same in mm and mm², for Rust callers; not in the document.
+    #[serde(skip)]
     pub diameter_mm: f64,
+    #[serde(skip)]
     pub area_mm2: f64,
     /// `diameter`, `area` or `representative`.
     pub given_as: &'static str,
@@ -835,8 +868,8 @@ impl EndRange {
 #[derive(Debug, Clone, Copy, Serialize)]
 pub struct ReleasedBand {
     pub after_s: Option<f64>,
-    pub low_kg: f64,
-    pub high_kg: f64,
+    pub released_low_kg: f64,
+    pub released_high_kg: f64,
 }
 
 #[derive(Debug, Clone, Serialize)]
@@ -924,7 +957,7 @@ pub fn compute(tank: &Tank, request: &Request) -> anyhow::Result<Study> {
         let target_m = geometry.check_level(target)?;
         if target_m >= level.si() {
             bail!(
-                "--to-level {target_m} m is not below the level {} m; give a level the liquid falls to",
+                "--to-level-m {target_m} m is not below the level {} m; give a level the liquid falls to",
                 level.si()
             );
         }
@@ -949,6 +982,8 @@ pub fn compute(tank: &Tank, request: &Request) -> anyhow::Result<Study> {
     for &size in &holes {
         let hole = Hole::new(Length::millimetres(size.diameter_mm()), hole_height)?;
         let mut study = HoleStudy {
+            hole_diameter_m: size.diameter_mm() / 1000.0,
+            hole_area_m2: size.area_mm2() * 1e-6,
             diameter_mm: size.diameter_mm(),
             area_mm2: size.area_mm2(),
             given_as: size.given_as(),
@@ -973,8 +1008,8 @@ pub fn compute(tank: &Tank, request: &Request) -> anyhow::Result<Study> {
                 )?);
             } else {
                 study.reason = format!(
-                    "the headspace vacuum ({} kPa gauge) holds the liquid column: nothing flows out (air would be drawn in)",
-                    kpa(headspace.si())
+                    "the headspace vacuum ({}) holds the liquid column: nothing flows out (air would be drawn in)",
+                    request.site.gauge_pressure(headspace.si() / 1000.0)
                 );
             }
         } else if headspace.si() <= 0.0 {
@@ -985,7 +1020,15 @@ pub fn compute(tank: &Tank, request: &Request) -> anyhow::Result<Study> {
                     .to_owned();
         } else if let Some(gas) = &gas {
             let ullage = Ullage::new(ullage, *gas, ambient + headspace, ambient)?;
-            let vapour = vapour_figures(tank, &ullage, &hole, &band, supply.as_ref(), &horizons)?;
+            let vapour = vapour_figures(
+                tank,
+                &ullage,
+                &hole,
+                &band,
+                supply.as_ref(),
+                &horizons,
+                &request.site,
+            )?;
             study.phase = "vapour";
             study.regime = Some(regime_name(vapour.1));
             study.reason = format!(
@@ -997,8 +1040,8 @@ pub fn compute(tank: &Tank, request: &Request) -> anyhow::Result<Study> {
             study.phase = "vapour";
             study.reason = "the surface is below the hole: the headspace gas vents, but the config gives no vapour properties for this tank".to_owned();
             warnings.push(format!(
-                "the {} mm hole is above the liquid, where the headspace gas vents, but tank {} has no vapour properties in the config: no gas forecast; add vapour = {{ molar_mass_g_mol = ..., heat_capacity_ratio = ..., temperature_c = ... }} to its [tank.substance]",
-                self::size(size.diameter_mm()),
+                "the {} hole is above the liquid, where the headspace gas vents, but tank {} has no vapour properties in the config: no gas forecast; add vapour = {{ molar_mass_g_mol = ..., heat_capacity_ratio = ..., temperature_c = ... }} to its [tank.substance]",
+                hole_size_text(&request.site, size.diameter_mm()),
                 tank.id
             ));
         }
@@ -1010,13 +1053,13 @@ pub fn compute(tank: &Tank, request: &Request) -> anyhow::Result<Study> {
     let any_vapour = figures.iter().any(|h| h.vapour.is_some());
     if any_liquid {
         assumptions.push(format!(
-            "Liquid: the orifice equation with the headspace held at {} kPa gauge (an open vent or a blanket regulator), no pumping, and a hole that does not grow. A forecast never releases more than the liquid above the hole ({}): it drains the tank at most down to the hole.",
-            kpa(headspace.si()),
-            report::mass(Mass::kilograms(liquid_above))
+            "Liquid: the orifice equation with the headspace held at {} (an open vent or a blanket regulator), no pumping, and a hole that does not grow. A forecast never releases more than the liquid above the hole ({}): it drains the tank at most down to the hole.",
+            request.site.gauge_pressure(headspace.si() / 1000.0),
+            request.site.mass(Mass::kilograms(liquid_above))
         ));
         if headspace.si() > 0.0 {
             assumptions.push(
-                "Once the liquid stops, the pressurised headspace gas would vent through the same hole: not included; a study with --hole-height above the liquid gives it.".to_owned(),
+                "Once the liquid stops, the pressurised headspace gas would vent through the same hole: not included; a study with --hole-height-m above the liquid gives it.".to_owned(),
             );
         }
         if let (Some(s), Some(gas)) = (&supply, &gas) {
@@ -1024,17 +1067,17 @@ pub fn compute(tank: &Tank, request: &Request) -> anyhow::Result<Study> {
             // the headspace pressure to hold it.
             let gas_density = (ambient + headspace).si() * gas.molar_mass().si()
                 / (GAS_CONSTANT * gas.temperature().si());
-            let holds_m3_h = s.kg_s / gas_density * 3600.0;
+            let holds_m3_h = s.rate_kg_s / gas_density * 3600.0;
             for h in &figures {
                 if let Some(l) = &h.liquid
                     && l.initial_rate_m3_h.cd_chosen > holds_m3_h
                 {
                     warnings.push(format!(
-                        "a blanket supply of {} replaces the liquid only up to {} m³/h at the headspace pressure, and the {} mm hole starts at {} m³/h: the headspace would fall, so its liquid figures are high (the safe side)",
+                        "a blanket supply of {} replaces the liquid only up to {} at the headspace pressure, and the {} hole starts at {}: the headspace would fall, so its liquid figures are high (the safe side)",
                         s.given,
-                        report::number(holds_m3_h),
-                        self::size(h.diameter_mm),
-                        report::number(l.initial_rate_m3_h.cd_chosen)
+                        flow_text(&request.site, holds_m3_h),
+                        hole_size_text(&request.site, h.hole_diameter_m * 1000.0),
+                        flow_text(&request.site, l.initial_rate_m3_h.cd_chosen)
                     ));
                 }
             }
@@ -1048,9 +1091,9 @@ pub fn compute(tank: &Tank, request: &Request) -> anyhow::Result<Study> {
         });
         assumptions.push(match &supply {
             Some(s) => format!(
-                "Blanket supply on: pad gas of the configured vapour at its temperature, at up to {} ({} kg/s), by a regulator whose set point is the headspace pressure; steady means the outflow within 1 % of the supply for good.",
+                "Blanket supply on: pad gas of the configured vapour at its temperature, at up to {} ({}), by a regulator whose set point is the headspace pressure; steady means the outflow within 1 % of the supply for good.",
                 s.given,
-                report::number(s.kg_s)
+                request.site.rate(MassRate::kg_per_second(s.rate_kg_s))
             ),
             None => "Blanket supply off (give --blanket-supply for a regulator that keeps feeding pad gas).".to_owned(),
         });
@@ -1072,6 +1115,8 @@ pub fn compute(tank: &Tank, request: &Request) -> anyhow::Result<Study> {
     let (gauge, absolute) = (headspace.si(), (ambient + headspace).si());
     Ok(Study {
         format: FORMAT,
+        generated_at: report::rfc3339(crate::store::now_ms()),
+        site: request.site.clone(),
         tank: tank.id.clone(),
         substance: tank.substance.clone(),
         density_kg_m3: rho,
@@ -1142,8 +1187,8 @@ fn supply_used(given: SupplyGiven, gas: &GasProperties) -> anyhow::Result<Supply
         }
     };
     Ok(SupplyUsed {
-        kg_s,
-        nm3_h: kg_s * 3600.0 / normal_density,
+        rate_kg_s: kg_s,
+        rate_nm3_h: kg_s * 3600.0 / normal_density,
         given: text,
     })
 }
@@ -1233,10 +1278,11 @@ fn vapour_figures(
     band: &[DischargeCoefficient; 3],
     supply: Option<&SupplyUsed>,
     horizons: &[TimeSpan],
+    site: &Presentation,
 ) -> anyhow::Result<(VapourFigures, Option<GasRegime>)> {
     let gas = ullage.gas();
     let ambient = ullage.ambient();
-    let supply_rate = MassRate::kg_per_second(supply.map_or(0.0, |s| s.kg_s));
+    let supply_rate = MassRate::kg_per_second(supply.map_or(0.0, |s| s.rate_kg_s));
     let normal_density =
         NORMAL_PRESSURE_PA * gas.molar_mass().si() / (GAS_CONSTANT * NORMAL_TEMPERATURE_K);
     let mut runs: Vec<(Thermal, Vec<BlowdownForecast>)> = Vec::new();
@@ -1301,8 +1347,8 @@ fn vapour_figures(
             let (low, high) = spread(all.iter().map(|f| f.horizons[k].released.si()).collect());
             ReleasedBand {
                 after_s: Some(horizons[k].si()),
-                low_kg: low,
-                high_kg: high,
+                released_low_kg: low,
+                released_high_kg: high,
             }
         })
         .collect();
@@ -1336,6 +1382,7 @@ fn vapour_figures(
         &isothermal.cd_chosen,
         &adiabatic.cd_chosen,
         supply.is_some(),
+        site,
     );
     Ok((
         VapourFigures {
@@ -1353,8 +1400,8 @@ fn vapour_figures(
             band: band_out,
             released_by_end_band: ReleasedBand {
                 after_s: None,
-                low_kg: end_low,
-                high_kg: end_high,
+                released_low_kg: end_low,
+                released_high_kg: end_high,
             },
             isothermal_end: EndRange::of(&runs[0].1),
             adiabatic_end: EndRange::of(&runs[1].1),
@@ -1369,7 +1416,12 @@ fn vapour_figures(
 /// they usually do: with a supply the adiabatic bound, whose gas is cooler
 /// and denser, can end later and release more by its end than the
 /// isothermal one, and the release goes on after either end.
-fn compare_bounds(iso: &BlowdownFigures, adi: &BlowdownFigures, supply: bool) -> String {
+fn compare_bounds(
+    iso: &BlowdownFigures,
+    adi: &BlowdownFigures,
+    supply: bool,
+    site: &Presentation,
+) -> String {
     let ends = |f: &BlowdownFigures| matches!(f.end, "ambient" | "steady");
     if !(ends(iso) && ends(adi)) {
         return match (iso.end, adi.end) {
@@ -1379,9 +1431,9 @@ fn compare_bounds(iso: &BlowdownFigures, adi: &BlowdownFigures, supply: bool) ->
     }
     let said = |f: &BlowdownFigures| {
         format!(
-            "ends after {} having released {} kg",
+            "ends after {} having released {}",
             hms_tenths(f.end_after_s),
-            kg(f.released_by_end_kg)
+            site.mass(Mass::kilograms(f.released_by_end_kg))
         )
     };
     let facts = format!(
@@ -1497,8 +1549,104 @@ impl Table {
     }
 }
 
-fn kg(x: f64) -> String {
-    report::number(x)
+/// A mass in the site's unit, the number alone (the unit heads the column).
+fn mass_number(p: &Presentation, kg: f64) -> String {
+    match p.units {
+        Units::Metric => report::number(kg),
+        Units::UsCustomary => report::number(kg * report::presentation::POUNDS_PER_KG),
+    }
+}
+
+/// The mass unit of a column: `kg` or `lb`.
+fn mass_unit(p: &Presentation) -> &'static str {
+    match p.units {
+        Units::Metric => "kg",
+        Units::UsCustomary => "lb",
+    }
+}
+
+/// A mass rate in the site's unit per second, the number alone.
+fn rate_number(p: &Presentation, kg_s: f64) -> String {
+    mass_number(p, kg_s)
+}
+
+/// The rate unit of a column: `kg/s` or `lb/s`, per second throughout.
+fn rate_unit(p: &Presentation) -> &'static str {
+    match p.units {
+        Units::Metric => "kg/s",
+        Units::UsCustomary => "lb/s",
+    }
+}
+
+/// US gallons a minute in one cubic metre an hour.
+const US_GPM_PER_M3_H: f64 = 1000.0 / report::LITRES_PER_US_GALLON / 60.0;
+
+/// A liquid volume flow, the number alone: m³/h, or US gal/min.
+fn flow_number(p: &Presentation, m3_h: f64) -> String {
+    match p.units {
+        Units::Metric => report::number(m3_h),
+        Units::UsCustomary => report::number(m3_h * US_GPM_PER_M3_H),
+    }
+}
+
+fn flow_unit(p: &Presentation) -> &'static str {
+    match p.units {
+        Units::Metric => "m³/h",
+        Units::UsCustomary => "US gal/min",
+    }
+}
+
+/// A liquid volume flow with its unit.
+fn flow_text(p: &Presentation, m3_h: f64) -> String {
+    format!("{} {}", flow_number(p, m3_h), flow_unit(p))
+}
+
+/// The unit a hole's size is given in: `mm` or `in`.
+fn hole_unit(p: &Presentation) -> &'static str {
+    match p.units {
+        Units::Metric => "mm",
+        Units::UsCustomary => "in",
+    }
+}
+
+/// A hole's diameter as given (6.35 mm, or 0.25 in), the number alone.
+fn hole_size(p: &Presentation, mm: f64) -> String {
+    match p.units {
+        Units::Metric => size(mm),
+        Units::UsCustomary => size(mm / 25.4),
+    }
+}
+
+/// A hole's diameter with its unit, for the prose.
+fn hole_size_text(p: &Presentation, mm: f64) -> String {
+    format!("{} {}", hole_size(p, mm), hole_unit(p))
+}
+
+/// A gauge pressure in Pa as the site reads it: `12.0 kPa(g)` or `1.74 psig`.
+fn gauge(p: &Presentation, pa: f64) -> String {
+    p.gauge_pressure(pa / 1000.0)
+}
+
+/// An absolute pressure in Pa as the site reads it: `113 kPa(a)` or `16.4 psia`.
+fn absolute(p: &Presentation, pa: f64) -> String {
+    match p.units {
+        Units::Metric => format!("{} kPa(a)", report::number(pa / 1000.0)),
+        Units::UsCustomary => format!(
+            "{} psia",
+            report::number(pa / 1000.0 * report::presentation::PSI_PER_KPA)
+        ),
+    }
+}
+
+/// A gas volume: `12.0 m³`, or `424 ft³`.
+fn gas_volume(p: &Presentation, m3: f64) -> String {
+    match p.units {
+        Units::Metric => format!("{} m³", report::number(m3)),
+        Units::UsCustomary => format!(
+            "{} ft³",
+            report::number(m3 * report::presentation::FEET_PER_M.powi(3))
+        ),
+    }
 }
 
 /// A hole size as given (6.35, 25.4, 101.6): up to four significant
@@ -1511,18 +1659,6 @@ fn size(x: f64) -> String {
         text.trim_end_matches('0').trim_end_matches('.').to_owned()
     } else {
         text
-    }
-}
-
-/// A pressure in kPa with one decimal, as gauges show it (three figures
-/// under 1 kPa).
-fn kpa(pa: f64) -> String {
-    let kpa = pa / 1000.0;
-    if kpa != 0.0 && kpa.abs() < 1.0 {
-        // A pressure a small supply holds just above ambient.
-        report::number(kpa)
-    } else {
-        format!("{kpa:.1}")
     }
 }
 
@@ -1545,6 +1681,7 @@ fn hms_tenths(seconds: f64) -> String {
 
 /// The study as text for people.
 pub fn human(s: &Study) -> String {
+    let p = &s.site;
     let mut out = String::new();
     let _ = writeln!(
         out,
@@ -1556,9 +1693,9 @@ pub fn human(s: &Study) -> String {
     let level_note = if s.level_source == "given" {
         "given"
     } else {
-        "90 % of the tank's height, the default; give --level"
+        "90 % of the tank's height, the default; give --level-m"
     };
-    let _ = writeln!(out, "  level      {:.2} m ({level_note})", s.level_m);
+    let _ = writeln!(out, "  level      {} ({level_note})", p.length(s.level_m));
     let _ = writeln!(
         out,
         "  density    {} kg/m³: {}",
@@ -1567,15 +1704,15 @@ pub fn human(s: &Study) -> String {
     );
     let _ = writeln!(
         out,
-        "  headspace  {} kPa gauge = {} kPa absolute: {}",
-        kpa(s.headspace.gauge_pa),
-        kpa(s.headspace.absolute_pa),
+        "  headspace  {} = {}: {}",
+        gauge(p, s.headspace.gauge_pa),
+        absolute(p, s.headspace.absolute_pa),
         s.headspace.explanation
     );
     let height_note = if s.hole_height_source == "given" {
         ""
     } else {
-        " (the bottom, the default, which releases the most; give --hole-height)"
+        " (the bottom, the default, which releases the most; give --hole-height-m)"
     };
     let cd_note = if s.cd.given {
         ""
@@ -1584,15 +1721,18 @@ pub fn human(s: &Study) -> String {
     };
     let _ = writeln!(
         out,
-        "  hole       {:.2} m above the bottom{height_note}; Cd {:.2}{cd_note}, band from {:.2} to {:.2}",
-        s.hole_height_m, s.cd.chosen, s.cd.low, s.cd.high
+        "  hole       {} above the bottom{height_note}; Cd {:.2}{cd_note}, band from {:.2} to {:.2}",
+        p.length(s.hole_height_m),
+        s.cd.chosen,
+        s.cd.low,
+        s.cd.high
     );
     if s.liquid_above_hole_kg > 0.0 {
         let _ = writeln!(
             out,
-            "  liquid above the hole  {} kg ({})",
-            kg(s.liquid_above_hole_kg),
-            report::volumes(
+            "  liquid above the hole  {} = {}",
+            p.mass(Mass::kilograms(s.liquid_above_hole_kg)),
+            p.volume(
                 Mass::kilograms(s.liquid_above_hole_kg),
                 crate::model::Density::kg_per_cubic_metre(s.density_kg_m3)
             )
@@ -1605,8 +1745,8 @@ pub fn human(s: &Study) -> String {
     }
     let _ = writeln!(
         out,
-        "  gas space  {} m³ above the liquid",
-        report::number(s.ullage_volume_m3)
+        "  gas space  {} above the liquid",
+        gas_volume(p, s.ullage_volume_m3)
     );
     if !s.warnings.is_empty() {
         let _ = writeln!(out);
@@ -1619,7 +1759,12 @@ pub fn human(s: &Study) -> String {
         .iter()
         .filter(|h| h.liquid.is_none() && h.vapour.is_none())
     {
-        let _ = writeln!(out, "\nHole {} mm: {}.", size(h.diameter_mm), h.reason);
+        let _ = writeln!(
+            out,
+            "\nHole {}: {}.",
+            hole_size_text(p, h.hole_diameter_m * 1000.0),
+            h.reason
+        );
     }
     liquid_tables(s, &mut out);
     vapour_tables(s, &mut out);
@@ -1632,10 +1777,17 @@ pub fn human(s: &Study) -> String {
     out
 }
 
-fn hole_label(h: &HoleStudy) -> String {
-    match h.given_as {
-        "area" => format!("{} ({} mm²)", size(h.diameter_mm), size(h.area_mm2)),
-        _ => size(h.diameter_mm),
+/// A hole in a table's first column, in the column's unit; a hole given by
+/// its area also shows the area as given.
+fn hole_label(p: &Presentation, h: &HoleStudy) -> String {
+    let diameter = hole_size(p, h.hole_diameter_m * 1000.0);
+    match (h.given_as, p.units) {
+        ("area", Units::Metric) => format!("{diameter} ({} mm²)", size(h.hole_area_m2 * 1e6)),
+        ("area", Units::UsCustomary) => format!(
+            "{diameter} ({} in²)",
+            size(h.hole_area_m2 * report::presentation::INCHES_PER_M.powi(2))
+        ),
+        _ => diameter,
     }
 }
 
@@ -1648,29 +1800,32 @@ fn liquid_tables(s: &Study, out: &mut String) {
     if holes.is_empty() {
         return;
     }
-    let sig = |x: f64| report::number(x);
+    let p = &s.site;
+    let rate = |x: f64| rate_number(p, x);
+    let flow = |x: f64| flow_number(p, x);
+    let kg = |x: f64| mass_number(p, x);
     let _ = writeln!(
         out,
         "\nLiquid through the hole (orifice equation), at Cd {:.2} [band]:",
         s.cd.chosen
     );
     let mut table = Table::new(vec![
-        ("hole".into(), "mm".into()),
+        ("hole".into(), hole_unit(p).into()),
         ("phase".into(), "".into()),
-        ("initial rate".into(), "kg/s".into()),
-        ("initial rate".into(), "m³/h".into()),
+        ("initial rate".into(), rate_unit(p).into()),
+        ("initial rate".into(), flow_unit(p).into()),
         ("flow stops after".into(), "h:mm:ss".into()),
-        ("released by then".into(), "kg".into()),
+        ("released by then".into(), mass_unit(p).into()),
     ]);
     for (h, l) in &holes {
         let r = &l.initial_rate_kg_s;
         let v = &l.initial_rate_m3_h;
         let t = &l.stops_after_s;
         table.rows.push(vec![
-            hole_label(h),
+            hole_label(p, h),
             "liquid".into(),
-            banded(sig(r.cd_chosen), sig(r.cd_low), sig(r.cd_high)),
-            banded(sig(v.cd_chosen), sig(v.cd_low), sig(v.cd_high)),
+            banded(rate(r.cd_chosen), rate(r.cd_low), rate(r.cd_high)),
+            banded(flow(v.cd_chosen), flow(v.cd_low), flow(v.cd_high)),
             banded(hms(t.cd_chosen), hms(t.cd_high), hms(t.cd_low)),
             kg(l.released_by_stop_kg),
         ]);
@@ -1678,16 +1833,19 @@ fn liquid_tables(s: &Study, out: &mut String) {
     table.render(out);
     let _ = writeln!(
         out,
-        "\nLiquid released by each horizon, at Cd {:.2} [band]:",
+        "\nLiquid released in all by each horizon, at Cd {:.2} [band]:",
         s.cd.chosen
     );
-    let mut header = vec![("hole".to_owned(), "mm".to_owned())];
+    let mut header = vec![("hole".to_owned(), hole_unit(p).to_owned())];
     for &t in &s.horizons_s {
-        header.push((format!("in {}", horizon_label(t)), "kg".to_owned()));
+        header.push((
+            format!("released by {}", horizon_label(t)),
+            mass_unit(p).to_owned(),
+        ));
     }
     let mut table = Table::new(header);
     for (h, l) in &holes {
-        let mut row = vec![hole_label(h)];
+        let mut row = vec![hole_label(p, h)];
         for p in &l.horizons {
             let r = &p.released_kg;
             row.push(banded(kg(r.cd_chosen), kg(r.cd_low), kg(r.cd_high)));
@@ -1706,39 +1864,44 @@ fn vapour_tables(s: &Study, out: &mut String) {
     let Some((_, first)) = holes.first() else {
         return;
     };
+    let p = &s.site;
     let sig = |x: f64| report::number(x);
+    let kg = |x: f64| mass_number(p, x);
     let supply = match &s.blanket_supply {
         Some(supply) => format!(
-            "blanket supply on at {} = {} kg/s",
+            "blanket supply on at {} = {}",
             supply.given,
-            sig(supply.kg_s)
+            p.rate(MassRate::kg_per_second(supply.rate_kg_s))
         ),
         None => "blanket supply off".to_owned(),
     };
     let _ = writeln!(
         out,
-        "\nGas through the hole (ideal-gas nozzle equations): the gas space, {} m³ holding {} kg of the configured vapour ({} g/mol, k {}, {} °C) at {} kPa absolute, vents to ambient; {supply}; at Cd {:.2}:",
-        sig(first.ullage_volume_m3),
-        sig(first.initial_gas_kg),
+        "\nGas through the hole (ideal-gas nozzle equations): the gas space, {} holding {} of the configured vapour ({} g/mol, k {}, {} °C) at {}, vents to ambient; {supply}; at Cd {:.2}:",
+        gas_volume(p, first.ullage_volume_m3),
+        p.mass(Mass::kilograms(first.initial_gas_kg)),
         sig(first.molar_mass_g_mol),
         sig(first.heat_capacity_ratio),
         sig(first.temperature_c),
-        kpa(s.headspace.absolute_pa),
+        absolute(p, s.headspace.absolute_pa),
         s.cd.chosen
     );
     let mut header = vec![
-        ("hole".to_owned(), "mm".to_owned()),
+        ("hole".to_owned(), hole_unit(p).to_owned()),
         ("phase".to_owned(), "".to_owned()),
         ("bound".to_owned(), "".to_owned()),
-        ("initial rate".to_owned(), "kg/s".to_owned()),
+        ("initial rate".to_owned(), rate_unit(p).to_owned()),
         ("initial rate".to_owned(), "Nm³/h".to_owned()),
         ("choked for".to_owned(), "h:mm:ss.s".to_owned()),
         ("ends".to_owned(), "".to_owned()),
         ("after".to_owned(), "h:mm:ss.s".to_owned()),
-        ("released by then".to_owned(), "kg".to_owned()),
+        ("released by then".to_owned(), mass_unit(p).to_owned()),
     ];
     for &t in &s.horizons_s {
-        header.push((format!("in {}", horizon_label(t)), "kg".to_owned()));
+        header.push((
+            format!("released by {}", horizon_label(t)),
+            mass_unit(p).to_owned(),
+        ));
     }
     let mut table = Table::new(header);
     for (h, v) in &holes {
@@ -1760,23 +1923,27 @@ fn vapour_tables(s: &Study, out: &mut String) {
                     kg(run.released_by_end_kg),
                 ),
                 "steady" => (
-                    format!("steady at {} kPa g", kpa(run.end_pressure_gauge_pa)),
+                    format!("steady at {}", gauge(p, run.end_pressure_gauge_pa)),
                     hms_tenths(run.end_after_s),
                     kg(run.released_by_end_kg),
                 ),
                 "held" => (
-                    format!("held at {} kPa g", kpa(run.end_pressure_gauge_pa)),
+                    format!("held at {}", gauge(p, run.end_pressure_gauge_pa)),
                     "—".to_owned(),
                     "—".to_owned(),
                 ),
                 _ => ("no flow".to_owned(), "—".to_owned(), "0".to_owned()),
             };
             let mut row = vec![
-                if i == 0 { hole_label(h) } else { String::new() },
+                if i == 0 {
+                    hole_label(p, h)
+                } else {
+                    String::new()
+                },
                 phase,
                 name.to_owned(),
                 if i == 0 {
-                    sig(v.initial_rate_kg_s.cd_chosen)
+                    rate_number(p, v.initial_rate_kg_s.cd_chosen)
                 } else {
                     String::new()
                 },
@@ -1794,8 +1961,8 @@ fn vapour_tables(s: &Study, out: &mut String) {
                 after,
                 by_end,
             ];
-            for p in &run.horizons {
-                row.push(kg(p.released_kg));
+            for at in &run.horizons {
+                row.push(kg(at.released_kg));
             }
             table.rows.push(row);
         }
@@ -1805,8 +1972,9 @@ fn vapour_tables(s: &Study, out: &mut String) {
         for (h, v) in &holes {
             let _ = writeln!(
                 out,
-                "  {} mm, at Cd {:.2}: {}.",
-                hole_label(h),
+                "  {} {}, at Cd {:.2}: {}.",
+                hole_label(p, h),
+                hole_unit(p),
                 s.cd.chosen,
                 v.bounds_compared
             );
@@ -1817,9 +1985,12 @@ fn vapour_tables(s: &Study, out: &mut String) {
         "\nGas released, band over both bounds and Cd {:.2} to {:.2}:",
         s.cd.low, s.cd.high
     );
-    let mut header = vec![("hole".to_owned(), "mm".to_owned())];
+    let mut header = vec![("hole".to_owned(), hole_unit(p).to_owned())];
     for &t in &s.horizons_s {
-        header.push((format!("in {}", horizon_label(t)), "kg".to_owned()));
+        header.push((
+            format!("released by {}", horizon_label(t)),
+            mass_unit(p).to_owned(),
+        ));
     }
     // Without a supply the release by the end is the release in all; with
     // one, each bound ends at its own time and the release goes on, so each
@@ -1827,10 +1998,13 @@ fn vapour_tables(s: &Study, out: &mut String) {
     let supply = s.blanket_supply.is_some();
     if supply {
         for bound in ["isothermal", "adiabatic"] {
-            header.push((format!("{bound}, by its end"), "kg at h:mm:ss.s".to_owned()));
+            header.push((
+                format!("{bound}, by its end"),
+                format!("{} at h:mm:ss.s", mass_unit(p)),
+            ));
         }
     } else {
-        header.push(("in total".to_owned(), "kg".to_owned()));
+        header.push(("in total".to_owned(), mass_unit(p).to_owned()));
     }
     let mut table = Table::new(header);
     let range = |low: String, high: String| {
@@ -1841,9 +2015,13 @@ fn vapour_tables(s: &Study, out: &mut String) {
         }
     };
     for (h, v) in &holes {
-        let mut row = vec![hole_label(h)];
+        let mut row = vec![hole_label(p, h)];
         for b in &v.band {
-            row.push(format!("{}–{}", kg(b.low_kg), kg(b.high_kg)));
+            row.push(format!(
+                "{}–{}",
+                kg(b.released_low_kg),
+                kg(b.released_high_kg)
+            ));
         }
         if supply {
             for e in [&v.isothermal_end, &v.adiabatic_end] {
@@ -1868,7 +2046,7 @@ fn vapour_tables(s: &Study, out: &mut String) {
             row.push(if v.isothermal.cd_chosen.end == "held" {
                 "—".to_owned()
             } else {
-                format!("{}–{}", kg(e.low_kg), kg(e.high_kg))
+                format!("{}–{}", kg(e.released_low_kg), kg(e.released_high_kg))
             });
         }
         table.rows.push(row);
@@ -1877,8 +2055,8 @@ fn vapour_tables(s: &Study, out: &mut String) {
     if let Some(supply) = &s.blanket_supply {
         let _ = writeln!(
             out,
-            "  With the supply on the release goes on after the end, at the supply rate ({} kg/s) once steady, or at the initial rate where the supply holds the pressure.",
-            sig(supply.kg_s)
+            "  With the supply on the release goes on after the end, at the supply rate ({}) once steady, or at the initial rate where the supply holds the pressure.",
+            p.rate(MassRate::kg_per_second(supply.rate_kg_s))
         );
     }
 }
@@ -1908,17 +2086,21 @@ fn reach_table(s: &Study, out: &mut String) {
     {
         return;
     }
+    let p = &s.site;
     let _ = writeln!(out, "\nTime to reach, at Cd {:.2} [band]:", s.cd.chosen);
-    let mut header = vec![("hole".to_owned(), "mm".to_owned())];
+    let mut header = vec![("hole".to_owned(), hole_unit(p).to_owned())];
     for q in &reportables {
-        header.push((format!("{} kg (reportable)", kg(*q)), "h:mm:ss".to_owned()));
+        header.push((
+            format!("{} released (reportable)", p.mass(Mass::kilograms(*q))),
+            "h:mm:ss".to_owned(),
+        ));
     }
     if let Some(level) = s.to_level_m {
-        header.push((format!("level {level:.2} m"), "h:mm:ss".to_owned()));
+        header.push((format!("level {}", p.length(level)), "h:mm:ss".to_owned()));
     }
     let mut table = Table::new(header);
     for h in &s.holes {
-        let mut row = vec![hole_label(h)];
+        let mut row = vec![hole_label(p, h)];
         if let Some(l) = &h.liquid {
             for r in &l.reportable {
                 let t = &r.reached_after_s;
@@ -1967,34 +2149,64 @@ pub struct WhatifArgs {
     pub config: super::args::ConfigArg,
     /// Hole diameters in mm, comma-separated (default: 6.35,25.4,101.6,
     /// the small, medium and large holes of risk-based inspection).
-    #[arg(long, value_name = "MM[,MM...]", conflicts_with = "hole_area")]
+    #[arg(
+        long = "hole-diameters-mm",
+        alias = "hole-diameter",
+        value_name = "MM[,MM...]",
+        conflicts_with = "hole_area"
+    )]
     pub hole_diameter: Option<String>,
     /// Hole areas in mm², comma-separated, instead of diameters (each
     /// taken as the round hole of that area).
-    #[arg(long, value_name = "MM2[,MM2...]")]
+    #[arg(
+        long = "hole-areas-mm2",
+        alias = "hole-area",
+        value_name = "MM2[,MM2...]"
+    )]
     pub hole_area: Option<String>,
     /// Height of the hole above the tank bottom, m (default: the bottom,
     /// which releases the most). Above the liquid, the headspace gas vents.
-    #[arg(long, value_name = "M", allow_negative_numbers = true)]
+    #[arg(
+        long = "hole-height-m",
+        alias = "hole-height",
+        value_name = "M",
+        allow_negative_numbers = true
+    )]
     pub hole_height: Option<f64>,
     /// Liquid level, m (default: 90 % of the tank's height).
-    #[arg(long, value_name = "M", allow_negative_numbers = true)]
+    #[arg(
+        long = "level-m",
+        alias = "level",
+        value_name = "M",
+        allow_negative_numbers = true
+    )]
     pub level: Option<f64>,
     /// Also give the time until the liquid falls to this level, m.
-    #[arg(long, value_name = "M", allow_negative_numbers = true)]
+    #[arg(
+        long = "to-level-m",
+        alias = "to-level",
+        value_name = "M",
+        allow_negative_numbers = true
+    )]
     pub to_level: Option<f64>,
     /// Headspace pressure, kPa gauge (default: the last logged reading
     /// with --db, else the config's nominal_headspace_kpa or
     /// headspace_kpa, else 0 with a warning).
     #[arg(
-        long,
+        long = "headspace-kpa",
+        alias = "headspace",
         value_name = "KPA",
         allow_negative_numbers = true,
         conflicts_with = "headspace_abs"
     )]
     pub headspace: Option<f64>,
-    /// Headspace pressure, kPa absolute, instead of --headspace.
-    #[arg(long, value_name = "KPA", allow_negative_numbers = true)]
+    /// Headspace pressure, kPa absolute, instead of --headspace-kpa.
+    #[arg(
+        long = "headspace-kpa-abs",
+        alias = "headspace-abs",
+        value_name = "KPA",
+        allow_negative_numbers = true
+    )]
     pub headspace_abs: Option<f64>,
     /// Read the tank's last good pressure from this database (read-only)
     /// for the headspace.
@@ -2037,6 +2249,7 @@ pub fn command(args: WhatifArgs) -> anyhow::Result<()> {
         json,
     } = args;
     let config = config.load()?;
+    let site = Presentation::of(&config);
     let Some(t) = config.tanks.iter().find(|t| t.id == tank) else {
         let known: Vec<&str> = config.tanks.iter().map(|t| t.id.as_str()).collect();
         bail!(
@@ -2067,7 +2280,7 @@ pub fn command(args: WhatifArgs) -> anyhow::Result<()> {
     };
     let now_ms = crate::store::now_ms();
     let request = Request {
-        level: metres(level, "--level")?,
+        level: metres(level, "--level-m")?,
         hole_height: hole_height
             .map(check_hole_height_m)
             .transpose()?
@@ -2078,11 +2291,12 @@ pub fn command(args: WhatifArgs) -> anyhow::Result<()> {
             .map(DischargeCoefficient::new)
             .transpose()?,
         holes,
-        headspace: headspace(t, given, db.as_deref(), now_ms)?,
-        density: liquid_density(t, db.as_deref(), now_ms)?,
+        headspace: headspace(t, given, db.as_deref(), now_ms, &site)?,
+        density: liquid_density(t, db.as_deref(), now_ms, &site)?,
         horizons: horizons.as_deref().map(parse_horizons).transpose()?,
-        to_level: metres(to_level, "--to-level")?,
+        to_level: metres(to_level, "--to-level-m")?,
         supply: blanket_supply.as_deref().map(parse_supply).transpose()?,
+        site,
     };
     let study = compute(t, &request)?;
     if json {
@@ -2100,10 +2314,10 @@ pub fn command(args: WhatifArgs) -> anyhow::Result<()> {
 /// rule every command shares ([`check_hole_diameter_mm`]), and refused in
 /// the same words as `leak open --hole-diameter`.
 pub fn parse_holes(text: &str) -> anyhow::Result<Vec<f64>> {
-    parse_list(text, "--hole-diameter", |part| {
+    parse_list(text, "--hole-diameters-mm", |part| {
         let mm: f64 = part.parse().map_err(|_| {
             anyhow::anyhow!(
-                "--hole-diameter {part:?} is not a number of millimetres; write sizes like 6,25,100"
+                "--hole-diameters-mm {part:?} is not a number of millimetres; write sizes like 6,25,100"
             )
         })?;
         check_hole_diameter_mm(mm)?;
@@ -2114,19 +2328,21 @@ pub fn parse_holes(text: &str) -> anyhow::Result<Vec<f64>> {
 /// Parses `--hole-area 5,500` (square millimetres): each the area of a round
 /// hole whose diameter must pass the same rule as `--hole-diameter`.
 pub fn parse_hole_areas(text: &str) -> anyhow::Result<Vec<f64>> {
-    parse_list(text, "--hole-area", |part| {
+    parse_list(text, "--hole-areas-mm2", |part| {
         let mm2: f64 = part.parse().map_err(|_| {
             anyhow::anyhow!(
-                "--hole-area {part:?} is not a number of square millimetres; write areas like 30,500,8000"
+                "--hole-areas-mm2 {part:?} is not a number of square millimetres; write areas like 30,500,8000"
             )
         })?;
         if !(mm2.is_finite() && mm2 > 0.0) {
-            bail!("--hole-area {part}: the area must be a positive number of square millimetres");
+            bail!(
+                "--hole-areas-mm2 {part}: the area must be a positive number of square millimetres"
+            );
         }
         let diameter = (mm2 / FRAC_PI_4).sqrt();
         if let Some(why) = hole_diameter_refusal(diameter) {
             bail!(
-                "--hole-area {part}: {} mm² is a round hole {} mm across, which {why}; the option takes square millimetres (507 for a one-inch hole)",
+                "--hole-areas-mm2 {part}: {} mm² is a round hole {} mm across, which {why}; the option takes square millimetres (507 for a one-inch hole)",
                 given_figure(mm2),
                 // Plain digits would run to 150 places for a 1e-300 area.
                 if diameter >= 1e-4 {
@@ -2308,29 +2524,61 @@ mod tests {
         let config = demo();
         let t12 = &config.tanks[0];
         let t14 = &config.tanks[1];
-        let h = headspace(t14, None, None, 0).unwrap();
+        let h = headspace(t14, None, None, 0, &Presentation::default()).unwrap();
         assert_eq!(h.source, HeadspaceSource::ConfigNominal);
         assert_eq!(h.gauge, Pressure::kilopascals(15.0));
-        let h = headspace(t12, None, None, 0).unwrap();
+        let h = headspace(t12, None, None, 0, &Presentation::default()).unwrap();
         assert_eq!(h.source, HeadspaceSource::ConfigAssumed);
         let mut bare = t14.clone();
         bare.nominal_headspace = None;
-        let h = headspace(&bare, None, None, 0).unwrap();
+        let h = headspace(&bare, None, None, 0, &Presentation::default()).unwrap();
         assert_eq!(h.source, HeadspaceSource::AssumedZero);
         assert!(h.warnings[0].contains("unsafe side"), "{:?}", h.warnings);
-        let h = headspace(t14, Some(HeadspaceGiven::Absolute(121.325)), None, 0).unwrap();
+        let h = headspace(
+            t14,
+            Some(HeadspaceGiven::Absolute(121.325)),
+            None,
+            0,
+            &Presentation::default(),
+        )
+        .unwrap();
         assert!((h.gauge.si() - 20_000.0).abs() < 1e-6);
         assert_eq!(h.source, HeadspaceSource::GivenAbsolute);
-        let h = headspace(t14, Some(HeadspaceGiven::Gauge(101.0)), None, 0).unwrap();
+        let h = headspace(
+            t14,
+            Some(HeadspaceGiven::Gauge(101.0)),
+            None,
+            0,
+            &Presentation::default(),
+        )
+        .unwrap();
         assert!(
-            h.warnings[0].contains("--headspace-abs"),
+            h.warnings[0].contains("--headspace-kpa-abs"),
             "{:?}",
             h.warnings
         );
         for bad in [-200.0, f64::NAN, 20_000.0] {
-            assert!(headspace(t14, Some(HeadspaceGiven::Gauge(bad)), None, 0).is_err());
+            assert!(
+                headspace(
+                    t14,
+                    Some(HeadspaceGiven::Gauge(bad)),
+                    None,
+                    0,
+                    &Presentation::default()
+                )
+                .is_err()
+            );
         }
-        assert!(headspace(t14, Some(HeadspaceGiven::Absolute(0.0)), None, 0).is_err());
+        assert!(
+            headspace(
+                t14,
+                Some(HeadspaceGiven::Absolute(0.0)),
+                None,
+                0,
+                &Presentation::default()
+            )
+            .is_err()
+        );
     }
 
     #[test]
@@ -2338,11 +2586,11 @@ mod tests {
         let config = demo();
         let (t12, t14) = (&config.tanks[0], &config.tanks[1]);
         // FF-T12: one density, no temperature sensor.
-        let d = liquid_density(t12, None, 0).unwrap();
+        let d = liquid_density(t12, None, 0, &Presentation::default()).unwrap();
         assert_eq!((d.kg_m3, d.source), (840.0, "fixed"));
         // FF-T14 follows its temperature; without --db the study says it
         // takes the reference density, and why.
-        let d = liquid_density(t14, None, 0).unwrap();
+        let d = liquid_density(t14, None, 0, &Presentation::default()).unwrap();
         assert_eq!((d.kg_m3, d.source), (792.0, "reference_temperature"));
         assert!(
             d.explanation
