@@ -376,13 +376,18 @@ fn print_what_if(dir: &Path, doc: &StatusDocument) -> anyhow::Result<()> {
         .and_then(|e| e.estimate.as_ref())
         .map_or(whatif::default_level(tank), |e| Length::metres(e.level_m));
     println!("\nPre-planning view of the same tank at its present level (leaktally whatif):\n");
-    let study = whatif::study(
-        tank,
-        level,
-        Length::metres(0.3),
-        DischargeCoefficient::SHARP_EDGED,
-        &whatif::REPRESENTATIVE_HOLES_MM,
-    )?;
+    let request = whatif::Request {
+        level: Some(level),
+        hole_height: Some(Length::metres(0.3)),
+        cd: Some(DischargeCoefficient::SHARP_EDGED),
+        holes: whatif::REPRESENTATIVE_HOLES_MM
+            .iter()
+            .map(|&mm| whatif::HoleSize::Diameter(mm))
+            .collect(),
+        site: doc.presentation.clone(),
+        ..whatif::Request::for_tank(tank)
+    };
+    let study = whatif::compute(tank, &request)?;
     print!("{}", whatif::human(&study));
     Ok(())
 }

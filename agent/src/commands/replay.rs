@@ -455,7 +455,7 @@ fn replay_event(
         tank: row.tank.clone(),
         revision: Some(row.revision),
         params,
-        params_text: describe_params(&params),
+        params_text: describe_params(&params, &site),
         overrides: overrides.any(),
         samples,
         skipped_rows: Vec::new(),
@@ -713,7 +713,7 @@ fn replay_readings(
         tank: tank_id.to_owned(),
         revision: None,
         params,
-        params_text: describe_params(&params),
+        params_text: describe_params(&params, &site),
         overrides: overrides.any(),
         samples: feed.samples,
         skipped_rows: report.skipped.clone(),
@@ -996,12 +996,7 @@ impl Sink {
                 last: &summary.replayed,
                 leak: &summary.params,
             };
-            let svg = plot::render_svg(
-                &series,
-                reportable,
-                &labels,
-                &report::Presentation::default(),
-            )?;
+            let svg = plot::render_svg(&series, reportable, &labels, &summary.site)?;
             let mut file = File::options()
                 .write(true)
                 .open(&out.temporary)

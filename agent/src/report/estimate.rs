@@ -367,9 +367,9 @@ impl Words {
 }
 
 /// The parameters in words, for the audit trail.
-pub fn describe_params(p: &LeakParams) -> String {
+pub fn describe_params(p: &LeakParams, people: &Presentation) -> String {
     let hole = match p.hole_diameter_m {
-        Some(d) => format!("hole {:.1} mm", d * 1000.0),
+        Some(d) => format!("hole {}", people.diameter(d)),
         None => "hole size unknown (fitted)".to_owned(),
     };
     let density = p
@@ -377,8 +377,8 @@ pub fn describe_params(p: &LeakParams) -> String {
         .map_or(String::new(), |d| format!(", density {d} kg/m³"));
     let (cd_low, cd_high) = p.cd_band();
     format!(
-        "{hole} at {:.2} m{}, Cd {}{} (range {cd_low} to {cd_high}){density}",
-        p.hole_height_m,
+        "{hole} at {}{}, Cd {}{} (range {cd_low} to {cd_high}){density}",
+        people.length(p.hole_height_m),
         if p.hole_height_assumed {
             " (assumed: the bottom)"
         } else {

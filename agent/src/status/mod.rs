@@ -214,7 +214,7 @@ pub fn document(
             closed_at_ms: row.closed_at_ms,
             revision: row.revision,
             params: row.params,
-            params_text: words::describe_params(&row.params),
+            params_text: words::describe_params(&row.params, presentation),
             released_volume: estimate
                 .as_ref()
                 .map(|e| Volumes::of(e.released_best_kg, e.density_kg_m3)),
@@ -332,14 +332,17 @@ mod tests {
             panic!("{:?}", doc.events)
         };
         assert_eq!((e.event, e.tank.as_str(), e.state), (id, "T1", "open"));
-        assert_eq!(e.params_text, words::describe_params(&params));
+        assert_eq!(
+            e.params_text,
+            words::describe_params(&params, &Presentation::default())
+        );
         // No sample for a minute, against the 10 s limit with no config.
         assert!(e.stale && e.estimate.is_none());
         let text = text(&doc);
         for expected in [
             "WARNING: no daemon is running (last seen never)",
             &format!("Event {id}  tank T1  open since"),
-            "hole 25.0 mm at 0.00 m (assumed: the bottom)",
+            "hole 25.0 mm at 0 m (assumed: the bottom)",
             "WARNING      no new data for any sample yet",
             "no usable sample yet",
             report::CAUTION,

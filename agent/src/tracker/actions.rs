@@ -192,7 +192,7 @@ fn apply(
                 } else {
                     ""
                 },
-                describe_params(&params),
+                describe_params(&params, &Presentation::of(&cx.config)),
                 if event.estimator.last_sample_ms().is_none() {
                     "; no stored sample yet"
                 } else {
@@ -245,8 +245,8 @@ fn apply(
                 event: Some(event),
                 text: format!(
                     "revision {revision} of event {event}: {} -> {}; recomputed {count} estimates from the start",
-                    describe_params(&before),
-                    describe_params(&params)
+                    describe_params(&before, &Presentation::of(&cx.config)),
+                    describe_params(&params, &Presentation::of(&cx.config))
                 ),
                 change: Some(Change::Opened(Box::new(event_state))),
             }))
