@@ -650,11 +650,11 @@ fn a_us_site_reads_its_own_units_and_the_json_stays_si() {
     let scratch = Scratch::new("whatif-us");
     let demo = std::fs::read_to_string(demo_config()).unwrap();
     let us = demo.replacen(
-        "[site]\n",
-        "[site]\ntime_zone = \"America/Chicago\"\nunits = \"us\"\n",
+        "time_zone = \"local\"\n",
+        "time_zone = \"America/Chicago\"\nunits = \"us\"\n",
         1,
     );
-    assert_ne!(us, demo, "the demo config has a [site] table");
+    assert_ne!(us, demo, "the demo config names its time zone");
     let config = scratch.path("us.toml");
     std::fs::write(&config, us).unwrap();
     // The old names, now hidden aliases.

@@ -212,7 +212,7 @@ async fn narrate(
         "\nAt {FLAGGED_AT_S:.0} s the operator sees the level falling and flags the leak, back-dated to when it began:"
     );
     println!(
-        "  $ {me} leak open {on_db} --tank FF-T12 --hole-height-m 0.3 --cd 0.61 --since {since_text}"
+        "  $ {me} leak open --tank FF-T12 --hole-height-m 0.3 --cd 0.61 --since {since_text} {on_db}"
     );
     let request = Request::Open {
         tank: "FF-T12".into(),
@@ -257,7 +257,7 @@ async fn narrate(
     }
 
     println!("\nThe leak is isolated; the operator closes the event:");
-    println!("  $ {me} leak close {on_db} {event}");
+    println!("  $ {me} leak close {event} {on_db}");
     let db_owned = db.to_owned();
     let sent_with = people.clone();
     let reply = tokio::task::spawn_blocking(move || {

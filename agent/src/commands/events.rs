@@ -69,12 +69,9 @@ pub fn command(args: EventsArgs) -> anyhow::Result<()> {
     } else {
         print!("{}", history::text(&doc));
     }
-    let running = store::heartbeat(&conn)?.is_some_and(|h| {
-        matches!(
-            h.state(now),
-            store::DaemonState::Running | store::DaemonState::Busy { .. }
-        )
-    });
+    // Busy and stalled daemons are alive, and catch up by themselves.
+    let running = store::heartbeat(&conn)?
+        .is_some_and(|h| !matches!(h.state(now), store::DaemonState::NotRunning));
     if running {
         Ok(())
     } else {

@@ -45,7 +45,7 @@ pub fn read(
 /// Runs `leaktally status` as the command line gave it: prints the
 /// document of one event, or of every open event. Exits with
 /// `exit::NO_DAEMON` when no daemon is running (the figures are not being
-/// updated), after printing them.
+/// updated), after printing them; a busy or stalled one is running.
 pub fn command(args: StatusArgs) -> anyhow::Result<()> {
     let (db, people) = args.site.database()?;
     let doc = read(&db, args.event, &people)?;
@@ -54,7 +54,8 @@ pub fn command(args: StatusArgs) -> anyhow::Result<()> {
     } else {
         print!("{}", status::text(&doc));
     }
-    if doc.daemon_running {
+    // A stalled daemon is alive and catches up by itself: not code 4.
+    if doc.daemon_running || doc.daemon_stalled {
         Ok(())
     } else {
         Err(Coded::said(
