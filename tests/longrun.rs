@@ -176,7 +176,8 @@ fn a_request_made_as_the_daemon_dies_is_applied_with_its_time() {
     let began = Instant::now();
     let open = plant.cli(&LeakOpen::tank("FF-T12").hole(40.0, 0.3, 0.61).args());
     let waited = began.elapsed();
-    assert!(!open.status.success(), "{}", open.stdout);
+    // Recorded but not acknowledged: exit code 5 (README, "Exit codes").
+    assert_eq!(open.status.code(), Some(5), "{}", open.stdout);
     assert!(
         open.stderr
             .contains("the daemon stopped before it took request")

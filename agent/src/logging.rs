@@ -127,6 +127,16 @@ fn escape(text: &str, keep_newlines: bool) -> Cow<'_, str> {
 mod tests {
     use super::*;
 
+    /// NO_COLOR (no-color.org): present and not empty turns colour off;
+    /// a pipe or a file never gets it.
+    #[test]
+    fn colour_only_at_a_terminal_without_no_color() {
+        assert!(colour_allowed(true, None));
+        assert!(colour_allowed(true, Some("".into())));
+        assert!(!colour_allowed(true, Some("1".into())));
+        assert!(!colour_allowed(false, None));
+    }
+
     #[test]
     fn control_characters_are_escaped_and_plain_text_is_left_alone() {
         // (input, one line, several lines)

@@ -237,23 +237,12 @@ fn user_from_uid() -> Option<String> {
 mod tests {
     use super::*;
 
-    /// A scratch database, removed when dropped.
-    struct Scratch(std::path::PathBuf);
-
-    impl Drop for Scratch {
-        fn drop(&mut self) {
-            let _ = std::fs::remove_dir_all(&self.0);
-        }
-    }
-
     /// The reply carries the event the daemon recorded on the action row,
     /// not a number read out of its words.
     #[test]
     fn the_reply_names_the_event_the_daemon_recorded() {
-        let dir = std::env::temp_dir().join(format!("leaktally-actions-{}", std::process::id()));
-        std::fs::create_dir_all(&dir).unwrap();
-        let scratch = Scratch(dir);
-        let db = scratch.0.join("leaktally.db");
+        let scratch = crate::store::scratch::ScratchDir::new("actions");
+        let db = scratch.db();
         let conn = store::open_read_write(&db).unwrap();
         store::beat(&conn, std::process::id(), store::now_ms(), "site.toml").unwrap();
         // A stand-in daemon: it takes the one request and records event 41,

@@ -197,21 +197,10 @@ mod tests {
     use super::*;
     use crate::estimate::LeakParams;
 
-    /// A scratch folder, removed when dropped.
-    struct Scratch(std::path::PathBuf);
-
-    impl Drop for Scratch {
-        fn drop(&mut self) {
-            let _ = std::fs::remove_dir_all(&self.0);
-        }
-    }
-
     #[test]
     fn the_history_lists_open_and_closed_events_and_filters_them() {
-        let dir = std::env::temp_dir().join(format!("leaktally-history-{}", std::process::id()));
-        std::fs::create_dir_all(&dir).unwrap();
-        let scratch = Scratch(dir);
-        let db = scratch.0.join("leaktally.db");
+        let scratch = crate::store::scratch::ScratchDir::new("history");
+        let db = scratch.db();
         let conn = store::open_read_write(&db).unwrap();
         store::register_tanks(&conn, ["T1", "T2"]).unwrap();
         let t0 = 1_796_126_400_000; // 2026-12-01T12:00:00Z

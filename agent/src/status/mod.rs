@@ -300,21 +300,10 @@ pub fn text(doc: &StatusDocument) -> String {
 mod tests {
     use super::*;
 
-    /// A scratch folder, removed when dropped.
-    struct Scratch(std::path::PathBuf);
-
-    impl Drop for Scratch {
-        fn drop(&mut self) {
-            let _ = std::fs::remove_dir_all(&self.0);
-        }
-    }
-
     #[test]
     fn the_document_is_built_from_the_callers_connection() {
-        let dir = std::env::temp_dir().join(format!("leaktally-status-{}", std::process::id()));
-        std::fs::create_dir_all(&dir).unwrap();
-        let scratch = Scratch(dir);
-        let db = scratch.0.join("leaktally.db");
+        let scratch = crate::store::scratch::ScratchDir::new("status");
+        let db = scratch.db();
         let conn = store::open_read_write(&db).unwrap();
         store::register_tanks(&conn, ["T1"]).unwrap();
         let start = store::now_ms() - 60_000;

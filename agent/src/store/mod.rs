@@ -39,6 +39,8 @@ pub mod health;
 pub mod heartbeat;
 pub mod samples;
 pub mod schema;
+#[cfg(test)]
+pub mod scratch;
 pub mod trim;
 pub(crate) mod unit;
 

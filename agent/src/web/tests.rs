@@ -5,8 +5,8 @@ use super::*;
 use crate::acquire::sample::{Reading, TankSample};
 use crate::estimate::LeakParams;
 use crate::estimator::Estimator;
+use crate::store::scratch::ScratchDir as Scratch;
 use axum::http::Request as HttpRequest;
-use std::sync::atomic::{AtomicU32, Ordering};
 use tower::ServiceExt;
 
 /// A tank id and description that would break the page if not escaped.
@@ -27,15 +27,6 @@ substance = { name = "diesel", density_kg_m3 = 840.0, reportable_kg = [50.0, 500
 level = { register = "input", address = 0, type = "u16", raw = [4000, 20000], range = [0.0, 5.0], unit = "m" }
 "#;
 
-/// A database folder removed when dropped.
-struct Scratch(PathBuf);
-
-impl Drop for Scratch {
-    fn drop(&mut self) {
-        let _ = std::fs::remove_dir_all(&self.0);
-    }
-}
-
 /// A site, a database with one open event of 120 estimates, one event
 /// closed two days ago with a final total and one closed eight days ago
 /// (older than the page lists), and the router.
@@ -46,16 +37,9 @@ fn fixture() -> (Scratch, Router, i64) {
 
 /// As [`fixture`], with the daemon's store health to set.
 fn fixture_with_health() -> (Scratch, Router, i64, Arc<StoreHealth>) {
-    static NEXT: AtomicU32 = AtomicU32::new(0);
-    let dir = std::env::temp_dir().join(format!(
-        "leaktally-web-{}-{}",
-        std::process::id(),
-        NEXT.fetch_add(1, Ordering::Relaxed)
-    ));
-    std::fs::create_dir_all(&dir).unwrap();
-    let scratch = Scratch(dir.clone());
+    let scratch = Scratch::new("web");
     let config = Arc::new(crate::config::parse(SITE, std::path::Path::new("site.toml")).unwrap());
-    let db = dir.join("leaktally.db");
+    let db = scratch.db();
     let conn = store::open_read_write(&db).unwrap();
     store::register_tanks(&conn, [HOSTILE_ID]).unwrap();
     let now = store::now_ms();
