@@ -149,10 +149,7 @@ fn an_operator_needs_no_paths_and_closed_events_keep_their_final_figures() {
     );
 
     // Stopped as systemd stops it (SIGTERM): it says it stopped at once.
-    let mut term = Command::new("kill");
-    term.args(["-TERM", &daemon.child.id().to_string()]);
-    assert!(run("kill", &mut term, &scratch).status.success());
-    let _ = daemon.child.wait();
+    daemon.stop_cleanly();
     let no_daemon = site_cli(&scratch, &site, &["status"]);
     assert_eq!(no_daemon.status.code(), Some(4), "{}", no_daemon.stderr);
     assert!(

@@ -522,21 +522,7 @@ fn nothing_lost(plant: &Plant, web: &str, id: i64) -> f64 {
 
 /// Stops the daemon with SIGTERM, asserts it exits 0, and returns its log.
 fn stop_cleanly(mut daemon: Server) -> String {
-    let pid = daemon.child.id().to_string();
-    assert!(
-        Command::new("kill")
-            .args(["-TERM", &pid])
-            .status()
-            .unwrap()
-            .success()
-    );
-    let exit = daemon.child.wait().unwrap();
-    assert!(
-        exit.success(),
-        "the daemon's exit: {exit}\n{}",
-        daemon.stderr()
-    );
-    daemon.stderr()
+    daemon.stop_cleanly()
 }
 
 /// The three leaks with Modbus trouble, one kind after another: a busy

@@ -142,17 +142,7 @@ fn a_wall_clock_stepped_back_and_forward_mid_event_changes_nothing() {
     assert_eq!(est["quality"]["gaps_bridged"], 0, "{est}");
     assert!(rel(best, exact) < 0.02, "{best} vs {exact}");
 
-    let pid = daemon.child.id().to_string();
-    assert!(
-        Command::new("kill")
-            .args(["-TERM", &pid])
-            .status()
-            .unwrap()
-            .success()
-    );
-    let exit = daemon.child.wait().unwrap();
-    assert!(exit.success(), "{exit}\n{}", daemon.stderr());
-    let log = daemon.stderr();
+    let log = daemon.stop_cleanly();
     assert!(log.contains("the wall clock stepped back by 1 h"), "{log}");
     assert!(
         log.contains("the wall clock stepped forward by 1 h"),

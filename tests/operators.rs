@@ -418,19 +418,6 @@ fn an_operator_in_the_group_acts_and_an_outsider_is_told_how_to_join() {
         "{}",
         daemon.stderr()
     );
-    let pid = daemon.child.id().to_string();
     // The child is the shell's exec'd setpriv's exec'd leaktally: one pid.
-    assert!(
-        Command::new("kill")
-            .args(["-TERM", &pid])
-            .status()
-            .unwrap()
-            .success()
-    );
-    let exit = daemon.child.wait().unwrap();
-    assert!(
-        exit.success(),
-        "the daemon's exit: {exit}\n{}",
-        daemon.stderr()
-    );
+    daemon.stop_cleanly();
 }

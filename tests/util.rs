@@ -237,6 +237,22 @@ impl Server {
         }
     }
 
+    /// Stops it as systemd does (SIGTERM), waits, and asserts that it
+    /// exited 0; returns its log.
+    pub fn stop_cleanly(&mut self) -> String {
+        let pid = self.child.id().to_string();
+        assert!(
+            Command::new("kill")
+                .args(["-TERM", &pid])
+                .status()
+                .unwrap()
+                .success()
+        );
+        let exit = self.child.wait().unwrap();
+        assert!(exit.success(), "the exit: {exit}\n{}", self.stderr());
+        self.stderr()
+    }
+
     pub fn stderr(&self) -> String {
         fs::read_to_string(&self.stderr).unwrap_or_default()
     }
