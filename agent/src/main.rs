@@ -6,6 +6,20 @@ use std::process::ExitCode;
 
 fn main() -> ExitCode {
     let cli = <leaktally::cli::Cli as clap::Parser>::parse();
+    // A report piped into `head` ends quietly when the reader stops, as
+    // other Unix tools do, instead of failing on a broken pipe. Not for the
+    // daemon (and the demo, which runs one): a peer that closes a socket
+    // must never stop it.
+    if !matches!(
+        cli.command,
+        leaktally::cli::Command::Run(_) | leaktally::cli::Command::Demo(_)
+    ) {
+        // SAFETY: setting a signal's disposition to the default, before
+        // any thread is started.
+        unsafe {
+            libc::signal(libc::SIGPIPE, libc::SIG_DFL);
+        }
+    }
     // The demo keeps the screen for its narration and logs to a file of its
     // own.
     if !matches!(cli.command, leaktally::cli::Command::Demo(_)) {

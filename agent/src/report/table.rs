@@ -169,11 +169,7 @@ fn event_text(out: &mut String, e: &Event<'_>, people: &Presentation) {
     let _ = writeln!(
         out,
         "  {}  {}  (band {} to {}), {} phase",
-        if closed {
-            "rate at end "
-        } else {
-            "rate now    "
-        },
+        if closed { "rate at end" } else { "rate now   " },
         flow(est.rate_best_kg_s),
         flow(est.rate_low_kg_s),
         flow(est.rate_high_kg_s),
