@@ -200,6 +200,22 @@ fn completions_and_the_man_page_come_from_the_command_line() {
             "{word} not in the bash completions"
         );
     }
+    // A reader that goes away (`| head`): the report ends quietly, as
+    // other Unix tools do, without a panic or an error line.
+    let mut early = Command::new(binary("leaktally"))
+        .args(["completions", "bash"])
+        .stdout(std::process::Stdio::piped())
+        .stderr(std::process::Stdio::piped())
+        .spawn()
+        .unwrap();
+    drop(early.stdout.take());
+    let ended = early.wait_with_output().unwrap();
+    assert!(
+        ended.stderr.is_empty(),
+        "{}",
+        String::from_utf8_lossy(&ended.stderr)
+    );
+
     let mut cmd = Command::new(binary("leaktally"));
     cmd.args(["manual", "--dir"]).arg(scratch.path("man"));
     let man = run("leaktally", &mut cmd, &scratch);
