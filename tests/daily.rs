@@ -138,6 +138,14 @@ fn an_operator_needs_no_paths_and_closed_events_keep_their_final_figures() {
     // Exit codes (README, "Exit codes").
     let bad = site_cli(&scratch, &site, &["events", "--no-such-option"]);
     assert_eq!(bad.status.code(), Some(2), "usage: {}", bad.stderr);
+    // A tank's id where an event's belongs: what an event id is, and where.
+    let tank_for_event = site_cli(&scratch, &site, &["leak", "close", "FF-T12"]);
+    assert_eq!(tank_for_event.status.code(), Some(2));
+    assert!(
+        tank_for_event.stderr.contains("`leaktally events` lists them"),
+        "{}",
+        tank_for_event.stderr
+    );
     let missing = site_cli(&scratch, &site, &["status", "999"]);
     assert_eq!(missing.status.code(), Some(1));
     assert!(

@@ -49,7 +49,7 @@ pub enum Command {
     /// liquid below the surface, the headspace gas above it.
     Whatif(WhatifArgs),
     /// Validate a config file, show the tanks, registers and reads, and read
-    /// each block of every device once (exit 2 if a device or read fails).
+    /// each block of every device once (exit 3 if a device or read fails).
     Check(CheckArgs),
     /// Read the configured devices and print each sample as a JSON line.
     Poll(PollArgs),

@@ -29,6 +29,15 @@ fn main() -> ExitCode {
         Ok(()) => ExitCode::SUCCESS,
         // Outcomes with codes of their own (README, "Exit codes"), so that
         // scripts can tell them from a plain failure.
+        // Nothing was done for a request with no daemon: an error, with
+        // its own code.
+        Err(err)
+            if exit::code_of(&err) == exit::NO_DAEMON
+                && err.is::<leaktally::actions::NoDaemon>() =>
+        {
+            eprintln!("error: {}", leaktally::logging::lines(&format!("{err:#}")));
+            ExitCode::from(exit::NO_DAEMON)
+        }
         Err(err) if exit::code_of(&err) != exit::FAILED => {
             eprintln!(
                 "warning: {}",

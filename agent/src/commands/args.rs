@@ -223,6 +223,17 @@ pub fn runtime() -> anyhow::Result<tokio::runtime::Runtime> {
         .build()?)
 }
 
+/// An event's id from the command line: a whole number. A tank's id or
+/// anything else is refused with what an event id is and where to find it.
+pub fn event_id(text: &str) -> Result<i64, String> {
+    text.trim().parse::<i64>().ok().filter(|&id| id > 0).ok_or_else(|| {
+        format!(
+            "\"{}\" is not an event id; an event is named by its number (1, 2, ...), and `leaktally events` lists them with their tanks",
+            crate::logging::one_line(text)
+        )
+    })
+}
+
 /// A file path from the command line, refused when it holds a control
 /// character (a newline, a tab, an escape, a line separator): the name is
 /// echoed into logs and terminals, where such a character could forge a

@@ -345,12 +345,10 @@ pub fn describe(config: &Config) -> String {
         "Times shown in {}; figures in {} units; database {}.",
         people.zone_text(crate::store::now_ms()),
         config.units.name(),
-        config
-            .database
-            .as_ref()
-            .map_or("not named (give --db, or set LEAKTALLY_DB)".into(), |db| {
-                one_line(&db.display().to_string()).into_owned()
-            })
+        config.database.as_ref().map_or(
+            "not named in the config (the other commands then need --db or LEAKTALLY_DB)".into(),
+            |db| { one_line(&db.display().to_string()).into_owned() }
+        )
     );
     for (d, device) in config.devices.iter().enumerate() {
         let _ = writeln!(

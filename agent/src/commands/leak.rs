@@ -39,6 +39,7 @@ pub enum LeakCommand {
     /// Recompute an event from its start with new parameters (logged).
     Revise {
         /// The event's id (`leaktally events` lists them).
+        #[arg(value_parser = super::args::event_id)]
         event: i64,
         #[command(flatten)]
         changes: ParamChangeArgs,
@@ -54,6 +55,7 @@ pub enum LeakCommand {
     /// Add a note to an event's audit trail.
     Note {
         /// The event's id (`leaktally events` lists them).
+        #[arg(value_parser = super::args::event_id)]
         event: i64,
         /// The note, in quotes.
         text: String,
@@ -66,6 +68,7 @@ pub enum LeakCommand {
     /// Close an event once the leak is isolated; its total no longer changes.
     Close {
         /// The event's id (`leaktally events` lists them).
+        #[arg(value_parser = super::args::event_id)]
         event: i64,
         /// How the leak was isolated, for the audit trail.
         #[arg(long)]

@@ -44,7 +44,7 @@ use std::path::{Path, PathBuf};
 #[derive(Debug, clap::Args)]
 pub struct ReplayArgs {
     /// The event's id (leave out with --readings).
-    #[arg(required_unless_present = "readings")]
+    #[arg(required_unless_present = "readings", value_parser = super::args::event_id)]
     pub event: Option<i64>,
     /// A CSV of timestamped readings instead of a logged event (see the
     /// README for the columns); needs --tank and the site config.
@@ -361,7 +361,7 @@ fn replay_event(
         .with_context(|| format!("reading {}", db.display()))?;
     let row = store::event(&conn, event)?.with_context(|| {
         format!(
-            "there is no event {event} in {}; `leaktally status` lists the open events",
+            "there is no event {event} in {}; `leaktally events` lists every event",
             db.display()
         )
     })?;

@@ -17,6 +17,7 @@ use std::path::Path;
 pub struct StatusArgs {
     /// One event's id, open or closed (`leaktally events` lists them); all
     /// open events if absent.
+    #[arg(value_parser = super::args::event_id)]
     pub event: Option<i64>,
     /// Print the JSON document for machines instead of the table.
     #[arg(long)]
@@ -54,8 +55,10 @@ pub fn command(args: StatusArgs) -> anyhow::Result<()> {
     } else {
         print!("{}", status::text(&doc));
     }
-    // A stalled daemon is alive and catches up by itself: not code 4.
-    if doc.daemon_running || doc.daemon_stalled {
+    // A stalled daemon is alive and catches up by itself: not code 4; nor
+    // is a closed event asked for by its id, whose figures are final.
+    let all_final = args.event.is_some() && doc.events.iter().all(|e| e.state == "closed");
+    if doc.daemon_running || doc.daemon_stalled || all_final {
         Ok(())
     } else {
         Err(Coded::said(

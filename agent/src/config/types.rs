@@ -63,8 +63,13 @@ pub fn time_zone(name: &str) -> Result<(String, jiff::tz::TimeZone), UnknownZone
     };
     if name == "local" {
         let zone = jiff::tz::TimeZone::try_system().map_err(|_| unknown())?;
-        let shown = zone.iana_name().unwrap_or("local").to_owned();
-        return Ok((shown, zone));
+        let shown = match zone.iana_name() {
+            // One name for UTC, whatever the machine calls it.
+            Some("Etc/UTC" | "Etc/UCT" | "Etc/Universal" | "Etc/Zulu" | "UCT" | "Zulu") => "UTC",
+            Some(name) => name,
+            None => "local",
+        };
+        return Ok((shown.to_owned(), zone));
     }
     let zone = jiff::tz::TimeZone::get(name).map_err(|_| unknown())?;
     Ok((name.to_owned(), zone))

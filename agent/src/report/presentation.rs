@@ -72,7 +72,7 @@ impl Presentation {
     /// and offset: `2026-12-01 14:42:07 CET (UTC+01:00)`;
     /// `2026-12-01 13:42:07 UTC` in UTC.
     pub fn time(&self, at_ms: i64) -> String {
-        match jiff::Timestamp::from_millisecond(at_ms) {
+        match jiff::Timestamp::from_millisecond(to_nearest_second(at_ms)) {
             Ok(t) => {
                 let local = t.to_zoned_datetime(self.zone.clone());
                 if self.is_utc() {
@@ -93,7 +93,7 @@ impl Presentation {
 
     /// A time in the site's zone by a `strftime` pattern (jiff's).
     pub fn strftime(&self, at_ms: i64, pattern: &str) -> String {
-        match jiff::Timestamp::from_millisecond(at_ms) {
+        match jiff::Timestamp::from_millisecond(to_nearest_second(at_ms)) {
             Ok(t) => t
                 .to_zoned_datetime(self.zone.clone())
                 .strftime(pattern)
@@ -170,6 +170,15 @@ impl Presentation {
             Units::UsCustomary => format!("{} psig", number(kpa * PSI_PER_KPA)),
         }
     }
+}
+
+/// People read times to the second, rounded, not cut: a start an operator
+/// typed as 13:42:00 and stored a millisecond earlier still reads 13:42:00.
+fn to_nearest_second(at_ms: i64) -> i64 {
+    at_ms
+        .saturating_add(500)
+        .div_euclid(1000)
+        .saturating_mul(1000)
 }
 
 /// A machine timestamp: RFC 3339 in UTC with milliseconds,
@@ -285,6 +294,11 @@ mod tests {
         assert_eq!(rfc3339(summer + 250), "2026-07-01T12:00:00.250Z");
         assert_eq!(
             Presentation::default().time(summer),
+            "2026-07-01 12:00:00 UTC"
+        );
+        // Rounded to the second, not cut.
+        assert_eq!(
+            Presentation::default().time(summer - 1),
             "2026-07-01 12:00:00 UTC"
         );
         let oslo = Presentation::new("Europe/Oslo", Units::Metric).unwrap();

@@ -169,15 +169,15 @@ pub fn text(doc: &EventsDocument) -> String {
     } else {
         let _ = writeln!(
             out,
-            "{:>6}  {:<12} {:<7} {:<16} {:<16} {:>12}  {:>4}  total (final when closed)",
+            "{:>6}  {:<12} {:<7} {:<19} {:<19} {:>12}  {:>4}  total (final when closed)",
             "event", "tank", "state", "start", "end", "duration", "rev"
         );
     }
     for e in &doc.events {
-        let short = |at: i64| people.strftime(at, "%Y-%m-%d %H:%M");
+        let short = |at: i64| people.strftime(at, "%Y-%m-%d %H:%M:%S");
         let _ = writeln!(
             out,
-            "{:>6}  {:<12} {:<7} {:<16} {:<16} {:>12}  {:>4}  {}",
+            "{:>6}  {:<12} {:<7} {:<19} {:<19} {:>12}  {:>4}  {}",
             e.event,
             crate::logging::one_line(&e.tank),
             e.state,
@@ -266,7 +266,7 @@ mod tests {
         for expected in [
             "times below in Europe/Oslo",
             // 12:00 UTC is 13:00 in Oslo in December (UTC+01:00).
-            "closed  2026-12-01 13:00 2026-12-01 14:00",
+            "closed  2026-12-01 13:00:00 2026-12-01 14:00:00",
             "1 h 00 min",
             "no usable sample",
             report::CAUTION,

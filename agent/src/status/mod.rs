@@ -169,7 +169,7 @@ impl Volumes {
 #[derive(Debug, thiserror::Error)]
 pub enum StatusError {
     /// The event asked for is not in the database.
-    #[error("there is no event {0}; `leaktally status` lists the open events")]
+    #[error("there is no event {0}; `leaktally events` lists every event")]
     NoEvent(i64),
     #[error(transparent)]
     Store(#[from] StoreError),

@@ -153,7 +153,20 @@ fn apply(
                 );
             }
             let Some((_, t, _)) = tank_of(&cx.config, &tank) else {
-                return refuse(None, format!("there is no tank {tank} in the config"));
+                let known: Vec<&str> = cx.config.tanks.iter().map(|t| t.id.as_str()).collect();
+                let like = known
+                    .iter()
+                    .find(|k| k.eq_ignore_ascii_case(&tank))
+                    .map_or(String::new(), |k| {
+                        format!(" (tank ids are exact: did you mean {k}?)")
+                    });
+                return refuse(
+                    None,
+                    format!(
+                        "there is no tank {tank} in the config{like}; the tanks are: {}",
+                        known.join(", ")
+                    ),
+                );
             };
             let start = since_ms.map_or(requested, |s| cx.clock.from_wall(s));
             if start > now + 1000 {
@@ -321,5 +334,7 @@ fn check_history(
 }
 
 fn not_open(event: i64) -> String {
-    format!("event {event} is not open; `leaktally status` lists the open events")
+    format!(
+        "event {event} is not open (closed, or never opened); `leaktally events` lists every event with its state"
+    )
 }

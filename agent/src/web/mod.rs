@@ -483,7 +483,7 @@ fn event_id(id: &str) -> Result<i64, Failure> {
 fn find_event(conn: &rusqlite::Connection, id: i64) -> Result<store::EventRow, Failure> {
     store::event(conn, id)?.ok_or_else(|| {
         Failure::NotFound(format!(
-            "there is no event {id}; /api/status lists the open events"
+            "there is no event {id}; /api/events lists every event"
         ))
     })
 }

@@ -162,6 +162,16 @@ fn crossing(id: i64, c: &Crossing, released_kg: f64, people: &Presentation) -> H
         markup!(r#" data-high-at-ms="{at}""#, at = at)
     });
     let (class, text) = match (c.at_ms, c.high_at_ms) {
+        // The band's earlier crossing decides notification (README,
+        // "Notification"): said beside the best estimate's, never hidden.
+        (Some(best), Some(high)) if high < best => (
+            "crossed",
+            markup!(
+                "reached at {at} (best estimate); may have been reached from {high} (the band's high end)",
+                at = clock(best),
+                high = clock(high)
+            ),
+        ),
         (Some(best), _) => ("crossed", markup!("reached at {at}", at = clock(best))),
         (None, Some(high)) => (
             "crossed",
