@@ -17,6 +17,7 @@
 use crate::acquire::link::{Link, LinkError, Words, exception_hint};
 use crate::acquire::plan::{Read, plan_reads};
 use crate::acquire::poller::{describe_read, flag};
+use crate::acquire::serial::Buses;
 use crate::config::{Config, Device, Role, Sensor};
 use crate::logging::one_line;
 use crate::model::PressureTap;
@@ -119,13 +120,15 @@ pub async fn run(path: &Path, offline: bool) -> anyhow::Result<Checked> {
         });
     }
     let (mut failed_devices, mut failed_blocks) = (0, 0);
+    // Devices on one serial port share its bus, as the daemon's do.
+    let buses = Buses::for_config(&config);
     for (d, device) in config.devices.iter().enumerate() {
         let reads = plan_reads(&config, d, device.bridge_gaps);
         if reads.is_empty() {
             continue;
         }
         let _ = writeln!(out);
-        let failed = probe(&config, device, &reads, &mut out).await;
+        let failed = probe(&config, device, &buses, &reads, &mut out).await;
         if failed > 0 {
             failed_devices += 1;
             failed_blocks += failed;
@@ -145,14 +148,20 @@ pub async fn run(path: &Path, offline: bool) -> anyhow::Result<Checked> {
 
 /// Reads each block of one device once and writes what came back; returns
 /// how many blocks failed.
-async fn probe(config: &Config, device: &Device, reads: &[Read], out: &mut String) -> usize {
+async fn probe(
+    config: &Config,
+    device: &Device,
+    buses: &Buses,
+    reads: &[Read],
+    out: &mut String,
+) -> usize {
     let name = format!(
         "{} ({} unit {})",
         one_line(&device.id),
         one_line(&device.address),
         device.unit_id
     );
-    let mut link = Link::new(&device.address, device.unit_id, device.request_timeout);
+    let mut link = Link::for_device(device, buses);
     let started = Instant::now();
     if let Err(e) = link.connect().await {
         let _ = writeln!(
@@ -362,6 +371,17 @@ pub fn describe(config: &Config) -> String {
             device.poll_interval.as_millis(),
             device.request_timeout.as_millis()
         );
+        if let Some(line) = &device.serial {
+            let _ = writeln!(
+                out,
+                "  Modbus RTU at {} baud, {} data bits, parity {}, {} stop bit(s); {:.2} ms of silence before each request",
+                line.baud_rate,
+                line.data_bits,
+                line.parity.name(),
+                line.stop_bits,
+                device.inter_request_delay.as_secs_f64() * 1000.0
+            );
+        }
         for tank in config.tanks.iter().filter(|t| t.device == d) {
             let v = &tank.vessel;
             let _ = writeln!(
