@@ -287,6 +287,28 @@ fn twenty_gauges_on_a_9600_baud_line_are_read_in_turn() {
         "site.toml",
         &gauge_line(&cable.agent_end, 9600, TANKS, 1000),
     );
+    // `check` reads every gauge's block once, through the same shared bus.
+    let checked = crate::util::run(
+        "leaktally-check",
+        Command::new(binary("leaktally"))
+            .arg("check")
+            .arg("--config")
+            .arg(&site),
+        &scratch,
+    );
+    assert!(
+        checked.status.success(),
+        "{}\n{}",
+        checked.stdout,
+        checked.stderr
+    );
+    assert_eq!(
+        checked.stdout.matches("Modbus RTU at 9600 baud").count(),
+        TANKS,
+        "{}",
+        checked.stdout
+    );
+    assert_eq!(checked.stdout.matches(": answered in ").count(), TANKS);
     let samples = poll_live(&scratch, "poll-1s", &site, 6);
     let mut by_tank: BTreeMap<&str, Vec<&Polled>> = BTreeMap::new();
     for s in &samples {
