@@ -309,6 +309,14 @@ fn twenty_gauges_on_a_9600_baud_line_are_read_in_turn() {
         checked.stdout
     );
     assert_eq!(checked.stdout.matches(": answered in ").count(), TANKS);
+    assert!(
+        checked
+            .stdout
+            .contains("20 device(s), asked in turn; a round takes at least 470 ms")
+            && !checked.stdout.contains("warning"),
+        "{}",
+        checked.stdout
+    );
     let samples = poll_live(&scratch, "poll-1s", &site, 6);
     let mut by_tank: BTreeMap<&str, Vec<&Polled>> = BTreeMap::new();
     for s in &samples {
@@ -331,6 +339,21 @@ fn twenty_gauges_on_a_9600_baud_line_are_read_in_turn() {
     let site = scratch.write(
         "site-fast.toml",
         &gauge_line(&cable.agent_end, 9600, TANKS, 400),
+    );
+    // `check` says that a 400 ms poll cannot be kept on this line.
+    let offline = crate::util::run(
+        "leaktally-check-offline",
+        Command::new(binary("leaktally"))
+            .args(["check", "--offline", "--config"])
+            .arg(&site),
+        &scratch,
+    );
+    assert!(
+        offline.stdout.contains(
+            "a round takes at least 470 ms, longer than device gauge-01's poll_interval_ms = 400"
+        ),
+        "{}",
+        offline.stdout
     );
     let samples = poll_live(&scratch, "poll-saturated", &site, 8);
     let mut starts: BTreeMap<&str, Vec<i64>> = BTreeMap::new();

@@ -23,6 +23,7 @@
 //! given).
 
 use crate::acquire::link::LinkError;
+use crate::acquire::plan::{Read, plan_reads};
 use crate::config::{Config, Parity, SerialLine};
 use std::collections::HashMap;
 use std::sync::Arc;
@@ -154,6 +155,35 @@ impl SerialBus {
     }
 }
 
+/// How long one planned read takes on the line by the wire alone: the
+/// request (8 bytes: unit, function, address, count, CRC) and the reply
+/// (unit, function, byte count, the data, CRC), without the silence before
+/// it or the device's own time to answer.
+pub fn exchange_time(line: &SerialLine, read: &Read) -> Duration {
+    let data = match read.table {
+        crate::registers::Table::Registers(_) => 2 * usize::from(read.count),
+        crate::registers::Table::Bits(_) => usize::from(read.count).div_ceil(8),
+    };
+    line.transmission_time(8 + 5 + data)
+}
+
+/// The least a round of `port` takes (every device on it read once), by
+/// the wire and the silences alone, and the devices on it (config indices).
+pub fn least_round(config: &Config, port: &str) -> (Duration, Vec<usize>) {
+    let mut round = Duration::ZERO;
+    let mut devices = Vec::new();
+    for (index, device) in config.devices.iter().enumerate() {
+        let Some(line) = device.serial.as_ref().filter(|l| l.port == port) else {
+            continue;
+        };
+        devices.push(index);
+        for read in plan_reads(config, index, device.bridge_gaps) {
+            round += device.inter_request_delay + exchange_time(line, &read);
+        }
+    }
+    (round, devices)
+}
+
 /// A failed exchange on a line, said as a person should read it.
 fn transport_error(e: &tokio_modbus::Error) -> LinkError {
     match e {
@@ -220,5 +250,37 @@ fn open_reason(e: &tokio_serial::Error) -> String {
             e.description
         ),
         _ => e.description.clone(),
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::registers::{BitKind, RegisterKind, Table};
+
+    #[test]
+    fn an_exchange_takes_its_bytes_at_eleven_bits_each() {
+        let line = SerialLine {
+            port: "/dev/ttyUSB0".into(),
+            baud_rate: 9600,
+            parity: Parity::Even,
+            stop_bits: 1,
+            data_bits: 8,
+        };
+        let read = |table, count| Read {
+            table,
+            start: 0,
+            count,
+            values: vec![],
+        };
+        // 8 + 9 bytes of 11 bits at 9600 baud: 19.479 ms.
+        let two = exchange_time(&line, &read(Table::Registers(RegisterKind::Input), 2));
+        assert_eq!(two.as_micros(), 19_479);
+        // 125 registers: 8 + 255 bytes, 301.35 ms.
+        let most = exchange_time(&line, &read(Table::Registers(RegisterKind::Holding), 125));
+        assert_eq!(most.as_micros(), 301_354);
+        // 9 coils come in 2 bytes: 8 + 7 bytes.
+        let bits = exchange_time(&line, &read(Table::Bits(BitKind::Coil), 9));
+        assert_eq!(bits.as_micros(), 17_187);
     }
 }

@@ -17,7 +17,7 @@
 use crate::acquire::link::{Link, LinkError, Words, exception_hint};
 use crate::acquire::plan::{Read, plan_reads};
 use crate::acquire::poller::{describe_read, flag};
-use crate::acquire::serial::Buses;
+use crate::acquire::serial::{Buses, least_round};
 use crate::config::{Config, Device, Role, Sensor};
 use crate::logging::one_line;
 use crate::model::PressureTap;
@@ -450,7 +450,47 @@ pub fn describe(config: &Config) -> String {
             let _ = writeln!(out, "    {}", read_line(read));
         }
     }
+    serial_rounds(config, &mut out);
     out
+}
+
+/// Per serial port: how long a round of its devices takes at least, and a
+/// warning when that is longer than a poll interval on it (the devices are
+/// then read less often than configured).
+fn serial_rounds(config: &Config, out: &mut String) {
+    let mut ports: Vec<&str> = config
+        .devices
+        .iter()
+        .filter_map(|d| d.serial.as_ref().map(|l| l.port.as_str()))
+        .collect();
+    ports.sort_unstable();
+    ports.dedup();
+    for port in ports {
+        let (round, devices) = least_round(config, port);
+        let Some(fastest) = devices
+            .iter()
+            .map(|&i| &config.devices[i])
+            .min_by_key(|d| d.poll_interval)
+        else {
+            continue;
+        };
+        let round_ms = round.as_secs_f64() * 1000.0;
+        let _ = writeln!(
+            out,
+            "\nserial port {}: {} device(s), asked in turn; a round takes at least {round_ms:.0} ms on the wire (requests, replies and the silences before them)",
+            one_line(port),
+            devices.len()
+        );
+        if round > fastest.poll_interval {
+            let _ = writeln!(
+                out,
+                "warning: serial port {}: a round takes at least {round_ms:.0} ms, longer than device {}'s poll_interval_ms = {}; its devices will be read less often than configured: lengthen poll_interval_ms, raise the baud rate, or split the devices over two ports",
+                one_line(port),
+                one_line(&fastest.id),
+                fastest.poll_interval.as_millis()
+            );
+        }
+    }
 }
 
 fn sensor_line(role: &str, s: &Sensor) -> String {
