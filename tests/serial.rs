@@ -379,7 +379,12 @@ fn twenty_gauges_on_a_9600_baud_line_are_read_in_turn() {
         cycle < 1000,
         "a round of {cycle} ms does not fit a 1 s poll"
     );
-    assert!(round_1s < 1000, "{round_1s} ms");
+    // About 530 ms here; the bound leaves room for a loaded machine (the
+    // rest of the suite beside it).
+    assert!(
+        round_1s < 1200,
+        "the last gauge's sample out {round_1s} ms after the tick"
+    );
 }
 
 /// A unit that stops answering on a shared line: while the demo site's
@@ -409,7 +414,7 @@ fn a_silent_unit_does_not_stall_the_line_beyond_its_timeout() {
     assert!(east.iter().all(|s| s.good), "rtu-east lost a sample");
     let gaps: Vec<i64> = east.windows(2).map(|w| w[1].at_ms - w[0].at_ms).collect();
     assert!(
-        gaps.iter().all(|&g| g <= 1100),
+        gaps.iter().all(|&g| g <= 1300),
         "rtu-east missed a cycle: {gaps:?}"
     );
     // How long rtu-east's samples took to come out after their tick: while
@@ -428,7 +433,8 @@ fn a_silent_unit_does_not_stall_the_line_beyond_its_timeout() {
         "19200 baud, rtu-west silent for 10 s: rtu-east's samples out at most {during} ms after their tick while it was silent ({before} ms otherwise); rtu-west's timeout is 400 ms"
     );
     assert!(
-        during <= before.max(50) + 400 + 150,
+        // The 400 ms timeout, and room for a loaded machine's scheduling.
+        during <= before.max(50) + 400 + 250,
         "rtu-east waited {during} ms (otherwise {before} ms)"
     );
     let silent = west
