@@ -23,6 +23,9 @@
 //!   a user outside it is told how to join (real users; needs root).
 //! * `longrun`: wall-clock steps under the daemon (faketime), a damaged
 //!   database, a request made as the daemon dies.
+//! * `serial`: Modbus RTU end to end, the simulator and the agent on a
+//!   pty pair made by socat: accuracy, a slow line of 20 gauges, a silent
+//!   unit on a shared line.
 //! * `tracking`: the simulator, the daemon and the operator CLI as real
 //!   processes, against the simulator's ground truth.
 //! * `web`: the daemon's responder page in headless chromium against
@@ -44,6 +47,7 @@ mod properties;
 mod python_env;
 mod references;
 mod replay;
+mod serial;
 mod tracking;
 mod util;
 mod web;

@@ -16,8 +16,13 @@ use std::time::{Duration, Instant};
 /// holes the tests' `leak open` gives (Cd 0.61); tests add their own events
 /// after these.
 pub(crate) fn three_leaks() -> ScenarioBuilder {
-    ScenarioBuilder::demo()
-        .seed(11)
+    three_leaks_on(ScenarioBuilder::demo())
+}
+
+/// [`three_leaks`] on another copy of the demo site (its devices elsewhere,
+/// e.g. on a serial line).
+pub(crate) fn three_leaks_on(site: ScenarioBuilder) -> ScenarioBuilder {
+    site.seed(11)
         .tank(ScenarioTank::new("FF-T12", 4.2).level_noise_m(0.001))
         .tank(
             ScenarioTank::new("FF-T14", 2.0)

@@ -1,4 +1,5 @@
-//! leaktally-sim: a Modbus TCP server that stands in for the plant. It
+//! leaktally-sim: a Modbus TCP server (or a Modbus RTU unit on a serial
+//! port, with `--serial`) that stands in for the plant. It
 //! simulates tanks with true draining physics in real time, plays a script
 //! of events (a leak opening, pump transfers, sensor faults, dropped links),
 //! serves the sensors' registers as the site config maps them, and writes
@@ -14,7 +15,8 @@
 //!   clock of physics steps. Pure.
 //! * [`noise`]: deterministic gaussian noise.
 //! * [`registers`]: the devices' register tables and value encoding.
-//! * [`service`]: the Modbus TCP service and its request counts.
+//! * [`service`]: the Modbus service (TCP, or RTU on a serial line) and its
+//!   request counts.
 //! * [`truth`]: the ground-truth CSV.
 //!
 //! This file joins them: [`Simulator::bind`] opens the listener, and
@@ -30,6 +32,7 @@ pub mod service;
 pub mod truth;
 
 use anyhow::{Context, bail};
+use leaktally::config::SerialLine;
 use plant::{Applied, Plant, TruthRow};
 use registers::RegisterImage;
 use scenario::{EventKind, Scenario};
@@ -51,6 +54,8 @@ pub struct Options {
     pub scenario: PathBuf,
     /// host:port to listen on; the first device's address if absent.
     pub listen: Option<String>,
+    /// Serve Modbus RTU on this serial port instead of TCP.
+    pub serial: Option<PathBuf>,
     pub truth: Option<PathBuf>,
 }
 
@@ -59,7 +64,10 @@ pub struct Options {
 pub async fn launch(options: Options, shutdown: CancellationToken) -> anyhow::Result<()> {
     let scenario = scenario::load(&options.scenario).context("the scenario is not valid")?;
     let ids = scenario.site.tanks.iter().map(|t| t.id.clone()).collect();
-    let sim = Simulator::bind(scenario, options.listen.as_deref()).await?;
+    let sim = match &options.serial {
+        Some(port) => Simulator::open_serial(scenario, port)?,
+        None => Simulator::bind(scenario, options.listen.as_deref()).await?,
+    };
     let truth = match &options.truth {
         Some(path) => {
             let file = std::fs::File::create(path)
@@ -71,9 +79,9 @@ pub async fn launch(options: Options, shutdown: CancellationToken) -> anyhow::Re
         }
         None => None,
     };
-    let addr = sim.local_addr()?;
-    // Tests that bind port 0 read this line to learn the port, so it goes
-    // to stdout alone, once, and flushed.
+    let addr = sim.endpoint_name()?;
+    // Tests that bind port 0 read this line to learn the port (or that the
+    // serial port is open), so it goes to stdout alone, once, and flushed.
     {
         let mut stdout = std::io::stdout().lock();
         writeln!(stdout, "listening on {addr}").and_then(|()| stdout.flush())?;
@@ -87,8 +95,19 @@ pub async fn launch(options: Options, shutdown: CancellationToken) -> anyhow::Re
 /// A bound simulator, not yet running.
 pub struct Simulator {
     scenario: Scenario,
-    listener: TcpListener,
+    endpoint: Endpoint,
     counts: Arc<RequestCounts>,
+}
+
+/// Where the simulator serves: a TCP listener, or an open serial port
+/// with the line's settings.
+enum Endpoint {
+    Tcp(TcpListener),
+    Serial {
+        path: PathBuf,
+        port: tokio_serial::SerialStream,
+        line: SerialLine,
+    },
 }
 
 impl Simulator {
@@ -102,6 +121,12 @@ impl Simulator {
                 scenario.site.path.display()
             );
         };
+        if listen.is_none() && first.serial.is_some() {
+            bail!(
+                "device \"{}\" is on a serial line; give --serial PATH (one end of the cable, or of a pty pair) or --listen HOST:PORT",
+                first.id
+            );
+        }
         let addr = listen.unwrap_or(&first.address).to_owned();
         if listen.is_none() {
             for d in devices.iter().filter(|d| d.address != first.address) {
@@ -117,13 +142,62 @@ impl Simulator {
             .with_context(|| format!("cannot listen on {addr}"))?;
         Ok(Self {
             scenario,
-            listener,
+            endpoint: Endpoint::Tcp(listener),
             counts: Arc::default(),
         })
     }
 
+    /// Opens the serial port `path` to serve every device of the site as a
+    /// unit on that line, told apart by unit id, with the line settings of
+    /// the site's first serial device (the Modbus serial-line defaults,
+    /// 19200 baud, 8E1, if it has none).
+    pub fn open_serial(scenario: Scenario, path: &std::path::Path) -> anyhow::Result<Self> {
+        let devices = &scenario.site.devices;
+        if devices.is_empty() {
+            bail!(
+                "the site config {} defines no devices to serve",
+                scenario.site.path.display()
+            );
+        }
+        let mut line = devices
+            .iter()
+            .find_map(|d| d.serial.clone())
+            .unwrap_or(SerialLine {
+                port: String::new(),
+                baud_rate: 19_200,
+                parity: leaktally::config::Parity::Even,
+                stop_bits: 1,
+                data_bits: 8,
+            });
+        line.port = path.display().to_string();
+        let port = service::open_serial(&line)
+            .with_context(|| format!("cannot open the serial port {}", path.display()))?;
+        Ok(Self {
+            scenario,
+            endpoint: Endpoint::Serial {
+                path: path.to_owned(),
+                port,
+                line,
+            },
+            counts: Arc::default(),
+        })
+    }
+
+    /// The TCP address listened on (an error when serving a serial port).
     pub fn local_addr(&self) -> std::io::Result<SocketAddr> {
-        self.listener.local_addr()
+        match &self.endpoint {
+            Endpoint::Tcp(listener) => listener.local_addr(),
+            Endpoint::Serial { .. } => Err(std::io::Error::other("serving a serial port")),
+        }
+    }
+
+    /// Where it serves, as the `listening on` line says it: host:port, or
+    /// the serial port's path.
+    pub fn endpoint_name(&self) -> std::io::Result<String> {
+        match &self.endpoint {
+            Endpoint::Tcp(listener) => Ok(listener.local_addr()?.to_string()),
+            Endpoint::Serial { path, .. } => Ok(path.display().to_string()),
+        }
     }
 
     /// The request counts, live while the simulator runs.
@@ -154,7 +228,10 @@ impl Simulator {
             .enumerate()
             .map(|(i, d)| (d.unit_id, i))
             .collect();
-        let service = SimService::new(shared.clone(), self.counts.clone(), units);
+        let mut service = SimService::new(shared.clone(), self.counts.clone(), units);
+        if let Endpoint::Serial { line, .. } = &self.endpoint {
+            service = service.on_serial_line(line.clone());
+        }
         tracing::info!(
             "serving {} tanks on {} devices; physics step {} ms",
             site.tanks.len(),
@@ -183,12 +260,14 @@ impl Simulator {
         driver.wake()?;
         let physics = tokio::spawn(driver.drive(shutdown.clone()));
         let stop = shutdown.clone();
-        let served = service::serve(
-            self.listener,
-            service,
-            async move { stop.cancelled().await },
-        )
-        .await;
+        let served = match self.endpoint {
+            Endpoint::Tcp(listener) => {
+                service::serve(listener, service, async move { stop.cancelled().await }).await
+            }
+            Endpoint::Serial { port, line, .. } => {
+                service::serve_serial(port, &line, service, stop).await
+            }
+        };
         // If the server failed on its own, stop the physics too.
         shutdown.cancel();
         let driven = physics.await.context("the physics task failed")?;

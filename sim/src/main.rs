@@ -8,7 +8,7 @@ use std::path::PathBuf;
 use std::process::ExitCode;
 use tokio_util::sync::CancellationToken;
 
-/// A Modbus TCP tank simulator with true draining physics, for leaktally's
+/// A Modbus TCP (or RTU) tank simulator with true draining physics, for leaktally's
 /// demo and tests. All data it serves is invented.
 #[derive(Debug, Parser)]
 #[command(name = "leaktally-sim", version)]
@@ -20,6 +20,10 @@ struct Cli {
     /// first device's address in the site config].
     #[arg(long, value_name = "ADDR")]
     listen: Option<String>,
+    /// Serve Modbus RTU on this serial port instead of TCP (a real port, or
+    /// one end of a pty pair), at the site config's serial settings.
+    #[arg(long, value_name = "PATH", conflicts_with = "listen")]
+    serial: Option<PathBuf>,
     /// Write the ground truth (CSV, a row per tank every 100 ms) to this file.
     #[arg(long, value_name = "FILE")]
     truth: Option<PathBuf>,
@@ -37,6 +41,7 @@ async fn main() -> ExitCode {
     let options = leaktally_sim::Options {
         scenario: cli.scenario,
         listen: cli.listen,
+        serial: cli.serial,
         truth: cli.truth,
     };
     match leaktally_sim::launch(options, shutdown).await {

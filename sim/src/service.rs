@@ -1,6 +1,6 @@
-//! The Modbus TCP service: one listener for every device of the site,
-//! requests routed by unit id, read function codes only, and a count of
-//! every request by function code.
+//! The Modbus service: one listener (or one serial line) for every device
+//! of the site, requests routed by unit id, read function codes only, and a
+//! count of every request by function code.
 //!
 //! It answers FC01, FC02, FC03 and FC04 from the shared register image. Every
 //! other function code, and every write above all, gets IllegalFunction and
@@ -15,12 +15,20 @@
 //! exception given; one it makes miscount answers with that many values
 //! more (or fewer) than asked, as a faulty device or gateway can.
 //!
+//! On a serial line (Modbus RTU, [`serve_serial`]) the devices are units on
+//! one line: a unit id no device has gets no answer (nothing is there to
+//! answer), and each reply waits out the time the request and the reply
+//! would take on the wire at the line's baud rate, because a pty pair, which
+//! the tests use for a cable, carries bytes at once whatever the baud rate.
+//! Requests are answered one at a time, as on a real line.
+//!
 //! Left out: the physics and the clock (they update the shared image from
-//! outside), Modbus RTU, and per-connection state: every connection sees the
-//! same image.
+//! outside), and per-connection state: every connection sees the same
+//! image.
 
 use crate::registers::{MAX_READ_BITS, MAX_READ_REGISTERS, ReadError, RegisterImage};
 use crate::scenario::{Refusal, SimTable};
+use leaktally::config::{Parity, SerialLine};
 use leaktally::registers::{BitKind, RegisterKind};
 use std::collections::{BTreeMap, HashMap};
 use std::future::Future;
@@ -111,6 +119,8 @@ pub struct SimService {
     counts: Arc<RequestCounts>,
     /// Unit id to device index.
     units: Arc<HashMap<u8, usize>>,
+    /// On a serial line: its settings, for the wire time of each exchange.
+    wire: Option<SerialLine>,
 }
 
 impl SimService {
@@ -123,7 +133,14 @@ impl SimService {
             shared,
             counts,
             units: Arc::new(units),
+            wire: None,
         }
+    }
+
+    /// The same service as units on a serial line with `line`'s settings.
+    pub fn on_serial_line(mut self, line: SerialLine) -> Self {
+        self.wire = Some(line);
+        self
     }
 
     /// The reply to a request, and how long to hold it back.
@@ -140,14 +157,26 @@ impl SimService {
                 shared.reply_delay.get(device).copied()
             })
             .unwrap_or(Duration::ZERO);
-        (self.answer(req), delay)
+        let answer = self.answer(req);
+        let wire = match (&self.wire, &answer) {
+            // No reply: the master's timeout is all there is.
+            (None, _) | (_, Ok(None)) => Duration::ZERO,
+            (Some(line), reply) => line.transmission_time(READ_REQUEST_BYTES + reply_bytes(reply)),
+        };
+        (answer, delay + wire)
     }
 
     fn answer(&self, req: SlaveRequest<'static>) -> Result<Option<Response>, ExceptionCode> {
         let SlaveRequest { slave, request } = req;
         self.counts.record(request.function_code().value());
         let Some(&device) = self.units.get(&slave) else {
-            return Err(ExceptionCode::GatewayTargetDevice);
+            // On a line, nobody is there to answer; behind a gateway, the
+            // gateway says so.
+            return if self.wire.is_some() {
+                Ok(None)
+            } else {
+                Err(ExceptionCode::GatewayTargetDevice)
+            };
         };
         // A poisoned lock means the physics task panicked mid-update; the
         // image is still whole words, so serving it beats going silent.
@@ -193,6 +222,25 @@ impl SimService {
                 ReadError::IllegalDataValue => ExceptionCode::IllegalDataValue,
                 ReadError::IllegalDataAddress => ExceptionCode::IllegalDataAddress,
             })
+    }
+}
+
+/// An RTU read request's bytes: unit, function, address, count, CRC.
+const READ_REQUEST_BYTES: usize = 8;
+
+/// An RTU reply's bytes: unit, function, byte count, the data, CRC (an
+/// exception: unit, function, code, CRC).
+fn reply_bytes(reply: &Result<Option<Response>, ExceptionCode>) -> usize {
+    match reply {
+        Ok(Some(Response::ReadHoldingRegisters(v) | Response::ReadInputRegisters(v))) => {
+            5 + 2 * v.len()
+        }
+        Ok(Some(Response::ReadCoils(v) | Response::ReadDiscreteInputs(v))) => {
+            5 + v.len().div_ceil(8)
+        }
+        Ok(Some(_)) => 8,
+        Ok(None) => 0,
+        Err(_) => 5,
     }
 }
 
@@ -262,4 +310,64 @@ pub async fn serve(
     server
         .serve_until(&on_connected, on_process_error, shutdown)
         .await
+}
+
+/// Opens a serial port with the line's settings.
+pub fn open_serial(line: &SerialLine) -> io::Result<tokio_serial::SerialStream> {
+    use tokio_serial::SerialPortBuilderExt;
+    let parity = match line.parity {
+        Parity::None => tokio_serial::Parity::None,
+        Parity::Even => tokio_serial::Parity::Even,
+        Parity::Odd => tokio_serial::Parity::Odd,
+    };
+    let stop_bits = if line.stop_bits == 2 {
+        tokio_serial::StopBits::Two
+    } else {
+        tokio_serial::StopBits::One
+    };
+    tokio_serial::new(&line.port, line.baud_rate)
+        .parity(parity)
+        .stop_bits(stop_bits)
+        .data_bits(tokio_serial::DataBits::Eight)
+        .open_native_async()
+        .map_err(io::Error::from)
+}
+
+/// Serves the site's devices as units on the serial line `port` until
+/// `shutdown` is cancelled. tokio-modbus's RTU server ends on a frame it
+/// cannot decode (line noise, a master at another baud rate); the port is
+/// then opened again and serving goes on, as a real device would.
+pub async fn serve_serial(
+    port: tokio_serial::SerialStream,
+    line: &SerialLine,
+    service: SimService,
+    shutdown: tokio_util::sync::CancellationToken,
+) -> io::Result<Terminated> {
+    let mut port = Some(port);
+    loop {
+        let stream = match port.take() {
+            Some(stream) => stream,
+            None => {
+                tokio::select! {
+                    () = shutdown.cancelled() => return Ok(Terminated::Aborted),
+                    () = tokio::time::sleep(Duration::from_millis(100)) => {}
+                }
+                open_serial(line)?
+            }
+        };
+        let stop = shutdown.clone();
+        let served = tokio_modbus::server::rtu::Server::new(stream)
+            .serve_until(service.clone(), async move { stop.cancelled().await })
+            .await;
+        match served {
+            Ok(Terminated::Aborted) => return Ok(Terminated::Aborted),
+            Ok(Terminated::Finished) => {
+                tracing::debug!("the serial line {} ended; opening it again", line.port)
+            }
+            Err(e) => tracing::warn!(
+                "a frame on {} could not be read ({e}); opening the port again",
+                line.port
+            ),
+        }
+    }
 }

@@ -1,4 +1,6 @@
-//! A read-only Modbus TCP link to one device, with timeouts and reconnects.
+//! A read-only Modbus link to one device, with timeouts and reconnects:
+//! over TCP, or as one unit on a shared serial line (Modbus RTU, through
+//! [`serial`](super::serial)).
 //!
 //! The agent must never write to the control system. This type is the only
 //! place that holds a tokio-modbus client, and it exposes the four read
@@ -14,6 +16,8 @@
 //! merely refused that request.
 
 use crate::acquire::plan::Read;
+use crate::acquire::serial::{Buses, SerialBus};
+use crate::config::Device;
 use crate::registers::Table;
 use crate::registers::{BitKind, RegisterKind};
 use std::io;
@@ -142,9 +146,15 @@ pub struct Link {
     context: Option<Context>,
     /// Set by the stream under the context when the peer ended it.
     peer_closed: Arc<AtomicBool>,
+    /// For a device on a serial line: the line, shared with the other
+    /// devices on it, and the silence kept before each request. The
+    /// device counts as connected while `serial_up` is set.
+    serial: Option<(Arc<SerialBus>, Duration)>,
+    serial_up: bool,
 }
 
 impl Link {
+    /// A Modbus TCP link to host:port.
     pub fn new(address: &str, unit_id: u8, request_timeout: Duration) -> Self {
         Self {
             address: address.to_owned(),
@@ -152,17 +162,56 @@ impl Link {
             request_timeout,
             context: None,
             peer_closed: Arc::new(AtomicBool::new(false)),
+            serial: None,
+            serial_up: false,
+        }
+    }
+
+    /// A link to one unit on a serial line, sharing `bus` with the other
+    /// devices on it.
+    pub fn on_bus(
+        bus: Arc<SerialBus>,
+        unit_id: u8,
+        request_timeout: Duration,
+        delay: Duration,
+    ) -> Self {
+        let mut link = Self::new(&bus.line().port, unit_id, request_timeout);
+        link.serial = Some((bus, delay));
+        link
+    }
+
+    /// The link to a configured device: over TCP, or on its serial port's
+    /// bus from `buses` (made from the same config).
+    pub fn for_device(device: &Device, buses: &Buses) -> Self {
+        match device
+            .serial
+            .as_ref()
+            .and_then(|line| buses.get(&line.port))
+        {
+            Some(bus) => Self::on_bus(
+                bus,
+                device.unit_id,
+                device.request_timeout,
+                device.inter_request_delay,
+            ),
+            None => Self::new(&device.address, device.unit_id, device.request_timeout),
         }
     }
 
     pub fn is_connected(&self) -> bool {
-        self.context.is_some()
+        self.context.is_some() || self.serial_up
     }
 
     /// Connects if not connected. The TCP stream is made here rather than
     /// by tokio-modbus, so that it can be watched for the peer closing it
-    /// (see [`WatchedStream`]) and its errors said as they are.
+    /// (see [`WatchedStream`]) and its errors said as they are. On a
+    /// serial line, opens the port if no device on it has yet.
     pub async fn connect(&mut self) -> Result<(), LinkError> {
+        if let Some((bus, _)) = &self.serial {
+            bus.open().await?;
+            self.serial_up = true;
+            return Ok(());
+        }
         if self.context.is_some() {
             return Ok(());
         }
@@ -196,16 +245,16 @@ impl Link {
 
     /// Closes the connection; the next read reconnects.
     pub fn disconnect(&mut self) {
-        // Dropping the context closes the socket.
+        // Dropping the context closes the socket. A serial line stays open
+        // for the other devices on it (the bus closes it after a failed
+        // exchange itself); this device waits out its backoff.
         self.context = None;
+        self.serial_up = false;
     }
 
     /// Performs one planned read.
     pub async fn read(&mut self, read: &Read) -> Result<Words, LinkError> {
         let wait = self.request_timeout;
-        let Some(ctx) = self.context.as_mut() else {
-            return Err(LinkError::NotConnected(self.address.clone()));
-        };
         let (start, count) = (read.start, read.count);
         // The read requests are built here and nowhere else; `call` sends
         // whatever it is given, so this match is what keeps the link
@@ -220,13 +269,27 @@ impl Link {
         // reply's length in debug builds (a panic on a device's bad reply)
         // and pass a wrong length on in release builds. Here the length is
         // checked against the request either way.
-        let outcome = match timeout(wait, ctx.call(request)).await {
-            Err(_) => Err(LinkError::Timeout(wait)),
-            Ok(Err(e)) => Err(self.transport_error(&e)),
-            Ok(Ok(Err(code))) => Err(LinkError::Exception {
+        let answer = if let Some((bus, delay)) = &self.serial {
+            if !self.serial_up {
+                return Err(LinkError::NotConnected(self.address.clone()));
+            }
+            bus.call(self.unit_id, *delay, wait, request).await
+        } else {
+            let Some(ctx) = self.context.as_mut() else {
+                return Err(LinkError::NotConnected(self.address.clone()));
+            };
+            match timeout(wait, ctx.call(request)).await {
+                Err(_) => Err(LinkError::Timeout(wait)),
+                Ok(Err(e)) => Err(self.transport_error(&e)),
+                Ok(Ok(reply)) => Ok(reply),
+            }
+        };
+        let outcome = match answer {
+            Err(e) => Err(e),
+            Ok(Err(code)) => Err(LinkError::Exception {
                 code: u8::from(code),
             }),
-            Ok(Ok(Ok(response))) => checked(response, usize::from(count)),
+            Ok(Ok(response)) => checked(response, usize::from(count)),
         };
         if let Err(e) = &outcome
             && e.needs_reconnect()

@@ -1,7 +1,10 @@
-//! Acquisition: reading tank values from Modbus TCP devices.
+//! Acquisition: reading tank values from Modbus devices, over TCP or on
+//! serial lines (RTU).
 //!
 //! * [`plan`]: coalescing a device's values into as few reads as possible.
 //! * [`link`]: the read-only Modbus client with timeouts and reconnects.
+//! * [`serial`]: serial lines, each shared by its devices one request at a
+//!   time.
 //! * [`poller`]: one task per device, producing flagged samples.
 //! * [`plausible`]: how fast a tank's level can move, for the step check.
 //! * [`notices`]: what the pollers log, once per change of state.
@@ -17,6 +20,7 @@ pub mod plan;
 pub mod plausible;
 pub mod poller;
 pub mod sample;
+pub mod serial;
 pub mod stats;
 
 use crate::clock::Clock;
@@ -58,11 +62,14 @@ pub fn start_with_stats(
     tasks: &TaskTracker,
 ) -> mpsc::Receiver<Vec<TankSample>> {
     let (tx, rx) = mpsc::channel(slots.max(1));
+    // One bus per serial port, shared by the pollers of its devices.
+    let buses = serial::Buses::for_config(&config);
     for device in 0..config.devices.len() {
         if config.tanks.iter().any(|t| t.device == device) {
             tasks.spawn(poller::poll_device(
                 Arc::clone(&config),
                 device,
+                buses.clone(),
                 tx.clone(),
                 Arc::clone(&stats),
                 Arc::clone(&clock),

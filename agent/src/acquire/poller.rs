@@ -27,6 +27,7 @@ use crate::acquire::notices::{BlockKey, BlockWatch, Level, LinkWatch, Notice, Re
 use crate::acquire::plan::{Read, plan_reads, split_read};
 use crate::acquire::plausible::StepLimit;
 use crate::acquire::sample::{Quality, Reading, TankSample};
+use crate::acquire::serial::Buses;
 use crate::acquire::stats::{Outcome, Stats};
 use crate::clock::Clock;
 use crate::config::{Config, Role, Sensor};
@@ -146,12 +147,13 @@ impl RawMap {
 pub async fn poll_device(
     config: Arc<Config>,
     device: usize,
+    buses: Buses,
     out: mpsc::Sender<Vec<TankSample>>,
     stats: Arc<Stats>,
     clock: Arc<Clock>,
     cancel: CancellationToken,
 ) {
-    let mut poller = DevicePoller::new(config, device, clock);
+    let mut poller = DevicePoller::new(config, device, &buses, clock);
     let mut tick = tokio::time::interval(poller.interval());
     tick.set_missed_tick_behavior(MissedTickBehavior::Delay);
     loop {
@@ -234,9 +236,9 @@ struct DevicePoller {
 }
 
 impl DevicePoller {
-    fn new(config: Arc<Config>, device: usize, clock: Arc<Clock>) -> Self {
+    fn new(config: Arc<Config>, device: usize, buses: &Buses, clock: Arc<Clock>) -> Self {
         let d = &config.devices[device];
-        let link = Link::new(&d.address, d.unit_id, d.request_timeout);
+        let link = Link::for_device(d, buses);
         let name = format!("{} ({} unit {})", d.id, d.address, d.unit_id);
         let tanks: Vec<usize> = (0..config.tanks.len())
             .filter(|&t| config.tanks[t].device == device)

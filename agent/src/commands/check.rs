@@ -17,6 +17,7 @@
 use crate::acquire::link::{Link, LinkError, Words, exception_hint};
 use crate::acquire::plan::{Read, plan_reads};
 use crate::acquire::poller::{describe_read, flag};
+use crate::acquire::serial::{Buses, least_round};
 use crate::config::{Config, Device, Role, Sensor};
 use crate::logging::one_line;
 use crate::model::PressureTap;
@@ -119,13 +120,15 @@ pub async fn run(path: &Path, offline: bool) -> anyhow::Result<Checked> {
         });
     }
     let (mut failed_devices, mut failed_blocks) = (0, 0);
+    // Devices on one serial port share its bus, as the daemon's do.
+    let buses = Buses::for_config(&config);
     for (d, device) in config.devices.iter().enumerate() {
         let reads = plan_reads(&config, d, device.bridge_gaps);
         if reads.is_empty() {
             continue;
         }
         let _ = writeln!(out);
-        let failed = probe(&config, device, &reads, &mut out).await;
+        let failed = probe(&config, device, &buses, &reads, &mut out).await;
         if failed > 0 {
             failed_devices += 1;
             failed_blocks += failed;
@@ -145,14 +148,20 @@ pub async fn run(path: &Path, offline: bool) -> anyhow::Result<Checked> {
 
 /// Reads each block of one device once and writes what came back; returns
 /// how many blocks failed.
-async fn probe(config: &Config, device: &Device, reads: &[Read], out: &mut String) -> usize {
+async fn probe(
+    config: &Config,
+    device: &Device,
+    buses: &Buses,
+    reads: &[Read],
+    out: &mut String,
+) -> usize {
     let name = format!(
         "{} ({} unit {})",
         one_line(&device.id),
         one_line(&device.address),
         device.unit_id
     );
-    let mut link = Link::new(&device.address, device.unit_id, device.request_timeout);
+    let mut link = Link::for_device(device, buses);
     let started = Instant::now();
     if let Err(e) = link.connect().await {
         let _ = writeln!(
@@ -360,6 +369,17 @@ pub fn describe(config: &Config) -> String {
             device.poll_interval.as_millis(),
             device.request_timeout.as_millis()
         );
+        if let Some(line) = &device.serial {
+            let _ = writeln!(
+                out,
+                "  Modbus RTU at {} baud, {} data bits, parity {}, {} stop bit(s); {:.2} ms of silence before each request",
+                line.baud_rate,
+                line.data_bits,
+                line.parity.name(),
+                line.stop_bits,
+                device.inter_request_delay.as_secs_f64() * 1000.0
+            );
+        }
         for tank in config.tanks.iter().filter(|t| t.device == d) {
             let v = &tank.vessel;
             let _ = writeln!(
@@ -428,7 +448,47 @@ pub fn describe(config: &Config) -> String {
             let _ = writeln!(out, "    {}", read_line(read));
         }
     }
+    serial_rounds(config, &mut out);
     out
+}
+
+/// Per serial port: how long a round of its devices takes at least, and a
+/// warning when that is longer than a poll interval on it (the devices are
+/// then read less often than configured).
+fn serial_rounds(config: &Config, out: &mut String) {
+    let mut ports: Vec<&str> = config
+        .devices
+        .iter()
+        .filter_map(|d| d.serial.as_ref().map(|l| l.port.as_str()))
+        .collect();
+    ports.sort_unstable();
+    ports.dedup();
+    for port in ports {
+        let (round, devices) = least_round(config, port);
+        let Some(fastest) = devices
+            .iter()
+            .map(|&i| &config.devices[i])
+            .min_by_key(|d| d.poll_interval)
+        else {
+            continue;
+        };
+        let round_ms = round.as_secs_f64() * 1000.0;
+        let _ = writeln!(
+            out,
+            "\nserial port {}: {} device(s), asked in turn; a round takes at least {round_ms:.0} ms on the wire (requests, replies and the silences before them)",
+            one_line(port),
+            devices.len()
+        );
+        if round > fastest.poll_interval {
+            let _ = writeln!(
+                out,
+                "warning: serial port {}: a round takes at least {round_ms:.0} ms, longer than device {}'s poll_interval_ms = {}; its devices will be read less often than configured: lengthen poll_interval_ms, raise the baud rate, or split the devices over two ports",
+                one_line(port),
+                one_line(&fastest.id),
+                fastest.poll_interval.as_millis()
+            );
+        }
+    }
 }
 
 fn sensor_line(role: &str, s: &Sensor) -> String {

@@ -55,8 +55,18 @@ pub struct RawSite {
 #[serde(deny_unknown_fields)]
 pub struct RawDevice {
     pub id: Spanned<String>,
-    /// host:port of the Modbus TCP server (a PLC, an RTU or a gateway).
-    pub address: Spanned<String>,
+    /// host:port of the Modbus TCP server (a PLC, an RTU or a gateway);
+    /// absent for a device on a serial line.
+    pub address: Option<Spanned<String>>,
+    /// The serial port of a Modbus RTU device (in place of `address`), and
+    /// the line's settings; absent ones take the Modbus serial-line
+    /// defaults (`validate` says which).
+    pub serial_port: Option<Spanned<String>>,
+    pub baud_rate: Option<Spanned<u32>>,
+    pub parity: Option<Spanned<String>>,
+    pub stop_bits: Option<Spanned<u8>>,
+    pub data_bits: Option<Spanned<u8>>,
+    pub inter_request_delay_ms: Option<Spanned<f64>>,
     #[serde(default = "default_unit_id")]
     pub unit_id: Spanned<u8>,
     #[serde(default = "default_poll_interval")]

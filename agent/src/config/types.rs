@@ -161,17 +161,81 @@ impl Web {
 /// The web page's address when `[web]` gives none: loopback only.
 pub const DEFAULT_WEB_LISTEN: &str = "127.0.0.1:8470";
 
-/// A Modbus TCP server to poll.
+/// A Modbus device to poll: a TCP server, or a unit on a serial line.
 #[derive(Debug, Clone, PartialEq)]
 pub struct Device {
     pub id: String,
-    /// host:port.
+    /// Where the device is, as the log and `check` say it: host:port for
+    /// Modbus TCP, the serial port's path for Modbus RTU.
     pub address: String,
+    /// The serial line, for a Modbus RTU device; `None` for Modbus TCP.
+    pub serial: Option<SerialLine>,
     pub unit_id: u8,
     pub poll_interval: Duration,
     pub request_timeout: Duration,
+    /// On a serial line: the silence kept before each request to this
+    /// device, after the line's previous exchange ended. Zero over TCP.
+    pub inter_request_delay: Duration,
     /// Whether one read may span unmapped registers between mapped ones.
     pub bridge_gaps: bool,
+}
+
+/// A serial port's parity bit.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
+pub enum Parity {
+    None,
+    Even,
+    Odd,
+}
+
+impl Parity {
+    pub fn name(self) -> &'static str {
+        match self {
+            Parity::None => "none",
+            Parity::Even => "even",
+            Parity::Odd => "odd",
+        }
+    }
+}
+
+/// A serial line carrying Modbus RTU: the port and its character format.
+/// Every device on one port has the same (the config checks).
+#[derive(Debug, Clone, PartialEq, Eq, Hash)]
+pub struct SerialLine {
+    /// The port's path, e.g. /dev/ttyUSB0.
+    pub port: String,
+    pub baud_rate: u32,
+    pub parity: Parity,
+    pub stop_bits: u8,
+    pub data_bits: u8,
+}
+
+impl SerialLine {
+    /// Bits on the wire per character: a start bit, the data bits, the
+    /// parity bit if any, and the stop bits (11 for 8E1, 8N2 and 8O1).
+    pub fn bits_per_character(&self) -> u32 {
+        1 + u32::from(self.data_bits)
+            + u32::from(self.parity != Parity::None)
+            + u32::from(self.stop_bits)
+    }
+
+    /// How long `bytes` characters take on the wire, back to back.
+    pub fn transmission_time(&self, bytes: usize) -> Duration {
+        let bits = bytes as f64 * f64::from(self.bits_per_character());
+        Duration::from_secs_f64(bits / f64::from(self.baud_rate.max(1)))
+    }
+
+    /// The silent interval that ends a frame, t3.5: 3.5 character times,
+    /// and a fixed 1.75 ms above 19200 baud (Modbus over Serial Line
+    /// Specification V1.02, section 2.5.1.1).
+    pub fn silent_interval(&self) -> Duration {
+        if self.baud_rate > 19_200 {
+            Duration::from_micros(1750)
+        } else {
+            let bits = 3.5 * f64::from(self.bits_per_character());
+            Duration::from_secs_f64(bits / f64::from(self.baud_rate.max(1)))
+        }
+    }
 }
 
 /// A tank, its contents and its sensors.

@@ -21,7 +21,9 @@ mod tank;
 use super::problems::Problems;
 use super::raw::{self, RawConfig, RawTank};
 use super::register_map::overlaps;
-use super::types::{Config, DEFAULT_WEB_LISTEN, Device, HostName, Role, Tank, Units, Web};
+use super::types::{
+    Config, DEFAULT_WEB_LISTEN, Device, HostName, Parity, Role, SerialLine, Tank, Units, Web,
+};
 use crate::model::{AbsolutePressure, ModelError};
 use std::collections::HashMap;
 use std::net::SocketAddr;
@@ -62,6 +64,31 @@ const MAX_REPORTABLE_KG: f64 = 1e9;
 const MAX_STUCK_AFTER_S: f64 = 604_800.0;
 /// The most `max_rate_m_s` may say, m/s: free fall for a second.
 const MAX_LEVEL_RATE_M_S: f64 = 10.0;
+/// Serial rates, baud: 300 is the slowest a modem line ran; past 921600 no
+/// RS-485 transceiver on a tank farm goes (common practice).
+const BAUD_RATE: (u32, u32) = (300, 921_600);
+/// The Modbus serial-line specification's default rate (V1.02, 2.5.1).
+const DEFAULT_BAUD_RATE: u32 = 19_200;
+/// A pause between requests past 10 s is surely seconds typed as ms.
+const MAX_INTER_REQUEST_DELAY_MS: f64 = 10_000.0;
+
+/// The serial-line keys a device has, with their spans: they make no
+/// sense on a Modbus TCP device.
+fn serial_only_keys(d: &raw::RawDevice) -> Vec<(&'static str, Range<usize>)> {
+    [
+        ("baud_rate", d.baud_rate.as_ref().map(Spanned::span)),
+        ("parity", d.parity.as_ref().map(Spanned::span)),
+        ("stop_bits", d.stop_bits.as_ref().map(Spanned::span)),
+        ("data_bits", d.data_bits.as_ref().map(Spanned::span)),
+        (
+            "inter_request_delay_ms",
+            d.inter_request_delay_ms.as_ref().map(Spanned::span),
+        ),
+    ]
+    .into_iter()
+    .filter_map(|(key, span)| Some((key, span?)))
+    .collect()
+}
 
 /// A number as a config message quotes it: to 7 significant digits, plain
 /// when it is of everyday size, in exponent form when Display would print
@@ -240,10 +267,57 @@ impl Checker {
                         ),
                     );
                 }
+                self.shared_line(&d, &device, &devices);
                 devices.push(device);
             }
         }
         (devices, device_index)
+    }
+
+    /// Devices on one serial port share the line: the same settings, and
+    /// each its own unit id (one line has one of each).
+    fn shared_line(&mut self, d: &raw::RawDevice, device: &Device, before: &[Device]) {
+        let Some(line) = &device.serial else { return };
+        let span = d
+            .serial_port
+            .as_ref()
+            .map_or_else(|| d.id.span(), Spanned::span);
+        for other in before {
+            let Some(theirs) = &other.serial else {
+                continue;
+            };
+            if theirs.port != line.port {
+                continue;
+            }
+            if theirs != line {
+                self.problem(
+                    span.clone(),
+                    format!(
+                        "device \"{}\" is on {} at {} baud, parity {}, stop bits {}, but device \"{}\" on the same port says {} baud, parity {}, stop bits {}; one port has one setting, so make them agree",
+                        device.id,
+                        line.port,
+                        line.baud_rate,
+                        line.parity.name(),
+                        line.stop_bits,
+                        other.id,
+                        theirs.baud_rate,
+                        theirs.parity.name(),
+                        theirs.stop_bits
+                    ),
+                );
+                return;
+            }
+            if other.unit_id == device.unit_id {
+                self.problem(
+                    span.clone(),
+                    format!(
+                        "device \"{}\" has unit_id {} on {}, as device \"{}\" does; every device on a serial line needs its own unit id",
+                        device.id, device.unit_id, line.port, other.id
+                    ),
+                );
+                return;
+            }
+        }
     }
 
     /// The `[[tank]]` tables, each id used once; a config needs at least
@@ -359,16 +433,7 @@ impl Checker {
                 "device id is empty; give it a short name such as \"rtu-1\"",
             );
         }
-        let address = d.address.get_ref().trim().to_owned();
-        let port_ok = address.rsplit_once(':').is_some_and(|(host, port)| {
-            !host.is_empty() && port.parse::<u16>().is_ok_and(|p| p > 0)
-        });
-        if !port_ok {
-            self.problem(
-                d.address.span(),
-                format!("device address \"{address}\" is not host:port; write it like \"192.0.2.10:502\""),
-            );
-        }
+        let (address, serial) = self.endpoint(d, &id);
         let unit_id = *d.unit_id.get_ref();
         if unit_id == 0 || unit_id > 247 {
             self.problem(
@@ -401,14 +466,206 @@ impl Checker {
                 ),
             );
         }
+        let inter_request_delay = match &serial {
+            Some(line) => self.inter_request_delay(d, line, timeout),
+            None => Duration::ZERO,
+        };
         Some(Device {
             id,
             address,
+            serial,
             unit_id,
             poll_interval: Duration::from_millis(interval),
             request_timeout: Duration::from_millis(timeout),
+            inter_request_delay,
             bridge_gaps: d.bridge_gaps,
         })
+    }
+
+    /// Where a device is: `address` (Modbus TCP) or `serial_port` and the
+    /// line's settings (Modbus RTU), one of the two.
+    fn endpoint(&mut self, d: &raw::RawDevice, id: &str) -> (String, Option<SerialLine>) {
+        match (&d.address, &d.serial_port) {
+            (Some(a), None) => {
+                for (key, span) in serial_only_keys(d) {
+                    self.problem(
+                        span,
+                        format!(
+                            "device \"{id}\": {key} applies only to a device on a serial line; remove it, or give serial_port in place of address"
+                        ),
+                    );
+                }
+                let address = a.get_ref().trim().to_owned();
+                let port_ok = address.rsplit_once(':').is_some_and(|(host, port)| {
+                    !host.is_empty() && port.parse::<u16>().is_ok_and(|p| p > 0)
+                });
+                if !port_ok {
+                    self.problem(
+                        a.span(),
+                        format!("device address \"{address}\" is not host:port; write it like \"192.0.2.10:502\""),
+                    );
+                }
+                (address, None)
+            }
+            (None, Some(port)) => {
+                let line = self.serial_line(d, port);
+                (line.port.clone(), Some(line))
+            }
+            (Some(a), Some(_)) => {
+                self.problem(
+                    a.span(),
+                    format!(
+                        "device \"{id}\" has both address and serial_port; give address for Modbus TCP or serial_port for Modbus RTU, not both"
+                    ),
+                );
+                (a.get_ref().clone(), None)
+            }
+            (None, None) => {
+                self.problem(
+                    d.id.span(),
+                    format!(
+                        "device \"{id}\" says neither where it is; give address = \"host:port\" (Modbus TCP) or serial_port = \"/dev/ttyUSB0\" (Modbus RTU)"
+                    ),
+                );
+                (String::new(), None)
+            }
+        }
+    }
+
+    /// A serial line's settings, checked; absent ones take the defaults of
+    /// the Modbus serial-line specification (V1.02, 2.5.1: 19200 baud, even
+    /// parity, one stop bit, eight data bits).
+    fn serial_line(&mut self, d: &raw::RawDevice, port: &Spanned<String>) -> SerialLine {
+        let path = port.get_ref().trim().to_owned();
+        if path.is_empty() || path.chars().any(char::is_control) {
+            self.problem(
+                port.span(),
+                "serial_port is empty or has control characters; give the port's path, such as \"/dev/ttyUSB0\" or \"/dev/serial/by-id/usb-...\"",
+            );
+        }
+        let baud_rate = d
+            .baud_rate
+            .as_ref()
+            .map_or(DEFAULT_BAUD_RATE, |b| *b.get_ref());
+        if let Some(b) = &d.baud_rate
+            && !(BAUD_RATE.0..=BAUD_RATE.1).contains(&baud_rate)
+        {
+            self.problem(
+                b.span(),
+                format!(
+                    "baud_rate = {baud_rate} is outside {}..{}; use the rate set on the devices, such as 9600 or 19200",
+                    BAUD_RATE.0, BAUD_RATE.1
+                ),
+            );
+        }
+        let parity = match d.parity.as_ref().map(|p| (p.get_ref().as_str(), p.span())) {
+            None | Some(("even", _)) => Parity::Even,
+            Some(("none", _)) => Parity::None,
+            Some(("odd", _)) => Parity::Odd,
+            Some((other, span)) => {
+                self.problem(
+                    span,
+                    format!(
+                        "parity \"{other}\" is not one of \"none\", \"even\", \"odd\"; use the parity set on the devices"
+                    ),
+                );
+                Parity::Even
+            }
+        };
+        let stop_bits = d.stop_bits.as_ref().map_or(1, |b| *b.get_ref());
+        if let Some(b) = &d.stop_bits
+            && !matches!(stop_bits, 1 | 2)
+        {
+            self.problem(
+                b.span(),
+                format!("stop_bits = {stop_bits} is not 1 or 2; use the devices' setting (2 is usual with parity = \"none\")"),
+            );
+        }
+        let data_bits = d.data_bits.as_ref().map_or(8, |b| *b.get_ref());
+        if let Some(b) = &d.data_bits
+            && data_bits != 8
+        {
+            self.problem(
+                b.span(),
+                format!(
+                    "data_bits = {data_bits}: Modbus RTU sends 8 data bits a character (Modbus over Serial Line V1.02, 2.5.1; 7 is ASCII mode, which leaktally does not speak); set the devices to RTU with 8 data bits and remove the key or write 8"
+                ),
+            );
+        }
+        SerialLine {
+            port: path,
+            baud_rate: baud_rate.clamp(BAUD_RATE.0, BAUD_RATE.1),
+            parity,
+            stop_bits: stop_bits.clamp(1, 2),
+            data_bits: 8,
+        }
+    }
+
+    /// The silence before each request on a serial line: the line's t3.5
+    /// unless the file says more; and the request timeout must leave room
+    /// for the longest reply at the line's rate.
+    fn inter_request_delay(
+        &mut self,
+        d: &raw::RawDevice,
+        line: &SerialLine,
+        timeout_ms: u64,
+    ) -> Duration {
+        let least = line.silent_interval();
+        let delay = match &d.inter_request_delay_ms {
+            None => least,
+            Some(ms) => {
+                let value = *ms.get_ref();
+                let least_ms = least.as_secs_f64() * 1000.0;
+                if !(value.is_finite() && value <= MAX_INTER_REQUEST_DELAY_MS) {
+                    self.problem(
+                        ms.span(),
+                        format!(
+                            "inter_request_delay_ms = {} is outside 0..{MAX_INTER_REQUEST_DELAY_MS}; leave it out for the line's 3.5-character silence ({} ms at {} baud)",
+                            shown(value),
+                            shown(least_ms),
+                            line.baud_rate
+                        ),
+                    );
+                    least
+                } else if value < least_ms {
+                    self.problem(
+                        ms.span(),
+                        format!(
+                            "inter_request_delay_ms = {} is shorter than the 3.5-character silence that ends a Modbus RTU frame ({} ms at {} baud, {} bits a character); give at least that, or leave the key out",
+                            shown(value),
+                            shown(least_ms),
+                            line.baud_rate,
+                            line.bits_per_character()
+                        ),
+                    );
+                    least
+                } else {
+                    Duration::from_secs_f64(value / 1000.0)
+                }
+            }
+        };
+        // The longest exchange: a read request (8 bytes) and a reply of 125
+        // registers (5 + 250 bytes), with the silences around them.
+        let longest = line.transmission_time(8 + 255) + 2 * least;
+        if Duration::from_millis(timeout_ms) <= longest {
+            let span = if d.request_timeout_ms.span().is_empty() {
+                d.baud_rate
+                    .as_ref()
+                    .map_or_else(|| d.id.span(), Spanned::span)
+            } else {
+                d.request_timeout_ms.span()
+            };
+            self.problem(
+                span,
+                format!(
+                    "request_timeout_ms = {timeout_ms} is too short for {} baud: the longest read's reply takes {} ms on the line; give request_timeout_ms = {} or more",
+                    line.baud_rate,
+                    longest.as_millis() + 1,
+                    (longest.as_millis() / 100 + 2) * 100
+                ),
+            );
+        }
+        delay
     }
 }
 
@@ -608,6 +865,101 @@ mod tests {
         }
         assert!(wrong.is_empty(), "{}", wrong.join("\n\n"));
         assert!(parse(BASE, Path::new("site.toml")).is_ok());
+    }
+
+    /// A Modbus RTU device: the serial-line defaults, t3.5 as the least
+    /// delay, and each wrong setting located with its fix.
+    #[test]
+    fn serial_devices_take_the_line_defaults_and_located_checks() {
+        let serial = |keys: &str| {
+            BASE.replacen(
+                "address = \"127.0.0.1:1502\"",
+                &format!("serial_port = \"/dev/ttyUSB0\"\n{keys}"),
+                1,
+            )
+        };
+        let config = parse(&serial(""), Path::new("site.toml")).unwrap();
+        let d = &config.devices[0];
+        let line = d.serial.as_ref().unwrap();
+        assert_eq!(
+            (line.baud_rate, line.parity, line.stop_bits, line.data_bits),
+            (19_200, Parity::Even, 1, 8)
+        );
+        assert_eq!(d.address, "/dev/ttyUSB0");
+        // 3.5 characters of 11 bits at 19200 baud: 2.005 ms.
+        assert_eq!(d.inter_request_delay.as_micros(), 2005);
+        let slow = parse(
+            &serial("baud_rate = 9600\nparity = \"none\"\nstop_bits = 2"),
+            Path::new("site.toml"),
+        )
+        .unwrap();
+        // 3.5 x 11 bits / 9600 baud = 4.01 ms; above 19200 baud a fixed 1.75 ms.
+        assert_eq!(slow.devices[0].inter_request_delay.as_micros(), 4010);
+        let fast = parse(&serial("baud_rate = 115200"), Path::new("site.toml")).unwrap();
+        assert_eq!(fast.devices[0].inter_request_delay.as_micros(), 1750);
+        let second = "[[device]]\nid = \"d2\"\nserial_port = \"/dev/ttyUSB0\"\n";
+        let cases: &[(String, &str)] = &[
+            (
+                serial("baud_rate = 7"),
+                "6:13: baud_rate = 7 is outside 300..921600",
+            ),
+            (
+                serial("parity = \"mark\""),
+                "6:10: parity \"mark\" is not one of",
+            ),
+            (serial("stop_bits = 3"), "6:13: stop_bits = 3 is not 1 or 2"),
+            (
+                serial("data_bits = 7"),
+                "6:13: data_bits = 7: Modbus RTU sends 8 data bits",
+            ),
+            (
+                serial("baud_rate = 9600\ninter_request_delay_ms = 1.0"),
+                "7:26: inter_request_delay_ms = 1 is shorter than the 3.5-character silence that ends a Modbus RTU frame (4.010417 ms at 9600 baud",
+            ),
+            (
+                serial("baud_rate = 1200"),
+                "6:13: request_timeout_ms = 500 is too short for 1200 baud",
+            ),
+            (
+                BASE.replacen(
+                    "address = \"127.0.0.1:1502\"",
+                    "address = \"127.0.0.1:1502\"\nbaud_rate = 9600",
+                    1,
+                ),
+                "6:13: device \"d1\": baud_rate applies only to a device on a serial line",
+            ),
+            (
+                BASE.replacen(
+                    "address = \"127.0.0.1:1502\"",
+                    "address = \"127.0.0.1:1502\"\nserial_port = \"/dev/ttyS0\"",
+                    1,
+                ),
+                "5:11: device \"d1\" has both address and serial_port",
+            ),
+            (
+                BASE.replacen("address = \"127.0.0.1:1502\"", "", 1),
+                "4:6: device \"d1\" says neither where it is",
+            ),
+            (
+                serial(&format!("{second}baud_rate = 9600")),
+                "8:15: device \"d2\" is on /dev/ttyUSB0 at 9600 baud, parity even, stop bits 1, but device \"d1\" on the same port says 19200 baud",
+            ),
+            (
+                serial(second),
+                "8:15: device \"d2\" has unit_id 1 on /dev/ttyUSB0, as device \"d1\" does",
+            ),
+        ];
+        let mut wrong = Vec::new();
+        for (text, expected) in cases {
+            match parse(text, Path::new("site.toml")) {
+                Ok(_) => wrong.push(format!("accepted:\n{text}\nexpected:\n{expected}")),
+                Err(e) if !e.to_string().starts_with(&format!("site.toml:{expected}")) => {
+                    wrong.push(format!("got:\n{e}\nexpected:\n{expected}"))
+                }
+                Err(_) => {}
+            }
+        }
+        assert!(wrong.is_empty(), "{}", wrong.join("\n\n"));
     }
 
     /// The `[web]` section: absent means no server, present means loopback
