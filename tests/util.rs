@@ -917,6 +917,13 @@ impl ScenarioTank {
     pub fn level_drift_m_per_h(self, m_per_h: f64) -> Self {
         self.key("level_drift_m_per_h", m_per_h)
     }
+
+    /// A daily temperature swing (peak to peak, K) and the liquid's
+    /// volumetric expansion (1/K): the level breathes with it.
+    pub fn thermal_swing(self, swing_k: f64, expansion_per_k: f64) -> Self {
+        self.key("temperature_swing_k", swing_k)
+            .key("expansion_per_k", expansion_per_k)
+    }
 }
 
 /// A number as TOML writes it: Rust's `Debug` form, which reads back to
@@ -1012,7 +1019,8 @@ fn the_builders_write_what_the_simulator_and_the_cli_read() {
         .tank(
             ScenarioTank::new("FF-T20", 5.1)
                 .level_bias_m(-0.002)
-                .level_drift_m_per_h(1e-5),
+                .level_drift_m_per_h(1e-5)
+                .thermal_swing(3.0, 0.000_83),
         )
         .leak_opens(1.0, "FF-T12", 40.0, 0.3, 0.61)
         .link_drops(2.0, "rtu-west", 6.0)
@@ -1036,6 +1044,10 @@ fn the_builders_write_what_the_simulator_and_the_cli_read() {
     assert_eq!(
         (s.tanks[2].level_bias_m, s.tanks[2].level_drift_m_per_h),
         (-0.002, 1e-5)
+    );
+    assert_eq!(
+        (s.tanks[2].temperature_swing_k, s.tanks[2].expansion_per_k),
+        (3.0, 0.000_83)
     );
     let level = |fault| EventKind::SensorFault {
         tank: 0,
