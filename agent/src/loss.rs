@@ -23,8 +23,13 @@
 //! run lengths, and `tests/loss.rs` measures the whole detector on the
 //! simulator.
 //!
-//! Pure and clock-free: it sees timestamped levels (m) and transfer flows
-//! (m³/s) and nothing else, so the same samples raise the same alert. It
+//! Thermal movement: where the tank has a temperature sensor and its
+//! substance a density that follows temperature, each volume is taken at
+//! the reference density (`V ρ(T) / ρ_ref`, the mass over a fixed
+//! density), so a liquid that contracts as it cools loses no inventory.
+//!
+//! Pure and clock-free: it sees timestamped levels (m), transfer flows
+//! (m³/s) and temperatures (K) and nothing else, so the same samples raise the same alert. It
 //! leaves out what to do about an alert (the tracker logs and shows it) and
 //! any notion of an open event (the caller resets it when one opens).
 //! Rejected: Wald's SPRT, which needs the leak's rate as its alternative
@@ -32,8 +37,9 @@
 //! restarted at each sample, which is what a watch over an unknown start
 //! needs.
 
+use crate::model::density::DensityModel;
 use crate::model::geometry::Geometry;
-use crate::model::units::Length;
+use crate::model::units::{Length, Temperature};
 
 /// The detector's settings, SI.
 #[derive(Debug, Clone, Copy, PartialEq)]
@@ -144,10 +150,10 @@ struct Block {
     volume_sum: f64,
     metered_sum: f64,
     level_sum: f64,
-    /// Sum of squared successive level differences (von Neumann's
-    /// estimator of the noise, unmoved by a slow trend).
+    /// Sum of squared successive volume differences (von Neumann's
+    /// estimator of the noise, unmoved by a slow trend), m⁶.
     diff_squares: f64,
-    last_level: f64,
+    last_volume: f64,
 }
 
 /// A finished block's means.
@@ -165,13 +171,15 @@ struct Mean {
 pub struct Detector {
     params: LossParams,
     geometry: Geometry,
+    density: DensityModel,
     cusum: Cusum,
     block: Block,
     previous: Option<Mean>,
     /// The cumulative metered net flow into the tank, m³, by trapezoids.
     metered: f64,
     last: Option<(i64, f64)>,
-    /// The pooled noise variance, m², and its weight in samples.
+    /// The pooled noise variance of a volume, m⁶, and its weight in
+    /// samples.
     noise_var: f64,
     noise_weight: f64,
     /// The block mean where the current run began, and the loss since.
@@ -180,10 +188,13 @@ pub struct Detector {
 }
 
 impl Detector {
-    pub fn new(geometry: Geometry, params: LossParams) -> Self {
+    /// The watch over a tank of this shape; `density` says how its
+    /// contents' density follows temperature (a constant: no correction).
+    pub fn new(geometry: Geometry, density: DensityModel, params: LossParams) -> Self {
         Self {
             params,
             geometry,
+            density,
             cusum: Cusum::new(params.reference_k, params.threshold_h),
             block: Block::default(),
             previous: None,
@@ -208,15 +219,22 @@ impl Detector {
 
     /// Forgets everything (an event opened or closed on the tank).
     pub fn reset(&mut self) {
-        *self = Self::new(self.geometry.clone(), self.params);
+        *self = Self::new(self.geometry.clone(), self.density.clone(), self.params);
     }
 
-    /// Takes one good level sample (m) and the net metered flow into the
+    /// Takes one good level sample (m), the net metered flow into the
     /// tank (m³/s; `None` when the tank has no meter, which counts as no
-    /// transfer). Samples must come in time order; one out of order is
+    /// transfer) and the liquid's temperature (K; `None` without a good
+    /// reading: no thermal correction for the sample). Samples must come in time order; one out of order is
     /// ignored, and a gap longer than a block starts the blocks afresh
     /// (the statistic and any alert are kept).
-    pub fn push(&mut self, at_ms: i64, level_m: f64, transfer_m3_s: Option<f64>) -> Option<Change> {
+    pub fn push(
+        &mut self,
+        at_ms: i64,
+        level_m: f64,
+        transfer_m3_s: Option<f64>,
+        temperature_k: Option<f64>,
+    ) -> Option<Change> {
         let flow = transfer_m3_s.filter(|f| f.is_finite()).unwrap_or(0.0);
         if !level_m.is_finite() {
             return None;
@@ -224,7 +242,11 @@ impl Detector {
         let Ok(volume) = self.geometry.volume(Length::from_si(level_m)) else {
             return None;
         };
-        let volume = volume.si();
+        let temperature = temperature_k
+            .filter(|t| t.is_finite())
+            .map(Temperature::from_si);
+        let volume =
+            volume.si() * self.density.at(temperature).si() / self.density.reference().si();
         let block_ms = (self.params.block_s * 1000.0) as i64;
         if let Some((last_ms, last_flow)) = self.last {
             if at_ms <= last_ms {
@@ -246,11 +268,11 @@ impl Detector {
         if b.count == 0 {
             b.first_ms = at_ms;
         } else {
-            b.diff_squares += (level_m - b.last_level).powi(2);
+            b.diff_squares += (volume - b.last_volume).powi(2);
         }
         b.count += 1;
         b.last_ms = at_ms;
-        b.last_level = level_m;
+        b.last_volume = volume;
         b.volume_sum += volume;
         b.metered_sum += self.metered;
         b.level_sum += level_m;
@@ -292,11 +314,10 @@ impl Detector {
         // level shows came in: what left unmetered.
         let metered = mean.metered - previous.metered;
         let loss = metered - (mean.volume - previous.volume);
-        let sigma = self.noise_var.sqrt().max(self.params.noise_floor_m);
-        let level_sd =
+        let sigma = self.noise_var.sqrt().max(area * self.params.noise_floor_m);
+        let mean_sd =
             sigma * (1.0 / f64::from(mean.count) + 1.0 / f64::from(previous.count)).sqrt();
-        let sd =
-            ((area * level_sd).powi(2) + (self.params.meter_fraction * metered).powi(2)).sqrt();
+        let sd = (mean_sd.powi(2) + (self.params.meter_fraction * metered).powi(2)).sqrt();
         let z = (loss - self.params.allowance_m_s * dt * area) / sd;
         let was_zero = self.cusum.statistic() == 0.0;
         let over = self.cusum.push(z);
@@ -341,6 +362,7 @@ impl Detector {
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::model::units::Density;
 
     /// splitmix64 (Steele, Lea and Flood, OOPSLA 2014) and Box-Muller,
     /// for seeded standard normals.
@@ -430,11 +452,15 @@ mod tests {
         // S after the 1st, 2nd, 3rd block's comparison: 3.44, 6.89,
         // 10.33 > 10. Block 0 is the reference, so the 3rd comparison ends
         // with block 3, which closes when the sample at t = 240 s arrives.
-        let mut d = Detector::new(tank(), params());
+        let mut d = Detector::new(
+            tank(),
+            DensityModel::Constant(Density::from_si(840.0)),
+            params(),
+        );
         let rate = 0.000_36 / 60.0;
         let mut raised = None;
         for s in 0..600i64 {
-            if let Some(Change::Raised(a)) = d.push(s * 1000, 5.0 - rate * s as f64, None) {
+            if let Some(Change::Raised(a)) = d.push(s * 1000, 5.0 - rate * s as f64, None, None) {
                 raised = Some((s, a));
                 break;
             }
@@ -455,23 +481,31 @@ mod tests {
     fn metered_outflow_explains_a_fall() {
         // 36 m³/h out of the 12.566 m² tank: the level falls 0.796 mm/s,
         // which the meter explains exactly; no alert in a day.
-        let mut d = Detector::new(tank(), params());
+        let mut d = Detector::new(
+            tank(),
+            DensityModel::Constant(Density::from_si(840.0)),
+            params(),
+        );
         let flow = -0.01;
         let area = 12.566_370_614_359_172;
         for s in 0..3600i64 {
             let level = 8.0 + flow * s as f64 / area;
-            assert_eq!(d.push(s * 1000, level, Some(flow)), None, "at {s}");
+            assert_eq!(d.push(s * 1000, level, Some(flow), None), None, "at {s}");
         }
         assert_eq!(d.statistic(), 0.0);
     }
 
     #[test]
     fn noise_alone_raises_nothing_and_a_cleared_fall_says_so() {
-        let mut d = Detector::new(tank(), params());
+        let mut d = Detector::new(
+            tank(),
+            DensityModel::Constant(Density::from_si(840.0)),
+            params(),
+        );
         let mut normals = Normals(3);
         for s in 0..86_400i64 {
             let level = 5.0 + 0.002 * normals.next();
-            assert_eq!(d.push(s * 1000, level, None), None, "at {s}");
+            assert_eq!(d.push(s * 1000, level, None, None), None, "at {s}");
         }
         // Now a fall of 5 mm a minute for ten minutes, then steady: S
         // climbs about 13 a block for ten blocks and then loses k = 0.5 a
@@ -482,7 +516,7 @@ mod tests {
             if s < 87_000 {
                 level -= 0.005 / 60.0;
             }
-            if let Some(c) = d.push(s * 1000, level + 0.002 * normals.next(), None) {
+            if let Some(c) = d.push(s * 1000, level + 0.002 * normals.next(), None, None) {
                 changes.push((s, c));
             }
         }
@@ -501,15 +535,49 @@ mod tests {
     }
 
     #[test]
+    fn a_cooling_liquid_loses_no_inventory() {
+        // 8 m of a liquid expanding 0.001 per K cools 5 K in an hour: the
+        // level falls 40 mm, far past the allowance, and no mass leaves.
+        let density =
+            DensityModel::expansion(Density::from_si(840.0), Temperature::from_si(288.15), 0.001)
+                .unwrap();
+        let mut corrected = Detector::new(tank(), density, params());
+        let mut plain = Detector::new(
+            tank(),
+            DensityModel::Constant(Density::from_si(840.0)),
+            params(),
+        );
+        let mut plain_raised = false;
+        for s in 0..3600i64 {
+            let temperature = 288.15 - 5.0 * s as f64 / 3600.0;
+            let level = 8.0 * (1.0 + 0.001 * (temperature - 288.15));
+            assert_eq!(
+                corrected.push(s * 1000, level, None, Some(temperature)),
+                None
+            );
+            plain_raised |= plain.push(s * 1000, level, None, None).is_some();
+        }
+        assert!(
+            plain_raised,
+            "without the temperature the fall looks like a loss"
+        );
+        assert_eq!(corrected.statistic(), 0.0);
+    }
+
+    #[test]
     fn a_gap_restarts_the_blocks() {
-        let mut d = Detector::new(tank(), params());
+        let mut d = Detector::new(
+            tank(),
+            DensityModel::Constant(Density::from_si(840.0)),
+            params(),
+        );
         for s in 0..120i64 {
-            d.push(s * 1000, 5.0, None);
+            d.push(s * 1000, 5.0, None, None);
         }
         // An hour later, a metre lower (a transfer not metered while the
         // agent was down): not compared across the gap.
         for s in 3720..3900i64 {
-            assert_eq!(d.push(s * 1000, 4.0, None), None);
+            assert_eq!(d.push(s * 1000, 4.0, None, None), None);
         }
         assert_eq!(d.statistic(), 0.0);
     }
