@@ -689,6 +689,23 @@ impl ScenarioBuilder {
         self.event(at_s, "leak_closes", vec![("tank", toml_text(tank))])
     }
 
+    /// A pump starts moving `flow_m3_h` into the tank (negative: out of
+    /// it), shown on the tank's transfer register.
+    pub fn transfer_starts(self, at_s: f64, tank: &str, flow_m3_h: f64) -> Self {
+        self.event(
+            at_s,
+            "transfer_starts",
+            vec![
+                ("tank", toml_text(tank)),
+                ("flow_m3_h", toml_number(flow_m3_h)),
+            ],
+        )
+    }
+
+    pub fn transfer_stops(self, at_s: f64, tank: &str) -> Self {
+        self.event(at_s, "transfer_stops", vec![("tank", toml_text(tank))])
+    }
+
     /// Requests for `device` get no reply for `duration_s`.
     pub fn link_drops(self, at_s: f64, device: &str, duration_s: f64) -> Self {
         self.event(
@@ -1034,6 +1051,8 @@ fn the_builders_write_what_the_simulator_and_the_cli_read() {
         .sensor_recovers(8.0, "FF-T12", "level")
         .raise_flag(9.0, "FF-T12")
         .leak_closes(10.0, "FF-T12")
+        .transfer_starts(11.0, "FF-T12", -36.0)
+        .transfer_stops(12.0, "FF-T12")
         .write(&scratch);
     let s = leaktally_sim::scenario::load(&path).unwrap_or_else(|e| panic!("{e}"));
     assert_eq!((s.step_ms, s.seed), (20, 3));
@@ -1130,6 +1149,14 @@ fn the_builders_write_what_the_simulator_and_the_cli_read() {
             },
         ),
         (10.0, EventKind::LeakCloses { tank: 0 }),
+        (
+            11.0,
+            EventKind::TransferStarts {
+                tank: 0,
+                flow_m3_s: -0.01,
+            },
+        ),
+        (12.0, EventKind::TransferStops { tank: 0 }),
     ];
     let got: Vec<(f64, EventKind)> = s.events.into_iter().map(|e| (e.at_s, e.kind)).collect();
     assert_eq!(got, expected);

@@ -44,8 +44,11 @@ use crate::model::units::{Length, Temperature};
 /// The detector's settings, SI.
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct LossParams {
-    /// Samples are averaged over blocks of this long, s.
+    /// Samples are averaged over blocks of this long, s, for the fast
+    /// chart...
     pub block_s: f64,
+    /// ... and of this long for the slow one.
+    pub slow_block_s: f64,
     /// Page's reference value `k`, in standard deviations of a block's
     /// residual: the drift the statistic forgives per block.
     pub reference_k: f64,
@@ -64,17 +67,22 @@ pub struct LossParams {
 }
 
 impl Default for LossParams {
-    /// One-minute blocks; k = 0.5 and h = 10 (with i.i.d. residuals, an
-    /// average run length of about 1.4e5 blocks, some 98 days of blocks,
-    /// per tank, by Siegmund's approximation); 2 mm/h allowed; a 0.5 mm
-    /// noise floor; a meter good to 1 % (common practice for custody
-    /// meters is 0.25 %, for process meters 1 %).
+    /// Blocks of one and ten minutes; k = 0.5 and h = 10 (with i.i.d.
+    /// residuals, an average run length of about 1.4e5 blocks by
+    /// Siegmund's approximation, some 98 days of one-minute blocks per
+    /// tank; the block-mean differences telescope, which makes it longer
+    /// still); 1 mm/h allowed (a level gauge's zero drifts about 1 mm a
+    /// day, and a tank without a thermometer moves a fraction of a
+    /// millimetre an hour with the day's temperature: common practice, not
+    /// a standard); a 0.5 mm noise floor; a meter good to 1 % (common
+    /// practice for process meters; custody meters do 0.25 %).
     fn default() -> Self {
         Self {
             block_s: 60.0,
+            slow_block_s: 600.0,
             reference_k: 0.5,
             threshold_h: 10.0,
-            allowance_m_s: 0.002 / 3600.0,
+            allowance_m_s: 0.001 / 3600.0,
             noise_floor_m: 0.0005,
             meter_fraction: 0.01,
         }
@@ -99,10 +107,14 @@ impl Cusum {
         }
     }
 
-    /// Takes one residual; true while the statistic is over `h`.
+    /// Takes one residual; true while the statistic is over `h`. The
+    /// statistic is held at most at `2 h`, which changes nothing before it
+    /// first crosses `h` (so not the run lengths) and lets it come back to
+    /// zero within `2 h / k` steps of the fall stopping, however large the
+    /// fall was.
     pub fn push(&mut self, z: f64) -> bool {
         if z.is_finite() {
-            self.statistic = (self.statistic + z - self.k).max(0.0);
+            self.statistic = (self.statistic + z - self.k).clamp(0.0, 2.0 * self.h);
         }
         self.statistic > self.h
     }
@@ -120,7 +132,8 @@ impl Cusum {
 /// What the detector holds against a tank while its alert stands.
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct Suspicion {
-    /// Where the unexplained fall began (the run's first block mean), ms.
+    /// Where the unexplained fall began, at the latest (a block before
+    /// the start of the block the run's first loss was measured from), ms.
     pub since_ms: i64,
     /// When the alert was raised (the end of the block that crossed), ms.
     pub raised_ms: i64,
@@ -159,6 +172,8 @@ struct Block {
 /// A finished block's means.
 #[derive(Debug, Clone, Copy)]
 struct Mean {
+    /// The block's first sample and its middle, ms.
+    first_ms: i64,
     at_ms: i64,
     count: u32,
     volume: f64,
@@ -166,24 +181,94 @@ struct Mean {
     level: f64,
 }
 
-/// The watch over one tank.
+/// One time scale of the watch: its blocks, its noise and its chart.
+#[derive(Debug, Clone)]
+struct Scale {
+    block_ms: i64,
+    block: Block,
+    previous: Option<Mean>,
+    /// The pooled noise variance of a volume, m⁶, and its weight in
+    /// samples.
+    noise_var: f64,
+    noise_weight: f64,
+    cusum: Cusum,
+    /// The block mean where the current run began, and the loss since.
+    run: Option<(i64, f64)>,
+}
+
+/// What a scale's finished block says: over the threshold or not, and
+/// the run behind it.
+struct Verdict {
+    over: bool,
+    since_ms: i64,
+    volume_m3: f64,
+    at_ms: i64,
+    raised_ms: i64,
+}
+
+impl Scale {
+    fn new(block_s: f64, params: &LossParams) -> Self {
+        Self {
+            block_ms: (block_s * 1000.0) as i64,
+            block: Block::default(),
+            previous: None,
+            noise_var: 0.0,
+            noise_weight: 0.0,
+            cusum: Cusum::new(params.reference_k, params.threshold_h),
+            run: None,
+        }
+    }
+
+    /// Adds a sample, finishing the block first when the sample falls
+    /// past its end.
+    fn push(
+        &mut self,
+        at_ms: i64,
+        level_m: f64,
+        volume: f64,
+        metered: f64,
+        gap: bool,
+        finish: &mut dyn FnMut(&mut Scale, Block) -> Option<Verdict>,
+    ) -> Option<Verdict> {
+        if gap {
+            self.block = Block::default();
+            self.previous = None;
+        }
+        let mut verdict = None;
+        if self.block.count > 0 && at_ms - self.block.first_ms >= self.block_ms {
+            let b = std::mem::take(&mut self.block);
+            verdict = finish(self, b);
+        }
+        let b = &mut self.block;
+        if b.count == 0 {
+            b.first_ms = at_ms;
+        } else {
+            b.diff_squares += (volume - b.last_volume).powi(2);
+        }
+        b.count += 1;
+        b.last_ms = at_ms;
+        b.last_volume = volume;
+        b.volume_sum += volume;
+        b.metered_sum += metered;
+        b.level_sum += level_m;
+        verdict
+    }
+}
+
+/// The watch over one tank: the same CUSUM on two time scales, blocks of
+/// [`LossParams::block_s`] for a fast fall and of
+/// [`LossParams::slow_block_s`] for a slow one (the smallest rate a scale
+/// sees falls as its block grows, by `k` times the noise of a mean of its
+/// samples over its length), an alert standing while either is over.
 #[derive(Debug, Clone)]
 pub struct Detector {
     params: LossParams,
     geometry: Geometry,
     density: DensityModel,
-    cusum: Cusum,
-    block: Block,
-    previous: Option<Mean>,
+    scales: [Scale; 2],
     /// The cumulative metered net flow into the tank, m³, by trapezoids.
     metered: f64,
     last: Option<(i64, f64)>,
-    /// The pooled noise variance of a volume, m⁶, and its weight in
-    /// samples.
-    noise_var: f64,
-    noise_weight: f64,
-    /// The block mean where the current run began, and the loss since.
-    run: Option<(i64, f64)>,
     alert: Option<Suspicion>,
 }
 
@@ -195,14 +280,12 @@ impl Detector {
             params,
             geometry,
             density,
-            cusum: Cusum::new(params.reference_k, params.threshold_h),
-            block: Block::default(),
-            previous: None,
+            scales: [
+                Scale::new(params.block_s, &params),
+                Scale::new(params.slow_block_s, &params),
+            ],
             metered: 0.0,
             last: None,
-            noise_var: 0.0,
-            noise_weight: 0.0,
-            run: None,
             alert: None,
         }
     }
@@ -212,9 +295,13 @@ impl Detector {
         self.alert.as_ref()
     }
 
-    /// Page's statistic now, in standard deviations.
+    /// Page's statistic now, the larger of the two scales', in standard
+    /// deviations.
     pub fn statistic(&self) -> f64 {
-        self.cusum.statistic()
+        self.scales
+            .iter()
+            .map(|s| s.cusum.statistic())
+            .fold(0.0, f64::max)
     }
 
     /// Forgets everything (an event opened or closed on the tank).
@@ -225,9 +312,10 @@ impl Detector {
     /// Takes one good level sample (m), the net metered flow into the
     /// tank (m³/s; `None` when the tank has no meter, which counts as no
     /// transfer) and the liquid's temperature (K; `None` without a good
-    /// reading: no thermal correction for the sample). Samples must come in time order; one out of order is
-    /// ignored, and a gap longer than a block starts the blocks afresh
-    /// (the statistic and any alert are kept).
+    /// reading: no thermal correction for the sample). Samples must come
+    /// in time order; one out of order is ignored, and a gap longer than
+    /// the fast block starts the blocks afresh (the statistics and any
+    /// alert are kept).
     pub fn push(
         &mut self,
         at_ms: i64,
@@ -247,116 +335,142 @@ impl Detector {
             .map(Temperature::from_si);
         let volume =
             volume.si() * self.density.at(temperature).si() / self.density.reference().si();
-        let block_ms = (self.params.block_s * 1000.0) as i64;
+        let mut gap = false;
         if let Some((last_ms, last_flow)) = self.last {
             if at_ms <= last_ms {
                 return None;
             }
-            if at_ms - last_ms > block_ms {
-                self.block = Block::default();
-                self.previous = None;
-            } else {
+            gap = at_ms - last_ms > self.scales[0].block_ms;
+            if !gap {
                 self.metered += 0.5 * (last_flow + flow) * (at_ms - last_ms) as f64 / 1000.0;
             }
         }
         self.last = Some((at_ms, flow));
-        let mut change = None;
-        if self.block.count > 0 && at_ms - self.block.first_ms >= block_ms {
-            change = self.finish_block();
+        let (params, geometry, metered) = (self.params, &self.geometry, self.metered);
+        let mut finish = |scale: &mut Scale, b: Block| finish_block(&params, geometry, scale, b);
+        let mut verdicts = [None, None];
+        for (scale, verdict) in self.scales.iter_mut().zip(verdicts.iter_mut()) {
+            *verdict = scale.push(at_ms, level_m, volume, metered, gap, &mut finish);
         }
-        let b = &mut self.block;
-        if b.count == 0 {
-            b.first_ms = at_ms;
-        } else {
-            b.diff_squares += (volume - b.last_volume).powi(2);
+        if verdicts.iter().all(Option::is_none) {
+            return None;
         }
-        b.count += 1;
-        b.last_ms = at_ms;
-        b.last_volume = volume;
-        b.volume_sum += volume;
-        b.metered_sum += self.metered;
-        b.level_sum += level_m;
-        change
+        self.judge(verdicts)
     }
 
-    /// Ends the block being gathered: its residual against the previous
-    /// block, Page's step, and the alert's change if any.
-    fn finish_block(&mut self) -> Option<Change> {
-        let b = std::mem::take(&mut self.block);
-        let n = f64::from(b.count);
-        if b.count >= 2 {
-            // Pooled over blocks, weighted by their samples (n - 1 each).
-            let var = b.diff_squares / (2.0 * (n - 1.0));
-            self.noise_var = (self.noise_var * self.noise_weight + var * (n - 1.0))
-                / (self.noise_weight + n - 1.0);
-            self.noise_weight = (self.noise_weight + n - 1.0).min(3600.0);
-        }
-        let mean = Mean {
-            at_ms: (b.first_ms + b.last_ms) / 2,
-            count: b.count,
-            volume: b.volume_sum / n,
-            metered: b.metered_sum / n,
-            level: b.level_sum / n,
-        };
-        let Some(previous) = self.previous.replace(mean) else {
-            return None;
-        };
-        let dt = (mean.at_ms - previous.at_ms) as f64 / 1000.0;
-        let area = self
-            .geometry
-            .surface_area(Length::from_si(mean.level))
-            .map(|a| a.si())
-            .unwrap_or(0.0);
-        if area <= 0.0 || dt <= 0.0 {
-            return None;
-        }
-        // Net metered into the tank between the two means, less what the
-        // level shows came in: what left unmetered.
-        let metered = mean.metered - previous.metered;
-        let loss = metered - (mean.volume - previous.volume);
-        let sigma = self.noise_var.sqrt().max(area * self.params.noise_floor_m);
-        let mean_sd =
-            sigma * (1.0 / f64::from(mean.count) + 1.0 / f64::from(previous.count)).sqrt();
-        let sd = (mean_sd.powi(2) + (self.params.meter_fraction * metered).powi(2)).sqrt();
-        let z = (loss - self.params.allowance_m_s * dt * area) / sd;
-        let was_zero = self.cusum.statistic() == 0.0;
-        let over = self.cusum.push(z);
-        if self.cusum.statistic() == 0.0 {
-            self.run = None;
-        } else if was_zero || self.run.is_none() {
-            self.run = Some((previous.at_ms, loss));
-        } else if let Some((_, total)) = self.run.as_mut() {
-            *total += loss;
-        }
-        match (over, self.alert.is_some()) {
-            (true, _) => {
-                let (since_ms, volume) = self.run.unwrap_or((previous.at_ms, loss));
-                let span = (mean.at_ms - since_ms) as f64 / 1000.0;
-                let raised_ms = self.alert.map_or(b.last_ms, |a| a.raised_ms);
+    /// The alert's change after one or both scales finished a block.
+    fn judge(&mut self, verdicts: [Option<Verdict>; 2]) -> Option<Change> {
+        let statistic = self.statistic();
+        // The earliest run over the threshold is the one offered.
+        let over = verdicts
+            .iter()
+            .flatten()
+            .filter(|v| v.over)
+            .min_by_key(|v| v.since_ms);
+        match (over, self.alert.as_mut()) {
+            (Some(v), None) => {
+                let span = (v.at_ms - v.since_ms) as f64 / 1000.0;
                 let suspicion = Suspicion {
-                    since_ms,
-                    raised_ms,
-                    volume_m3: volume,
-                    rate_m3_s: if span > 0.0 { volume / span } else { 0.0 },
-                    statistic: self.cusum.statistic(),
+                    since_ms: v.since_ms,
+                    raised_ms: v.raised_ms,
+                    volume_m3: v.volume_m3,
+                    rate_m3_s: if span > 0.0 { v.volume_m3 / span } else { 0.0 },
+                    statistic,
                 };
-                let raised = self.alert.is_none();
                 self.alert = Some(suspicion);
-                raised.then_some(Change::Raised(suspicion))
+                Some(Change::Raised(suspicion))
             }
-            (false, true) if self.cusum.statistic() == 0.0 => {
+            (Some(v), Some(alert)) => {
+                // Kept up to date: the start offered stays the earliest.
+                if v.since_ms <= alert.since_ms {
+                    let span = (v.at_ms - v.since_ms) as f64 / 1000.0;
+                    alert.since_ms = v.since_ms;
+                    alert.volume_m3 = v.volume_m3;
+                    alert.rate_m3_s = if span > 0.0 { v.volume_m3 / span } else { 0.0 };
+                }
+                alert.statistic = statistic;
+                None
+            }
+            (None, Some(_)) if statistic == 0.0 => {
                 self.alert = None;
                 Some(Change::Cleared)
             }
-            (false, true) => {
-                if let Some(a) = self.alert.as_mut() {
-                    a.statistic = self.cusum.statistic();
-                }
+            (None, Some(alert)) => {
+                alert.statistic = statistic;
                 None
             }
-            (false, false) => None,
+            (None, None) => None,
         }
     }
+}
+
+/// Ends a scale's block: its residual against the previous block and
+/// Page's step.
+fn finish_block(
+    params: &LossParams,
+    geometry: &Geometry,
+    scale: &mut Scale,
+    b: Block,
+) -> Option<Verdict> {
+    let n = f64::from(b.count);
+    if b.count >= 2 {
+        // Pooled over blocks, weighted by their samples (n - 1 each), over
+        // about the last hour.
+        let var = b.diff_squares / (2.0 * (n - 1.0));
+        scale.noise_var = (scale.noise_var * scale.noise_weight + var * (n - 1.0))
+            / (scale.noise_weight + n - 1.0);
+        scale.noise_weight = (scale.noise_weight + n - 1.0).min(3600.0);
+    }
+    let mean = Mean {
+        first_ms: b.first_ms,
+        at_ms: (b.first_ms + b.last_ms) / 2,
+        count: b.count,
+        volume: b.volume_sum / n,
+        metered: b.metered_sum / n,
+        level: b.level_sum / n,
+    };
+    let previous = scale.previous.replace(mean)?;
+    let dt = (mean.at_ms - previous.at_ms) as f64 / 1000.0;
+    let area = geometry
+        .surface_area(Length::from_si(mean.level))
+        .map(|a| a.si())
+        .unwrap_or(0.0);
+    if area <= 0.0 || dt <= 0.0 {
+        return None;
+    }
+    // Net metered into the tank between the two means, less what the
+    // level shows came in: what left unmetered.
+    let metered = mean.metered - previous.metered;
+    let loss = metered - (mean.volume - previous.volume);
+    let sigma = scale.noise_var.sqrt().max(area * params.noise_floor_m);
+    let mean_sd = sigma * (1.0 / f64::from(mean.count) + 1.0 / f64::from(previous.count)).sqrt();
+    let sd = (mean_sd.powi(2) + (params.meter_fraction * metered).powi(2)).sqrt();
+    let z = (loss - params.allowance_m_s * dt * area) / sd;
+    let was_zero = scale.cusum.statistic() == 0.0;
+    let over = scale.cusum.push(z);
+    if scale.cusum.statistic() == 0.0 {
+        scale.run = None;
+    } else if was_zero || scale.run.is_none() {
+        // The loss showed against the previous block's mean, so it may
+        // have begun anywhere from that block's start; and noise may have
+        // brought the statistic to zero once after the fall began. So the
+        // start is offered one more block earlier: early rather than late
+        // (an early start costs the level's figures a little noise; a late
+        // one misses what left).
+        scale.run = Some((previous.first_ms - scale.block_ms, loss));
+    } else if let Some((_, total)) = scale.run.as_mut() {
+        *total += loss;
+    }
+    let (since_ms, volume_m3) = scale
+        .run
+        .unwrap_or((previous.first_ms - scale.block_ms, loss));
+    Some(Verdict {
+        over,
+        since_ms,
+        volume_m3,
+        at_ms: mean.at_ms,
+        raised_ms: b.last_ms,
+    })
 }
 
 #[cfg(test)]
@@ -467,8 +581,9 @@ mod tests {
         }
         let (at, a) = raised.expect("raised");
         assert_eq!(at, 240);
-        // Since the mean of block 0 (t = 0 to 59 s, centre 29.5 s).
-        assert_eq!(a.since_ms, 29_500);
+        // Since a block before the start of block 0, the first loss's
+        // reference.
+        assert_eq!(a.since_ms, -60_000);
         assert_eq!(a.raised_ms, 239_000);
         let expected = 12.566_370_614 * rate * 180.0;
         assert!(
@@ -507,12 +622,12 @@ mod tests {
             let level = 5.0 + 0.002 * normals.next();
             assert_eq!(d.push(s * 1000, level, None, None), None, "at {s}");
         }
-        // Now a fall of 5 mm a minute for ten minutes, then steady: S
-        // climbs about 13 a block for ten blocks and then loses k = 0.5 a
-        // block, so it clears after some 260 blocks.
+        // Now a fall of 5 mm a minute for ten minutes, then steady: each
+        // statistic is held at 2 h = 20 and loses k = 0.5 a block after, so
+        // both are back at zero 40 slow blocks (6.7 h) later.
         let mut changes = Vec::new();
         let mut level = 5.0;
-        for s in 86_400..86_400 + 6 * 3600i64 {
+        for s in 86_400..86_400 + 8 * 3600i64 {
             if s < 87_000 {
                 level -= 0.005 / 60.0;
             }
