@@ -64,6 +64,11 @@ pub struct LossParams {
     /// The transfer meter's standard uncertainty, as a fraction of the
     /// volume it metered.
     pub meter_fraction: f64,
+    /// The smallest standard deviation of a residual, m of level, however
+    /// many samples the means average: what averaging does not remove (a
+    /// thermometer's tenth of a degree steps the thermal correction, a
+    /// gauge's counts, noise that is not white).
+    pub resolution_m: f64,
 }
 
 impl Default for LossParams {
@@ -85,6 +90,7 @@ impl Default for LossParams {
             allowance_m_s: 0.001 / 3600.0,
             noise_floor_m: 0.0005,
             meter_fraction: 0.01,
+            resolution_m: 0.000_3,
         }
     }
 }
@@ -445,6 +451,7 @@ fn finish_block(
     let sigma = scale.noise_var.sqrt().max(area * params.noise_floor_m);
     let mean_sd = sigma * (1.0 / f64::from(mean.count) + 1.0 / f64::from(previous.count)).sqrt();
     let sd = (mean_sd.powi(2) + (params.meter_fraction * metered).powi(2)).sqrt();
+    let sd = sd.max(area * params.resolution_m);
     let z = (loss - params.allowance_m_s * dt * area) / sd;
     let was_zero = scale.cusum.statistic() == 0.0;
     let over = scale.cusum.push(z);
@@ -550,9 +557,12 @@ mod tests {
         Geometry::vertical_cylinder(Length::from_si(4.0), Length::from_si(10.0)).unwrap()
     }
 
+    /// The defaults without the allowance and the resolution, so the
+    /// noise floor alone sets a residual's spread.
     fn params() -> LossParams {
         LossParams {
             allowance_m_s: 0.0,
+            resolution_m: 0.0,
             ..LossParams::default()
         }
     }

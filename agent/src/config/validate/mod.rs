@@ -21,7 +21,9 @@ mod tank;
 use super::problems::Problems;
 use super::raw::{self, RawConfig, RawTank};
 use super::register_map::overlaps;
-use super::types::{Config, DEFAULT_WEB_LISTEN, Device, HostName, Role, Tank, Units, Web};
+use super::types::{
+    Config, DEFAULT_WEB_LISTEN, Device, HostName, LossWatch, Role, Tank, Units, Web,
+};
 use crate::model::{AbsolutePressure, ModelError};
 use std::collections::HashMap;
 use std::net::SocketAddr;
@@ -62,6 +64,11 @@ const MAX_REPORTABLE_KG: f64 = 1e9;
 const MAX_STUCK_AFTER_S: f64 = 604_800.0;
 /// The most `max_rate_m_s` may say, m/s: free fall for a second.
 const MAX_LEVEL_RATE_M_S: f64 = 10.0;
+/// The most `suspected_loss_allowance_mm_h` may say: a metre an hour would
+/// let any leak through.
+const MAX_LOSS_ALLOWANCE_MM_H: f64 = 1000.0;
+/// The allowance where a tank gives none, mm/h (`loss::LossParams`).
+const DEFAULT_LOSS_ALLOWANCE_MM_H: f64 = 1.0;
 
 /// A number as a config message quotes it: to 7 significant digits, plain
 /// when it is of everyday size, in exponent form when Display would print
@@ -142,6 +149,9 @@ impl Checker {
         let database = raw.site.database.as_ref().map(|d| self.database(d, path));
         let (time_zone_name, time_zone) = self.time_zone(raw.site.time_zone.as_ref());
         let units = self.units(raw.site.units.as_ref());
+        let suspected_loss = self
+            .loss_watch(raw.site.suspected_loss.as_ref(), "[site]")
+            .unwrap_or_default();
         Config {
             path: path.to_owned(),
             site_name: raw.site.name,
@@ -153,7 +163,28 @@ impl Checker {
             devices,
             tanks,
             web,
+            suspected_loss,
         }
+    }
+
+    /// A `suspected_loss` word, on `[site]` or a tank (`ctx`).
+    pub(super) fn loss_watch(
+        &mut self,
+        name: Option<&Spanned<String>>,
+        ctx: &str,
+    ) -> Option<LossWatch> {
+        let name = name?;
+        let watch = LossWatch::from_name(name.get_ref());
+        if watch.is_none() {
+            self.problem(
+                name.span(),
+                format!(
+                    "{ctx}: suspected_loss = \"{}\" is not known; give \"alert\" (show it, the operator confirms), \"open\" (also open an event at once) or \"off\"",
+                    crate::logging::one_line(name.get_ref())
+                ),
+            );
+        }
+        watch
     }
 
     /// `[site] database`, relative to the config file's folder.
@@ -571,6 +602,16 @@ mod tests {
                 "height_m = 5.0 }",
                 "height_m = 5.0 }\nheadspace_kpa = -500.0",
                 "10:17: tank \"T1\": headspace_kpa = -500 is not a plausible gauge pressure; give kPa above ambient, from -101.325 (a full vacuum)",
+            ),
+            (
+                "height_m = 5.0 }",
+                "height_m = 5.0 }\nsuspected_loss = \"maybe\"",
+                "10:18: tank \"T1\": suspected_loss = \"maybe\" is not known; give \"alert\" (show it, the operator confirms), \"open\" (also open an event at once) or \"off\"",
+            ),
+            (
+                "height_m = 5.0 }",
+                "height_m = 5.0 }\nsuspected_loss_allowance_mm_h = -1.0",
+                "10:33: tank \"T1\": suspected_loss_allowance_mm_h = -1 must be a level speed in mm/h, 0 to 1000; leave it out for 1",
             ),
             (
                 "unit = \"m\" }",
