@@ -160,6 +160,63 @@ pub enum Change {
     Cleared,
 }
 
+/// A tank's standing alert, as the page and the metrics show it.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Standing {
+    pub tank: String,
+    pub suspicion: Suspicion,
+}
+
+/// The suspected losses standing now, in the daemon's memory: the
+/// tracker writes, the page and `/metrics` read. Not stored: a restart
+/// starts the watch afresh (the log keeps what was raised).
+#[derive(Debug, Default)]
+pub struct Board {
+    standing: std::sync::Mutex<Vec<Standing>>,
+    raised: std::sync::atomic::AtomicU64,
+}
+
+impl Board {
+    /// Sets or clears `tank`'s alert.
+    pub fn set(&self, tank: &str, suspicion: Option<Suspicion>) {
+        let mut standing = self.standing.lock().unwrap_or_else(|p| p.into_inner());
+        let found = standing.iter().position(|s| s.tank == tank);
+        match (found, suspicion) {
+            (Some(i), Some(suspicion)) => standing[i].suspicion = suspicion,
+            (None, Some(suspicion)) => standing.push(Standing {
+                tank: tank.to_string(),
+                suspicion,
+            }),
+            (Some(i), None) => {
+                standing.remove(i);
+            }
+            (None, None) => {}
+        }
+    }
+
+    /// Counts an alert raised.
+    pub fn count_raised(&self) {
+        self.raised
+            .fetch_add(1, std::sync::atomic::Ordering::Relaxed);
+    }
+
+    /// The alerts standing now, earliest start first.
+    pub fn snapshot(&self) -> Vec<Standing> {
+        let mut standing = self
+            .standing
+            .lock()
+            .unwrap_or_else(|p| p.into_inner())
+            .clone();
+        standing.sort_by_key(|s| s.suspicion.since_ms);
+        standing
+    }
+
+    /// How many alerts were raised since the daemon started.
+    pub fn raised_total(&self) -> u64 {
+        self.raised.load(std::sync::atomic::Ordering::Relaxed)
+    }
+}
+
 /// One block being gathered.
 #[derive(Debug, Clone, Copy, Default)]
 struct Block {
