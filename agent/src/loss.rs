@@ -332,6 +332,9 @@ pub struct Detector {
     /// The cumulative metered net flow into the tank, m³, by trapezoids.
     metered: f64,
     last: Option<(i64, f64)>,
+    /// The first sample since the start or the last gap: no start is
+    /// offered before it (`leak open --since` needs logged samples).
+    seen_from_ms: i64,
     alert: Option<Suspicion>,
 }
 
@@ -349,6 +352,7 @@ impl Detector {
             ],
             metered: 0.0,
             last: None,
+            seen_from_ms: i64::MIN,
             alert: None,
         }
     }
@@ -404,9 +408,13 @@ impl Detector {
                 return None;
             }
             gap = at_ms - last_ms > self.scales[0].block_ms;
-            if !gap {
+            if gap {
+                self.seen_from_ms = at_ms;
+            } else {
                 self.metered += 0.5 * (last_flow + flow) * (at_ms - last_ms) as f64 / 1000.0;
             }
+        } else {
+            self.seen_from_ms = at_ms;
         }
         self.last = Some((at_ms, flow));
         let (params, geometry, metered) = (self.params, &self.geometry, self.metered);
@@ -422,8 +430,11 @@ impl Detector {
     }
 
     /// The alert's change after one or both scales finished a block.
-    fn judge(&mut self, verdicts: [Option<Verdict>; 2]) -> Option<Change> {
+    fn judge(&mut self, mut verdicts: [Option<Verdict>; 2]) -> Option<Change> {
         let statistic = self.statistic();
+        for v in verdicts.iter_mut().flatten() {
+            v.since_ms = v.since_ms.max(self.seen_from_ms);
+        }
         // The earliest run over the threshold is the one offered.
         let over = verdicts
             .iter()
@@ -649,8 +660,8 @@ mod tests {
         let (at, a) = raised.expect("raised");
         assert_eq!(at, 240);
         // Since a block before the start of block 0, the first loss's
-        // reference.
-        assert_eq!(a.since_ms, -60_000);
+        // reference; but never before the first sample.
+        assert_eq!(a.since_ms, 0);
         assert_eq!(a.raised_ms, 239_000);
         let expected = 12.566_370_614 * rate * 180.0;
         assert!(
