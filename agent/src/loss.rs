@@ -3,7 +3,9 @@
 //!
 //! The method is Page's cumulative sum (CUSUM): E. S. Page, "Continuous
 //! inspection schemes", Biometrika 41 (1954) 100-115. The samples are
-//! gathered into blocks of [`LossParams::block_s`]; after each block the
+//! gathered into blocks, on two time scales at once
+//! ([`LossParams::block_s`], 1 min, for a fast fall, and
+//! [`LossParams::slow_block_s`], 10 min, for a slow one); after each block the
 //! residual is the volume that left the tank between the previous block's
 //! mean and this one's beyond what the transfer meter says went out (and
 //! beyond a small allowance for thermal movement and gauge drift), divided
@@ -12,8 +14,9 @@
 //! residual is about N(0, 1) or below; Page's statistic
 //! `S = max(0, S + z - k)` then stays near zero, and a sustained
 //! unexplained fall drives it over `h`. The time the run that crossed `h`
-//! began is where the unexplained fall began: the back-dated start the
-//! alert offers for `leak open --since`.
+//! began (less a block, early rather than late) is where the unexplained
+//! fall began: the back-dated start the alert offers for
+//! `leak open --since`.
 //!
 //! Residuals are differences of consecutive block means, so neighbours
 //! share a mean and are negatively correlated (-1/2) under pure noise:
