@@ -142,7 +142,9 @@ fn an_operator_needs_no_paths_and_closed_events_keep_their_final_figures() {
     let tank_for_event = site_cli(&scratch, &site, &["leak", "close", "FF-T12"]);
     assert_eq!(tank_for_event.status.code(), Some(2));
     assert!(
-        tank_for_event.stderr.contains("`leaktally events` lists them"),
+        tank_for_event
+            .stderr
+            .contains("`leaktally events` lists them"),
         "{}",
         tank_for_event.stderr
     );

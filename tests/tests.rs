@@ -42,6 +42,7 @@ mod flood;
 mod gaps;
 mod interop;
 mod longrun;
+mod loss;
 mod operators;
 mod properties;
 mod python_env;

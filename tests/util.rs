@@ -689,6 +689,23 @@ impl ScenarioBuilder {
         self.event(at_s, "leak_closes", vec![("tank", toml_text(tank))])
     }
 
+    /// A pump starts moving `flow_m3_h` into the tank (negative: out of
+    /// it), shown on the tank's transfer register.
+    pub fn transfer_starts(self, at_s: f64, tank: &str, flow_m3_h: f64) -> Self {
+        self.event(
+            at_s,
+            "transfer_starts",
+            vec![
+                ("tank", toml_text(tank)),
+                ("flow_m3_h", toml_number(flow_m3_h)),
+            ],
+        )
+    }
+
+    pub fn transfer_stops(self, at_s: f64, tank: &str) -> Self {
+        self.event(at_s, "transfer_stops", vec![("tank", toml_text(tank))])
+    }
+
     /// Requests for `device` get no reply for `duration_s`.
     pub fn link_drops(self, at_s: f64, device: &str, duration_s: f64) -> Self {
         self.event(
@@ -917,6 +934,13 @@ impl ScenarioTank {
     pub fn level_drift_m_per_h(self, m_per_h: f64) -> Self {
         self.key("level_drift_m_per_h", m_per_h)
     }
+
+    /// A daily temperature swing (peak to peak, K) and the liquid's
+    /// volumetric expansion (1/K): the level breathes with it.
+    pub fn thermal_swing(self, swing_k: f64, expansion_per_k: f64) -> Self {
+        self.key("temperature_swing_k", swing_k)
+            .key("expansion_per_k", expansion_per_k)
+    }
 }
 
 /// A number as TOML writes it: Rust's `Debug` form, which reads back to
@@ -1012,7 +1036,8 @@ fn the_builders_write_what_the_simulator_and_the_cli_read() {
         .tank(
             ScenarioTank::new("FF-T20", 5.1)
                 .level_bias_m(-0.002)
-                .level_drift_m_per_h(1e-5),
+                .level_drift_m_per_h(1e-5)
+                .thermal_swing(3.0, 0.000_83),
         )
         .leak_opens(1.0, "FF-T12", 40.0, 0.3, 0.61)
         .link_drops(2.0, "rtu-west", 6.0)
@@ -1026,6 +1051,8 @@ fn the_builders_write_what_the_simulator_and_the_cli_read() {
         .sensor_recovers(8.0, "FF-T12", "level")
         .raise_flag(9.0, "FF-T12")
         .leak_closes(10.0, "FF-T12")
+        .transfer_starts(11.0, "FF-T12", -36.0)
+        .transfer_stops(12.0, "FF-T12")
         .write(&scratch);
     let s = leaktally_sim::scenario::load(&path).unwrap_or_else(|e| panic!("{e}"));
     assert_eq!((s.step_ms, s.seed), (20, 3));
@@ -1036,6 +1063,10 @@ fn the_builders_write_what_the_simulator_and_the_cli_read() {
     assert_eq!(
         (s.tanks[2].level_bias_m, s.tanks[2].level_drift_m_per_h),
         (-0.002, 1e-5)
+    );
+    assert_eq!(
+        (s.tanks[2].temperature_swing_k, s.tanks[2].expansion_per_k),
+        (3.0, 0.000_83)
     );
     let level = |fault| EventKind::SensorFault {
         tank: 0,
@@ -1118,6 +1149,14 @@ fn the_builders_write_what_the_simulator_and_the_cli_read() {
             },
         ),
         (10.0, EventKind::LeakCloses { tank: 0 }),
+        (
+            11.0,
+            EventKind::TransferStarts {
+                tank: 0,
+                flow_m3_s: -0.01,
+            },
+        ),
+        (12.0, EventKind::TransferStops { tank: 0 }),
     ];
     let got: Vec<(f64, EventKind)> = s.events.into_iter().map(|e| (e.at_s, e.kind)).collect();
     assert_eq!(got, expected);

@@ -131,6 +131,39 @@ fn estimator_step(c: &mut Criterion) {
     });
 }
 
+/// The suspected-loss watch's work per sample of a tank with no event
+/// open (the daemon does this for every such sample): a day of the demo
+/// tank's samples, walked round.
+fn loss_watch_step(c: &mut Criterion) {
+    let (tank, samples) = day_of_samples();
+    let new = || {
+        leaktally::loss::Detector::new(
+            tank.vessel.geometry().clone(),
+            tank.density.clone(),
+            leaktally::loss::LossParams::default(),
+        )
+    };
+    let mut detector = new();
+    let mut i = 0usize;
+    c.bench_function("loss_watch_push_one_sample", |b| {
+        b.iter(|| {
+            if i == samples.len() {
+                detector = new();
+                i = 0;
+            }
+            let s = &samples[i];
+            let change = detector.push(
+                black_box(s.at_ms),
+                black_box(s.level.value.unwrap_or(0.0)),
+                Some(0.0),
+                None,
+            );
+            i += 1;
+            black_box(change)
+        })
+    });
+}
+
 fn replay_day(c: &mut Criterion) {
     let (tank, samples) = day_of_samples();
     let mut group = c.benchmark_group("replay");
@@ -153,6 +186,7 @@ criterion_group!(
     tally_step,
     estimator_step,
     forecast_to_stop,
-    replay_day
+    replay_day,
+    loss_watch_step
 );
 criterion_main!(benches);

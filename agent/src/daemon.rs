@@ -350,13 +350,16 @@ async fn daemon(
         // The server reads the database through read-only connections of
         // its own, never through `store`, so it holds no handle that would
         // keep the writer open at shutdown.
-        let shared = Arc::new(web::Shared::new(
-            db.to_owned(),
-            Arc::clone(&config),
-            stats,
-            tracker.health(),
-            started,
-        ));
+        let shared = Arc::new(
+            web::Shared::new(
+                db.to_owned(),
+                Arc::clone(&config),
+                stats,
+                tracker.health(),
+                started,
+            )
+            .with_losses(tracker.losses()),
+        );
         tasks.spawn(web::serve(listener, shared, cancel.clone()));
     }
     tasks.close();

@@ -11,6 +11,8 @@
 //! * [`acquire`]: Modbus polling, one task per device, read-only.
 //! * [`clock`]: the daemon's timeline, which wall-clock steps cannot move.
 //! * [`estimate`]: what an estimate holds, as numbers and enums (data only).
+//! * [`loss`]: the suspected-loss watch over tanks with no event open
+//!   (Page's CUSUM). Pure and clock-free.
 //! * [`estimator`]: the clock-free estimator of one event.
 //! * [`store`]: the SQLite database and the daemon's one writer.
 //! * [`report`]: formatting figures for people, with units and the cautions;
@@ -38,6 +40,7 @@ pub mod doorbell;
 pub mod estimate;
 pub mod estimator;
 pub mod logging;
+pub mod loss;
 pub mod model;
 pub mod plot;
 pub mod readings;
@@ -56,7 +59,7 @@ pub mod web;
 /// each layer; `layers_only_point_down` checks every `crate::` path.
 pub const LAYERS: &[&[&str]] = &[
     &["model", "registers", "logging", "shutdown", "doorbell"],
-    &["config", "estimate"],
+    &["config", "estimate", "loss"],
     &["report"],
     &["clock"],
     &["acquire"],

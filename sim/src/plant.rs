@@ -57,6 +57,8 @@ struct PlantTank {
     level_drift_m_per_h: f64,
     pressure_bias_pa: f64,
     temperature_k: f64,
+    temperature_swing_k: f64,
+    expansion_per_k: f64,
     faults: [Fault; 4],
     flag: bool,
 }
@@ -109,6 +111,8 @@ impl Plant {
                     level_drift_m_per_h: setup.level_drift_m_per_h,
                     pressure_bias_pa: setup.pressure_bias_pa,
                     temperature_k: setup.temperature_k,
+                    temperature_swing_k: setup.temperature_swing_k,
+                    expansion_per_k: setup.expansion_per_k,
                     faults: [Fault::None; 4],
                     flag: false,
                 }
@@ -379,6 +383,12 @@ impl Plant {
         }
     }
 
+    /// The liquid's temperature less its mean now, K: a 24 h sinusoid of
+    /// the tank's swing (peak to peak), rising from zero at the start.
+    fn temperature_swing(&self, t: &PlantTank) -> f64 {
+        0.5 * t.temperature_swing_k * (std::f64::consts::TAU * self.time_s() / 86_400.0).sin()
+    }
+
     /// What a healthy sensor reads now, SI, noise included.
     fn reading(&self, index: usize, site: &SiteTank, t: &PlantTank, role: SensorRole) -> f64 {
         // One noise stream per (tank, sensor).
@@ -386,13 +396,17 @@ impl Plant {
         let p = &t.physics;
         match role {
             SensorRole::Level => {
-                p.level_m()
+                // Thermal expansion moves the surface by level * beta * dT
+                // (exact for an upright tank, close for the others over the
+                // few millimetres it amounts to); the mass, and so the
+                // truth and the flow, is untouched.
+                p.level_m() * (1.0 + t.expansion_per_k * self.temperature_swing(t))
                     + t.level_bias_m
                     + t.level_drift_m_per_h * self.time_s() / 3600.0
                     + self.noise.gaussian(t.level_noise_m, stream, self.steps)
             }
             SensorRole::Transfer => p.transfer_m3_s(),
-            SensorRole::Temperature => t.temperature_k,
+            SensorRole::Temperature => t.temperature_k + self.temperature_swing(t),
             SensorRole::Pressure => {
                 let Some(ps) = &site.pressure else {
                     return 0.0;
@@ -743,6 +757,32 @@ height_m = 2.2
                 .filter(|r| r.tank != 1)
                 .all(|r| r.phase == Phase::None)
         );
+    }
+
+    #[test]
+    fn the_level_breathes_with_the_temperature() {
+        // 4.2 m of diesel (expansion 0.00083 per K) swinging 4 K peak to
+        // peak: at 6 h the liquid is 2 K warm and the level 4.2 * 0.00083
+        // * 2 = 6.97 mm up; at 18 h as far down; the temperature follows.
+        let mut s = scenario_with("");
+        s.tanks[0].temperature_swing_k = 4.0;
+        s.tanks[0].expansion_per_k = 0.000_83;
+        let mut plant = Plant::new(&s);
+        let site = plant.site.tanks[0].clone();
+        let mut at = |hours: f64| {
+            let steps = (hours * 3_600_000.0 / plant.step_ms as f64) as u64;
+            plant.advance_to(steps, &mut Vec::new(), &mut Vec::new());
+            let t = &plant.tanks[0];
+            (
+                plant.reading(0, &site, t, SensorRole::Level),
+                plant.reading(0, &site, t, SensorRole::Temperature) - t.temperature_k,
+            )
+        };
+        let (up, warm) = at(6.0);
+        let (down, cold) = at(18.0);
+        assert!((up - 4.2 - 0.006_972).abs() < 1e-9, "{up}");
+        assert!((down - 4.2 + 0.006_972).abs() < 1e-9, "{down}");
+        assert!((warm - 2.0).abs() < 1e-9 && (cold + 2.0).abs() < 1e-9);
     }
 
     #[test]

@@ -36,8 +36,9 @@ pub use types::{
     Config, DEFAULT_DENSITY_UNCERTAINTY, DEFAULT_LEVEL_ACCURACY_FRACTION_OF_SPAN,
     DEFAULT_LEVEL_ACCURACY_MIN_M, DEFAULT_PRESSURE_ACCURACY_FRACTION_OF_SPAN,
     DEFAULT_PRESSURE_ACCURACY_MIN_PA, DEFAULT_TEMPERATURE_ACCURACY_K, DEFAULT_TRANSFER_ACCURACY,
-    DEFAULT_WEB_LISTEN, Device, Flag, HostName, Parity, PressureSensor, REFERENCE_TEMPERATURE_C,
-    Role, Sensor, SerialLine, Tank, Uncertainty, Units, UnknownZone, Web, time_zone,
+    DEFAULT_WEB_LISTEN, Device, Flag, HostName, LossWatch, Parity, PressureSensor,
+    REFERENCE_TEMPERATURE_C, Role, Sensor, SerialLine, Tank, Uncertainty, Units, UnknownZone, Web,
+    time_zone,
 };
 pub use validate::MAX_UNMETERED_TRANSFER_M3_S;
 

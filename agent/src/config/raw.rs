@@ -49,6 +49,8 @@ pub struct RawSite {
     pub time_zone: Option<Spanned<String>>,
     /// `metric` or `us`: the units people's figures are shown in.
     pub units: Option<Spanned<String>>,
+    /// `alert` (the default), `open` or `off`: what a suspected loss does.
+    pub suspected_loss: Option<Spanned<String>>,
 }
 
 #[derive(Debug, Deserialize)]
@@ -114,6 +116,10 @@ pub struct RawTank {
     /// The liquid's temperature, for a density that follows it.
     pub temperature: Option<RawSensor>,
     pub leak_flag: Option<RawFlag>,
+    /// This tank's `suspected_loss`, over the site's.
+    pub suspected_loss: Option<Spanned<String>>,
+    /// How fast the level may fall unexplained before it counts, mm/h.
+    pub suspected_loss_allowance_mm_h: Option<Spanned<f64>>,
 }
 
 /// A tank's shape and its dimensions. One flat table rather than an enum

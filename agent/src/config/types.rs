@@ -46,6 +46,38 @@ impl Units {
     }
 }
 
+/// What a suspected loss on a tank does (`suspected_loss`, on `[site]`
+/// or a tank).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+pub enum LossWatch {
+    /// Not watched.
+    Off,
+    /// Raised on the page, in the metrics and the log; an operator
+    /// confirms with `leak open --since`.
+    #[default]
+    Alert,
+    /// As `Alert`, and an event is opened at once, back-dated to where the
+    /// unexplained fall began.
+    Open,
+}
+
+impl LossWatch {
+    /// The config's word for it.
+    pub fn name(self) -> &'static str {
+        match self {
+            LossWatch::Off => "off",
+            LossWatch::Alert => "alert",
+            LossWatch::Open => "open",
+        }
+    }
+
+    pub fn from_name(name: &str) -> Option<Self> {
+        [LossWatch::Off, LossWatch::Alert, LossWatch::Open]
+            .into_iter()
+            .find(|w| w.name() == name)
+    }
+}
+
 /// Why a time zone name could not be used.
 #[derive(Debug, thiserror::Error)]
 #[error(
@@ -95,6 +127,18 @@ pub struct Config {
     pub tanks: Vec<Tank>,
     /// The read-only web page, when the config has a `[web]` section.
     pub web: Option<Web>,
+    /// `[site] suspected_loss`: what a suspected loss does where a tank
+    /// does not say.
+    pub suspected_loss: LossWatch,
+}
+
+impl Config {
+    /// What a suspected loss on `tank` (an index into `tanks`) does.
+    pub fn loss_watch(&self, tank: usize) -> LossWatch {
+        self.tanks.get(tank).map_or(LossWatch::Off, |t| {
+            t.suspected_loss.unwrap_or(self.suspected_loss)
+        })
+    }
 }
 
 /// Where the daemon serves the read-only web page, the JSON and the metrics.
@@ -269,6 +313,11 @@ pub struct Tank {
     /// m/s, when the site knows better than the limit acquisition works out
     /// from the tank.
     pub max_level_rate: Option<f64>,
+    /// This tank's `suspected_loss`, over the site's.
+    pub suspected_loss: Option<LossWatch>,
+    /// `suspected_loss_allowance_mm_h` in m/s: how fast the level may fall
+    /// unexplained before the watch counts it.
+    pub loss_allowance_m_s: f64,
 }
 
 /// A bound on an error, and whether the config states it or a default

@@ -134,8 +134,8 @@ pub(super) fn open_flagged(
             config,
             &edge.tank,
             edge.at_ms,
-            edge.at_ms,
-            "leak flag",
+            edge.start_ms,
+            edge.source,
             params,
         )
         .map(|r| r.map(Box::new))

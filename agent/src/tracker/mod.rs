@@ -35,13 +35,17 @@
 //! Files: this one holds the tracker and its loop over samples; `backlog`
 //! the write-behind queue of what waits for the store; `build` how an
 //! event's estimator is built from the stored history; `actions` how an
-//! operator's request is applied.
+//! operator's request is applied; `watch` the suspected-loss watch over
+//! the tanks with no open event.
 
 mod actions;
 mod backlog;
 mod build;
 #[cfg(test)]
 mod tests;
+mod watch;
+
+pub use watch::params_of as loss_params_of;
 
 pub use actions::Refusal;
 
@@ -84,11 +88,17 @@ pub(super) struct OpenEvent {
     pub(super) estimator: Estimator,
 }
 
-/// A rising leak flag, waiting for every acquired sample to be stored.
+/// A rising leak flag (or a suspected loss the config says to open on),
+/// waiting for every acquired sample to be stored.
 #[derive(Debug, Clone)]
 pub(super) struct FlagEdge {
     pub(super) tank: String,
+    /// When it was seen, and where the event starts (the same for a flag;
+    /// back-dated for a suspected loss).
     pub(super) at_ms: i64,
+    pub(super) start_ms: i64,
+    /// The event's source: "leak flag" or "suspected loss".
+    pub(super) source: &'static str,
 }
 
 /// How a run went, for the daemon's last log line and its tests.
@@ -135,6 +145,8 @@ pub struct Tracker {
     max_held_samples: usize,
     health: Arc<StoreHealth>,
     counts: Counts,
+    /// The suspected-loss watch over tanks with no open event.
+    watch: watch::Watch,
 }
 
 impl Tracker {
@@ -147,7 +159,9 @@ impl Tracker {
         clock: Arc<Clock>,
         health: Arc<StoreHealth>,
     ) -> StoreResult<Self> {
+        let watch = watch::Watch::new(&config);
         let mut tracker = Self {
+            watch,
             config,
             store,
             clock,
@@ -244,6 +258,11 @@ impl Tracker {
         &self.untracked
     }
 
+    /// The suspected losses standing, shared for the web server.
+    pub fn losses(&self) -> Arc<crate::loss::Board> {
+        self.watch.board()
+    }
+
     /// Whether the database is taking writes, shared for the web server.
     pub fn health(&self) -> Arc<StoreHealth> {
         Arc::clone(&self.health)
@@ -315,6 +334,19 @@ impl Tracker {
                 self.edges.push_back(FlagEdge {
                     tank: sample.tank_id.to_string(),
                     at_ms: sample.at_ms,
+                    start_ms: sample.at_ms,
+                    source: "leak flag",
+                });
+            }
+        }
+        let open: HashSet<usize> = self.open.values().map(|e| e.tank).collect();
+        for opening in self.watch.take(&batch, &open) {
+            if !self.edges.iter().any(|e| e.tank == opening.tank) {
+                self.edges.push_back(FlagEdge {
+                    tank: opening.tank,
+                    at_ms: batch.first().map_or(opening.start_ms, |s| s.at_ms),
+                    start_ms: opening.start_ms,
+                    source: "suspected loss",
                 });
             }
         }
@@ -495,6 +527,11 @@ impl Tracker {
                 return;
             };
             let config = Arc::clone(&self.config);
+            let what = if edge.source == "leak flag" {
+                "leak flag raised"
+            } else {
+                "suspected loss (suspected_loss = \"open\")"
+            };
             let opened = self
                 .store
                 .write(Lane::Urgent, move |tx| open_flagged(tx, &config, &edge))
@@ -502,15 +539,15 @@ impl Tracker {
             match opened {
                 Ok(Ok(event)) => {
                     let id = event.row.id;
-                    info!(event = id, tank = %event.row.tank, "leak flag raised: opened event");
+                    info!(event = id, tank = %event.row.tank, "{what}: opened event");
                     self.open.insert(id, *event);
                 }
-                Ok(Err(why)) => warn!("leak flag raised but no event opened: {why}"),
+                Ok(Err(why)) => warn!("{what} but no event opened: {why}"),
                 Err(e) if WriteFailure::passes(&e) => {
                     self.on_write_failure(&e);
                     return;
                 }
-                Err(e) => warn!("leak flag raised but no event opened: {e}"),
+                Err(e) => warn!("{what} but no event opened: {e}"),
             }
             self.edges.pop_front();
         }

@@ -504,3 +504,68 @@ async fn a_clock_stepped_back_and_forward_mid_event_neither_freezes_nor_jumps_th
     assert!(hi < 1.05 * lo, "a jump: from {lo} to {hi} kg/s");
     close(tracker, store).await;
 }
+
+/// Plays `minutes` of 1 Hz samples of both tanks, from an hour ago: T2
+/// steady, T1 steady until `fall_at_s` and then falling 6 mm a minute
+/// (unmetered), committing once a minute.
+async fn play_a_fall(tracker: &mut Tracker, t0: i64, fall_at_s: i64, minutes: i64) {
+    for s in 0..minutes * 60 {
+        let at_ms = t0 + 1000 * s;
+        let fallen = 0.0001 * (s - fall_at_s).max(0) as f64;
+        let mut t1 = sample(0, at_ms);
+        t1.level = Reading::good(4.0 - fallen);
+        let mut t2 = sample(1, at_ms);
+        t2.level = Reading::good(3.0);
+        tracker.take(vec![t1, t2]);
+        if s % 60 == 59 {
+            tracker.commit(None).await;
+        }
+    }
+}
+
+/// With the site's default (`alert`), a fall no transfer explains raises a
+/// suspected loss on the board, back-dated to about where it began, and
+/// opens nothing.
+#[tokio::test(flavor = "multi_thread")]
+async fn a_suspected_loss_is_shown_and_opens_nothing_by_default() {
+    let fx = Fixture::new("loss-alert");
+    let t0 = store::now_ms() - 3_600_000;
+    let (mut tracker, store) = fx.tracker(Arc::new(Clock::system())).await;
+    play_a_fall(&mut tracker, t0, 600, 20).await;
+    let standing = tracker.losses().snapshot();
+    assert_eq!(standing.len(), 1, "{standing:?}");
+    assert_eq!(standing[0].tank, "T1");
+    let since = standing[0].suspicion.since_ms - t0;
+    assert!((420_000..=600_000).contains(&since), "since {since} ms");
+    assert_eq!(tracker.losses().raised_total(), 1);
+    assert_eq!(tracker.open_events(), 0);
+    close(tracker, store).await;
+}
+
+/// With `suspected_loss = "open"`, the alert opens an event from the
+/// start it offers, and the watch stands down on that tank.
+#[tokio::test(flavor = "multi_thread")]
+async fn a_suspected_loss_opens_a_back_dated_event_where_the_site_says_so() {
+    let mut fx = Fixture::new("loss-open");
+    let text = site().replace(
+        "name = \"Test\"\n",
+        "name = \"Test\"\nsuspected_loss = \"open\"\n",
+    );
+    fx.config = Arc::new(crate::config::parse(&text, std::path::Path::new("site.toml")).unwrap());
+    let t0 = store::now_ms() - 3_600_000;
+    let (mut tracker, store) = fx.tracker(Arc::new(Clock::system())).await;
+    play_a_fall(&mut tracker, t0, 600, 20).await;
+    let event = store::open_event_of_tank(&fx.conn(), "T1")
+        .unwrap()
+        .expect("an event opened");
+    assert_eq!(event.source, "suspected loss");
+    let since = event.start_ms - t0;
+    assert!((420_000..=600_000).contains(&since), "start {since} ms");
+    assert!(
+        store::open_event_of_tank(&fx.conn(), "T2")
+            .unwrap()
+            .is_none()
+    );
+    assert!(tracker.losses().snapshot().is_empty(), "stood down");
+    close(tracker, store).await;
+}

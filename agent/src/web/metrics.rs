@@ -12,7 +12,8 @@
 //! `leaktally status EVENT`).
 
 use crate::acquire::stats::{DeviceSnapshot, TankSnapshot};
-use crate::config::Config;
+use crate::config::{Config, LossWatch};
+use crate::loss::Standing;
 use crate::status::StatusDocument;
 use crate::store::health::HealthSnapshot;
 use std::fmt::Write as _;
@@ -24,6 +25,9 @@ pub struct Inputs<'a> {
     pub tanks: &'a [TankSnapshot],
     pub doc: &'a StatusDocument,
     pub store: &'a HealthSnapshot,
+    /// The suspected losses standing, and how many were raised.
+    pub losses: &'a [Standing],
+    pub losses_raised: u64,
     pub started_ms: i64,
 }
 
@@ -336,7 +340,53 @@ pub fn render(inputs: &Inputs<'_>) -> String {
     for (id, tank, est) in with_estimate() {
         f.value(&[("event", id), ("tank", tank)], seconds(est.at_ms));
     }
+    suspected_losses(&mut out, inputs);
     out
+}
+
+/// The suspected-loss watch: an alert gauge per watched tank, and the
+/// standing alerts' start and unexplained volume.
+fn suspected_losses(out: &mut String, inputs: &Inputs<'_>) {
+    let standing = |tank: &str| inputs.losses.iter().find(|s| s.tank == tank);
+    let mut f = family(
+        out,
+        "leaktally_suspected_loss",
+        "gauge",
+        "1 while a tank with no event open loses level faster than its metered transfers explain (an alert from an estimate), else 0; watched tanks only.",
+    );
+    for (i, t) in inputs.config.tanks.iter().enumerate() {
+        if inputs.config.loss_watch(i) != LossWatch::Off {
+            f.value(
+                &[("tank", &t.id)],
+                f64::from(u8::from(standing(&t.id).is_some())),
+            );
+        }
+    }
+    let mut f = family(
+        out,
+        "leaktally_suspected_loss_since_timestamp_seconds",
+        "gauge",
+        "Where a standing suspected loss's unexplained fall began (the leak open --since it offers), seconds since the Unix epoch.",
+    );
+    for s in inputs.losses {
+        f.value(&[("tank", &s.tank)], s.suspicion.since_ms as f64 / 1000.0);
+    }
+    let mut f = family(
+        out,
+        "leaktally_suspected_loss_cubic_metres",
+        "gauge",
+        "A standing suspected loss's unexplained volume since it began, m³ (an estimate).",
+    );
+    for s in inputs.losses {
+        f.value(&[("tank", &s.tank)], s.suspicion.volume_m3);
+    }
+    family(
+        out,
+        "leaktally_suspected_losses_raised_total",
+        "counter",
+        "Suspected-loss alerts raised since the daemon started.",
+    )
+    .value(&[], inputs.losses_raised as f64);
 }
 
 /// A sample value as the format spells it.

@@ -43,6 +43,7 @@ pub mod server;
 
 use crate::acquire::stats::Stats;
 use crate::config::{Config, HostName, Web};
+use crate::loss::Board;
 use crate::report::Presentation;
 use crate::status::{self, EventFilter, StatusError};
 use crate::store::health::StoreHealth;
@@ -99,6 +100,8 @@ pub struct Shared {
     pub stats: Arc<Stats>,
     /// Whether the database takes the daemon's writes.
     pub health: Arc<StoreHealth>,
+    /// The suspected losses standing, from the daemon's tracker.
+    pub losses: Arc<Board>,
     /// When the daemon started, UTC ms (for the metrics).
     pub started_ms: i64,
     /// Bounds the database reads in flight; see [`CONCURRENT_READS`].
@@ -123,11 +126,19 @@ impl Shared {
             config,
             stats,
             health,
+            losses: Arc::new(Board::default()),
             started_ms,
             readers: Semaphore::new(CONCURRENT_READS),
             bound: OnceLock::new(),
             refused_hosts: Mutex::new(HashSet::new()),
         }
+    }
+
+    /// The same, showing the suspected losses of this board (the
+    /// daemon's tracker's).
+    pub fn with_losses(mut self, losses: Arc<Board>) -> Self {
+        self.losses = losses;
+        self
     }
 
     /// The address the page is served on: where it is bound, else the
@@ -533,7 +544,24 @@ fn page_data(shared: &Shared) -> Result<page::PageData, Failure> {
         closed: closed.events,
         stale_after_ms,
         store: shared.health.snapshot(),
+        losses: suspected(shared),
     })
+}
+
+/// The suspected losses standing, each with its tank's density.
+fn suspected(shared: &Shared) -> Vec<page::Suspected> {
+    shared
+        .losses
+        .snapshot()
+        .into_iter()
+        .filter_map(|standing| {
+            let tank = shared.config.tanks.iter().find(|t| t.id == standing.tank)?;
+            Some(page::Suspected {
+                density: tank.vessel.density(),
+                standing,
+            })
+        })
+        .collect()
 }
 
 /// The closed events the page lists: the last [`page::CLOSED_SHOWN`]
@@ -704,6 +732,8 @@ async fn metrics_text(State(shared): State<Arc<Shared>>) -> Response {
                 tanks: &shared.stats.tanks(),
                 doc: &doc,
                 store: &shared.health.snapshot(),
+                losses: &shared.losses.snapshot(),
+                losses_raised: shared.losses.raised_total(),
                 started_ms: shared.started_ms,
             });
             (

@@ -37,6 +37,11 @@ fn fixture() -> (Scratch, Router, i64) {
 
 /// As [`fixture`], with the daemon's store health to set.
 fn fixture_with_health() -> (Scratch, Router, i64, Arc<StoreHealth>) {
+    fixture_with(Arc::default())
+}
+
+/// As [`fixture_with_health`], showing the suspected losses of `losses`.
+fn fixture_with(losses: Arc<crate::loss::Board>) -> (Scratch, Router, i64, Arc<StoreHealth>) {
     let scratch = Scratch::new("web");
     let config = Arc::new(crate::config::parse(SITE, std::path::Path::new("site.toml")).unwrap());
     let db = scratch.db();
@@ -105,7 +110,8 @@ fn fixture_with_health() -> (Scratch, Router, i64, Arc<StoreHealth>) {
     drop(conn);
     let stats = Arc::new(Stats::new(&config));
     let health = Arc::new(StoreHealth::default());
-    let shared = Arc::new(Shared::new(db, config, stats, Arc::clone(&health), now));
+    let shared =
+        Arc::new(Shared::new(db, config, stats, Arc::clone(&health), now).with_losses(losses));
     (scratch, router(shared), id, health)
 }
 
@@ -530,5 +536,58 @@ fn host_names_are_matched_with_their_ports() {
             allowed,
             "{host} on {listen} via {local:?}"
         );
+    }
+}
+
+/// A suspected loss standing is an alarm on the page, escaped, with the
+/// start it offers and the command, and a gauge in the metrics.
+#[tokio::test]
+async fn a_suspected_loss_is_shown_on_the_page_and_in_the_metrics() {
+    let losses = Arc::new(crate::loss::Board::default());
+    let (_scratch, router, _, _) = fixture_with(Arc::clone(&losses));
+    let (_, _, page) = call(&router, "GET", "/").await;
+    assert!(!page.contains("suspected-loss"));
+    let (_, _, metrics) = call(&router, "GET", "/metrics").await;
+    assert!(
+        metrics.contains("\nleaktally_suspected_loss{tank=\"T<1>&\\\"x\\\"\"} 0\n"),
+        "{metrics}"
+    );
+
+    losses.count_raised();
+    losses.set(
+        HOSTILE_ID,
+        Some(crate::loss::Suspicion {
+            since_ms: 1_700_000_000_000,
+            raised_ms: 1_700_000_600_000,
+            volume_m3: 0.5,
+            rate_m3_s: 0.5 / 600.0,
+            statistic: 12.0,
+        }),
+    );
+    let (_, _, page) = call(&router, "GET", "/").await;
+    assert!(page.contains(r#"data-field="suspected-loss""#), "{page}");
+    assert!(
+        page.contains("Suspected loss on T&lt;1&gt;&amp;&quot;x&quot;"),
+        "{page}"
+    );
+    assert!(
+        page.contains(
+            "since <time datetime=\"2023-11-14T22:13:20.000Z\">2023-11-14 22:13:20 UTC</time>"
+        ),
+        "{page}"
+    );
+    assert!(
+        page.contains("leaktally leak open --tank T&lt;1&gt;&amp;&quot;x&quot; --since 2023-11-14T22:13:20.000Z"),
+        "{page}"
+    );
+    assert!(page.contains("not a measurement"));
+    let (_, _, metrics) = call(&router, "GET", "/metrics").await;
+    for line in [
+        "\nleaktally_suspected_loss{tank=\"T<1>&\\\"x\\\"\"} 1\n",
+        "\nleaktally_suspected_loss_since_timestamp_seconds{tank=\"T<1>&\\\"x\\\"\"} 1700000000\n",
+        "\nleaktally_suspected_loss_cubic_metres{tank=\"T<1>&\\\"x\\\"\"} 0.5\n",
+        "\nleaktally_suspected_losses_raised_total 1\n",
+    ] {
+        assert!(metrics.contains(line), "{line} in {metrics}");
     }
 }

@@ -36,6 +36,12 @@ pub struct RawTank {
     pub pressure_bias_pa: Option<Spanned<f64>>,
     /// The liquid's temperature, °C, held for the whole run.
     pub temperature_c: Option<Spanned<f64>>,
+    /// The liquid's daily temperature swing, peak to peak, K (a sinusoid
+    /// of 24 h about `temperature_c`, rising first).
+    pub temperature_swing_k: Option<Spanned<f64>>,
+    /// The liquid's volumetric expansion coefficient, 1/K: how far the
+    /// level rises and falls with the swing.
+    pub expansion_per_k: Option<Spanned<f64>>,
     /// "held" (the default): the headspace pressure is held and no gas
     /// is modelled; "gas": the ullage holds the site config's vapour,
     /// which a hole above the surface lets out.

@@ -40,6 +40,11 @@ pub struct TankSetup {
     pub pressure_bias_pa: f64,
     /// The liquid's temperature, K (what a temperature sensor shows).
     pub temperature_k: f64,
+    /// Its daily swing, peak to peak, K, and the liquid's volumetric
+    /// expansion coefficient, 1/K: the level rises and falls with the
+    /// temperature though no mass comes or goes.
+    pub temperature_swing_k: f64,
+    pub expansion_per_k: f64,
 }
 
 /// The largest blanket supply a scenario may give, kg/s (3 600 t/h, far
@@ -194,6 +199,38 @@ impl Checker<'_> {
             Some(c) => *c.get_ref(),
             None => 15.0,
         };
+        // A liquid tank's contents swing a few kelvin a day at most (the
+        // air more); no liquid expands by more than 0.01 per kelvin.
+        let mut bounded =
+            |value: &Option<Spanned<f64>>, key: &str, limit: f64, what: &str| match value {
+                None => 0.0,
+                Some(v) if v.get_ref().is_finite() && (0.0..=limit).contains(v.get_ref()) => {
+                    *v.get_ref()
+                }
+                Some(v) => {
+                    self.problem(
+                        v.span(),
+                        format!(
+                            "{ctx}: {key} = {} is outside 0 to {limit}; give {what}",
+                            v.get_ref()
+                        ),
+                    );
+                    ok = false;
+                    0.0
+                }
+            };
+        let temperature_swing_k = bounded(
+            &t.temperature_swing_k,
+            "temperature_swing_k",
+            50.0,
+            "the daily swing, peak to peak, in K",
+        );
+        let expansion_per_k = bounded(
+            &t.expansion_per_k,
+            "expansion_per_k",
+            0.01,
+            "the volumetric expansion coefficient in 1/K (diesel about 0.00083)",
+        );
         let ullage = self.ullage(t, index, level, &mut ok);
         ok.then_some(TankSetup {
             initial_level_m: level,
@@ -205,6 +242,8 @@ impl Checker<'_> {
             level_drift_m_per_h,
             pressure_bias_pa,
             temperature_k: temperature_c + 273.15,
+            temperature_swing_k,
+            expansion_per_k,
         })
     }
 

@@ -22,7 +22,8 @@ use super::problems::Problems;
 use super::raw::{self, RawConfig, RawTank};
 use super::register_map::overlaps;
 use super::types::{
-    Config, DEFAULT_WEB_LISTEN, Device, HostName, Parity, Role, SerialLine, Tank, Units, Web,
+    Config, DEFAULT_WEB_LISTEN, Device, HostName, LossWatch, Parity, Role, SerialLine, Tank, Units,
+    Web,
 };
 use crate::model::{AbsolutePressure, ModelError};
 use std::collections::HashMap;
@@ -89,6 +90,12 @@ fn serial_only_keys(d: &raw::RawDevice) -> Vec<(&'static str, Range<usize>)> {
     .filter_map(|(key, span)| Some((key, span?)))
     .collect()
 }
+
+/// The most `suspected_loss_allowance_mm_h` may say: a metre an hour would
+/// let any leak through.
+const MAX_LOSS_ALLOWANCE_MM_H: f64 = 1000.0;
+/// The allowance where a tank gives none, mm/h (`loss::LossParams`).
+const DEFAULT_LOSS_ALLOWANCE_MM_H: f64 = 1.0;
 
 /// A number as a config message quotes it: to 7 significant digits, plain
 /// when it is of everyday size, in exponent form when Display would print
@@ -169,6 +176,9 @@ impl Checker {
         let database = raw.site.database.as_ref().map(|d| self.database(d, path));
         let (time_zone_name, time_zone) = self.time_zone(raw.site.time_zone.as_ref());
         let units = self.units(raw.site.units.as_ref());
+        let suspected_loss = self
+            .loss_watch(raw.site.suspected_loss.as_ref(), "[site]")
+            .unwrap_or_default();
         Config {
             path: path.to_owned(),
             site_name: raw.site.name,
@@ -180,7 +190,28 @@ impl Checker {
             devices,
             tanks,
             web,
+            suspected_loss,
         }
+    }
+
+    /// A `suspected_loss` word, on `[site]` or a tank (`ctx`).
+    pub(super) fn loss_watch(
+        &mut self,
+        name: Option<&Spanned<String>>,
+        ctx: &str,
+    ) -> Option<LossWatch> {
+        let name = name?;
+        let watch = LossWatch::from_name(name.get_ref());
+        if watch.is_none() {
+            self.problem(
+                name.span(),
+                format!(
+                    "{ctx}: suspected_loss = \"{}\" is not known; give \"alert\" (show it, the operator confirms), \"open\" (also open an event at once) or \"off\"",
+                    crate::logging::one_line(name.get_ref())
+                ),
+            );
+        }
+        watch
     }
 
     /// `[site] database`, relative to the config file's folder.
@@ -828,6 +859,16 @@ mod tests {
                 "height_m = 5.0 }",
                 "height_m = 5.0 }\nheadspace_kpa = -500.0",
                 "10:17: tank \"T1\": headspace_kpa = -500 is not a plausible gauge pressure; give kPa above ambient, from -101.325 (a full vacuum)",
+            ),
+            (
+                "height_m = 5.0 }",
+                "height_m = 5.0 }\nsuspected_loss = \"maybe\"",
+                "10:18: tank \"T1\": suspected_loss = \"maybe\" is not known; give \"alert\" (show it, the operator confirms), \"open\" (also open an event at once) or \"off\"",
+            ),
+            (
+                "height_m = 5.0 }",
+                "height_m = 5.0 }\nsuspected_loss_allowance_mm_h = -1.0",
+                "10:33: tank \"T1\": suspected_loss_allowance_mm_h = -1 must be a level speed in mm/h, 0 to 1000; leave it out for 1",
             ),
             (
                 "unit = \"m\" }",

@@ -8,7 +8,10 @@
 //! Left out: the shape's own checks (`geometry`) and one sensor's own
 //! (`sensor`).
 
-use super::{Checker, MAX_LEVEL_RATE_M_S, MAX_REPORTABLE_KG, MAX_UNMETERED_TRANSFER_M3_S, shown};
+use super::{
+    Checker, DEFAULT_LOSS_ALLOWANCE_MM_H, MAX_LEVEL_RATE_M_S, MAX_LOSS_ALLOWANCE_MM_H,
+    MAX_REPORTABLE_KG, MAX_UNMETERED_TRANSFER_M3_S, shown,
+};
 use crate::config::raw::{self, RawSensor, RawTank};
 use crate::config::types::{
     DEFAULT_DENSITY_UNCERTAINTY, Device, Flag, REFERENCE_TEMPERATURE_C, Role, Sensor, Tank,
@@ -74,6 +77,8 @@ impl Checker {
             self.transfer_range(&t, transfer, &ctx);
         }
         let max_level_rate = self.max_level_rate(&t, &ctx);
+        let suspected_loss = self.loss_watch(t.suspected_loss.as_ref(), &ctx);
+        let loss_allowance_m_s = self.loss_allowance(&t, &ctx) / 3.6e6;
         if let Some(d) = device {
             self.stuck_after_poll(&t, &ctx, &device_list[d]);
         }
@@ -100,7 +105,29 @@ impl Checker {
             density: density_model,
             density_uncertainty: density_uncertainty?,
             max_level_rate,
+            suspected_loss,
+            loss_allowance_m_s,
         })
+    }
+
+    /// `suspected_loss_allowance_mm_h`, mm/h.
+    fn loss_allowance(&mut self, t: &RawTank, ctx: &str) -> f64 {
+        let Some(v) = t.suspected_loss_allowance_mm_h.as_ref() else {
+            return DEFAULT_LOSS_ALLOWANCE_MM_H;
+        };
+        let mm_h = *v.get_ref();
+        if mm_h.is_finite() && (0.0..=MAX_LOSS_ALLOWANCE_MM_H).contains(&mm_h) {
+            mm_h
+        } else {
+            self.problem(
+                v.span(),
+                format!(
+                    "{ctx}: suspected_loss_allowance_mm_h = {} must be a level speed in mm/h, 0 to {MAX_LOSS_ALLOWANCE_MM_H}; leave it out for {DEFAULT_LOSS_ALLOWANCE_MM_H}",
+                    shown(mm_h)
+                ),
+            );
+            DEFAULT_LOSS_ALLOWANCE_MM_H
+        }
     }
 
     /// The index of the device the tank names, which must be defined.

@@ -37,10 +37,12 @@ mod details;
 mod event;
 mod figures;
 mod frame;
+mod loss;
 mod notes;
 mod state;
 mod trend;
 
+pub use loss::Suspected;
 pub use notes::{Note, notes};
 
 use crate::model::TimeSpan;
@@ -64,6 +66,8 @@ pub struct PageData {
     pub stale_after_ms: i64,
     /// Whether the database takes the daemon's writes.
     pub store: HealthSnapshot,
+    /// The suspected losses standing (tanks with no event open).
+    pub losses: Vec<Suspected>,
 }
 
 /// How many closed events the page lists, at most.
@@ -99,6 +103,7 @@ fn live(data: &PageData) -> Html {
     );
     main.push(state::top(doc, &data.store));
     let people = &doc.presentation;
+    main.push(loss::list(&data.losses, people));
     main.extend(doc.events.iter().zip(&data.events).map(|(e, extras)| {
         event::card(e, extras, people, doc.generated_at_ms, data.stale_after_ms)
     }));
