@@ -15,7 +15,7 @@
 //! (acquisition, interop), and an hour of simulated time runs in a moment
 //! here, where it would take an hour of wall time through the daemon.
 
-use crate::util::{ScenarioBuilder, ScenarioTank, Scratch};
+use crate::util::{Draw, ScenarioBuilder, ScenarioTank, Scratch};
 use leaktally::acquire::poller::flag;
 use leaktally::acquire::sample::TankSample;
 use leaktally::estimate::{Estimate, LeakParams, Method, Reason, Warning};
@@ -65,20 +65,6 @@ const PRESSURE_ACCURACY_PA: f64 = 500.0;
 const ACCURACY_M: f64 = 0.004;
 /// When the hole opens and the event starts, s of simulated time.
 const LEAK_AT_S: f64 = 10.0;
-
-/// splitmix64, for seeded draws (Steele, Lea and Flood, OOPSLA 2014).
-struct Draw(u64);
-
-impl Draw {
-    fn uniform(&mut self, low: f64, high: f64) -> f64 {
-        self.0 = self.0.wrapping_add(0x9E37_79B9_7F4A_7C15);
-        let mut z = self.0;
-        z = (z ^ (z >> 30)).wrapping_mul(0xBF58_476D_1CE4_E5B9);
-        z = (z ^ (z >> 27)).wrapping_mul(0x94D0_49BB_1331_11EB);
-        let unit = ((z ^ (z >> 31)) >> 11) as f64 / (1u64 << 53) as f64;
-        low + (high - low) * unit
-    }
-}
 
 /// One run's invented conditions.
 #[derive(Debug, Clone, Copy)]

@@ -15,7 +15,7 @@
 //!
 //! No processes or sockets, so a simulated day runs in seconds.
 
-use crate::util::{ScenarioBuilder, ScenarioTank, Scratch};
+use crate::util::{Draw, ScenarioBuilder, ScenarioTank, Scratch};
 use leaktally::acquire::poller::flag;
 use leaktally::loss::{Change, Detector, LossParams};
 use leaktally_sim::plant::Plant;
@@ -62,20 +62,6 @@ const TANKS: [&str; 3] = ["LW-1", "LW-2", "LW-3"];
 /// level an hour).
 const PUMP_M3_H: [f64; 3] = [6.0, 100.0, 400.0];
 const EXPANSION_PER_K: f64 = 0.000_83;
-
-/// splitmix64, for seeded draws (Steele, Lea and Flood, OOPSLA 2014).
-struct Draw(u64);
-
-impl Draw {
-    fn uniform(&mut self, low: f64, high: f64) -> f64 {
-        self.0 = self.0.wrapping_add(0x9E37_79B9_7F4A_7C15);
-        let mut z = self.0;
-        z = (z ^ (z >> 30)).wrapping_mul(0xBF58_476D_1CE4_E5B9);
-        z = (z ^ (z >> 27)).wrapping_mul(0x94D0_49BB_1331_11EB);
-        let unit = ((z ^ (z >> 31)) >> 11) as f64 / (1u64 << 53) as f64;
-        low + (high - low) * unit
-    }
-}
 
 /// A leak in a run: a hole of this diameter opening at this time, 0.3 m
 /// above the bottom of every tank at once.

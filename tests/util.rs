@@ -1209,3 +1209,17 @@ fn the_builders_write_what_the_simulator_and_the_cli_read() {
         ]
     );
 }
+
+/// splitmix64, for seeded draws (Steele, Lea and Flood, OOPSLA 2014).
+pub struct Draw(pub u64);
+
+impl Draw {
+    pub fn uniform(&mut self, low: f64, high: f64) -> f64 {
+        self.0 = self.0.wrapping_add(0x9E37_79B9_7F4A_7C15);
+        let mut z = self.0;
+        z = (z ^ (z >> 30)).wrapping_mul(0xBF58_476D_1CE4_E5B9);
+        z = (z ^ (z >> 27)).wrapping_mul(0x94D0_49BB_1331_11EB);
+        let unit = ((z ^ (z >> 31)) >> 11) as f64 / (1u64 << 53) as f64;
+        low + (high - low) * unit
+    }
+}

@@ -28,7 +28,7 @@
 
 use crate::registers::{MAX_READ_BITS, MAX_READ_REGISTERS, ReadError, RegisterImage};
 use crate::scenario::{Refusal, SimTable};
-use leaktally::config::{Parity, SerialLine};
+use leaktally::config::SerialLine;
 use leaktally::registers::{BitKind, RegisterKind};
 use std::collections::{BTreeMap, HashMap};
 use std::future::Future;
@@ -313,22 +313,10 @@ pub async fn serve(
 }
 
 /// Opens a serial port with the line's settings.
+/// (The agent's own settings for a line, so the two ends always agree.)
 pub fn open_serial(line: &SerialLine) -> io::Result<tokio_serial::SerialStream> {
     use tokio_serial::SerialPortBuilderExt;
-    let parity = match line.parity {
-        Parity::None => tokio_serial::Parity::None,
-        Parity::Even => tokio_serial::Parity::Even,
-        Parity::Odd => tokio_serial::Parity::Odd,
-    };
-    let stop_bits = if line.stop_bits == 2 {
-        tokio_serial::StopBits::Two
-    } else {
-        tokio_serial::StopBits::One
-    };
-    tokio_serial::new(&line.port, line.baud_rate)
-        .parity(parity)
-        .stop_bits(stop_bits)
-        .data_bits(tokio_serial::DataBits::Eight)
+    leaktally::acquire::serial::port_builder(line)
         .open_native_async()
         .map_err(io::Error::from)
 }

@@ -199,8 +199,9 @@ fn transport_error(e: &tokio_modbus::Error) -> LinkError {
     }
 }
 
-/// Opens the port with the line's settings, its buffers emptied.
-fn open_port(line: &SerialLine) -> Result<tokio_serial::SerialStream, LinkError> {
+/// The port with the line's settings, ready to open: shared with the
+/// simulator, which serves the other end of the line.
+pub fn port_builder(line: &SerialLine) -> tokio_serial::SerialPortBuilder {
     let parity = match line.parity {
         Parity::None => tokio_serial::Parity::None,
         Parity::Even => tokio_serial::Parity::Even,
@@ -217,11 +218,16 @@ fn open_port(line: &SerialLine) -> Result<tokio_serial::SerialStream, LinkError>
         7 => tokio_serial::DataBits::Seven,
         _ => tokio_serial::DataBits::Eight,
     };
-    let port = tokio_serial::new(&line.port, line.baud_rate)
+    tokio_serial::new(&line.port, line.baud_rate)
         .parity(parity)
         .stop_bits(stop_bits)
         .data_bits(data_bits)
         .flow_control(tokio_serial::FlowControl::None)
+}
+
+/// Opens the port with the line's settings, its buffers emptied.
+fn open_port(line: &SerialLine) -> Result<tokio_serial::SerialStream, LinkError> {
+    let port = port_builder(line)
         .open_native_async()
         .map_err(|e| LinkError::Connect {
             address: line.port.clone(),
