@@ -112,8 +112,7 @@ pub fn run(cli: Cli) -> anyhow::Result<()> {
         Command::Check(args) => check::command(args),
         Command::Poll(args) => poll::command(args),
         Command::Run(site) => {
-            let config = site.config.load()?;
-            let (db, _) = site.database()?;
+            let (config, db) = site.config_and_database()?;
             runtime()?.block_on(crate::daemon::run(
                 config,
                 &db,

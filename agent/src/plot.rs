@@ -290,7 +290,7 @@ pub fn render_svg(
                     let whole = after_s.round() as i64;
                     format!("+{}:{:02}", whole / 60, whole % 60)
                 } else {
-                    format!("+{}", tick(after_s / 60.0))
+                    format!("+{}", report::presentation::whole(after_s / 60.0))
                 };
                 (after_s, people.strftime(at, pattern), since)
             })
@@ -426,17 +426,6 @@ fn dashed(svg: String) -> String {
             &format!(r#"{stroke} stroke-dasharray="{pattern}""#),
         )
     })
-}
-
-/// A tick value as people write it: three significant figures at most
-/// ([`report::number`]) without trailing zeros: `4,000`, `2.5`, `0.3`.
-fn tick(v: f64) -> String {
-    let text = report::number(v);
-    if text.contains('.') {
-        text.trim_end_matches('0').trim_end_matches('.').to_owned()
-    } else {
-        text
-    }
 }
 
 /// The step between clock ticks for a span, ms, giving at most `most` of
@@ -576,7 +565,7 @@ fn panel<DB: DrawingBackend>(
         .disable_x_mesh()
         .x_labels(0)
         .y_labels(6)
-        .y_label_formatter(&|v| tick(*v))
+        .y_label_formatter(&|v| report::presentation::whole(*v))
         .x_desc(axis.description.as_str())
         .y_desc(spec.y_desc)
         .label_style(("sans-serif", 14))

@@ -79,18 +79,16 @@ pub struct Reply {
 /// was made, by the next daemon or once the daemon can write; the wait says
 /// so as soon as the heartbeat goes stale.
 pub fn send(db: &Path, request: &Request, people: &Presentation) -> anyhow::Result<Reply> {
-    // A permission in the way is said as such, not as a missing file.
-    if let Err(e) = store::access::check(db, store::access::Need::ReadWrite) {
-        if !matches!(e, StoreError::Missing(_)) {
-            return Err(e.into());
-        }
-        no_daemon!(
+    // Opening checks access first: a permission in the way is said as
+    // such, and only a file that is not there means no daemon.
+    let conn = match store::open_for_requests(db) {
+        Err(StoreError::Missing(_)) => no_daemon!(
             "the database {} does not exist, so no daemon is running on it; start one with `leaktally run --config FILE --db {}`",
             db.display(),
             db.display()
-        );
-    }
-    let conn = store::open_for_requests(db)?;
+        ),
+        opened => opened?,
+    };
     let heartbeat = store::heartbeat(&conn).map_err(|e| damage_said(e, db))?;
     let Some(h) = heartbeat else {
         no_daemon!(
@@ -218,19 +216,13 @@ pub fn who() -> (String, String) {
 /// The login name of this process's real uid, from /proc and /etc/passwd
 /// (none for a uid with no entry there).
 fn user_from_uid() -> Option<String> {
-    let status = std::fs::read_to_string("/proc/self/status").ok()?;
-    let uid = status
-        .lines()
-        .find_map(|l| l.strip_prefix("Uid:"))?
-        .split_whitespace()
-        .next()?
-        .to_owned();
-    let passwd = std::fs::read_to_string("/etc/passwd").ok()?;
-    passwd.lines().find_map(|line| {
-        let mut fields = line.split(':');
-        let name = fields.next()?;
-        (fields.nth(1)? == uid).then(|| name.to_owned())
-    })
+    #[cfg(unix)]
+    {
+        // SAFETY: getuid cannot fail and touches no memory.
+        store::access::login_name(unsafe { libc::getuid() })
+    }
+    #[cfg(not(unix))]
+    None
 }
 
 #[cfg(test)]

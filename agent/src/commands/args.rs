@@ -83,6 +83,17 @@ impl SiteArgs {
     /// prints. A config that was named but cannot be read is an error when
     /// the database must come from it; with `--db` given, it only costs the
     /// site's zone and units, and a warning says so.
+    /// The site config, which the daemon needs, and its database: both
+    /// from one reading of the file.
+    pub fn config_and_database(&self) -> anyhow::Result<(Config, PathBuf)> {
+        let config = self.config.load()?;
+        let db = match &self.db {
+            Some(db) => db.clone(),
+            None => database_of(&config)?,
+        };
+        Ok((config, db))
+    }
+
     pub fn database(&self) -> anyhow::Result<(PathBuf, Presentation)> {
         let config = self.config_path().map(|path| crate::config::load(&path));
         match (&self.db, config) {
@@ -95,13 +106,7 @@ impl SiteArgs {
                 );
                 Ok((db.clone(), Presentation::default()))
             }
-            (None, Some(Ok(config))) => match &config.database {
-                Some(db) => Ok((db.clone(), Presentation::of(&config))),
-                None => bail!(
-                    "{} names no database; add `database = \"/var/lib/leaktally/site.db\"` to its [site] table, or give --db FILE (or set LEAKTALLY_DB)",
-                    config.path.display()
-                ),
-            },
+            (None, Some(Ok(config))) => Ok((database_of(&config)?, Presentation::of(&config))),
             (None, Some(Err(e))) => Err(e.into()),
             (None, None) => bail!(
                 "no database named: give --db FILE, set LEAKTALLY_DB=FILE, or name the site config whose [site] database it is ({NAME_A_CONFIG})"
@@ -115,6 +120,17 @@ impl SiteArgs {
         self.config_path()
             .and_then(|path| crate::config::load(&path).ok())
             .map_or_else(Presentation::default, |c| Presentation::of(&c))
+    }
+}
+
+/// The database a config names, or how to name one.
+fn database_of(config: &Config) -> anyhow::Result<PathBuf> {
+    match &config.database {
+        Some(db) => Ok(db.clone()),
+        None => bail!(
+            "{} names no database; add `database = \"/var/lib/leaktally/site.db\"` to its [site] table, or give --db FILE (or set LEAKTALLY_DB)",
+            config.path.display()
+        ),
     }
 }
 

@@ -397,11 +397,7 @@ pub fn describe(config: &Config) -> String {
                 v.density()
             );
             if !tank.reportable.is_empty() {
-                let list: Vec<String> = tank
-                    .reportable
-                    .iter()
-                    .map(|m| report::Presentation::of(config).mass(*m))
-                    .collect();
+                let list: Vec<String> = tank.reportable.iter().map(|m| people.mass(*m)).collect();
                 let _ = writeln!(out, "    reportable quantities: {}", list.join(", "));
             }
             let _ = writeln!(out, "    {}", sensor_line("level", &tank.level));

@@ -96,17 +96,30 @@ struct Acknowledged<'a> {
     text: String,
 }
 
+impl LeakCommand {
+    /// Where the site and its database are, for every subcommand.
+    fn site(&self) -> &SiteArgs {
+        match self {
+            LeakCommand::Open { site, .. }
+            | LeakCommand::Revise { site, .. }
+            | LeakCommand::Note { site, .. }
+            | LeakCommand::Close { site, .. } => site,
+        }
+    }
+}
+
 /// Runs one `leak` subcommand.
 pub fn command(command: LeakCommand) -> anyhow::Result<()> {
     let now = store::now_ms();
-    let (site, json, request) = match command {
+    let (db, people) = command.site().database()?;
+    let (json, request) = match command {
         LeakCommand::Open {
             tank,
             hole,
             since,
             note,
-            site,
             json,
+            ..
         } => {
             if hole.hole_height.is_none() {
                 eprintln!(
@@ -118,7 +131,6 @@ pub fn command(command: LeakCommand) -> anyhow::Result<()> {
                     "note: no --cd given; using 1.0 (conservative), with the band from 0.61 to 1.0"
                 );
             }
-            let (_, people) = site.database()?;
             let since_ms = since
                 .as_deref()
                 .map(|s| parse_since(s, now, &people.zone))
@@ -133,36 +145,29 @@ pub fn command(command: LeakCommand) -> anyhow::Result<()> {
                 since_ms,
                 note,
             };
-            (site, json, request)
+            (json, request)
         }
         LeakCommand::Revise {
             event,
             changes,
             note,
-            site,
             json,
+            ..
         } => {
             let request = Request::Revise {
                 event,
                 change: changes.change()?,
                 note,
             };
-            (site, json, request)
+            (json, request)
         }
         LeakCommand::Note {
-            event,
-            text,
-            site,
-            json,
-        } => (site, json, Request::Note { event, text }),
+            event, text, json, ..
+        } => (json, Request::Note { event, text }),
         LeakCommand::Close {
-            event,
-            note,
-            site,
-            json,
-        } => (site, json, Request::Close { event, note }),
+            event, note, json, ..
+        } => (json, Request::Close { event, note }),
     };
-    let (db, people) = site.database()?;
     let reply = actions::send(&db, &request, &people)?;
     if json {
         let doc = Acknowledged {

@@ -146,7 +146,13 @@ pub fn command(args: ReplayArgs) -> anyhow::Result<()> {
         site,
     } = args;
     let now = store::now_ms();
-    let zone = site.presentation().zone;
+    // The database and the site's zone from one reading of the config; a
+    // readings file needs no database, so its absence is no error yet.
+    let resolved = site.database();
+    let zone = match &resolved {
+        Ok((_, people)) => people.zone.clone(),
+        Err(_) => site.presentation().zone,
+    };
     let when = |t: Option<String>| t.map(|t| parse_since(&t, now, &zone)).transpose();
     let config = site.config_path();
     let overrides = Overrides {
@@ -165,8 +171,8 @@ pub fn command(args: ReplayArgs) -> anyhow::Result<()> {
     let mut protect = Vec::new();
     let source = match (event, readings) {
         (_, Some(file)) => {
-            if let Ok((db, _)) = site.database() {
-                protect.push(db);
+            if let Ok((db, _)) = &resolved {
+                protect.push(db.clone());
             }
             Source::Readings {
                 file,
@@ -184,7 +190,7 @@ pub fn command(args: ReplayArgs) -> anyhow::Result<()> {
             }
         }
         (Some(event), None) => Source::Event {
-            db: site.database()?.0,
+            db: resolved?.0,
             event,
             config,
         },
@@ -448,38 +454,64 @@ fn replay_event(
         }
         None => (None, 0, 0),
     };
-    let site = report::Presentation::of(&config);
-    let mut summary = Summary {
-        format: FORMAT,
-        event: Some(row.id),
-        tank: row.tank.clone(),
-        revision: Some(row.revision),
-        params,
-        params_text: describe_params(&params, &site),
-        overrides: overrides.any(),
-        samples,
-        skipped_rows: Vec::new(),
-        readings: None,
-        from: report::rfc3339(from),
-        to: report::rfc3339(replayed.at_ms),
-        from_ms: from,
-        to_ms: replayed.at_ms,
-        replayed_words: report::estimate::Words::of(&replayed, &params, &site),
-        site,
-        density_text: density_text(tank, &params, &replayed),
-        replayed,
-        live: live_last,
-        live_estimator_version: live_version,
-        identical,
-        compared,
-        matching,
-        csv: None,
-        plot: None,
-        caution: report::CAUTION,
-    };
+    let mut summary = Summary::of(&row.tank, tank, &config, params, overrides, from, replayed);
+    summary.event = Some(row.id);
+    summary.revision = Some(row.revision);
+    summary.samples = samples;
+    summary.live = live_last;
+    summary.live_estimator_version = live_version;
+    summary.identical = identical;
+    summary.compared = compared;
+    summary.matching = matching;
     let reportable: Vec<f64> = tank.reportable.iter().map(|m| m.si()).collect();
     sink.finish(&mut summary, &reportable)?;
     Ok(summary)
+}
+
+impl Summary {
+    /// The summary of a replay of `tank` from `from` that ended at
+    /// `replayed`, in the site's presentation; a logged event's replay adds
+    /// its id, revision and the comparison with the live figures, a
+    /// readings file's its report.
+    fn of(
+        tank_id: &str,
+        tank: &Tank,
+        config: &Config,
+        params: LeakParams,
+        overrides: &Overrides,
+        from: i64,
+        replayed: Estimate,
+    ) -> Self {
+        let site = report::Presentation::of(config);
+        Summary {
+            format: FORMAT,
+            event: None,
+            tank: tank_id.to_owned(),
+            revision: None,
+            params,
+            params_text: describe_params(&params, &site),
+            overrides: overrides.any(),
+            samples: 0,
+            skipped_rows: Vec::new(),
+            readings: None,
+            from: report::rfc3339(from),
+            to: report::rfc3339(replayed.at_ms),
+            from_ms: from,
+            to_ms: replayed.at_ms,
+            replayed_words: report::estimate::Words::of(&replayed, &params, &site),
+            site,
+            density_text: density_text(tank, &params, &replayed),
+            replayed,
+            live: None,
+            live_estimator_version: None,
+            identical: None,
+            compared: 0,
+            matching: 0,
+            csv: None,
+            plot: None,
+            caution: report::CAUTION,
+        }
+    }
 }
 
 /// The density an estimate uses, and why: given with `--density` (or
@@ -706,35 +738,10 @@ fn replay_readings(
         }
     })?;
     let from = feed.from.unwrap_or(replayed.at_ms);
-    let site = report::Presentation::of(&config);
-    let mut summary = Summary {
-        format: FORMAT,
-        event: None,
-        tank: tank_id.to_owned(),
-        revision: None,
-        params,
-        params_text: describe_params(&params, &site),
-        overrides: overrides.any(),
-        samples: feed.samples,
-        skipped_rows: report.skipped.clone(),
-        readings: Some(report),
-        from: report::rfc3339(from),
-        to: report::rfc3339(replayed.at_ms),
-        from_ms: from,
-        to_ms: replayed.at_ms,
-        replayed_words: report::estimate::Words::of(&replayed, &params, &site),
-        site,
-        density_text: density_text(tank, &params, &replayed),
-        replayed,
-        live: None,
-        live_estimator_version: None,
-        identical: None,
-        compared: 0,
-        matching: 0,
-        csv: None,
-        plot: None,
-        caution: report::CAUTION,
-    };
+    let mut summary = Summary::of(tank_id, tank, &config, params, overrides, from, replayed);
+    summary.samples = feed.samples;
+    summary.skipped_rows = report.skipped.clone();
+    summary.readings = Some(report);
     let reportable: Vec<f64> = tank.reportable.iter().map(|m| m.si()).collect();
     let mut sink = sink;
     sink.finish(&mut summary, &reportable)?;

@@ -190,6 +190,17 @@ pub fn rfc3339(at_ms: i64) -> String {
     }
 }
 
+/// A round quantity as people write it, for a chart's ticks: 50, 2.5,
+/// 12,000 ([`number`] would say 50.0, its three significant figures).
+pub fn whole(x: f64) -> String {
+    let text = number(x);
+    if text.contains('.') {
+        text.trim_end_matches('0').trim_end_matches('.').to_owned()
+    } else {
+        text
+    }
+}
+
 /// The one number format for people: three significant figures, thousands
 /// grouped with commas from 1,000 (`0.0123`, `2.35`, `358`, `1,230`,
 /// `123,000`), never exponent notation for the sizes a site meets.

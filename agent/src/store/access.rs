@@ -249,6 +249,9 @@ fn message(db: &Path, blocked: &Path, want: Want) -> String {
     )
 }
 
+#[cfg(unix)]
+pub use ids::login_name;
+
 /// Names of users and groups, from /etc/passwd and /etc/group (numbers
 /// when a name is not there, as with a directory service).
 #[cfg(unix)]
@@ -262,11 +265,17 @@ mod ids {
             .collect()
     }
 
-    pub fn user_name(uid: u32) -> String {
+    /// The login name of `uid`, if /etc/passwd has one.
+    pub fn login_name(uid: u32) -> Option<String> {
+        let uid = uid.to_string();
         field_table("/etc/passwd")
             .into_iter()
-            .find(|f| f.len() > 2 && f[2] == uid.to_string())
-            .map_or_else(|| format!("uid {uid}"), |f| f[0].clone())
+            .find(|f| f.len() > 2 && f[2] == uid)
+            .map(|mut f| f.swap_remove(0))
+    }
+
+    pub fn user_name(uid: u32) -> String {
+        login_name(uid).unwrap_or_else(|| format!("uid {uid}"))
     }
 
     pub fn group_name(gid: u32) -> String {

@@ -129,6 +129,9 @@ fn apply(
     now: i64,
 ) -> StoreResult<Result<Done, Refusal>> {
     let refuse = |event: Option<i64>, why: String| Ok(Err(Refusal::new(event, why)));
+    // The accounts of what was done are for people: in the site's zone
+    // and units.
+    let people = Presentation::of(&cx.config);
     match request {
         Request::Open {
             tank,
@@ -175,7 +178,7 @@ fn apply(
                     "the leak cannot start in the future; check --since".into(),
                 );
             }
-            if let Err(why) = check_history(tx, &tank, start, now, &Presentation::of(&cx.config))? {
+            if let Err(why) = check_history(tx, &tank, start, now, &people)? {
                 return refuse(None, why);
             }
             let params = LeakParams {
@@ -199,13 +202,13 @@ fn apply(
             let id = event.row.id;
             let text = format!(
                 "opened event {id} on {tank} from {}{}; {}{}{}",
-                Presentation::of(&cx.config).time(start),
+                people.time(start),
                 if since_ms.is_some() {
                     " (back-dated)"
                 } else {
                     ""
                 },
-                describe_params(&params, &Presentation::of(&cx.config)),
+                describe_params(&params, &people),
                 if event.estimator.last_sample_ms().is_none() {
                     "; no stored sample yet"
                 } else {
@@ -258,8 +261,8 @@ fn apply(
                 event: Some(event),
                 text: format!(
                     "revision {revision} of event {event}: {} -> {}; recomputed {count} estimates from the start",
-                    describe_params(&before, &Presentation::of(&cx.config)),
-                    describe_params(&params, &Presentation::of(&cx.config))
+                    describe_params(&before, &people),
+                    describe_params(&params, &people)
                 ),
                 change: Some(Change::Opened(Box::new(event_state))),
             }))
@@ -294,7 +297,7 @@ fn apply(
                 event: Some(event),
                 text: format!(
                     "closed event {event} at {}{}",
-                    Presentation::of(&cx.config).time(at),
+                    people.time(at),
                     lateness(requested, now)
                 ),
                 change: Some(Change::Closed(event)),

@@ -45,8 +45,6 @@ mod build;
 mod tests;
 mod watch;
 
-pub use watch::params_of as loss_params_of;
-
 pub use actions::Refusal;
 
 use crate::acquire::sample::TankSample;
@@ -339,8 +337,11 @@ impl Tracker {
                 });
             }
         }
-        let open: HashSet<usize> = self.open.values().map(|e| e.tank).collect();
-        for opening in self.watch.take(&batch, &open) {
+        let open = &self.open;
+        for opening in self
+            .watch
+            .take(&batch, |tank| open.values().any(|e| e.tank == tank))
+        {
             if !self.edges.iter().any(|e| e.tank == opening.tank) {
                 self.edges.push_back(FlagEdge {
                     tank: opening.tank,

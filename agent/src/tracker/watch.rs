@@ -11,9 +11,8 @@
 
 use crate::acquire::sample::TankSample;
 use crate::config::{Config, LossWatch};
-use crate::loss::{Board, Change, Detector, LossParams};
+use crate::loss::{Board, Change, Detector, LossParams, Suspicion};
 use crate::report::rfc3339;
-use std::collections::HashSet;
 use std::sync::Arc;
 use tracing::{info, warn};
 
@@ -23,6 +22,19 @@ struct Watched {
     /// An event is open on the tank: the detector was reset and waits.
     suspended: bool,
     mode: LossWatch,
+    /// What the board shows for the tank: it is written only when this
+    /// changes, not on every sample of a standing alert.
+    published: Option<Suspicion>,
+}
+
+impl Watched {
+    /// Shows `alert` on the board, if that is news.
+    fn publish(&mut self, board: &Board, tank: &str, alert: Option<Suspicion>) {
+        if self.published != alert {
+            board.set(tank, alert);
+            self.published = alert;
+        }
+    }
 }
 
 /// An event the watch asks to open: on `tank`, from `start_ms`.
@@ -40,7 +52,7 @@ pub(super) struct Watch {
 /// The detector's settings for a tank: the defaults, with the tank's
 /// allowance and its meter's stated accuracy (taken as the standard
 /// uncertainty, which overstates it: fewer false alarms).
-pub fn params_of(config: &Config, tank: usize) -> LossParams {
+pub(super) fn params_of(config: &Config, tank: usize) -> LossParams {
     let mut params = LossParams::default();
     if let Some(t) = config.tanks.get(tank) {
         params.allowance_m_s = t.loss_allowance_m_s;
@@ -67,6 +79,7 @@ impl Watch {
                     ),
                     suspended: false,
                     mode,
+                    published: None,
                 })
             })
             .collect();
@@ -81,18 +94,23 @@ impl Watch {
     }
 
     /// Feeds a batch's good level samples of tanks with no open event
-    /// (`open`: the tank indices with one); returns the events to open.
-    pub(super) fn take(&mut self, batch: &[TankSample], open: &HashSet<usize>) -> Vec<Opening> {
+    /// (`has_open_event` says which tank indices have one); returns the
+    /// events to open.
+    pub(super) fn take(
+        &mut self,
+        batch: &[TankSample],
+        has_open_event: impl Fn(usize) -> bool,
+    ) -> Vec<Opening> {
         let mut openings = Vec::new();
         for s in batch {
             let Some(Some(w)) = self.tanks.get_mut(s.tank) else {
                 continue;
             };
-            if open.contains(&s.tank) {
+            if has_open_event(s.tank) {
                 if !w.suspended {
                     w.detector.reset();
                     w.suspended = true;
-                    self.board.set(&s.tank_id, None);
+                    w.publish(&self.board, &s.tank_id, None);
                 }
                 continue;
             }
@@ -109,7 +127,7 @@ impl Watch {
             match change {
                 Some(Change::Raised(a)) => {
                     self.board.count_raised();
-                    self.board.set(&s.tank_id, Some(a));
+                    w.publish(&self.board, &s.tank_id, Some(a));
                     let since = rfc3339(a.since_ms);
                     let tank = &s.tank_id;
                     let then = if w.mode == LossWatch::Open {
@@ -136,7 +154,7 @@ impl Watch {
                     }
                 }
                 Some(Change::Cleared) => {
-                    self.board.set(&s.tank_id, None);
+                    w.publish(&self.board, &s.tank_id, None);
                     info!(
                         tank = %s.tank_id,
                         "suspected loss on {} cleared: the level no longer falls more than metered transfers explain",
@@ -144,8 +162,8 @@ impl Watch {
                     );
                 }
                 None => {
-                    if let Some(a) = w.detector.alert() {
-                        self.board.set(&s.tank_id, Some(*a));
+                    if let Some(&a) = w.detector.alert() {
+                        w.publish(&self.board, &s.tank_id, Some(a));
                     }
                 }
             }

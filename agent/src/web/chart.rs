@@ -282,16 +282,7 @@ fn clock_step(span_ms: i64) -> (i64, &'static str) {
     crate::plot::clock_step(span_ms, TIME_TICKS, TIME_TICKS_WITH_SECONDS)
 }
 
-/// A round quantity as people write it: 50, 2.5, 12,000 (`report::number`
-/// would say 50.0, its three significant figures).
-pub fn whole(x: f64) -> String {
-    let text = report::number(x);
-    if text.contains('.') {
-        text.trim_end_matches('0').trim_end_matches('.').to_owned()
-    } else {
-        text
-    }
-}
+pub use report::presentation::whole;
 
 #[cfg(test)]
 mod tests {
