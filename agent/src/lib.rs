@@ -24,6 +24,8 @@
 //! * [`doorbell`]: how the CLI tells the daemon it recorded an action.
 //! * [`tracker`]: the daemon's open events, operator actions and writes.
 //! * [`web`]: the daemon's read-only responder page, JSON and metrics.
+//! * [`publish`]: the daemon's MQTT publisher: the outbox to the broker,
+//!   in order, under the topics of `publish::topics`.
 //! * [`commands`]: each subcommand's arguments and what it does.
 //! * [`cli`]: the command line, composed of the commands' arguments.
 //!
@@ -43,6 +45,7 @@ pub mod logging;
 pub mod loss;
 pub mod model;
 pub mod plot;
+pub mod publish;
 pub mod readings;
 pub mod registers;
 pub mod report;
@@ -65,7 +68,7 @@ pub const LAYERS: &[&[&str]] = &[
     &["acquire"],
     &["estimator", "readings", "store"],
     &["plot", "status", "actions"],
-    &["tracker", "web"],
+    &["tracker", "web", "publish"],
     &["daemon"],
     &["commands"],
     &["cli"],

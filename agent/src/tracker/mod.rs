@@ -41,6 +41,7 @@
 mod actions;
 mod backlog;
 mod build;
+mod outgoing;
 #[cfg(test)]
 mod tests;
 mod watch;
@@ -53,6 +54,7 @@ use crate::config::Config;
 use crate::estimate::Figures;
 use crate::estimator::Estimator;
 use crate::store::health::{StoreHealth, WriteFailure};
+use crate::store::outbox::{Kind, OutboxState};
 use crate::store::{Beat, EventRow, Lane, Store, StoreError, StoreResult};
 use actions::{Change, Context, Handled, apply_action};
 use backlog::{Backlog, Write};
@@ -145,6 +147,11 @@ pub struct Tracker {
     counts: Counts,
     /// The suspected-loss watch over tanks with no open event.
     watch: watch::Watch,
+    /// What goes in the outbox for the MQTT broker; `None` when the config
+    /// publishes nothing.
+    outgoing: Option<outgoing::Outgoing>,
+    /// The outbox as the page and the metrics show it.
+    outbox: Arc<OutboxState>,
 }
 
 impl Tracker {
@@ -158,8 +165,16 @@ impl Tracker {
         health: Arc<StoreHealth>,
     ) -> StoreResult<Self> {
         let watch = watch::Watch::new(&config);
+        let outgoing = outgoing::Outgoing::of(&config);
+        let outbox = Arc::new(if outgoing.is_some() {
+            OutboxState::configured()
+        } else {
+            OutboxState::default()
+        });
         let mut tracker = Self {
             watch,
+            outgoing,
+            outbox,
             config,
             store,
             clock,
@@ -261,6 +276,11 @@ impl Tracker {
         self.watch.board()
     }
 
+    /// The outbox's state, shared with the publisher and the web server.
+    pub fn outbox(&self) -> Arc<OutboxState> {
+        Arc::clone(&self.outbox)
+    }
+
     /// Whether the database is taking writes, shared for the web server.
     pub fn health(&self) -> Arc<StoreHealth> {
         Arc::clone(&self.health)
@@ -355,6 +375,7 @@ impl Tracker {
             set: self.set_of(&batch),
             ..Write::default()
         };
+        let now = self.clock.now_ms();
         for event in self.open.values_mut() {
             let figures: Vec<Figures> = batch
                 .iter()
@@ -364,10 +385,23 @@ impl Tracker {
             if !figures.is_empty() {
                 let (id, revision) = (event.row.id, event.row.revision);
                 if let Some(latest) = event.estimator.estimate() {
+                    if let Some(out) = &self.outgoing {
+                        write.outbox.push(out.status(
+                            &event.row,
+                            Some(latest.clone()),
+                            None,
+                            now,
+                            Kind::Status,
+                        ));
+                    }
                     write.latest.push((id, revision, latest));
                 }
                 write.figures.push((id, revision, figures));
             }
+        }
+        if let Some(out) = &mut self.outgoing {
+            write.outbox.extend(out.readings(&batch));
+            write.outbox_limit = out.limit;
         }
         write.samples = batch;
         self.counts.acquired += write.samples.len() as u64;
@@ -445,20 +479,29 @@ impl Tracker {
             let result = self
                 .store
                 .write(Lane::Urgent, move |tx| {
+                    let mut dropped = 0;
                     for write in &chunk {
-                        write.store(tx)?;
+                        dropped += write.store(tx)?;
                     }
-                    match &beat {
+                    let waiting = match &beat {
                         Some(beat) => {
                             tx.beat(beat)?;
-                            tx.any_pending_action()
+                            tx.any_pending_action()?
                         }
-                        None => Ok(false),
-                    }
+                        None => false,
+                    };
+                    Ok((waiting, dropped))
                 })
                 .await;
             match result {
-                Ok(waiting) => {
+                Ok((waiting, dropped)) => {
+                    if dropped > 0 {
+                        self.outbox.add_dropped(dropped);
+                        warn!(
+                            "the outbox for the MQTT broker is full ({} messages): {dropped} of the oldest were given up (readings first, then status documents a newer one follows)",
+                            self.outgoing.as_ref().map_or(0, |o| o.limit)
+                        );
+                    }
                     done.beaten |= beating;
                     done.actions_waiting |= waiting;
                 }
