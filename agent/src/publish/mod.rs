@@ -388,3 +388,42 @@ fn describe(e: &rumqttc::ConnectionError) -> String {
         other => other.to_string(),
     }
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use rumqttc::PubAck;
+
+    /// Acknowledgements free the outbox's messages in the order sent, the
+    /// state topic's own message taking its place without a row; one acked
+    /// out of turn waits for those before it.
+    #[test]
+    fn acknowledged_messages_are_freed_in_order() {
+        let mut flight = Flight::default();
+        flight.sent.push_back(Slot::new(None));
+        for seq in [10, 11, 12] {
+            flight.sent.push_back(Slot::new(Some(seq)));
+        }
+        let qos = QoS::AtLeastOnce;
+        for pkid in 1..=4 {
+            flight.on(&Event::Outgoing(Outgoing::Publish(pkid)), qos);
+        }
+        let ack = |pkid| Event::Incoming(Packet::PubAck(PubAck::new(pkid)));
+        flight.on(&ack(3), qos);
+        assert!(flight.acked.is_empty(), "11 waits for the state and 10");
+        flight.on(&ack(1), qos);
+        flight.on(&ack(2), qos);
+        assert_eq!(flight.acked, [10, 11]);
+        flight.on(&ack(4), qos);
+        assert_eq!(flight.acked, [10, 11, 12]);
+        assert!(flight.sent.is_empty());
+    }
+
+    #[test]
+    fn at_qos_0_a_message_written_is_done() {
+        let mut flight = Flight::default();
+        flight.sent.push_back(Slot::new(Some(5)));
+        flight.on(&Event::Outgoing(Outgoing::Publish(0)), QoS::AtMostOnce);
+        assert_eq!(flight.acked, [5]);
+    }
+}

@@ -184,3 +184,99 @@ impl Checker {
         }
     }
 }
+
+#[cfg(test)]
+mod tests {
+    use crate::config::mqtt::{DEFAULT_OUTBOX_LIMIT, slug};
+    use crate::config::parse;
+    use crate::config::tests::BASE;
+    use std::path::Path;
+    use std::time::Duration;
+
+    fn with(section: &str) -> Result<crate::config::Config, String> {
+        parse(
+            &format!("{BASE}[mqtt]\n{section}"),
+            Path::new("/etc/leaktally/site.toml"),
+        )
+        .map_err(|e| e.to_string())
+    }
+
+    #[test]
+    fn the_section_takes_its_defaults_and_resolves_its_files() {
+        assert!(parse(BASE, Path::new("site.toml")).unwrap().mqtt.is_none());
+        let config = with("broker = \"broker.plant.example\"\n").unwrap();
+        let m = config.mqtt.unwrap();
+        let site = slug(&config.site_name);
+        assert_eq!(
+            (m.host.as_str(), m.port, m.tls()),
+            ("broker.plant.example", 1883, false)
+        );
+        assert_eq!(m.client_id, format!("leaktally-{site}"));
+        assert_eq!(
+            (m.topic_prefix.as_str(), m.site_id.as_str()),
+            ("leaktally", site.as_str())
+        );
+        assert_eq!(
+            (m.qos, m.readings_every, m.outbox_limit),
+            (1, None, DEFAULT_OUTBOX_LIMIT)
+        );
+        let m = with(
+            "broker = \"10.0.0.5\"\nca_file = \"ca.pem\"\nusername = \"depot\"\npassword_file = \"pw\"\nsite_id = \"depot-7\"\nqos = 0\nreadings_every_s = 60\n",
+        )
+        .unwrap()
+        .mqtt
+        .unwrap();
+        assert_eq!((m.port, m.tls(), m.qos), (8883, true, 0));
+        assert_eq!(m.ca_file.unwrap(), Path::new("/etc/leaktally/ca.pem"));
+        assert_eq!(m.password_file.unwrap(), Path::new("/etc/leaktally/pw"));
+        assert_eq!(m.readings_every, Some(Duration::from_secs(60)));
+        assert_eq!(m.client_id, "leaktally-depot-7");
+    }
+
+    #[test]
+    fn each_mistake_is_named() {
+        for (section, expected) in [
+            ("broker = \"mqtt://b:1883\"\n", "is not a host and port"),
+            (
+                "broker = \"b\"\npassword = \"x\"\n",
+                "unknown field `password`",
+            ),
+            (
+                "broker = \"b\"\nusername = \"u\"\n",
+                "username and password_file go together",
+            ),
+            (
+                "broker = \"b\"\npassword_file = \"p\"\n",
+                "username and password_file go together",
+            ),
+            (
+                "broker = \"b\"\nclient_cert_file = \"c\"\n",
+                "client_cert_file and client_key_file go together",
+            ),
+            (
+                "broker = \"b\"\nclient_cert_file = \"c\"\nclient_key_file = \"k\"\n",
+                "client_cert_file needs TLS",
+            ),
+            (
+                "broker = \"b\"\nsite_id = \"a/b\"\n",
+                "site_id must be one topic level",
+            ),
+            (
+                "broker = \"b\"\ntopic_prefix = \"a/#\"\n",
+                "topic_prefix must be topic levels",
+            ),
+            ("broker = \"b\"\nqos = 2\n", "qos must be 1"),
+            (
+                "broker = \"b\"\nreadings_every_s = 0\n",
+                "readings_every_s must be between",
+            ),
+            (
+                "broker = \"b\"\noutbox_limit = 5\n",
+                "outbox_limit must be at least 100",
+            ),
+        ] {
+            let err = with(section).expect_err(section);
+            assert!(err.contains(expected), "{section:?}: {err}");
+        }
+    }
+}
