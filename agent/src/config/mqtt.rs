@@ -52,7 +52,7 @@ pub struct Mqtt {
 
 /// The outbox's bound unless `[mqtt] outbox_limit` says: at one message a
 /// second per open event (the status documents), a day of 1.2 events, or
-/// about two hours of 12; a status document is about 3 kB, so some 300 MB
+/// about two hours of 12; a status document is about 4.4 kB, so some 450 MB
 /// of the database at most.
 pub const DEFAULT_OUTBOX_LIMIT: usize = 100_000;
 /// The topic prefix unless `[mqtt] topic_prefix` says.
