@@ -36,7 +36,8 @@
 //! the write-behind queue of what waits for the store; `build` how an
 //! event's estimator is built from the stored history; `actions` how an
 //! operator's request is applied; `watch` the suspected-loss watch over
-//! the tanks with no open event.
+//! the tanks with no open event; `outgoing` what goes in the outbox for the
+//! MQTT broker (`crate::publish` sends it; the tracker knows no MQTT).
 
 mod actions;
 mod backlog;
@@ -80,6 +81,8 @@ const WARN_EVERY_ATTEMPTS: u64 = 30;
 /// hour of a 1,000-tank site at 1 s, some 300 MB. Event samples and
 /// estimates are never given up.
 const MAX_HELD_SAMPLES: usize = 2_000_000;
+/// How often the log repeats that the MQTT outbox is full.
+const OUTBOX_FULL_WARN_EVERY: Duration = Duration::from_secs(600);
 
 pub(super) struct OpenEvent {
     pub(super) row: EventRow,
@@ -152,6 +155,9 @@ pub struct Tracker {
     outgoing: Option<outgoing::Outgoing>,
     /// The outbox as the page and the metrics show it.
     outbox: Arc<OutboxState>,
+    /// When the log last said the outbox is full (then at most every
+    /// [`OUTBOX_FULL_WARN_EVERY`]).
+    outbox_full_warned: Option<Instant>,
 }
 
 impl Tracker {
@@ -175,6 +181,7 @@ impl Tracker {
             watch,
             outgoing,
             outbox,
+            outbox_full_warned: None,
             config,
             store,
             clock,
@@ -496,11 +503,7 @@ impl Tracker {
             match result {
                 Ok((waiting, dropped)) => {
                     if dropped > 0 {
-                        self.outbox.add_dropped(dropped);
-                        warn!(
-                            "the outbox for the MQTT broker is full ({} messages): {dropped} of the oldest were given up (readings first, then status documents a newer one follows)",
-                            self.outgoing.as_ref().map_or(0, |o| o.limit)
-                        );
+                        self.outbox_full(dropped);
                     }
                     done.beaten |= beating;
                     done.actions_waiting |= waiting;
@@ -523,6 +526,27 @@ impl Tracker {
         self.health
             .set_held(self.backlog.cycles(), self.backlog.samples());
         done
+    }
+
+    /// Counts the outbox messages given up to its bound, and says so in
+    /// the log (at most every [`OUTBOX_FULL_WARN_EVERY`]: a full outbox
+    /// gives up some every tick).
+    fn outbox_full(&mut self, dropped: u64) {
+        self.outbox.add_dropped(dropped);
+        let message = format!(
+            "the outbox for the MQTT broker is full ({} messages; the broker has not taken any for a long time): the oldest are being given up, readings first, then status documents a newer one of the same event replaces; {} so far",
+            self.outgoing.as_ref().map_or(0, |o| o.limit),
+            self.outbox.snapshot().dropped
+        );
+        if self
+            .outbox_full_warned
+            .is_none_or(|at| at.elapsed() >= OUTBOX_FULL_WARN_EVERY)
+        {
+            self.outbox_full_warned = Some(Instant::now());
+            warn!("{message}");
+        } else {
+            debug!("{message}");
+        }
     }
 
     fn on_write_failure(&mut self, e: &StoreError) {
