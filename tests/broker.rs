@@ -8,7 +8,9 @@
 //! * [`Broker::start`] with [`Options`]: anonymous by default; a password
 //!   file with one user ([`Options::password`]); TLS on the same port with
 //!   a CA and a server certificate for 127.0.0.1 made at start with the
-//!   `openssl` command ([`Options::tls`]). Persistence is on (retained
+//!   `openssl` command ([`Options::tls`]), and a client certificate
+//!   required of every client ([`Options::client_certificate`]; one is
+//!   made for the agent and the subscribers). Persistence is on (retained
 //!   messages and persistent sessions survive [`Broker::restart`]), in the
 //!   broker's own folder.
 //! * [`Broker::stop`] (SIGTERM, waited for) and [`Broker::restart`] (the
@@ -46,6 +48,9 @@ pub struct Options {
     pub password: Option<(String, String)>,
     /// TLS (only) on the port, with a CA made for the test.
     pub tls: bool,
+    /// With TLS: clients must show a certificate from the test's CA; one
+    /// is made for the agent and the subscribers.
+    pub client_certificate: bool,
 }
 
 impl Options {
@@ -58,6 +63,13 @@ impl Options {
         self.tls = true;
         self
     }
+
+    /// TLS, and a client certificate required of every client.
+    pub fn client_certificate(mut self) -> Self {
+        self.tls = true;
+        self.client_certificate = true;
+        self
+    }
 }
 
 /// The CA and the server's certificate and key, PEM files.
@@ -66,6 +78,8 @@ pub struct Certificates {
     pub ca: PathBuf,
     pub server_cert: PathBuf,
     pub server_key: PathBuf,
+    /// A client's certificate and key, when the broker requires one.
+    pub client: Option<(PathBuf, PathBuf)>,
 }
 
 /// A running (or stopped) mosquitto.
@@ -173,7 +187,9 @@ impl Broker {
             }
             None => config += "allow_anonymous true\n",
         }
-        let certificates = options.tls.then(|| make_certificates(&dir));
+        let certificates = options
+            .tls
+            .then(|| make_certificates(&dir, options.client_certificate));
         if let Some(c) = &certificates {
             config += &format!(
                 "cafile {}\ncertfile {}\nkeyfile {}\n",
@@ -181,6 +197,9 @@ impl Broker {
                 c.server_cert.display(),
                 c.server_key.display()
             );
+            if c.client.is_some() {
+                config += "require_certificate true\n";
+            }
         }
         let path = dir.join("mosquitto.conf");
         fs::write(&path, config).unwrap();
@@ -264,6 +283,13 @@ impl Broker {
         let mut section = format!("\n[mqtt]\nbroker = \"{}\"\n", self.address());
         if let Some(c) = &self.certificates {
             section += &format!("ca_file = '{}'\n", c.ca.display());
+            if let Some((cert, key)) = &c.client {
+                section += &format!(
+                    "client_cert_file = '{}'\nclient_key_file = '{}'\n",
+                    cert.display(),
+                    key.display()
+                );
+            }
         }
         if let Some((user, password)) = &self.options.password {
             let file = self.dir.join("agent-password");
@@ -293,6 +319,12 @@ impl Broker {
         if let Some(c) = &self.certificates {
             args.push("--cafile".into());
             args.push(c.ca.display().to_string());
+            if let Some((cert, key)) = &c.client {
+                args.push("--cert".into());
+                args.push(cert.display().to_string());
+                args.push("--key".into());
+                args.push(key.display().to_string());
+            }
         }
         if let (Some((user, password)), true) = (&self.options.password, with_credentials) {
             args.extend(["-u".into(), user.clone(), "-P".into(), password.clone()]);
@@ -486,8 +518,9 @@ fn is_root() -> bool {
 }
 
 /// A CA and a server certificate it signed, for 127.0.0.1 and localhost,
-/// made with the `openssl` command as an operator would.
-fn make_certificates(dir: &Path) -> Certificates {
+/// and a client certificate when asked, made with the `openssl` command as
+/// an operator would.
+fn make_certificates(dir: &Path, client: bool) -> Certificates {
     let openssl = |args: &[&str]| {
         let done = Command::new("openssl")
             .args(args)
@@ -553,9 +586,26 @@ fn make_certificates(dir: &Path) -> Certificates {
         "-extfile",
         "server.ext",
     ]);
+    let client = client.then(|| {
+        openssl(&[
+            "req", "-newkey", "ec", "-pkeyopt", "ec_paramgen_curve:P-256", "-nodes", "-keyout",
+            "client.key", "-out", "client.csr", "-subj", "/CN=leaktally-agent",
+        ]);
+        fs::write(
+            dir.join("client.ext"),
+            "basicConstraints = CA:FALSE\nkeyUsage = digitalSignature\nextendedKeyUsage = clientAuth\n",
+        )
+        .unwrap();
+        openssl(&[
+            "x509", "-req", "-in", "client.csr", "-CA", "ca.pem", "-CAkey", "ca.key",
+            "-CAcreateserial", "-out", "client.pem", "-days", "2", "-extfile", "client.ext",
+        ]);
+        (dir.join("client.pem"), dir.join("client.key"))
+    });
     Certificates {
         ca: dir.join("ca.pem"),
         server_cert: dir.join("server.pem"),
         server_key: dir.join("server.key"),
+        client,
     }
 }

@@ -379,3 +379,36 @@ fn tls_and_a_password_carry_the_messages_and_a_client_without_credentials_is_ref
         .unwrap();
     assert!(!out.status.success());
 }
+
+/// A broker that wants a client certificate (from its CA) takes the
+/// agent's, given by `client_cert_file` and `client_key_file`.
+#[test]
+fn a_broker_that_wants_a_client_certificate_takes_the_agents() {
+    let test = "a_broker_that_wants_a_client_certificate_takes_the_agents";
+    if !broker::available(test, true) {
+        return;
+    }
+    let scratch = crate::util::Scratch::new("mqtt-client-cert");
+    let broker = Broker::start(&scratch, Options::default().client_certificate());
+    let (plant, web) = plant("mqtt-client-cert", &broker, "");
+    let site = site_topic(&plant);
+    let mut sub = broker.subscribe(&format!("{site}/state"));
+    let _daemon = plant.daemon("daemon");
+    sub.wait_for("online", Duration::from_secs(20), |m| {
+        m.iter().any(|m| m.payload == "online")
+    });
+    assert_eq!(metric(&web, "leaktally_mqtt_connected"), Some(1.0));
+    // Without one, a client trusting the CA is refused all the same.
+    let ca = broker.certificates.as_ref().unwrap().ca.clone();
+    let out = Command::new("mosquitto_sub")
+        .args(["-h", "127.0.0.1", "-p", &broker.port.to_string()])
+        .arg("--cafile")
+        .arg(&ca)
+        .args(["-t", "#", "-C", "1", "-W", "3"])
+        .output()
+        .unwrap();
+    assert!(
+        !out.status.success(),
+        "a client without a certificate subscribed"
+    );
+}

@@ -35,7 +35,7 @@
 //! * `mqtt`: publishing to a real broker (Debian's mosquitto): an event's
 //!   documents in order, the last will, a 30 s broker outage, a daemon
 //!   killed while the broker is down, TLS with a password, anonymous
-//!   clients refused.
+//!   clients refused, a client certificate.
 //! * `broker`: the mosquitto harness (start, stop, restart, subscribers).
 //! * `util`: shared helpers.
 
