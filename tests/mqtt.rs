@@ -37,6 +37,18 @@ fn plant(label: &str, broker: &Broker, extra: &str) -> (Plant, String) {
     (plant, web)
 }
 
+/// The state a state message says (`online` or `offline`), checked
+/// against its layout: `{"format":1,"site":..,"state":..,"at":..,"at_ms":..}`.
+fn state_of(payload: &str) -> String {
+    let said: Value = serde_json::from_str(payload).expect("a JSON state message");
+    assert_eq!(said["format"], 1, "{payload}");
+    assert!(
+        said["at_ms"].is_i64() && said["at"].is_string(),
+        "{payload}"
+    );
+    said["state"].as_str().expect("a state").to_owned()
+}
+
 /// (event, revision, sample time) of a status document or summary.
 fn key(payload: &str) -> (i64, i64, i64) {
     let doc: Value = serde_json::from_str(payload).expect("a JSON document");
@@ -141,7 +153,8 @@ fn an_events_documents_arrive_in_order_then_its_summary_and_the_last_will_says_o
     let mut daemon = plant.daemon("daemon");
     let state = format!("{site}/state");
     all.wait_for("online", Duration::from_secs(15), |m| {
-        m.iter().any(|m| m.topic == state && m.payload == "online")
+        m.iter()
+            .any(|m| m.topic == state && state_of(&m.payload) == "online")
     });
     let event = event_id(&plant.open_leak(LeakOpen::tank("FF-T12").hole(40.0, 0.3, 0.61)));
     let status = format!("{site}/events/{event}/status");
@@ -210,18 +223,21 @@ fn an_events_documents_arrive_in_order_then_its_summary_and_the_last_will_says_o
     }
     let mut state_late = broker.subscribe(&state);
     let now = state_late.wait_for("the state", Duration::from_secs(5), |m| !m.is_empty());
-    assert_eq!((now[0].payload.as_str(), now[0].retained), ("online", true));
+    assert_eq!(
+        (state_of(&now[0].payload).as_str(), now[0].retained),
+        ("online", true)
+    );
 
     // Killed: the broker says offline for it (the last will), retained.
     kill_9(&mut daemon);
     all.wait_for("the last will", Duration::from_secs(15), |m| {
         m.last()
-            .is_some_and(|m| m.topic == state && m.payload == "offline")
+            .is_some_and(|m| m.topic == state && state_of(&m.payload) == "offline")
     });
     let mut after = broker.subscribe(&state);
     let now = after.wait_for("the state", Duration::from_secs(5), |m| !m.is_empty());
     assert_eq!(
-        (now[0].payload.as_str(), now[0].retained),
+        (state_of(&now[0].payload).as_str(), now[0].retained),
         ("offline", true)
     );
 }
@@ -258,11 +274,17 @@ fn a_broker_stopped_for_30_s_loses_no_estimate_and_the_outbox_drains() {
     let waiting = metric(&web, "leaktally_mqtt_outbox_messages").unwrap();
     assert!(waiting >= 20.0, "{waiting} messages wait after 30 s");
     assert_eq!(metric(&web, "leaktally_mqtt_connected"), Some(0.0));
+    let age = metric(&web, "leaktally_mqtt_outbox_oldest_age_seconds").unwrap();
+    assert!((25.0..60.0).contains(&age), "the oldest waits for {age} s");
     assert!(outbox_depth(&plant) >= 20);
     let page = http(&web, "GET", "/").unwrap().body;
     assert!(
-        page.contains(&format!("The broker {} cannot be reached", broker.address()))
-            && page.contains("messages wait to be sent, kept in the database and sent in order when the broker is back"),
+        page.contains(&format!(
+            "The broker {} cannot be reached",
+            broker.address()
+        )) && page.contains(
+            "wait to be sent, kept in the database and sent in order when the broker is back"
+        ),
         "the page does not say the broker is out of reach"
     );
 
@@ -356,7 +378,7 @@ fn tls_and_a_password_carry_the_messages_and_a_client_without_credentials_is_ref
         Duration::from_secs(20),
         |m| {
             m.iter()
-                .any(|m| m.topic == format!("{site}/state") && m.payload == "online")
+                .any(|m| m.topic == format!("{site}/state") && state_of(&m.payload) == "online")
                 && !keys_on(m, &status).is_empty()
         },
     );
@@ -395,7 +417,7 @@ fn a_broker_that_wants_a_client_certificate_takes_the_agents() {
     let mut sub = broker.subscribe(&format!("{site}/state"));
     let _daemon = plant.daemon("daemon");
     sub.wait_for("online", Duration::from_secs(20), |m| {
-        m.iter().any(|m| m.payload == "online")
+        m.iter().any(|m| state_of(&m.payload) == "online")
     });
     assert_eq!(metric(&web, "leaktally_mqtt_connected"), Some(1.0));
     // Without one, a client trusting the CA is refused all the same.

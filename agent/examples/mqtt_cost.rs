@@ -220,6 +220,7 @@ async fn publish_run(db: &Path, port: u16, doc: &str, messages: usize) -> anyhow
     let mqtt = Mqtt {
         host: "127.0.0.1".into(),
         port,
+        tls: false,
         ca_file: None,
         client_cert_file: None,
         client_key_file: None,
@@ -261,7 +262,7 @@ async fn publish_run(db: &Path, port: u16, doc: &str, messages: usize) -> anyhow
             received += 1;
         }
     }
-    while store.read(|r| r.outbox_depth()).await? > 0 {
+    while store.read(|r| r.outbox_depth()).await?.0 > 0 {
         tokio::time::sleep(Duration::from_millis(5)).await;
     }
     let took = began.elapsed().as_secs_f64();

@@ -3,10 +3,11 @@
 //!
 //! The password is never in the config: `password_file` names a file that
 //! holds it (readable by the daemon's user only), read when the daemon
-//! starts. TLS is on when `ca_file` is given: the broker's certificate must
-//! chain to that CA (a corporate broker has a CA of its own; the system's
-//! roots are not trusted for it). A client certificate and key may be given
-//! too, for brokers that authenticate clients by certificate.
+//! starts. TLS is on with `tls = true`, or when `ca_file` is given: the
+//! broker's certificate must then chain to that CA (a corporate broker has
+//! a CA of its own), or to the system's roots without it. A client
+//! certificate and key may be given too, for brokers that authenticate
+//! clients by certificate.
 //!
 //! Left out: the topics (`crate::publish::topics`), connecting, and the
 //! outbox's storage (`crate::store::outbox`).
@@ -21,7 +22,10 @@ pub struct Mqtt {
     /// TLS and 8883 with it when `broker` gives none).
     pub host: String,
     pub port: u16,
-    /// Trust anchors for the broker's certificate; TLS is on when given.
+    /// TLS (`[mqtt] tls`, on by default when `ca_file` is given).
+    pub tls: bool,
+    /// Trust anchors for the broker's certificate; the system's when TLS
+    /// is on without it.
     pub ca_file: Option<PathBuf>,
     /// A client certificate and its private key (PEM), both or neither.
     pub client_cert_file: Option<PathBuf>,
@@ -37,8 +41,8 @@ pub struct Mqtt {
     /// case with every run of other characters than letters and digits
     /// made one `-`.
     pub site_id: String,
-    /// 0 or 1 (the default); QoS 2 buys nothing here (every message carries
-    /// its own key for deduplication) and costs two more packets.
+    /// 0, 1 (the default) or 2. QoS 1 suffices: every message carries its
+    /// own key for deduplication; 2 costs two more packets a message.
     pub qos: u8,
     /// Thinned tank readings: at most one per tank per this interval;
     /// none when absent.
@@ -63,7 +67,7 @@ pub const DEFAULT_KEEP_ALIVE: Duration = Duration::from_secs(10);
 impl Mqtt {
     /// Whether the connection is TLS.
     pub fn tls(&self) -> bool {
-        self.ca_file.is_some()
+        self.tls
     }
 }
 
@@ -85,9 +89,11 @@ pub fn slug(name: &str) -> String {
 }
 
 /// Whether `level` can be one topic level: not empty, no `/`, `+`, `#` or
-/// control characters (MQTT 3.1.1, 4.7: the separator and the wildcards).
+/// control characters (OASIS MQTT 3.1.1, 4.7: the separator and the
+/// wildcards), and not starting with `$` (4.7.2: the brokers' own topics).
 pub fn is_topic_level(level: &str) -> bool {
     !level.is_empty()
+        && !level.starts_with('$')
         && !level
             .chars()
             .any(|c| matches!(c, '/' | '+' | '#') || c.is_control())
@@ -106,5 +112,6 @@ mod tests {
         assert_eq!(slug("  Tanklager Süd  "), "tanklager-süd");
         assert!(is_topic_level(&slug("a/b+c#d")));
         assert!(!is_topic_level("a/b") && !is_topic_level("") && !is_topic_level("#"));
+        assert!(!is_topic_level("$SYS") && is_topic_level("a$"));
     }
 }

@@ -28,11 +28,15 @@ pub struct RawConfig {
 pub struct RawMqtt {
     /// host:port of the broker.
     pub broker: Spanned<String>,
+    /// TLS; on by default when `ca_file` is given.
+    pub tls: Option<Spanned<bool>>,
     pub ca_file: Option<Spanned<String>>,
     pub client_cert_file: Option<Spanned<String>>,
     pub client_key_file: Option<Spanned<String>>,
     pub username: Option<Spanned<String>>,
     pub password_file: Option<Spanned<String>>,
+    /// Never taken: read only to say where the password goes instead.
+    pub password: Option<Spanned<toml::Value>>,
     pub client_id: Option<Spanned<String>>,
     pub topic_prefix: Option<Spanned<String>>,
     pub site_id: Option<Spanned<String>>,

@@ -17,10 +17,10 @@ use std::sync::Arc;
 
 /// The QoS of `[mqtt] qos`.
 pub fn qos(m: &Mqtt) -> QoS {
-    if m.qos == 0 {
-        QoS::AtMostOnce
-    } else {
-        QoS::AtLeastOnce
+    match m.qos {
+        0 => QoS::AtMostOnce,
+        2 => QoS::ExactlyOnce,
+        _ => QoS::AtLeastOnce,
     }
 }
 
@@ -36,7 +36,7 @@ pub fn options(m: &Mqtt) -> anyhow::Result<MqttOptions> {
     options.set_max_packet_size(1 << 20, 1 << 20);
     options.set_last_will(LastWill::new(
         topics::state(m),
-        topics::OFFLINE,
+        topics::state_payload(m, false, crate::store::now_ms()),
         qos(m),
         true,
     ));
@@ -70,21 +70,34 @@ fn password(file: &std::path::Path) -> anyhow::Result<String> {
     Ok(text.lines().next().unwrap_or("").to_owned())
 }
 
-/// TLS with `ca_file`'s certificates as the only trust anchors, and the
-/// client certificate when one is configured; ring as the provider.
+/// TLS with `ca_file`'s certificates as the only trust anchors (the
+/// system's without it), and the client certificate when one is
+/// configured; ring as the provider.
 fn tls(m: &Mqtt) -> anyhow::Result<rustls::ClientConfig> {
-    let ca = m.ca_file.as_ref().context("TLS needs ca_file")?;
     let mut roots = rustls::RootCertStore::empty();
-    let certs = CertificateDer::pem_file_iter(ca)
-        .with_context(|| format!("cannot read the MQTT CA file {}", ca.display()))?;
-    for cert in certs {
-        let cert = cert.with_context(|| format!("the MQTT CA file {}", ca.display()))?;
-        roots
-            .add(cert)
-            .with_context(|| format!("a certificate in the MQTT CA file {}", ca.display()))?;
-    }
-    if roots.is_empty() {
-        anyhow::bail!("the MQTT CA file {} holds no certificate", ca.display());
+    match &m.ca_file {
+        Some(ca) => {
+            let certs = CertificateDer::pem_file_iter(ca)
+                .with_context(|| format!("cannot read the MQTT CA file {}", ca.display()))?;
+            for cert in certs {
+                let cert = cert.with_context(|| format!("the MQTT CA file {}", ca.display()))?;
+                roots.add(cert).with_context(|| {
+                    format!("a certificate in the MQTT CA file {}", ca.display())
+                })?;
+            }
+            if roots.is_empty() {
+                anyhow::bail!("the MQTT CA file {} holds no certificate", ca.display());
+            }
+        }
+        None => {
+            let found = rustls_native_certs::load_native_certs();
+            roots.add_parsable_certificates(found.certs);
+            if roots.is_empty() {
+                anyhow::bail!(
+                    "[mqtt] tls = true without ca_file, and this system has no CA certificates (apt-get install ca-certificates, or give ca_file)"
+                );
+            }
+        }
     }
     // ring, not rustls's default aws-lc-rs (which needs cmake and a C
     // toolchain to build); ring's key exchange is the classical kind

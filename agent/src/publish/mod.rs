@@ -4,8 +4,8 @@
 //! The tracker puts every message in the outbox (`store::outbox`) in the
 //! same unit of work as what it reports; this task only reads the outbox,
 //! oldest first, publishes each message under its topic (`topics`), and
-//! deletes it once the broker's PUBACK for it has come (at QoS 0, once it
-//! is written to the socket). While the broker is out of reach nothing is
+//! deletes it once the broker's PUBACK for it has come (PUBCOMP at QoS 2;
+//! at QoS 0, once it is written to the socket). While the broker is out of reach nothing is
 //! deleted, and at every new connection the outbox is sent again from its
 //! oldest message: what waits goes out in the order it was made, so a
 //! retained document is never replaced by an older one. A message sent
@@ -13,10 +13,10 @@
 //! each carries its event, revision and sample time to dedupe by (QoS 1
 //! is "at least once").
 //!
-//! On connecting the agent publishes `online` (retained) to its state
-//! topic; the last will publishes `offline` there when the connection is
-//! lost without a goodbye (a killed daemon, a cut network), and a daemon
-//! that stops says `offline` itself.
+//! On connecting the agent publishes its state message, `online`
+//! (retained), to its state topic; the last will publishes `offline` there
+//! when the connection is lost without a goodbye (a killed daemon, a cut
+//! network), and a daemon that stops says `offline` itself.
 //!
 //! The connection: rumqttc's event loop runs in a task of its own and
 //! hands its events over a channel (its `poll` is not to be cancelled
@@ -185,7 +185,12 @@ impl Publisher {
         let qos = connect::qos(&self.mqtt);
         let mut flight = Flight::default();
         if client
-            .try_publish(topics::state(&self.mqtt), qos, true, topics::ONLINE)
+            .try_publish(
+                topics::state(&self.mqtt),
+                qos,
+                true,
+                topics::state_payload(&self.mqtt, true, crate::store::now_ms()),
+            )
             .is_err()
         {
             return Ended::Lost("the client's request queue refused a message".into());
@@ -263,7 +268,12 @@ impl Publisher {
         qos: QoS,
     ) {
         if client
-            .try_publish(topics::state(&self.mqtt), qos, true, topics::OFFLINE)
+            .try_publish(
+                topics::state(&self.mqtt),
+                qos,
+                true,
+                topics::state_payload(&self.mqtt, false, crate::store::now_ms()),
+            )
             .is_ok()
         {
             flight.sent.push_back(Slot::new(None));
@@ -296,7 +306,7 @@ impl Publisher {
         let seqs = std::mem::take(acked);
         let n = seqs.len() as u64;
         // Lax: a deletion lost to a power cut only sends a message again.
-        let depth = self
+        let (depth, oldest) = self
             .store
             .write_lax(Lane::Background, move |tx| {
                 tx.outbox_delete(&seqs)?;
@@ -304,13 +314,13 @@ impl Publisher {
             })
             .await?;
         self.state.add_sent(n, crate::store::now_ms());
-        self.state.set_depth(depth);
+        self.state.set_depth(depth, oldest);
         Ok(())
     }
 
     async fn refresh_depth(&self) {
-        if let Ok(depth) = self.store.read(|r| r.outbox_depth()).await {
-            self.state.set_depth(depth);
+        if let Ok((depth, oldest)) = self.store.read(|r| r.outbox_depth()).await {
+            self.state.set_depth(depth, oldest);
         }
     }
 }
@@ -354,11 +364,13 @@ impl Flight {
                     }
                 }
             }
-            Event::Incoming(Packet::PubAck(ack)) => {
+            // QoS 1's PUBACK, or QoS 2's PUBCOMP (the end of its exchange).
+            Event::Incoming(Packet::PubAck(rumqttc::PubAck { pkid }))
+            | Event::Incoming(Packet::PubComp(rumqttc::PubComp { pkid })) => {
                 if let Some(slot) = self
                     .sent
                     .iter_mut()
-                    .find(|s| s.pkid == Some(ack.pkid) && !s.acked)
+                    .find(|s| s.pkid == Some(*pkid) && !s.acked)
                 {
                     slot.acked = true;
                 }

@@ -2,7 +2,7 @@
 //!
 //! | topic | retained | payload |
 //! | --- | --- | --- |
-//! | `PREFIX/SITE/state` | yes | `online`, or `offline` (also the last will) |
+//! | `PREFIX/SITE/state` | yes | the state message: `{"format":1,"site":SITE,"state":"online"\|"offline","at":..,"at_ms":..}` (`offline` also as the last will, stamped with the connection's time) |
 //! | `PREFIX/SITE/events/ID/status` | yes | the event's status document after each estimate |
 //! | `PREFIX/SITE/events/ID/summary` | yes | the event's status document when it closed |
 //! | `PREFIX/SITE/tanks/TANK/reading` | no | a tank's reading, as a `leaktally poll` line (only with `readings_every_s`) |
@@ -28,8 +28,24 @@ pub fn state(m: &Mqtt) -> String {
     format!("{}/{}/state", m.topic_prefix, m.site_id)
 }
 
-pub const ONLINE: &str = "online";
-pub const OFFLINE: &str = "offline";
+/// The state message's layout version.
+pub const STATE_FORMAT: u32 = 1;
+
+/// The state message: the site, `online` or `offline`, and since when
+/// (RFC 3339 UTC and ms). A central view orders a site's state messages
+/// by it. The last will is the `offline` one stamped with the time of the
+/// connection it stands for (OASIS MQTT 3.1.1, 3.1.2.5: the broker sends
+/// it as it was given at connect time).
+pub fn state_payload(m: &Mqtt, online: bool, at_ms: i64) -> String {
+    serde_json::json!({
+        "format": STATE_FORMAT,
+        "site": m.site_id,
+        "state": if online { "online" } else { "offline" },
+        "at": crate::report::rfc3339(at_ms),
+        "at_ms": at_ms,
+    })
+    .to_string()
+}
 
 /// An event's topic for a status document or a summary.
 pub fn event(m: &Mqtt, event: i64, kind: Kind) -> String {
@@ -94,6 +110,13 @@ mod tests {
         assert_eq!(m.site_id, crate::config::mqtt::slug(&config.site_name));
         let site = format!("corp/leaktally/{}", m.site_id);
         assert_eq!(state(&m), format!("{site}/state"));
+        let said: serde_json::Value =
+            serde_json::from_str(&state_payload(&m, false, 1_796_119_200_000)).unwrap();
+        assert_eq!(
+            said,
+            serde_json::json!({"format": 1, "site": m.site_id, "state": "offline",
+                "at": "2026-12-01T10:00:00.000Z", "at_ms": 1_796_119_200_000i64})
+        );
         let message = |kind, event, tank: Option<&str>| Message {
             kind,
             event,

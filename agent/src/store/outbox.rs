@@ -18,7 +18,7 @@
 //! Left out: topics, payloads' contents and the broker (the publisher's).
 
 use super::StoreResult;
-use rusqlite::{Connection, params};
+use rusqlite::{Connection, OptionalExtension, params};
 use std::sync::atomic::{AtomicBool, AtomicI64, AtomicU64, Ordering};
 
 /// What a message is, for its topic and for the bound.
@@ -123,6 +123,14 @@ pub fn depth(conn: &Connection) -> StoreResult<u64> {
     Ok(n as u64)
 }
 
+/// The sample time of the oldest message waiting, if any.
+pub fn oldest_ms(conn: &Connection) -> StoreResult<Option<i64>> {
+    Ok(conn
+        .prepare_cached("SELECT at_ms FROM outbox ORDER BY seq LIMIT 1")?
+        .query_row([], |r| r.get(0))
+        .optional()?)
+}
+
 /// Up to `n` messages after `after` (a sequence number; 0 for the first),
 /// oldest first.
 pub fn next(conn: &Connection, after: i64, n: usize) -> StoreResult<Vec<Queued>> {
@@ -181,6 +189,8 @@ pub struct OutboxState {
     connected: AtomicBool,
     /// Messages waiting in the database.
     depth: AtomicU64,
+    /// The sample time of the oldest of them, ms (0: none).
+    oldest_ms: AtomicI64,
     /// Messages given up to the bound since the daemon started.
     dropped: AtomicU64,
     /// Messages the broker acknowledged since the daemon started.
@@ -198,6 +208,8 @@ pub struct OutboxSnapshot {
     pub configured: bool,
     pub connected: bool,
     pub depth: u64,
+    /// The sample time of the oldest message waiting.
+    pub oldest_ms: Option<i64>,
     pub dropped: u64,
     pub sent: u64,
     pub last_sent_ms: Option<i64>,
@@ -216,8 +228,11 @@ impl OutboxState {
         self.connected.store(connected, Ordering::Relaxed);
     }
 
-    pub fn set_depth(&self, depth: u64) {
+    /// How many messages wait, and the sample time of the oldest.
+    pub fn set_depth(&self, depth: u64, oldest_ms: Option<i64>) {
         self.depth.store(depth, Ordering::Relaxed);
+        self.oldest_ms
+            .store(oldest_ms.unwrap_or(0), Ordering::Relaxed);
     }
 
     pub fn add_dropped(&self, n: u64) {
@@ -240,6 +255,7 @@ impl OutboxState {
             configured: self.configured.load(Ordering::Relaxed),
             connected: self.connected.load(Ordering::Relaxed),
             depth: self.depth.load(Ordering::Relaxed),
+            oldest_ms: at(&self.oldest_ms),
             dropped: self.dropped.load(Ordering::Relaxed),
             sent: self.sent.load(Ordering::Relaxed),
             last_sent_ms: at(&self.last_sent_ms),

@@ -92,9 +92,10 @@ impl<'c> Reader<'c> {
         outbox::next(self.conn, after, n)
     }
 
-    /// How many messages wait in the outbox.
-    pub fn outbox_depth(&self) -> StoreResult<u64> {
-        outbox::depth(self.conn)
+    /// How many messages wait in the outbox, and the sample time of the
+    /// oldest.
+    pub fn outbox_depth(&self) -> StoreResult<(u64, Option<i64>)> {
+        Ok((outbox::depth(self.conn)?, outbox::oldest_ms(self.conn)?))
     }
 
     /// Whether any operator request waits.

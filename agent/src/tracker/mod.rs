@@ -407,7 +407,7 @@ impl Tracker {
             }
         }
         if let Some(out) = &mut self.outgoing {
-            write.outbox.extend(out.readings(&batch));
+            write.outbox.extend(out.readings(&batch, &self.config));
             write.outbox_limit = out.limit;
         }
         write.samples = batch;

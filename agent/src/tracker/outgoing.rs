@@ -11,6 +11,7 @@
 //! Left out: topics and the broker (`crate::publish`); the tracker knows
 //! nothing of MQTT.
 
+use crate::acquire::line::Line;
 use crate::acquire::sample::TankSample;
 use crate::config::Config;
 use crate::estimate::Estimate;
@@ -90,8 +91,8 @@ impl Outgoing {
 
     /// The readings of a poll cycle due for publishing: each tank's first,
     /// then one per `readings_every_s`. A reading is the line `leaktally
-    /// poll` prints.
-    pub(super) fn readings(&mut self, batch: &[TankSample]) -> Vec<Message> {
+    /// poll` prints (its format 2).
+    pub(super) fn readings(&mut self, batch: &[TankSample], config: &Config) -> Vec<Message> {
         let Some(every) = self.readings_every_ms else {
             return Vec::new();
         };
@@ -107,7 +108,7 @@ impl Outgoing {
                 event: None,
                 tank: Some(sample.tank_id.to_string()),
                 at_ms: sample.at_ms,
-                payload: serde_json::to_string(sample).unwrap_or_default(),
+                payload: serde_json::to_string(&Line::of(sample, config)).unwrap_or_default(),
             });
         }
         out

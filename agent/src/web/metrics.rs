@@ -135,6 +135,18 @@ pub fn render(inputs: &Inputs<'_>) -> String {
         .value(&[], outbox.depth as f64);
         family(
             &mut out,
+            "leaktally_mqtt_outbox_oldest_age_seconds",
+            "gauge",
+            "How old the sample of the oldest message waiting for the MQTT broker is, seconds; 0 when none waits.",
+        )
+        .value(
+            &[],
+            outbox
+                .oldest_ms
+                .map_or(0.0, |at| seconds(inputs.doc.generated_at_ms - at).max(0.0)),
+        );
+        family(
+            &mut out,
             "leaktally_mqtt_sent_total",
             "counter",
             "Messages the MQTT broker acknowledged, since the daemon started.",

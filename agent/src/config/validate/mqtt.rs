@@ -20,7 +20,23 @@ impl Checker {
         let file = |f: &Option<toml::Spanned<String>>| -> Option<PathBuf> {
             f.as_ref().map(|f| folder.join(f.get_ref()))
         };
-        let tls = m.ca_file.is_some();
+        let tls = match &m.tls {
+            Some(t) if !*t.get_ref() && m.ca_file.is_some() => {
+                self.problem(
+                    t.span(),
+                    "[mqtt] tls = false, but ca_file is given for TLS: remove ca_file, or set tls = true",
+                );
+                false
+            }
+            Some(t) => *t.get_ref(),
+            None => m.ca_file.is_some(),
+        };
+        if let Some(p) = &m.password {
+            self.problem(
+                p.span(),
+                "[mqtt] password: the password is never written in the config; put it in a file readable by the daemon's user only and give password_file = \"/etc/leaktally/mqtt-password\"",
+            );
+        }
         let (host, port) = self.broker(&m.broker, tls);
         if m.client_cert_file.is_some() != m.client_key_file.is_some() {
             let span = m
@@ -36,7 +52,7 @@ impl Checker {
         if m.client_cert_file.is_some() && !tls {
             self.problem(
                 m.client_cert_file.as_ref().map_or(0..0, |f| f.span()),
-                "[mqtt] client_cert_file needs TLS: give ca_file too (the CA the broker's certificate chains to)",
+                "[mqtt] client_cert_file needs TLS: set tls = true, or give ca_file (the CA the broker's certificate chains to)",
             );
         }
         if m.password_file.is_some() != m.username.is_some() {
@@ -56,7 +72,7 @@ impl Checker {
                 if !is_topic_level(id.get_ref()) {
                     self.problem(
                         id.span(),
-                        "[mqtt] site_id must be one topic level: not empty, without '/', '+', '#' or control characters",
+                        "[mqtt] site_id must be one topic level: not empty, without '/', '+', '#' or control characters, and not starting with '$'",
                     );
                 }
                 id.get_ref().clone()
@@ -103,10 +119,10 @@ impl Checker {
             None => format!("leaktally-{site_id}"),
         };
         let qos = match &m.qos {
-            Some(q) if *q.get_ref() > 1 => {
+            Some(q) if *q.get_ref() > 2 => {
                 self.problem(
                     q.span(),
-                    "[mqtt] qos must be 1 (at least once, the default) or 0 (at most once); QoS 2 adds nothing here, since every message carries its event, revision and sample time for deduplication",
+                    "[mqtt] qos must be 0 (at most once), 1 (at least once, the default) or 2 (exactly once)",
                 );
                 1
             }
@@ -149,6 +165,7 @@ impl Checker {
         Mqtt {
             host,
             port,
+            tls,
             ca_file: file(&m.ca_file),
             client_cert_file: file(&m.client_cert_file),
             client_key_file: file(&m.client_key_file),
@@ -231,6 +248,11 @@ mod tests {
         assert_eq!(m.password_file.unwrap(), Path::new("/etc/leaktally/pw"));
         assert_eq!(m.readings_every, Some(Duration::from_secs(60)));
         assert_eq!(m.client_id, "leaktally-depot-7");
+        let m = with("broker = \"b\"\ntls = true\nqos = 2\n")
+            .unwrap()
+            .mqtt
+            .unwrap();
+        assert_eq!((m.port, m.tls(), m.ca_file, m.qos), (8883, true, None, 2));
     }
 
     #[test]
@@ -239,7 +261,11 @@ mod tests {
             ("broker = \"mqtt://b:1883\"\n", "is not a host and port"),
             (
                 "broker = \"b\"\npassword = \"x\"\n",
-                "unknown field `password`",
+                "the password is never written in the config",
+            ),
+            (
+                "broker = \"b\"\ntls = false\nca_file = \"c\"\n",
+                "tls = false, but ca_file is given",
             ),
             (
                 "broker = \"b\"\nusername = \"u\"\n",
@@ -265,7 +291,11 @@ mod tests {
                 "broker = \"b\"\ntopic_prefix = \"a/#\"\n",
                 "topic_prefix must be topic levels",
             ),
-            ("broker = \"b\"\nqos = 2\n", "qos must be 1"),
+            ("broker = \"b\"\nqos = 3\n", "qos must be 0"),
+            (
+                "broker = \"b\"\nsite_id = \"$SYS\"\n",
+                "not starting with '$'",
+            ),
             (
                 "broker = \"b\"\nreadings_every_s = 0\n",
                 "readings_every_s must be between",

@@ -70,10 +70,14 @@ fn daemon_state(doc: &StatusDocument, store: &HealthSnapshot) -> Html {
 /// The MQTT broker: whether the agent reaches it, and what waits to be
 /// sent; said plainly, an alarm only while the broker cannot be reached.
 pub(super) fn outbox(broker: &str, outbox: &OutboxSnapshot, people: &Presentation) -> Html {
+    let since = outbox
+        .oldest_ms
+        .map(|ms| format!(" (the oldest from {})", people.time(ms)))
+        .unwrap_or_default();
     let waiting = match outbox.depth {
         0 => "nothing waits to be sent".to_owned(),
-        1 => "1 message waits to be sent".to_owned(),
-        n => format!("{n} messages wait to be sent"),
+        1 => format!("1 message{since} waits to be sent"),
+        n => format!("{n} messages{since} wait to be sent"),
     };
     let mut text = if outbox.connected {
         format!("Events are sent to the broker {broker}: connected, {waiting}.")
