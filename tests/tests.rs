@@ -28,6 +28,8 @@
 //!   unit on a shared line.
 //! * `tracking`: the simulator, the daemon and the operator CLI as real
 //!   processes, against the simulator's ground truth.
+//! * `vapour`: a hole above the liquid of a blanketed tank: the agent's
+//!   gas total, phase and time to ambient against the simulator's truth.
 //! * `web`: the daemon's responder page in headless chromium against
 //!   `status --json`, and its metrics through prometheus-client.
 //! * `whatif`: `leaktally whatif` as a user runs it, the headspace read
@@ -51,5 +53,6 @@ mod replay;
 mod serial;
 mod tracking;
 mod util;
+mod vapour;
 mod web;
 mod whatif;

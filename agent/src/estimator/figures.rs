@@ -56,7 +56,7 @@ impl Estimator {
         &mut self,
         r: &Reading,
         unit: Outflow,
-        fraction: f64,
+        rates: UnitRates,
         inventory: f64,
         gap_from: Option<i64>,
     ) -> Figures {
@@ -74,7 +74,7 @@ impl Estimator {
             cd_low: self.cd_band.0,
             cd_high: self.cd_band.1,
             inventory_kg: u,
-            rate_fraction: fraction,
+            rate_fraction: rates.fraction(),
             bridge_kg: self.bridge_uncertainty_kg,
             // The causes one by one are written when the whole estimate is
             // asked for.
@@ -95,8 +95,7 @@ impl Estimator {
             fit,
             inventory,
             u,
-            unit.rate.si(),
-            fraction,
+            rates,
             &mut band,
         );
         let (model, method) = (view.model, view.method);
@@ -237,8 +236,7 @@ impl Estimator {
         fit: Option<(f64, f64)>,
         inventory: f64,
         u: f64,
-        unit_rate: f64,
-        fraction: f64,
+        rates: UnitRates,
         band: &mut BandCauses,
     ) -> View {
         let pu = &self.per_unit;
@@ -256,9 +254,9 @@ impl Estimator {
                     reason: Reason::GivenHole,
                     released: model,
                     rate: (
-                        cd_low * area * unit_rate * (1.0 - fraction).max(0.0),
-                        cd * area * unit_rate,
-                        cd_high * area * unit_rate * (1.0 + fraction),
+                        cd_low * area * rates.low,
+                        cd * area * rates.best,
+                        cd_high * area * rates.high,
                     ),
                     model: Some(model.1),
                 }
@@ -275,9 +273,9 @@ impl Estimator {
                     reason: Reason::FittedHole,
                     released: ((total - half).max(0.0), total, total + half),
                     rate: (
-                        k_low * unit_rate * (1.0 - fraction).max(0.0),
-                        k * unit_rate,
-                        k_high * unit_rate * (1.0 + fraction),
+                        k_low * rates.low,
+                        k * rates.best,
+                        k_high * rates.high,
                     ),
                     model: Some(total),
                 }

@@ -80,14 +80,10 @@ impl Estimator {
                 transfer: first.transfer,
                 held: Held::default(),
             };
-            let unit = self.unit_outflow(&reading);
-            let fraction = self.rate_fraction(&reading, &unit);
-            self.per_unit.push(
-                self.start_ms,
-                unit.rate.si(),
-                unit.phase == Phase::Liquid,
-                fraction,
-            );
+            let mut unit = self.unit_outflow(&reading);
+            let rates = self.unit_rates(&reading, &mut unit);
+            self.per_unit
+                .push(self.start_ms, rates, unit.phase == Phase::Liquid);
             let flow = density * first.transfer;
             let _ = self.transferred.push(self.start_ms, flow);
             let _ = self.transferred_magnitude.push(self.start_ms, flow.abs());
