@@ -59,11 +59,7 @@ fn a_hole_above_the_liquid_vents_the_blanket_as_the_truth_does() {
     let _daemon = plant.daemon("daemon");
     plant.wait_until(4.0);
     let since = plant.leak_start("FF-T14");
-    let reply = plant.open_leak(
-        LeakOpen::tank("FF-T14")
-            .hole(50.0, 2.3, 0.61)
-            .since(&since),
-    );
+    let reply = plant.open_leak(LeakOpen::tank("FF-T14").hole(50.0, 2.3, 0.61).since(&since));
     let id = event_id(&reply);
 
     // Early in the blowdown: the phase, the total so far, and the forecast.
@@ -100,11 +96,17 @@ fn a_hole_above_the_liquid_vents_the_blanket_as_the_truth_does() {
     // The same tolerance as a known hole's liquid total (tests/tracking.rs).
     assert!(true_now.2 > 1.0, "the blanket vented: {true_now:?}");
     assert!(rel(best, true_now.2) < 0.02, "{best} vs {}", true_now.2);
-    assert!(low <= true_now.2 && true_now.2 <= high, "band {low}..{high}");
+    assert!(
+        low <= true_now.2 && true_now.2 <= high,
+        "band {low}..{high}"
+    );
 
     // When the truth's headspace reached ambient: the first row from which
     // the gas no longer flows.
-    let first = truth.iter().position(|row| row.3 > 0.0).expect("gas flowed");
+    let first = truth
+        .iter()
+        .position(|row| row.3 > 0.0)
+        .expect("gas flowed");
     let stopped = truth[first..]
         .iter()
         .find(|row| row.3 <= 0.0 || row.1 <= 0.0)
@@ -117,7 +119,10 @@ fn a_hole_above_the_liquid_vents_the_blanket_as_the_truth_does() {
     println!(
         "headspace at ambient: forecast {predicted_s:.1} s after {made_at}, truth {true_s:.1} s; total by then: forecast {total_at_end:.3} kg, truth {final_mass:.3} kg"
     );
-    assert!(rel(total_at_end, final_mass) < 0.02, "{total_at_end} vs {final_mass}");
+    assert!(
+        rel(total_at_end, final_mass) < 0.02,
+        "{total_at_end} vs {final_mass}"
+    );
     assert!(
         (predicted_s - true_s).abs() < 0.05 * true_s.max(10.0),
         "forecast {predicted_s} s vs truth {true_s} s"

@@ -90,14 +90,7 @@ impl Estimator {
         let cap = self.liquid_cap(inventory, u, &mut warnings);
         let shares = self.shares();
         let area_given = self.area_given;
-        let view = self.view(
-            area_given,
-            fit,
-            inventory,
-            u,
-            rates,
-            &mut band,
-        );
+        let view = self.view(area_given, fit, inventory, u, rates, &mut band);
         let (model, method) = (view.model, view.method);
         // Whether the level can speak for the figure at all: not when all
         // of it is vapour. With no hole to go on, a level that has not
@@ -117,6 +110,11 @@ impl Estimator {
             }
         }
         let (low, best, high) = released;
+        if self.start_bridged && self.per_unit.all() > 0.0 {
+            // The lead-in's share of the model, at the figure shown.
+            let share = self.start_bridge_per_unit / self.per_unit.all();
+            self.quality.bridged_kg = self.bridged_kg + share * best.max(0.0);
+        }
         let (low, best, high) = self.ratchet(
             (low.max(0.0), best, high),
             u,
@@ -272,11 +270,7 @@ impl Estimator {
                     method: Method::FittedHole,
                     reason: Reason::FittedHole,
                     released: ((total - half).max(0.0), total, total + half),
-                    rate: (
-                        k_low * rates.low,
-                        k * rates.best,
-                        k_high * rates.high,
-                    ),
+                    rate: (k_low * rates.low, k * rates.best, k_high * rates.high),
                     model: Some(total),
                 }
             }

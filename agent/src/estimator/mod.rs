@@ -168,17 +168,20 @@ impl PerUnitArea {
         self.last = Some((at_ms, rates));
     }
 
-    /// Adds an amount integrated elsewhere: a bridge (which the level on
-    /// the far side sees, so the fit counts it) or a lead-in before the
-    /// first level (which the inventory cannot see, so the fit leaves it
-    /// out).
-    fn add(&mut self, amount: f64, seen_by_level: bool) {
-        self.totals[Self::ALL] += amount;
-        if seen_by_level {
-            self.totals[Self::LIQUID] += amount;
+    /// Adds a gap's bridge, integrated elsewhere: the level on the far
+    /// side sees it, so the fit counts it.
+    fn add_bridge(&mut self, amount: f64) {
+        for total in &mut self.totals {
+            *total += amount;
         }
-        self.totals[Self::LOW] += amount;
-        self.totals[Self::HIGH] += amount;
+    }
+
+    /// Adds a lead-in before the first level, at one sample's rates for
+    /// `seconds`: which the inventory cannot see, so the fit leaves it out.
+    fn add_lead_in(&mut self, rate: UnitRates, seconds: f64) {
+        self.totals[Self::ALL] += rate.best * seconds;
+        self.totals[Self::LOW] += rate.low * seconds;
+        self.totals[Self::HIGH] += rate.high * seconds;
     }
 
     /// Forgets the last point, so the next starts a new piece (a gap
@@ -261,8 +264,10 @@ pub struct Estimator {
     before_start: Option<BeforeStart>,
     start: Option<Start>,
     /// Whether the start was bridged at the first sample's rate (a lead-in
-    /// longer than the gap limit).
+    /// longer than the gap limit), and that lead-in per unit Cd·A: it
+    /// counts among the bridged mass like any gap.
     start_bridged: bool,
+    start_bridge_per_unit: f64,
     /// The lead-in before the first level, per unit Cd·A: counted by the
     /// model, invisible to the inventory balance, so the level bound allows
     /// for it.
@@ -388,6 +393,7 @@ impl Estimator {
             before_start: None,
             start: None,
             start_bridged: false,
+            start_bridge_per_unit: 0.0,
             lead_in_per_unit: 0.0,
             fit: LineFit::default(),
             level_noise_meter: band::NoiseMeter::default(),

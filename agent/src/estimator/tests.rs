@@ -672,6 +672,20 @@ fn a_lead_in_before_the_first_level_is_counted_once() {
         }
     }
     assert!(estimates.last().unwrap().reason == Reason::GivenHole);
+    // The lead-in is bridged and counted as such: all of the first
+    // figure, and the analytic release of the first 14 s at the end.
+    assert!(first.warnings.contains(Warning::BridgedGapsDominate));
+    assert!(
+        (first.quality.bridged_kg - first.released_best_kg).abs()
+            < 1e-9 * first.released_best_kg.max(1.0)
+    );
+    let last = estimates.last().unwrap();
+    let lead_truth = torricelli_released(14.0);
+    assert!(
+        (last.quality.bridged_kg - lead_truth).abs() / lead_truth < 0.02,
+        "{} vs {lead_truth}",
+        last.quality.bridged_kg
+    );
 }
 
 #[test]
@@ -770,6 +784,34 @@ fn a_given_hole_the_level_contradicts_is_flagged_and_held_to_the_level() {
             .warnings
             .contains(Warning::HoleInconsistent)
     );
+}
+
+/// Before the level has fallen beyond its uncertainty, the rate may be
+/// the level's slope: the reason says which, never "no flow" beside a
+/// flow.
+#[test]
+fn the_reason_before_a_loss_is_seen_agrees_with_the_rate() {
+    let estimates = run(params(None), 60, 0.001, |_| false);
+    let before: Vec<_> = estimates
+        .iter()
+        .filter(|e| e.reason == Reason::NoLossSeen)
+        .collect();
+    assert!(
+        before.iter().any(|e| e.rate_best_kg_s > 0.0),
+        "the draining tank's slope shows before the loss is seen"
+    );
+    for e in before {
+        let text = crate::report::estimate::reason_text(
+            e,
+            &params(None),
+            &crate::report::Presentation::default(),
+        );
+        assert_eq!(
+            text.contains("no flow is shown"),
+            e.rate_best_kg_s == 0.0,
+            "{text}"
+        );
+    }
 }
 
 /// Issue 14: a measured Cd range narrows the model's band and the
