@@ -280,16 +280,20 @@ pub fn explain(broker: &Broker, e: &ConnectionError) -> String {
     let at = broker.address();
     match e {
         ConnectionError::ConnectionRefused(code) => match code {
-            ConnectReturnCode::BadUserNamePassword => format!(
-                "the broker at {at} refused the username and password; check --username ({}) and the password file ({})",
+            // Mosquitto 2 answers a wrong password with "not authorised";
+            // other brokers with "bad user name or password".
+            ConnectReturnCode::BadUserNamePassword | ConnectReturnCode::NotAuthorized => format!(
+                "the broker at {at} refused the credentials ({}): check --username ({}) and the password in --password-file ({}), and that the broker lets that user connect",
+                if *code == ConnectReturnCode::NotAuthorized {
+                    "not authorised"
+                } else {
+                    "bad user name or password"
+                },
                 broker.username.as_deref().unwrap_or("none given"),
                 broker
                     .password
                     .as_ref()
                     .map_or("none given".to_owned(), |(_, f)| f.display().to_string())
-            ),
-            ConnectReturnCode::NotAuthorized => format!(
-                "the broker at {at} refused this client: not authorised; give --username and --password-file of a user the broker accepts"
             ),
             ConnectReturnCode::BadClientId => format!(
                 "the broker at {at} refused the client id {:?}; choose another with --client-id",
