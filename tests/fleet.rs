@@ -51,6 +51,11 @@ impl Broker {
     /// Starts it on `port`, or says SKIPPED and returns `None` without
     /// mosquitto (a failure under LEAKTALLY_REQUIRE_MOSQUITTO=1).
     fn start(test: &str, scratch: &Scratch, port: u16) -> Option<Self> {
+        Self::start_with(test, scratch, port, "")
+    }
+
+    /// As [`Broker::start`], with more lines for the listener (TLS).
+    fn start_with(test: &str, scratch: &Scratch, port: u16, listener: &str) -> Option<Self> {
         let present = ["mosquitto_passwd", "mosquitto_pub"].iter().all(|tool| {
             Command::new("sh")
                 .args(["-c", &format!("command -v {tool}")])
@@ -89,7 +94,7 @@ impl Broker {
         let config = scratch.write(
             "mosquitto.conf",
             &format!(
-                "listener {port} 127.0.0.1\nallow_anonymous false\npassword_file {}\nacl_file {}\npersistence false\nlog_dest stderr\nuser root\n",
+                "listener {port} 127.0.0.1\n{listener}allow_anonymous false\npassword_file {}\nacl_file {}\npersistence false\nlog_dest stderr\nuser root\n",
                 passwords.display(),
                 acl.display()
             ),
@@ -400,5 +405,140 @@ fn a_view_refused_or_without_a_broker_says_why_and_keeps_trying() {
     assert!(wrong.child.try_wait().unwrap().is_none(), "the view exited");
     wrong.stop_cleanly();
 
+    view.stop_cleanly();
+}
+
+/// A CA, and a certificate it signed for 127.0.0.1, made with openssl;
+/// `None` (SKIPPED) without openssl. Returns the CA's file.
+fn certificates(test: &str, scratch: &Scratch, name: &str) -> Option<PathBuf> {
+    let openssl = |args: &[&str]| {
+        Command::new("openssl")
+            .args(args)
+            .current_dir(&scratch.0)
+            .stdout(Stdio::null())
+            .stderr(Stdio::null())
+            .status()
+            .is_ok_and(|s| s.success())
+    };
+    if !openssl(&["version"]) {
+        let why =
+            "openssl is missing, to make the test's certificates ('apt-get install -y openssl')";
+        assert!(
+            std::env::var("LEAKTALLY_REQUIRE_MOSQUITTO").as_deref() != Ok("1"),
+            "{test}: {why}, and LEAKTALLY_REQUIRE_MOSQUITTO=1"
+        );
+        skipped(test, why);
+        return None;
+    }
+    scratch.write("san.ext", "subjectAltName=IP:127.0.0.1,DNS:localhost\n");
+    let (ca_key, ca) = (format!("{name}-ca.key"), format!("{name}-ca.pem"));
+    let (key, csr, cert) = (
+        format!("{name}-server.key"),
+        format!("{name}-server.csr"),
+        format!("{name}-server.pem"),
+    );
+    for args in [
+        &[
+            "req",
+            "-x509",
+            "-newkey",
+            "rsa:2048",
+            "-nodes",
+            "-keyout",
+            &ca_key,
+            "-out",
+            &ca,
+            "-days",
+            "2",
+            "-subj",
+            "/CN=leaktally test CA",
+        ][..],
+        &[
+            "req",
+            "-newkey",
+            "rsa:2048",
+            "-nodes",
+            "-keyout",
+            &key,
+            "-out",
+            &csr,
+            "-subj",
+            "/CN=127.0.0.1",
+        ][..],
+        &[
+            "x509",
+            "-req",
+            "-in",
+            &csr,
+            "-CA",
+            &ca,
+            "-CAkey",
+            &ca_key,
+            "-CAcreateserial",
+            "-out",
+            &cert,
+            "-days",
+            "2",
+            "-extfile",
+            "san.ext",
+        ][..],
+    ] {
+        assert!(openssl(args), "openssl {args:?} failed");
+    }
+    Some(scratch.path(&ca))
+}
+
+#[test]
+fn tls_with_the_brokers_ca_connects_and_another_ca_is_said() {
+    let test = "fleet::tls_with_the_brokers_ca_connects_and_another_ca_is_said";
+    let scratch = Scratch::new("fleet-e2e-tls");
+    let Some(ca) = certificates(test, &scratch, "broker") else {
+        return;
+    };
+    let Some(other_ca) = certificates(test, &scratch, "other") else {
+        return;
+    };
+    let listener = format!(
+        "cafile {}\ncertfile {}\nkeyfile {}\n",
+        ca.display(),
+        scratch.path("broker-server.pem").display(),
+        scratch.path("broker-server.key").display()
+    );
+    let Some(broker) = Broker::start_with(test, &scratch, free_port(), &listener) else {
+        return;
+    };
+    let mqtt = format!("127.0.0.1:{}", broker.port);
+    let password = password_file(&scratch, "fleet-secret");
+    let args = |ca: &Path| {
+        vec![
+            "--mqtt".to_owned(),
+            mqtt.clone(),
+            "--tls-ca".to_owned(),
+            ca.display().to_string(),
+            "--username".to_owned(),
+            "fleet".to_owned(),
+            "--password-file".to_owned(),
+            password.clone(),
+        ]
+    };
+    let right = args(&ca);
+    let right: Vec<&str> = right.iter().map(String::as_str).collect();
+    let (mut view, address) = start_view(&scratch, "leaktally fleet (TLS)", &right);
+    fleet_when(&address, "the view connected over TLS", |d| {
+        d["broker"]["connected"] == true
+    });
+    view.stop_cleanly();
+
+    let wrong = args(&other_ca);
+    let wrong: Vec<&str> = wrong.iter().map(String::as_str).collect();
+    let (mut view, address) = start_view(&scratch, "leaktally fleet (another CA)", &wrong);
+    let doc = fleet_when(&address, "the TLS failure said", |d| {
+        d["broker"]["error"].is_string()
+    });
+    let why = doc["broker"]["error"].as_str().unwrap();
+    assert!(
+        why.contains("TLS with the broker at") && why.contains("other-ca.pem"),
+        "{why}"
+    );
     view.stop_cleanly();
 }

@@ -31,6 +31,13 @@ pub struct FleetArgs {
     /// Connect with TLS, trusting the CA certificates in this PEM file.
     #[arg(long, value_name = "FILE", value_parser = path_arg)]
     pub tls_ca: Option<PathBuf>,
+    /// A client certificate (PEM) to show a broker that asks for one (with
+    /// --tls-key and --tls-ca).
+    #[arg(long, value_name = "FILE", value_parser = path_arg, requires_all = ["tls_key", "tls_ca"])]
+    pub tls_cert: Option<PathBuf>,
+    /// The client certificate's private key (PEM; keep it 0600).
+    #[arg(long, value_name = "FILE", value_parser = path_arg, requires = "tls_cert")]
+    pub tls_key: Option<PathBuf>,
     /// The user name to give the broker (with --password-file).
     #[arg(long, value_name = "USER")]
     pub username: Option<String>,
@@ -109,6 +116,7 @@ pub fn broker(args: &FleetArgs) -> anyhow::Result<Broker> {
         host,
         port,
         tls_ca: args.tls_ca.clone(),
+        tls_client: args.tls_cert.clone().zip(args.tls_key.clone()),
         username: args.username.clone(),
         password,
         client_id,

@@ -39,6 +39,9 @@ pub struct Broker {
     pub port: u16,
     /// TLS, checked against the certificates of this CA file.
     pub tls_ca: Option<PathBuf>,
+    /// A client certificate and its key (PEM files), for a broker that
+    /// asks for one.
+    pub tls_client: Option<(PathBuf, PathBuf)>,
     pub username: Option<String>,
     /// The password, read from this file.
     pub password: Option<(String, PathBuf)>,
@@ -74,17 +77,22 @@ impl Broker {
         }
         if let Some(ca) = &self.tls_ca {
             options.set_transport(Transport::tls_with_config(TlsConfiguration::Rustls(
-                Arc::new(tls_config(ca)?),
+                Arc::new(tls_config(ca, self.tls_client.as_ref())?),
             )));
         }
         Ok(options)
     }
 }
 
-/// A rustls client configuration that trusts the certificates in `ca`.
-pub fn tls_config(ca: &std::path::Path) -> anyhow::Result<rustls::ClientConfig> {
-    use rustls_pki_types::CertificateDer;
+/// A rustls client configuration that trusts the certificates in `ca`, and
+/// shows the client certificate `client` (certificate file, key file) when
+/// given.
+pub fn tls_config(
+    ca: &std::path::Path,
+    client: Option<&(PathBuf, PathBuf)>,
+) -> anyhow::Result<rustls::ClientConfig> {
     use rustls_pki_types::pem::PemObject;
+    use rustls_pki_types::{CertificateDer, PrivateKeyDer};
     let fix = "give --tls-ca the PEM file of the CA that signed the broker's certificate";
     let mut roots = rustls::RootCertStore::empty();
     let certs = CertificateDer::pem_file_iter(ca)
@@ -109,10 +117,37 @@ pub fn tls_config(ca: &std::path::Path) -> anyhow::Result<rustls::ClientConfig> 
     // and 1.3 with the classical groups, which ring has.
     #[allow(deprecated)]
     let provider = Arc::new(rustls::crypto::ring::default_provider());
-    Ok(rustls::ClientConfig::builder_with_provider(provider)
+    let builder = rustls::ClientConfig::builder_with_provider(provider)
         .with_safe_default_protocol_versions()?
-        .with_root_certificates(roots)
-        .with_no_client_auth())
+        .with_root_certificates(roots);
+    let Some((cert, key)) = client else {
+        return Ok(builder.with_no_client_auth());
+    };
+    let fix = "give --tls-cert the client certificate and --tls-key its private key, both PEM";
+    let chain = CertificateDer::pem_file_iter(cert)
+        .and_then(|certs| certs.collect::<Result<Vec<_>, _>>())
+        .map_err(|e| {
+            anyhow::anyhow!(
+                "cannot read the client certificate {}: {e}; {fix}",
+                cert.display()
+            )
+        })?;
+    if chain.is_empty() {
+        anyhow::bail!(
+            "the client certificate file {} holds no certificate; {fix}",
+            cert.display()
+        );
+    }
+    let private = PrivateKeyDer::from_pem_file(key).map_err(|e| {
+        anyhow::anyhow!("cannot read the private key {}: {e}; {fix}", key.display())
+    })?;
+    builder.with_client_auth_cert(chain, private).map_err(|e| {
+        anyhow::anyhow!(
+            "the client certificate {} and the key {} do not go together: {e}; {fix}",
+            cert.display(),
+            key.display()
+        )
+    })
 }
 
 /// The connection's state, for the page, the JSON and the metrics.

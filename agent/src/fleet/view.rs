@@ -23,8 +23,8 @@ use serde::Serialize;
 
 /// The `/api/fleet` document's layout version (README, "Formats").
 pub const FORMAT: u32 = 1;
-/// How many closed events the page lists, newest first (the JSON has
-/// every one the board holds).
+/// How many closed events the page lists, newest first, of those closed
+/// in the last 7 days (the JSON has every one the board holds).
 pub const CLOSED_SHOWN: usize = 20;
 
 /// The fleet as the view knows it: every site, every open event, the
@@ -448,21 +448,29 @@ fn card(doc: &FleetDocument, e: &FleetEvent) -> Html {
     card
 }
 
-/// The events closed lately, with their final totals.
+/// The events closed in the last 7 days (as the site's page), newest
+/// first, with their final totals.
 fn closed(doc: &FleetDocument) -> Html {
     let mut out = markup!(
         r#"<section class="closed" data-field="closed-events">
-<h2>Closed</h2>
+<h2>Closed in the last 7 days</h2>
 "#
     );
-    if doc.closed.is_empty() {
+    let since = doc.generated_at_ms - crate::web::page::CLOSED_WITHIN_MS;
+    let lately: Vec<&FleetEvent> = doc
+        .closed
+        .iter()
+        .filter(|e| e.closed_at_ms.is_some_and(|at| at >= since))
+        .take(CLOSED_SHOWN)
+        .collect();
+    if lately.is_empty() {
         markup!(
             &mut out,
-            "<p class=\"fine\">None since the view started. An event appears here, with its final figures, once its site closes it.</p>\n"
+            "<p class=\"fine\">None. An event appears here, with its final figures, once its site closes it.</p>\n"
         );
     } else {
         markup!(&mut out, "<ol>\n");
-        for e in doc.closed.iter().take(CLOSED_SHOWN) {
+        for e in lately {
             let people = presentation(doc, &e.site);
             let mass = |kg: f64| people.mass(Mass::kilograms(kg));
             let total = e.estimate.as_ref().map_or(
