@@ -16,7 +16,7 @@ use super::board::{Board, MAX_PAYLOAD, Outcome};
 use super::topics;
 use rumqttc::{
     AsyncClient, ConnectReturnCode, ConnectionError, Event, EventLoop, MqttOptions, Packet, QoS,
-    SubscribeFilter, SubscribeReasonCode, TlsConfiguration, Transport,
+    StateError, SubscribeFilter, SubscribeReasonCode, TlsConfiguration, Transport,
 };
 use std::path::PathBuf;
 use std::sync::{Arc, Mutex, PoisonError};
@@ -196,6 +196,7 @@ pub async fn run(
     let mut wait = RETRY_FIRST;
     let mut problems: u64 = 0;
     let mut failing_since: Option<i64> = None;
+    let mut last_said: Option<String> = None;
     loop {
         let polled = tokio::select! {
             () = cancel.cancelled() => break,
@@ -231,6 +232,7 @@ pub async fn run(
                     warn!("fleet: {why}");
                     link.update(|l| l.error = Some(why));
                 } else {
+                    last_said = None;
                     let was_down = failing_since.take();
                     let connections = link.snapshot().connections + 1;
                     info!(
@@ -288,10 +290,15 @@ pub async fn run(
                 let why = explain(&broker, &e);
                 if failing_since.is_none() {
                     failing_since = Some(now);
+                }
+                // Once per outage, and again whenever the reason changes
+                // (the broker stopped, then refuses connections).
+                if last_said.as_deref() != Some(why.as_str()) {
                     warn!(
                         "fleet: {why}; retrying every {} s at most",
                         RETRY_AT_MOST.as_secs()
                     );
+                    last_said = Some(why.clone());
                 }
                 let since = failing_since;
                 link.update(|l| {
@@ -346,6 +353,10 @@ pub fn explain(broker: &Broker, e: &ConnectionError) -> String {
         ),
         ConnectionError::Io(io) => format!(
             "the broker at {at} is unreachable: {io}; check --mqtt, the network and any firewall"
+        ),
+        ConnectionError::MqttState(StateError::ConnectionAborted | StateError::Io(_)) => format!(
+            "the broker at {at} closed the connection (it stopped or restarted, or dropped this client: is another client using --client-id {:?}?)",
+            broker.client_id
         ),
         ConnectionError::NetworkTimeout => format!(
             "the broker at {at} did not answer in time; check --mqtt, the network and any firewall"

@@ -289,6 +289,19 @@ fn live(doc: &FleetDocument) -> Html {
     );
     main.extend(doc.events.iter().map(|e| card(doc, e)));
     main.push(closed(doc));
+    let m = doc.messages;
+    if m.malformed + m.over_capacity + m.unknown_topic > 0 {
+        markup!(
+            &mut main,
+            r#"<p class="fine" data-field="ignored">Ignored so far: <span data-field="malformed">{malformed}</span> messages that were not what their topic promises, {unknown} on topics the view does not read, and <span data-field="over-capacity">{over}</span> past the view's bounds ({sites} sites, {events} open events); the view's log names each.</p>
+"#,
+            malformed = m.malformed,
+            unknown = m.unknown_topic,
+            over = m.over_capacity,
+            sites = doc.limits.sites,
+            events = doc.limits.open_events,
+        );
+    }
     markup!(&mut main, "</main>\n");
     main
 }
@@ -298,7 +311,7 @@ fn broker(doc: &FleetDocument, utc: &Presentation) -> Html {
     let b = &doc.broker;
     match (&b.error, b.connected, b.since_ms) {
         (Some(why), false, Some(since)) => markup!(
-            r#"<p class="alarm" role="alert" data-field="broker">Broker unreachable since <time datetime="{machine}">{at}</time> ({ago}): {why}. The figures below are the last received and are not updating; the view keeps trying.</p>
+            r#"<p class="alarm" role="alert" data-field="broker">Broker unreachable since <time datetime="{machine}">{at}</time> ({ago} ago): {why}. The figures below are the last received and are not updating; the view keeps trying.</p>
 "#,
             machine = report::rfc3339(since),
             at = utc.time(since),
@@ -332,8 +345,9 @@ fn sites(doc: &FleetDocument) -> Html {
             "<p class=\"fine\">None yet. A site appears here when its agent publishes to this broker under the prefix <code>{prefix}</code>.</p>\n",
             prefix = doc.prefix
         );
+    } else {
+        markup!(&mut out, "<ol>\n");
     }
-    markup!(&mut out, "<ol>\n");
     for s in &doc.sites {
         let people = presentation(doc, &s.site);
         let state = match (s.state, s.state_at_ms) {
@@ -376,7 +390,10 @@ fn sites(doc: &FleetDocument) -> Html {
                 .unwrap_or_else(|| "not known yet".into()),
         );
     }
-    markup!(&mut out, "</ol>\n</section>\n");
+    if !doc.sites.is_empty() {
+        markup!(&mut out, "</ol>\n");
+    }
+    markup!(&mut out, "</section>\n");
     out
 }
 

@@ -49,6 +49,10 @@ fn fixture() -> Fixture {
             "{topic}"
         );
     }
+    assert!(matches!(
+        board.ingest("leaktally/ff/state", b"not json", false, now),
+        crate::fleet::board::Outcome::Malformed(_)
+    ));
     let link = Arc::new(Link::default());
     link.update(|l| {
         *l = LinkState {
@@ -149,6 +153,7 @@ async fn the_json_has_every_site_and_event_with_the_sites_figures() {
     assert_eq!(closed["state"], "closed");
     assert!(closed["closed_at_ms"].is_i64());
     assert_eq!(doc["messages"]["applied"], 4);
+    assert_eq!(doc["messages"]["malformed"], 1);
     assert_eq!(doc["limits"]["sites"], crate::fleet::board::MAX_SITES);
 }
 
@@ -180,6 +185,8 @@ async fn the_page_shows_every_site_and_open_event_escaped_with_the_caution() {
         r#"data-field="data-age" data-event="1""#.to_owned(),
         r#"data-field="closed-total""#.to_owned(),
         "1 open leak event".to_owned(),
+        r#"<span data-field="malformed">1</span> messages that were not what their topic promises"#
+            .to_owned(),
     ] {
         assert!(page.contains(&expected), "{expected} not in:\n{page}");
     }
