@@ -256,12 +256,8 @@ fn the_view_shows_each_sites_documents_once_in_order_and_closes_on_the_summary()
     let (first, _) = site.status(&scratch, "first.json");
     site.store(60..120);
     let (second, second_doc) = site.status(&scratch, "second.json");
-    let state = scratch.write(
-        "state.json",
-        &serde_json::json!({"format": 1, "site": "site-a", "state": "online",
-            "at": "2026-12-05T07:00:00.000Z", "at_ms": crate::util::now_ms()})
-        .to_string(),
-    );
+    // As the agent publishes it (agent/src/publish/topics.rs).
+    let state = scratch.write("state.txt", "online");
     broker.publish("leaktally/site-a/state", &state);
     broker.publish("leaktally/site-a/events/1/status", &first);
     broker.publish("leaktally/site-a/events/1/status", &second);

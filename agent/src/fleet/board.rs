@@ -13,8 +13,9 @@
 //! * A summary (or a status document that says the event is closed)
 //!   replaces the live status and closes the event; a closed event stays
 //!   closed, whatever status document comes after.
-//! * A site's state message is applied when it is at least as new (its
-//!   `at_ms`) as the one held.
+//! * A site's state message (`online` or `offline`, the agent's plain text,
+//!   or a JSON form with a stamp) is applied in the order the broker
+//!   delivers it, or by its stamp when it has one.
 //! * A payload that is not what the topic promises (not JSON, another
 //!   layout, another format version, an event or a site other than the
 //!   topic's) is counted and said in the [`Outcome`], never a panic; an
@@ -76,7 +77,9 @@ impl Online {
 pub struct Site {
     pub id: String,
     pub online: Online,
-    /// When the site said its state (its own clock), UTC ms.
+    /// Since when the site is in its state, UTC ms: its own stamp where the
+    /// message has one, else when the view saw the change live; `None`
+    /// when only a retained, unstamped message told it.
     pub state_at_ms: Option<i64>,
     /// When the view last had a live (not retained) message from the site,
     /// on the view's clock.
@@ -248,7 +251,7 @@ impl Board {
             ));
         }
         let outcome = match parsed {
-            Topic::State { site } => self.state(site, payload),
+            Topic::State { site } => self.state(site, payload, retained, now_ms),
             Topic::Status { site, event } => self.document(site, event, payload, false, now_ms),
             Topic::Summary { site, event } => self.document(site, event, payload, true, now_ms),
         };
@@ -274,42 +277,66 @@ impl Board {
         })
     }
 
-    fn state(&mut self, site: &str, payload: &[u8]) -> Outcome {
-        let wire: StateWire = match serde_json::from_slice(payload) {
-            Ok(w) => w,
-            Err(e) => return Outcome::Malformed(format!("not a state message: {e}")),
+    /// A state message: the agent's plain `online` or `offline` (its
+    /// last will too), in the order the broker delivers them (a reconnect
+    /// delivers the retained one, which is the latest); or the stamped JSON
+    /// form (`{"format":1,"site":..,"state":..,"at_ms":..}`), ordered by its
+    /// stamp.
+    fn state(&mut self, site: &str, payload: &[u8], retained: bool, now_ms: i64) -> Outcome {
+        let plain = match std::str::from_utf8(payload).map(str::trim) {
+            Ok("online") => Some(Online::Online),
+            Ok("offline") => Some(Online::Offline),
+            _ => None,
         };
+        let (online, stamped) = match plain {
+            Some(online) => (online, None),
+            None => match Self::stamped_state(site, payload) {
+                Ok((online, at_ms)) => (online, Some(at_ms)),
+                Err(why) => return Outcome::Malformed(why),
+            },
+        };
+        let s = self.site_mut(site);
+        match stamped {
+            Some(at) if s.state_at_ms.is_some_and(|held| at < held) => {
+                return Outcome::OlderOrDuplicate;
+            }
+            _ if s.online == online && (stamped.is_none() || s.state_at_ms == stamped) => {
+                return Outcome::OlderOrDuplicate;
+            }
+            _ => {}
+        }
+        s.online = online;
+        // Since when: the site's stamp, else when the view saw the change
+        // live; a retained message without a stamp says only "as of before
+        // the view connected".
+        s.state_at_ms = stamped.or((!retained).then_some(now_ms));
+        Outcome::Applied
+    }
+
+    /// The stamped JSON state message, checked against its topic's site.
+    fn stamped_state(site: &str, payload: &[u8]) -> Result<(Online, i64), String> {
+        let wire: StateWire = serde_json::from_slice(payload).map_err(|e| {
+            format!("not a state message (\"online\" or \"offline\", or its JSON form): {e}")
+        })?;
         if wire.format != STATE_FORMAT {
-            return Outcome::Malformed(format!(
+            return Err(format!(
                 "state message format {}, and this view reads format {STATE_FORMAT}; run the same leaktally version on the sites and the view",
                 wire.format
             ));
         }
         if wire.site != site {
-            return Outcome::Malformed(format!(
+            return Err(format!(
                 "the state message names site {:?} but came on site {site:?}'s topic",
                 wire.site
             ));
         }
-        let online = match wire.state.as_str() {
-            "online" => Online::Online,
-            "offline" => Online::Offline,
-            other => {
-                return Outcome::Malformed(format!(
-                    "state {other:?}: a site is \"online\" or \"offline\""
-                ));
-            }
-        };
-        let s = self.site_mut(site);
-        if s.state_at_ms.is_some_and(|held| wire.at_ms < held) {
-            return Outcome::OlderOrDuplicate;
+        match wire.state.as_str() {
+            "online" => Ok((Online::Online, wire.at_ms)),
+            "offline" => Ok((Online::Offline, wire.at_ms)),
+            other => Err(format!(
+                "state {other:?}: a site is \"online\" or \"offline\""
+            )),
         }
-        if s.state_at_ms == Some(wire.at_ms) && s.online == online {
-            return Outcome::OlderOrDuplicate;
-        }
-        s.online = online;
-        s.state_at_ms = Some(wire.at_ms);
-        Outcome::Applied
     }
 
     fn document(
@@ -598,6 +625,37 @@ mod tests {
             Outcome::Applied
         );
         assert_eq!(site(&board), (Online::Online, Some(3_000), Some(9)));
+    }
+
+    #[test]
+    fn the_agents_plain_state_is_taken_in_the_order_it_comes() {
+        let mut board = Board::new("leaktally");
+        let topic = "leaktally/depot-7/state";
+        let site = |b: &Board| {
+            let s = b.sites().next().unwrap();
+            (s.online, s.state_at_ms, s.last_heard_ms)
+        };
+        // Retained when the view subscribes: the state, but not since when.
+        assert_eq!(board.ingest(topic, b"online", true, 5), Outcome::Applied);
+        assert_eq!(site(&board), (Online::Online, None, None));
+        // The last will, live.
+        assert_eq!(
+            board.ingest(topic, b"offline\n", false, 6),
+            Outcome::Applied
+        );
+        assert_eq!(site(&board), (Online::Offline, Some(6), Some(6)));
+        // The same again (QoS 1, or the retained one on a reconnect).
+        assert_eq!(
+            board.ingest(topic, b"offline", true, 7),
+            Outcome::OlderOrDuplicate
+        );
+        assert_eq!(site(&board), (Online::Offline, Some(6), Some(6)));
+        assert_eq!(board.ingest(topic, b"online", false, 8), Outcome::Applied);
+        assert_eq!(site(&board), (Online::Online, Some(8), Some(8)));
+        assert!(matches!(
+            board.ingest(topic, b"Online!", false, 9),
+            Outcome::Malformed(why) if why.contains("\"online\" or \"offline\"")
+        ));
     }
 
     #[test]

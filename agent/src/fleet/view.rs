@@ -68,6 +68,9 @@ pub struct SiteView {
     pub site: String,
     /// `online`, `offline` or `unknown` (nothing on its state topic yet).
     pub state: &'static str,
+    /// Since when: the site's stamp where its message has one, else when
+    /// the view saw the change; absent when only the broker's retained
+    /// message told it.
     pub state_at: Option<String>,
     pub state_at_ms: Option<i64>,
     /// When the view last had a live (not retained) message from it.
@@ -357,7 +360,8 @@ fn sites(doc: &FleetDocument) -> Html {
                 machine = report::rfc3339(at),
                 at = people.time(at)
             ),
-            (state, None) => markup!("{state} (no state message yet)", state = state),
+            ("unknown", None) => markup!("state unknown (no state message yet)"),
+            (state, None) => markup!("{state} (since before the view connected)", state = state),
         };
         let age = s
             .data_age_ms
