@@ -48,7 +48,13 @@ pub const MAX_CLOSED_KEPT: usize = 500;
 pub const MAX_FORGOTTEN: usize = 50_000;
 /// The largest payload the board reads, bytes. A status document with a
 /// dozen reportable quantities is a few kB.
-pub const MAX_PAYLOAD: usize = 256 * 1024;
+pub const MAX_PAYLOAD: usize = 64 * 1024;
+/// The longest text of a held document (tank, source, parameters, why not
+/// tracked), bytes (a real one is a few dozen), and the most reportable
+/// quantities: so an event held costs under 10 kB whatever a publisher
+/// sends, and the board at all its bounds under 100 MB.
+pub const MAX_TEXT: usize = 1024;
+pub const MAX_CROSSINGS: usize = 64;
 /// The state message's layout version the view reads.
 pub const STATE_FORMAT: u32 = 1;
 
@@ -368,6 +374,9 @@ impl Board {
                 "the document does not hold event {event}, which its topic names"
             ));
         };
+        if let Some(why) = oversized(&doc) {
+            return Outcome::Malformed(why);
+        }
         let closed = summary || doc.state == "closed" || doc.closed_at_ms.is_some();
         let id = (site.to_owned(), event);
         if self.forgotten.contains(&id) {
@@ -446,6 +455,31 @@ impl Board {
     pub fn counts(&self) -> Counts {
         self.counts
     }
+}
+
+/// Why a document is larger than the board holds, if it is.
+fn oversized(doc: &EventDocument) -> Option<String> {
+    let texts = [
+        ("tank", doc.tank.len()),
+        ("source", doc.source.len()),
+        ("params_text", doc.params_text.len()),
+        ("state", doc.state.len()),
+        (
+            "tracking_error",
+            doc.tracking_error.as_ref().map_or(0, String::len),
+        ),
+    ];
+    if let Some((field, len)) = texts.iter().find(|(_, len)| *len > MAX_TEXT) {
+        return Some(format!(
+            "its {field} is {len} bytes, more than the {MAX_TEXT} the view holds"
+        ));
+    }
+    let crossings = doc.estimate.as_ref().map_or(0, |e| e.crossings.len());
+    (crossings > MAX_CROSSINGS).then(|| {
+        format!(
+            "it has {crossings} reportable quantities, more than the {MAX_CROSSINGS} the view holds"
+        )
+    })
 }
 
 #[cfg(test)]
@@ -582,6 +616,18 @@ mod tests {
         }
         assert_eq!(released(&board), [(1, Some(end), true)]);
 
+        // The agent publishes the closed document on the status topic too,
+        // then the same under summary: closed by the first, the second a
+        // duplicate.
+        let mut board = Board::new("leaktally");
+        assert_eq!(board.ingest(STATUS, &live, false, 1), Outcome::Applied);
+        assert_eq!(board.ingest(STATUS, &summary, false, 2), Outcome::Applied);
+        assert_eq!(released(&board), [(1, Some(end), true)]);
+        assert_eq!(
+            board.ingest(SUMMARY, &summary, false, 3),
+            Outcome::OlderOrDuplicate
+        );
+
         // Summary first, as retained topics may come in any order.
         let mut board = Board::new("leaktally");
         assert_eq!(board.ingest(SUMMARY, &summary, true, 1), Outcome::Applied);
@@ -706,6 +752,12 @@ mod tests {
             board.ingest(STATUS, &vec![b' '; MAX_PAYLOAD + 1], false, 1),
             "more than",
         );
+        let mut long_tank: serde_json::Value = serde_json::from_slice(&good).unwrap();
+        long_tank["events"][0]["tank"] = "T".repeat(MAX_TEXT + 1).into();
+        malformed(
+            board.ingest(STATUS, &serde_json::to_vec(&long_tank).unwrap(), false, 1),
+            "its tank is 1025 bytes",
+        );
         assert_eq!(
             board.ingest("leaktally/ff/tanks/T1/reading", b"{}", false, 1),
             Outcome::UnknownTopic
@@ -715,7 +767,7 @@ mod tests {
         assert_eq!(
             board.counts(),
             Counts {
-                malformed: 9,
+                malformed: 10,
                 unknown_topic: 1,
                 cleared: 1,
                 ..Counts::default()
