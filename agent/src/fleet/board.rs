@@ -20,6 +20,8 @@
 //!   layout, another format version, an event or a site other than the
 //!   topic's) is counted and said in the [`Outcome`], never a panic; an
 //!   empty payload (a retained message being cleared) is ignored.
+//! * A document with a time outside the years 2000 to 2200, or bigger than
+//!   the board holds (see [`MAX_TEXT`]), is malformed too.
 //! * Memory is bounded: at most [`MAX_SITES`] sites, [`MAX_OPEN_EVENTS`]
 //!   open events and [`MAX_CLOSED_KEPT`] closed ones (the newest), and a
 //!   payload of at most [`MAX_PAYLOAD`] bytes. What would go past a bound
@@ -374,7 +376,7 @@ impl Board {
                 "the document does not hold event {event}, which its topic names"
             ));
         };
-        if let Some(why) = oversized(&doc) {
+        if let Some(why) = oversized(&doc).or_else(|| implausible(&doc)) {
             return Outcome::Malformed(why);
         }
         let closed = summary || doc.state == "closed" || doc.closed_at_ms.is_some();
@@ -455,6 +457,44 @@ impl Board {
     pub fn counts(&self) -> Counts {
         self.counts
     }
+}
+
+/// The earliest and latest time a held document may carry, UTC ms (the
+/// years 2000 and 2200): a time outside is no site's clock, and the page's
+/// arithmetic on times stays far from overflow.
+pub const EARLIEST_MS: i64 = 946_684_800_000;
+pub const LATEST_MS: i64 = 7_258_118_400_000;
+/// The longest a forecast may say the flow goes on, s (a thousand years).
+pub const LONGEST_FORECAST_S: f64 = 3.2e10;
+
+/// Why a document's times are no site's, if they are not.
+fn implausible(doc: &EventDocument) -> Option<String> {
+    let mut times = vec![
+        ("start_ms", Some(doc.start_ms)),
+        ("opened_at_ms", Some(doc.opened_at_ms)),
+        ("closed_at_ms", doc.closed_at_ms),
+    ];
+    if let Some(e) = &doc.estimate {
+        times.push(("estimate.at_ms", Some(e.at_ms)));
+        if let Some(f) = &e.forecast {
+            times.push(("forecast.made_at_ms", Some(f.made_at_ms)));
+            if f.stops_after_s.is_finite() && !(0.0..=LONGEST_FORECAST_S).contains(&f.stops_after_s)
+            {
+                return Some(format!(
+                    "its forecast stops after {} s, outside 0 to {LONGEST_FORECAST_S}",
+                    f.stops_after_s
+                ));
+            }
+        }
+        for c in &e.crossings {
+            times.push(("crossings[].at_ms", c.at_ms));
+            times.push(("crossings[].high_at_ms", c.high_at_ms));
+        }
+    }
+    times.into_iter().find_map(|(field, at)| {
+        at.filter(|t| !(EARLIEST_MS..=LATEST_MS).contains(t))
+            .map(|t| format!("its {field} {t} is not a time between the years 2000 and 2200"))
+    })
 }
 
 /// Why a document is larger than the board holds, if it is.
@@ -774,6 +814,112 @@ mod tests {
             }
         );
         assert_eq!(board.ingest(STATUS, &good, false, 2), Outcome::Applied);
+    }
+
+    /// Thousands of damaged copies of a real document (bytes changed, cut,
+    /// doubled; fields given other types and extreme numbers) on every kind
+    /// of topic: none panics, and each is counted once.
+    #[test]
+    fn damaged_documents_never_panic_and_are_all_counted() {
+        let site = SiteDb::new("fleet-board-damaged");
+        site.store(1, 0..30);
+        let good = site.document();
+        let value: serde_json::Value = serde_json::from_slice(&good).unwrap();
+        assert!(value["events"][0]["estimate"]["forecast"].is_object());
+        assert!(value["events"][0]["estimate"]["crossings"][0].is_object());
+        // xorshift64: a fixed sequence, so a failure repeats.
+        let mut seed = 0x9E37_79B9_7F4A_7C15_u64;
+        let mut next = move || {
+            seed ^= seed << 13;
+            seed ^= seed >> 7;
+            seed ^= seed << 17;
+            seed
+        };
+        let topics = [
+            STATUS,
+            SUMMARY,
+            "leaktally/ff/state",
+            "leaktally/ff/events/7/status",
+        ];
+        let odd_values = [
+            serde_json::json!(null),
+            serde_json::json!(-1),
+            serde_json::json!(1e308),
+            serde_json::json!(i64::MIN),
+            serde_json::json!(u64::MAX),
+            serde_json::json!("closed"),
+            serde_json::json!([]),
+            serde_json::json!({}),
+            serde_json::json!(true),
+        ];
+        let mut board = Board::new("leaktally");
+        let tries = 3_000;
+        for n in 0..tries {
+            let payload = if n % 2 == 0 {
+                let mut bytes = good.clone();
+                for _ in 0..=(next() % 8) {
+                    let at = (next() as usize) % bytes.len();
+                    match next() % 3 {
+                        0 => bytes[at] = next() as u8,
+                        1 => bytes.truncate(at.max(1)),
+                        _ => {
+                            let copy = bytes[at..].to_vec();
+                            bytes.extend(copy);
+                        }
+                    }
+                }
+                bytes
+            } else {
+                // One field of the document, or of its event or estimate,
+                // given an odd value.
+                let mut v = value.clone();
+                let target = match next() % 6 {
+                    0 => &mut v,
+                    1 => &mut v["events"][0],
+                    2 => &mut v["events"][0]["estimate"]["forecast"],
+                    3 => &mut v["events"][0]["estimate"]["crossings"][0],
+                    4 => &mut v["events"][0]["estimate"]["quality"],
+                    _ => &mut v["events"][0]["estimate"],
+                };
+                if let Some(map) = target.as_object_mut() {
+                    let keys: Vec<String> = map.keys().cloned().collect();
+                    let key = &keys[(next() as usize) % keys.len()];
+                    map[key] = odd_values[(next() as usize) % odd_values.len()].clone();
+                }
+                serde_json::to_vec(&v).unwrap()
+            };
+            let topic = topics[(next() as usize) % topics.len()];
+            let retained = next() % 2 == 0;
+            board.ingest(topic, &payload, retained, n);
+            // What one document alone makes of the page, the JSON and the
+            // metrics.
+            let mut alone = Board::new("leaktally");
+            if alone.ingest(topic, &payload, retained, n) == Outcome::Applied {
+                let link = crate::fleet::mqtt::LinkState::default();
+                let doc =
+                    crate::fleet::view::document(&alone, &link, "b:1883", "leaktally", n, 60_000);
+                assert!(!crate::fleet::view::page(&doc).is_empty());
+                assert!(!crate::fleet::view::metrics(&doc).is_empty());
+                serde_json::to_string(&doc).unwrap();
+            }
+        }
+        let c = board.counts();
+        let counted = c.applied
+            + c.older_or_duplicate
+            + c.cleared
+            + c.unknown_topic
+            + c.malformed
+            + c.over_capacity;
+        assert_eq!(counted, tries as u64);
+        assert!(c.malformed > tries as u64 / 2, "{c:?}");
+        // Whatever was taken reads back as a document the page can show.
+        for e in board.events() {
+            assert!(
+                e.status.event == 1 || e.status.event == 7,
+                "{:?}",
+                e.status.event
+            );
+        }
     }
 
     #[test]

@@ -131,7 +131,7 @@ pub fn document(
 ) -> FleetDocument {
     let event = |e: &Event| {
         let d = &e.status;
-        let data_age_ms = d.estimate.as_ref().map(|x| now_ms - x.at_ms);
+        let data_age_ms = d.estimate.as_ref().map(|x| now_ms.saturating_sub(x.at_ms));
         FleetEvent {
             site: e.site.clone(),
             event: d.event,
@@ -146,7 +146,8 @@ pub fn document(
             params: d.params,
             params_text: d.params_text.clone(),
             data_age_ms,
-            stale: !e.closed && data_age_ms.unwrap_or(now_ms - d.opened_at_ms) > stale_after_ms,
+            stale: !e.closed
+                && data_age_ms.unwrap_or(now_ms.saturating_sub(d.opened_at_ms)) > stale_after_ms,
             received_at_ms: e.received_ms,
             estimate: d.estimate.clone(),
             tracking_error: d.tracking_error.clone(),
@@ -170,7 +171,7 @@ pub fn document(
                 state_at: s.state_at_ms.map(report::rfc3339),
                 state_at_ms: s.state_at_ms,
                 last_heard_at_ms: s.last_heard_ms,
-                data_age_ms: newest.map(|t| now_ms - t),
+                data_age_ms: newest.map(|t| now_ms.saturating_sub(t)),
                 open_events: of_site().filter(|e| !e.closed).count(),
                 time_zone: s.time_zone.clone(),
                 units: s.units.clone(),
@@ -318,7 +319,7 @@ fn broker(doc: &FleetDocument, utc: &Presentation) -> Html {
 "#,
             machine = report::rfc3339(since),
             at = utc.time(since),
-            ago = span(doc.generated_at_ms - since),
+            ago = span(doc.generated_at_ms.saturating_sub(since)),
             why = why,
         ),
         (Some(why), _, _) => markup!(
@@ -369,7 +370,7 @@ fn sites(doc: &FleetDocument) -> Html {
         let heard = s
             .last_heard_at_ms
             .map_or("not since the view started".to_owned(), |ms| {
-                format!("{} ago", span(doc.generated_at_ms - ms))
+                format!("{} ago", span(doc.generated_at_ms.saturating_sub(ms)))
             });
         let class = if s.state == Online::Online.name() {
             "site"
@@ -418,7 +419,7 @@ fn card(doc: &FleetDocument, e: &FleetEvent) -> Html {
         tank = e.tank,
         machine = e.start,
         since = people.time(e.start_ms),
-        ago = span(doc.generated_at_ms - e.start_ms),
+        ago = span(doc.generated_at_ms.saturating_sub(e.start_ms)),
         source = e.source,
         revision = e.revision,
         age = e.data_age_ms.map_or("no sample yet".to_owned(), span),
@@ -446,7 +447,7 @@ fn card(doc: &FleetDocument, e: &FleetEvent) -> Html {
                     r#"<p class="alarm" role="alert" data-field="stale" data-event="{id}">No new figures for {age}: these are from {at} and are not current. The site may be offline, or its link to the broker or to the tank's device down.</p>
 "#,
                     id = id,
-                    age = span(doc.generated_at_ms - est.at_ms),
+                    age = span(doc.generated_at_ms.saturating_sub(est.at_ms)),
                     at = people.time(est.at_ms)
                 );
             }
@@ -477,7 +478,9 @@ fn closed(doc: &FleetDocument) -> Html {
 <h2>Closed in the last 7 days</h2>
 "#
     );
-    let since = doc.generated_at_ms - crate::web::page::CLOSED_WITHIN_MS;
+    let since = doc
+        .generated_at_ms
+        .saturating_sub(crate::web::page::CLOSED_WITHIN_MS);
     let lately: Vec<&FleetEvent> = doc
         .closed
         .iter()
