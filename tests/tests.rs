@@ -17,6 +17,9 @@
 //! * `faults`: link drops, a slow device, failed sensors, a locked
 //!   database and a full disk, end to end; Modbus exceptions, miscounted
 //!   replies and impossible level steps, flagged and logged once.
+//! * `fleet`: `leaktally fleet` against a real mosquitto: published status
+//!   documents shown once and in order, a summary closing its event, wrong
+//!   credentials and a missing broker said and retried.
 //! * `flood`: thousands of idle and slow sockets on the web port while a
 //!   client, the pollers and a simulator restart carry on.
 //! * `operators`: an operator in the daemon's group acts without root, and
@@ -40,6 +43,7 @@ mod acquisition;
 mod bands;
 mod daily;
 mod faults;
+mod fleet;
 mod flood;
 mod gaps;
 mod interop;

@@ -24,6 +24,8 @@
 //! * [`doorbell`]: how the CLI tells the daemon it recorded an action.
 //! * [`tracker`]: the daemon's open events, operator actions and writes.
 //! * [`web`]: the daemon's read-only responder page, JSON and metrics.
+//! * [`fleet`]: `leaktally fleet`, the read-only central view of the sites
+//!   that publish to an MQTT broker.
 //! * [`commands`]: each subcommand's arguments and what it does.
 //! * [`cli`]: the command line, composed of the commands' arguments.
 //!
@@ -39,6 +41,7 @@ pub mod daemon;
 pub mod doorbell;
 pub mod estimate;
 pub mod estimator;
+pub mod fleet;
 pub mod logging;
 pub mod loss;
 pub mod model;
@@ -66,7 +69,7 @@ pub const LAYERS: &[&[&str]] = &[
     &["estimator", "readings", "store"],
     &["plot", "status", "actions"],
     &["tracker", "web"],
-    &["daemon"],
+    &["daemon", "fleet"],
     &["commands"],
     &["cli"],
 ];

@@ -26,7 +26,7 @@ fn parts(text: &str) -> (&str, &str) {
 
 /// The four headline tiles: released so far, flowing now, the forecast,
 /// and the reportable quantities.
-pub(super) fn figures(id: i64, est: &EstimateView, people: &Presentation, now_ms: i64) -> Html {
+pub(crate) fn figures(id: i64, est: &EstimateView, people: &Presentation, now_ms: i64) -> Html {
     let mut out = markup!(r#"<div class="figures">"#);
     out.push(released(id, est, people));
     out.push(flowing(id, est, people));
