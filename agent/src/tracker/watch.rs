@@ -135,7 +135,7 @@ impl Watch {
                     } else {
                         format!(
                             "check the tank; if it leaks, confirm with: {}",
-                            crate::loss::confirm_command(tank, a.since_ms)
+                            crate::report::confirm_loss_command(tank, a.since_ms)
                         )
                     };
                     warn!(
