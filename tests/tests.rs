@@ -17,6 +17,9 @@
 //! * `faults`: link drops, a slow device, failed sensors, a locked
 //!   database and a full disk, end to end; Modbus exceptions, miscounted
 //!   replies and impossible level steps, flagged and logged once.
+//! * `fleet`: `leaktally fleet` against a real mosquitto: published status
+//!   documents shown once and in order, a summary closing its event, wrong
+//!   credentials and a missing broker said and retried.
 //! * `flood`: thousands of idle and slow sockets on the web port while a
 //!   client, the pollers and a simulator restart carry on.
 //! * `operators`: an operator in the daemon's group acts without root, and
@@ -28,6 +31,8 @@
 //!   unit on a shared line.
 //! * `tracking`: the simulator, the daemon and the operator CLI as real
 //!   processes, against the simulator's ground truth.
+//! * `vapour`: a hole above the liquid of a blanketed tank: the agent's
+//!   gas total, phase and time to ambient against the simulator's truth.
 //! * `web`: the daemon's responder page in headless chromium against
 //!   `status --json`, and its metrics through prometheus-client.
 //! * `whatif`: `leaktally whatif` as a user runs it, the headspace read
@@ -44,6 +49,7 @@ mod bands;
 mod broker;
 mod daily;
 mod faults;
+mod fleet;
 mod flood;
 mod gaps;
 mod interop;
@@ -58,5 +64,6 @@ mod replay;
 mod serial;
 mod tracking;
 mod util;
+mod vapour;
 mod web;
 mod whatif;

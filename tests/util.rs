@@ -915,6 +915,14 @@ impl ScenarioTank {
         self.key("pressure_noise_pa", pa)
     }
 
+    /// The ullage holds the site config's vapour, which a hole above the
+    /// surface lets out; `thermal` is "isothermal" or "adiabatic".
+    pub fn gas_ullage(mut self, thermal: &str) -> Self {
+        self.keys.push(("ullage", toml_text("gas")));
+        self.keys.push(("ullage_thermal", toml_text(thermal)));
+        self
+    }
+
     /// The liquid's temperature, held for the whole run.
     pub fn temperature_c(self, c: f64) -> Self {
         self.key("temperature_c", c)

@@ -8,12 +8,13 @@ use crate::commands::check::CheckArgs;
 use crate::commands::demo::DemoArgs;
 use crate::commands::docs::{CompletionsArgs, ManualArgs};
 use crate::commands::events::EventsArgs;
+use crate::commands::fleet::FleetArgs;
 use crate::commands::leak::LeakCommand;
 use crate::commands::poll::PollArgs;
 use crate::commands::replay::ReplayArgs;
 use crate::commands::status::StatusArgs;
 use crate::commands::whatif::WhatifArgs;
-use crate::commands::{check, demo, docs, events, leak, poll, replay, status, whatif};
+use crate::commands::{check, demo, docs, events, fleet, leak, poll, replay, status, whatif};
 // Re-exported so that code outside the crate (the property tests in the root
 // package, which has no clap dependency of its own) can bring the trait into
 // scope and call `Cli::try_parse_from`.
@@ -63,6 +64,9 @@ pub enum Command {
     Status(StatusArgs),
     /// List the events, open and closed, with their final or latest totals.
     Events(EventsArgs),
+    /// A read-only central view of every site that publishes to an MQTT
+    /// broker: a page, /api/fleet and /metrics.
+    Fleet(FleetArgs),
     /// Print the shell completion script (bash, zsh, fish, elvish,
     /// powershell).
     Completions(CompletionsArgs),
@@ -122,6 +126,7 @@ pub fn run(cli: Cli) -> anyhow::Result<()> {
         Command::Leak(command) => leak::command(command),
         Command::Status(args) => status::command(args),
         Command::Events(args) => events::command(args),
+        Command::Fleet(args) => fleet::command(args),
         Command::Completions(args) => docs::completions(args, Cli::command()),
         Command::Manual(args) => docs::manual(args, Cli::command()),
         Command::Help(args) => help(&args.command),

@@ -26,6 +26,8 @@
 //! * [`web`]: the daemon's read-only responder page, JSON and metrics.
 //! * [`publish`]: the daemon's MQTT publisher: the outbox to the broker,
 //!   in order, under the topics of `publish::topics`.
+//! * [`fleet`]: `leaktally fleet`, the read-only central view of the sites
+//!   that publish to an MQTT broker.
 //! * [`commands`]: each subcommand's arguments and what it does.
 //! * [`cli`]: the command line, composed of the commands' arguments.
 //!
@@ -41,6 +43,7 @@ pub mod daemon;
 pub mod doorbell;
 pub mod estimate;
 pub mod estimator;
+pub mod fleet;
 pub mod logging;
 pub mod loss;
 pub mod model;
@@ -69,7 +72,7 @@ pub const LAYERS: &[&[&str]] = &[
     &["estimator", "readings", "store"],
     &["plot", "status", "actions"],
     &["tracker", "web", "publish"],
-    &["daemon"],
+    &["daemon", "fleet"],
     &["commands"],
     &["cli"],
 ];

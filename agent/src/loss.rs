@@ -553,6 +553,7 @@ fn finish_block(
 
 #[cfg(test)]
 mod tests {
+
     use super::*;
     use crate::model::units::Density;
 

@@ -12,7 +12,9 @@ fn main() -> ExitCode {
     // must never stop it.
     if !matches!(
         cli.command,
-        leaktally::cli::Command::Run(_) | leaktally::cli::Command::Demo(_)
+        leaktally::cli::Command::Run(_)
+            | leaktally::cli::Command::Demo(_)
+            | leaktally::cli::Command::Fleet(_)
     ) {
         // SAFETY: setting a signal's disposition to the default, before
         // any thread is started.

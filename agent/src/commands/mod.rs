@@ -12,6 +12,7 @@ pub mod demo;
 pub mod docs;
 pub mod events;
 pub mod exit;
+pub mod fleet;
 pub mod leak;
 pub mod poll;
 pub mod replay;

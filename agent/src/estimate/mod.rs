@@ -21,7 +21,7 @@ pub use warnings::*;
 /// The estimator's version. It changes whenever the same samples would give
 /// different figures; an event logged by another version replays with this
 /// one's figures, and replay says so rather than calling them a mismatch.
-pub const ESTIMATOR_VERSION: u32 = 4;
+pub const ESTIMATOR_VERSION: u32 = 5;
 
 /// Which view the best estimate comes from.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]

@@ -31,6 +31,8 @@ pub(super) struct Standard {
     /// The level register's quantisation (step / √12): the level noise is
     /// never taken below it.
     pub(super) level_quantisation: f64,
+    /// The same of the pressure register, for the pressure's noise.
+    pub(super) pressure_quantisation: f64,
 }
 
 impl Standard {
@@ -51,9 +53,64 @@ impl Standard {
                 .as_ref()
                 .map_or(0.0, |sensor| rectangular(sensor.accuracy.bound)),
             level_quantisation: tank.level.resolution_si() / 12f64.sqrt(),
+            pressure_quantisation: tank
+                .pressure
+                .as_ref()
+                .map_or(0.0, |p| p.sensor.resolution_si() / 12f64.sqrt()),
         }
     }
 }
+
+/// A reading's noise from its second differences: white noise of standard
+/// deviation s gives second differences of variance 6 s² (a slow, smooth
+/// signal adds little to them).
+#[derive(Debug, Clone, Copy, Default)]
+pub(super) struct NoiseMeter {
+    mean_square: f64,
+    count: u64,
+    previous: [Option<f64>; 2],
+}
+
+impl NoiseMeter {
+    /// Notes a reading; true when it made a second difference (from the
+    /// third reading on).
+    pub(super) fn note(&mut self, value: f64) -> bool {
+        let made = if let [Some(a), Some(b)] = self.previous {
+            let d2 = value - 2.0 * b + a;
+            self.count += 1;
+            self.mean_square += (d2 * d2 - self.mean_square) / self.count as f64;
+            true
+        } else {
+            false
+        };
+        self.previous = [self.previous[1], Some(value)];
+        made
+    }
+
+    /// The noise's standard deviation, zero until three readings came.
+    pub(super) fn standard_deviation(&self) -> f64 {
+        (self.mean_square / 6.0).sqrt()
+    }
+
+    /// The same, never below `floor` until ten second differences have
+    /// been seen: the first few say little about the noise.
+    pub(super) fn standard_deviation_at_least(&self, floor: f64) -> f64 {
+        let measured = self.standard_deviation();
+        if self.count < 10 {
+            measured.max(floor)
+        } else {
+            measured
+        }
+    }
+}
+
+/// A headspace gauge pressure within this many standard deviations of its
+/// noise is not told from ambient: the 3σ detection limit of analytical
+/// chemistry (IUPAC, Currie 1995; common practice). Below it the best
+/// vapour flow is none, since the square root of the noise's positive half
+/// would otherwise count as a steady flow for as long as the event stays
+/// open; the band keeps what the gauge cannot rule out.
+pub const PRESSURE_DETECTION_MULTIPLE: f64 = 3.0;
 
 /// The inventory balance's uncertainty at one sample by cause, each
 /// expanded and squared (kg²).
@@ -92,9 +149,9 @@ impl Estimator {
     /// Liquid: m = k √(2 ρ ΔP), ΔP = p + ρ g (h − z), so
     /// ∂ln m/∂h = ρ g / (2 ΔP), ∂ln m/∂p = 1 / (2 ΔP) and
     /// ∂ln m/∂ln ρ = 1/2 + ρ g (h − z) / (2 ΔP).
-    /// Vapour: m ∝ p_upstream (choked, and nearly so below), so
-    /// ∂ln m/∂p = 1 / p_upstream.
-    pub(super) fn rate_fraction(&self, r: &Reading, unit: &Outflow) -> f64 {
+    /// (Vapour is not linear enough near ambient for a derivative: see
+    /// [`Estimator::unit_rates`].)
+    fn liquid_rate_fraction(&self, r: &Reading, unit: &Outflow) -> f64 {
         let Standard {
             level: u_level,
             pressure: u_pressure,
@@ -116,13 +173,65 @@ impl Estimator {
                     + density_term * density_term)
                     .sqrt()
             }
-            Phase::Vapour(_) => {
-                let upstream = self.vessel.ambient().si() + r.state.headspace.si();
-                u_pressure / upstream.max(1.0)
-            }
-            Phase::None => 0.0,
+            Phase::Vapour(_) | Phase::None => 0.0,
         };
         (COVERAGE_FACTOR * relative).min(0.9)
+    }
+
+    /// The flow through the unit hole at this sample, at the best values
+    /// and at the ends of the instruments' accuracy; `unit`'s rate becomes
+    /// zero where the gauge cannot tell the headspace from ambient (its
+    /// phase stays vapour: the hole is still in the gas space, and the
+    /// level cannot check what the band allows through it).
+    ///
+    /// Liquid: the rate's band by first-order propagation
+    /// (`liquid_rate_fraction`). Vapour: the flow at the gauge pressure
+    /// less and plus its expanded uncertainty (the transmitter's accuracy
+    /// and the reading's noise in quadrature). Near ambient the subcritical
+    /// flow goes as √Δp, so a derivative (choked: ∂ln m/∂p = 1/p_upstream)
+    /// would understate the band by orders of magnitude just where the
+    /// blowdown ends.
+    pub(super) fn unit_rates(&self, r: &Reading, unit: &mut Outflow) -> UnitRates {
+        let in_gas_space = unit.phase != Phase::Liquid
+            && self.vessel.vapour().is_some()
+            && r.state.level.si() <= self.params.hole_height_m;
+        if !in_gas_space {
+            return UnitRates::relative(unit.rate.si(), self.liquid_rate_fraction(r, unit));
+        }
+        // A gauge at or below ambient: no outflow at the reading, but the
+        // hole is in the gas space and the band still allows some.
+        if unit.phase == Phase::None {
+            unit.phase = Phase::Vapour(crate::model::GasRegime::Subcritical);
+        }
+        // Until the noise is known, the transmitter's accuracy stands in.
+        let noise = self
+            .pressure_noise
+            .standard_deviation_at_least(self.standard.pressure)
+            .max(self.standard.pressure_quantisation);
+        let spread = COVERAGE_FACTOR * quad(self.standard.pressure, noise);
+        let gauge = r.state.headspace.si();
+        let at = |headspace: f64| {
+            let state = TankState {
+                headspace: Pressure::pascals(headspace),
+                ..r.state
+            };
+            self.unit_outflow_in(&state, r).rate.si()
+        };
+        let low = at((gauge - spread).max(0.0));
+        let high = at(gauge + spread);
+        if gauge <= PRESSURE_DETECTION_MULTIPLE * noise {
+            unit.rate = MassRate::ZERO;
+            return UnitRates {
+                best: 0.0,
+                low: 0.0,
+                high,
+            };
+        }
+        UnitRates {
+            best: unit.rate.si(),
+            low: low.min(unit.rate.si()),
+            high: high.max(unit.rate.si()),
+        }
     }
 
     /// The inventory balance's uncertainty at this sample, by cause, each

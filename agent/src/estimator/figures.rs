@@ -56,7 +56,7 @@ impl Estimator {
         &mut self,
         r: &Reading,
         unit: Outflow,
-        fraction: f64,
+        rates: UnitRates,
         inventory: f64,
         gap_from: Option<i64>,
     ) -> Figures {
@@ -74,7 +74,7 @@ impl Estimator {
             cd_low: self.cd_band.0,
             cd_high: self.cd_band.1,
             inventory_kg: u,
-            rate_fraction: fraction,
+            rate_fraction: rates.fraction(),
             bridge_kg: self.bridge_uncertainty_kg,
             // The causes one by one are written when the whole estimate is
             // asked for.
@@ -90,15 +90,7 @@ impl Estimator {
         let cap = self.liquid_cap(inventory, u, &mut warnings);
         let shares = self.shares();
         let area_given = self.area_given;
-        let view = self.view(
-            area_given,
-            fit,
-            inventory,
-            u,
-            unit.rate.si(),
-            fraction,
-            &mut band,
-        );
+        let view = self.view(area_given, fit, inventory, u, rates, &mut band);
         let (model, method) = (view.model, view.method);
         // Whether the level can speak for the figure at all: not when all
         // of it is vapour. With no hole to go on, a level that has not
@@ -118,6 +110,11 @@ impl Estimator {
             }
         }
         let (low, best, high) = released;
+        if self.start_bridged && self.per_unit.all() > 0.0 {
+            // The lead-in's share of the model, at the figure shown.
+            let share = self.start_bridge_per_unit / self.per_unit.all();
+            self.quality.bridged_kg = self.bridged_kg + share * best.max(0.0);
+        }
         let (low, best, high) = self.ratchet(
             (low.max(0.0), best, high),
             u,
@@ -237,8 +234,7 @@ impl Estimator {
         fit: Option<(f64, f64)>,
         inventory: f64,
         u: f64,
-        unit_rate: f64,
-        fraction: f64,
+        rates: UnitRates,
         band: &mut BandCauses,
     ) -> View {
         let pu = &self.per_unit;
@@ -256,9 +252,9 @@ impl Estimator {
                     reason: Reason::GivenHole,
                     released: model,
                     rate: (
-                        cd_low * area * unit_rate * (1.0 - fraction).max(0.0),
-                        cd * area * unit_rate,
-                        cd_high * area * unit_rate * (1.0 + fraction),
+                        cd_low * area * rates.low,
+                        cd * area * rates.best,
+                        cd_high * area * rates.high,
                     ),
                     model: Some(model.1),
                 }
@@ -274,11 +270,7 @@ impl Estimator {
                     method: Method::FittedHole,
                     reason: Reason::FittedHole,
                     released: ((total - half).max(0.0), total, total + half),
-                    rate: (
-                        k_low * unit_rate * (1.0 - fraction).max(0.0),
-                        k * unit_rate,
-                        k_high * unit_rate * (1.0 + fraction),
-                    ),
+                    rate: (k_low * rates.low, k * rates.best, k_high * rates.high),
                     model: Some(total),
                 }
             }

@@ -59,7 +59,7 @@ impl Estimator {
         };
         self.bridged_kg += bridged;
         self.quality.bridged_kg += bridged;
-        self.per_unit.add(bridged / k, true);
+        self.per_unit.add_bridge(bridged / k);
     }
 
     /// Whether a level jumps too far from the last one used to be real: a

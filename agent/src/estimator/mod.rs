@@ -150,12 +150,12 @@ impl PerUnitArea {
     /// The rate at `at_ms` (times never go back: `push` is called only
     /// after the estimator has checked them), each lane by the trapezoid
     /// rule.
-    fn push(&mut self, at_ms: i64, rate: f64, liquid: bool, fraction: f64) {
+    fn push(&mut self, at_ms: i64, rate: UnitRates, liquid: bool) {
         let rates = [
-            rate,
-            if liquid { rate } else { 0.0 },
-            rate * (1.0 - fraction).max(0.0),
-            rate * (1.0 + fraction),
+            rate.best,
+            if liquid { rate.best } else { 0.0 },
+            rate.low,
+            rate.high,
         ];
         if let Some((previous_ms, previous)) = self.last {
             // Half the interval in seconds, by a multiplication: a division
@@ -168,17 +168,20 @@ impl PerUnitArea {
         self.last = Some((at_ms, rates));
     }
 
-    /// Adds an amount integrated elsewhere: a bridge (which the level on
-    /// the far side sees, so the fit counts it) or a lead-in before the
-    /// first level (which the inventory cannot see, so the fit leaves it
-    /// out).
-    fn add(&mut self, amount: f64, seen_by_level: bool) {
-        self.totals[Self::ALL] += amount;
-        if seen_by_level {
-            self.totals[Self::LIQUID] += amount;
+    /// Adds a gap's bridge, integrated elsewhere: the level on the far
+    /// side sees it, so the fit counts it.
+    fn add_bridge(&mut self, amount: f64) {
+        for total in &mut self.totals {
+            *total += amount;
         }
-        self.totals[Self::LOW] += amount;
-        self.totals[Self::HIGH] += amount;
+    }
+
+    /// Adds a lead-in before the first level, at one sample's rates for
+    /// `seconds`: which the inventory cannot see, so the fit leaves it out.
+    fn add_lead_in(&mut self, rate: UnitRates, seconds: f64) {
+        self.totals[Self::ALL] += rate.best * seconds;
+        self.totals[Self::LOW] += rate.low * seconds;
+        self.totals[Self::HIGH] += rate.high * seconds;
     }
 
     /// Forgets the last point, so the next starts a new piece (a gap
@@ -201,6 +204,37 @@ impl PerUnitArea {
 
     fn high(&self) -> f64 {
         self.totals[Self::HIGH]
+    }
+}
+
+/// The flow through the unit hole (1 m² at Cd 1, kg/s) at one sample: at
+/// the instruments' best values, and at the low and high ends of their
+/// accuracy.
+#[derive(Debug, Clone, Copy, Default)]
+struct UnitRates {
+    best: f64,
+    low: f64,
+    high: f64,
+}
+
+impl UnitRates {
+    /// A band given as a fraction of the rate either way.
+    fn relative(best: f64, fraction: f64) -> Self {
+        Self {
+            best,
+            low: best * (1.0 - fraction).max(0.0),
+            high: best * (1.0 + fraction),
+        }
+    }
+
+    /// The band's half-width as a fraction of the best rate, for the
+    /// account of the band (zero with no best rate).
+    fn fraction(&self) -> f64 {
+        if self.best > 0.0 {
+            (self.high - self.low) / (2.0 * self.best)
+        } else {
+            0.0
+        }
     }
 }
 
@@ -230,19 +264,22 @@ pub struct Estimator {
     before_start: Option<BeforeStart>,
     start: Option<Start>,
     /// Whether the start was bridged at the first sample's rate (a lead-in
-    /// longer than the gap limit).
+    /// longer than the gap limit), and that lead-in per unit Cd·A: it
+    /// counts among the bridged mass like any gap.
     start_bridged: bool,
+    start_bridge_per_unit: f64,
     /// The lead-in before the first level, per unit Cd·A: counted by the
     /// model, invisible to the inventory balance, so the level bound allows
     /// for it.
     lead_in_per_unit: f64,
     fit: LineFit,
-    /// Running mean square of second differences of the level (noise).
-    second_diff_sq: f64,
-    second_diff_n: u64,
-    /// The level noise, as `measure_noise` last found it.
+    /// The level's noise, from its second differences.
+    level_noise_meter: band::NoiseMeter,
+    /// The level noise, as `note_level` last found it.
     noise: f64,
-    previous_levels: [Option<f64>; 2],
+    /// The headspace reading's noise, from its second differences: below
+    /// a few times it, a gauge pressure is not told from ambient.
+    pressure_noise: band::NoiseMeter,
     /// A level that jumped from the last one used, waiting for confirmation.
     pending_jump: Option<f64>,
     recent_inventory: Window,
@@ -356,11 +393,11 @@ impl Estimator {
             before_start: None,
             start: None,
             start_bridged: false,
+            start_bridge_per_unit: 0.0,
             lead_in_per_unit: 0.0,
             fit: LineFit::default(),
-            second_diff_sq: 0.0,
-            second_diff_n: 0,
-            previous_levels: [None, None],
+            level_noise_meter: band::NoiseMeter::default(),
+            pressure_noise: band::NoiseMeter::default(),
             pending_jump: None,
             recent_inventory: Window::new(INVENTORY_RATE_WINDOW_MS),
             last: None,
@@ -466,11 +503,13 @@ impl Estimator {
         if bridging {
             self.per_unit.break_here();
         }
-        let unit = self.unit_outflow(&reading);
-        let fraction = self.rate_fraction(&reading, &unit);
+        if self.tank.pressure.is_some() && !reading.held.pressure {
+            self.pressure_noise.note(reading.state.headspace.si());
+        }
+        let mut unit = self.unit_outflow(&reading);
+        let rates = self.unit_rates(&reading, &mut unit);
         let liquid = unit.phase == Phase::Liquid;
-        self.per_unit
-            .push(reading.at_ms, unit.rate.si(), liquid, fraction);
+        self.per_unit.push(reading.at_ms, rates, liquid);
         let mass_flow = reading.density * reading.transfer;
         let _ = self.transferred.push(reading.at_ms, mass_flow);
         let _ = self
@@ -504,7 +543,7 @@ impl Estimator {
             None if first && self.start_bridged => Some(self.start_ms),
             None => None,
         };
-        Some(self.compute(&reading, unit, fraction, inventory, gap_from))
+        Some(self.compute(&reading, unit, rates, inventory, gap_from))
     }
 
     /// [`Estimator::push`], then [`Estimator::estimate`]: the whole estimate
@@ -657,8 +696,13 @@ impl Estimator {
 
     /// The flow through the unit hole (1 m² at Cd 1) in this state.
     fn unit_outflow(&self, r: &Reading) -> Outflow {
+        self.unit_outflow_in(&r.state, r)
+    }
+
+    /// The flow through the unit hole in `state`, at the reading's density.
+    fn unit_outflow_in(&self, state: &TankState, r: &Reading) -> Outflow {
         self.vessel.outflow_at(
-            &r.state,
+            state,
             &self.unit_hole,
             DischargeCoefficient::CONSERVATIVE,
             Density::kg_per_cubic_metre(r.density),
@@ -666,26 +710,23 @@ impl Estimator {
     }
 
     fn note_level(&mut self, level: f64) {
-        if let [Some(a), Some(b)] = self.previous_levels {
-            let d2 = level - 2.0 * b + a;
-            self.second_diff_n += 1;
-            self.second_diff_sq += (d2 * d2 - self.second_diff_sq) / self.second_diff_n as f64;
+        if self.level_noise_meter.note(level) {
             self.noise = self.measure_noise();
         }
-        self.previous_levels = [self.previous_levels[1], Some(level)];
-    }
-
-    /// The level noise: white noise of standard deviation s gives second
-    /// differences of variance 6 s²; never below the register's
-    /// quantisation (step / sqrt 12). Kept up to date by `note_level`: it
-    /// is read several times a sample.
-    fn level_noise(&self) -> f64 {
-        self.noise
     }
 
     fn measure_noise(&self) -> f64 {
-        let measured = (self.second_diff_sq / 6.0).sqrt();
-        measured.max(self.standard.level_quantisation).max(1e-6)
+        self.level_noise_meter
+            .standard_deviation()
+            .max(self.standard.level_quantisation)
+            .max(1e-6)
+    }
+
+    /// The level noise, never below the register's quantisation (step /
+    /// √12). Kept up to date by `note_level`: it is read several times a
+    /// sample.
+    fn level_noise(&self) -> f64 {
+        self.noise
     }
 }
 

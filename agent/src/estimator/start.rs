@@ -80,14 +80,10 @@ impl Estimator {
                 transfer: first.transfer,
                 held: Held::default(),
             };
-            let unit = self.unit_outflow(&reading);
-            let fraction = self.rate_fraction(&reading, &unit);
-            self.per_unit.push(
-                self.start_ms,
-                unit.rate.si(),
-                unit.phase == Phase::Liquid,
-                fraction,
-            );
+            let mut unit = self.unit_outflow(&reading);
+            let rates = self.unit_rates(&reading, &mut unit);
+            self.per_unit
+                .push(self.start_ms, rates, unit.phase == Phase::Liquid);
             let flow = density * first.transfer;
             let _ = self.transferred.push(self.start_ms, flow);
             let _ = self.transferred_magnitude.push(self.start_ms, flow.abs());
@@ -99,9 +95,11 @@ impl Estimator {
                 });
             }
         } else if lead_ms > 0 {
-            let unit = self.unit_outflow(first);
-            let lead = unit.rate.si() * lead_ms as f64 / 1000.0;
-            self.per_unit.add(lead, false);
+            let mut unit = self.unit_outflow(first);
+            let rates = self.unit_rates(first, &mut unit);
+            let seconds = lead_ms as f64 / 1000.0;
+            self.per_unit.add_lead_in(rates, seconds);
+            let lead = rates.best * seconds;
             // A liquid lead-in is liquid the level did not see (the bound
             // below allows for it); a vapour one is vapour.
             if unit.phase == Phase::Liquid {
@@ -109,6 +107,7 @@ impl Estimator {
             }
             if lead_ms > self.gap_limit_ms {
                 self.start_bridged = true;
+                self.start_bridge_per_unit = lead;
                 self.quality.gaps_bridged += 1;
                 self.quality.longest_gap_s =
                     self.quality.longest_gap_s.max(lead_ms as f64 / 1000.0);

@@ -123,6 +123,11 @@ pub fn reason_text(e: &Estimate, p: &LeakParams, people: &Presentation) -> Strin
         Reason::NotEnoughDrop => {
             "no hole size given and not enough level drop to fit one yet; the figure is the level balance, and the rate its slope over the last minute".into()
         }
+        // The level's slope can show a flow before the drop is beyond the
+        // instruments' uncertainty: say which it is, not "no flow".
+        Reason::NoLossSeen if e.rate_best_kg_s > 0.0 => {
+            "no loss seen beyond the instruments' uncertainty yet: the figure is the level balance (near zero), and the rate is the level's slope over the last minute; the band's high end is what the level cannot yet rule out".into()
+        }
         Reason::NoLossSeen => {
             "no loss seen beyond the instruments' uncertainty yet: the figure is the level balance (near zero), and no flow is shown; the band's high end is what the level cannot yet rule out".into()
         }

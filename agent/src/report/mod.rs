@@ -46,8 +46,38 @@ pub fn duration(t: TimeSpan) -> String {
     }
 }
 
+/// The command that confirms a suspected loss as an event from where the
+/// unexplained fall began, ready to paste into a POSIX shell: a tank id
+/// with anything but plain characters is single-quoted.
+pub fn confirm_loss_command(tank: &str, since_ms: i64) -> String {
+    let plain = |c: char| c.is_ascii_alphanumeric() || "-_.,:/@%+=".contains(c);
+    let tank = if !tank.is_empty() && tank.chars().all(plain) {
+        tank.to_string()
+    } else {
+        format!("'{}'", tank.replace('\'', r"'\''"))
+    };
+    format!(
+        "leaktally leak open --tank {tank} --since {}",
+        rfc3339(since_ms)
+    )
+}
+
 #[cfg(test)]
 mod tests {
+    #[test]
+    fn the_loss_confirm_command_quotes_a_tank_id_for_the_shell() {
+        assert_eq!(
+            confirm_loss_command("FF-T12", 0),
+            "leaktally leak open --tank FF-T12 --since 1970-01-01T00:00:00.000Z"
+        );
+        // POSIX shell quoting (IEEE Std 1003.1, 2.2.3): inside single
+        // quotes nothing is special, and a quote is ended, escaped, reopened.
+        assert_eq!(
+            confirm_loss_command("West tank's; rm", 0),
+            "leaktally leak open --tank 'West tank'\\''s; rm' --since 1970-01-01T00:00:00.000Z"
+        );
+    }
+
     use super::*;
 
     #[test]

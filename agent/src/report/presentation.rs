@@ -91,6 +91,19 @@ impl Presentation {
         self.strftime(at_ms, "%H:%M:%S")
     }
 
+    /// A time of day in the site's zone by `pattern` (jiff's `strftime`),
+    /// with its date in front when that is not the same local day as
+    /// `now_ms`: a forecast past midnight or a crossing yesterday must not
+    /// read as today.
+    pub fn clock_near(&self, at_ms: i64, now_ms: i64, pattern: &str) -> String {
+        let day = |ms: i64| self.strftime(ms, "%Y-%m-%d");
+        if day(at_ms) == day(now_ms) {
+            self.strftime(at_ms, pattern)
+        } else {
+            self.strftime(at_ms, &format!("%Y-%m-%d {pattern}"))
+        }
+    }
+
     /// A time in the site's zone by a `strftime` pattern (jiff's).
     pub fn strftime(&self, at_ms: i64, pattern: &str) -> String {
         match jiff::Timestamp::from_millisecond(to_nearest_second(at_ms)) {
@@ -317,6 +330,15 @@ mod tests {
         assert_eq!(oslo.zone_text(summer), "Europe/Oslo, UTC+02:00");
         // 2026-12-01T12:00:00Z: winter, UTC+01:00.
         assert_eq!(oslo.clock(1_796_126_400_000), "13:00:00");
+        // A day later in Oslo's terms carries its date; the same day does not.
+        assert_eq!(
+            oslo.clock_near(1_796_126_400_000, 1_796_126_400_000 - 3_600_000, "%H:%M"),
+            "13:00"
+        );
+        assert_eq!(
+            oslo.clock_near(1_796_126_400_000 + 86_400_000, 1_796_126_400_000, "%H:%M"),
+            "2026-12-02 13:00"
+        );
         let e = Presentation::new("Europe/Nowhere", Units::Metric).unwrap_err();
         assert!(e.to_string().contains("IANA name"), "{e}");
     }

@@ -134,7 +134,8 @@ impl Watch {
                         "suspected_loss = \"open\": opening an event from then".to_string()
                     } else {
                         format!(
-                            "check the tank; if it leaks, confirm with: leaktally leak open --tank {tank} --since {since}"
+                            "check the tank; if it leaks, confirm with: {}",
+                            crate::report::confirm_loss_command(tank, a.since_ms)
                         )
                     };
                     warn!(

@@ -34,8 +34,9 @@ pub struct Inputs<'a> {
     pub started_ms: i64,
 }
 
-/// One metric family being written.
-struct Family<'a> {
+/// One metric family being written (the fleet view writes its own with
+/// it).
+pub(crate) struct Family<'a> {
     out: &'a mut String,
     name: &'static str,
 }
@@ -56,12 +57,17 @@ impl Family<'_> {
         let _ = writeln!(self.out, " {}", number(value));
     }
 
-    fn value(&mut self, labels: &[(&str, &str)], value: f64) {
+    pub(crate) fn value(&mut self, labels: &[(&str, &str)], value: f64) {
         self.sample("", labels, value);
     }
 }
 
-fn family<'a>(out: &'a mut String, name: &'static str, kind: &str, help: &str) -> Family<'a> {
+pub(crate) fn family<'a>(
+    out: &'a mut String,
+    name: &'static str,
+    kind: &str,
+    help: &str,
+) -> Family<'a> {
     let _ = writeln!(out, "# HELP {name} {help}");
     let _ = writeln!(out, "# TYPE {name} {kind}");
     Family { out, name }

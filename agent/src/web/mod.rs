@@ -87,7 +87,7 @@ pub const METRICS_CONTENT_TYPE: &str = "text/plain; version=0.0.4; charset=utf-8
 /// The page's content security policy: no inline script or style, nothing
 /// from elsewhere, no frames, no forms. Text is escaped anyway; this is the
 /// second line.
-const PAGE_POLICY: &str = "default-src 'none'; script-src 'self'; style-src 'self'; img-src 'self'; \
+pub(crate) const PAGE_POLICY: &str = "default-src 'none'; script-src 'self'; style-src 'self'; img-src 'self'; \
 connect-src 'self'; base-uri 'none'; form-action 'none'; frame-ancestors 'none'";
 
 const STYLE: &str = include_str!("assets/leaktally.css");
@@ -472,7 +472,7 @@ where
         .map_err(|e| Failure::Unavailable(format!("a database read failed: {e}")))?
 }
 
-fn text(status: StatusCode, body: String) -> Response {
+pub(crate) fn text(status: StatusCode, body: String) -> Response {
     (
         status,
         [(header::CONTENT_TYPE, "text/plain; charset=utf-8")],
@@ -481,7 +481,7 @@ fn text(status: StatusCode, body: String) -> Response {
         .into_response()
 }
 
-fn json<T: Serialize>(status: StatusCode, value: &T) -> Response {
+pub(crate) fn json<T: Serialize>(status: StatusCode, value: &T) -> Response {
     match serde_json::to_string_pretty(value) {
         Ok(mut body) => {
             body.push('\n');
@@ -764,15 +764,15 @@ async fn metrics_text(State(shared): State<Arc<Shared>>) -> Response {
     }
 }
 
-async fn style() -> Response {
+pub(crate) async fn style() -> Response {
     asset("text/css; charset=utf-8", STYLE)
 }
 
-async fn script() -> Response {
+pub(crate) async fn script() -> Response {
     asset("text/javascript; charset=utf-8", SCRIPT)
 }
 
-async fn icon() -> Response {
+pub(crate) async fn icon() -> Response {
     asset("image/svg+xml", ICON)
 }
 

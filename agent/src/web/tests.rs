@@ -577,7 +577,8 @@ async fn a_suspected_loss_is_shown_on_the_page_and_in_the_metrics() {
         "{page}"
     );
     assert!(
-        page.contains("leaktally leak open --tank T&lt;1&gt;&amp;&quot;x&quot; --since 2023-11-14T22:13:20.000Z"),
+        // Quoted for the shell, then escaped for HTML.
+        page.contains("leaktally leak open --tank &#39;T&lt;1&gt;&amp;&quot;x&quot;&#39; --since 2023-11-14T22:13:20.000Z"),
         "{page}"
     );
     assert!(page.contains("not a measurement"));

@@ -26,12 +26,12 @@ fn parts(text: &str) -> (&str, &str) {
 
 /// The four headline tiles: released so far, flowing now, the forecast,
 /// and the reportable quantities.
-pub(super) fn figures(id: i64, est: &EstimateView, people: &Presentation, now_ms: i64) -> Html {
+pub(crate) fn figures(id: i64, est: &EstimateView, people: &Presentation, now_ms: i64) -> Html {
     let mut out = markup!(r#"<div class="figures">"#);
     out.push(released(id, est, people));
     out.push(flowing(id, est, people));
     out.push(forecast(id, est, people, now_ms));
-    out.push(reportable(id, est, people));
+    out.push(reportable(id, est, people, now_ms));
     markup!(&mut out, "\n</div>\n");
     out
 }
@@ -79,7 +79,7 @@ fn flowing(id: i64, est: &EstimateView, people: &Presentation) -> Html {
 /// totals at two times ahead; or why there is none.
 fn forecast(id: i64, est: &EstimateView, people: &Presentation, now_ms: i64) -> Html {
     let mass = |kg: f64| people.mass(Mass::kilograms(kg));
-    let at = |ms: i64| people.strftime(ms, "%H:%M %Z");
+    let at = |ms: i64| people.clock_near(ms, now_ms, "%H:%M %Z");
     let body = match &est.forecast {
         Some(f) if f.stops_after_s.is_finite() => {
             let stop_ms = f.made_at_ms + (f.stops_after_s * 1000.0) as i64;
@@ -92,7 +92,7 @@ fn forecast(id: i64, est: &EstimateView, people: &Presentation, now_ms: i64) -> 
                 total = figure("forecast-total-kg", id, &mass(f.total_at_stop_kg), true),
                 inn = span(stop_ms - now_ms),
                 machine = crate::report::rfc3339(stop_ms),
-                stop = people.strftime(stop_ms, "%H:%M:%S %Z"),
+                stop = people.clock_near(stop_ms, now_ms, "%H:%M:%S %Z"),
                 at15 = at(f.made_at_ms + 15 * 60_000),
                 q = figure("forecast-15min-kg", id, &mass(f.total_in_15_min_kg), true),
                 at60 = at(f.made_at_ms + 60 * 60_000),
@@ -118,7 +118,7 @@ fn forecast(id: i64, est: &EstimateView, people: &Presentation, now_ms: i64) -> 
 
 /// The reportable quantities: each crossed (by the best estimate, or by
 /// the band's high end), or how far off.
-fn reportable(id: i64, est: &EstimateView, people: &Presentation) -> Html {
+fn reportable(id: i64, est: &EstimateView, people: &Presentation, now_ms: i64) -> Html {
     let mut out = markup!(
         r#"
 <div class="figure reportable">
@@ -135,7 +135,7 @@ fn reportable(id: i64, est: &EstimateView, people: &Presentation) -> Html {
         out.extend(
             est.crossings
                 .iter()
-                .map(|c| crossing(id, c, est.released_best_kg, people)),
+                .map(|c| crossing(id, c, est.released_best_kg, people, now_ms)),
         );
         markup!(&mut out, "</ul>");
     }
@@ -146,13 +146,13 @@ fn reportable(id: i64, est: &EstimateView, people: &Presentation) -> Html {
 /// One reportable quantity: when the best estimate crossed it, or when the
 /// band's high end did, or how far off it is. Times as a clock in the
 /// site's zone (the full time is in the element's `datetime`).
-fn crossing(id: i64, c: &Crossing, released_kg: f64, people: &Presentation) -> Html {
+fn crossing(id: i64, c: &Crossing, released_kg: f64, people: &Presentation, now_ms: i64) -> Html {
     let q = people.mass(Mass::kilograms(c.quantity_kg));
     let clock = |ms: i64| {
         markup!(
             r#"<time datetime="{machine}">{clock}</time>"#,
             machine = crate::report::rfc3339(ms),
-            clock = people.strftime(ms, "%H:%M:%S %Z")
+            clock = people.clock_near(ms, now_ms, "%H:%M:%S %Z")
         )
     };
     let crossed = c.at_ms.map_or(Html::new(), |at| {

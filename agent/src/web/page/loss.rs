@@ -28,7 +28,7 @@ pub(super) fn list(losses: &[Suspected], people: &Presentation) -> Html {
         let volume = people.volume(Mass::from_si(a.volume_m3.max(0.0) * rho), s.density);
         let rate = people.rate(MassRate::from_si(a.rate_m3_s.max(0.0) * rho));
         let since = rfc3339(a.since_ms);
-        let command = format!("leaktally leak open --tank {tank} --since {since}");
+        let command = crate::report::confirm_loss_command(tank, a.since_ms);
         markup!(
             &mut out,
             r#"<section class="alarm" role="alert" data-field="suspected-loss" data-tank="{tank}">
