@@ -100,6 +100,11 @@ fn metric(web: &str, name: &str) -> Option<f64> {
     })
 }
 
+/// The keys of estimates up to `at_ms` (the closed estimate's time).
+fn until(keys: Vec<(i64, i64, i64)>, at_ms: i64) -> Vec<(i64, i64, i64)> {
+    keys.into_iter().filter(|k| k.2 <= at_ms).collect()
+}
+
 /// Every stored estimate from the first published one on arrived, once
 /// each after deduplication, in order.
 fn assert_every_estimate_arrived(plant: &Plant, event: i64, keys: &[(i64, i64, i64)]) {
@@ -169,10 +174,13 @@ fn an_events_documents_arrive_in_order_then_its_summary_and_the_last_will_says_o
         })
         .to_vec();
 
-    // Every estimate, in order; the last status document is the closed one.
-    let keys = keys_on(&received, &status);
-    let closed_at = keys.last().unwrap().2;
-    assert_every_estimate_arrived(&plant, event, &keys[..keys.len() - 1]);
+    // Every estimate up to the close, in order (a close drops the estimates
+    // of samples after its time, which may have been published already);
+    // the last status document is the closed one.
+    let local = plant.status(Some(event));
+    let closed_at = local["events"][0]["estimate"]["at_ms"].as_i64().unwrap();
+    let keys = until(keys_on(&received, &status), closed_at);
+    assert_every_estimate_arrived(&plant, event, &keys);
     let docs: Vec<Value> = received
         .iter()
         .filter(|m| m.topic == status || m.topic == summary)
@@ -182,7 +190,6 @@ fn an_events_documents_arrive_in_order_then_its_summary_and_the_last_will_says_o
     assert_eq!(last["events"][0]["state"], "closed", "{last}");
     // The summary is the document `status EVENT --json` shows, figures and
     // all.
-    let local = plant.status(Some(event));
     for field in ["state", "revision", "closed_at_ms", "start_ms"] {
         assert_eq!(
             last["events"][0][field], local["events"][0][field],
@@ -433,4 +440,121 @@ fn a_broker_that_wants_a_client_certificate_takes_the_agents() {
         !out.status.success(),
         "a client without a certificate subscribed"
     );
+}
+
+/// Issue 18 end to end: two simulated sites publish through one broker to
+/// `leaktally fleet`; the broker is stopped for 30 s in the middle of their
+/// events and started again; every estimate still arrives (dedupe key, in
+/// order, none lost), both outboxes drain, and once the events close the
+/// view's final totals are each site's `status ID --json`, bit for bit.
+#[test]
+fn two_sites_through_a_broker_outage_and_the_fleet_view_matches_each_sites_status() {
+    let test = "two_sites_through_a_broker_outage_and_the_fleet_view_matches_each_sites_status";
+    if !broker::available(test, false) {
+        return;
+    }
+    let scratch = crate::util::Scratch::new("mqtt-fleet");
+    let mut broker = Broker::start(&scratch, Options::default().password("depot", "s3cret"));
+    let (north, _) = plant("mqtt-north", &broker, "site_id = \"north\"\n");
+    let (south, _) = plant("mqtt-south", &broker, "site_id = \"south\"\n");
+    let mut sub = broker.subscribe_persistent("leaktally/+/events/#", "fleet-e2e-watch");
+    let password = broker.dir.join("agent-password");
+    let stderr = scratch.path("fleet.stderr");
+    let _view = Server::start(
+        "leaktally fleet",
+        Command::new(crate::util::binary("leaktally"))
+            .arg("fleet")
+            .args(["--mqtt", &broker.address(), "--username", "depot"])
+            .arg("--password-file")
+            .arg(&password)
+            .args(["--listen", "127.0.0.1:0"]),
+        stderr.clone(),
+    );
+    let mut view = String::new();
+    wait_for("the view to listen", Duration::from_secs(15), || {
+        let log = std::fs::read_to_string(&stderr).unwrap_or_default();
+        log.split("fleet view on http://")
+            .nth(1)
+            .and_then(|rest| rest.split_once('/'))
+            .map(|(a, _)| view = a.to_owned())
+            .is_some()
+    });
+    let fleet = |view: &str| -> Value {
+        serde_json::from_str(&http(view, "GET", "/api/fleet").unwrap().body).unwrap()
+    };
+
+    let _north_daemon = north.daemon("daemon");
+    let _south_daemon = south.daemon("daemon");
+    let a = event_id(&north.open_leak(LeakOpen::tank("FF-T12").hole(40.0, 0.3, 0.61)));
+    let b = event_id(&south.open_leak(LeakOpen::tank("FF-T20").hole(35.0, 0.5, 0.61)));
+    wait_for(
+        "both sites' events in the view",
+        Duration::from_secs(30),
+        || {
+            let doc = fleet(&view);
+            doc["events"].as_array().is_some_and(|e| e.len() == 2)
+                && doc["sites"]
+                    .as_array()
+                    .is_some_and(|s| s.len() == 2 && s.iter().all(|s| s["state"] == "online"))
+        },
+    );
+
+    broker.stop();
+    std::thread::sleep(Duration::from_secs(30));
+    assert!(outbox_depth(&north) >= 20 && outbox_depth(&south) >= 20);
+    broker.restart();
+    wait_for("both outboxes to drain", Duration::from_secs(40), || {
+        outbox_depth(&north) == 0 && outbox_depth(&south) == 0
+    });
+    north.ok(&["leak", "close", &a.to_string()]);
+    south.ok(&["leak", "close", &b.to_string()]);
+    let doc = {
+        let mut last = Value::Null;
+        wait_for(
+            "both events closed in the view",
+            Duration::from_secs(30),
+            || {
+                last = fleet(&view);
+                last["closed"].as_array().is_some_and(|c| c.len() == 2)
+                    && last["events"].as_array().is_some_and(|e| e.is_empty())
+            },
+        );
+        last
+    };
+    for (plant, site, event) in [(&north, "north", a), (&south, "south", b)] {
+        let local = plant.status(Some(event));
+        let local = &local["events"][0];
+        let shown = doc["closed"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .find(|e| e["site"] == site && e["event"] == event)
+            .unwrap_or_else(|| panic!("{site} event {event} not in {doc}"));
+        for field in ["revision", "closed_at_ms", "start_ms"] {
+            assert_eq!(shown[field], local[field], "{site} {field}");
+        }
+        for field in [
+            "at_ms",
+            "released_best_kg",
+            "released_low_kg",
+            "released_high_kg",
+            "rate_best_kg_s",
+        ] {
+            assert_eq!(
+                shown["estimate"][field], local["estimate"][field],
+                "{site} {field}"
+            );
+        }
+        // And every estimate of the event arrived, in order, none lost.
+        let status = format!("leaktally/{site}/events/{event}/status");
+        let stored_last = *stored_times(plant, event).last().unwrap();
+        let received = sub
+            .wait_for("every estimate", Duration::from_secs(15), |m| {
+                keys_on(m, &status).iter().any(|k| k.2 >= stored_last)
+            })
+            .to_vec();
+        let closed_at = local["estimate"]["at_ms"].as_i64().unwrap();
+        let keys = until(keys_on(&received, &status), closed_at);
+        assert_every_estimate_arrived(plant, event, &keys);
+    }
 }

@@ -40,7 +40,8 @@
 //! * `mqtt`: publishing to a real broker (Debian's mosquitto): an event's
 //!   documents in order, the last will, a 30 s broker outage, a daemon
 //!   killed while the broker is down, TLS with a password, anonymous
-//!   clients refused, a client certificate.
+//!   clients refused, a client certificate; two sites through a broker
+//!   outage to `leaktally fleet`, whose totals match each site's.
 //! * `broker`: the mosquitto harness (start, stop, restart, subscribers).
 //! * `util`: shared helpers.
 
