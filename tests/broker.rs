@@ -115,8 +115,9 @@ pub fn available(test: &str, tls: bool) -> bool {
             .is_ok()
     };
     let mut missing = Vec::new();
+    let broker = mosquitto();
     for (program, arg, package) in [
-        ("mosquitto", "-h", "mosquitto"),
+        (broker.to_str().unwrap_or("mosquitto"), "-h", "mosquitto"),
         ("mosquitto_sub", "--help", "mosquitto-clients"),
         ("mosquitto_passwd", "-h", "mosquitto"),
     ] {
@@ -226,7 +227,7 @@ impl Broker {
             .append(true)
             .open(self.dir.join("mosquitto.stderr"))
             .unwrap();
-        let child = Command::new("mosquitto")
+        let child = Command::new(mosquitto())
             .arg("-c")
             .arg(&self.config)
             .stdin(Stdio::null())
@@ -507,6 +508,20 @@ impl Drop for Subscriber {
     fn drop(&mut self) {
         let _ = self.child.kill();
         let _ = self.child.wait();
+    }
+}
+
+/// The broker's program: on the PATH, or where Debian puts it (/usr/sbin,
+/// which a user's PATH may lack).
+pub fn mosquitto() -> PathBuf {
+    let sbin = Path::new("/usr/sbin/mosquitto");
+    let on_path = std::env::var_os("PATH").is_some_and(|path| {
+        std::env::split_paths(&path).any(|dir| dir.join("mosquitto").is_file())
+    });
+    if !on_path && sbin.is_file() {
+        sbin.to_owned()
+    } else {
+        PathBuf::from("mosquitto")
     }
 }
 

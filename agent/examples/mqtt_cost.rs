@@ -298,7 +298,13 @@ impl Broker {
                 "listener {port} 127.0.0.1\nallow_anonymous true\npersistence false\nmax_queued_messages 1000000\nmax_inflight_messages 100\n"
             ),
         )?;
-        let child = Command::new("mosquitto")
+        // Debian puts it in /usr/sbin, which a user's PATH may lack.
+        let program = if Path::new("/usr/sbin/mosquitto").is_file() {
+            "/usr/sbin/mosquitto"
+        } else {
+            "mosquitto"
+        };
+        let child = Command::new(program)
             .arg("-c")
             .arg(&config)
             .stdout(Stdio::null())
