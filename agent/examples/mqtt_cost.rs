@@ -9,7 +9,8 @@
 //! 1. the size of an event's status document (the payload of
 //!    `.../events/ID/status`), built by the daemon's own code from an
 //!    estimate of FF-T12 of config/demo.toml ten minutes into a leak, and
-//!    of a reading line (`.../tanks/TANK/reading`);
+//!    of a reading (`.../tanks/TANK/reading`: the line `leaktally poll`
+//!    prints);
 //! 2. the outbox's insert cost: MESSAGES status documents put in the
 //!    outbox 100 to a transaction (a tick's commit carries its messages),
 //!    the database in WAL mode with `synchronous = FULL` as the daemon's;
@@ -140,10 +141,20 @@ fn documents() -> anyhow::Result<(String, String)> {
         temperature: None,
         leak_flag: Some(Some(false)),
     };
-    Ok((
-        serde_json::to_string(&doc)?,
-        serde_json::to_string(&sample)?,
-    ))
+    // FF-T12's index in config/demo.toml, so the line names its sensors.
+    let config = leaktally::config::load(
+        &Path::new(env!("CARGO_MANIFEST_DIR")).join("../config/demo.toml"),
+    )?;
+    let sample = TankSample {
+        tank: config
+            .tanks
+            .iter()
+            .position(|t| t.id == "FF-T12")
+            .unwrap_or(0),
+        ..sample
+    };
+    let line = leaktally::acquire::line::Line::of(&sample, &config);
+    Ok((serde_json::to_string(&doc)?, serde_json::to_string(&line)?))
 }
 
 /// The event's row, its estimate ten minutes in, and the site's
