@@ -37,10 +37,17 @@
 //!   `status --json`, and its metrics through prometheus-client.
 //! * `whatif`: `leaktally whatif` as a user runs it, the headspace read
 //!   from a database a daemon fills from the simulator.
+//! * `mqtt`: publishing to a real broker (Debian's mosquitto): an event's
+//!   documents in order, the last will, a 30 s broker outage, a daemon
+//!   killed while the broker is down, TLS with a password, anonymous
+//!   clients refused, a client certificate; two sites through a broker
+//!   outage to `leaktally fleet`, whose totals match each site's.
+//! * `broker`: the mosquitto harness (start, stop, restart, subscribers).
 //! * `util`: shared helpers.
 
 mod acquisition;
 mod bands;
+mod broker;
 mod daily;
 mod faults;
 mod fleet;
@@ -49,6 +56,7 @@ mod gaps;
 mod interop;
 mod longrun;
 mod loss;
+mod mqtt;
 mod operators;
 mod properties;
 mod python_env;

@@ -346,6 +346,17 @@ async fn daemon(
         &cancel,
         &tasks,
     );
+    // Rung after each commit: the outbox may hold new messages.
+    let outbox_bell = Arc::new(tokio::sync::Notify::new());
+    if let Some(mqtt) = &config.mqtt {
+        let publisher = crate::publish::Publisher {
+            mqtt: mqtt.clone(),
+            store: Arc::clone(&store),
+            state: tracker.outbox(),
+            bell: Arc::clone(&outbox_bell),
+        };
+        tasks.spawn(publisher.run(cancel.clone()));
+    }
     if let Some(listener) = listener {
         // The server reads the database through read-only connections of
         // its own, never through `store`, so it holds no handle that would
@@ -358,7 +369,8 @@ async fn daemon(
                 tracker.health(),
                 started,
             )
-            .with_losses(tracker.losses()),
+            .with_losses(tracker.losses())
+            .with_outbox(tracker.outbox()),
         );
         tasks.spawn(web::serve(listener, shared, cancel.clone()));
     }
@@ -410,6 +422,7 @@ async fn daemon(
                         abandoned = true;
                         break;
                     }
+                    outbox_bell.notify_one();
                 }
                 None => break,
             },
@@ -420,12 +433,14 @@ async fn daemon(
                     abandoned = true;
                     break;
                 }
+                outbox_bell.notify_one();
             }
             () = actions_wanted(doorbell.as_ref(), &mut actions) => {
                 if !actions_done(&signals, tracker.on_actions()).await {
                     abandoned = true;
                     break;
                 }
+                outbox_bell.notify_one();
                 // Also here: a loop without samples has no ticks.
                 check_clock(&tracker, &pulse);
             }

@@ -24,6 +24,8 @@
 //! * [`doorbell`]: how the CLI tells the daemon it recorded an action.
 //! * [`tracker`]: the daemon's open events, operator actions and writes.
 //! * [`web`]: the daemon's read-only responder page, JSON and metrics.
+//! * [`publish`]: the daemon's MQTT publisher: the outbox to the broker,
+//!   in order, under the topics of `publish::topics`.
 //! * [`fleet`]: `leaktally fleet`, the read-only central view of the sites
 //!   that publish to an MQTT broker.
 //! * [`commands`]: each subcommand's arguments and what it does.
@@ -46,6 +48,7 @@ pub mod logging;
 pub mod loss;
 pub mod model;
 pub mod plot;
+pub mod publish;
 pub mod readings;
 pub mod registers;
 pub mod report;
@@ -68,7 +71,7 @@ pub const LAYERS: &[&[&str]] = &[
     &["acquire"],
     &["estimator", "readings", "store"],
     &["plot", "status", "actions"],
-    &["tracker", "web"],
+    &["tracker", "web", "publish"],
     &["daemon", "fleet"],
     &["commands"],
     &["cli"],

@@ -14,6 +14,7 @@
 //! Architecture invariant: only this module knows register addresses and
 //! talks Modbus, and it only ever reads (see [`link`]).
 
+pub mod line;
 pub mod link;
 pub mod notices;
 pub mod plan;

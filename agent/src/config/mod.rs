@@ -23,6 +23,7 @@
 //!
 //! Left out: the defaults of the store.
 
+pub mod mqtt;
 mod problems;
 mod raw;
 mod register_map;
@@ -60,7 +61,7 @@ pub fn parse(text: &str, path: &Path) -> Result<Config, ConfigError> {
 }
 
 #[cfg(test)]
-pub(super) mod tests {
+pub(crate) mod tests {
     use super::*;
     use std::path::PathBuf;
 
@@ -83,7 +84,7 @@ pub(super) mod tests {
         assert!(seen >= 2, "expected the demo and the reference config");
     }
 
-    pub(super) const BASE: &str = r#"[site]
+    pub(crate) const BASE: &str = r#"[site]
 name = "x"
 [[device]]
 id = "d1"

@@ -19,6 +19,31 @@ pub struct RawConfig {
     pub tanks: Vec<RawTank>,
     /// The read-only web page; no server unless the section is there.
     pub web: Option<RawWeb>,
+    /// Publishing to an MQTT broker; none unless the section is there.
+    pub mqtt: Option<RawMqtt>,
+}
+
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct RawMqtt {
+    /// host:port of the broker.
+    pub broker: Spanned<String>,
+    /// TLS; on by default when `ca_file` is given.
+    pub tls: Option<Spanned<bool>>,
+    pub ca_file: Option<Spanned<String>>,
+    pub client_cert_file: Option<Spanned<String>>,
+    pub client_key_file: Option<Spanned<String>>,
+    pub username: Option<Spanned<String>>,
+    pub password_file: Option<Spanned<String>>,
+    /// Never taken: read only to say where the password goes instead.
+    pub password: Option<Spanned<toml::Value>>,
+    pub client_id: Option<Spanned<String>>,
+    pub topic_prefix: Option<Spanned<String>>,
+    pub site_id: Option<Spanned<String>>,
+    pub qos: Option<Spanned<u8>>,
+    pub readings_every_s: Option<Spanned<f64>>,
+    pub outbox_limit: Option<Spanned<usize>>,
+    pub keep_alive_s: Option<Spanned<u64>>,
 }
 
 #[derive(Debug, Deserialize)]

@@ -127,6 +127,9 @@ pub struct Config {
     pub tanks: Vec<Tank>,
     /// The read-only web page, when the config has a `[web]` section.
     pub web: Option<Web>,
+    /// Publishing to an MQTT broker, when the config has an `[mqtt]`
+    /// section.
+    pub mqtt: Option<super::mqtt::Mqtt>,
     /// `[site] suspected_loss`: what a suspected loss does where a tank
     /// does not say.
     pub suspected_loss: LossWatch,

@@ -197,32 +197,15 @@ pub fn document(
     let mut events = Vec::new();
     for row in rows {
         let estimate = store::latest_estimate(conn, &row)?;
-        let data_age_ms = estimate.as_ref().map(|e| now - e.at_ms);
-        let open = row.closed_at_ms.is_none();
-        events.push(EventStatus {
-            event: row.id,
-            tank: row.tank.clone(),
-            state: if row.closed_at_ms.is_some() {
-                "closed"
-            } else {
-                "open"
-            },
-            source: row.source.clone(),
-            start: report::rfc3339(row.start_ms),
-            start_ms: row.start_ms,
-            opened_at_ms: row.opened_at_ms,
-            closed_at_ms: row.closed_at_ms,
-            revision: row.revision,
-            params: row.params,
-            params_text: words::describe_params(&row.params, presentation),
-            released_volume: estimate
-                .as_ref()
-                .map(|e| Volumes::of(e.released_best_kg, e.density_kg_m3)),
-            data_age_ms,
-            stale: open && data_age_ms.unwrap_or(now - row.opened_at_ms) > stale_after,
-            estimate: estimate.map(|e| EstimateView::new(e, &row.params, presentation)),
-            tracking_error: untracked.get(&row.id).cloned(),
-        });
+        let tracking_error = untracked.get(&row.id).cloned();
+        events.push(event_status(
+            row,
+            estimate,
+            tracking_error,
+            now,
+            stale_after,
+            presentation,
+        ));
     }
     let state = heartbeat
         .as_ref()
@@ -251,6 +234,77 @@ pub fn document(
         daemon_last_seen_ms: heartbeat.map(|h| h.beat_at_ms),
         events,
     })
+}
+
+/// One event's entry, from its row and latest estimate, as of `now`.
+fn event_status(
+    row: EventRow,
+    estimate: Option<Estimate>,
+    tracking_error: Option<String>,
+    now: i64,
+    stale_after: i64,
+    presentation: &Presentation,
+) -> EventStatus {
+    let data_age_ms = estimate.as_ref().map(|e| now - e.at_ms);
+    let open = row.closed_at_ms.is_none();
+    EventStatus {
+        event: row.id,
+        tank: row.tank.clone(),
+        state: if open { "open" } else { "closed" },
+        source: row.source.clone(),
+        start: report::rfc3339(row.start_ms),
+        start_ms: row.start_ms,
+        opened_at_ms: row.opened_at_ms,
+        closed_at_ms: row.closed_at_ms,
+        revision: row.revision,
+        params: row.params,
+        params_text: words::describe_params(&row.params, presentation),
+        released_volume: estimate
+            .as_ref()
+            .map(|e| Volumes::of(e.released_best_kg, e.density_kg_m3)),
+        data_age_ms,
+        stale: open && data_age_ms.unwrap_or(now - row.opened_at_ms) > stale_after,
+        estimate: estimate.map(|e| EstimateView::new(e, &row.params, presentation)),
+        tracking_error,
+    }
+}
+
+/// The status document of one event as the running daemon publishes it
+/// (`crate::publish`): the document `leaktally status EVENT --json` shows,
+/// built from what the daemon holds at `now` (its own heartbeat is `now`,
+/// so it says running) without reading the database.
+pub fn published(
+    row: &EventRow,
+    estimate: Option<Estimate>,
+    tracking_error: Option<String>,
+    now: i64,
+    stale_after: i64,
+    presentation: &Presentation,
+) -> StatusDocument {
+    StatusDocument {
+        format: FORMAT,
+        generated_at: report::rfc3339(now),
+        generated_at_ms: now,
+        time_zone: presentation.zone_name.clone(),
+        units: presentation.units.name(),
+        presentation: presentation.clone(),
+        caution: report::CAUTION,
+        daemon_running: true,
+        daemon_stalled: false,
+        daemon_state: DaemonState::Running.name(),
+        daemon_busy_with: None,
+        daemon_last_seen: Some(report::rfc3339(now)),
+        daemon_last_seen_ms: Some(now),
+        daemon_clock_offset_ms: None,
+        events: vec![event_status(
+            row.clone(),
+            estimate,
+            tracking_error,
+            now,
+            stale_after,
+            presentation,
+        )],
+    }
 }
 
 impl StatusDocument {

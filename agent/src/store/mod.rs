@@ -37,6 +37,7 @@ pub mod estimates;
 pub mod events;
 pub mod health;
 pub mod heartbeat;
+pub mod outbox;
 pub mod samples;
 pub mod schema;
 #[cfg(test)]

@@ -228,6 +228,23 @@ const MIGRATIONS: &[Migration] = &[
     "#,
         Some(pack_history),
     ),
+    // 5: the outbox of messages for the MQTT broker (store::outbox), oldest
+    // first by seq (AUTOINCREMENT: a number is never given again, even once
+    // the outbox has emptied, so the publisher's place in it stays valid);
+    // kind is status, summary or reading; payload is JSON.
+    (
+        r#"
+    CREATE TABLE outbox (
+        seq     INTEGER PRIMARY KEY AUTOINCREMENT,
+        kind    TEXT NOT NULL,
+        event   INTEGER,
+        tank    TEXT,
+        at_ms   INTEGER NOT NULL,
+        payload TEXT NOT NULL
+    );
+    "#,
+        None,
+    ),
 ];
 
 /// Carries the rows of schema 3 over to schema 4, value for value: each

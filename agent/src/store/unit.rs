@@ -14,7 +14,7 @@
 use super::trim::{self, Retention, TrimState, TrimStep};
 use super::{ActionRow, Beat, EventRow, Heartbeat};
 use super::{StoreError, StoreResult};
-use super::{actions, estimates, events, heartbeat, samples};
+use super::{actions, estimates, events, heartbeat, outbox, samples};
 use crate::acquire::sample::TankSample;
 use crate::clock::ClockStep;
 use crate::estimate::{Estimate, Figures, LeakParams};
@@ -79,6 +79,23 @@ impl<'c> Reader<'c> {
     /// Whether an event revision has a latest whole estimate.
     pub fn has_latest(&self, event: i64, revision: i64) -> StoreResult<bool> {
         Ok(estimates::latest_estimate_with_version(self.conn, event, revision)?.is_some())
+    }
+
+    /// The whole estimate of an event's latest sample, of its revision.
+    pub fn latest_estimate(&self, row: &EventRow) -> StoreResult<Option<Estimate>> {
+        estimates::latest_estimate(self.conn, row)
+    }
+
+    /// Up to `n` outbox messages after sequence number `after`, oldest
+    /// first.
+    pub fn outbox_next(&self, after: i64, n: usize) -> StoreResult<Vec<outbox::Queued>> {
+        outbox::next(self.conn, after, n)
+    }
+
+    /// How many messages wait in the outbox, and the sample time of the
+    /// oldest.
+    pub fn outbox_depth(&self) -> StoreResult<(u64, Option<i64>)> {
+        Ok((outbox::depth(self.conn)?, outbox::oldest_ms(self.conn)?))
     }
 
     /// Whether any operator request waits.
@@ -253,6 +270,19 @@ impl<'c> Tx<'c> {
     ) -> StoreResult<()> {
         self.wrote()?;
         actions::finish_action_at(self.conn(), id, event, done, outcome, at_ms)
+    }
+
+    /// Puts messages in the outbox, in this unit, keeping it within
+    /// `limit`; returns how many older ones were given up.
+    pub fn enqueue(&mut self, messages: &[outbox::Message], limit: usize) -> StoreResult<u64> {
+        self.wrote()?;
+        outbox::enqueue(self.conn(), messages, limit)
+    }
+
+    /// Deletes the outbox messages the broker acknowledged.
+    pub fn outbox_delete(&mut self, seqs: &[i64]) -> StoreResult<()> {
+        self.wrote()?;
+        outbox::delete(self.conn(), seqs)
     }
 
     pub fn beat(&mut self, beat: &Beat) -> StoreResult<()> {

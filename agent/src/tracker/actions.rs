@@ -293,6 +293,14 @@ fn apply(
             {
                 tx.put_latest(event, row.revision, &latest)?;
             }
+            // The closing documents for the MQTT broker, in this unit.
+            if let Some(out) = super::outgoing::Outgoing::of(&cx.config)
+                && let Some(closed) = tx.event(event)?
+            {
+                let latest = tx.latest_estimate(&closed)?;
+                let messages = out.closed(&closed, latest, now);
+                tx.enqueue(&messages, out.limit)?;
+            }
             Ok(Ok(Done {
                 event: Some(event),
                 text: format!(

@@ -6,6 +6,7 @@
 
 use crate::acquire::sample::TankSample;
 use crate::estimate::{Estimate, Figures};
+use crate::store::outbox::Message;
 use crate::store::{StoreResult, Tx, block_of};
 use std::collections::{HashSet, VecDeque};
 use std::sync::Arc;
@@ -23,11 +24,16 @@ pub(super) struct Write {
     pub(super) figures: Vec<(i64, i64, Vec<Figures>)>,
     /// (event, revision, the whole estimate after the cycle).
     pub(super) latest: Vec<(i64, i64, Estimate)>,
+    /// Messages for the MQTT broker (`tracker::outgoing`), and the
+    /// outbox's bound.
+    pub(super) outbox: Vec<Message>,
+    pub(super) outbox_limit: usize,
 }
 
 impl Write {
-    /// Writes it, in the caller's unit.
-    pub(super) fn store(&self, tx: &mut Tx<'_>) -> StoreResult<()> {
+    /// Writes it, in the caller's unit; returns how many older outbox
+    /// messages were given up to the bound.
+    pub(super) fn store(&self, tx: &mut Tx<'_>) -> StoreResult<u64> {
         match (self.set, self.samples.first()) {
             (Some(set), Some(first)) => {
                 tx.insert_block(set, first.at_ms, &block_of(&self.samples))?;
@@ -42,7 +48,10 @@ impl Write {
         for (event, revision, estimate) in &self.latest {
             tx.put_latest(*event, *revision, estimate)?;
         }
-        Ok(())
+        if self.outbox.is_empty() {
+            return Ok(0);
+        }
+        tx.enqueue(&self.outbox, self.outbox_limit)
     }
 }
 

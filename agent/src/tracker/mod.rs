@@ -36,11 +36,13 @@
 //! the write-behind queue of what waits for the store; `build` how an
 //! event's estimator is built from the stored history; `actions` how an
 //! operator's request is applied; `watch` the suspected-loss watch over
-//! the tanks with no open event.
+//! the tanks with no open event; `outgoing` what goes in the outbox for the
+//! MQTT broker (`crate::publish` sends it; the tracker knows no MQTT).
 
 mod actions;
 mod backlog;
 mod build;
+mod outgoing;
 #[cfg(test)]
 mod tests;
 mod watch;
@@ -53,6 +55,7 @@ use crate::config::Config;
 use crate::estimate::Figures;
 use crate::estimator::Estimator;
 use crate::store::health::{StoreHealth, WriteFailure};
+use crate::store::outbox::{Kind, OutboxState};
 use crate::store::{Beat, EventRow, Lane, Store, StoreError, StoreResult};
 use actions::{Change, Context, Handled, apply_action};
 use backlog::{Backlog, Write};
@@ -78,6 +81,8 @@ const WARN_EVERY_ATTEMPTS: u64 = 30;
 /// hour of a 1,000-tank site at 1 s, some 300 MB. Event samples and
 /// estimates are never given up.
 const MAX_HELD_SAMPLES: usize = 2_000_000;
+/// How often the log repeats that the MQTT outbox is full.
+const OUTBOX_FULL_WARN_EVERY: Duration = Duration::from_secs(600);
 
 pub(super) struct OpenEvent {
     pub(super) row: EventRow,
@@ -145,6 +150,14 @@ pub struct Tracker {
     counts: Counts,
     /// The suspected-loss watch over tanks with no open event.
     watch: watch::Watch,
+    /// What goes in the outbox for the MQTT broker; `None` when the config
+    /// publishes nothing.
+    outgoing: Option<outgoing::Outgoing>,
+    /// The outbox as the page and the metrics show it.
+    outbox: Arc<OutboxState>,
+    /// When the log last said the outbox is full (then at most every
+    /// [`OUTBOX_FULL_WARN_EVERY`]).
+    outbox_full_warned: Option<Instant>,
 }
 
 impl Tracker {
@@ -158,8 +171,17 @@ impl Tracker {
         health: Arc<StoreHealth>,
     ) -> StoreResult<Self> {
         let watch = watch::Watch::new(&config);
+        let outgoing = outgoing::Outgoing::of(&config);
+        let outbox = Arc::new(if outgoing.is_some() {
+            OutboxState::configured()
+        } else {
+            OutboxState::default()
+        });
         let mut tracker = Self {
             watch,
+            outgoing,
+            outbox,
+            outbox_full_warned: None,
             config,
             store,
             clock,
@@ -261,6 +283,11 @@ impl Tracker {
         self.watch.board()
     }
 
+    /// The outbox's state, shared with the publisher and the web server.
+    pub fn outbox(&self) -> Arc<OutboxState> {
+        Arc::clone(&self.outbox)
+    }
+
     /// Whether the database is taking writes, shared for the web server.
     pub fn health(&self) -> Arc<StoreHealth> {
         Arc::clone(&self.health)
@@ -355,6 +382,7 @@ impl Tracker {
             set: self.set_of(&batch),
             ..Write::default()
         };
+        let now = self.clock.now_ms();
         for event in self.open.values_mut() {
             let figures: Vec<Figures> = batch
                 .iter()
@@ -364,10 +392,23 @@ impl Tracker {
             if !figures.is_empty() {
                 let (id, revision) = (event.row.id, event.row.revision);
                 if let Some(latest) = event.estimator.estimate() {
+                    if let Some(out) = &self.outgoing {
+                        write.outbox.push(out.status(
+                            &event.row,
+                            Some(latest.clone()),
+                            None,
+                            now,
+                            Kind::Status,
+                        ));
+                    }
                     write.latest.push((id, revision, latest));
                 }
                 write.figures.push((id, revision, figures));
             }
+        }
+        if let Some(out) = &mut self.outgoing {
+            write.outbox.extend(out.readings(&batch, &self.config));
+            write.outbox_limit = out.limit;
         }
         write.samples = batch;
         self.counts.acquired += write.samples.len() as u64;
@@ -445,20 +486,25 @@ impl Tracker {
             let result = self
                 .store
                 .write(Lane::Urgent, move |tx| {
+                    let mut dropped = 0;
                     for write in &chunk {
-                        write.store(tx)?;
+                        dropped += write.store(tx)?;
                     }
-                    match &beat {
+                    let waiting = match &beat {
                         Some(beat) => {
                             tx.beat(beat)?;
-                            tx.any_pending_action()
+                            tx.any_pending_action()?
                         }
-                        None => Ok(false),
-                    }
+                        None => false,
+                    };
+                    Ok((waiting, dropped))
                 })
                 .await;
             match result {
-                Ok(waiting) => {
+                Ok((waiting, dropped)) => {
+                    if dropped > 0 {
+                        self.outbox_full(dropped);
+                    }
                     done.beaten |= beating;
                     done.actions_waiting |= waiting;
                 }
@@ -480,6 +526,27 @@ impl Tracker {
         self.health
             .set_held(self.backlog.cycles(), self.backlog.samples());
         done
+    }
+
+    /// Counts the outbox messages given up to its bound, and says so in
+    /// the log (at most every [`OUTBOX_FULL_WARN_EVERY`]: a full outbox
+    /// gives up some every tick).
+    fn outbox_full(&mut self, dropped: u64) {
+        self.outbox.add_dropped(dropped);
+        let message = format!(
+            "the outbox for the MQTT broker is full ({} messages; the broker has not taken any for a long time): the oldest are being given up, readings first, then status documents a newer one of the same event replaces; {} so far",
+            self.outgoing.as_ref().map_or(0, |o| o.limit),
+            self.outbox.snapshot().dropped
+        );
+        if self
+            .outbox_full_warned
+            .is_none_or(|at| at.elapsed() >= OUTBOX_FULL_WARN_EVERY)
+        {
+            self.outbox_full_warned = Some(Instant::now());
+            warn!("{message}");
+        } else {
+            debug!("{message}");
+        }
     }
 
     fn on_write_failure(&mut self, e: &StoreError) {

@@ -569,3 +569,81 @@ async fn a_suspected_loss_opens_a_back_dated_event_where_the_site_says_so() {
     assert!(tracker.losses().snapshot().is_empty(), "stood down");
     close(tracker, store).await;
 }
+
+/// With `[mqtt]`, each cycle's estimate puts the event's status document
+/// in the outbox in the same commit (held with the samples while the
+/// database takes nothing, then stored with them, none lost), and a close
+/// puts the closed document under both the status and the summary.
+#[tokio::test(flavor = "multi_thread")]
+async fn the_outbox_gets_a_document_per_estimate_and_the_closing_ones() {
+    use crate::store::outbox::Kind;
+    let mut fx = Fixture::new("outbox");
+    fx.config = Arc::new(
+        crate::config::parse(
+            &format!("{}[mqtt]\nbroker = \"127.0.0.1:1\"\n", site()),
+            std::path::Path::new("site.toml"),
+        )
+        .unwrap(),
+    );
+    let start = store::now_ms() - 60_000;
+    let params = LeakParams {
+        hole_diameter_m: Some(0.02),
+        hole_height_m: 0.3,
+        cd: 0.61,
+        ..LeakParams::default()
+    };
+    let id = store::create_event(&fx.conn(), "T1", start, start, "operator", &params).unwrap();
+    let (mut tracker, store) = fx.tracker(Arc::new(Clock::system())).await;
+    let queued = |store: &Arc<Store>| {
+        let store = Arc::clone(store);
+        async move { store.read(|r| r.outbox_next(0, 1000)).await.unwrap() }
+    };
+    let holder = rusqlite::Connection::open(&fx.db).unwrap();
+    holder.execute_batch("BEGIN IMMEDIATE").unwrap();
+    for i in 1..=3 {
+        let at = start + 1000 * i;
+        tracker
+            .on_batch(vec![draining(0, start, at), sample(1, at)])
+            .await;
+    }
+    holder.execute_batch("COMMIT").unwrap();
+    tracker.retry_at = Some(Instant::now());
+    for i in 4..=5 {
+        let at = start + 1000 * i;
+        tracker
+            .on_batch(vec![draining(0, start, at), sample(1, at)])
+            .await;
+    }
+    let messages = queued(&store).await;
+    let times: Vec<(Kind, Option<i64>, i64)> = messages
+        .iter()
+        .map(|q| (q.message.kind, q.message.event, q.message.at_ms))
+        .collect();
+    let expected: Vec<_> = (1..=5)
+        .map(|i| (Kind::Status, Some(id), start + 1000 * i))
+        .collect();
+    assert_eq!(times, expected);
+    let doc: serde_json::Value = serde_json::from_str(&messages[4].message.payload).unwrap();
+    assert_eq!(doc["format"], crate::status::FORMAT);
+    assert_eq!(doc["events"][0]["event"], id);
+    assert_eq!(doc["events"][0]["revision"], 1);
+    assert_eq!(doc["events"][0]["estimate"]["at_ms"], start + 5000);
+
+    fx.request(
+        serde_json::json!({"kind": "close", "event": id, "note": null}),
+        start + 5500,
+    );
+    tracker.on_actions().await.unwrap();
+    let messages = queued(&store).await;
+    let [.., status, summary] = messages.as_slice() else {
+        panic!("{messages:?}")
+    };
+    assert_eq!(
+        (status.message.kind, summary.message.kind),
+        (Kind::Status, Kind::Summary)
+    );
+    assert_eq!(status.message.payload, summary.message.payload);
+    let doc: serde_json::Value = serde_json::from_str(&summary.message.payload).unwrap();
+    assert_eq!(doc["events"][0]["state"], "closed");
+    close(tracker, store).await;
+}

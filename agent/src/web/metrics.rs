@@ -16,6 +16,7 @@ use crate::config::{Config, LossWatch};
 use crate::loss::Standing;
 use crate::status::StatusDocument;
 use crate::store::health::HealthSnapshot;
+use crate::store::outbox::OutboxSnapshot;
 use std::fmt::Write as _;
 
 /// What the metrics are made of.
@@ -25,6 +26,8 @@ pub struct Inputs<'a> {
     pub tanks: &'a [TankSnapshot],
     pub doc: &'a StatusDocument,
     pub store: &'a HealthSnapshot,
+    /// The MQTT outbox (its families only when a broker is configured).
+    pub outbox: &'a OutboxSnapshot,
     /// The suspected losses standing, and how many were raised.
     pub losses: &'a [Standing],
     pub losses_raised: u64,
@@ -119,6 +122,50 @@ pub fn render(inputs: &Inputs<'_>) -> String {
         "Held samples of tanks with no open event given up to bound memory during a long outage.",
     )
     .value(&[], store.dropped_samples as f64);
+
+    let outbox = inputs.outbox;
+    if outbox.configured {
+        family(
+            &mut out,
+            "leaktally_mqtt_connected",
+            "gauge",
+            "1 while the agent is connected to its MQTT broker.",
+        )
+        .value(&[], if outbox.connected { 1.0 } else { 0.0 });
+        family(
+            &mut out,
+            "leaktally_mqtt_outbox_messages",
+            "gauge",
+            "Messages waiting in the database to be sent to the MQTT broker.",
+        )
+        .value(&[], outbox.depth as f64);
+        family(
+            &mut out,
+            "leaktally_mqtt_outbox_oldest_age_seconds",
+            "gauge",
+            "How old the sample of the oldest message waiting for the MQTT broker is, seconds; 0 when none waits.",
+        )
+        .value(
+            &[],
+            outbox
+                .oldest_ms
+                .map_or(0.0, |at| seconds(inputs.doc.generated_at_ms - at).max(0.0)),
+        );
+        family(
+            &mut out,
+            "leaktally_mqtt_sent_total",
+            "counter",
+            "Messages the MQTT broker acknowledged, since the daemon started.",
+        )
+        .value(&[], outbox.sent as f64);
+        family(
+            &mut out,
+            "leaktally_mqtt_dropped_total",
+            "counter",
+            "Messages given up unsent because the outbox was full, since the daemon started.",
+        )
+        .value(&[], outbox.dropped as f64);
+    }
 
     let mut f = family(
         &mut out,

@@ -47,6 +47,7 @@ use crate::loss::Board;
 use crate::report::Presentation;
 use crate::status::{self, EventFilter, StatusError};
 use crate::store::health::StoreHealth;
+use crate::store::outbox::OutboxState;
 use crate::store::{self, StoreError};
 use axum::Router;
 use axum::body::Body;
@@ -102,6 +103,8 @@ pub struct Shared {
     pub health: Arc<StoreHealth>,
     /// The suspected losses standing, from the daemon's tracker.
     pub losses: Arc<Board>,
+    /// The MQTT outbox, from the daemon's tracker and publisher.
+    pub outbox: Arc<OutboxState>,
     /// When the daemon started, UTC ms (for the metrics).
     pub started_ms: i64,
     /// Bounds the database reads in flight; see [`CONCURRENT_READS`].
@@ -127,6 +130,7 @@ impl Shared {
             stats,
             health,
             losses: Arc::new(Board::default()),
+            outbox: Arc::new(OutboxState::default()),
             started_ms,
             readers: Semaphore::new(CONCURRENT_READS),
             bound: OnceLock::new(),
@@ -138,6 +142,12 @@ impl Shared {
     /// daemon's tracker's).
     pub fn with_losses(mut self, losses: Arc<Board>) -> Self {
         self.losses = losses;
+        self
+    }
+
+    /// The same, showing this MQTT outbox (the daemon's).
+    pub fn with_outbox(mut self, outbox: Arc<OutboxState>) -> Self {
+        self.outbox = outbox;
         self
     }
 
@@ -545,6 +555,12 @@ fn page_data(shared: &Shared) -> Result<page::PageData, Failure> {
         stale_after_ms,
         store: shared.health.snapshot(),
         losses: suspected(shared),
+        outbox: shared.outbox.snapshot(),
+        broker: shared
+            .config
+            .mqtt
+            .as_ref()
+            .map(|m| format!("{}:{}", m.host, m.port)),
     })
 }
 
@@ -732,6 +748,7 @@ async fn metrics_text(State(shared): State<Arc<Shared>>) -> Response {
                 tanks: &shared.stats.tanks(),
                 doc: &doc,
                 store: &shared.health.snapshot(),
+                outbox: &shared.outbox.snapshot(),
                 losses: &shared.losses.snapshot(),
                 losses_raised: shared.losses.raised_total(),
                 started_ms: shared.started_ms,

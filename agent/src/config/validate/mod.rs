@@ -15,6 +15,7 @@
 //! done here).
 
 mod geometry;
+mod mqtt;
 mod sensor;
 mod tank;
 
@@ -173,6 +174,7 @@ impl Checker {
         let (devices, device_index) = self.devices(raw.devices);
         let tanks = self.tanks(raw.tanks, &device_index, &devices, ambient);
         let web = raw.web.map(|w| self.web(w));
+        let mqtt = raw.mqtt.map(|m| self.mqtt(m, &raw.site.name, path));
         let database = raw.site.database.as_ref().map(|d| self.database(d, path));
         let (time_zone_name, time_zone) = self.time_zone(raw.site.time_zone.as_ref());
         let units = self.units(raw.site.units.as_ref());
@@ -190,6 +192,7 @@ impl Checker {
             devices,
             tanks,
             web,
+            mqtt,
             suspected_loss,
         }
     }

@@ -51,6 +51,7 @@ use crate::report;
 use crate::status::StatusDocument;
 use crate::status::history::EventSummary;
 use crate::store::health::HealthSnapshot;
+use crate::store::outbox::OutboxSnapshot;
 use crate::web::chart::Point;
 use crate::web::html::{Html, markup};
 
@@ -69,6 +70,10 @@ pub struct PageData {
     pub store: HealthSnapshot,
     /// The suspected losses standing (tanks with no event open).
     pub losses: Vec<Suspected>,
+    /// The MQTT outbox, and the broker (`host:port`) when one is
+    /// configured.
+    pub outbox: OutboxSnapshot,
+    pub broker: Option<String>,
 }
 
 /// How many closed events the page lists, at most.
@@ -104,6 +109,9 @@ fn live(data: &PageData) -> Html {
     );
     main.push(state::top(doc, &data.store));
     let people = &doc.presentation;
+    if let Some(broker) = &data.broker {
+        main.push(state::outbox(broker, &data.outbox, people));
+    }
     main.push(loss::list(&data.losses, people));
     main.extend(doc.events.iter().zip(&data.events).map(|(e, extras)| {
         event::card(e, extras, people, doc.generated_at_ms, data.stale_after_ms)

@@ -4,8 +4,10 @@
 //!
 //! Left out: the events themselves (`event.rs`) and any figure.
 
+use crate::report::Presentation;
 use crate::status::StatusDocument;
 use crate::store::health::HealthSnapshot;
+use crate::store::outbox::OutboxSnapshot;
 use crate::web::html::{Html, markup};
 use std::fmt::Write as _;
 
@@ -63,6 +65,50 @@ fn daemon_state(doc: &StatusDocument, store: &HealthSnapshot) -> Html {
     } else {
         Html::new()
     }
+}
+
+/// The MQTT broker: whether the agent reaches it, and what waits to be
+/// sent; said plainly, an alarm only while the broker cannot be reached.
+pub(super) fn outbox(broker: &str, outbox: &OutboxSnapshot, people: &Presentation) -> Html {
+    let since = outbox
+        .oldest_ms
+        .map(|ms| format!(" (the oldest from {})", people.time(ms)))
+        .unwrap_or_default();
+    let waiting = match outbox.depth {
+        0 => "nothing waits to be sent".to_owned(),
+        1 => format!("1 message{since} waits to be sent"),
+        n => format!("{n} messages{since} wait to be sent"),
+    };
+    let mut text = if outbox.connected {
+        format!("Events are sent to the broker {broker}: connected, {waiting}.")
+    } else {
+        let since = outbox
+            .last_error_ms
+            .map(|ms| format!(" since {}", people.time(ms)))
+            .unwrap_or_default();
+        let why = outbox
+            .last_error
+            .as_deref()
+            .map(|w| format!(" ({w})"))
+            .unwrap_or_default();
+        format!(
+            "The broker {broker} cannot be reached{since}{why}. The agent goes on estimating; {waiting}, kept in the database and sent in order when the broker is back."
+        )
+    };
+    if outbox.dropped > 0 {
+        let _ = write!(
+            text,
+            " The outbox is full: {} older messages were given up (readings first, then status documents a newer one replaces).",
+            outbox.dropped
+        );
+    }
+    let class = if outbox.connected { "stamp" } else { "alarm" };
+    markup!(
+        r#"<p class="{class}" data-field="outbox">{text}</p>
+"#,
+        class = class,
+        text = text
+    )
 }
 
 /// How many events are open, or how one appears when none is.

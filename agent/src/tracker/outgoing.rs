@@ -1,0 +1,116 @@
+//! What the tracker puts in the outbox for the MQTT publisher, when the
+//! config has an `[mqtt]` section: each open event's status document after
+//! every estimate, the closing documents of an event, and thinned tank
+//! readings. They go in the same unit of work as what they report (see
+//! `store::outbox`), so none is lost to a crash and none exists for an
+//! estimate that was not stored.
+//!
+//! The documents are built here, at the estimate's time, so each one says
+//! what the agent knew then, whenever the broker takes it.
+//!
+//! Left out: topics and the broker (`crate::publish`); the tracker knows
+//! nothing of MQTT.
+
+use crate::acquire::line::Line;
+use crate::acquire::sample::TankSample;
+use crate::config::Config;
+use crate::estimate::Estimate;
+use crate::report::Presentation;
+use crate::store::EventRow;
+use crate::store::outbox::{Kind, Message};
+use std::collections::HashMap;
+
+/// The makings of the outbox's messages, fixed for the daemon's run.
+pub(super) struct Outgoing {
+    /// `[mqtt] outbox_limit`.
+    pub(super) limit: usize,
+    stale_after_ms: i64,
+    people: Presentation,
+    /// `[mqtt] readings_every_s`, ms.
+    readings_every_ms: Option<i64>,
+    /// When each tank's last reading went in, by config index.
+    last_reading: HashMap<usize, i64>,
+}
+
+impl Outgoing {
+    /// `None` when the config publishes nothing.
+    pub(super) fn of(config: &Config) -> Option<Self> {
+        let mqtt = config.mqtt.as_ref()?;
+        Some(Self {
+            limit: mqtt.outbox_limit,
+            stale_after_ms: crate::status::stale_after_ms(config),
+            people: Presentation::of(config),
+            readings_every_ms: mqtt.readings_every.map(|d| d.as_millis() as i64),
+            last_reading: HashMap::new(),
+        })
+    }
+
+    /// An event's status document after `estimate` (or with none yet).
+    pub(super) fn status(
+        &self,
+        row: &EventRow,
+        estimate: Option<Estimate>,
+        tracking_error: Option<String>,
+        now_ms: i64,
+        kind: Kind,
+    ) -> Message {
+        let at_ms = estimate.as_ref().map_or(row.start_ms, |e| e.at_ms);
+        let doc = crate::status::published(
+            row,
+            estimate,
+            tracking_error,
+            now_ms,
+            self.stale_after_ms,
+            &self.people,
+        );
+        Message {
+            kind,
+            event: Some(row.id),
+            tank: Some(row.tank.clone()),
+            at_ms,
+            // A document of plain numbers and strings always serialises.
+            payload: serde_json::to_string(&doc).unwrap_or_default(),
+        }
+    }
+
+    /// A closed event's last status document and its closing summary: the
+    /// same document, under both topics.
+    pub(super) fn closed(
+        &self,
+        row: &EventRow,
+        estimate: Option<Estimate>,
+        now_ms: i64,
+    ) -> [Message; 2] {
+        let status = self.status(row, estimate, None, now_ms, Kind::Status);
+        let summary = Message {
+            kind: Kind::Summary,
+            ..status.clone()
+        };
+        [status, summary]
+    }
+
+    /// The readings of a poll cycle due for publishing: each tank's first,
+    /// then one per `readings_every_s`. A reading is the line `leaktally
+    /// poll` prints (its format 2).
+    pub(super) fn readings(&mut self, batch: &[TankSample], config: &Config) -> Vec<Message> {
+        let Some(every) = self.readings_every_ms else {
+            return Vec::new();
+        };
+        let mut out = Vec::new();
+        for sample in batch {
+            let last = self.last_reading.get(&sample.tank).copied();
+            if last.is_some_and(|at| sample.at_ms - at < every) {
+                continue;
+            }
+            self.last_reading.insert(sample.tank, sample.at_ms);
+            out.push(Message {
+                kind: Kind::Reading,
+                event: None,
+                tank: Some(sample.tank_id.to_string()),
+                at_ms: sample.at_ms,
+                payload: serde_json::to_string(&Line::of(sample, config)).unwrap_or_default(),
+            });
+        }
+        out
+    }
+}
