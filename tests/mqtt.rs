@@ -216,6 +216,19 @@ fn an_events_documents_arrive_in_order_then_its_summary_and_the_last_will_says_o
         })
         .collect();
     assert!(times.windows(2).all(|w| w[1] - w[0] >= 5000), "{times:?}");
+    // The suspected-loss watch started afresh on each watched tank, and
+    // says so (a broker may retain an alert from before a restart).
+    let fresh: Vec<Value> = received
+        .iter()
+        .filter(|m| m.topic == format!("{site}/tanks/FF-T12/suspected_loss"))
+        .map(|m| serde_json::from_str(&m.payload).unwrap())
+        .collect();
+    assert!(
+        fresh
+            .iter()
+            .any(|d| d["state"] == "cleared" && d["reason"] == "watch_started"),
+        "{fresh:?}"
+    );
 
     // A late subscriber gets the newest documents at once, retained.
     let mut late = broker.subscribe(&format!("{site}/events/{event}/+"));

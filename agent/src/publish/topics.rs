@@ -6,6 +6,7 @@
 //! | `PREFIX/SITE/events/ID/status` | yes | the event's status document after each estimate |
 //! | `PREFIX/SITE/events/ID/summary` | yes | the event's status document when it closed |
 //! | `PREFIX/SITE/tanks/TANK/reading` | no | a tank's reading, as a `leaktally poll` line (only with `readings_every_s`) |
+//! | `PREFIX/SITE/tanks/TANK/suspected_loss` | yes | a suspected loss raised (`"state":"suspected"`) or cleared (`"cleared"`) on the tank |
 //!
 //! `PREFIX` is `[mqtt] topic_prefix` (`leaktally`), `SITE` is `[mqtt]
 //! site_id` (the site name as one lower-case level), `ID` the event's
@@ -67,6 +68,16 @@ pub fn reading(m: &Mqtt, tank: &str) -> String {
     )
 }
 
+/// A tank's suspected-loss alerts.
+pub fn suspected_loss(m: &Mqtt, tank: &str) -> String {
+    format!(
+        "{}/{}/tanks/{}/suspected_loss",
+        m.topic_prefix,
+        m.site_id,
+        level(tank)
+    )
+}
+
 /// A message's topic, and whether the broker retains it.
 pub fn of(m: &Mqtt, message: &Message) -> (String, bool) {
     match message.kind {
@@ -75,6 +86,10 @@ pub fn of(m: &Mqtt, message: &Message) -> (String, bool) {
             true,
         ),
         Kind::Reading => (reading(m, message.tank.as_deref().unwrap_or("")), false),
+        Kind::SuspectedLoss => (
+            suspected_loss(m, message.tank.as_deref().unwrap_or("")),
+            true,
+        ),
     }
 }
 
@@ -135,6 +150,10 @@ mod tests {
         assert_eq!(
             of(&m, &message(Kind::Reading, None, Some("A/1+#"))),
             (format!("{site}/tanks/A_1__/reading"), false)
+        );
+        assert_eq!(
+            of(&m, &message(Kind::SuspectedLoss, None, Some("T1"))),
+            (format!("{site}/tanks/T1/suspected_loss"), true)
         );
     }
 }

@@ -30,6 +30,9 @@ pub enum Kind {
     Summary,
     /// A tank's thinned reading.
     Reading,
+    /// A suspected loss raised or cleared on a tank (retained; never given
+    /// up to the outbox's bound).
+    SuspectedLoss,
 }
 
 impl Kind {
@@ -38,6 +41,7 @@ impl Kind {
             Kind::Status => "status",
             Kind::Summary => "summary",
             Kind::Reading => "reading",
+            Kind::SuspectedLoss => "suspected_loss",
         }
     }
 
@@ -46,6 +50,7 @@ impl Kind {
             "status" => Some(Kind::Status),
             "summary" => Some(Kind::Summary),
             "reading" => Some(Kind::Reading),
+            "suspected_loss" => Some(Kind::SuspectedLoss),
             _ => None,
         }
     }

@@ -406,7 +406,11 @@ impl Tracker {
                 write.figures.push((id, revision, figures));
             }
         }
+        let alerts = self.watch.changes();
         if let Some(out) = &mut self.outgoing {
+            write
+                .outbox
+                .extend(alerts.iter().map(|c| out.suspected_loss(c)));
             write.outbox.extend(out.readings(&batch, &self.config));
             write.outbox_limit = out.limit;
         }

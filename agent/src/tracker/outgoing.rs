@@ -1,7 +1,7 @@
 //! What the tracker puts in the outbox for the MQTT publisher, when the
 //! config has an `[mqtt]` section: each open event's status document after
-//! every estimate, the closing documents of an event, and thinned tank
-//! readings. They go in the same unit of work as what they report (see
+//! every estimate, the closing documents of an event, thinned tank
+//! readings, and suspected losses raised or cleared. They go in the same unit of work as what they report (see
 //! `store::outbox`), so none is lost to a crash and none exists for an
 //! estimate that was not stored.
 //!
@@ -30,7 +30,12 @@ pub(super) struct Outgoing {
     readings_every_ms: Option<i64>,
     /// When each tank's last reading went in, by config index.
     last_reading: HashMap<usize, i64>,
+    /// `[mqtt] site_id`, for the messages that name their site.
+    site_id: String,
 }
+
+/// The suspected-loss message's layout version.
+pub const SUSPECTED_LOSS_FORMAT: u32 = 1;
 
 impl Outgoing {
     /// `None` when the config publishes nothing.
@@ -42,7 +47,47 @@ impl Outgoing {
             people: Presentation::of(config),
             readings_every_ms: mqtt.readings_every.map(|d| d.as_millis() as i64),
             last_reading: HashMap::new(),
+            site_id: mqtt.site_id.clone(),
         })
+    }
+
+    /// A suspected loss raised or cleared on a tank: its figures (volumes
+    /// in m³, times RFC 3339 UTC beside ms), the command that confirms it,
+    /// and the caution. Retained, so a late subscriber sees the standing
+    /// alert; a cleared one replaces it.
+    pub(super) fn suspected_loss(&self, change: &super::watch::AlertChange) -> Message {
+        use crate::report::rfc3339;
+        let common = serde_json::json!({
+            "format": SUSPECTED_LOSS_FORMAT,
+            "site": self.site_id,
+            "tank": change.tank,
+            "at": rfc3339(change.at_ms),
+            "at_ms": change.at_ms,
+            "reason": change.reason,
+        });
+        let mut doc = common;
+        match change.alert {
+            Some(a) => {
+                doc["state"] = "suspected".into();
+                doc["since"] = rfc3339(a.since_ms).into();
+                doc["since_ms"] = a.since_ms.into();
+                doc["raised_at"] = rfc3339(a.raised_ms).into();
+                doc["raised_at_ms"] = a.raised_ms.into();
+                doc["volume_m3"] = a.volume_m3.into();
+                doc["rate_m3_h"] = (a.rate_m3_s * 3600.0).into();
+                doc["confirm_command"] =
+                    crate::report::confirm_loss_command(&change.tank, a.since_ms).into();
+                doc["caution"] = crate::report::CAUTION.into();
+            }
+            None => doc["state"] = "cleared".into(),
+        }
+        Message {
+            kind: Kind::SuspectedLoss,
+            event: None,
+            tank: Some(change.tank.clone()),
+            at_ms: change.at_ms,
+            payload: doc.to_string(),
+        }
     }
 
     /// An event's status document after `estimate` (or with none yet).

@@ -542,6 +542,67 @@ async fn a_suspected_loss_is_shown_and_opens_nothing_by_default() {
     close(tracker, store).await;
 }
 
+/// With `[mqtt]`, a suspected loss raised goes in the outbox once (not on
+/// every sample of the standing alert), retained under the tank, with
+/// where it began and the command that confirms it.
+#[tokio::test(flavor = "multi_thread")]
+async fn a_suspected_loss_goes_in_the_outbox_once() {
+    use crate::store::outbox::Kind;
+    let mut fx = Fixture::new("loss-outbox");
+    fx.config = Arc::new(
+        crate::config::parse(
+            &format!("{}[mqtt]\nbroker = \"127.0.0.1:1\"\n", site()),
+            std::path::Path::new("site.toml"),
+        )
+        .unwrap(),
+    );
+    let t0 = store::now_ms() - 3_600_000;
+    let (mut tracker, store) = fx.tracker(Arc::new(Clock::system())).await;
+    play_a_fall(&mut tracker, t0, 600, 20).await;
+    let messages = store.read(|r| r.outbox_next(0, 1000)).await.unwrap();
+    let alerts: Vec<_> = messages
+        .iter()
+        .filter(|q| q.message.kind == Kind::SuspectedLoss)
+        .collect();
+    // First each watched tank's fresh start (a broker may retain an
+    // alert from before a restart), then the one alert.
+    let started: Vec<_> = alerts
+        .iter()
+        .filter(|q| q.message.payload.contains("\"reason\":\"watch_started\""))
+        .map(|q| q.message.tank.clone().unwrap())
+        .collect();
+    assert_eq!(started, ["T1", "T2"]);
+    assert!(
+        started.len() == 2
+            && alerts[..2]
+                .iter()
+                .all(|q| q.message.payload.contains("\"state\":\"cleared\""))
+    );
+    let alerts = &alerts[2..];
+    assert_eq!(alerts.len(), 1, "{alerts:?}");
+    let standing = tracker.losses().snapshot();
+    let doc: serde_json::Value = serde_json::from_str(&alerts[0].message.payload).unwrap();
+    assert_eq!(alerts[0].message.tank.as_deref(), Some("T1"));
+    assert_eq!(doc["state"], "suspected");
+    assert_eq!(doc["reason"], "raised");
+    assert_eq!(doc["tank"], "T1");
+    assert_eq!(doc["since_ms"], standing[0].suspicion.since_ms);
+    assert!(
+        doc["confirm_command"]
+            .as_str()
+            .unwrap()
+            .starts_with("leaktally leak open --tank T1 --since "),
+        "{doc}"
+    );
+    assert!(
+        doc["caution"]
+            .as_str()
+            .unwrap()
+            .contains("not measurements")
+    );
+    close(tracker, store).await;
+}
+
 /// With `suspected_loss = "open"`, the alert opens an event from the
 /// start it offers, and the watch stands down on that tank.
 #[tokio::test(flavor = "multi_thread")]
@@ -614,7 +675,12 @@ async fn the_outbox_gets_a_document_per_estimate_and_the_closing_ones() {
             .on_batch(vec![draining(0, start, at), sample(1, at)])
             .await;
     }
-    let messages = queued(&store).await;
+    // (Less the watch's fresh start on each tank: another test's.)
+    let messages: Vec<_> = queued(&store)
+        .await
+        .into_iter()
+        .filter(|q| q.message.kind != Kind::SuspectedLoss)
+        .collect();
     let times: Vec<(Kind, Option<i64>, i64)> = messages
         .iter()
         .map(|q| (q.message.kind, q.message.event, q.message.at_ms))

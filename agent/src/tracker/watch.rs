@@ -1,12 +1,14 @@
 //! The suspected-loss watch over every tank with no open event: each good
 //! level sample goes to its tank's [`Detector`] (`crate::loss`, Page's
 //! CUSUM); an alert raised or cleared is logged and put on the shared
-//! [`Board`] the page and `/metrics` read. With `suspected_loss = "open"`
+//! [`Board`] the page and `/metrics` read, and kept as a change for the
+//! MQTT outbox (`Watch::changes`). With `suspected_loss = "open"`
 //! a raised alert also asks the tracker to open an event, back-dated to
 //! where the unexplained fall began.
 //!
-//! Left out: storing the alerts (a restart starts the watch afresh; the
-//! log keeps what was raised), and tanks whose open event is not tracked
+//! Left out: storing the alerts (a restart starts the watch afresh, and
+//! says so to the broker, tank by tank; the log keeps what was raised),
+//! and tanks whose open event is not tracked
 //! (their tank is only known by the event's row; the watch goes on there).
 
 use crate::acquire::sample::TankSample;
@@ -27,11 +29,40 @@ struct Watched {
     published: Option<Suspicion>,
 }
 
+/// An alert raised or cleared on a tank, at a sample's time.
+#[derive(Debug, Clone, PartialEq)]
+pub(super) struct AlertChange {
+    pub(super) tank: String,
+    pub(super) at_ms: i64,
+    /// The alert raised, or `None` when it cleared.
+    pub(super) alert: Option<Suspicion>,
+    /// Why, as a code: `raised`, `explained` (the fall is explained
+    /// now), `event_open` (an event took the tank over) or
+    /// `watch_started` (the daemon started: no alert stands yet).
+    pub(super) reason: &'static str,
+}
+
 impl Watched {
-    /// Shows `alert` on the board, if that is news.
-    fn publish(&mut self, board: &Board, tank: &str, alert: Option<Suspicion>) {
+    /// Shows `alert` on the board, if that is news; an alert raised or
+    /// cleared (not one that grew) is kept in `changes` too.
+    fn publish(
+        &mut self,
+        board: &Board,
+        changes: &mut Vec<AlertChange>,
+        sample: &TankSample,
+        alert: Option<Suspicion>,
+        reason: &'static str,
+    ) {
         if self.published != alert {
-            board.set(tank, alert);
+            board.set(&sample.tank_id, alert);
+            if self.published.is_none() != alert.is_none() {
+                changes.push(AlertChange {
+                    tank: sample.tank_id.to_string(),
+                    at_ms: sample.at_ms,
+                    alert,
+                    reason,
+                });
+            }
             self.published = alert;
         }
     }
@@ -47,6 +78,8 @@ pub(super) struct Watch {
     /// By the config's tank index; `None` where the watch is off.
     tanks: Vec<Option<Watched>>,
     board: Arc<Board>,
+    /// Alerts raised or cleared since the tracker last took them.
+    changes: Vec<AlertChange>,
 }
 
 /// The detector's settings for a tank: the defaults, with the tank's
@@ -67,7 +100,7 @@ pub(super) fn params_of(config: &Config, tank: usize) -> LossParams {
 
 impl Watch {
     pub(super) fn new(config: &Config) -> Self {
-        let tanks = (0..config.tanks.len())
+        let tanks: Vec<Option<Watched>> = (0..config.tanks.len())
             .map(|i| {
                 let mode = config.loss_watch(i);
                 let t = &config.tanks[i];
@@ -83,10 +116,31 @@ impl Watch {
                 })
             })
             .collect();
+        // A restart starts every watch afresh: whatever alert a broker
+        // retains from before no longer stands until raised again.
+        let now_ms = crate::store::now_ms();
+        let changes = config
+            .tanks
+            .iter()
+            .zip(&tanks)
+            .filter(|(_, w)| w.is_some())
+            .map(|(t, _)| AlertChange {
+                tank: t.id.clone(),
+                at_ms: now_ms,
+                alert: None,
+                reason: "watch_started",
+            })
+            .collect();
         Self {
             tanks,
             board: Arc::new(Board::default()),
+            changes,
         }
+    }
+
+    /// The alerts raised or cleared since the last call, oldest first.
+    pub(super) fn changes(&mut self) -> Vec<AlertChange> {
+        std::mem::take(&mut self.changes)
     }
 
     pub(super) fn board(&self) -> Arc<Board> {
@@ -110,7 +164,7 @@ impl Watch {
                 if !w.suspended {
                     w.detector.reset();
                     w.suspended = true;
-                    w.publish(&self.board, &s.tank_id, None);
+                    w.publish(&self.board, &mut self.changes, s, None, "event_open");
                 }
                 continue;
             }
@@ -127,7 +181,7 @@ impl Watch {
             match change {
                 Some(Change::Raised(a)) => {
                     self.board.count_raised();
-                    w.publish(&self.board, &s.tank_id, Some(a));
+                    w.publish(&self.board, &mut self.changes, s, Some(a), "raised");
                     let since = rfc3339(a.since_ms);
                     let tank = &s.tank_id;
                     let then = if w.mode == LossWatch::Open {
@@ -155,7 +209,7 @@ impl Watch {
                     }
                 }
                 Some(Change::Cleared) => {
-                    w.publish(&self.board, &s.tank_id, None);
+                    w.publish(&self.board, &mut self.changes, s, None, "explained");
                     info!(
                         tank = %s.tank_id,
                         "suspected loss on {} cleared: the level no longer falls more than metered transfers explain",
@@ -164,7 +218,7 @@ impl Watch {
                 }
                 None => {
                     if let Some(&a) = w.detector.alert() {
-                        w.publish(&self.board, &s.tank_id, Some(a));
+                        w.publish(&self.board, &mut self.changes, s, Some(a), "raised");
                     }
                 }
             }
