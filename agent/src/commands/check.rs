@@ -445,7 +445,47 @@ pub fn describe(config: &Config) -> String {
         }
     }
     serial_rounds(config, &mut out);
+    mqtt_lines(config, &mut out);
     out
+}
+
+/// The MQTT publishing: where, as whom, under which topics (which the
+/// broker's access list must name exactly), and whether the files it
+/// needs can be read now.
+fn mqtt_lines(config: &Config, out: &mut String) {
+    let Some(m) = &config.mqtt else {
+        return;
+    };
+    let _ = writeln!(
+        out,
+        "MQTT: publishes to {}:{} ({}, QoS {}){} as client {}, under {}/{}/# (the broker's access list must allow exactly this to this user).",
+        one_line(&m.host),
+        m.port,
+        if m.tls() { "TLS" } else { "no TLS" },
+        m.qos,
+        m.username
+            .as_ref()
+            .map_or(String::new(), |u| format!(" as user {}", one_line(u))),
+        one_line(&m.client_id),
+        one_line(&m.topic_prefix),
+        one_line(&m.site_id)
+    );
+    for (what, file) in [
+        ("password file", &m.password_file),
+        ("CA file", &m.ca_file),
+        ("client certificate", &m.client_cert_file),
+        ("client key", &m.client_key_file),
+    ] {
+        let Some(file) = file else { continue };
+        let shown = one_line(&file.display().to_string()).into_owned();
+        let _ = match std::fs::File::open(file) {
+            Ok(_) => writeln!(out, "  {what} {shown}: readable."),
+            Err(e) => writeln!(
+                out,
+                "  WARNING: {what} {shown} cannot be read ({e}): the daemon will not reach the broker until it can; its messages wait in the outbox meanwhile."
+            ),
+        };
+    }
 }
 
 /// Per serial port: how long a round of its devices takes at least, and a

@@ -39,7 +39,7 @@ pub struct FleetArgs {
     #[arg(long, value_name = "FILE", value_parser = path_arg, requires = "tls_cert")]
     pub tls_key: Option<PathBuf>,
     /// The user name to give the broker (with --password-file).
-    #[arg(long, value_name = "USER")]
+    #[arg(long, value_name = "USER", requires = "password_file")]
     pub username: Option<String>,
     /// A file holding the broker password on its first line (never the
     /// password itself on the command line, where `ps` would show it).

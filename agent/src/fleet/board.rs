@@ -304,8 +304,14 @@ impl Board {
             },
         };
         let s = self.site_mut(site);
+        // An agent stamps its last will and its `online` with the same
+        // connection time: at one stamp, `offline` is the later news (the
+        // connection that began then has ended), never `online`.
+        let older = |at: i64, held: i64| {
+            at < held || (at == held && online == Online::Online && s.online == Online::Offline)
+        };
         match stamped {
-            Some(at) if s.state_at_ms.is_some_and(|held| at < held) => {
+            Some(at) if s.state_at_ms.is_some_and(|held| older(at, held)) => {
                 return Outcome::OlderOrDuplicate;
             }
             _ if s.online == online && (stamped.is_none() || s.state_at_ms == stamped) => {
@@ -711,6 +717,17 @@ mod tests {
             Outcome::Applied
         );
         assert_eq!(site(&board), (Online::Online, Some(3_000), Some(9)));
+        // The agent stamps the will and its online with one connection's
+        // time: the will that comes after its online is the later news.
+        assert_eq!(
+            board.ingest(topic, &state("ff", "offline", 3_000), false, 10),
+            Outcome::Applied
+        );
+        assert_eq!(site(&board), (Online::Offline, Some(3_000), Some(10)));
+        assert_eq!(
+            board.ingest(topic, &state("ff", "online", 3_000), true, 11),
+            Outcome::OlderOrDuplicate
+        );
     }
 
     #[test]

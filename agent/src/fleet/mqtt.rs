@@ -236,8 +236,8 @@ pub async fn run(
                     let was_down = failing_since.take();
                     let connections = link.snapshot().connections + 1;
                     info!(
-                        "fleet: subscribed to {}/# at {}{}",
-                        broker.prefix,
+                        "fleet: subscribed to {} at {}{}",
+                        crate::fleet::topics::filters(&broker.prefix).join(", "),
                         broker.address(),
                         was_down.map_or(String::new(), |since| format!(
                             " (unreachable since {})",

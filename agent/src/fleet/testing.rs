@@ -42,13 +42,7 @@ impl SiteDb {
         let conn = store::open_read_write(&scratch.db()).unwrap();
         store::register_tanks(&conn, [HOSTILE_TANK]).unwrap();
         let start_ms = store::now_ms() - 125_000;
-        let params = LeakParams {
-            hole_diameter_m: Some(0.04),
-            hole_height_m: 0.3,
-            cd: 0.61,
-            density_kg_m3: None,
-            ..LeakParams::default()
-        };
+        let params = Self::params();
         let event =
             store::create_event(&conn, HOSTILE_TANK, start_ms, start_ms, "operator", &params)
                 .unwrap();
@@ -71,6 +65,17 @@ impl SiteDb {
             scratch,
             event,
             estimates,
+        }
+    }
+
+    /// The event's parameters: a 40 mm hole at 0.3 m, Cd 0.61.
+    pub fn params() -> LeakParams {
+        LeakParams {
+            hole_diameter_m: Some(0.04),
+            hole_height_m: 0.3,
+            cd: 0.61,
+            density_kg_m3: None,
+            ..LeakParams::default()
         }
     }
 

@@ -458,6 +458,16 @@ fn card(doc: &FleetDocument, e: &FleetEvent) -> Html {
                 &people,
                 doc.generated_at_ms,
             ));
+            // Why the figure is what it is, and what the site warns of:
+            // a responder reading "0 kg/s" must see "no loss seen yet".
+            markup!(
+                &mut card,
+                r#"<p class="params" data-field="method-reason" data-event="{id}">Why: {why}</p>
+"#,
+                id = id,
+                why = view.words.method_reason
+            );
+            card.push(crate::web::page::warnings(id, &view));
         }
     }
     markup!(

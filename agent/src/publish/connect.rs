@@ -24,8 +24,11 @@ pub fn qos(m: &Mqtt) -> QoS {
     }
 }
 
-/// The client's options for one connection attempt.
-pub fn options(m: &Mqtt) -> anyhow::Result<MqttOptions> {
+/// The client's options for one connection attempt made at `at_ms`: the
+/// last will is stamped with it, as is the `online` message that follows
+/// (one connection, one time), so a view that sees both takes the will as
+/// the later news.
+pub fn options(m: &Mqtt, at_ms: i64) -> anyhow::Result<MqttOptions> {
     let mut options = MqttOptions::new(&m.client_id, &m.host, m.port);
     options.set_keep_alive(m.keep_alive);
     // The agent resends what the broker has not acknowledged from its own
@@ -36,7 +39,7 @@ pub fn options(m: &Mqtt) -> anyhow::Result<MqttOptions> {
     options.set_max_packet_size(1 << 20, 1 << 20);
     options.set_last_will(LastWill::new(
         topics::state(m),
-        topics::state_payload(m, false, crate::store::now_ms()),
+        topics::state_payload(m, false, at_ms),
         qos(m),
         true,
     ));

@@ -85,8 +85,9 @@ impl Publisher {
         let mut attempts = 0u64;
         self.refresh_depth().await;
         loop {
-            let ended = match connect::options(&self.mqtt) {
-                Ok(options) => self.session(options, &stop, &mut wait).await,
+            let at_ms = crate::store::now_ms();
+            let ended = match connect::options(&self.mqtt, at_ms) {
+                Ok(options) => self.session(options, at_ms, &stop, &mut wait).await,
                 Err(e) => Ended::Lost(format!("{e:#}")),
             };
             self.state.set_connected(false);
@@ -129,6 +130,7 @@ impl Publisher {
     async fn session(
         &self,
         options: rumqttc::MqttOptions,
+        at_ms: i64,
         stop: &CancellationToken,
         wait: &mut Duration,
     ) -> Ended {
@@ -143,7 +145,7 @@ impl Publisher {
                 }
             }
         });
-        let ended = self.converse(&client, &mut events, stop, wait).await;
+        let ended = self.converse(&client, &mut events, at_ms, stop, wait).await;
         driver.abort();
         ended
     }
@@ -152,6 +154,7 @@ impl Publisher {
         &self,
         client: &AsyncClient,
         events: &mut mpsc::Receiver<Result<Event, rumqttc::ConnectionError>>,
+        at_ms: i64,
         stop: &CancellationToken,
         wait: &mut Duration,
     ) -> Ended {
@@ -179,8 +182,12 @@ impl Publisher {
         *wait = RETRY_FIRST;
         self.state.set_connected(true);
         info!(
-            "connected to the MQTT broker {}:{} as {}",
-            self.mqtt.host, self.mqtt.port, self.mqtt.client_id
+            "connected to the MQTT broker {}:{} as {}, publishing under {}/{}/#",
+            self.mqtt.host,
+            self.mqtt.port,
+            self.mqtt.client_id,
+            self.mqtt.topic_prefix,
+            self.mqtt.site_id
         );
         let qos = connect::qos(&self.mqtt);
         let mut flight = Flight::default();
@@ -189,7 +196,7 @@ impl Publisher {
                 topics::state(&self.mqtt),
                 qos,
                 true,
-                topics::state_payload(&self.mqtt, true, crate::store::now_ms()),
+                topics::state_payload(&self.mqtt, true, at_ms),
             )
             .is_err()
         {

@@ -204,6 +204,9 @@ pub struct OutboxState {
     last_sent_ms: AtomicI64,
     /// When the connection was last lost or refused, ms (0: never).
     last_error_ms: AtomicI64,
+    /// Since when the broker has not been reached: the first failure
+    /// after the last connection (or the start), ms (0: connected).
+    down_since_ms: AtomicI64,
     last_error: std::sync::Mutex<Option<String>>,
 }
 
@@ -220,6 +223,9 @@ pub struct OutboxSnapshot {
     pub last_sent_ms: Option<i64>,
     pub last_error_ms: Option<i64>,
     pub last_error: Option<String>,
+    /// Since when the broker has not been reached (`None` while connected
+    /// or before the first attempt ends).
+    pub down_since_ms: Option<i64>,
 }
 
 impl OutboxState {
@@ -231,6 +237,9 @@ impl OutboxState {
 
     pub fn set_connected(&self, connected: bool) {
         self.connected.store(connected, Ordering::Relaxed);
+        if connected {
+            self.down_since_ms.store(0, Ordering::Relaxed);
+        }
     }
 
     /// How many messages wait, and the sample time of the oldest.
@@ -251,6 +260,10 @@ impl OutboxState {
 
     pub fn set_error(&self, at_ms: i64, why: String) {
         self.last_error_ms.store(at_ms, Ordering::Relaxed);
+        // Retries fail again and again: the outage began at the first.
+        let _ = self
+            .down_since_ms
+            .compare_exchange(0, at_ms, Ordering::Relaxed, Ordering::Relaxed);
         *self.last_error.lock().unwrap_or_else(|p| p.into_inner()) = Some(why);
     }
 
@@ -270,12 +283,30 @@ impl OutboxState {
                 .lock()
                 .unwrap_or_else(|p| p.into_inner())
                 .clone(),
+            down_since_ms: at(&self.down_since_ms),
         }
     }
 }
 
 #[cfg(test)]
 mod tests {
+
+    #[test]
+    fn an_outage_is_dated_from_its_first_failure_not_the_latest_retry() {
+        let state = OutboxState::configured();
+        state.set_error(1_000, "refused".into());
+        state.set_error(6_000, "refused".into());
+        let seen = state.snapshot();
+        assert_eq!(
+            (seen.down_since_ms, seen.last_error_ms),
+            (Some(1_000), Some(6_000))
+        );
+        state.set_connected(true);
+        assert_eq!(state.snapshot().down_since_ms, None);
+        state.set_connected(false);
+        state.set_error(9_000, "lost".into());
+        assert_eq!(state.snapshot().down_since_ms, Some(9_000));
+    }
     use super::*;
 
     fn message(kind: Kind, event: i64, at_ms: i64) -> Message {

@@ -201,6 +201,29 @@ async fn the_page_shows_every_site_and_open_event_escaped_with_the_caution() {
         "{best} not in:\n{page}"
     );
     assert!(!page.contains("Broker unreachable"));
+    // Why the figure is what it is, in the site's words, and the site's
+    // warnings beside the figures.
+    let est = &f.site.estimates[119];
+    let view = crate::status::EstimateView::new(
+        est.clone(),
+        &SiteDb::params(),
+        &crate::report::Presentation::default(),
+    );
+    let why = crate::web::html::Html::text(&view.words.method_reason).into_string();
+    assert!(
+        page.contains(&format!("Why: {why}")),
+        "{why} not in:
+{page}"
+    );
+    assert!(!view.words.warnings_text.is_empty());
+    for warning in &view.words.warnings_text {
+        let text = crate::web::html::Html::text(warning).into_string();
+        assert!(
+            page.contains(&text),
+            "{text} not in:
+{page}"
+        );
+    }
     // No stale flag: the data is about two minutes old but the limit is
     // the event's, from the last sample: 125 s - 119 s, under 60 s.
     assert!(!page.contains(r#"data-field="stale""#), "{page}");

@@ -28,7 +28,7 @@ pub(super) fn details(id: i64, est: &EstimateView, people: &Presentation, age_ms
 
 /// The given hole's disagreement with the level first, then the other
 /// warnings.
-fn warnings(id: i64, est: &EstimateView) -> Html {
+pub(crate) fn warnings(id: i64, est: &EstimateView) -> Html {
     let mut out = est.consistency.as_ref().map_or(Html::new(), |warning| {
         markup!(
             r#"<p class="caution" data-field="consistency" data-event="{id}"><strong>Check the hole size:</strong> {warning}</p>

@@ -42,6 +42,7 @@ mod notes;
 mod state;
 mod trend;
 
+pub(crate) use details::warnings;
 pub(crate) use figures::figures as headline;
 pub use loss::Suspected;
 pub use notes::{Note, notes};

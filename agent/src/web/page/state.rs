@@ -83,7 +83,7 @@ pub(super) fn outbox(broker: &str, outbox: &OutboxSnapshot, people: &Presentatio
         format!("Events are sent to the broker {broker}: connected, {waiting}.")
     } else {
         let since = outbox
-            .last_error_ms
+            .down_since_ms
             .map(|ms| format!(" since {}", people.time(ms)))
             .unwrap_or_default();
         let why = outbox
