@@ -353,10 +353,15 @@ impl Estimator {
             let consistent = l_low <= bound_high && bound_low <= l_high;
             if !consistent {
                 warnings.insert(Warning::LevelContradictsModel);
-                if !self.level_mode {
-                    self.level_mode = true;
-                    entered_level_mode = true;
-                }
+            }
+            // A bridge the level cut (the flow slowed or stopped in a gap)
+            // has refuted the model as surely as a level outside its band:
+            // from then on the figures follow the level, at once, rather
+            // than once the model has run on far enough past it.
+            let refuted = !consistent || self.quality.bridge_cut_kg > 0.0;
+            if refuted && !self.level_mode {
+                self.level_mode = true;
+                entered_level_mode = true;
             }
             let b_best =
                 if consistent && (bound_low..=bound_high).contains(&l_best) && !self.level_mode {

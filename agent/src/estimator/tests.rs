@@ -252,6 +252,12 @@ fn a_leak_that_stops_during_a_gap_does_not_inflate_the_total() {
     );
     assert!(after.warnings.contains(Warning::BridgeCutByLevel));
     assert!(after.quality.bridge_cut_kg > 500.0, "{:?}", after.quality);
+    // The cut refutes the given hole: the figures follow the level from
+    // the first sample after the gap, with no flow (the leak stopped).
+    for e in estimates.iter().skip_while(|e| !e.after_gap) {
+        assert_eq!(e.reason, Reason::LevelBoundsGivenHole, "{e:?}");
+        assert!(e.rate_best_kg_s < 1.0, "{e:?}");
+    }
     let last = estimates.last().unwrap();
     assert!(covers(last, truth), "{last:?} vs truth {truth}");
     assert!(
