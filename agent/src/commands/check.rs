@@ -458,14 +458,14 @@ fn mqtt_lines(config: &Config, out: &mut String) {
     };
     let _ = writeln!(
         out,
-        "MQTT: publishes to {}:{} ({}, QoS {}){} as client {}, under {}/{}/# (the broker's access list must allow exactly this to this user).",
+        "MQTT: publishes to {}:{} ({}, QoS {}){}, client id {}, under {}/{}/# (the broker's access list must allow exactly this to this user).",
         one_line(&m.host),
         m.port,
         if m.tls() { "TLS" } else { "no TLS" },
         m.qos,
         m.username
             .as_ref()
-            .map_or(String::new(), |u| format!(" as user {}", one_line(u))),
+            .map_or(String::new(), |u| format!(", user {}", one_line(u))),
         one_line(&m.client_id),
         one_line(&m.topic_prefix),
         one_line(&m.site_id)
@@ -477,7 +477,9 @@ fn mqtt_lines(config: &Config, out: &mut String) {
         ("client key", &m.client_key_file),
     ] {
         let Some(file) = file else { continue };
-        let shown = one_line(&file.display().to_string()).into_owned();
+        // The path the daemon will open, whatever folder check ran from.
+        let full = std::path::absolute(file).unwrap_or_else(|_| file.clone());
+        let shown = one_line(&full.display().to_string()).into_owned();
         let _ = match std::fs::File::open(file) {
             Ok(_) => writeln!(out, "  {what} {shown}: readable."),
             Err(e) => writeln!(
@@ -632,4 +634,34 @@ fn read_line(read: &Read) -> String {
         read.count,
         read.values.len()
     )
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// The broker's access list must name the topics exactly: check says
+    /// which, and a file the daemon cannot read, by its full path.
+    #[test]
+    fn check_says_the_mqtt_topics_and_an_unreadable_file() {
+        let text = format!(
+            "{}\n[mqtt]\nbroker = \"127.0.0.1:1883\"\nsite_id = \"depot-7\"\nusername = \"depot-7\"\npassword_file = \"no-such.pw\"\n",
+            crate::config::tests::BASE
+        );
+        let folder = std::env::temp_dir();
+        let config = crate::config::parse(&text, &folder.join("site.toml")).unwrap();
+        let said = describe(&config);
+        assert!(
+            said.contains("user depot-7") && said.contains("under leaktally/depot-7/#"),
+            "{said}"
+        );
+        let missing = folder.join("no-such.pw");
+        assert!(
+            said.contains(&format!(
+                "WARNING: password file {} cannot be read",
+                missing.display()
+            )),
+            "{said}"
+        );
+    }
 }
