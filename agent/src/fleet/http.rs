@@ -16,7 +16,7 @@ use super::view;
 use crate::web::{self, server};
 use axum::Router;
 use axum::extract::{Request, State};
-use axum::http::{HeaderValue, Method, StatusCode, header};
+use axum::http::{StatusCode, header};
 use axum::middleware::{self, Next};
 use axum::response::{IntoResponse, Response};
 use axum::routing::get;
@@ -104,24 +104,9 @@ async fn read_only(State(shared): State<Arc<Shared>>, request: Request, next: Ne
         .extensions()
         .get::<server::ConnectedTo>()
         .map(|c| c.0);
-    let hosts: Vec<_> = request.headers().get_all(header::HOST).iter().collect();
-    let host = match request.uri().authority() {
-        Some(a) => Some(a.as_str().to_owned()),
-        None => hosts
-            .first()
-            .map(|v| String::from_utf8_lossy(v.as_bytes()).into_owned()),
-    };
-    let mut response = match host {
-        _ if hosts.len() > 1 => web::text(
-            StatusCode::BAD_REQUEST,
-            "the request has more than one Host header; HTTP/1.1 allows one (RFC 9112, 3.2)\n"
-                .into(),
-        ),
-        None => web::text(
-            StatusCode::BAD_REQUEST,
-            "the request has no Host header; HTTP/1.1 requires one (RFC 9112, 3.2)\n".into(),
-        ),
-        Some(host) if !web::host_allowed(&host, listen, local, &[]) => web::text(
+    let mut response = match web::request_host(&request) {
+        Err(refusal) => refusal,
+        Ok(host) if !web::host_allowed(&host, listen, local, &[]) => web::text(
             StatusCode::MISDIRECTED_REQUEST,
             format!(
                 "this page answers only for {listen}{}, not for {:?}; reach it by that address\n",
@@ -133,34 +118,10 @@ async fn read_only(State(shared): State<Arc<Shared>>, request: Request, next: Ne
                 crate::logging::one_line(&host)
             ),
         ),
-        Some(_) if request.method() == Method::GET || request.method() == Method::HEAD => {
-            next.run(request).await
-        }
-        Some(_) => {
-            let mut r = web::text(
-                StatusCode::METHOD_NOT_ALLOWED,
-                format!(
-                    "{} is not allowed: the fleet view is read-only and answers GET, HEAD only\n",
-                    request.method()
-                ),
-            );
-            r.headers_mut()
-                .insert(header::ALLOW, HeaderValue::from_static("GET, HEAD"));
-            r
-        }
+        Ok(_) if web::is_read(request.method()) => next.run(request).await,
+        Ok(_) => web::method_refused(request.method(), "the fleet view"),
     };
-    let headers = response.headers_mut();
-    headers.insert(
-        header::X_CONTENT_TYPE_OPTIONS,
-        HeaderValue::from_static("nosniff"),
-    );
-    headers.insert(
-        header::REFERRER_POLICY,
-        HeaderValue::from_static("no-referrer"),
-    );
-    headers
-        .entry(header::CACHE_CONTROL)
-        .or_insert(HeaderValue::from_static("no-store"));
+    web::with_common_headers(&mut response);
     response
 }
 

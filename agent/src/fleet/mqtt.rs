@@ -77,77 +77,18 @@ impl Broker {
         }
         if let Some(ca) = &self.tls_ca {
             options.set_transport(Transport::tls_with_config(TlsConfiguration::Rustls(
-                Arc::new(tls_config(ca, self.tls_client.as_ref())?),
+                Arc::new(crate::publish::tls::client_config(
+                    Some(ca),
+                    self.tls_client.as_ref().map(|(c, k)| (c.as_path(), k.as_path())),
+                    &crate::publish::tls::Hints {
+                        ca: "give --tls-ca the PEM file of the CA that signed the broker's certificate",
+                        client: "give --tls-cert the client certificate and --tls-key its private key, both PEM",
+                    },
+                )?),
             )));
         }
         Ok(options)
     }
-}
-
-/// A rustls client configuration that trusts the certificates in `ca`, and
-/// shows the client certificate `client` (certificate file, key file) when
-/// given.
-pub fn tls_config(
-    ca: &std::path::Path,
-    client: Option<&(PathBuf, PathBuf)>,
-) -> anyhow::Result<rustls::ClientConfig> {
-    use rustls_pki_types::pem::PemObject;
-    use rustls_pki_types::{CertificateDer, PrivateKeyDer};
-    let fix = "give --tls-ca the PEM file of the CA that signed the broker's certificate";
-    let mut roots = rustls::RootCertStore::empty();
-    let certs = CertificateDer::pem_file_iter(ca)
-        .map_err(|e| anyhow::anyhow!("cannot read the CA file {}: {e}; {fix}", ca.display()))?;
-    for cert in certs {
-        let cert = cert.map_err(|e| {
-            anyhow::anyhow!("the CA file {} is not valid PEM: {e}; {fix}", ca.display())
-        })?;
-        roots.add(cert).map_err(|e| {
-            anyhow::anyhow!(
-                "the CA file {} holds a certificate rustls cannot use: {e}; {fix}",
-                ca.display()
-            )
-        })?;
-    }
-    if roots.is_empty() {
-        anyhow::bail!("the CA file {} holds no certificate; {fix}", ca.display());
-    }
-    // ring, though rustls 0.23.48 deprecates it for lack of post-quantum
-    // key exchange: its other provider (aws-lc-rs) needs cmake and a C
-    // toolchain to build, and a broker on the plant network needs TLS 1.2
-    // and 1.3 with the classical groups, which ring has.
-    #[allow(deprecated)]
-    let provider = Arc::new(rustls::crypto::ring::default_provider());
-    let builder = rustls::ClientConfig::builder_with_provider(provider)
-        .with_safe_default_protocol_versions()?
-        .with_root_certificates(roots);
-    let Some((cert, key)) = client else {
-        return Ok(builder.with_no_client_auth());
-    };
-    let fix = "give --tls-cert the client certificate and --tls-key its private key, both PEM";
-    let chain = CertificateDer::pem_file_iter(cert)
-        .and_then(|certs| certs.collect::<Result<Vec<_>, _>>())
-        .map_err(|e| {
-            anyhow::anyhow!(
-                "cannot read the client certificate {}: {e}; {fix}",
-                cert.display()
-            )
-        })?;
-    if chain.is_empty() {
-        anyhow::bail!(
-            "the client certificate file {} holds no certificate; {fix}",
-            cert.display()
-        );
-    }
-    let private = PrivateKeyDer::from_pem_file(key).map_err(|e| {
-        anyhow::anyhow!("cannot read the private key {}: {e}; {fix}", key.display())
-    })?;
-    builder.with_client_auth_cert(chain, private).map_err(|e| {
-        anyhow::anyhow!(
-            "the client certificate {} and the key {} do not go together: {e}; {fix}",
-            cert.display(),
-            key.display()
-        )
-    })
 }
 
 /// The connection's state, for the page, the JSON and the metrics.

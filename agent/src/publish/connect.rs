@@ -11,8 +11,6 @@ use super::topics;
 use crate::config::mqtt::Mqtt;
 use anyhow::Context as _;
 use rumqttc::{LastWill, MqttOptions, QoS, TlsConfiguration, Transport};
-use rustls_pki_types::pem::PemObject;
-use rustls_pki_types::{CertificateDer, PrivateKeyDer};
 use std::sync::Arc;
 
 /// The QoS of `[mqtt] qos`.
@@ -75,55 +73,18 @@ fn password(file: &std::path::Path) -> anyhow::Result<String> {
 
 /// TLS with `ca_file`'s certificates as the only trust anchors (the
 /// system's without it), and the client certificate when one is
-/// configured; ring as the provider.
+/// configured.
 fn tls(m: &Mqtt) -> anyhow::Result<rustls::ClientConfig> {
-    let mut roots = rustls::RootCertStore::empty();
-    match &m.ca_file {
-        Some(ca) => {
-            let certs = CertificateDer::pem_file_iter(ca)
-                .with_context(|| format!("cannot read the MQTT CA file {}", ca.display()))?;
-            for cert in certs {
-                let cert = cert.with_context(|| format!("the MQTT CA file {}", ca.display()))?;
-                roots.add(cert).with_context(|| {
-                    format!("a certificate in the MQTT CA file {}", ca.display())
-                })?;
-            }
-            if roots.is_empty() {
-                anyhow::bail!("the MQTT CA file {} holds no certificate", ca.display());
-            }
-        }
-        None => {
-            let found = rustls_native_certs::load_native_certs();
-            roots.add_parsable_certificates(found.certs);
-            if roots.is_empty() {
-                anyhow::bail!(
-                    "[mqtt] tls = true without ca_file, and this system has no CA certificates (apt-get install ca-certificates, or give ca_file)"
-                );
-            }
-        }
-    }
-    // ring, not rustls's default aws-lc-rs (which needs cmake and a C
-    // toolchain to build); ring's key exchange is the classical kind
-    // (X25519, P-256), which every broker speaks, hence the allowance.
-    #[allow(deprecated)]
-    let provider = Arc::new(rustls::crypto::ring::default_provider());
-    let builder = rustls::ClientConfig::builder_with_provider(provider)
-        .with_safe_default_protocol_versions()
-        .context("TLS protocol versions")?
-        .with_root_certificates(roots);
-    Ok(match (&m.client_cert_file, &m.client_key_file) {
-        (Some(cert), Some(key)) => {
-            let chain = CertificateDer::pem_file_iter(cert)
-                .and_then(|c| c.collect::<Result<Vec<_>, _>>())
-                .with_context(|| {
-                    format!("cannot read the MQTT client certificate {}", cert.display())
-                })?;
-            let key = PrivateKeyDer::from_pem_file(key)
-                .with_context(|| format!("cannot read the MQTT client key {}", key.display()))?;
-            builder
-                .with_client_auth_cert(chain, key)
-                .context("the MQTT client certificate and key")?
-        }
-        _ => builder.with_no_client_auth(),
-    })
+    let client = match (&m.client_cert_file, &m.client_key_file) {
+        (Some(cert), Some(key)) => Some((cert.as_path(), key.as_path())),
+        _ => None,
+    };
+    super::tls::client_config(
+        m.ca_file.as_deref(),
+        client,
+        &super::tls::Hints {
+            ca: "set [mqtt] ca_file to the PEM file of the CA that signed the broker's certificate",
+            client: "set [mqtt] client_cert_file to the client certificate and client_key_file to its private key, both PEM",
+        },
+    )
 }

@@ -28,6 +28,7 @@
 //! (`topics`), the options and TLS (`connect`).
 
 pub mod connect;
+pub mod tls;
 pub mod topics;
 
 use crate::config::mqtt::Mqtt;

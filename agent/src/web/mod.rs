@@ -251,20 +251,35 @@ pub fn router(shared: Arc<Shared>) -> Router {
 async fn read_only(State(shared): State<Arc<Shared>>, request: Request, next: Next) -> Response {
     let mut response = if let Err(refusal) = host_check(&shared, &request) {
         refusal
-    } else if request.method() == Method::GET || request.method() == Method::HEAD {
+    } else if is_read(request.method()) {
         next.run(request).await
     } else {
-        let mut r = text(
-            StatusCode::METHOD_NOT_ALLOWED,
-            format!(
-                "{} is not allowed: this server is read-only and answers {ALLOW} only\n",
-                request.method()
-            ),
-        );
-        r.headers_mut()
-            .insert(header::ALLOW, HeaderValue::from_static(ALLOW));
-        r
+        method_refused(request.method(), "this server")
     };
+    with_common_headers(&mut response);
+    response
+}
+
+/// Whether `method` only reads (GET or HEAD): all a read-only page answers.
+pub(crate) fn is_read(method: &Method) -> bool {
+    method == Method::GET || method == Method::HEAD
+}
+
+/// The refusal of a method that would change something, for `server`
+/// ("this server", "the fleet view"), with the methods it does answer.
+pub(crate) fn method_refused(method: &Method, server: &str) -> Response {
+    let mut r = text(
+        StatusCode::METHOD_NOT_ALLOWED,
+        format!("{method} is not allowed: {server} is read-only and answers {ALLOW} only\n"),
+    );
+    r.headers_mut()
+        .insert(header::ALLOW, HeaderValue::from_static(ALLOW));
+    r
+}
+
+/// The headers every answer of a read-only page carries: no sniffing, no
+/// referrer, and no caching unless the handler said otherwise.
+pub(crate) fn with_common_headers(response: &mut Response) {
     let headers = response.headers_mut();
     headers.insert(
         header::X_CONTENT_TYPE_OPTIONS,
@@ -277,15 +292,14 @@ async fn read_only(State(shared): State<Arc<Shared>>, request: Request, next: Ne
     headers
         .entry(header::CACHE_CONTROL)
         .or_insert(HeaderValue::from_static("no-store"));
-    response
 }
 
-/// Answers `Err` with the refusal for a request whose `Host` does not name
-/// this page (see the module doc).
+/// The request's one host: its absolute URI's authority, which stands for
+/// Host (RFC 9112, 3.2.2), else its Host header; `Err` with the refusal
+/// when there is none, or more than one (RFC 9112, 3.2: whichever one a
+/// check read, a proxy or the application might use the other).
 #[allow(clippy::result_large_err)] // a refusal is the rare path
-fn host_check(shared: &Shared, request: &Request) -> Result<(), Response> {
-    // More than one Host is a bad request (RFC 9112, 3.2): whichever one a
-    // check read, a proxy or the application might use the other.
+pub(crate) fn request_host(request: &Request) -> Result<String, Response> {
     if request.headers().get_all(header::HOST).iter().count() > 1 {
         return Err(text(
             StatusCode::BAD_REQUEST,
@@ -293,7 +307,6 @@ fn host_check(shared: &Shared, request: &Request) -> Result<(), Response> {
                 .into(),
         ));
     }
-    // An absolute URI's authority stands for Host (RFC 9112, 3.2.2).
     let host = match request.uri().authority() {
         Some(authority) => Some(authority.as_str().to_owned()),
         None => request
@@ -301,12 +314,19 @@ fn host_check(shared: &Shared, request: &Request) -> Result<(), Response> {
             .get(header::HOST)
             .map(|v| String::from_utf8_lossy(v.as_bytes()).into_owned()),
     };
-    let Some(host) = host else {
-        return Err(text(
+    host.ok_or_else(|| {
+        text(
             StatusCode::BAD_REQUEST,
             "the request has no Host header; HTTP/1.1 requires one (RFC 9112, 3.2)\n".into(),
-        ));
-    };
+        )
+    })
+}
+
+/// Answers `Err` with the refusal for a request whose `Host` does not name
+/// this page (see the module doc).
+#[allow(clippy::result_large_err)] // a refusal is the rare path
+fn host_check(shared: &Shared, request: &Request) -> Result<(), Response> {
+    let host = request_host(request)?;
     let local = request
         .extensions()
         .get::<server::ConnectedTo>()
